@@ -1,0 +1,93 @@
+// Characterization of the uncompensated (P-only) loop K·G against the overshoot requirement:
+// the ζ-line crossings of the root locus, the dominant crossing, the second-order predictions
+// beside the simulated response, the reference P gain, and a dominance diagnosis.
+#pragma once
+
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "specloop/lti.hpp"
+#include "specloop/response.hpp"
+#include "specloop/second_order.hpp"
+#include "specloop/spec.hpp"
+
+namespace specloop {
+
+/// Root-locus asymptotes of K·G for K > 0 (standard root-locus rules: centroid
+/// (Σp − Σz)/(n − m), angles (2q + 1)·180°/(n − m)).
+struct Asymptotes {
+  double centroid = 0.0;
+  std::vector<double> angles_deg;  // empty when n == m
+};
+Asymptotes locus_asymptotes(const TransferFunction& g);
+
+/// Real points of the locus (K > 0) where branches meet or leave the real axis: real roots of
+/// N·D' − N'·D = 0 (i.e. dK/ds = 0) with K = −D/N > 0.
+std::vector<double> locus_breakaway_points(const TransferFunction& g);
+
+/// A gain at which a root-locus branch of K·G crosses the ζ-line (the ray at angle
+/// arccos ζ from the negative real axis).
+struct LocusCrossing {
+  double gain = 0.0;
+  Complex pair_pole;                  // the crossing point (upper half plane)
+  std::vector<Complex> poles;         // all closed-loop poles at this gain
+  bool stable = false;
+  double decay_ratio = 0.0;           // slowest other pole's |Re| ÷ the pair's σ (inf: none)
+};
+
+/// Every crossing of the ζ-line by K·G, K > 0, in increasing gain. The angle condition
+/// ∠G(s) = 180° on s = r·e^{j(π − arccos ζ)} becomes Im(D(s)·conj(N(s))) = 0, a real
+/// polynomial in r; its positive roots with K = −D/N > 0 are the crossings.
+std::vector<LocusCrossing> damping_line_crossings(const TransferFunction& g, double zeta);
+
+/// One closed-loop mode's share of the step response: |residue of T(s)·r/s at the pole| ÷ |y∞|
+/// (a conjugate pair counted once, both members together).
+struct ModeShare {
+  Complex pole;
+  std::optional<double> share;  // empty for a repeated pole (no simple residue)
+};
+/// Residue shares of the closed-loop modes of T(s) for a unit step.
+std::vector<ModeShare> mode_shares(const TransferFunction& closed_loop);
+
+struct DominanceDiagnosis {
+  bool holds = false;
+  std::string verdict;               // one plain sentence
+  std::vector<std::string> reasons;  // what breaks it (or why it holds), with numbers
+  std::vector<ModeShare> modes;
+  double overshoot_error_pct = 0.0;  // (simulated − predicted)/predicted·100
+  std::optional<double> peak_time_error_pct;
+  std::optional<double> settling_time_error_pct;
+};
+
+/// A P gain with its closed-loop poles and simulated step metrics.
+struct GainPoint {
+  double gain = 0.0;
+  std::vector<Complex> poles;
+  StepMetrics simulated;
+  ErrorConstants constants;   // of the loop K·G
+};
+
+struct Characterization {
+  double damping_ratio = 0.0;        // from overshoot_max_pct
+  double band_fraction = 0.02;
+  std::vector<LocusCrossing> crossings;
+  std::optional<std::size_t> dominant_index;
+  std::string dominant_reason;       // why that crossing (or why none)
+  std::optional<GainPoint> dominant;
+  std::optional<SecondOrderPrediction> second_order;
+  std::optional<GainPoint> reference;
+  std::string reference_note;        // why there is no reference, when there is none
+  std::optional<DominanceDiagnosis> dominance;
+  std::vector<std::string> notes;    // e.g. the plant delay is not part of this analysis
+};
+
+/// Runs the whole characterization for the spec's plant. Throws SpecError when the spec lacks
+/// what this needs (an overshoot limit).
+Characterization characterize(const Spec& spec);
+
+/// The P-gain loop K·G measured by exact simulation; std::nullopt when unstable.
+std::optional<GainPoint> measure_gain(const TransferFunction& plant, double gain, double amplitude,
+                                      double band_fraction, StepSimulator& simulator);
+
+}  // namespace specloop

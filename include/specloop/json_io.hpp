@@ -1,0 +1,23 @@
+// JSON forms of the results (the `--json` output and, later, result.json). Key names are a
+// contract read by tests outside the project: extend, don't rename.
+#pragma once
+
+#include <nlohmann/json.hpp>
+
+#include "specloop/characterize.hpp"
+
+namespace specloop {
+
+/// [re, im].
+nlohmann::json complex_json(Complex z);
+/// A list of [re, im] pairs.
+nlohmann::json poles_json(const std::vector<Complex>& poles);
+/// A finite number as is; ±infinity as the string "infinite" / "-infinite"; NaN is a bug and throws.
+nlohmann::json number_json(double v);
+/// Step metrics with the keys overshoot_pct, peak_time, settling_time, rise_time,
+/// steady_state_error, effort_peak, undershoot_pct, final_value, iae, ise, itae (null = none).
+nlohmann::json metrics_json(const StepMetrics& m);
+/// The whole `analyze --json` object.
+nlohmann::json characterization_json(const Spec& spec, const Characterization& ch);
+
+}  // namespace specloop

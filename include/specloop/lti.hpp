@@ -1,0 +1,82 @@
+// Linear time-invariant SISO models: transfer functions, state-space realizations and the
+// unity-negative-feedback closed loop (reference → output and reference → control effort).
+#pragma once
+
+#include <Eigen/Dense>
+#include <vector>
+
+#include "specloop/polynomial.hpp"
+
+namespace specloop {
+
+/// N(s)/D(s), coefficients highest power first.
+struct TransferFunction {
+  Polynomial numerator{std::vector<double>{1.0}};
+  Polynomial denominator{std::vector<double>{1.0}};
+
+  TransferFunction() = default;
+  TransferFunction(Polynomial num, Polynomial den);
+  /// k·Π(s − z)/Π(s − p); complex zeros/poles must come in conjugate pairs.
+  static TransferFunction from_zeros_poles(const std::vector<Complex>& zeros,
+                                           const std::vector<Complex>& poles, double gain);
+
+  Complex operator()(Complex s) const { return numerator(s) / denominator(s); }
+  std::vector<Complex> zeros() const { return numerator.roots(); }
+  std::vector<Complex> poles() const { return denominator.roots(); }
+  /// High-frequency gain k = leading(N)/leading(D).
+  double leading_gain() const { return numerator.leading() / denominator.leading(); }
+  bool is_proper() const { return numerator.degree() <= denominator.degree(); }
+  bool is_strictly_proper() const { return numerator.degree() < denominator.degree(); }
+  /// Denominator made monic (leading coefficient 1).
+  TransferFunction normalized() const;
+  /// System type: poles at s = 0 minus zeros at s = 0 (negative: differentiating).
+  int system_type() const;
+  /// G(0); +/-infinity when the system type is positive, 0 when negative.
+  double dc_gain() const;
+};
+
+TransferFunction operator*(const TransferFunction& a, const TransferFunction& b);
+
+/// Static error constants of an open loop L(s) (a standard controls text: position Kp = lim L,
+/// velocity Kv = lim s·L, acceleration Ka = lim s²·L as s → 0). Infinite values are +inf.
+struct ErrorConstants {
+  double position = 0.0;
+  double velocity = 0.0;
+  double acceleration = 0.0;
+};
+ErrorConstants error_constants(const TransferFunction& open_loop);
+
+/// x' = A x + B u, y = C x + D u. Single input; C has one row per output.
+struct StateSpace {
+  Eigen::MatrixXd A;
+  Eigen::VectorXd B;
+  Eigen::MatrixXd C;
+  Eigen::VectorXd D;
+  int states() const { return static_cast<int>(A.rows()); }
+  int outputs() const { return static_cast<int>(C.rows()); }
+};
+
+/// A well-conditioned realization of a proper transfer function: a cascade of first- and
+/// second-order sections built from its poles and zeros, each section scaled so its
+/// companion block is balanced (natural frequency on both off-diagonal entries).
+StateSpace realize(const TransferFunction& g);
+/// The realization of a static gain (no states).
+StateSpace static_gain(double k);
+/// Series connection: the output of `first` drives `second` (both single output).
+StateSpace series(const StateSpace& first, const StateSpace& second);
+
+/// Unity negative feedback e = r − y, u = C(e), y = P(u). Outputs: row 0 = y, row 1 = u.
+/// Throws std::domain_error when the loop is algebraically ill-posed (1 + Dc·Dp = 0).
+StateSpace close_loop(const StateSpace& plant, const StateSpace& controller);
+
+/// Closed-loop transfer functions of the same loop, as polynomials.
+struct ClosedLoopTF {
+  TransferFunction output;  // T(s) = L/(1 + L), reference → y
+  TransferFunction effort;  // reference → u = C/(1 + L)
+};
+ClosedLoopTF close_loop(const TransferFunction& plant, const TransferFunction& controller);
+
+/// True when every pole has real part below −tolerance·max(1, |p|).
+bool all_stable(const std::vector<Complex>& poles, double tolerance = 1e-9);
+
+}  // namespace specloop

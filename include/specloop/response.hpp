@@ -1,0 +1,95 @@
+// Exact step simulation of a stable linear loop by zero-order-hold discretization, and the
+// step-response metrics (definitions in README.md, "Metric definitions").
+#pragma once
+
+#include <Eigen/Dense>
+#include <optional>
+#include <string_view>
+#include <vector>
+
+#include "specloop/lti.hpp"
+
+namespace specloop {
+
+/// Step-response metrics. Times in s; output and effort in the loop's own units.
+struct StepMetrics {
+  double final_value = 0.0;              // y∞ from the closed loop's DC gain
+  double overshoot_pct = 0.0;            // (y_max − y∞)/|y∞|·100, 0 when y never exceeds y∞
+  std::optional<double> peak_time_s;     // time of y_max; empty when there is no overshoot
+  double undershoot_pct = 0.0;           // initial wrong-way excursion: max(0, −min y/y∞)·100
+  std::optional<double> settling_time_s; // last exit from the ±band around y∞; empty: not settled
+  std::optional<double> rise_time_s;     // first reach of 90 % minus first reach of 10 % of y∞
+  double steady_state_error = 0.0;       // (r − y∞)/r, exact (final-value theorem)
+  double effort_peak = 0.0;              // max |u(t)| over the horizon, including t = 0+
+  double iae = 0.0;                      // ∫|e| dt, e = y∞ − y (see README)
+  double ise = 0.0;                      // ∫e² dt
+  double itae = 0.0;                     // ∫t·|e| dt
+};
+
+enum class StepStatus {
+  ok,
+  unstable,           // a closed-loop pole on or right of the imaginary axis
+  zero_final_value,   // y∞ = 0: relative metrics are undefined
+  numerical_failure,  // a non-finite number appeared (reported, never written as NaN)
+};
+std::string_view status_name(StepStatus s);
+
+/// How the time grid is chosen from the closed-loop poles (README, "Time grid").
+struct TimeGridRules {
+  double decay_fraction = 1e-4;   // horizon T = ln(1/decay_fraction)/σ_slow (slowest mode decayed)
+  int min_samples = 2000;         // samples on [0, T] at least (t = 0 included)
+  int max_samples = 20000;        // cap; with it the resolution rule below may loosen
+  double max_step_pole_product = 1.0;  // h·|p| <= this for every pole, within the cap
+};
+
+struct TimeGrid {
+  double step_s = 0.0;  // h
+  int samples = 0;      // t_k = k·h, k = 0 .. samples − 1
+  double horizon_s() const { return step_s * (samples - 1); }
+};
+
+/// Chooses h and the number of samples from stable closed-loop poles.
+TimeGrid choose_time_grid(const std::vector<Complex>& poles, const TimeGridRules& rules);
+
+/// Sampled responses kept only when asked for (plots, tests).
+struct StepTrace {
+  std::vector<double> time_s, output, effort;
+};
+
+/// Exact step simulation with a reusable workspace: after the first call for a given state
+/// count and sample count, `simulate` allocates nothing (the optimizer's hot path).
+class StepSimulator {
+ public:
+  explicit StepSimulator(TimeGridRules rules = {});
+
+  /// Simulates the closed loop `loop` (outputs: row 0 = y, row 1 = u, as from close_loop)
+  /// for a step of `amplitude`, measuring with a settling band of `band_fraction` (0.02 = 2 %).
+  /// `trace`, when given, receives the sampled y and u.
+  StepStatus simulate(const StateSpace& loop, double amplitude, double band_fraction,
+                      StepMetrics& metrics, StepTrace* trace = nullptr);
+
+  /// The closed-loop poles (eigenvalues of A) found by the last call.
+  const std::vector<Complex>& poles() const { return poles_; }
+  /// The grid used by the last successful call.
+  const TimeGrid& grid() const { return grid_; }
+
+ private:
+  void prepare(int states, int samples);
+  void discretize(const StateSpace& loop, double amplitude);
+  void recur(int states);
+
+  TimeGridRules rules_;
+  TimeGrid grid_;
+  std::vector<Complex> poles_;
+  // Workspace (sized on demand, then reused).
+  int states_ = -1;
+  Eigen::EigenSolver<Eigen::MatrixXd> eigen_;
+  Eigen::PartialPivLU<Eigen::MatrixXd> lu_state_;
+  Eigen::PartialPivLU<Eigen::MatrixXd> lu_pade_;
+  Eigen::MatrixXd augmented_, power2_, power4_, power6_, even_, odd_, numer_, denom_, expo_;
+  Eigen::MatrixXd phi_, outputs_;  // Φ and [C_y; C_y·A; C_u; C_u·A]
+  Eigen::VectorXd gamma_, out_const_, x_, x_next_, solve_;
+  std::vector<double> y_, dy_, u_, du_;
+};
+
+}  // namespace specloop

@@ -1,0 +1,90 @@
+// The spec file: a TOML document of our own schema, parsed, validated and normalized.
+// Every key, its unit and its default is listed in README.md ("Spec file reference").
+#pragma once
+
+#include <complex>
+#include <optional>
+#include <stdexcept>
+#include <string>
+#include <string_view>
+#include <vector>
+
+namespace specloop {
+
+/// Compensator structures. Names as written in the spec: p, pi, pd, pid, lead, lag, lead-lag.
+enum class Structure { p, pi, pd, pid, lead, lag, lead_lag };
+
+/// Spec spelling of a structure ("lead-lag" for Structure::lead_lag).
+std::string_view structure_name(Structure s);
+/// Parses a spec spelling; std::nullopt for an unknown name.
+std::optional<Structure> parse_structure(std::string_view name);
+/// All spellings, in declaration order, for error messages.
+const std::vector<std::string>& structure_names();
+/// True when the structure contains an integrator (pi, pid).
+bool has_integrator(Structure s);
+
+/// A bad spec: the message is complete and already reads
+/// "specs/x.toml:12:1: requirements.overshoot_max_pct: expected a number in (0, 100), got -5".
+class SpecError : public std::runtime_error {
+ public:
+  using std::runtime_error::runtime_error;
+};
+
+/// The plant as written; both forms are filled after loading (the other one is derived).
+struct PlantSpec {
+  bool given_as_zeros_poles = true;           // which form the file used
+  std::vector<std::complex<double>> zeros;    // rad/s, conjugate pairs expanded, as listed
+  std::vector<std::complex<double>> poles;    // rad/s, conjugate pairs expanded, as listed
+  double gain = 1.0;                          // k in k·Π(s − z)/Π(s − p)
+  std::vector<double> numerator;              // highest power of s first
+  std::vector<double> denominator;            // highest power of s first, leading coefficient != 0
+  double delay_s = 0.0;                       // transport delay, s (>= 0)
+};
+
+struct ActuatorSpec {
+  double min = -1e300;                        // lower saturation limit, actuator units
+  double max = 1e300;                         // upper saturation limit, actuator units
+  bool limited = false;                       // true when the file gave min/max
+};
+
+struct ControllerSpec {
+  Structure structure = Structure::pid;
+  double derivative_filter = 10.0;            // N: derivative filter pole at N/Td (> 0)
+};
+
+/// Each requirement is optional: a requirement left out is not required.
+struct Requirements {
+  std::optional<double> overshoot_max_pct;       // %, in (0, 100)
+  std::optional<double> peak_time_ratio;         // peak time ÷ reference peak time, > 0
+  std::optional<double> peak_time_max_s;         // s, > 0
+  std::optional<double> settling_time_max_s;     // s, > 0
+  std::optional<double> rise_time_max_s;         // s, > 0 (10–90 %)
+  double settling_band_pct = 2.0;                // %, in (0, 50)
+  std::optional<double> steady_state_error_max;  // relative, >= 0
+  std::optional<double> effort_max;              // peak |u|, actuator units, > 0
+};
+
+struct ReferenceSpec {
+  double amplitude = 1.0;                     // step size, output units (!= 0)
+};
+
+struct Spec {
+  std::string path;                           // file it was read from ("<string>" for text)
+  std::string name;                           // file stem, used for default output folders
+  std::string title;
+  PlantSpec plant;
+  ActuatorSpec actuator;
+  ControllerSpec controller;
+  Requirements requirements;
+  ReferenceSpec reference;
+};
+
+/// Reads and validates a spec file. Throws SpecError (message as above) on any problem:
+/// unreadable file, TOML syntax, unknown key (with a did-you-mean), wrong type, out-of-range,
+/// NaN/inf, improper plant, zero leading coefficient, empty or duplicate section, contradiction.
+Spec load_spec(const std::string& path);
+
+/// Same as load_spec, from text; `path` is only used in messages and for `name`.
+Spec parse_spec(std::string_view text, const std::string& path);
+
+}  // namespace specloop

@@ -1,0 +1,242 @@
+// Transfer functions, the cascade realization and the feedback interconnection.
+#include "specloop/lti.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+#include <stdexcept>
+
+namespace specloop {
+
+namespace {
+// The coefficient of the lowest power of s that is not zero.
+double lowest_nonzero_coefficient(const Polynomial& p) {
+  return p.coefficients[p.coefficients.size() - 1 - static_cast<std::size_t>(p.roots_at_origin())];
+}
+}  // namespace
+
+TransferFunction::TransferFunction(Polynomial num, Polynomial den)
+    : numerator(std::move(num)), denominator(std::move(den)) {
+  if (denominator.is_zero()) throw std::invalid_argument("transfer function with a zero denominator");
+}
+
+TransferFunction TransferFunction::from_zeros_poles(const std::vector<Complex>& zeros,
+                                                    const std::vector<Complex>& poles, double gain) {
+  return {Polynomial::from_roots(zeros, gain), Polynomial::from_roots(poles)};
+}
+
+TransferFunction TransferFunction::normalized() const {
+  const double lead = denominator.leading();
+  return {(1.0 / lead) * numerator, (1.0 / lead) * denominator};
+}
+
+int TransferFunction::system_type() const {
+  return denominator.roots_at_origin() - numerator.roots_at_origin();
+}
+
+double TransferFunction::dc_gain() const {
+  if (numerator.is_zero()) return 0.0;
+  const int type = system_type();
+  if (type < 0) return 0.0;
+  const double ratio = lowest_nonzero_coefficient(numerator) / lowest_nonzero_coefficient(denominator);
+  return type > 0 ? std::copysign(std::numeric_limits<double>::infinity(), ratio) : ratio;
+}
+
+TransferFunction operator*(const TransferFunction& a, const TransferFunction& b) {
+  return {a.numerator * b.numerator, a.denominator * b.denominator};
+}
+
+ErrorConstants error_constants(const TransferFunction& open_loop) {
+  // lim s^k·L(s) as s → 0: with L of type t, it is infinite for k < t, the ratio of the lowest
+  // nonzero coefficients for k = t, and 0 for k > t.
+  const int type = open_loop.system_type();
+  const double ratio = lowest_nonzero_coefficient(open_loop.numerator) /
+                       lowest_nonzero_coefficient(open_loop.denominator);
+  auto limit = [&](int k) {
+    if (k < type) return std::numeric_limits<double>::infinity();
+    if (k == type) return std::abs(ratio);
+    return 0.0;
+  };
+  return {limit(0), limit(1), limit(2)};
+}
+
+namespace {
+
+// One section k·N(s)/D(s) with deg D in {1, 2}, deg N <= deg D, D monic, N monic or constant 1.
+StateSpace first_order_section(double pole, const std::vector<double>& zeros) {
+  StateSpace ss;
+  ss.A = Eigen::MatrixXd::Constant(1, 1, pole);
+  ss.B = Eigen::VectorXd::Ones(1);
+  ss.C.resize(1, 1);
+  ss.D.resize(1);
+  if (zeros.empty()) {
+    ss.C(0, 0) = 1.0;
+    ss.D(0) = 0.0;
+  } else {  // (s − z)/(s − p) = 1 + (p − z)/(s − p)
+    ss.C(0, 0) = pole - zeros[0];
+    ss.D(0) = 1.0;
+  }
+  return ss;
+}
+
+// (b2 s² + b1 s + b0)/(s² + a1 s + a0) in companion form scaled by w = sqrt(|a0|).
+StateSpace second_order_section(double a1, double a0, double b2, double b1, double b0) {
+  const double w = a0 != 0.0 ? std::sqrt(std::abs(a0)) : 1.0;
+  StateSpace ss;
+  ss.A.resize(2, 2);
+  ss.A << 0.0, w, -a0 / w, -a1;
+  ss.B = Eigen::Vector2d(0.0, 1.0);
+  ss.C.resize(1, 2);
+  ss.C << (b0 - b2 * a0) / w, b1 - b2 * a1;
+  ss.D = Eigen::VectorXd::Constant(1, b2);
+  return ss;
+}
+
+}  // namespace
+
+StateSpace static_gain(double k) {
+  StateSpace ss;
+  ss.A.resize(0, 0);
+  ss.B.resize(0);
+  ss.C.resize(1, 0);
+  ss.D = Eigen::VectorXd::Constant(1, k);
+  return ss;
+}
+
+StateSpace series(const StateSpace& first, const StateSpace& second) {
+  const int n1 = first.states(), n2 = second.states();
+  StateSpace ss;
+  ss.A = Eigen::MatrixXd::Zero(n1 + n2, n1 + n2);
+  ss.A.topLeftCorner(n1, n1) = first.A;
+  ss.A.bottomRightCorner(n2, n2) = second.A;
+  ss.A.bottomLeftCorner(n2, n1) = second.B * first.C.row(0);
+  ss.B.resize(n1 + n2);
+  ss.B.head(n1) = first.B;
+  ss.B.tail(n2) = second.B * first.D(0);
+  ss.C.resize(1, n1 + n2);
+  ss.C.leftCols(n1) = second.D(0) * first.C.row(0);
+  ss.C.rightCols(n2) = second.C.row(0);
+  ss.D = Eigen::VectorXd::Constant(1, second.D(0) * first.D(0));
+  return ss;
+}
+
+StateSpace realize(const TransferFunction& g) {
+  if (!g.is_proper())
+    throw std::invalid_argument("cannot realize an improper transfer function (numerator degree " +
+                                std::to_string(g.numerator.degree()) + " > denominator degree " +
+                                std::to_string(g.denominator.degree()) + ")");
+  const double k = g.leading_gain();
+  if (g.numerator.is_zero()) {
+    StateSpace ss = static_gain(0.0);
+    return ss;
+  }
+  std::vector<Complex> poles = g.poles();
+  std::vector<Complex> zeros = g.zeros();
+
+  // Group poles into sections: conjugate pairs, then real poles two by two, a last one alone.
+  struct Section {
+    std::vector<Complex> poles;
+    std::vector<Complex> zeros;
+  };
+  std::vector<Section> sections;
+  std::vector<double> real_poles;
+  for (const Complex& p : poles) {
+    if (p.imag() > 0.0) sections.push_back({{p, std::conj(p)}, {}});
+    else if (p.imag() == 0.0) real_poles.push_back(p.real());
+  }
+  for (std::size_t i = 0; i + 1 < real_poles.size(); i += 2)
+    sections.push_back({{real_poles[i], real_poles[i + 1]}, {}});
+  if (real_poles.size() % 2 == 1) sections.push_back({{real_poles.back()}, {}});
+
+  // Complex zero pairs to second-order sections first, then real zeros wherever there is room.
+  std::vector<double> real_zeros;
+  std::size_t next_pair_section = 0;
+  for (const Complex& z : zeros) {
+    if (z.imag() > 0.0) {
+      while (next_pair_section < sections.size() && sections[next_pair_section].poles.size() != 2) ++next_pair_section;
+      if (next_pair_section == sections.size()) throw std::logic_error("realize: no section for a complex zero pair");
+      sections[next_pair_section++].zeros = {z, std::conj(z)};
+    } else if (z.imag() == 0.0) {
+      real_zeros.push_back(z.real());
+    }
+  }
+  std::size_t next_zero = 0;
+  for (Section& s : sections) {
+    while (next_zero < real_zeros.size() && s.zeros.size() < s.poles.size()) s.zeros.emplace_back(real_zeros[next_zero++]);
+  }
+  if (next_zero != real_zeros.size()) throw std::logic_error("realize: zeros left without a section");
+
+  StateSpace result = static_gain(k);
+  bool first = true;
+  for (const Section& s : sections) {
+    StateSpace block;
+    if (s.poles.size() == 1) {
+      std::vector<double> z;
+      for (const Complex& c : s.zeros) z.push_back(c.real());
+      block = first_order_section(s.poles[0].real(), z);
+    } else {
+      const Polynomial den = Polynomial::from_roots(s.poles);
+      const Polynomial num = Polynomial::from_roots(s.zeros);
+      std::vector<double> b(3, 0.0);
+      std::copy(num.coefficients.begin(), num.coefficients.end(), b.end() - static_cast<std::ptrdiff_t>(num.coefficients.size()));
+      block = second_order_section(den.coefficients[1], den.coefficients[2], b[0], b[1], b[2]);
+    }
+    result = first ? series(block, result) : series(result, block);
+    first = false;
+  }
+  if (sections.empty()) return static_gain(k);
+  return result;
+}
+
+StateSpace close_loop(const StateSpace& plant, const StateSpace& controller) {
+  const int np = plant.states(), nc = controller.states();
+  const double dp = plant.D(0), dc = controller.D(0);
+  const double denom = 1.0 + dc * dp;
+  if (std::abs(denom) < 1e-12) throw std::domain_error("closed loop is ill-posed: 1 + Dc·Dp = 0");
+  // u = (Cc xc + Dc r − Dc Cp xp)/denom ;  y = Cp xp + Dp u ;  e = r − y.
+  const Eigen::RowVectorXd cp = plant.C.row(0);
+  const Eigen::RowVectorXd cc = controller.C.row(0);
+  Eigen::MatrixXd u_x(1, np + nc);
+  u_x.leftCols(np) = -dc * cp / denom;
+  u_x.rightCols(nc) = cc / denom;
+  const double u_r = dc / denom;
+  Eigen::MatrixXd y_x(1, np + nc);
+  y_x.leftCols(np) = cp + dp * u_x.leftCols(np);
+  y_x.rightCols(nc) = dp * u_x.rightCols(nc);
+  const double y_r = dp * u_r;
+
+  StateSpace cl;
+  const int n = np + nc;
+  cl.A = Eigen::MatrixXd::Zero(n, n);
+  cl.B = Eigen::VectorXd::Zero(n);
+  // xp' = Ap xp + Bp u
+  cl.A.topRows(np) = plant.B * u_x;
+  cl.A.topLeftCorner(np, np) += plant.A;
+  cl.B.head(np) = plant.B * u_r;
+  // xc' = Ac xc + Bc (r − y)
+  cl.A.bottomRows(nc) = -controller.B * y_x;
+  cl.A.bottomRightCorner(nc, nc) += controller.A;
+  cl.B.tail(nc) = controller.B * (1.0 - y_r);
+  cl.C.resize(2, n);
+  cl.C.row(0) = y_x;
+  cl.C.row(1) = u_x;
+  cl.D.resize(2);
+  cl.D << y_r, u_r;
+  return cl;
+}
+
+ClosedLoopTF close_loop(const TransferFunction& plant, const TransferFunction& controller) {
+  const Polynomial loop_num = controller.numerator * plant.numerator;
+  const Polynomial loop_den = controller.denominator * plant.denominator;
+  const Polynomial characteristic = loop_den + loop_num;
+  return {TransferFunction(loop_num, characteristic),
+          TransferFunction(controller.numerator * plant.denominator, characteristic)};
+}
+
+bool all_stable(const std::vector<Complex>& poles, double tolerance) {
+  return std::all_of(poles.begin(), poles.end(), [&](const Complex& p) {
+    return p.real() < -tolerance * std::max(1.0, std::abs(p));
+  });
+}
+
+}  // namespace specloop

@@ -1,0 +1,126 @@
+// The specloop command line: subcommands, exit codes (0 ok, 1 requirement not met, 2 bad input),
+// and the terminal tables.
+#include <CLI/CLI.hpp>
+#include <fmt/format.h>
+#include <iostream>
+
+#include "specloop/characterize.hpp"
+#include "specloop/json_io.hpp"
+#include "specloop/spec.hpp"
+
+namespace {
+
+using namespace specloop;
+
+std::string opt_time(const std::optional<double>& t) { return t ? fmt::format("{:.4g} s", *t) : "—"; }
+
+std::string pole_text(Complex p) {
+  if (p.imag() == 0.0) return fmt::format("{:.4g}", p.real());
+  return fmt::format("{:.4g} {} j{:.4g}", p.real(), p.imag() > 0 ? '+' : '-', std::abs(p.imag()));
+}
+
+std::string poles_text(const std::vector<Complex>& poles) {
+  std::string out;
+  for (const Complex& p : poles) {
+    if (p.imag() < 0.0) continue;  // print each pair once, as ±
+    if (!out.empty()) out += ", ";
+    out += p.imag() == 0.0 ? pole_text(p) : fmt::format("{:.4g} ± j{:.4g}", p.real(), p.imag());
+  }
+  return out;
+}
+
+std::string constant_text(double v) { return std::isinf(v) ? "∞" : fmt::format("{:.4g}", v); }
+
+void print_analysis(const Spec& spec, const Characterization& ch) {
+  const double limit = *spec.requirements.overshoot_max_pct;
+  fmt::print("{}\n", spec.title.empty() ? spec.name : spec.title);
+  fmt::print("P-only loop K·G against overshoot ≤ {:.4g} %  →  ζ = {:.4f}\n\n", limit, ch.damping_ratio);
+  if (ch.crossings.empty()) {
+    fmt::print("ζ-line crossings: none. {}\n", ch.dominant_reason);
+  } else {
+    fmt::print("ζ-line crossings of the root locus\n");
+    fmt::print("  {:>3}  {:>12}  {:>22}  {:>7}  {:>9}\n", "#", "gain K", "crossing point", "stable", "σ ratio");
+    for (std::size_t i = 0; i < ch.crossings.size(); ++i) {
+      const auto& c = ch.crossings[i];
+      fmt::print("  {:>3}  {:>12.5g}  {:>22}  {:>7}  {:>9}{}\n", i + 1, c.gain,
+                 fmt::format("{:.4g} ± j{:.4g}", c.pair_pole.real(), c.pair_pole.imag()), c.stable ? "yes" : "no",
+                 std::isinf(c.decay_ratio) ? "—" : fmt::format("{:.2f}", c.decay_ratio),
+                 ch.dominant_index && *ch.dominant_index == i ? "  ← dominant" : "");
+    }
+    fmt::print("  dominant: {}\n", ch.dominant_reason);
+  }
+  fmt::print("\n");
+  if (ch.dominant && ch.second_order) {
+    const auto& s = ch.dominant->simulated;
+    const auto& p = *ch.second_order;
+    fmt::print("At the dominant crossing, K = {:.5g}; closed-loop poles {}\n", ch.dominant->gain,
+               poles_text(ch.dominant->poles));
+    fmt::print("  {:<18} {:>14} {:>14} {:>10}\n", "", "second-order", "simulated", "error");
+    fmt::print("  {:<18} {:>12.3f} % {:>12.3f} % {:>9.0f} %\n", "overshoot", p.overshoot_pct, s.overshoot_pct,
+               ch.dominance->overshoot_error_pct);
+    fmt::print("  {:<18} {:>12.4g} s {:>14} {:>10}\n", "peak time", p.peak_time_s, opt_time(s.peak_time_s),
+               ch.dominance->peak_time_error_pct ? fmt::format("{:.0f} %", *ch.dominance->peak_time_error_pct) : "—");
+    fmt::print("  {:<18} {:>12.4g} s {:>14} {:>10}\n", "settling time", p.settling_time_s, opt_time(s.settling_time_s),
+               ch.dominance->settling_time_error_pct ? fmt::format("{:.0f} %", *ch.dominance->settling_time_error_pct) : "—");
+    fmt::print("\n");
+  }
+  fmt::print("  {:<28} {:>14} {:>14}\n", "", "dominant K", "reference K");
+  auto cell = [](const std::optional<GainPoint>& g, auto f) { return g ? f(*g) : std::string("—"); };
+  const auto& d = ch.dominant;
+  const auto& r = ch.reference;
+  auto row = [&](const char* name, auto f) { fmt::print("  {:<28} {:>14} {:>14}\n", name, cell(d, f), cell(r, f)); };
+  row("gain", [](const GainPoint& g) { return fmt::format("{:.5g}", g.gain); });
+  row("overshoot", [](const GainPoint& g) { return fmt::format("{:.3f} %", g.simulated.overshoot_pct); });
+  row("peak time", [](const GainPoint& g) { return opt_time(g.simulated.peak_time_s); });
+  row("settling time", [](const GainPoint& g) { return opt_time(g.simulated.settling_time_s); });
+  row("rise time (10–90 %)", [](const GainPoint& g) { return opt_time(g.simulated.rise_time_s); });
+  row("position constant Kp", [](const GainPoint& g) { return constant_text(g.constants.position); });
+  row("velocity constant Kv", [](const GainPoint& g) { return constant_text(g.constants.velocity); });
+  row("steady-state error", [](const GainPoint& g) { return fmt::format("{:.4g}", g.simulated.steady_state_error); });
+  row("peak |u|", [](const GainPoint& g) { return fmt::format("{:.4g}", g.simulated.effort_peak); });
+  row("ITAE", [](const GainPoint& g) { return fmt::format("{:.4g}", g.simulated.itae); });
+  if (r) fmt::print("  reference peak time (what peak_time_ratio multiplies): {}\n", opt_time(r->simulated.peak_time_s));
+  else fmt::print("  no reference gain: {}\n", ch.reference_note);
+  fmt::print("\nDominance: {}\n", ch.dominance ? ch.dominance->verdict : "no dominant crossing to judge");
+  if (ch.dominance)
+    for (const auto& reason : ch.dominance->reasons) fmt::print("  - {}\n", reason);
+  for (const auto& note : ch.notes) fmt::print("Note: {}\n", note);
+}
+
+}  // namespace
+
+int main(int argc, char** argv) {
+  CLI::App app{"specloop: compensator design against hard step-response requirements"};
+  app.require_subcommand(1);
+  app.set_version_flag("--version", std::string("specloop ") + SPECLOOP_VERSION);
+
+  std::string spec_path;
+  bool as_json = false;
+  auto* analyze = app.add_subcommand("analyze", "Characterize the P-only loop against the overshoot requirement");
+  analyze->add_option("SPEC", spec_path, "spec file (TOML)")->required();
+  analyze->add_flag("--json", as_json, "print one JSON object instead of the tables");
+
+  try {
+    app.parse(argc, argv);
+  } catch (const CLI::ParseError& e) {
+    const int code = app.exit(e);
+    return code == 0 ? 0 : 2;
+  }
+
+  try {
+    if (*analyze) {
+      const Spec spec = load_spec(spec_path);
+      const Characterization ch = characterize(spec);
+      if (as_json) std::cout << characterization_json(spec, ch).dump(2) << "\n";
+      else print_analysis(spec, ch);
+      return 0;
+    }
+  } catch (const SpecError& e) {
+    std::cerr << e.what() << "\n";
+    return 2;
+  } catch (const std::exception& e) {
+    std::cerr << "specloop: internal error: " << e.what() << "\n";
+    return 3;
+  }
+  return 0;
+}

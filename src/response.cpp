@@ -1,0 +1,358 @@
+// Exact ZOH step simulation and step metrics with between-sample refinement.
+//
+// A step input is constant between samples, so x[k+1] = Φ·x[k] + Γ·r is exact at the samples
+// (Φ = e^{Ah}, Γ = ∫₀ʰ e^{Aτ}dτ·B, both from one exponential of the augmented matrix
+// [[A, B], [0, 0]]·h). The state derivative x' = A·x + B·r is exact at every sample too, so
+// each output is known with its slope at both ends of each interval; peaks, band crossings
+// and integrals between samples use the cubic Hermite interpolant of those four numbers.
+#include "specloop/response.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+
+namespace specloop {
+
+std::string_view status_name(StepStatus s) {
+  switch (s) {
+    case StepStatus::ok: return "ok";
+    case StepStatus::unstable: return "unstable";
+    case StepStatus::zero_final_value: return "zero final value";
+    case StepStatus::numerical_failure: return "numerical failure";
+  }
+  return "?";
+}
+
+TimeGrid choose_time_grid(const std::vector<Complex>& poles, const TimeGridRules& rules) {
+  double slowest = std::numeric_limits<double>::infinity();
+  double fastest = 0.0;
+  for (const Complex& p : poles) {
+    slowest = std::min(slowest, -p.real());
+    fastest = std::max(fastest, std::abs(p));
+  }
+  TimeGrid grid;
+  if (poles.empty()) {  // a static loop: nothing moves; a short grid keeps the code uniform
+    grid.step_s = 1.0 / (rules.min_samples - 1);
+    grid.samples = rules.min_samples;
+    return grid;
+  }
+  const double horizon = std::log(1.0 / rules.decay_fraction) / slowest;
+  double intervals = rules.min_samples - 1;
+  if (fastest > 0.0) intervals = std::max(intervals, std::ceil(horizon * fastest / rules.max_step_pole_product));
+  intervals = std::min(intervals, static_cast<double>(rules.max_samples - 1));
+  grid.samples = static_cast<int>(intervals) + 1;
+  grid.step_s = horizon / intervals;
+  return grid;
+}
+
+namespace {
+
+// Cubic Hermite interpolant on one interval of length h: values f0, f1 and slopes d0, d1.
+struct Hermite {
+  double f0, f1, d0, d1, h;
+  double value(double s) const {  // s in [0, 1]
+    const double s2 = s * s, s3 = s2 * s;
+    return (2 * s3 - 3 * s2 + 1) * f0 + (s3 - 2 * s2 + s) * h * d0 + (-2 * s3 + 3 * s2) * f1 +
+           (s3 - s2) * h * d1;
+  }
+  // Extremum (max when sign = +1, min when −1) over [0, 1]; returns {value, s}.
+  std::pair<double, double> extremum(double sign) const {
+    // p'(s)·h = a s² + b s + c
+    const double a = 6 * f0 + 3 * h * d0 - 6 * f1 + 3 * h * d1;
+    const double b = -6 * f0 - 4 * h * d0 + 6 * f1 - 2 * h * d1;
+    const double c = h * d0;
+    std::pair<double, double> best{f0, 0.0};
+    auto consider = [&](double s) {
+      if (!(s >= 0.0 && s <= 1.0)) return;
+      const double v = value(s);
+      if (sign * v > sign * best.first) best = {v, s};
+    };
+    consider(1.0);
+    if (std::abs(a) > 1e-300) {
+      const double disc = b * b - 4 * a * c;
+      if (disc >= 0.0) {
+        const double q = -0.5 * (b + std::copysign(std::sqrt(disc), b));
+        if (q != 0.0) consider(c / q);
+        consider(q / a);
+      }
+    } else if (std::abs(b) > 1e-300) {
+      consider(-c / b);
+    }
+    return best;
+  }
+  // s in [0, 1] where the interpolant equals `level`; f0 and f1 lie on opposite sides (or on it).
+  double crossing(double level) const {
+    double lo = 0.0, hi = 1.0;
+    const double g0 = f0 - level;
+    if (g0 == 0.0) return 0.0;
+    for (int i = 0; i < 50; ++i) {
+      const double mid = 0.5 * (lo + hi);
+      const double g = value(mid) - level;
+      if ((g > 0.0) == (g0 > 0.0)) lo = mid; else hi = mid;
+    }
+    return 0.5 * (lo + hi);
+  }
+};
+
+// Integral over one interval of a smooth f with end values and slopes (Hermite-corrected
+// trapezoid, exact for cubics).
+inline double interval_integral(double f0, double f1, double d0, double d1, double h) {
+  return 0.5 * h * (f0 + f1) + h * h * (d0 - d1) / 12.0;
+}
+
+// Padé(6,6) coefficients of the exponential (Moler & Van Loan, "Nineteen dubious ways...").
+constexpr double kPade[7] = {1.0, 1.0 / 2, 5.0 / 44, 1.0 / 66, 1.0 / 792, 1.0 / 15840, 1.0 / 665280};
+
+template <int N>
+void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dyn,
+                 const Eigen::MatrixXd& out_dyn, const Eigen::VectorXd& oc_dyn, int samples,
+                 double* y, double* dy, double* u, double* du) {
+  const Eigen::Matrix<double, N, N> phi = phi_dyn;
+  const Eigen::Matrix<double, N, 1> gamma = gamma_dyn;
+  const Eigen::Matrix<double, 4, N> out = out_dyn;
+  const Eigen::Vector4d oc = oc_dyn;
+  Eigen::Matrix<double, N, 1> x = Eigen::Matrix<double, N, 1>::Zero();
+  for (int k = 0; k < samples; ++k) {
+    const Eigen::Vector4d o = out * x + oc;
+    y[k] = o(0);
+    dy[k] = o(1);
+    u[k] = o(2);
+    du[k] = o(3);
+    x = phi * x + gamma;
+  }
+}
+
+}  // namespace
+
+StepSimulator::StepSimulator(TimeGridRules rules) : rules_(rules) {}
+
+void StepSimulator::prepare(int n, int samples) {
+  if (n != states_) {
+    const int m = n + 1;
+    eigen_ = Eigen::EigenSolver<Eigen::MatrixXd>(n);
+    lu_state_ = Eigen::PartialPivLU<Eigen::MatrixXd>(n);
+    lu_pade_ = Eigen::PartialPivLU<Eigen::MatrixXd>(m);
+    for (Eigen::MatrixXd* mat : {&augmented_, &power2_, &power4_, &power6_, &even_, &odd_, &numer_, &denom_, &expo_})
+      mat->resize(m, m);
+    phi_.resize(n, n);
+    outputs_.resize(4, n);
+    gamma_.resize(n);
+    out_const_.resize(4);
+    x_.resize(n);
+    x_next_.resize(n);
+    solve_.resize(n);
+    poles_.reserve(static_cast<std::size_t>(n));
+    states_ = n;
+  }
+  if (static_cast<int>(y_.size()) < samples) {
+    for (auto* v : {&y_, &dy_, &u_, &du_}) v->resize(static_cast<std::size_t>(samples));
+  }
+}
+
+void StepSimulator::discretize(const StateSpace& loop, double amplitude) {
+  const int n = loop.states();
+  const double h = grid_.step_s;
+  // Augmented exponential: exp([[A, B·r], [0, 0]]·h) = [[Φ, Γ·r], [0, 1]].
+  augmented_.setZero();
+  augmented_.topLeftCorner(n, n) = loop.A * h;
+  augmented_.topRightCorner(n, 1) = loop.B * (amplitude * h);
+  // Scaling and squaring with a Padé(6,6) approximant: scale so the norm is at most 1/2.
+  const double norm = augmented_.cwiseAbs().rowwise().sum().maxCoeff();
+  int squarings = 0;
+  if (norm > 0.5) squarings = static_cast<int>(std::ceil(std::log2(norm / 0.5)));
+  augmented_ *= std::ldexp(1.0, -squarings);
+  power2_.noalias() = augmented_ * augmented_;
+  power4_.noalias() = power2_ * power2_;
+  power6_.noalias() = power4_ * power2_;
+  even_ = kPade[2] * power2_ + kPade[4] * power4_ + kPade[6] * power6_;
+  even_.diagonal().array() += kPade[0];
+  numer_ = kPade[1] * Eigen::MatrixXd::Identity(n + 1, n + 1) + kPade[3] * power2_ + kPade[5] * power4_;
+  odd_.noalias() = augmented_ * numer_;
+  numer_ = even_ + odd_;
+  denom_ = even_ - odd_;
+  lu_pade_.compute(denom_);
+  expo_ = lu_pade_.solve(numer_);
+  for (int i = 0; i < squarings; ++i) {
+    power2_.noalias() = expo_ * expo_;
+    expo_.swap(power2_);
+  }
+  phi_ = expo_.topLeftCorner(n, n);
+  gamma_ = expo_.topRightCorner(n, 1);
+  // Outputs and their slopes: y = C_y x + D_y r, y' = C_y A x + C_y B r (likewise u).
+  outputs_.row(0) = loop.C.row(0);
+  outputs_.row(1).noalias() = loop.C.row(0) * loop.A;
+  outputs_.row(2) = loop.C.row(1);
+  outputs_.row(3).noalias() = loop.C.row(1) * loop.A;
+  out_const_(0) = loop.D(0) * amplitude;
+  out_const_(1) = loop.C.row(0).dot(loop.B) * amplitude;
+  out_const_(2) = loop.D(1) * amplitude;
+  out_const_(3) = loop.C.row(1).dot(loop.B) * amplitude;
+}
+
+void StepSimulator::recur(int n) {
+  double* y = y_.data();
+  double* dy = dy_.data();
+  double* u = u_.data();
+  double* du = du_.data();
+  const int K = grid_.samples;
+  switch (n) {
+    case 1: return recur_fixed<1>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
+    case 2: return recur_fixed<2>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
+    case 3: return recur_fixed<3>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
+    case 4: return recur_fixed<4>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
+    case 5: return recur_fixed<5>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
+    case 6: return recur_fixed<6>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
+    case 7: return recur_fixed<7>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
+    case 8: return recur_fixed<8>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
+    default: break;
+  }
+  x_.setZero();
+  for (int k = 0; k < K; ++k) {
+    y[k] = outputs_.row(0).dot(x_) + out_const_(0);
+    dy[k] = outputs_.row(1).dot(x_) + out_const_(1);
+    u[k] = outputs_.row(2).dot(x_) + out_const_(2);
+    du[k] = outputs_.row(3).dot(x_) + out_const_(3);
+    x_next_.noalias() = phi_ * x_;
+    x_next_ += gamma_;
+    x_.swap(x_next_);
+  }
+}
+
+StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, double band_fraction,
+                                   StepMetrics& m, StepTrace* trace) {
+  const int n = loop.states();
+  if (n != states_) prepare(n, 0);
+  m = StepMetrics{};
+
+  // Stability first, from the poles.
+  poles_.clear();
+  if (n > 0) {
+    eigen_.compute(loop.A, false);
+    if (eigen_.info() != Eigen::Success) return StepStatus::numerical_failure;
+    for (int i = 0; i < n; ++i) poles_.push_back(eigen_.eigenvalues()(i));
+    sort_roots(poles_);
+    if (!all_stable(poles_)) return StepStatus::unstable;
+  }
+
+  // Final value: y∞ = r·(D_y − C_y A⁻¹ B).
+  double dc = loop.D(0);
+  if (n > 0) {
+    lu_state_.compute(loop.A);
+    solve_ = lu_state_.solve(loop.B);
+    dc -= loop.C.row(0).dot(solve_);
+  }
+  const double y_inf = amplitude * dc;
+  if (!std::isfinite(y_inf)) return StepStatus::numerical_failure;
+  if (std::abs(y_inf) <= 1e-12 * std::abs(amplitude)) return StepStatus::zero_final_value;
+  m.final_value = y_inf;
+  m.steady_state_error = (amplitude - y_inf) / amplitude;
+
+  grid_ = choose_time_grid(poles_, rules_);
+  prepare(n, grid_.samples);
+  if (n > 0) {
+    discretize(loop, amplitude);
+    recur(n);
+  } else {
+    for (int k = 0; k < grid_.samples; ++k) {
+      y_[k] = loop.D(0) * amplitude;
+      u_[k] = loop.D(1) * amplitude;
+      dy_[k] = du_[k] = 0.0;
+    }
+  }
+  const int K = grid_.samples;
+  const double h = grid_.step_s;
+  const double* y = y_.data();
+  const double* dy = dy_.data();
+  const double* u = u_.data();
+  const double* du = du_.data();
+  if (!std::isfinite(y[K - 1]) || !std::isfinite(u[K - 1])) return StepStatus::numerical_failure;
+
+  // One pass: extremes (normalized by y∞), band exits, threshold crossings, integrals.
+  const double inv = 1.0 / y_inf;
+  int k_max = 0, k_min = 0, k_effort = 0, k_outside = -1, k10 = -1, k90 = -1;
+  double iae = 0.0, ise = 0.0, itae = 0.0;
+  for (int k = 0; k < K; ++k) {
+    const double yn = y[k] * inv;
+    if (yn > y[k_max] * inv) k_max = k;
+    if (yn < y[k_min] * inv) k_min = k;
+    if (std::abs(u[k]) > std::abs(u[k_effort])) k_effort = k;
+    if (std::abs(yn - 1.0) > band_fraction) k_outside = k;
+    if (k10 < 0 && yn >= 0.1) k10 = k;
+    if (k90 < 0 && yn >= 0.9) k90 = k;
+    if (k + 1 < K) {
+      const double e0 = y_inf - y[k], e1 = y_inf - y[k + 1];
+      const double de0 = -dy[k], de1 = -dy[k + 1];
+      const double t0 = k * h, t1 = (k + 1) * h;
+      ise += interval_integral(e0 * e0, e1 * e1, 2 * e0 * de0, 2 * e1 * de1, h);
+      if ((e0 >= 0.0) == (e1 >= 0.0)) {
+        iae += std::abs(interval_integral(e0, e1, de0, de1, h));
+        itae += std::abs(interval_integral(t0 * e0, t1 * e1, e0 + t0 * de0, e1 + t1 * de1, h));
+      } else {  // sign change inside: split at the linear-interpolated zero
+        const double s = e0 / (e0 - e1);
+        iae += 0.5 * h * (std::abs(e0) * s + std::abs(e1) * (1.0 - s));
+        itae += 0.5 * h * (t0 * std::abs(e0) * s + t1 * std::abs(e1) * (1.0 - s));
+      }
+    }
+  }
+  m.iae = iae;
+  m.ise = ise;
+  m.itae = itae;
+
+  auto interval = [&](const double* f, const double* df, int k) {
+    return Hermite{f[k], f[k + 1], df[k], df[k + 1], h};
+  };
+  // Refined extremum of f around sample k (intervals k−1..k and k..k+1). Returns {value, time}.
+  auto refine_extremum = [&](const double* f, const double* df, int k, double sign) {
+    std::pair<double, double> best{f[k], k * h};
+    for (int j : {k - 1, k}) {
+      if (j < 0 || j + 1 >= K) continue;
+      const auto [v, s] = interval(f, df, j).extremum(sign);
+      if (sign * v > sign * best.first) best = {v, (j + s) * h};
+    }
+    return best;
+  };
+
+  const double sign = y_inf > 0.0 ? 1.0 : -1.0;  // extremes of y/y∞ are extremes of sign·y
+  const auto [y_peak, t_peak] = refine_extremum(y, dy, k_max, sign);
+  const double peak_n = y_peak * inv;
+  if (peak_n > 1.0 + 1e-9) {
+    m.overshoot_pct = (peak_n - 1.0) * 100.0;
+    m.peak_time_s = t_peak;
+  }
+  const auto [y_low, t_low] = refine_extremum(y, dy, k_min, -sign);
+  (void)t_low;
+  m.undershoot_pct = std::max(0.0, -y_low * inv) * 100.0;
+
+  const auto [u_peak, t_u] = refine_extremum(u, du, k_effort, u[k_effort] >= 0.0 ? 1.0 : -1.0);
+  (void)t_u;
+  m.effort_peak = std::abs(u_peak);
+
+  auto crossing_time = [&](int k_after, double level_n) {
+    // First sample at/above the level is k_after; the crossing is in (k_after − 1, k_after).
+    if (k_after <= 0) return 0.0;
+    const double s = interval(y, dy, k_after - 1).crossing(level_n * y_inf);
+    return (k_after - 1 + s) * h;
+  };
+  if (k10 >= 0 && k90 >= 0) m.rise_time_s = crossing_time(k90, 0.9) - crossing_time(k10, 0.1);
+
+  if (k_outside < 0) {
+    m.settling_time_s = 0.0;
+  } else if (k_outside + 1 < K) {
+    const double side = (y[k_outside] * inv > 1.0) ? 1.0 : -1.0;
+    const double s = interval(y, dy, k_outside).crossing((1.0 + side * band_fraction) * y_inf);
+    m.settling_time_s = (k_outside + s) * h;
+  }
+
+  if (!std::isfinite(m.overshoot_pct) || !std::isfinite(m.effort_peak) || !std::isfinite(m.itae))
+    return StepStatus::numerical_failure;
+
+  if (trace) {
+    trace->time_s.resize(static_cast<std::size_t>(K));
+    trace->output.assign(y, y + K);
+    trace->effort.assign(u, u + K);
+    for (int k = 0; k < K; ++k) trace->time_s[static_cast<std::size_t>(k)] = k * h;
+  }
+  return StepStatus::ok;
+}
+
+}  // namespace specloop
