@@ -1,0 +1,56 @@
+// The optimizer's hot path (discretize, recur, measure for a given realization) must not
+// allocate after the first call. Global operator new is replaced here to count allocations.
+#include <catch2/catch.hpp>
+#include <atomic>
+#include <cstdlib>
+#include <new>
+
+#include "specloop/response.hpp"
+
+namespace {
+std::atomic<bool> counting{false};
+std::atomic<long> allocations{0};
+}  // namespace
+
+void* operator new(std::size_t size) {
+  if (counting.load(std::memory_order_relaxed)) allocations.fetch_add(1, std::memory_order_relaxed);
+  if (void* p = std::malloc(size == 0 ? 1 : size)) return p;
+  throw std::bad_alloc();
+}
+void operator delete(void* p) noexcept { std::free(p); }
+void operator delete(void* p, std::size_t) noexcept { std::free(p); }
+
+using namespace specloop;
+
+TEST_CASE("step simulation allocates nothing after the first call", "[response][hot-path]") {
+  // The counter itself works: an allocation while counting is seen.
+  counting = true;
+  { std::vector<double> probe(16, 1.0); (void)probe; }
+  counting = false;
+  REQUIRE(allocations.load() > 0);
+
+  StepSimulator sim;
+  StepMetrics m;
+  // Three loop orders: the fixed-size kernels (4 and 8 states) and the general one (10).
+  for (int order : {4, 8, 10}) {
+    std::vector<Complex> poles;
+    double dc_scale = 1.0 / 2.5;  // plant DC gain 1: a small loop gain keeps every order stable
+    for (int i = 0; i < order; ++i) {
+      poles.emplace_back(-0.7 * (i + 1), 0.0);
+      dc_scale *= 0.7 * (i + 1);
+    }
+    const auto plant = TransferFunction::from_zeros_poles({{-2.5, 0.0}}, poles, dc_scale);
+    const StateSpace loop_a = close_loop(realize(plant), static_gain(0.5));
+    const StateSpace loop_b = close_loop(realize(plant), static_gain(0.9));
+    REQUIRE(sim.simulate(loop_a, 1.0, 0.02, m) == StepStatus::ok);  // sizes the workspace
+    allocations = 0;
+    counting = true;
+    const StepStatus s1 = sim.simulate(loop_b, 1.0, 0.02, m);
+    const StepStatus s2 = sim.simulate(loop_a, 2.0, 0.05, m);
+    counting = false;
+    CHECK(s1 == StepStatus::ok);
+    CHECK(s2 == StepStatus::ok);
+    INFO("loop order " << order);
+    CHECK(allocations.load() == 0);
+  }
+}
