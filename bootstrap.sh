@@ -1,0 +1,43 @@
+#!/usr/bin/env bash
+# specloop set-up on a Debian 12 machine: installs what is missing (apt-get; as root, or with
+# sudo), configures and builds, then either runs the demo or the whole test suite.
+#   ./bootstrap.sh demo   install, build, analyze a demo spec
+#   ./bootstrap.sh test   install, build, run every test (what CI runs)
+#   ./bootstrap.sh build  install and build only
+set -euo pipefail
+cd "$(dirname "$0")"
+mode="${1:-demo}"
+build_dir="${SPECLOOP_BUILD_DIR:-build}"
+
+packages=(g++ cmake make pkg-config libnlopt-cxx-dev libeigen3-dev libboost-dev catch2 libtomlplusplus-dev
+          libcli11-dev nlohmann-json3-dev libfmt-dev python3 python3-scipy python3-numpy)
+
+missing=()
+for p in "${packages[@]}"; do
+  dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "install ok installed" || missing+=("$p")
+done
+if ((${#missing[@]})); then
+  echo "bootstrap: installing ${missing[*]}"
+  sudo_cmd=()
+  if [ "$(id -u)" -ne 0 ]; then
+    command -v sudo >/dev/null || { echo "bootstrap: not root and no sudo; install: ${missing[*]}" >&2; exit 1; }
+    sudo_cmd=(sudo)
+  fi
+  "${sudo_cmd[@]}" apt-get update -q
+  DEBIAN_FRONTEND=noninteractive "${sudo_cmd[@]}" apt-get install -y -q --no-install-recommends "${missing[@]}"
+fi
+
+jobs="$(nproc 2>/dev/null || echo 2)"
+cmake -S . -B "$build_dir" -DCMAKE_BUILD_TYPE=Release
+cmake --build "$build_dir" -j "$jobs"
+
+case "$mode" in
+  demo)
+    "$build_dir/specloop" analyze specs/conveyor_speed.toml
+    ;;
+  test)
+    ctest --test-dir "$build_dir" --output-on-failure -j "$jobs"
+    ;;
+  build) ;;
+  *) echo "bootstrap: unknown mode '$mode' (demo, test, build)" >&2; exit 2 ;;
+esac

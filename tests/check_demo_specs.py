@@ -1,0 +1,59 @@
+#!/usr/bin/env python3
+"""Smoke test: every spec in specs/ runs through `specloop analyze` (tables and --json), so the
+README's examples cannot rot. Checks the exit code and the JSON contract keys."""
+import argparse
+import json
+import pathlib
+import subprocess
+import sys
+import tempfile
+
+CONTRACT = ["damping_ratio", "crossings", "dominant", "reference", "dominance"]
+METRIC_KEYS = ["overshoot_pct", "peak_time", "settling_time", "rise_time", "steady_state_error",
+               "effort_peak", "itae"]
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--specloop", required=True)
+    ap.add_argument("--probe")
+    ap.add_argument("--source-dir", required=True)
+    args = ap.parse_args()
+    args.specloop = str(pathlib.Path(args.specloop).resolve())
+    specs = sorted(pathlib.Path(args.source_dir, "specs").resolve().glob("*.toml"))
+    passed = failed = 0
+
+    def check(ok: bool, what: str) -> None:
+        nonlocal passed, failed
+        print(("ok   " if ok else "FAIL ") + what)
+        if ok:
+            passed += 1
+        else:
+            failed += 1
+
+    check(len(specs) >= 3, f"at least three demo specs ({len(specs)})")
+    for spec in specs:
+        with tempfile.TemporaryDirectory() as work:
+            text = subprocess.run([args.specloop, "analyze", str(spec)], cwd=work, capture_output=True, text=True)
+            check(text.returncode == 0 and "ζ" in text.stdout, f"{spec.name}: analyze exits 0 with a table"
+                  + ("" if text.returncode == 0 else f" (rc {text.returncode}: {text.stderr.strip()})"))
+            run = subprocess.run([args.specloop, "analyze", str(spec), "--json"], cwd=work, capture_output=True, text=True)
+            try:
+                out = json.loads(run.stdout)
+            except json.JSONDecodeError as e:
+                check(False, f"{spec.name}: --json parses ({e})")
+                continue
+            check(run.returncode == 0 and all(k in out for k in CONTRACT), f"{spec.name}: --json has the contract keys")
+            for name in ("dominant", "reference"):
+                block = out.get(name)
+                if block is not None:
+                    check(all(k in block["simulated"] for k in METRIC_KEYS), f"{spec.name}: {name}.simulated keys")
+            check("NaN" not in run.stdout, f"{spec.name}: no NaN in the output")
+            first = spec.read_text().splitlines()[0]
+            check(first.startswith("#"), f"{spec.name}: starts with a header comment saying what it models")
+    print(f"{passed} passed, {failed} failed")
+    return 0 if failed == 0 else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())
