@@ -170,9 +170,7 @@ std::optional<GainPoint> measure_gain(const TransferFunction& plant, double gain
   return point;
 }
 
-namespace {
-
-std::optional<std::size_t> choose_dominant(const TransferFunction& plant,
+std::optional<std::size_t> dominant_crossing(const TransferFunction& plant,
                                            const std::vector<LocusCrossing>& crossings, std::string& why) {
   std::optional<std::size_t> best_far, best_ratio;
   for (std::size_t i = 0; i < crossings.size(); ++i) {
@@ -205,6 +203,8 @@ std::optional<std::size_t> choose_dominant(const TransferFunction& plant,
   why = "the closed loop is unstable at every crossing of the ζ-line";
   return std::nullopt;
 }
+
+namespace {
 
 DominanceDiagnosis diagnose(const TransferFunction& plant, const LocusCrossing& c,
                             const SecondOrderPrediction& pred, const StepMetrics& sim) {
@@ -335,7 +335,7 @@ Characterization characterize(const Spec& spec) {
 
   StepSimulator sim;
   ch.crossings = damping_line_crossings(plant, ch.damping_ratio);
-  ch.dominant_index = choose_dominant(plant, ch.crossings, ch.dominant_reason);
+  ch.dominant_index = dominant_crossing(plant, ch.crossings, ch.dominant_reason);
   if (ch.dominant_index) {
     const LocusCrossing& c = ch.crossings[*ch.dominant_index];
     ch.dominant = measure_gain(plant, c.gain, amplitude, ch.band_fraction, sim);

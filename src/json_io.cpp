@@ -43,6 +43,7 @@ json metrics_json(const StepMetrics& m) {
           {"undershoot_pct", number_json(m.undershoot_pct)},
           {"settling_time", optional_json(m.settling_time_s)},
           {"rise_time", optional_json(m.rise_time_s)},
+          {"band_entry_time", optional_json(m.band_entry_time_s)},
           {"steady_state_error", number_json(m.steady_state_error)},
           {"effort_peak", number_json(m.effort_peak)},
           {"iae", number_json(m.iae)},
@@ -102,6 +103,173 @@ json characterization_json(const Spec& spec, const Characterization& ch) {
                         {"reasons", json::array({ch.dominant_reason})}};
   }
   out["notes"] = ch.notes;
+  return out;
+}
+
+}  // namespace specloop
+
+namespace specloop {
+
+namespace {
+json optional_number(const std::optional<double>& v) { return v ? number_json(*v) : json(nullptr); }
+json numbers(const std::vector<double>& v) {
+  json out = json::array();
+  for (double x : v) out.push_back(number_json(x));
+  return out;
+}
+}  // namespace
+
+json spec_json(const Spec& spec) {
+  json plant = {{"zeros", poles_json(spec.plant.zeros)},
+                {"poles", poles_json(spec.plant.poles)},
+                {"gain", number_json(spec.plant.gain)},
+                {"numerator", numbers(spec.plant.numerator)},
+                {"denominator", numbers(spec.plant.denominator)},
+                {"delay", number_json(spec.plant.delay_s)},
+                {"given_as", spec.plant.given_as_zeros_poles ? "zeros_poles" : "numerator_denominator"}};
+  json actuator = spec.actuator.limited
+                      ? json{{"min", number_json(spec.actuator.min)}, {"max", number_json(spec.actuator.max)}}
+                      : json{{"min", nullptr}, {"max", nullptr}};
+  const Requirements& r = spec.requirements;
+  json requirements = {{"overshoot_max_pct", optional_number(r.overshoot_max_pct)},
+                       {"undershoot_max_pct", optional_number(r.undershoot_max_pct)},
+                       {"peak_time_ratio", optional_number(r.peak_time_ratio)},
+                       {"peak_time_max", optional_number(r.peak_time_max_s)},
+                       {"settling_time_max", optional_number(r.settling_time_max_s)},
+                       {"rise_time_max", optional_number(r.rise_time_max_s)},
+                       {"settling_band_pct", number_json(r.settling_band_pct)},
+                       {"steady_state_error_max", optional_number(r.steady_state_error_max)},
+                       {"effort_max", optional_number(r.effort_max)},
+                       {"phase_margin_min_deg", optional_number(r.phase_margin_min_deg)},
+                       {"gain_margin_min_db", optional_number(r.gain_margin_min_db)},
+                       {"sensitivity_peak_max", optional_number(r.sensitivity_peak_max)}};
+  json bounds = json::object();
+  for (const auto& [name, range] : spec.search.bounds) bounds[name] = {range.first, range.second};
+  return {{"path", spec.path},
+          {"name", spec.name},
+          {"title", spec.title},
+          {"plant", plant},
+          {"actuator", actuator},
+          {"controller",
+           {{"structure", structure_name(spec.controller.structure)},
+            {"derivative_filter", number_json(spec.controller.derivative_filter)}}},
+          {"requirements", requirements},
+          {"reference", {{"amplitude", number_json(spec.reference.amplitude)}}},
+          {"search",
+           {{"objective", objective_name(spec.search.objective)},
+            {"seed", spec.search.seed},
+            {"max_evaluations", spec.search.max_evaluations},
+            {"max_time", number_json(spec.search.max_time_s)},
+            {"bounds", bounds}}}};
+}
+
+json design_json(const Design& d) {
+  const Controller& c = d.controller;
+  json series = json::object();
+  const auto& info = structure_parameters(c.structure);
+  for (std::size_t i = 0; i < info.size(); ++i) series[info[i].name] = number_json(c.series[i]);
+  json parallel = nullptr, standard = nullptr;
+  if (c.parallel)
+    parallel = {{"kp", number_json(c.parallel->kp)}, {"ki", number_json(c.parallel->ki)},
+                {"kd", number_json(c.parallel->kd)}, {"tf", number_json(c.parallel->tf)}};
+  if (c.standard)
+    standard = {{"kp", number_json(c.standard->kp)},
+                {"ti", c.standard->has_integral ? number_json(c.standard->ti) : json(nullptr)},
+                {"td", c.standard->has_derivative ? number_json(c.standard->td) : json(nullptr)},
+                {"n", c.standard->has_derivative ? number_json(c.standard->n) : json(nullptr)}};
+  json checks = json::array();
+  for (const auto& check : d.checks)
+    checks.push_back({{"requirement", check.requirement.key},
+                      {"limit", number_json(check.requirement.limit)},
+                      {"bound", check.requirement.upper ? "max" : "min"},
+                      {"unit", check.requirement.unit},
+                      {"value", optional_number(check.value)},
+                      {"met", check.met},
+                      {"violation", number_json(check.violation)}});
+  json out = {{"status", status_name(d.status)},
+              {"controller",
+               {{"structure", structure_name(c.structure)},
+                {"numerator", numbers(c.transfer.numerator.coefficients)},
+                {"denominator", numbers(c.transfer.denominator.coefficients)},
+                {"derivative_filter", number_json(c.derivative_filter)},
+                {"series", series},
+                {"parallel", parallel},
+                {"standard", standard}}},
+              {"closed_loop_poles", poles_json(d.closed_loop_poles)},
+              {"checks", checks},
+              {"meets_all", d.meets_all},
+              {"notes", d.notes}};
+  out["second_order"] = d.second_order
+                            ? json{{"overshoot_pct", number_json(d.second_order->overshoot_pct)},
+                                   {"peak_time", number_json(d.second_order->peak_time_s)},
+                                   {"settling_time", number_json(d.second_order->settling_time_s)},
+                                   {"damping_ratio", number_json(d.second_order->damping_ratio)},
+                                   {"natural_frequency", number_json(d.second_order->natural_frequency)}}
+                            : json(nullptr);
+  out["simulated"] = d.status == StepStatus::ok ? metrics_json(d.simulated) : json(nullptr);
+  if (d.margins) {
+    const Margins& m = *d.margins;
+    // An absent crossover means an infinite margin.
+    out["margins"] = {{"gain_margin_db", m.gain_margin_db ? number_json(*m.gain_margin_db) : json("infinite")},
+                      {"phase_crossover", optional_number(m.phase_crossover_rad_s)},
+                      {"phase_margin_deg", m.phase_margin_deg ? number_json(*m.phase_margin_deg) : json("infinite")},
+                      {"gain_crossover", optional_number(m.gain_crossover_rad_s)},
+                      {"sensitivity_peak", number_json(m.sensitivity_peak)},
+                      {"sensitivity_peak_frequency", number_json(m.sensitivity_peak_rad_s)},
+                      {"delay_margin", m.delay_margin_s ? number_json(*m.delay_margin_s) : json("infinite")}};
+  } else {
+    out["margins"] = nullptr;
+  }
+  return out;
+}
+
+json search_json(const SearchSummary& s) {
+  return {{"algorithms_given", {{"global", "GN_CRS2_LM"}, {"local", "LN_SBPLX"}}},
+          {"algorithms_used", {{"global", s.global_algorithm}, {"local", s.local_algorithm}}},
+          {"evaluations", s.evaluations},
+          {"global_evaluations", s.global_evaluations},
+          {"local_evaluations", s.local_evaluations},
+          {"unstable_candidates", s.unstable},
+          {"infeasible_candidates", s.infeasible},
+          {"wall_time_s", number_json(s.wall_time_s)},
+          {"evaluations_per_s", number_json(s.wall_time_s > 0 ? s.evaluations / s.wall_time_s : 0.0)},
+          {"feasible", s.feasible},
+          {"best_objective", number_json(s.best_objective)},
+          {"best_violation", number_json(s.best_violation)},
+          {"stop_reason", s.stop_reason}};
+}
+
+json result_json(const DesignRun& run) {
+  json designs = json::object();
+  for (const Design& d : run.designs) designs[d.name] = design_json(d);
+  json out = {{"schema", "specloop-result-1"},
+              {"version", SPECLOOP_VERSION},
+              {"spec", spec_json(run.problem.spec)},
+              {"plant",
+               {{"numerator", numbers(run.problem.plant.numerator.coefficients)},
+                {"denominator", numbers(run.problem.plant.denominator.coefficients)},
+                {"delay", number_json(run.problem.spec.plant.delay_s)}}},
+              {"reference_peak_time", optional_number(run.problem.reference_peak_time_s)},
+              {"designs", designs},
+              {"search", search_json(run.search)},
+              {"safety", "A simulated design is not a verified machine: validate on the real system with interlocks, "
+                         "and defer to local codes, applicable functional-safety standards and licensed engineering "
+                         "practice."}};
+  if (run.target)
+    out["target_pole"] = {{"pole", complex_json(run.target->pole)}, {"derivation", run.target->derivation}};
+  if (run.ultimate)
+    out["ultimate"] = {{"gain", number_json(run.ultimate->gain)}, {"period", number_json(run.ultimate->period_s)},
+                       {"frequency", number_json(run.ultimate->frequency_rad_s)}};
+  if (run.infeasibility) {
+    json misses = json::array();
+    for (const auto& c : run.infeasibility->misses)
+      misses.push_back({{"requirement", c.requirement.key}, {"limit", number_json(c.requirement.limit)},
+                        {"value", optional_number(c.value)}, {"violation", number_json(c.violation)}});
+    out["infeasibility"] = {{"binding", run.infeasibility->binding},
+                            {"misses", misses},
+                            {"nearest_value", optional_number(run.infeasibility->nearest_value)},
+                            {"nearest", run.infeasibility->nearest_text}};
+  }
   return out;
 }
 

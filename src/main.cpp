@@ -2,6 +2,8 @@
 // and the terminal tables.
 #include <CLI/CLI.hpp>
 #include <fmt/format.h>
+#include <filesystem>
+#include <fstream>
 #include <iostream>
 
 #include "specloop/characterize.hpp"
@@ -87,6 +89,69 @@ void print_analysis(const Spec& spec, const Characterization& ch) {
   for (const auto& note : ch.notes) fmt::print("Note: {}\n", note);
 }
 
+std::string check_cell(const RequirementCheck& c) {
+  if (!c.value) return fmt::format("{:>10} ✗", "—");
+  const double v = *c.value;
+  const std::string text = std::isinf(v) ? "∞" : fmt::format("{:.4g}", v);
+  return fmt::format("{:>10} {}", text, c.met ? "✓" : "✗");
+}
+
+void print_design(const DesignRun& run, const std::string& result_path) {
+  const Spec& spec = run.problem.spec;
+  fmt::print("{}  —  structure {}\n\n", spec.title.empty() ? spec.name : spec.title,
+             structure_name(spec.controller.structure));
+  // Requirements × designs.
+  fmt::print("  {:<24} {:>12}", "requirement", "limit");
+  for (const Design& d : run.designs) fmt::print(" {:>14}", d.name);
+  fmt::print("\n");
+  for (std::size_t i = 0; i < run.problem.requirements.size(); ++i) {
+    const Requirement& r = run.problem.requirements[i];
+    fmt::print("  {:<24} {:>12}", r.key, fmt::format("{} {:.4g}{}", r.upper ? "≤" : "≥", r.limit,
+                                                     r.unit.empty() ? "" : " " + r.unit));
+    for (const Design& d : run.designs) fmt::print(" {:>14}", check_cell(d.checks[i]));
+    fmt::print("\n");
+  }
+  fmt::print("  {:<24} {:>12}", "meets all", "");
+  for (const Design& d : run.designs) fmt::print(" {:>14}", d.meets_all ? "yes" : "no");
+  fmt::print("\n\n");
+  const Design* best = run.find("optimized");
+  if (best) {
+    const Controller& c = best->controller;
+    fmt::print("Optimized controller ({}):", structure_name(c.structure));
+    const auto& info = structure_parameters(c.structure);
+    for (std::size_t i = 0; i < info.size(); ++i) fmt::print(" {} = {:.5g}", info[i].name, c.series[i]);
+    fmt::print("\n");
+    if (c.parallel)
+      fmt::print("  parallel: Kp = {:.5g}, Ki = {:.5g}, Kd = {:.5g}, Tf = {:.4g} s\n", c.parallel->kp, c.parallel->ki,
+                 c.parallel->kd, c.parallel->tf);
+  }
+  const SearchSummary& s = run.search;
+  fmt::print("Search: {} then {}, {} evaluations ({} unstable, {} infeasible) in {:.3f} s; {}\n", s.global_algorithm,
+             s.local_algorithm, s.evaluations, s.unstable, s.infeasible, s.wall_time_s, s.stop_reason);
+  if (run.infeasibility) {
+    fmt::print("\nNOT MET: no design meets every requirement. Binding: {}.\n", run.infeasibility->binding);
+    for (const auto& m : run.infeasibility->misses)
+      fmt::print("  - {} misses by {:.1f} %\n", m.requirement.key, m.violation * 100.0);
+    fmt::print("  {}\n", run.infeasibility->nearest_text);
+  } else {
+    fmt::print("\nMET: the optimized design meets every requirement on the linear loop.\n");
+  }
+  fmt::print("Result: {}\n", result_path);
+  fmt::print("Caution: a simulated design is not a verified machine; validate on the real system with interlocks.\n");
+}
+
+// Writes `text` to `path` through a temporary file and a rename, so no half-written file remains.
+void write_atomically(const std::filesystem::path& path, const std::string& text) {
+  std::filesystem::create_directories(path.parent_path());
+  const auto tmp = path.string() + ".tmp";
+  {
+    std::ofstream out(tmp, std::ios::binary | std::ios::trunc);
+    out << text;
+    if (!out) throw std::runtime_error("cannot write " + tmp);
+  }
+  std::filesystem::rename(tmp, path);
+}
+
 }  // namespace
 
 int main(int argc, char** argv) {
@@ -99,6 +164,12 @@ int main(int argc, char** argv) {
   auto* analyze = app.add_subcommand("analyze", "Characterize the P-only loop against the overshoot requirement");
   analyze->add_option("SPEC", spec_path, "spec file (TOML)")->required();
   analyze->add_flag("--json", as_json, "print one JSON object instead of the tables");
+
+  std::string out_dir;
+  auto* design = app.add_subcommand("design", "Design the compensator: classical, baseline and optimized, "
+                                              "checked against every requirement");
+  design->add_option("SPEC", spec_path, "spec file (TOML)")->required();
+  design->add_option("--out", out_dir, "output folder (default results/<spec name>/)");
 
   try {
     app.parse(argc, argv);
@@ -114,6 +185,16 @@ int main(int argc, char** argv) {
       if (as_json) std::cout << characterization_json(spec, ch).dump(2) << "\n";
       else print_analysis(spec, ch);
       return 0;
+    }
+    if (*design) {
+      const Spec spec = load_spec(spec_path);
+      const DesignRun run = run_design(spec);
+      const std::filesystem::path dir = out_dir.empty() ? std::filesystem::path("results") / spec.name : std::filesystem::path(out_dir);
+      const auto result_path = dir / "result.json";
+      write_atomically(result_path, result_json(run).dump(2) + "\n");
+      print_design(run, result_path.string());
+      const Design* best = run.find("optimized");
+      return best && best->meets_all ? 0 : 1;
     }
   } catch (const SpecError& e) {
     std::cerr << e.what() << "\n";

@@ -269,7 +269,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
 
   // One pass: extremes (normalized by y∞), band exits, threshold crossings, integrals.
   const double inv = 1.0 / y_inf;
-  int k_max = 0, k_min = 0, k_effort = 0, k_outside = -1, k10 = -1, k90 = -1;
+  int k_max = 0, k_min = 0, k_effort = 0, k_outside = -1, k10 = -1, k90 = -1, k_entry = -1;
   double iae = 0.0, ise = 0.0, itae = 0.0;
   for (int k = 0; k < K; ++k) {
     const double yn = y[k] * inv;
@@ -277,6 +277,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     if (yn < y[k_min] * inv) k_min = k;
     if (std::abs(u[k]) > std::abs(u[k_effort])) k_effort = k;
     if (std::abs(yn - 1.0) > band_fraction) k_outside = k;
+    else if (k_entry < 0) k_entry = k;
     if (k10 < 0 && yn >= 0.1) k10 = k;
     if (k90 < 0 && yn >= 0.9) k90 = k;
     if (k + 1 < K) {
@@ -334,6 +335,13 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     return (k_after - 1 + s) * h;
   };
   if (k10 >= 0 && k90 >= 0) m.rise_time_s = crossing_time(k90, 0.9) - crossing_time(k10, 0.1);
+  if (k_entry == 0) {
+    m.band_entry_time_s = 0.0;
+  } else if (k_entry > 0) {
+    const double side = (y[k_entry - 1] * inv > 1.0) ? 1.0 : -1.0;
+    const double s = interval(y, dy, k_entry - 1).crossing((1.0 + side * band_fraction) * y_inf);
+    m.band_entry_time_s = (k_entry - 1 + s) * h;
+  }
 
   if (k_outside < 0) {
     m.settling_time_s = 0.0;

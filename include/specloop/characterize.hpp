@@ -41,6 +41,12 @@ struct LocusCrossing {
 /// polynomial in r; its positive roots with K = −D/N > 0 are the crossings.
 std::vector<LocusCrossing> damping_line_crossings(const TransferFunction& g, double zeta);
 
+/// The crossing to design at: the lowest-gain stable crossing where no slower mode carries more
+/// than 5 % of the step response, else the stable one whose other poles are farthest left
+/// relative to the pair; std::nullopt when none is stable. `why` says which rule chose it.
+std::optional<std::size_t> dominant_crossing(const TransferFunction& plant,
+                                             const std::vector<LocusCrossing>& crossings, std::string& why);
+
 /// One closed-loop mode's share of the step response: |residue of T(s)·r/s at the pole| ÷ |y∞|
 /// (a conjugate pair counted once, both members together).
 struct ModeShare {

@@ -5,6 +5,7 @@
 #include <nlohmann/json.hpp>
 
 #include "specloop/characterize.hpp"
+#include "specloop/design.hpp"
 
 namespace specloop {
 
@@ -19,5 +20,15 @@ nlohmann::json number_json(double v);
 nlohmann::json metrics_json(const StepMetrics& m);
 /// The whole `analyze --json` object.
 nlohmann::json characterization_json(const Spec& spec, const Characterization& ch);
+
+/// The spec as normalized (both plant forms, every default filled in).
+nlohmann::json spec_json(const Spec& spec);
+/// One design: controller (all parameterizations), poles, second-order prediction, simulated
+/// metrics, margins, requirement checks.
+nlohmann::json design_json(const Design& d);
+/// The search summary.
+nlohmann::json search_json(const SearchSummary& s);
+/// The whole result.json (schema "specloop-result-1").
+nlohmann::json result_json(const DesignRun& run);
 
 }  // namespace specloop

@@ -19,6 +19,7 @@ struct StepMetrics {
   double undershoot_pct = 0.0;           // initial wrong-way excursion: max(0, −min y/y∞)·100
   std::optional<double> settling_time_s; // last exit from the ±band around y∞; empty: not settled
   std::optional<double> rise_time_s;     // first reach of 90 % minus first reach of 10 % of y∞
+  std::optional<double> band_entry_time_s;  // first time y comes within the settling band
   double steady_state_error = 0.0;       // (r − y∞)/r, exact (final-value theorem)
   double effort_peak = 0.0;              // max |u(t)| over the horizon, including t = 0+
   double iae = 0.0;                      // ∫|e| dt, e = y∞ − y (see README)

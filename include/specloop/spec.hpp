@@ -7,6 +7,7 @@
 #include <stdexcept>
 #include <string>
 #include <string_view>
+#include <utility>
 #include <vector>
 
 namespace specloop {
@@ -62,6 +63,25 @@ struct Requirements {
   double settling_band_pct = 2.0;                // %, in (0, 50)
   std::optional<double> steady_state_error_max;  // relative, >= 0
   std::optional<double> effort_max;              // peak |u|, actuator units, > 0
+  std::optional<double> undershoot_max_pct;      // %, in [0, 100)
+  std::optional<double> phase_margin_min_deg;    // deg, in (0, 90)
+  std::optional<double> gain_margin_min_db;      // dB, in (0, 60)
+  std::optional<double> sensitivity_peak_max;    // Ms = max |1/(1 + L(jω))|, > 1
+};
+
+/// What a search minimizes among feasible designs.
+enum class Objective { itae, iae, ise, effort, settling_time, sensitivity_peak };
+std::string_view objective_name(Objective o);
+std::optional<Objective> parse_objective(std::string_view name);
+const std::vector<std::string>& objective_names();
+
+struct SearchSpec {
+  Objective objective = Objective::itae;
+  unsigned seed = 1;                          // NLopt's random seed
+  int max_evaluations = 6000;                 // cost evaluations, global + local
+  double max_time_s = 20.0;                   // wall-time cap, s
+  /// [search.bounds]: parameter name → [lo, hi], natural units, 0 < lo < hi.
+  std::vector<std::pair<std::string, std::pair<double, double>>> bounds;
 };
 
 struct ReferenceSpec {
@@ -77,6 +97,7 @@ struct Spec {
   ControllerSpec controller;
   Requirements requirements;
   ReferenceSpec reference;
+  SearchSpec search;
 };
 
 /// Reads and validates a spec file. Throws SpecError (message as above) on any problem:

@@ -1,0 +1,181 @@
+// Designs and their measurement: the requirement set as normalized constraints, the classical
+// root-locus design, the ultimate-gain (Ziegler–Nichols) baseline, and the NLopt search against
+// the true simulated response.
+#pragma once
+
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "specloop/characterize.hpp"
+#include "specloop/compensator.hpp"
+#include "specloop/margins.hpp"
+
+namespace specloop {
+
+/// One requirement: its spec key, whether it is an upper ("max") or lower ("min") bound, its limit.
+struct Requirement {
+  std::string key;      // e.g. "overshoot_max_pct", as in the spec's [requirements]
+  std::string unit;     // for tables: "%", "s", "dB", "deg", ""
+  bool upper = true;    // value <= limit (true) or value >= limit (false)
+  double limit = 0.0;   // in the key's unit (peak_time_ratio: the ratio)
+};
+
+/// The requirements of a spec as a list, in a fixed order. `reference_peak_time` converts
+/// peak_time_ratio into seconds (it is required when the spec has peak_time_ratio).
+std::vector<Requirement> requirement_list(const Requirements& r);
+
+/// Everything the search does not change, computed once per spec.
+struct Problem {
+  Spec spec;
+  TransferFunction plant;
+  StateSpace plant_realization;
+  std::optional<double> reference_peak_time_s;  // from the characterization (P gain at the limit)
+  std::vector<Requirement> requirements;
+  double band_fraction = 0.02;
+  bool needs_margins = false;                   // a margin requirement or the Ms objective
+  std::vector<ParameterInfo> parameters;        // of the spec's structure
+  std::vector<std::pair<double, double>> bounds;  // per parameter, natural units, lo < hi
+};
+
+/// Builds the Problem: default search bounds from the plant's pole/zero scale and the reference
+/// gain, overridden by [search.bounds]. Throws SpecError for a bound that names no parameter.
+Problem make_problem(const Spec& spec, const Characterization& ch);
+
+/// A requirement checked on one design.
+struct RequirementCheck {
+  Requirement requirement;
+  std::optional<double> value;  // empty when the response has no such value (see README)
+  bool met = false;
+  double violation = 0.0;       // normalized: (value − limit)/|limit| for upper bounds, > 0 when missed
+};
+
+/// A design measured on the linear loop.
+struct Design {
+  std::string name;                 // reference, classical, ultimate_gain, optimized
+  Controller controller;
+  StepStatus status = StepStatus::ok;
+  std::vector<Complex> closed_loop_poles;
+  std::optional<SecondOrderPrediction> second_order;  // from the slowest complex closed-loop pair
+  StepMetrics simulated;
+  std::optional<Margins> margins;   // empty when the closed loop is unstable
+  std::vector<RequirementCheck> checks;
+  bool meets_all = false;
+  std::vector<std::string> notes;   // how it was made, what was left out
+};
+
+/// Measures a controller on the problem's linear loop and checks every requirement.
+Design measure_design(const Problem& problem, std::string name, const Controller& controller);
+
+/// The value a requirement reads from a measured response (std::nullopt: not defined).
+std::optional<double> requirement_value(const Requirement& r, const StepMetrics& m,
+                                        const std::optional<Margins>& margins,
+                                        const std::optional<double>& reference_peak_time_s);
+
+// ---- classical design -------------------------------------------------------------------------
+
+/// The desired dominant pole −σ + jω_d from the requirements, and how it was derived.
+struct DesiredPole {
+  Complex pole;
+  std::string derivation;
+};
+/// ζ from the overshoot limit (0.7071 when there is none, common practice); ω_d from the target
+/// peak time (peak_time_ratio × reference peak time, or peak_time_max, the smaller), else σ from
+/// settling_time_max; else the P-only dominant crossing's pole.
+std::optional<DesiredPole> desired_pole(const Problem& problem, const Characterization& ch);
+
+/// The root-locus design of `structure` placing a closed-loop pole at `target` where the
+/// structure can (pd, pid, lead, lead-lag: angle condition; lead pole by the bisector rule;
+/// PI/lag zero at a tenth of σ), or at the dominant ζ-line crossing of the compensated locus
+/// where it cannot (p, pi, lag). Gain from the magnitude condition. `notes` says what was done.
+std::optional<Controller> classical_controller(const TransferFunction& plant, Structure structure,
+                                               double derivative_filter, Complex target, double zeta,
+                                               std::optional<double> steady_state_error_max,
+                                               std::vector<std::string>& notes);
+
+// ---- ultimate-gain baseline ---------------------------------------------------------------------
+
+/// Ultimate gain Ku and period Tu: the P gain at which K·G reaches the imaginary axis.
+struct UltimatePoint {
+  double gain = 0.0;
+  double period_s = 0.0;
+  double frequency_rad_s = 0.0;
+};
+std::optional<UltimatePoint> ultimate_point(const TransferFunction& plant);
+/// Ziegler–Nichols (1942) closed-loop rules: P Kp = 0.5Ku; PI Kp = 0.45Ku, Ti = Tu/1.2;
+/// PID Kp = 0.6Ku, Ti = Tu/2, Td = Tu/8; PD (common practice) Kp = 0.8Ku, Td = Tu/8.
+/// std::nullopt for structures the rules do not cover (lead, lag, lead-lag).
+std::optional<StandardForm> ziegler_nichols(Structure s, const UltimatePoint& u, double derivative_filter);
+/// Series parameters from a standard form (the inverse of make_controller's conversion).
+std::optional<std::vector<double>> series_from_standard(Structure s, const StandardForm& f);
+
+// ---- search -------------------------------------------------------------------------------------
+
+struct SearchOptions {
+  Objective objective = Objective::itae;
+  /// When set, the search minimizes this requirement's value instead (maximizes it for a lower
+  /// bound), subject to the problem's other requirements: "how far can this one go?"
+  std::optional<Requirement> objective_requirement;
+  unsigned seed = 1;                  // NLopt's random seed: runs repeat exactly
+  int max_evaluations = 6000;         // global + local cost evaluations, at most
+  double max_time_s = 20.0;           // wall-time cap for the whole search, s
+  double global_share = 0.6;          // fraction of the evaluation budget for the global stage
+  double penalty = 100.0;             // cost per unit of normalized constraint violation
+  double local_relative_tolerance = 1e-6;  // local stage stops when |Δcost|/cost falls below this
+};
+
+struct SearchSummary {
+  std::string global_algorithm;       // NLopt names, as used
+  std::string local_algorithm;
+  int evaluations = 0;
+  int global_evaluations = 0;
+  int local_evaluations = 0;
+  int unstable = 0;                   // candidates rejected by the stability barrier
+  int infeasible = 0;                 // stable candidates missing at least one requirement
+  double wall_time_s = 0.0;
+  bool feasible = false;
+  double best_objective = 0.0;
+  double best_violation = 0.0;        // Σ normalized violations of the best point (0 if feasible)
+  std::string stop_reason;            // in words, with numbers
+};
+
+struct SearchResult {
+  Controller controller;
+  SearchSummary summary;
+};
+
+/// Searches the structure's parameters (log scale, within the problem's bounds) minimizing the
+/// objective subject to the requirements, from `seed_parameters` (series values). Deterministic
+/// for a given seed.
+SearchResult optimize(const Problem& problem, const std::vector<double>& seed_parameters,
+                      const SearchOptions& options);
+
+/// SearchOptions from the spec's [search] table.
+SearchOptions search_options(const Spec& spec);
+
+// ---- the whole design run -----------------------------------------------------------------------
+
+/// Why no design met every requirement, and how close one can get.
+struct Infeasibility {
+  std::string binding;                      // the requirement missed by the most (normalized)
+  std::vector<RequirementCheck> misses;     // every missed requirement of the least-violating design
+  std::optional<double> nearest_value;      // best value of the binding requirement with the others met
+  std::string nearest_text;                 // that, in words (or why it was not found)
+};
+
+struct DesignRun {
+  Characterization characterization;
+  Problem problem;
+  std::optional<DesiredPole> target;
+  std::optional<UltimatePoint> ultimate;
+  std::vector<Design> designs;              // reference, classical, ultimate_gain, optimized (those that exist)
+  SearchSummary search;
+  std::optional<Infeasibility> infeasibility;
+  const Design* find(std::string_view name) const;
+};
+
+/// characterize → problem → classical and baseline designs → search (seeded by the classical
+/// design) → measurement of every design → infeasibility analysis when the optimum misses.
+DesignRun run_design(const Spec& spec);
+
+}  // namespace specloop

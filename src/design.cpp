@@ -1,0 +1,427 @@
+// Requirements as constraints, measured designs, the classical root-locus design and the
+// ultimate-gain baseline. The NLopt search lives in search.cpp.
+#include "specloop/design.hpp"
+
+#include <algorithm>
+#include <boost/math/tools/roots.hpp>
+#include <cmath>
+#include <fmt/format.h>
+#include <limits>
+#include <numbers>
+
+namespace specloop {
+
+namespace {
+constexpr double kInf = std::numeric_limits<double>::infinity();
+constexpr double kDeg = 180.0 / std::numbers::pi;
+
+double wrap_deg(double deg) {  // to (−180, 180]
+  deg = std::fmod(deg, 360.0);
+  if (deg <= -180.0) deg += 360.0;
+  if (deg > 180.0) deg -= 360.0;
+  return deg;
+}
+}  // namespace
+
+// ---- requirements -------------------------------------------------------------------------------
+
+std::vector<Requirement> requirement_list(const Requirements& r) {
+  std::vector<Requirement> out;
+  auto add = [&](const std::optional<double>& v, const char* key, const char* unit, bool upper) {
+    if (v) out.push_back({key, unit, upper, *v});
+  };
+  add(r.overshoot_max_pct, "overshoot_max_pct", "%", true);
+  add(r.undershoot_max_pct, "undershoot_max_pct", "%", true);
+  add(r.peak_time_ratio, "peak_time_ratio", "", true);
+  add(r.peak_time_max_s, "peak_time_max", "s", true);
+  add(r.settling_time_max_s, "settling_time_max", "s", true);
+  add(r.rise_time_max_s, "rise_time_max", "s", true);
+  add(r.steady_state_error_max, "steady_state_error_max", "", true);
+  add(r.effort_max, "effort_max", "", true);
+  add(r.phase_margin_min_deg, "phase_margin_min_deg", "deg", false);
+  add(r.gain_margin_min_db, "gain_margin_min_db", "dB", false);
+  add(r.sensitivity_peak_max, "sensitivity_peak_max", "", true);
+  return out;
+}
+
+namespace {
+// Peak time as requirements read it: the time of the peak, or for a response without overshoot
+// (no peak) the first time it comes within the settling band.
+std::optional<double> effective_peak_time(const StepMetrics& m) {
+  return m.peak_time_s ? m.peak_time_s : m.band_entry_time_s;
+}
+}  // namespace
+
+std::optional<double> requirement_value(const Requirement& r, const StepMetrics& m,
+                                        const std::optional<Margins>& margins,
+                                        const std::optional<double>& reference_peak_time_s) {
+  const std::string& k = r.key;
+  if (k == "overshoot_max_pct") return m.overshoot_pct;
+  if (k == "undershoot_max_pct") return m.undershoot_pct;
+  if (k == "peak_time_ratio") {
+    const auto tp = effective_peak_time(m);
+    if (!tp || !reference_peak_time_s) return std::nullopt;
+    return *tp / *reference_peak_time_s;
+  }
+  if (k == "peak_time_max") return effective_peak_time(m);
+  if (k == "settling_time_max") return m.settling_time_s;
+  if (k == "rise_time_max") return m.rise_time_s;
+  if (k == "steady_state_error_max") return std::abs(m.steady_state_error);
+  if (k == "effort_max") return m.effort_peak;
+  if (!margins) return std::nullopt;
+  if (k == "phase_margin_min_deg") return margins->phase_margin_deg.value_or(kInf);
+  if (k == "gain_margin_min_db") return margins->gain_margin_db.value_or(kInf);
+  if (k == "sensitivity_peak_max") return margins->sensitivity_peak;
+  throw std::logic_error("requirement_value: unknown requirement " + k);
+}
+
+namespace {
+// Normalized violation, > 0 when missed; a missing value counts as a 100 % miss.
+double violation_of(const Requirement& r, const std::optional<double>& value) {
+  if (!value) return 1.0;
+  // A zero limit (steady-state error 0) is scaled by 1 % so that a miss is measurable.
+  const double scale = r.limit != 0.0 ? std::abs(r.limit) : 0.01;
+  const double v = std::isinf(*value) ? (*value > 0 ? kInf : -kInf) : *value;
+  const double miss = r.upper ? (v - r.limit) / scale : (r.limit - v) / scale;
+  if (std::isinf(miss)) return miss > 0 ? 1e3 : 0.0;
+  // Exact zero steady-state error is computed to ~1e-12; count that as met.
+  return miss > 1e-9 ? miss : 0.0;
+}
+}  // namespace
+
+// ---- problem ------------------------------------------------------------------------------------
+
+Problem make_problem(const Spec& spec, const Characterization& ch) {
+  Problem p;
+  p.spec = spec;
+  p.plant = TransferFunction(Polynomial(spec.plant.numerator), Polynomial(spec.plant.denominator));
+  p.plant_realization = realize(p.plant);
+  if (ch.reference && ch.reference->simulated.peak_time_s) p.reference_peak_time_s = ch.reference->simulated.peak_time_s;
+  p.requirements = requirement_list(spec.requirements);
+  p.band_fraction = spec.requirements.settling_band_pct / 100.0;
+  p.needs_margins = spec.search.objective == Objective::sensitivity_peak ||
+                    std::any_of(p.requirements.begin(), p.requirements.end(), [](const Requirement& r) {
+                      return r.key == "phase_margin_min_deg" || r.key == "gain_margin_min_db" ||
+                             r.key == "sensitivity_peak_max";
+                    });
+  const Structure s = spec.controller.structure;
+  p.parameters = structure_parameters(s);
+
+  // Default bounds: frequencies over the plant's pole/zero scale widened by decades on both
+  // sides; gains around the reference gain (or the plant's inverse magnitude at its scale).
+  double w_lo = kInf, w_hi = 0.0;
+  for (const auto* list : {&spec.plant.poles, &spec.plant.zeros})
+    for (const Complex& z : *list)
+      if (std::abs(z) > 0.0) {
+        w_lo = std::min(w_lo, std::abs(z));
+        w_hi = std::max(w_hi, std::abs(z));
+      }
+  if (!(w_hi > 0.0)) w_lo = w_hi = 1.0;
+  double k_scale = 0.0;
+  if (ch.reference) k_scale = ch.reference->gain;
+  else if (ch.dominant) k_scale = ch.dominant->gain;
+  else k_scale = 1.0 / std::abs(p.plant(Complex(0.0, std::sqrt(w_lo * w_hi))));
+  if (!(k_scale > 0.0) || !std::isfinite(k_scale)) k_scale = 1.0;
+  const double n = spec.controller.derivative_filter;
+  for (const ParameterInfo& info : p.parameters) {
+    std::pair<double, double> b;
+    if (info.name == "gain") b = {k_scale * 1e-3, k_scale * 1e3};
+    else if (info.name == "ratio" || info.name == "lag_ratio") b = {1.05, 100.0};
+    else if (info.name == "zero_damping") b = {pid_min_zero_damping(n) * 1.0001, 20.0};
+    else b = {w_lo * 1e-3, w_hi * 10.0};
+    for (const auto& [name, range] : spec.search.bounds)
+      if (name == info.name) b = range;
+    p.bounds.push_back(b);
+  }
+  return p;
+}
+
+// ---- measuring a design -------------------------------------------------------------------------
+
+namespace {
+std::optional<Complex> slowest_complex_pair(const std::vector<Complex>& poles) {
+  std::optional<Complex> best;
+  for (const Complex& p : poles)
+    if (p.imag() > 0.0 && (!best || p.real() > best->real())) best = p;
+  return best;
+}
+}  // namespace
+
+Design measure_design(const Problem& problem, std::string name, const Controller& controller) {
+  Design d;
+  d.name = std::move(name);
+  d.controller = controller;
+  const StateSpace loop = close_loop(problem.plant_realization, realize(controller.transfer));
+  StepSimulator sim;
+  d.status = sim.simulate(loop, problem.spec.reference.amplitude, problem.band_fraction, d.simulated);
+  const ClosedLoopTF cl = close_loop(problem.plant, controller.transfer);
+  d.closed_loop_poles = cl.output.poles();
+  if (d.status == StepStatus::ok) {
+    const auto pair = slowest_complex_pair(d.closed_loop_poles);
+    if (pair) d.second_order = predict_second_order(*pair, problem.band_fraction);
+    d.margins = loop_margins(controller.transfer * problem.plant);
+  } else {
+    d.notes.push_back(fmt::format("linear loop {}: no metrics", status_name(d.status)));
+  }
+  d.meets_all = d.status == StepStatus::ok;
+  for (const Requirement& r : problem.requirements) {
+    RequirementCheck c;
+    c.requirement = r;
+    if (d.status == StepStatus::ok) c.value = requirement_value(r, d.simulated, d.margins, problem.reference_peak_time_s);
+    c.violation = d.status == StepStatus::ok ? violation_of(r, c.value) : 1.0;
+    c.met = d.status == StepStatus::ok && c.violation == 0.0;
+    d.meets_all = d.meets_all && c.met;
+    d.checks.push_back(c);
+  }
+  return d;
+}
+
+// ---- classical design ---------------------------------------------------------------------------
+
+std::optional<DesiredPole> desired_pole(const Problem& problem, const Characterization& ch) {
+  const Requirements& r = problem.spec.requirements;
+  const double zeta = r.overshoot_max_pct ? damping_from_overshoot(*r.overshoot_max_pct) : std::sqrt(0.5);
+  const std::string zeta_from = r.overshoot_max_pct
+                                    ? fmt::format("ζ = {:.4f} from {:.4g} % overshoot", zeta, *r.overshoot_max_pct)
+                                    : std::string("ζ = 0.7071 (no overshoot limit; common practice)");
+  std::optional<double> tp;
+  std::string tp_from;
+  if (r.peak_time_ratio && problem.reference_peak_time_s) {
+    tp = *r.peak_time_ratio * *problem.reference_peak_time_s;
+    tp_from = fmt::format("target peak time {:.4g} s = {:.4g} × reference {:.4g} s", *tp, *r.peak_time_ratio,
+                          *problem.reference_peak_time_s);
+  }
+  if (r.peak_time_max_s && (!tp || *r.peak_time_max_s < *tp)) {
+    tp = *r.peak_time_max_s;
+    tp_from = fmt::format("target peak time {:.4g} s from peak_time_max", *tp);
+  }
+  const double root = std::sqrt(1.0 - zeta * zeta);
+  if (tp) {
+    const double wd = std::numbers::pi / *tp;
+    return DesiredPole{Complex(-zeta * wd / root, wd), zeta_from + ", " + tp_from + ", ω_d = π/t_p"};
+  }
+  if (r.settling_time_max_s) {
+    const double sigma = -std::log(problem.band_fraction) / *r.settling_time_max_s;
+    return DesiredPole{Complex(-sigma, sigma * root / zeta),
+                       zeta_from + fmt::format(", σ = −ln(band)/t_s from settling_time_max {:.4g} s", *r.settling_time_max_s)};
+  }
+  if (ch.dominant_index) {
+    const Complex pole = ch.crossings[*ch.dominant_index].pair_pole;
+    return DesiredPole{pole, zeta_from + ", speed of the P-only dominant crossing (no time requirement)"};
+  }
+  return std::nullopt;
+}
+
+namespace {
+
+// ∠(C1·G)(s) in degrees, wrapped to (−180, 180]; the angle condition wants ±180°.
+double angle_error_deg(const TransferFunction& loop, Complex s) {
+  return wrap_deg(std::arg(loop(s)) * kDeg + 180.0);
+}
+
+// Finds x in [lo, hi] (log-scanned) where angle_error_deg(loop(x), target) = 0, the root whose
+// x is closest (in log distance) to `prefer`.
+template <typename MakeLoop>
+std::optional<double> solve_angle(MakeLoop make_loop, Complex target, double lo, double hi, double prefer) {
+  const int points = 400;
+  std::optional<double> best;
+  auto f = [&](double x) { return angle_error_deg(make_loop(x), target); };
+  double prev_x = lo, prev_f = f(lo);
+  for (int i = 1; i <= points; ++i) {
+    const double x = lo * std::pow(hi / lo, static_cast<double>(i) / points);
+    const double fx = f(x);
+    // A sign change with small values on both sides is a root; a jump across ±180° is not.
+    if ((prev_f <= 0.0) != (fx <= 0.0) && std::abs(prev_f) < 90.0 && std::abs(fx) < 90.0) {
+      boost::uintmax_t iterations = 100;
+      const auto [a, b] = boost::math::tools::toms748_solve(f, prev_x, x, prev_f, fx,
+                                                           boost::math::tools::eps_tolerance<double>(45), iterations);
+      const double root = 0.5 * (a + b);
+      if (!best || std::abs(std::log(root / prefer)) < std::abs(std::log(*best / prefer))) best = root;
+    }
+    prev_x = x;
+    prev_f = fx;
+  }
+  return best;
+}
+
+// Gain from the magnitude condition |K·C1·G| = 1 at s.
+double magnitude_gain(const TransferFunction& unit_loop, Complex s) { return 1.0 / std::abs(unit_loop(s)); }
+
+// Ogata's bisector rule for a lead: zero and pole where lines at ±φ/2 around the bisector of the
+// angle between the horizontal through s_d and the line from s_d to the origin meet the real axis.
+std::optional<std::pair<double, double>> bisector_lead(Complex sd, double phi_deg) {
+  const double sigma = -sd.real(), wd = sd.imag();
+  const double to_origin = std::atan2(-wd, sigma) * kDeg;  // direction from s_d to the origin
+  const double bisector = (to_origin - 180.0) / 2.0;
+  auto meet = [&](double dir_deg) -> std::optional<double> {
+    const double th = dir_deg / kDeg;
+    if (!(std::sin(th) < 0.0)) return std::nullopt;
+    const double t = wd / -std::sin(th);
+    const double x = sd.real() + t * std::cos(th);
+    if (!(x < 0.0)) return std::nullopt;
+    return -x;
+  };
+  const auto z = meet(bisector + phi_deg / 2.0);
+  const auto p = meet(bisector - phi_deg / 2.0);
+  if (!z || !p || !(*p > *z)) return std::nullopt;
+  return std::make_pair(*z, *p);
+}
+
+// Lag boost β from a steady-state error limit on a type-0 loop (position constant needed over the
+// one the P-only loop has), else 10 (common practice).
+double lag_ratio(const TransferFunction& plant, double p_gain, std::optional<double> sse_max) {
+  if (sse_max && *sse_max > 0.0 && plant.system_type() == 0) {
+    const double kp_needed = (1.0 - *sse_max) / *sse_max;
+    const double kp_now = std::abs(p_gain * plant.dc_gain());
+    return std::clamp(1.1 * kp_needed / kp_now, 1.5, 100.0);
+  }
+  return 10.0;
+}
+
+std::optional<double> gain_at_crossing(const TransferFunction& unit_loop, double zeta, std::vector<std::string>& notes) {
+  const auto crossings = damping_line_crossings(unit_loop, zeta);
+  std::string why;
+  const auto i = dominant_crossing(unit_loop, crossings, why);
+  if (!i) {
+    notes.push_back("no usable ζ-line crossing of the compensated locus: " + why);
+    return std::nullopt;
+  }
+  notes.push_back(fmt::format("gain at the ζ-line crossing {:.4g} ± j{:.4g} of the compensated locus ({})",
+                              crossings[*i].pair_pole.real(), crossings[*i].pair_pole.imag(), why));
+  return crossings[*i].gain;
+}
+
+}  // namespace
+
+std::optional<Controller> classical_controller(const TransferFunction& plant, Structure structure, double n,
+                                               Complex target, double zeta, std::optional<double> sse_max,
+                                               std::vector<std::string>& notes) {
+  const double sigma = -target.real();
+  const double w = std::abs(target);
+  auto unit = [&](std::vector<double> series) { return make_controller(structure, std::move(series), n); };
+  auto with_gain = [&](std::vector<double> series, double k) {
+    series[0] = k;
+    return make_controller(structure, std::move(series), n);
+  };
+  const double needed = wrap_deg(-180.0 - std::arg(plant(target)) * kDeg);  // angle the compensator must add
+  switch (structure) {
+    case Structure::p: {
+      const auto k = gain_at_crossing(plant, zeta, notes);
+      if (!k) return std::nullopt;
+      return with_gain({1.0}, *k);
+    }
+    case Structure::pi:
+    case Structure::lag: {
+      const double z = sigma / 10.0;
+      notes.push_back(fmt::format("{} zero at −{:.4g} = σ/10 of the target pole (common practice: its angle at the "
+                                  "dominant pole stays small)", structure == Structure::pi ? "PI" : "lag", z));
+      std::vector<double> series{1.0, z};
+      if (structure == Structure::lag) {
+        const double p_gain = gain_at_crossing(plant, zeta, notes).value_or(1.0);
+        series.push_back(lag_ratio(plant, p_gain, sse_max));
+        notes.push_back(fmt::format("lag ratio β = {:.3g}", series.back()));
+      }
+      const auto k = gain_at_crossing(unit(series).transfer * plant, zeta, notes);
+      if (!k) return std::nullopt;
+      notes.push_back("a structure without a zero to place cannot move the locus onto the target pole; the design "
+                      "keeps the compensated locus's ζ-line crossing");
+      return with_gain(series, *k);
+    }
+    case Structure::pd:
+    case Structure::pid: {
+      const double integral_zero = sigma / 10.0;
+      auto series_for = [&](double z) -> std::vector<double> {
+        if (structure == Structure::pd) return {1.0, z};
+        const double w0 = std::sqrt(z * integral_zero);
+        return {1.0, w0, (z + integral_zero) / (2.0 * w0)};
+      };
+      const auto z = solve_angle([&](double x) { return unit(series_for(x)).transfer * plant; }, target, w * 1e-3,
+                                 w * 1e3, w);
+      if (!z) {
+        notes.push_back(fmt::format("the angle condition at the target pole cannot be met by one zero (the plant "
+                                    "leaves {:.1f}° to add)", needed));
+        return std::nullopt;
+      }
+      notes.push_back(fmt::format("derivative zero at −{:.4g} from the angle condition (compensator adds {:.1f}° "
+                                  "with its filter pole included)", *z, needed));
+      if (structure == Structure::pid)
+        notes.push_back(fmt::format("PI zero at −{:.4g} = σ/10 of the target pole (common practice)", integral_zero));
+      const auto series = series_for(*z);
+      return with_gain(series, magnitude_gain(unit(series).transfer * plant, target));
+    }
+    case Structure::lead:
+    case Structure::lead_lag: {
+      if (!(needed > 0.0)) {
+        notes.push_back(fmt::format("the target pole needs no lead (the plant is {:.1f}° past the angle condition)", -needed));
+        return std::nullopt;
+      }
+      std::vector<double> series;
+      double extra = 0.0;
+      if (structure == Structure::lead_lag) {
+        // The lag's (small, negative) angle at the target is included in what the lead must add.
+        const double zg = sigma / 10.0;
+        const double p_gain = gain_at_crossing(plant, zeta, notes).value_or(1.0);
+        const double beta = lag_ratio(plant, p_gain, sse_max);
+        extra = -wrap_deg(std::arg((target + zg) / (target + zg / beta)) * kDeg);
+        series = {1.0, 0.0, 0.0, zg, beta};
+        notes.push_back(fmt::format("lag zero at −{:.4g} = σ/10, lag ratio β = {:.3g}", zg, beta));
+      }
+      const auto zp = bisector_lead(target, needed + extra);
+      if (!zp) {
+        notes.push_back(fmt::format("the bisector construction fails for {:.1f}° of lead", needed + extra));
+        return std::nullopt;
+      }
+      notes.push_back(fmt::format("lead zero −{:.4g} and pole −{:.4g} by the bisector rule for {:.1f}° of lead",
+                                  zp->first, zp->second, needed + extra));
+      if (structure == Structure::lead) series = {1.0, zp->first, zp->second / zp->first};
+      else {
+        series[1] = zp->first;
+        series[2] = zp->second / zp->first;
+      }
+      return with_gain(series, magnitude_gain(unit(series).transfer * plant, target));
+    }
+  }
+  return std::nullopt;
+}
+
+// ---- ultimate gain ------------------------------------------------------------------------------
+
+std::optional<UltimatePoint> ultimate_point(const TransferFunction& plant) {
+  const Margins m = loop_margins(plant);
+  if (!m.gain_margin_db || !m.phase_crossover_rad_s) return std::nullopt;
+  UltimatePoint u;
+  u.gain = std::pow(10.0, *m.gain_margin_db / 20.0);
+  u.frequency_rad_s = *m.phase_crossover_rad_s;
+  u.period_s = 2.0 * std::numbers::pi / u.frequency_rad_s;
+  // The crossing must be where the P loop loses stability: stable just below Ku.
+  if (!all_stable((plant.denominator + 0.99 * u.gain * plant.numerator).roots())) return std::nullopt;
+  return u;
+}
+
+std::optional<StandardForm> ziegler_nichols(Structure s, const UltimatePoint& u, double n) {
+  const double inf = kInf;
+  switch (s) {
+    case Structure::p: return StandardForm{0.5 * u.gain, inf, 0.0, 0.0, false, false};
+    case Structure::pi: return StandardForm{0.45 * u.gain, u.period_s / 1.2, 0.0, 0.0, true, false};
+    case Structure::pd: return StandardForm{0.8 * u.gain, inf, u.period_s / 8.0, n, false, true};
+    case Structure::pid: return StandardForm{0.6 * u.gain, u.period_s / 2.0, u.period_s / 8.0, n, true, true};
+    default: return std::nullopt;
+  }
+}
+
+std::optional<std::vector<double>> series_from_standard(Structure s, const StandardForm& f) {
+  switch (s) {
+    case Structure::p: return std::vector<double>{f.kp};
+    case Structure::pi: return std::vector<double>{f.kp, 1.0 / f.ti};
+    case Structure::pd: return std::vector<double>{f.kp, f.n / ((f.n + 1.0) * f.td)};
+    case Structure::pid: {
+      const double ki = f.kp / f.ti, kd = f.kp * f.td, tf = f.td / f.n;
+      const double kc = f.kp * tf + kd;
+      const double w0 = std::sqrt(ki / kc);
+      return std::vector<double>{f.kp, w0, (f.kp + ki * tf) / (2.0 * kc * w0)};
+    }
+    default: return std::nullopt;
+  }
+}
+
+}  // namespace specloop

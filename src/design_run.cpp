@@ -1,0 +1,140 @@
+// The `design` pipeline: every design of a spec, measured the same way.
+#include <cmath>
+#include <fmt/format.h>
+
+#include "specloop/design.hpp"
+
+namespace specloop {
+
+const Design* DesignRun::find(std::string_view name) const {
+  for (const Design& d : designs)
+    if (d.name == name) return &d;
+  return nullptr;
+}
+
+SearchOptions search_options(const Spec& spec) {
+  SearchOptions o;
+  o.objective = spec.search.objective;
+  o.seed = spec.search.seed;
+  o.max_evaluations = spec.search.max_evaluations;
+  o.max_time_s = spec.search.max_time_s;
+  return o;
+}
+
+namespace {
+
+// Geometric middle of the bounds: the seed when no hand design exists.
+std::vector<double> middle_of_bounds(const Problem& p) {
+  std::vector<double> x;
+  for (const auto& [lo, hi] : p.bounds) x.push_back(std::sqrt(lo * hi));
+  return x;
+}
+
+Infeasibility analyze_misses(const Problem& problem, const Design& best, const SearchResult& first,
+                             const SearchOptions& options) {
+  Infeasibility info;
+  double worst = -1.0;
+  for (const RequirementCheck& c : best.checks) {
+    if (c.met) continue;
+    info.misses.push_back(c);
+    if (c.violation > worst) {
+      worst = c.violation;
+      info.binding = c.requirement.key;
+    }
+  }
+  if (info.binding.empty()) {
+    info.binding = "stability";
+    info.nearest_text = "no stable design was found within the search bounds";
+    return info;
+  }
+  // How far can the binding requirement go with the others met? Search again on it alone.
+  Problem relaxed = problem;
+  std::optional<Requirement> binding;
+  relaxed.requirements.clear();
+  for (const Requirement& r : problem.requirements) {
+    if (r.key == info.binding) binding = r;
+    else relaxed.requirements.push_back(r);
+  }
+  SearchOptions o = options;
+  o.objective_requirement = binding;
+  const SearchResult nearest = optimize(relaxed, first.controller.series, o);
+  const Design d = measure_design(relaxed, "nearest", nearest.controller);
+  const auto value = d.status == StepStatus::ok
+                         ? requirement_value(*binding, d.simulated, d.margins, problem.reference_peak_time_s)
+                         : std::nullopt;
+  if (d.meets_all && value) {
+    info.nearest_value = *value;
+    info.nearest_text = fmt::format("with every other requirement met, the best {} reachable is {:.4g}{} (limit {:.4g}{})",
+                                    binding->key, *value, binding->unit.empty() ? "" : " " + binding->unit,
+                                    binding->limit, binding->unit.empty() ? "" : " " + binding->unit);
+  } else {
+    info.nearest_text = "the other requirements cannot be met together either, even with " + info.binding + " dropped";
+  }
+  return info;
+}
+
+}  // namespace
+
+DesignRun run_design(const Spec& spec) {
+  if (!spec.requirements.overshoot_max_pct)
+    throw SpecError(spec.path + ": requirements.overshoot_max_pct: required by 'design' (the reference gain and the "
+                                "classical design's ζ come from it)");
+  DesignRun run;
+  run.characterization = characterize(spec);
+  run.problem = make_problem(spec, run.characterization);
+  const Problem& problem = run.problem;
+  if (spec.requirements.peak_time_ratio && !problem.reference_peak_time_s)
+    throw SpecError(spec.path + ": requirements.peak_time_ratio: no reference peak time exists for this plant (" +
+                    run.characterization.reference_note + "); use peak_time_max instead");
+  const Structure structure = spec.controller.structure;
+  const double n = spec.controller.derivative_filter;
+
+  if (run.characterization.reference) {
+    Design ref = measure_design(problem, "reference", make_controller(Structure::p, {run.characterization.reference->gain}, n));
+    ref.notes.push_back("P gain whose simulated overshoot equals the limit (from analyze)");
+    run.designs.push_back(std::move(ref));
+  }
+
+  std::optional<Controller> classical;
+  std::vector<std::string> classical_notes;
+  run.target = desired_pole(problem, run.characterization);
+  if (run.target) {
+    classical_notes.push_back(fmt::format("target dominant pole {:.4g} ± j{:.4g} ({})", run.target->pole.real(),
+                                          run.target->pole.imag(), run.target->derivation));
+    const double zeta = -run.target->pole.real() / std::abs(run.target->pole);
+    classical = classical_controller(problem.plant, structure, n, run.target->pole, zeta,
+                                     spec.requirements.steady_state_error_max, classical_notes);
+    if (classical) {
+      Design d = measure_design(problem, "classical", *classical);
+      d.notes = classical_notes;
+      run.designs.push_back(std::move(d));
+    }
+  }
+
+  std::optional<Controller> baseline;
+  run.ultimate = ultimate_point(problem.plant);
+  if (run.ultimate) {
+    if (const auto form = ziegler_nichols(structure, *run.ultimate, n)) {
+      if (const auto series = series_from_standard(structure, *form)) {
+        baseline = make_controller(structure, *series, n);
+        Design d = measure_design(problem, "ultimate_gain", *baseline);
+        d.notes.push_back(fmt::format("Ziegler–Nichols closed-loop rules from Ku = {:.4g}, Tu = {:.4g} s",
+                                      run.ultimate->gain, run.ultimate->period_s));
+        run.designs.push_back(std::move(d));
+      }
+    }
+  }
+
+  // Seed: the classical design, else the ultimate-gain baseline, else the middle of the bounds.
+  std::vector<double> seed = classical ? classical->series : baseline ? baseline->series : middle_of_bounds(problem);
+  const SearchOptions options = search_options(spec);
+  const SearchResult result = optimize(problem, seed, options);
+  run.search = result.summary;
+  Design best = measure_design(problem, "optimized", result.controller);
+  best.notes.push_back(fmt::format("seeded by the {} design", classical ? "classical" : baseline ? "ultimate-gain" : "mid-bounds"));
+  if (!best.meets_all) run.infeasibility = analyze_misses(problem, best, result, options);
+  run.designs.push_back(std::move(best));
+  return run;
+}
+
+}  // namespace specloop

@@ -1,0 +1,849 @@
+// Spec file loading: parses the TOML spec with toml++, checks every section, key, type and
+// range against our schema, and reports the first problem as
+// "file:line:column: dotted.key: expected ..., got ...". A valid spec is normalized so that
+// both plant forms (zeros/poles/gain and numerator/denominator) are filled.
+#include "specloop/spec.hpp"
+
+#include "specloop/compensator.hpp"
+
+#include <fmt/format.h>
+#include <fmt/ranges.h>
+#include <toml++/toml.h>
+
+#include <algorithm>
+#include <array>
+#include <cctype>
+#include <cerrno>
+#include <cmath>
+#include <cstring>
+#include <filesystem>
+#include <fstream>
+#include <iterator>
+#include <span>
+#include <sstream>
+#include <unsupported/Eigen/Polynomials>
+#include <utility>
+
+namespace specloop {
+
+// ---------------------------------------------------------------------------------------------
+// Structures
+// ---------------------------------------------------------------------------------------------
+
+namespace {
+
+constexpr std::array<std::pair<Structure, std::string_view>, 7> kStructureSpellings{{
+    {Structure::p, "p"},
+    {Structure::pi, "pi"},
+    {Structure::pd, "pd"},
+    {Structure::pid, "pid"},
+    {Structure::lead, "lead"},
+    {Structure::lag, "lag"},
+    {Structure::lead_lag, "lead-lag"},
+}};
+
+}  // namespace
+
+std::string_view structure_name(Structure s) {
+  for (const auto& [structure, spelling] : kStructureSpellings) {
+    if (structure == s) return spelling;
+  }
+  throw std::invalid_argument("structure_name: not a Structure value");
+}
+
+std::optional<Structure> parse_structure(std::string_view name) {
+  for (const auto& [structure, spelling] : kStructureSpellings) {
+    if (spelling == name) return structure;
+  }
+  return std::nullopt;
+}
+
+const std::vector<std::string>& structure_names() {
+  static const std::vector<std::string> names = [] {
+    std::vector<std::string> all;
+    for (const auto& entry : kStructureSpellings) all.emplace_back(entry.second);
+    return all;
+  }();
+  return names;
+}
+
+bool has_integrator(Structure s) { return s == Structure::pi || s == Structure::pid; }
+
+std::string_view objective_name(Objective o) {
+  switch (o) {
+    case Objective::itae: return "itae";
+    case Objective::iae: return "iae";
+    case Objective::ise: return "ise";
+    case Objective::effort: return "effort";
+    case Objective::settling_time: return "settling_time";
+    case Objective::sensitivity_peak: return "sensitivity_peak";
+  }
+  return "?";
+}
+
+const std::vector<std::string>& objective_names() {
+  static const std::vector<std::string> names{"itae", "iae", "ise", "effort", "settling_time", "sensitivity_peak"};
+  return names;
+}
+
+std::optional<Objective> parse_objective(std::string_view name) {
+  for (Objective o : {Objective::itae, Objective::iae, Objective::ise, Objective::effort, Objective::settling_time,
+                      Objective::sensitivity_peak})
+    if (objective_name(o) == name) return o;
+  return std::nullopt;
+}
+
+
+// ---------------------------------------------------------------------------------------------
+// Schema and helpers
+// ---------------------------------------------------------------------------------------------
+
+namespace {
+
+struct SectionSchema {
+  std::string_view name;
+  std::vector<std::string_view> keys;
+};
+
+const std::vector<SectionSchema>& section_schemas() {
+  static const std::vector<SectionSchema> schemas{
+      {"plant", {"zeros", "poles", "gain", "numerator", "denominator", "delay"}},
+      {"actuator", {"min", "max"}},
+      {"controller", {"structure", "derivative_filter"}},
+      {"requirements",
+       {"overshoot_max_pct", "peak_time_ratio", "settling_time_max", "peak_time_max",
+        "rise_time_max", "settling_band_pct", "steady_state_error_max", "effort_max",
+        "undershoot_max_pct", "phase_margin_min_deg", "gain_margin_min_db", "sensitivity_peak_max"}},
+      {"reference", {"amplitude"}},
+      {"search", {"objective", "seed", "max_evaluations", "max_time", "bounds"}},
+  };
+  return schemas;
+}
+
+constexpr std::string_view kTitleKey = "title";
+
+std::string lowercase(std::string_view text) {
+  std::string lower(text);
+  std::transform(lower.begin(), lower.end(), lower.begin(),
+                 [](unsigned char c) { return static_cast<char>(std::tolower(c)); });
+  return lower;
+}
+
+/// Levenshtein distance (insertions, deletions, substitutions), two-row dynamic programming.
+std::size_t edit_distance(std::string_view a, std::string_view b) {
+  std::vector<std::size_t> previous(b.size() + 1);
+  std::vector<std::size_t> current(b.size() + 1);
+  for (std::size_t j = 0; j <= b.size(); ++j) previous[j] = j;
+  for (std::size_t i = 1; i <= a.size(); ++i) {
+    current[0] = i;
+    for (std::size_t j = 1; j <= b.size(); ++j) {
+      const std::size_t substitution = previous[j - 1] + (a[i - 1] == b[j - 1] ? 0 : 1);
+      current[j] = std::min({previous[j] + 1, current[j - 1] + 1, substitution});
+    }
+    std::swap(previous, current);
+  }
+  return previous[b.size()];
+}
+
+/// The known name closest to `unknown`, when it is close enough to be a likely typo:
+/// equal ignoring case, or within edit distance 2 (and not a complete rewrite of a short word).
+std::optional<std::string_view> closest_name(std::string_view unknown,
+                                             std::span<const std::string_view> known) {
+  const std::string unknown_lower = lowercase(unknown);
+  std::optional<std::string_view> best;
+  std::size_t best_distance = 0;
+  for (const auto& candidate : known) {
+    const std::size_t distance = edit_distance(unknown_lower, lowercase(candidate));
+    if (!best || distance < best_distance) {
+      best = candidate;
+      best_distance = distance;
+    }
+  }
+  if (best && best_distance <= 2 && best_distance < unknown.size()) return best;
+  return std::nullopt;
+}
+
+std::string in_quotes(std::string_view text) {
+  constexpr std::size_t kMaxShown = 40;
+  if (text.size() > kMaxShown) return fmt::format("\"{}...\"", text.substr(0, kMaxShown));
+  return fmt::format("\"{}\"", text);
+}
+
+/// Shows a number the way a user would recognise it: integers as integers, floating-point
+/// values in shortest round-trip form ("-5", "0.25", "nan", "inf").
+std::string shown_number(const toml::node& node) {
+  if (const auto* integer = node.as_integer()) return fmt::format("{}", integer->get());
+  if (const auto* floating = node.as_floating_point()) return fmt::format("{}", floating->get());
+  return "?";
+}
+
+/// What a node is, for the "got ..." part of a message.
+std::string describe(const toml::node& node) {
+  switch (node.type()) {
+    case toml::node_type::integer:
+    case toml::node_type::floating_point:
+      return shown_number(node);
+    case toml::node_type::string:
+      return "a string (" + in_quotes(node.as_string()->get()) + ")";
+    case toml::node_type::boolean:
+      return fmt::format("a boolean ({})", node.as_boolean()->get());
+    case toml::node_type::array: {
+      const std::size_t count = node.as_array()->size();
+      if (count == 0) return "an empty array";
+      return fmt::format("an array of {} element{}", count, count == 1 ? "" : "s");
+    }
+    case toml::node_type::table:
+      return "a table";
+    case toml::node_type::date:
+      return "a date";
+    case toml::node_type::time:
+      return "a time";
+    case toml::node_type::date_time:
+      return "a date-time";
+    case toml::node_type::none:
+      break;
+  }
+  return "nothing";
+}
+
+/// toml++ leaves positions zeroed for nodes it created implicitly; fall back to 1:1.
+toml::source_position position_of(const toml::source_region& region) {
+  if (region.begin.line == 0) return toml::source_position{1, 1};
+  return region.begin;
+}
+
+bool comes_before(const toml::source_position& a, const toml::source_position& b) {
+  return std::pair{a.line, a.column} < std::pair{b.line, b.column};
+}
+
+/// One key of a table together with its value and where the key was written.
+struct Entry {
+  std::string_view key;
+  const toml::node* value = nullptr;
+  toml::source_position at{};
+};
+
+/// Entries of a table in the order they appear in the file (toml++ iterates in key order).
+std::vector<Entry> entries_in_file_order(const toml::table& table) {
+  std::vector<Entry> entries;
+  for (const auto& [key, value] : table) {
+    entries.push_back({key.str(), &value, position_of(key.source())});
+  }
+  std::stable_sort(entries.begin(), entries.end(),
+                   [](const Entry& a, const Entry& b) { return comes_before(a.at, b.at); });
+  return entries;
+}
+
+std::optional<Entry> find_entry(const toml::table& table, std::string_view key) {
+  const auto found = table.find(key);
+  if (found == table.end()) return std::nullopt;
+  return Entry{found->first.str(), &found->second, position_of(found->first.source())};
+}
+
+/// A number read from the spec, with its spelling (for messages) and position.
+struct Number {
+  double value = 0.0;
+  std::string shown;
+  toml::source_position at{};
+};
+
+/// A root list entry as written: a real root, or the pair re ± j·im.
+struct RootEntry {
+  double re = 0.0;
+  std::optional<double> im;
+};
+
+/// Multiplies two polynomials given with the highest power first.
+std::vector<double> multiply(const std::vector<double>& a, const std::vector<double>& b) {
+  std::vector<double> product(a.size() + b.size() - 1, 0.0);
+  for (std::size_t i = 0; i < a.size(); ++i) {
+    for (std::size_t j = 0; j < b.size(); ++j) product[i + j] += a[i] * b[j];
+  }
+  return product;
+}
+
+/// leading · Π(s − r), with each pair expanded to the real quadratic s² − 2re·s + re² + im².
+std::vector<double> expand_roots(const std::vector<RootEntry>& roots, double leading) {
+  std::vector<double> polynomial{leading};
+  for (const auto& root : roots) {
+    if (root.im) {
+      polynomial =
+          multiply(polynomial, {1.0, -2.0 * root.re, root.re * root.re + *root.im * *root.im});
+    } else {
+      polynomial = multiply(polynomial, {1.0, -root.re});
+    }
+  }
+  return polynomial;
+}
+
+std::vector<std::complex<double>> listed_roots(const std::vector<RootEntry>& roots) {
+  std::vector<std::complex<double>> listed;
+  for (const auto& root : roots) {
+    if (root.im) {
+      listed.emplace_back(root.re, *root.im);
+      listed.emplace_back(root.re, -*root.im);
+    } else {
+      listed.emplace_back(root.re, 0.0);
+    }
+  }
+  return listed;
+}
+
+std::size_t trailing_zero_count(const std::vector<double>& highest_first) {
+  const auto nonzero =
+      std::find_if(highest_first.rbegin(), highest_first.rend(), [](double c) { return c != 0.0; });
+  return static_cast<std::size_t>(std::distance(highest_first.rbegin(), nonzero));
+}
+
+/// Roots of a polynomial (highest power first, leading coefficient nonzero). Roots at s = 0
+/// (trailing zero coefficients) are returned exactly. Order: real part descending, then
+/// |imaginary part| ascending, each conjugate pair as (+im, −im).
+std::vector<std::complex<double>> polynomial_roots(const std::vector<double>& highest_first) {
+  const std::size_t zero_roots = trailing_zero_count(highest_first);
+  std::vector<std::complex<double>> roots(zero_roots, std::complex<double>(0.0, 0.0));
+  const std::size_t kept = highest_first.size() - zero_roots;
+  if (kept >= 2) {
+    Eigen::VectorXd lowest_first(static_cast<Eigen::Index>(kept));
+    for (std::size_t i = 0; i < kept; ++i) {
+      lowest_first[static_cast<Eigen::Index>(i)] = highest_first[kept - 1 - i];
+    }
+    Eigen::PolynomialSolver<double, Eigen::Dynamic> solver(lowest_first);
+    for (const auto& root : solver.roots()) roots.push_back(root);
+  }
+  std::sort(roots.begin(), roots.end(),
+            [](const std::complex<double>& a, const std::complex<double>& b) {
+              if (a.real() != b.real()) return a.real() > b.real();
+              if (std::abs(a.imag()) != std::abs(b.imag())) {
+                return std::abs(a.imag()) < std::abs(b.imag());
+              }
+              return a.imag() > b.imag();
+            });
+  return roots;
+}
+
+// ---------------------------------------------------------------------------------------------
+// The reader: one parsed document and the file path for messages
+// ---------------------------------------------------------------------------------------------
+
+class SpecReader {
+ public:
+  SpecReader(const toml::table& document, std::string path)
+      : document_(document), path_(std::move(path)) {}
+
+  Spec read() {
+    check_names_and_shapes();
+    Spec spec;
+    spec.path = path_;
+    spec.name = std::filesystem::path(path_).stem().string();
+    if (const auto title = find_entry(document_, kTitleKey)) {
+      spec.title = std::string(title->value->as_string()->get());
+    }
+    read_plant(spec.plant);
+    read_actuator(spec.actuator);
+    read_controller(spec.controller);
+    read_requirements(spec.requirements);
+    read_reference(spec.reference);
+    read_search(spec.search, spec.controller.structure);
+    check_consistency(spec);
+    return spec;
+  }
+
+ private:
+  [[noreturn]] void fail(const toml::source_position& at, std::string_view key,
+                         std::string_view what) const {
+    throw SpecError(fmt::format("{}:{}:{}: {}: {}", path_, at.line, at.column, key, what));
+  }
+
+  [[noreturn]] void fail_expected(const toml::source_position& at, std::string_view key,
+                                  std::string_view expected, std::string_view got) const {
+    fail(at, key, fmt::format("expected {}, got {}", expected, got));
+  }
+
+  static std::string dotted(std::string_view section, std::string_view key) {
+    return fmt::format("{}.{}", section, key);
+  }
+
+  const toml::table* section(std::string_view name) const { return document_[name].as_table(); }
+
+  /// Where a section's header is (for keys that are missing from it).
+  static toml::source_position header_of(const toml::table& table) {
+    return position_of(table.source());
+  }
+
+  // --- pass 1: names, section shapes, empty sections --------------------------------------
+
+  void check_names_and_shapes() const {
+    std::vector<std::string_view> top_level_names{kTitleKey};
+    for (const auto& schema : section_schemas()) top_level_names.push_back(schema.name);
+
+    for (const auto& entry : entries_in_file_order(document_)) {
+      if (entry.key == kTitleKey) {
+        if (!entry.value->is_string()) {
+          fail_expected(entry.at, entry.key, "a string", describe(*entry.value));
+        }
+        continue;
+      }
+      const auto schema = std::find_if(section_schemas().begin(), section_schemas().end(),
+                                       [&](const SectionSchema& s) { return s.name == entry.key; });
+      if (schema == section_schemas().end()) {
+        const bool is_section = entry.value->is_table();
+        const auto at = is_section ? position_of(entry.value->source()) : entry.at;
+        const std::string_view kind = is_section ? "unknown section" : "unknown key";
+        if (const auto suggestion = closest_name(entry.key, top_level_names)) {
+          fail(at, entry.key, fmt::format("{}; did you mean '{}'?", kind, *suggestion));
+        }
+        fail(at, entry.key,
+             fmt::format("{}; valid top-level names: {}", kind, fmt::join(top_level_names, ", ")));
+      }
+      const auto* table = entry.value->as_table();
+      if (table == nullptr) {
+        fail_expected(entry.at, entry.key, fmt::format("a table (a [{}] section)", entry.key),
+                      describe(*entry.value));
+      }
+      if (table->empty()) fail(header_of(*table), entry.key, "empty section");
+      for (const auto& key_entry : entries_in_file_order(*table)) {
+        if (std::find(schema->keys.begin(), schema->keys.end(), key_entry.key) !=
+            schema->keys.end()) {
+          continue;
+        }
+        const std::string key = dotted(entry.key, key_entry.key);
+        if (const auto suggestion = closest_name(key_entry.key, schema->keys)) {
+          fail(key_entry.at, key, fmt::format("unknown key; did you mean '{}'?", *suggestion));
+        }
+        fail(key_entry.at, key,
+             fmt::format("unknown key; valid keys in [{}]: {}", entry.key,
+                         fmt::join(schema->keys, ", ")));
+      }
+    }
+  }
+
+  // --- numbers -----------------------------------------------------------------------------
+
+  /// A finite number (integer or floating point) from `node`; booleans are not numbers.
+  Number number_from(const toml::node& node, const toml::source_position& at,
+                     std::string_view key) const {
+    Number number;
+    number.at = at;
+    if (const auto* integer = node.as_integer()) {
+      number.value = static_cast<double>(integer->get());
+    } else if (const auto* floating = node.as_floating_point()) {
+      number.value = floating->get();
+    } else {
+      fail_expected(at, key, "a number", describe(node));
+    }
+    number.shown = shown_number(node);
+    if (!std::isfinite(number.value)) fail_expected(at, key, "a finite number", number.shown);
+    return number;
+  }
+
+  std::optional<Number> optional_number(const toml::table* table, std::string_view section_name,
+                                        std::string_view key) const {
+    if (table == nullptr) return std::nullopt;
+    const auto entry = find_entry(*table, key);
+    if (!entry) return std::nullopt;
+    return number_from(*entry->value, entry->at, dotted(section_name, key));
+  }
+
+  void require(bool satisfied, const Number& number, std::string_view key,
+               std::string_view expected) const {
+    if (!satisfied) fail_expected(number.at, key, expected, number.shown);
+  }
+
+  /// Reads an optional number and checks it against a range; `expected` names the range.
+  template <typename InRange>
+  std::optional<double> ranged_number(const toml::table* table, std::string_view section_name,
+                                      std::string_view key, InRange in_range,
+                                      std::string_view expected) const {
+    const auto number = optional_number(table, section_name, key);
+    if (!number) return std::nullopt;
+    require(in_range(number->value), *number, dotted(section_name, key), expected);
+    return number->value;
+  }
+
+  // --- [plant] -----------------------------------------------------------------------------
+
+  /// A list of real roots and [re, im] pairs (im > 0).
+  std::vector<RootEntry> root_list(const Entry& entry) const {
+    const std::string key = dotted("plant", entry.key);
+    const auto* list = entry.value->as_array();
+    if (list == nullptr) {
+      fail_expected(entry.at, key, "an array of numbers and [re, im] pairs",
+                    describe(*entry.value));
+    }
+    std::vector<RootEntry> roots;
+    for (std::size_t i = 0; i < list->size(); ++i) {
+      const toml::node& element = *list->get(i);
+      const std::string element_key = fmt::format("{}[{}]", key, i);
+      const auto at = position_of(element.source());
+      if (const auto* pair = element.as_array()) {
+        if (pair->size() != 2) {
+          fail_expected(at, element_key, "a pair [re, im] of exactly 2 numbers", describe(element));
+        }
+        const Number re =
+            number_from(*pair->get(0), position_of(pair->get(0)->source()), element_key + "[0]");
+        const Number im =
+            number_from(*pair->get(1), position_of(pair->get(1)->source()), element_key + "[1]");
+        if (!(im.value > 0.0)) {
+          fail_expected(at, element_key, "a pair [re, im] with im > 0 (it stands for re ± j·im)",
+                        fmt::format("[{}, {}]", re.shown, im.shown));
+        }
+        roots.push_back({re.value, im.value});
+      } else if (element.is_number()) {
+        roots.push_back({number_from(element, at, element_key).value, std::nullopt});
+      } else {
+        fail_expected(at, element_key, "a number or a pair [re, im]", describe(element));
+      }
+    }
+    return roots;
+  }
+
+  /// A non-empty coefficient list, highest power of s first.
+  std::vector<double> coefficient_list(const Entry& entry) const {
+    const std::string key = dotted("plant", entry.key);
+    const auto* list = entry.value->as_array();
+    if (list == nullptr || list->empty()) {
+      fail_expected(entry.at, key, "a non-empty array of coefficients, highest power of s first",
+                    describe(*entry.value));
+    }
+    std::vector<double> coefficients;
+    for (std::size_t i = 0; i < list->size(); ++i) {
+      const toml::node& element = *list->get(i);
+      coefficients.push_back(
+          number_from(element, position_of(element.source()), fmt::format("{}[{}]", key, i)).value);
+    }
+    return coefficients;
+  }
+
+  void read_plant(PlantSpec& plant) const {
+    const toml::table* table = section("plant");
+    if (table == nullptr) {
+      fail({1, 1}, "plant",
+           "missing section; a spec needs [plant] with poles (and optional zeros, gain) "
+           "or with numerator and denominator");
+    }
+    const auto header = header_of(*table);
+    const auto zeros = find_entry(*table, "zeros");
+    const auto poles = find_entry(*table, "poles");
+    const auto gain = find_entry(*table, "gain");
+    const auto numerator = find_entry(*table, "numerator");
+    const auto denominator = find_entry(*table, "denominator");
+
+    // The two forms exclude each other; blame whichever key of the second form comes later.
+    const auto first_present = [](std::initializer_list<const std::optional<Entry>*> entries) {
+      std::optional<Entry> first;
+      for (const auto* entry : entries) {
+        if (*entry && (!first || comes_before((*entry)->at, first->at))) first = **entry;
+      }
+      return first;
+    };
+    const auto root_form = first_present({&zeros, &poles, &gain});
+    const auto coefficient_form = first_present({&numerator, &denominator});
+    if (root_form && coefficient_form) {
+      const bool root_form_first = comes_before(root_form->at, coefficient_form->at);
+      const Entry& offender = root_form_first ? *coefficient_form : *root_form;
+      const Entry& earlier = root_form_first ? *root_form : *coefficient_form;
+      fail(offender.at, dotted("plant", offender.key),
+           fmt::format("cannot be combined with plant.{}; give either zeros/poles/gain or "
+                       "numerator/denominator, not both",
+                       earlier.key));
+    }
+
+    if (coefficient_form) {
+      if (!denominator) {
+        fail(header, "plant.denominator", "missing (required with plant.numerator)");
+      }
+      if (!numerator) {
+        fail(header, "plant.numerator", "missing (required with plant.denominator)");
+      }
+      read_coefficient_form(plant, *numerator, *denominator);
+    } else {
+      if (!poles) {
+        if (root_form) {
+          fail(header, "plant.poles",
+               fmt::format("missing (required with plant.{})", root_form->key));
+        }
+        fail(header, "plant.poles",
+             "missing; give poles (with optional zeros and gain) or numerator and denominator");
+      }
+      read_root_form(plant, zeros, *poles, gain);
+    }
+
+    if (const auto delay = ranged_number(
+            table, "plant", "delay", [](double v) { return v >= 0.0; }, "a number >= 0")) {
+      plant.delay_s = *delay;
+    }
+  }
+
+  void read_root_form(PlantSpec& plant, const std::optional<Entry>& zeros, const Entry& poles,
+                      const std::optional<Entry>& gain) const {
+    const std::vector<RootEntry> zero_entries =
+        zeros ? root_list(*zeros) : std::vector<RootEntry>{};
+    const std::vector<RootEntry> pole_entries = root_list(poles);
+    if (pole_entries.empty()) {
+      fail_expected(poles.at, "plant.poles", "at least one pole", "an empty array");
+    }
+    plant.given_as_zeros_poles = true;
+    plant.zeros = listed_roots(zero_entries);
+    plant.poles = listed_roots(pole_entries);
+    if (plant.zeros.size() > plant.poles.size()) {
+      fail(zeros->at, "plant.zeros",
+           fmt::format("improper plant: numerator degree {} ({} zeros) exceeds denominator "
+                       "degree {} ({} poles); a plant needs at least as many poles as zeros",
+                       plant.zeros.size(), plant.zeros.size(), plant.poles.size(),
+                       plant.poles.size()));
+    }
+    if (gain) {
+      const Number k = number_from(*gain->value, gain->at, "plant.gain");
+      require(k.value != 0.0, k, "plant.gain", "a nonzero number");
+      plant.gain = k.value;
+    }
+    plant.numerator = expand_roots(zero_entries, plant.gain);
+    plant.denominator = expand_roots(pole_entries, 1.0);
+  }
+
+  void read_coefficient_form(PlantSpec& plant, const Entry& numerator,
+                             const Entry& denominator) const {
+    const std::vector<double> num = coefficient_list(numerator);
+    const std::vector<double> den = coefficient_list(denominator);
+    if (std::all_of(num.begin(), num.end(), [](double c) { return c == 0.0; })) {
+      fail(numerator.at, "plant.numerator",
+           "all coefficients are zero; the plant output would always be zero");
+    }
+    if (num.front() == 0.0) {
+      fail(numerator.at, "plant.numerator",
+           "leading coefficient must be nonzero; remove the leading zeros");
+    }
+    if (den.front() == 0.0) {
+      fail(denominator.at, "plant.denominator",
+           "leading coefficient must be nonzero; remove the leading zeros");
+    }
+    if (num.size() > den.size()) {
+      fail(numerator.at, "plant.numerator",
+           fmt::format("improper plant: numerator degree {} exceeds denominator degree {}",
+                       num.size() - 1, den.size() - 1));
+    }
+    plant.given_as_zeros_poles = false;
+    plant.numerator = num;
+    plant.denominator = den;
+    plant.zeros = polynomial_roots(num);
+    plant.poles = polynomial_roots(den);
+    plant.gain = num.front() / den.front();
+  }
+
+  // --- other sections ----------------------------------------------------------------------
+
+  void read_actuator(ActuatorSpec& actuator) const {
+    const toml::table* table = section("actuator");
+    if (table == nullptr) return;
+    const auto min = optional_number(table, "actuator", "min");
+    const auto max = optional_number(table, "actuator", "max");
+    if (!min && !max) return;
+    if (min && !max)
+      fail(header_of(*table), "actuator.max", "missing; give both min and max, or neither");
+    if (max && !min)
+      fail(header_of(*table), "actuator.min", "missing; give both min and max, or neither");
+    require(max->value > min->value, *max, "actuator.max",
+            fmt::format("a number greater than actuator.min ({})", min->shown));
+    actuator.min = min->value;
+    actuator.max = max->value;
+    actuator.limited = true;
+  }
+
+  void read_controller(ControllerSpec& controller) const {
+    const toml::table* table = section("controller");
+    if (table == nullptr) return;
+    if (const auto entry = find_entry(*table, "structure")) {
+      const std::string valid = fmt::format("{}", fmt::join(structure_names(), ", "));
+      const auto* text = entry->value->as_string();
+      if (text == nullptr) {
+        fail_expected(entry->at, "controller.structure", fmt::format("one of {}", valid),
+                      describe(*entry->value));
+      }
+      const auto structure = parse_structure(text->get());
+      if (!structure) {
+        std::vector<std::string_view> names(structure_names().begin(), structure_names().end());
+        const auto suggestion = closest_name(text->get(), names);
+        fail(entry->at, "controller.structure",
+             fmt::format("unknown structure {}{}; valid structures: {}", in_quotes(text->get()),
+                         suggestion ? fmt::format(" (did you mean '{}'?)", *suggestion) : "",
+                         valid));
+      }
+      controller.structure = *structure;
+    }
+    if (const auto filter = ranged_number(
+            table, "controller", "derivative_filter", [](double v) { return v > 0.0; },
+            "a number > 0")) {
+      controller.derivative_filter = *filter;
+    }
+  }
+
+  void read_requirements(Requirements& requirements) const {
+    const toml::table* table = section("requirements");
+    if (table == nullptr) return;
+    constexpr std::string_view kSection = "requirements";
+    const auto positive = [](double v) { return v > 0.0; };
+    requirements.overshoot_max_pct = ranged_number(
+        table, kSection, "overshoot_max_pct", [](double v) { return v > 0.0 && v < 100.0; },
+        "a number in (0, 100)");
+    requirements.peak_time_ratio = ranged_number(
+        table, kSection, "peak_time_ratio", [](double v) { return v > 0.0 && v <= 10.0; },
+        "a number in (0, 10]");
+    requirements.settling_time_max_s =
+        ranged_number(table, kSection, "settling_time_max", positive, "a time in s > 0");
+    requirements.peak_time_max_s =
+        ranged_number(table, kSection, "peak_time_max", positive, "a time in s > 0");
+    requirements.rise_time_max_s =
+        ranged_number(table, kSection, "rise_time_max", positive, "a time in s > 0");
+    if (const auto band = ranged_number(
+            table, kSection, "settling_band_pct", [](double v) { return v > 0.0 && v < 50.0; },
+            "a number in (0, 50)")) {
+      requirements.settling_band_pct = *band;
+    }
+    requirements.steady_state_error_max = ranged_number(
+        table, kSection, "steady_state_error_max", [](double v) { return v >= 0.0; },
+        "a number >= 0");
+    requirements.effort_max =
+        ranged_number(table, kSection, "effort_max", positive, "a number > 0");
+    requirements.undershoot_max_pct = ranged_number(
+        table, kSection, "undershoot_max_pct", [](double v) { return v >= 0.0 && v < 100.0; },
+        "a number in [0, 100)");
+    requirements.phase_margin_min_deg = ranged_number(
+        table, kSection, "phase_margin_min_deg", [](double v) { return v > 0.0 && v < 90.0; },
+        "an angle in degrees in (0, 90)");
+    requirements.gain_margin_min_db = ranged_number(
+        table, kSection, "gain_margin_min_db", [](double v) { return v > 0.0 && v < 60.0; },
+        "a number of dB in (0, 60)");
+    requirements.sensitivity_peak_max = ranged_number(
+        table, kSection, "sensitivity_peak_max", [](double v) { return v > 1.0; },
+        "a number > 1 (|S| is at least 1 somewhere for any loop of relative degree >= 1)");
+  }
+
+  void read_search(SearchSpec& search, Structure structure) const {
+    const toml::table* table = section("search");
+    if (table == nullptr) return;
+    constexpr std::string_view kSection = "search";
+    if (const auto entry = find_entry(*table, "objective")) {
+      const std::string valid = fmt::format("{}", fmt::join(objective_names(), ", "));
+      const auto* text = entry->value->as_string();
+      if (text == nullptr)
+        fail_expected(entry->at, "search.objective", fmt::format("one of {}", valid), describe(*entry->value));
+      const auto objective = parse_objective(text->get());
+      if (!objective) {
+        std::vector<std::string_view> names(objective_names().begin(), objective_names().end());
+        const auto suggestion = closest_name(text->get(), names);
+        fail(entry->at, "search.objective",
+             fmt::format("unknown objective {}{}; valid objectives: {}", in_quotes(text->get()),
+                         suggestion ? fmt::format(" (did you mean '{}'?)", *suggestion) : "", valid));
+      }
+      search.objective = *objective;
+    }
+    const auto whole = [](double v) { return v == std::floor(v); };
+    if (const auto seed = ranged_number(
+            table, kSection, "seed", [&](double v) { return v >= 0.0 && v <= 4294967295.0 && whole(v); },
+            "a whole number in [0, 4294967295]"))
+      search.seed = static_cast<unsigned>(*seed);
+    if (const auto budget = ranged_number(
+            table, kSection, "max_evaluations", [&](double v) { return v >= 20.0 && v <= 1e8 && whole(v); },
+            "a whole number in [20, 100000000]"))
+      search.max_evaluations = static_cast<int>(*budget);
+    if (const auto cap = ranged_number(
+            table, kSection, "max_time", [](double v) { return v > 0.0 && v <= 86400.0; },
+            "a time in s in (0, 86400]"))
+      search.max_time_s = *cap;
+    const auto entry = find_entry(*table, "bounds");
+    if (!entry) return;
+    const auto* bounds = entry->value->as_table();
+    if (bounds == nullptr)
+      fail_expected(entry->at, "search.bounds", "a table of parameter = [low, high]", describe(*entry->value));
+    std::vector<std::string_view> names;
+    for (const auto& info : structure_parameters(structure)) names.emplace_back(info.name);
+    for (const auto& bound : entries_in_file_order(*bounds)) {
+      const std::string key = fmt::format("search.bounds.{}", bound.key);
+      if (std::find(names.begin(), names.end(), bound.key) == names.end()) {
+        const auto suggestion = closest_name(bound.key, names);
+        fail(bound.at, key,
+             fmt::format("structure '{}' has no parameter '{}'{}; its parameters: {}", structure_name(structure),
+                         bound.key, suggestion ? fmt::format(" (did you mean '{}'?)", *suggestion) : "",
+                         fmt::join(names, ", ")));
+      }
+      const auto* pair = bound.value->as_array();
+      if (pair == nullptr || pair->size() != 2)
+        fail_expected(bound.at, key, "[low, high], two numbers", describe(*bound.value));
+      const Number lo = number_from(*pair->get(0), bound.at, key);
+      const Number hi = number_from(*pair->get(1), bound.at, key);
+      require(lo.value > 0.0, lo, key, "a low bound > 0 (parameters are searched on a log scale)");
+      require(hi.value > lo.value, hi, key, fmt::format("a high bound above the low bound ({})", lo.shown));
+      search.bounds.emplace_back(std::string(bound.key), std::make_pair(lo.value, hi.value));
+    }
+  }
+
+  void read_reference(ReferenceSpec& reference) const {
+    if (const auto amplitude = ranged_number(
+            section("reference"), "reference", "amplitude", [](double v) { return v != 0.0; },
+            "a nonzero number")) {
+      reference.amplitude = *amplitude;
+    }
+  }
+
+  // --- cross-section checks ----------------------------------------------------------------
+
+  void check_consistency(const Spec& spec) const {
+    const auto& required_error = spec.requirements.steady_state_error_max;
+    if (!required_error || *required_error != 0.0) return;
+    // Net poles at s = 0: a zero at s = 0 cancels one of them.
+    const auto plant_integrators = static_cast<long>(trailing_zero_count(spec.plant.denominator)) -
+                                   static_cast<long>(trailing_zero_count(spec.plant.numerator));
+    if (plant_integrators > 0 || has_integrator(spec.controller.structure)) return;
+    const auto entry = find_entry(*section("requirements"), "steady_state_error_max");
+    fail(
+        entry->at, "requirements.steady_state_error_max",
+        fmt::format(
+            "zero steady-state error to a step needs an integrator in the loop, but the "
+            "plant has no (uncancelled) pole at s = 0 and structure '{}' has none; use structure = "
+            "\"pi\" or \"pid\", or allow a small nonzero error",
+            structure_name(spec.controller.structure)));
+  }
+
+  const toml::table& document_;
+  std::string path_;
+};
+
+}  // namespace
+
+// ---------------------------------------------------------------------------------------------
+// Entry points
+// ---------------------------------------------------------------------------------------------
+
+Spec parse_spec(std::string_view text, const std::string& path) {
+  toml::table document;
+  try {
+    document = toml::parse(text, std::string_view(path));
+  } catch (const toml::parse_error& error) {
+    const auto at = position_of(error.source());
+    throw SpecError(
+        fmt::format("{}:{}:{}: invalid TOML: {}", path, at.line, at.column, error.description()));
+  }
+  return SpecReader(document, path).read();
+}
+
+Spec load_spec(const std::string& path) {
+  std::error_code status_error;
+  if (std::filesystem::is_directory(path, status_error)) {
+    throw SpecError(fmt::format("{}: cannot read file: {}", path, std::strerror(EISDIR)));
+  }
+  errno = 0;
+  std::ifstream file(path, std::ios::binary);
+  if (!file) {
+    const int reason = errno;
+    throw SpecError(fmt::format("{}: cannot read file: {}", path,
+                                reason != 0 ? std::strerror(reason) : "open failed"));
+  }
+  std::ostringstream contents;
+  contents << file.rdbuf();
+  if (file.bad()) {
+    throw SpecError(fmt::format("{}: cannot read file: read error", path));
+  }
+  return parse_spec(contents.str(), path);
+}
+
+}  // namespace specloop
