@@ -45,25 +45,26 @@ std::vector<Requirement> requirement_list(const Requirements& r) {
 }
 
 namespace {
-// Peak time as requirements read it: the time of the peak, or for a response without overshoot
-// (no peak) the first time it comes within the settling band.
-std::optional<double> effective_peak_time(const StepMetrics& m) {
-  return m.peak_time_s ? m.peak_time_s : m.band_entry_time_s;
+// Peak time as requirements read it: the time of the peak when the overshoot leaves the settling
+// band (a visible peak); otherwise (no overshoot, or one within the band, whose peak comes late
+// and flat) the first time the response comes within the band.
+std::optional<double> effective_peak_time(const StepMetrics& m, double band_pct) {
+  return m.peak_time_s && m.overshoot_pct > band_pct ? m.peak_time_s : m.band_entry_time_s;
 }
 }  // namespace
 
 std::optional<double> requirement_value(const Requirement& r, const StepMetrics& m,
                                         const std::optional<Margins>& margins,
-                                        const std::optional<double>& reference_peak_time_s) {
+                                        const std::optional<double>& reference_peak_time_s, double band_pct) {
   const std::string& k = r.key;
   if (k == "overshoot_max_pct") return m.overshoot_pct;
   if (k == "undershoot_max_pct") return m.undershoot_pct;
   if (k == "peak_time_ratio") {
-    const auto tp = effective_peak_time(m);
+    const auto tp = effective_peak_time(m, band_pct);
     if (!tp || !reference_peak_time_s) return std::nullopt;
     return *tp / *reference_peak_time_s;
   }
-  if (k == "peak_time_max") return effective_peak_time(m);
+  if (k == "peak_time_max") return effective_peak_time(m, band_pct);
   if (k == "settling_time_max") return m.settling_time_s;
   if (k == "rise_time_max") return m.rise_time_s;
   if (k == "steady_state_error_max") return std::abs(m.steady_state_error);
@@ -167,7 +168,8 @@ Design measure_design(const Problem& problem, std::string name, const Controller
   for (const Requirement& r : problem.requirements) {
     RequirementCheck c;
     c.requirement = r;
-    if (d.status == StepStatus::ok) c.value = requirement_value(r, d.simulated, d.margins, problem.reference_peak_time_s);
+    if (d.status == StepStatus::ok) c.value = requirement_value(r, d.simulated, d.margins, problem.reference_peak_time_s,
+                                                             problem.band_fraction * 100.0);
     c.violation = d.status == StepStatus::ok ? violation_of(r, c.value) : 1.0;
     c.met = d.status == StepStatus::ok && c.violation == 0.0;
     d.meets_all = d.meets_all && c.met;

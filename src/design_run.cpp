@@ -60,7 +60,8 @@ Infeasibility analyze_misses(const Problem& problem, const Design& best, const S
   const SearchResult nearest = optimize(relaxed, first.controller.series, o);
   const Design d = measure_design(relaxed, "nearest", nearest.controller);
   const auto value = d.status == StepStatus::ok
-                         ? requirement_value(*binding, d.simulated, d.margins, problem.reference_peak_time_s)
+                         ? requirement_value(*binding, d.simulated, d.margins, problem.reference_peak_time_s,
+                                             problem.band_fraction * 100.0)
                          : std::nullopt;
   if (d.meets_all && value) {
     info.nearest_value = *value;

@@ -224,7 +224,7 @@ json design_json(const Design& d) {
 }
 
 json search_json(const SearchSummary& s) {
-  return {{"algorithms_given", {{"global", "GN_CRS2_LM"}, {"local", "LN_SBPLX"}}},
+  return {{"algorithms_given", {{"global", s.global_given}, {"local", s.local_given}}},
           {"algorithms_used", {{"global", s.global_algorithm}, {"local", s.local_algorithm}}},
           {"evaluations", s.evaluations},
           {"global_evaluations", s.global_evaluations},

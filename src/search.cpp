@@ -2,10 +2,13 @@
 //
 // Variables are the structure's series parameters on a log scale. One evaluation: parameters →
 // controller polynomials → realization → closed loop → stability barrier (poles) → exact step
-// simulation → metrics (→ margins when a requirement needs them) → cost. The cost of a stable
-// candidate is objective/objective_at_seed + penalty·Σ normalized violations, so every feasible
-// design costs about 1 and a 1 % miss of one requirement costs `penalty`/100 more; an unstable
-// candidate costs 1e6·(1 + how far right its rightmost pole is), which steers back to stability.
+// simulation → metrics (→ margins when a requirement needs them) → cost. The cost ranks
+// candidates feasibility first: a feasible one costs objective/objective_at_seed (mapped
+// monotonically below 1e4), an infeasible stable one 1e4·(1 + Σ normalized violations), an
+// unstable one 1e9·(1 + how far right its rightmost pole is), so the search is steered back to
+// stability, then to feasibility, then down the objective. (An additive penalty was measured
+// too: it stalled on constraint boundaries, e.g. 45 % worse ITAE on the oven demo; see
+// DEVELOPERS.md.)
 #include <nlopt.hpp>
 
 #include <chrono>
@@ -19,7 +22,8 @@ namespace specloop {
 
 namespace {
 
-constexpr double kUnstableCost = 1e6;
+constexpr double kInfeasibleCost = 1e4;
+constexpr double kUnstableCost = 1e9;
 
 class CostFunction {
  public:
@@ -50,7 +54,8 @@ class CostFunction {
     std::optional<Margins> margins;
     if (problem_.needs_margins || options_.objective_requirement) margins = loop_margins(c * problem_.plant);
     for (const Requirement& r : problem_.requirements) {
-      const auto value = requirement_value(r, metrics_, margins, problem_.reference_peak_time_s);
+      const auto value = requirement_value(r, metrics_, margins, problem_.reference_peak_time_s,
+                                           problem_.band_fraction * 100.0);
       double miss = 1.0;
       if (value) {
         const double scale = r.limit != 0.0 ? std::abs(r.limit) : 0.01;
@@ -60,7 +65,8 @@ class CostFunction {
       if (miss > 1e-9) out.violation += miss;
     }
     if (options_.objective_requirement) {
-      const auto v = requirement_value(*options_.objective_requirement, metrics_, margins, problem_.reference_peak_time_s);
+      const auto v = requirement_value(*options_.objective_requirement, metrics_, margins, problem_.reference_peak_time_s,
+                                       problem_.band_fraction * 100.0);
       const double big = 1e3 * std::max(1.0, std::abs(options_.objective_requirement->limit));
       out.objective = !v ? big : options_.objective_requirement->upper ? *v : 1.0 / std::max(*v, 1e-12);
       return out;
@@ -80,7 +86,9 @@ class CostFunction {
 
   double cost(const Outcome& o) const {
     if (!o.stable) return o.objective;
-    return o.objective / objective_scale_ + options_.penalty * o.violation;
+    if (o.violation > 0.0) return kInfeasibleCost * (1.0 + o.violation);
+    // Feasible: the objective relative to the seed's, mapped monotonically below kInfeasibleCost.
+    return -kInfeasibleCost * std::expm1(-(o.objective / objective_scale_) / kInfeasibleCost);
   }
 
   // NLopt entry: x is log(parameters).
@@ -138,6 +146,14 @@ std::string result_text(nlopt::result r, const SearchOptions& o, int budget) {
 
 }  // namespace
 
+namespace {
+nlopt::algorithm algorithm_named(const std::string& name) {
+  const int code = nlopt_algorithm_from_string(name.c_str());
+  if (code < 0) throw std::invalid_argument("unknown NLopt algorithm '" + name + "'");
+  return static_cast<nlopt::algorithm>(code);
+}
+}  // namespace
+
 SearchResult optimize(const Problem& problem, const std::vector<double>& seed_parameters, const SearchOptions& options) {
   const auto start = std::chrono::steady_clock::now();
   const std::size_t dim = problem.parameters.size();
@@ -162,9 +178,12 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
   const int global_budget = std::max(1, static_cast<int>(options.global_share * options.max_evaluations));
   const int local_budget = std::max(1, options.max_evaluations - global_budget);
 
-  // Global stage: controlled random search with local mutation, seeded by the classical design
-  // (x is part of its initial population).
-  nlopt::opt global(nlopt::GN_CRS2_LM, static_cast<unsigned>(dim));
+  // Global stage over the whole box (DIRECT-L is deterministic and needs no seed; the seed is
+  // used by the local stage).
+  summary.global_given = options.global_algorithm;
+  summary.local_given = options.local_algorithm;
+  nlopt::opt global(algorithm_named(options.global_algorithm),
+                    static_cast<unsigned>(dim));
   summary.global_algorithm = global.get_algorithm_name();
   global.set_lower_bounds(lower);
   global.set_upper_bounds(upper);
@@ -181,22 +200,31 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
   }
   summary.global_evaluations = cost.evaluations;
 
-  // Local polish from the best point found: subplex on the same penalized cost.
-  nlopt::opt local(nlopt::LN_SBPLX, static_cast<unsigned>(dim));
+  // Local polish: subplex on the same cost, from the global stage's best point and from the
+  // seed (the hand design often sits in a different basin), then once more from the best of
+  // those; each start gets an equal share of the local budget.
+  nlopt::opt local(algorithm_named(options.local_algorithm), static_cast<unsigned>(dim));
   summary.local_algorithm = local.get_algorithm_name();
   local.set_lower_bounds(lower);
   local.set_upper_bounds(upper);
   local.set_min_objective(nlopt_trampoline, &cost);
-  local.set_maxeval(local_budget);
-  const double elapsed = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-  local.set_maxtime(std::max(0.01, options.max_time_s - elapsed));
   local.set_ftol_rel(options.local_relative_tolerance);
-  std::vector<double> lx = cost.best_x.empty() ? x : cost.best_x;
+  std::vector<std::vector<double>> starts;
+  if (!cost.best_x.empty()) starts.push_back(cost.best_x);
+  if (starts.empty() || starts.front() != x) starts.push_back(x);
+  const int runs = static_cast<int>(starts.size()) + 1;
   nlopt::result local_result = nlopt::FAILURE;
-  try {
-    local_result = local.optimize(lx, value);
-  } catch (const std::exception& e) {
-    summary.stop_reason = std::string("local stage stopped: ") + e.what();
+  for (int run = 0; run < runs; ++run) {
+    const double elapsed = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+    if (elapsed >= options.max_time_s) break;
+    local.set_maxtime(options.max_time_s - elapsed);
+    local.set_maxeval(std::max(1, local_budget / runs));
+    std::vector<double> lx = run < static_cast<int>(starts.size()) ? starts[static_cast<std::size_t>(run)] : cost.best_x;
+    try {
+      local_result = local.optimize(lx, value);
+    } catch (const std::exception& e) {
+      summary.stop_reason = std::string("local stage stopped: ") + e.what();
+    }
   }
   summary.local_evaluations = cost.evaluations - summary.global_evaluations;
   summary.evaluations = cost.evaluations;

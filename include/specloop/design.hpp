@@ -68,9 +68,11 @@ struct Design {
 Design measure_design(const Problem& problem, std::string name, const Controller& controller);
 
 /// The value a requirement reads from a measured response (std::nullopt: not defined).
+/// Peak-time requirements read the time of the peak when the overshoot exceeds the settling band
+/// (`band_pct`), else the first entry into the band (README, "Requirements").
 std::optional<double> requirement_value(const Requirement& r, const StepMetrics& m,
                                         const std::optional<Margins>& margins,
-                                        const std::optional<double>& reference_peak_time_s);
+                                        const std::optional<double>& reference_peak_time_s, double band_pct);
 
 // ---- classical design -------------------------------------------------------------------------
 
@@ -120,12 +122,14 @@ struct SearchOptions {
   int max_evaluations = 6000;         // global + local cost evaluations, at most
   double max_time_s = 20.0;           // wall-time cap for the whole search, s
   double global_share = 0.6;          // fraction of the evaluation budget for the global stage
-  double penalty = 100.0;             // cost per unit of normalized constraint violation
   double local_relative_tolerance = 1e-6;  // local stage stops when |Δcost|/cost falls below this
+  std::string global_algorithm = "GN_DIRECT_L";  // NLopt algorithm names (nlopt_algorithm_from_string)
+  std::string local_algorithm = "LN_SBPLX";
 };
 
 struct SearchSummary {
-  std::string global_algorithm;       // NLopt names, as used
+  std::string global_given, local_given;  // NLopt names, as asked for
+  std::string global_algorithm;       // NLopt's descriptions of what ran
   std::string local_algorithm;
   int evaluations = 0;
   int global_evaluations = 0;
