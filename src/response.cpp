@@ -24,24 +24,44 @@ std::string_view status_name(StepStatus s) {
 }
 
 TimeGrid choose_time_grid(const std::vector<Complex>& poles, const TimeGridRules& rules) {
-  double slowest = std::numeric_limits<double>::infinity();
-  double fastest = 0.0;
+  TimeGrid grid;
+  const int min_intervals = rules.min_samples - 1, max_intervals = rules.max_samples - 1;
+  if (poles.empty()) {  // a static loop: nothing moves; a short grid keeps the code uniform
+    grid.step_s = 1.0 / min_intervals;
+    grid.fine_intervals = min_intervals;
+    grid.samples = rules.min_samples;
+    return grid;
+  }
+  const double decay = std::log(1.0 / rules.decay_fraction);
+  double slowest = std::numeric_limits<double>::infinity(), fastest = 0.0;
   for (const Complex& p : poles) {
     slowest = std::min(slowest, -p.real());
     fastest = std::max(fastest, std::abs(p));
   }
-  TimeGrid grid;
-  if (poles.empty()) {  // a static loop: nothing moves; a short grid keeps the code uniform
-    grid.step_s = 1.0 / (rules.min_samples - 1);
-    grid.samples = rules.min_samples;
-    return grid;
+  const double horizon = decay / slowest;
+  const double coarse = horizon / min_intervals;
+  // Fast modes: those the coarse step would not resolve. They need the fine step only until
+  // they have decayed like the slowest one does by the horizon.
+  double fast_alive = 0.0;
+  for (const Complex& p : poles)
+    if (std::abs(p) * coarse > rules.max_step_pole_product) fast_alive = std::max(fast_alive, decay / -p.real());
+  if (fast_alive == 0.0) {
+    grid.step_s = coarse;
+    grid.fine_intervals = min_intervals;
+  } else {
+    const double fine = rules.max_step_pole_product / fastest;
+    const double t1 = std::min(fast_alive, horizon);
+    int fine_n = static_cast<int>(std::ceil(t1 / fine));
+    int coarse_n = t1 < horizon ? static_cast<int>(std::ceil((horizon - t1) / coarse)) : 0;
+    if (fine_n + coarse_n > max_intervals) {  // the cap: loosen the fine step
+      fine_n = std::max(1, max_intervals - coarse_n);
+    }
+    grid.step_s = t1 / fine_n;
+    grid.fine_intervals = fine_n;
+    grid.coarse_intervals = coarse_n;
+    grid.coarse_step_s = coarse_n > 0 ? (horizon - t1) / coarse_n : 0.0;
   }
-  const double horizon = std::log(1.0 / rules.decay_fraction) / slowest;
-  double intervals = rules.min_samples - 1;
-  if (fastest > 0.0) intervals = std::max(intervals, std::ceil(horizon * fastest / rules.max_step_pole_product));
-  intervals = std::min(intervals, static_cast<double>(rules.max_samples - 1));
-  grid.samples = static_cast<int>(intervals) + 1;
-  grid.step_s = horizon / intervals;
+  grid.samples = grid.fine_intervals + grid.coarse_intervals + 1;
   return grid;
 }
 
@@ -103,15 +123,17 @@ inline double interval_integral(double f0, double f1, double d0, double d1, doub
 // Padé(6,6) coefficients of the exponential (Moler & Van Loan, "Nineteen dubious ways...").
 constexpr double kPade[7] = {1.0, 1.0 / 2, 5.0 / 44, 1.0 / 66, 1.0 / 792, 1.0 / 15840, 1.0 / 665280};
 
+// Writes samples [0, count) of y, y', u, u' starting from state x_io, which is left at the state
+// after the last sample (ready for the next segment).
 template <int N>
 void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dyn,
-                 const Eigen::MatrixXd& out_dyn, const Eigen::VectorXd& oc_dyn, int samples,
-                 double* y, double* dy, double* u, double* du) {
+                 const Eigen::MatrixXd& out_dyn, const Eigen::VectorXd& oc_dyn, Eigen::VectorXd& x_io,
+                 int samples, double* y, double* dy, double* u, double* du) {
   const Eigen::Matrix<double, N, N> phi = phi_dyn;
   const Eigen::Matrix<double, N, 1> gamma = gamma_dyn;
   const Eigen::Matrix<double, 4, N> out = out_dyn;
   const Eigen::Vector4d oc = oc_dyn;
-  Eigen::Matrix<double, N, 1> x = Eigen::Matrix<double, N, 1>::Zero();
+  Eigen::Matrix<double, N, 1> x = x_io;
   for (int k = 0; k < samples; ++k) {
     const Eigen::Vector4d o = out * x + oc;
     y[k] = o(0);
@@ -120,6 +142,7 @@ void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dy
     du[k] = o(3);
     x = phi * x + gamma;
   }
+  x_io = x;
 }
 
 }  // namespace
@@ -145,13 +168,13 @@ void StepSimulator::prepare(int n, int samples) {
     states_ = n;
   }
   if (static_cast<int>(y_.size()) < samples) {
-    for (auto* v : {&y_, &dy_, &u_, &du_}) v->resize(static_cast<std::size_t>(samples));
+    for (auto* v : {&t_, &y_, &dy_, &u_, &du_}) v->resize(static_cast<std::size_t>(samples));
   }
 }
 
-void StepSimulator::discretize(const StateSpace& loop, double amplitude) {
+void StepSimulator::discretize(const StateSpace& loop, double amplitude, double h, Eigen::MatrixXd& phi,
+                               Eigen::VectorXd& gamma) {
   const int n = loop.states();
-  const double h = grid_.step_s;
   // Augmented exponential: exp([[A, B·r], [0, 0]]·h) = [[Φ, Γ·r], [0, 1]].
   augmented_.setZero();
   augmented_.topLeftCorner(n, n) = loop.A * h;
@@ -176,8 +199,8 @@ void StepSimulator::discretize(const StateSpace& loop, double amplitude) {
     power2_.noalias() = expo_ * expo_;
     expo_.swap(power2_);
   }
-  phi_ = expo_.topLeftCorner(n, n);
-  gamma_ = expo_.topRightCorner(n, 1);
+  phi = expo_.topLeftCorner(n, n);
+  gamma = expo_.topRightCorner(n, 1);
   // Outputs and their slopes: y = C_y x + D_y r, y' = C_y A x + C_y B r (likewise u).
   outputs_.row(0) = loop.C.row(0);
   outputs_.row(1).noalias() = loop.C.row(0) * loop.A;
@@ -189,25 +212,23 @@ void StepSimulator::discretize(const StateSpace& loop, double amplitude) {
   out_const_(3) = loop.C.row(1).dot(loop.B) * amplitude;
 }
 
-void StepSimulator::recur(int n) {
-  double* y = y_.data();
-  double* dy = dy_.data();
-  double* u = u_.data();
-  double* du = du_.data();
-  const int K = grid_.samples;
+void StepSimulator::recur(int n, int first, int count) {
+  double* y = y_.data() + first;
+  double* dy = dy_.data() + first;
+  double* u = u_.data() + first;
+  double* du = du_.data() + first;
   switch (n) {
-    case 1: return recur_fixed<1>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
-    case 2: return recur_fixed<2>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
-    case 3: return recur_fixed<3>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
-    case 4: return recur_fixed<4>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
-    case 5: return recur_fixed<5>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
-    case 6: return recur_fixed<6>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
-    case 7: return recur_fixed<7>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
-    case 8: return recur_fixed<8>(phi_, gamma_, outputs_, out_const_, K, y, dy, u, du);
+    case 1: return recur_fixed<1>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
+    case 2: return recur_fixed<2>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
+    case 3: return recur_fixed<3>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
+    case 4: return recur_fixed<4>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
+    case 5: return recur_fixed<5>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
+    case 6: return recur_fixed<6>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
+    case 7: return recur_fixed<7>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
+    case 8: return recur_fixed<8>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
     default: break;
   }
-  x_.setZero();
-  for (int k = 0; k < K; ++k) {
+  for (int k = 0; k < count; ++k) {
     y[k] = outputs_.row(0).dot(x_) + out_const_(0);
     dy[k] = outputs_.row(1).dot(x_) + out_const_(1);
     u[k] = outputs_.row(2).dot(x_) + out_const_(2);
@@ -249,9 +270,22 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
 
   grid_ = choose_time_grid(poles_, rules_);
   prepare(n, grid_.samples);
+  const int K = grid_.samples;
+  const int fine_samples = grid_.fine_intervals + 1;
+  for (int k = 0; k < fine_samples; ++k) t_[k] = k * grid_.step_s;
+  for (int k = fine_samples; k < K; ++k) t_[k] = t_[fine_samples - 1] + (k - fine_samples + 1) * grid_.coarse_step_s;
   if (n > 0) {
-    discretize(loop, amplitude);
-    recur(n);
+    // The fine segment writes samples 0 .. T₁ − h₁ and leaves x_ at T₁; the coarse segment
+    // writes T₁ .. T with the coarse step. Without a coarse segment the fine one runs to T.
+    discretize(loop, amplitude, grid_.step_s, phi_, gamma_);
+    x_.setZero();
+    if (grid_.coarse_intervals == 0) {
+      recur(n, 0, fine_samples);
+    } else {
+      recur(n, 0, fine_samples - 1);
+      discretize(loop, amplitude, grid_.coarse_step_s, phi_, gamma_);
+      recur(n, fine_samples - 1, grid_.coarse_intervals + 1);
+    }
   } else {
     for (int k = 0; k < grid_.samples; ++k) {
       y_[k] = loop.D(0) * amplitude;
@@ -259,8 +293,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
       dy_[k] = du_[k] = 0.0;
     }
   }
-  const int K = grid_.samples;
-  const double h = grid_.step_s;
+  const double* t = t_.data();
   const double* y = y_.data();
   const double* dy = dy_.data();
   const double* u = u_.data();
@@ -283,7 +316,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     if (k + 1 < K) {
       const double e0 = y_inf - y[k], e1 = y_inf - y[k + 1];
       const double de0 = -dy[k], de1 = -dy[k + 1];
-      const double t0 = k * h, t1 = (k + 1) * h;
+      const double t0 = t[k], t1 = t[k + 1], h = t1 - t0;
       ise += interval_integral(e0 * e0, e1 * e1, 2 * e0 * de0, 2 * e1 * de1, h);
       if ((e0 >= 0.0) == (e1 >= 0.0)) {
         iae += std::abs(interval_integral(e0, e1, de0, de1, h));
@@ -300,15 +333,15 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   m.itae = itae;
 
   auto interval = [&](const double* f, const double* df, int k) {
-    return Hermite{f[k], f[k + 1], df[k], df[k + 1], h};
+    return Hermite{f[k], f[k + 1], df[k], df[k + 1], t[k + 1] - t[k]};
   };
   // Refined extremum of f around sample k (intervals k−1..k and k..k+1). Returns {value, time}.
   auto refine_extremum = [&](const double* f, const double* df, int k, double sign) {
-    std::pair<double, double> best{f[k], k * h};
+    std::pair<double, double> best{f[k], t[k]};
     for (int j : {k - 1, k}) {
       if (j < 0 || j + 1 >= K) continue;
       const auto [v, s] = interval(f, df, j).extremum(sign);
-      if (sign * v > sign * best.first) best = {v, (j + s) * h};
+      if (sign * v > sign * best.first) best = {v, t[j] + s * (t[j + 1] - t[j])};
     }
     return best;
   };
@@ -332,7 +365,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     // First sample at/above the level is k_after; the crossing is in (k_after − 1, k_after).
     if (k_after <= 0) return 0.0;
     const double s = interval(y, dy, k_after - 1).crossing(level_n * y_inf);
-    return (k_after - 1 + s) * h;
+    return t[k_after - 1] + s * (t[k_after] - t[k_after - 1]);
   };
   if (k10 >= 0 && k90 >= 0) m.rise_time_s = crossing_time(k90, 0.9) - crossing_time(k10, 0.1);
   if (k_entry == 0) {
@@ -340,7 +373,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   } else if (k_entry > 0) {
     const double side = (y[k_entry - 1] * inv > 1.0) ? 1.0 : -1.0;
     const double s = interval(y, dy, k_entry - 1).crossing((1.0 + side * band_fraction) * y_inf);
-    m.band_entry_time_s = (k_entry - 1 + s) * h;
+    m.band_entry_time_s = t[k_entry - 1] + s * (t[k_entry] - t[k_entry - 1]);
   }
 
   if (k_outside < 0) {
@@ -348,17 +381,16 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   } else if (k_outside + 1 < K) {
     const double side = (y[k_outside] * inv > 1.0) ? 1.0 : -1.0;
     const double s = interval(y, dy, k_outside).crossing((1.0 + side * band_fraction) * y_inf);
-    m.settling_time_s = (k_outside + s) * h;
+    m.settling_time_s = t[k_outside] + s * (t[k_outside + 1] - t[k_outside]);
   }
 
   if (!std::isfinite(m.overshoot_pct) || !std::isfinite(m.effort_peak) || !std::isfinite(m.itae))
     return StepStatus::numerical_failure;
 
   if (trace) {
-    trace->time_s.resize(static_cast<std::size_t>(K));
     trace->output.assign(y, y + K);
     trace->effort.assign(u, u + K);
-    for (int k = 0; k < K; ++k) trace->time_s[static_cast<std::size_t>(k)] = k * h;
+    trace->time_s.assign(t, t + K);
   }
   return StepStatus::ok;
 }

@@ -114,9 +114,44 @@ TEST_CASE("time grid rules", "[response]") {
   const auto g = choose_time_grid({{-0.5, 0.0}, {-2.0, 4.0}, {-2.0, -4.0}}, rules);
   CHECK_THAT(g.horizon_s(), WithinRel(std::log(1e4) / 0.5, 1e-12));  // slowest mode decays to 1e-4
   CHECK(g.samples == rules.min_samples);
-  // A fast pole forces a finer step, up to the cap.
-  const auto fine = choose_time_grid({{-0.5, 0.0}, {-300.0, 0.0}}, rules);
-  CHECK(fine.samples > rules.min_samples);
-  CHECK(fine.samples <= rules.max_samples);
-  CHECK((fine.step_s * 300.0 <= rules.max_step_pole_product + 1e-12 || fine.samples == rules.max_samples));
+  CHECK(g.coarse_intervals == 0);
+  // A fast pole gets a fine first segment, until it has decayed; then the coarse step.
+  const auto two = choose_time_grid({{-0.5, 0.0}, {-300.0, 0.0}}, rules);
+  CHECK_THAT(two.horizon_s(), WithinRel(std::log(1e4) / 0.5, 1e-12));
+  CHECK(two.step_s * 300.0 <= rules.max_step_pole_product + 1e-12);
+  CHECK(two.step_s * two.fine_intervals >= std::log(1e4) / 300.0 - 1e-12);  // fast mode decayed
+  CHECK(two.coarse_intervals > 0);
+  CHECK(two.samples <= rules.max_samples);
+  CHECK(two.samples == two.fine_intervals + two.coarse_intervals + 1);
+  // A fast, lightly damped mode lives as long as the slow one: one fine segment throughout.
+  const auto ringing = choose_time_grid({{-0.5, 0.0}, {-0.5, 500.0}, {-0.5, -500.0}}, rules);
+  CHECK(ringing.coarse_intervals == 0);
+  CHECK(ringing.step_s * std::abs(Complex(-0.5, 500.0)) <= rules.max_step_pole_product + 1e-12);
+  // ... unless the cap binds: then the fine step loosens to fit max_samples.
+  const auto capped = choose_time_grid({{-0.5, 0.0}, {-0.5, 5000.0}, {-0.5, -5000.0}}, rules);
+  CHECK(capped.samples == rules.max_samples);
+}
+
+TEST_CASE("two-segment grid: samples stay exact across the switch", "[response]") {
+  // T(s) = 1/((s + 0.5)(s/300 + 1)) as a closed loop of the plant 1/((s + 0.5)(s/300 + 1)) − …:
+  // simpler, take the open loop a/(s(s + b)) with widely spread closed-loop poles.
+  const double a = 150.0 * 0.5, b = 300.5;  // closed loop s² + 300.5 s + 150 → poles ≈ −0.4998, −300
+  const auto plant = TransferFunction(Polynomial({a * 2.0}), Polynomial({1.0, b, 0.0}));
+  StepSimulator sim;
+  StepMetrics m;
+  StepTrace trace;
+  REQUIRE(sim.simulate(close_loop(realize(plant), static_gain(1.0)), 1.0, 0.02, m, &trace) == StepStatus::ok);
+  REQUIRE(sim.grid().coarse_intervals > 0);
+  const double wn2 = 2.0 * a, disc = std::sqrt(b * b - 4 * wn2);
+  const double p1 = (-b + disc) / 2, p2 = (-b - disc) / 2;
+  for (std::size_t i = 0; i < trace.time_s.size(); i += 3) {
+    const double t = trace.time_s[i];
+    // Step response of wn²/((s − p1)(s − p2)): 1 + (p2·e^{p1 t} − p1·e^{p2 t})/(p1 − p2).
+    const double want = 1.0 + (p2 * std::exp(p1 * t) - p1 * std::exp(p2 * t)) / (p1 - p2);
+    CHECK_THAT(trace.output[i], WithinAbs(want, 1e-11));
+  }
+  // Rise and settling of the slow mode, now measured on the coarse segment: τ·ln 9 and τ·ln 50
+  // up to the fast mode's small contribution.
+  REQUIRE(m.settling_time_s);
+  CHECK_THAT(*m.settling_time_s, WithinRel(std::log(50.0) / -p1, 2e-3));
 }

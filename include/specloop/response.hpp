@@ -40,13 +40,18 @@ struct TimeGridRules {
   double decay_fraction = 1e-4;   // horizon T = ln(1/decay_fraction)/σ_slow (slowest mode decayed)
   int min_samples = 2000;         // samples on [0, T] at least (t = 0 included)
   int max_samples = 20000;        // cap; with it the resolution rule below may loosen
-  double max_step_pole_product = 1.0;  // h·|p| <= this for every pole, within the cap
+  double max_step_pole_product = 1.0;  // h·|p| <= this for every pole still alive, within the cap
 };
 
+/// Two uniform segments: a fine step while fast modes are alive, then a coarse one. A single
+/// segment has coarse_intervals = 0.
 struct TimeGrid {
-  double step_s = 0.0;  // h
-  int samples = 0;      // t_k = k·h, k = 0 .. samples − 1
-  double horizon_s() const { return step_s * (samples - 1); }
+  double step_s = 0.0;          // fine step h₁
+  int fine_intervals = 0;       // [0, T₁], T₁ = h₁·fine_intervals
+  double coarse_step_s = 0.0;   // h₂
+  int coarse_intervals = 0;     // [T₁, T]
+  int samples = 0;              // fine_intervals + coarse_intervals + 1 (t = 0 included)
+  double horizon_s() const { return step_s * fine_intervals + coarse_step_s * coarse_intervals; }
 };
 
 /// Chooses h and the number of samples from stable closed-loop poles.
@@ -76,8 +81,8 @@ class StepSimulator {
 
  private:
   void prepare(int states, int samples);
-  void discretize(const StateSpace& loop, double amplitude);
-  void recur(int states);
+  void discretize(const StateSpace& loop, double amplitude, double step, Eigen::MatrixXd& phi, Eigen::VectorXd& gamma);
+  void recur(int states, int first, int count);
 
   TimeGridRules rules_;
   TimeGrid grid_;
@@ -90,7 +95,7 @@ class StepSimulator {
   Eigen::MatrixXd augmented_, power2_, power4_, power6_, even_, odd_, numer_, denom_, expo_;
   Eigen::MatrixXd phi_, outputs_;  // Φ and [C_y; C_y·A; C_u; C_u·A]
   Eigen::VectorXd gamma_, out_const_, x_, x_next_, solve_;
-  std::vector<double> y_, dy_, u_, du_;
+  std::vector<double> t_, y_, dy_, u_, du_;
 };
 
 }  // namespace specloop
