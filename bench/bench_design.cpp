@@ -42,7 +42,7 @@ int main(int argc, char** argv) {
     if (classical) seed = classical->controller.series;
     else for (const auto& [lo, hi] : problem.bounds) seed.push_back(std::sqrt(lo * hi));
     const std::vector<std::pair<std::string, std::string>> pairs{
-        {"GN_CRS2_LM", "LN_SBPLX"}, {"GN_CRS2_LM", "LN_NELDERMEAD"}, {"GN_DIRECT_L", "LN_SBPLX"},
+        {"GN_DIRECT_L,GN_CRS2_LM", "LN_SBPLX"}, {"GN_CRS2_LM", "LN_SBPLX"}, {"GN_CRS2_LM", "LN_NELDERMEAD"}, {"GN_DIRECT_L", "LN_SBPLX"},
         {"GN_ISRES", "LN_SBPLX"},   {"GN_ESCH", "LN_SBPLX"},       {"GN_CRS2_LM", "LN_COBYLA"}};
     for (const auto& [global, local] : pairs) {
       double total = 0.0;
@@ -63,7 +63,7 @@ int main(int argc, char** argv) {
           worst = std::max(worst, r.summary.best_objective);
         }
       }
-      fmt::print("  {:>12} + {:<14} feasible {}/{}  objective best {:.5g} worst {:.5g}  mean time {:.3f} s\n", global,
+      fmt::print("  {:>22} + {:<14} feasible {}/{}  objective best {:.5g} worst {:.5g}  mean time {:.3f} s\n", global,
                  local, feasible, seeds, best, worst, total / seeds);
     }
   }

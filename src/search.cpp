@@ -11,6 +11,7 @@
 // DEVELOPERS.md.)
 #include <nlopt.hpp>
 
+#include <algorithm>
 #include <chrono>
 #include <cmath>
 #include <fmt/format.h>
@@ -178,29 +179,41 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
   const int global_budget = std::max(1, static_cast<int>(options.global_share * options.max_evaluations));
   const int local_budget = std::max(1, options.max_evaluations - global_budget);
 
-  // Global stage over the whole box (DIRECT-L is deterministic and needs no seed; the seed is
-  // used by the local stage).
+  // Global stage: one or more algorithms over the whole box (a comma-separated list), each with
+  // an equal share of the global budget, each starting from the best point so far. The best
+  // point of each becomes a start of the local stage.
   summary.global_given = options.global_algorithm;
   summary.local_given = options.local_algorithm;
-  nlopt::opt global(algorithm_named(options.global_algorithm),
-                    static_cast<unsigned>(dim));
-  summary.global_algorithm = global.get_algorithm_name();
-  global.set_lower_bounds(lower);
-  global.set_upper_bounds(upper);
-  global.set_min_objective(nlopt_trampoline, &cost);
-  global.set_maxeval(global_budget);
-  global.set_maxtime(options.max_time_s * options.global_share);
+  std::vector<std::string> globals;
+  for (std::size_t from = 0;;) {
+    const std::size_t comma = options.global_algorithm.find(',', from);
+    globals.push_back(options.global_algorithm.substr(from, comma - from));
+    if (comma == std::string::npos) break;
+    from = comma + 1;
+  }
+  std::vector<std::vector<double>> starts;
   double value = 0.0;
-  std::vector<double> gx = x;
   nlopt::result global_result = nlopt::FAILURE;
-  try {
-    global_result = global.optimize(gx, value);
-  } catch (const std::exception&) {
-    // A stopped or failed global stage still leaves its best point in `cost`.
+  for (const std::string& name : globals) {
+    nlopt::opt global(algorithm_named(name), static_cast<unsigned>(dim));
+    summary.global_algorithm += std::string(summary.global_algorithm.empty() ? "" : "; ") + global.get_algorithm_name();
+    global.set_lower_bounds(lower);
+    global.set_upper_bounds(upper);
+    global.set_min_objective(nlopt_trampoline, &cost);
+    global.set_maxeval(std::max(1, global_budget / static_cast<int>(globals.size())));
+    global.set_maxtime(options.max_time_s * options.global_share / static_cast<double>(globals.size()));
+    std::vector<double> gx = cost.best_x.empty() ? x : cost.best_x;
+    const double before = cost.best_cost;
+    try {
+      global_result = global.optimize(gx, value);
+    } catch (const std::exception&) {
+      // A stopped or failed global stage still leaves its best point in `cost`.
+    }
+    if (!cost.best_x.empty() && (starts.empty() || cost.best_cost < before)) starts.push_back(cost.best_x);
   }
   summary.global_evaluations = cost.evaluations;
 
-  // Local polish: subplex on the same cost, from the global stage's best point and from the
+  // Local polish: subplex on the same cost, from each global algorithm's best point and from the
   // seed (the hand design often sits in a different basin), then once more from the best of
   // those; each start gets an equal share of the local budget.
   nlopt::opt local(algorithm_named(options.local_algorithm), static_cast<unsigned>(dim));
@@ -209,9 +222,7 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
   local.set_upper_bounds(upper);
   local.set_min_objective(nlopt_trampoline, &cost);
   local.set_ftol_rel(options.local_relative_tolerance);
-  std::vector<std::vector<double>> starts;
-  if (!cost.best_x.empty()) starts.push_back(cost.best_x);
-  if (starts.empty() || starts.front() != x) starts.push_back(x);
+  if (std::find(starts.begin(), starts.end(), x) == starts.end()) starts.push_back(x);
   const int runs = static_cast<int>(starts.size()) + 1;
   nlopt::result local_result = nlopt::FAILURE;
   for (int run = 0; run < runs; ++run) {
