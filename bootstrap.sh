@@ -1,7 +1,7 @@
 #!/usr/bin/env bash
 # specloop set-up on a Debian 12 machine: installs what is missing (apt-get; as root, or with
 # sudo), configures and builds, then either runs the demo or the whole test suite.
-#   ./bootstrap.sh demo   install, build, analyze a demo spec
+#   ./bootstrap.sh demo   install, build, analyze and design a demo spec
 #   ./bootstrap.sh test   install, build, run every test (what CI runs)
 #   ./bootstrap.sh build  install and build only
 set -euo pipefail
@@ -34,6 +34,8 @@ cmake --build "$build_dir" -j "$jobs"
 case "$mode" in
   demo)
     "$build_dir/specloop" analyze specs/conveyor_speed.toml
+    echo
+    "$build_dir/specloop" design specs/conveyor_speed.toml
     ;;
   test)
     ctest --test-dir "$build_dir" --output-on-failure -j "$jobs"

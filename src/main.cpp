@@ -113,7 +113,21 @@ void print_design(const DesignRun& run, const std::string& result_path) {
   }
   fmt::print("  {:<24} {:>12}", "meets all", "");
   for (const Design& d : run.designs) fmt::print(" {:>14}", d.meets_all ? "yes" : "no");
-  fmt::print("\n\n");
+  fmt::print("\n");
+  // Margins, for every design (informational unless a margin requirement is set).
+  auto margin_row = [&](const char* name, auto get) {
+    fmt::print("  {:<24} {:>12}", name, "");
+    for (const Design& d : run.designs) {
+      const std::optional<double> v = d.margins ? get(*d.margins) : std::nullopt;
+      fmt::print(" {:>14}", !d.margins ? "—" : v ? fmt::format("{:.3g}", *v) : "∞");
+    }
+    fmt::print("\n");
+  };
+  margin_row("gain margin (dB)", [](const Margins& m) { return m.gain_margin_db; });
+  margin_row("phase margin (deg)", [](const Margins& m) { return m.phase_margin_deg; });
+  margin_row("sensitivity peak Ms", [](const Margins& m) { return std::optional<double>(m.sensitivity_peak); });
+  margin_row("delay margin (s)", [](const Margins& m) { return m.delay_margin_s; });
+  fmt::print("\n");
   const Design* best = run.find("optimized");
   if (best) {
     const Controller& c = best->controller;
@@ -126,8 +140,8 @@ void print_design(const DesignRun& run, const std::string& result_path) {
                  c.parallel->kd, c.parallel->tf);
   }
   const SearchSummary& s = run.search;
-  fmt::print("Search: {} then {}, {} evaluations ({} unstable, {} infeasible) in {:.3f} s; {}\n", s.global_algorithm,
-             s.local_algorithm, s.evaluations, s.unstable, s.infeasible, s.wall_time_s, s.stop_reason);
+  fmt::print("Search: NLopt {} then {}, {} evaluations ({} unstable, {} infeasible) in {:.3f} s;\n  {}\n",
+             s.global_given, s.local_given, s.evaluations, s.unstable, s.infeasible, s.wall_time_s, s.stop_reason);
   if (run.infeasibility) {
     fmt::print("\nNOT MET: no design meets every requirement. Binding: {}.\n", run.infeasibility->binding);
     for (const auto& m : run.infeasibility->misses)
