@@ -114,35 +114,46 @@ struct Hermite {
   }
 };
 
-// Integral over one interval of a smooth f with end values and slopes (Hermite-corrected
-// trapezoid, exact for cubics).
-inline double interval_integral(double f0, double f1, double d0, double d1, double h) {
-  return 0.5 * h * (f0 + f1) + h * h * (d0 - d1) / 12.0;
-}
-
 // Padé(6,6) coefficients of the exponential (Moler & Van Loan, "Nineteen dubious ways...").
 constexpr double kPade[7] = {1.0, 1.0 / 2, 5.0 / 44, 1.0 / 66, 1.0 / 792, 1.0 / 15840, 1.0 / 665280};
 
-// Writes samples [0, count) of y, y', u, u' starting from state x_io, which is left at the state
-// after the last sample (ready for the next segment).
+// Writes samples [0, count) of y and u, and the states themselves (column-major, N per sample,
+// for slopes computed on demand), starting from x_io, which is left at the state after the last
+// sample (ready for the next segment). Two interleaved chains (even and odd samples, stepped by
+// Φ² with Γ₂ = Φ·Γ + Γ) halve the length of the dependency chain that bounds the loop's speed.
 template <int N>
 void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dyn,
                  const Eigen::MatrixXd& out_dyn, const Eigen::VectorXd& oc_dyn, Eigen::VectorXd& x_io,
-                 int samples, double* y, double* dy, double* u, double* du) {
-  const Eigen::Matrix<double, N, N> phi = phi_dyn;
-  const Eigen::Matrix<double, N, 1> gamma = gamma_dyn;
-  const Eigen::Matrix<double, 4, N> out = out_dyn;
-  const Eigen::Vector4d oc = oc_dyn;
-  Eigen::Matrix<double, N, 1> x = x_io;
-  for (int k = 0; k < samples; ++k) {
-    const Eigen::Vector4d o = out * x + oc;
-    y[k] = o(0);
-    dy[k] = o(1);
-    u[k] = o(2);
-    du[k] = o(3);
-    x = phi * x + gamma;
+                 int samples, double* y, double* u, double* states) {
+  using Vec = Eigen::Matrix<double, N, 1>;
+  using Mat = Eigen::Matrix<double, N, N>;
+  const Mat phi = phi_dyn;
+  const Vec gamma = gamma_dyn;
+  const Mat phi2 = phi * phi;
+  const Vec gamma2 = phi * gamma + gamma;
+  const Eigen::Matrix<double, 1, N> cy = out_dyn.row(0), cu = out_dyn.row(2);
+  const double oy = oc_dyn(0), ou = oc_dyn(2);
+  Vec even = x_io;
+  Vec odd = phi * even + gamma;
+  int k = 0;
+  for (; k + 1 < samples; k += 2) {
+    Eigen::Map<Vec>(states + k * N) = even;
+    Eigen::Map<Vec>(states + (k + 1) * N) = odd;
+    y[k] = cy.dot(even) + oy;
+    u[k] = cu.dot(even) + ou;
+    y[k + 1] = cy.dot(odd) + oy;
+    u[k + 1] = cu.dot(odd) + ou;
+    even = phi2 * even + gamma2;
+    odd = phi2 * odd + gamma2;
   }
-  x_io = x;
+  if (k < samples) {  // an odd count: `even` holds the last sample
+    Eigen::Map<Vec>(states + k * N) = even;
+    y[k] = cy.dot(even) + oy;
+    u[k] = cu.dot(even) + ou;
+    x_io = phi * even + gamma;
+  } else {
+    x_io = even;  // `even` advanced past the last (odd) sample by two steps from k − 2: it is x[k]
+  }
 }
 
 }  // namespace
@@ -168,8 +179,10 @@ void StepSimulator::prepare(int n, int samples) {
     states_ = n;
   }
   if (static_cast<int>(y_.size()) < samples) {
-    for (auto* v : {&t_, &y_, &dy_, &u_, &du_}) v->resize(static_cast<std::size_t>(samples));
+    for (auto* v : {&t_, &y_, &u_}) v->resize(static_cast<std::size_t>(samples));
   }
+  if (states_store_.size() < static_cast<std::size_t>(samples) * static_cast<std::size_t>(n))
+    states_store_.resize(static_cast<std::size_t>(samples) * static_cast<std::size_t>(n));
 }
 
 void StepSimulator::discretize(const StateSpace& loop, double amplitude, double h, Eigen::MatrixXd& phi,
@@ -214,29 +227,33 @@ void StepSimulator::discretize(const StateSpace& loop, double amplitude, double 
 
 void StepSimulator::recur(int n, int first, int count) {
   double* y = y_.data() + first;
-  double* dy = dy_.data() + first;
   double* u = u_.data() + first;
-  double* du = du_.data() + first;
+  double* states = states_store_.data() + static_cast<std::size_t>(first) * static_cast<std::size_t>(n);
   switch (n) {
-    case 1: return recur_fixed<1>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
-    case 2: return recur_fixed<2>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
-    case 3: return recur_fixed<3>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
-    case 4: return recur_fixed<4>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
-    case 5: return recur_fixed<5>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
-    case 6: return recur_fixed<6>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
-    case 7: return recur_fixed<7>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
-    case 8: return recur_fixed<8>(phi_, gamma_, outputs_, out_const_, x_, count, y, dy, u, du);
+    case 1: return recur_fixed<1>(phi_, gamma_, outputs_, out_const_, x_, count, y, u, states);
+    case 2: return recur_fixed<2>(phi_, gamma_, outputs_, out_const_, x_, count, y, u, states);
+    case 3: return recur_fixed<3>(phi_, gamma_, outputs_, out_const_, x_, count, y, u, states);
+    case 4: return recur_fixed<4>(phi_, gamma_, outputs_, out_const_, x_, count, y, u, states);
+    case 5: return recur_fixed<5>(phi_, gamma_, outputs_, out_const_, x_, count, y, u, states);
+    case 6: return recur_fixed<6>(phi_, gamma_, outputs_, out_const_, x_, count, y, u, states);
+    case 7: return recur_fixed<7>(phi_, gamma_, outputs_, out_const_, x_, count, y, u, states);
+    case 8: return recur_fixed<8>(phi_, gamma_, outputs_, out_const_, x_, count, y, u, states);
     default: break;
   }
   for (int k = 0; k < count; ++k) {
+    Eigen::Map<Eigen::VectorXd>(states + static_cast<std::ptrdiff_t>(k) * n, n) = x_;
     y[k] = outputs_.row(0).dot(x_) + out_const_(0);
-    dy[k] = outputs_.row(1).dot(x_) + out_const_(1);
     u[k] = outputs_.row(2).dot(x_) + out_const_(2);
-    du[k] = outputs_.row(3).dot(x_) + out_const_(3);
     x_next_.noalias() = phi_ * x_;
     x_next_ += gamma_;
     x_.swap(x_next_);
   }
+}
+
+double StepSimulator::slope(int row, int k) const {
+  if (states_ == 0) return 0.0;
+  const Eigen::Map<const Eigen::VectorXd> x(states_store_.data() + static_cast<std::size_t>(k) * static_cast<std::size_t>(states_), states_);
+  return outputs_.row(row).dot(x) + out_const_(row);
 }
 
 StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, double band_fraction,
@@ -290,81 +307,106 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     for (int k = 0; k < grid_.samples; ++k) {
       y_[k] = loop.D(0) * amplitude;
       u_[k] = loop.D(1) * amplitude;
-      dy_[k] = du_[k] = 0.0;
     }
   }
   const double* t = t_.data();
   const double* y = y_.data();
-  const double* dy = dy_.data();
   const double* u = u_.data();
-  const double* du = du_.data();
   if (!std::isfinite(y[K - 1]) || !std::isfinite(u[K - 1])) return StepStatus::numerical_failure;
+  auto dy = [&](int k) { return slope(1, k); };  // exact y'(t_k)
+  auto du = [&](int k) { return slope(3, k); };  // exact u'(t_k)
 
-  // One pass: extremes (normalized by y∞), band exits, threshold crossings, integrals.
+  // Extremes (normalized by y∞), band exits, threshold crossings.
   const double inv = 1.0 / y_inf;
   int k_max = 0, k_min = 0, k_effort = 0, k_outside = -1, k10 = -1, k90 = -1, k_entry = -1;
-  double iae = 0.0, ise = 0.0, itae = 0.0;
+  double yn_max = y[0] * inv, yn_min = yn_max, u_abs_max = std::abs(u[0]);
   for (int k = 0; k < K; ++k) {
     const double yn = y[k] * inv;
-    if (yn > y[k_max] * inv) k_max = k;
-    if (yn < y[k_min] * inv) k_min = k;
-    if (std::abs(u[k]) > std::abs(u[k_effort])) k_effort = k;
+    if (yn > yn_max) { yn_max = yn; k_max = k; }
+    if (yn < yn_min) { yn_min = yn; k_min = k; }
+    if (std::abs(u[k]) > u_abs_max) { u_abs_max = std::abs(u[k]); k_effort = k; }
     if (std::abs(yn - 1.0) > band_fraction) k_outside = k;
     else if (k_entry < 0) k_entry = k;
-    if (k10 < 0 && yn >= 0.1) k10 = k;
-    if (k90 < 0 && yn >= 0.9) k90 = k;
-    if (k + 1 < K) {
+    if (k90 < 0 && yn >= 0.9) { k90 = k; if (k10 < 0) k10 = k; }
+    else if (k10 < 0 && yn >= 0.1) k10 = k;
+  }
+
+  // Integrals of e = y∞ − y, per uniform segment, by the trapezoid rule with the Hermite end
+  // correction h²/12·(f'(a) − f'(b)) (exact for cubics); the corrections of neighbouring intervals
+  // cancel, so only the ends of each run of constant sign need the slope. An interval where e
+  // changes sign is split at its linear zero.
+  double iae = 0.0, ise = 0.0, itae = 0.0;
+  auto integrate_segment = [&](int first, int last, double h) {
+    if (last <= first) return;
+    const double c = h * h / 12.0;
+    auto e = [&](int k) { return y_inf - y[k]; };
+    auto de = [&](int k) { return -dy(k); };
+    double trap_ise = 0.0, trap_iae = 0.0, trap_itae = 0.0;
+    auto close_run = [&](int a, int b) {  // samples a..b share the sign of e(a)
+      if (b <= a) return;
+      const double s = e(a) >= 0.0 ? 1.0 : -1.0;
+      iae += s * c * (de(a) - de(b));
+      itae += s * c * ((e(a) + t[a] * de(a)) - (e(b) + t[b] * de(b)));
+    };
+    int run = first;
+    for (int k = first; k < last; ++k) {
       const double e0 = y_inf - y[k], e1 = y_inf - y[k + 1];
-      const double de0 = -dy[k], de1 = -dy[k + 1];
-      const double t0 = t[k], t1 = t[k + 1], h = t1 - t0;
-      ise += interval_integral(e0 * e0, e1 * e1, 2 * e0 * de0, 2 * e1 * de1, h);
+      trap_ise += e0 * e0 + e1 * e1;
       if ((e0 >= 0.0) == (e1 >= 0.0)) {
-        iae += std::abs(interval_integral(e0, e1, de0, de1, h));
-        itae += std::abs(interval_integral(t0 * e0, t1 * e1, e0 + t0 * de0, e1 + t1 * de1, h));
-      } else {  // sign change inside: split at the linear-interpolated zero
+        trap_iae += std::abs(e0 + e1);
+        trap_itae += std::abs(t[k] * e0 + t[k + 1] * e1);
+      } else {
         const double s = e0 / (e0 - e1);
         iae += 0.5 * h * (std::abs(e0) * s + std::abs(e1) * (1.0 - s));
-        itae += 0.5 * h * (t0 * std::abs(e0) * s + t1 * std::abs(e1) * (1.0 - s));
+        itae += 0.5 * h * (t[k] * std::abs(e0) * s + t[k + 1] * std::abs(e1) * (1.0 - s));
+        close_run(run, k);
+        run = k + 1;
       }
     }
-  }
+    close_run(run, last);
+    iae += 0.5 * h * trap_iae;
+    itae += 0.5 * h * trap_itae;
+    ise += 0.5 * h * trap_ise + c * (2.0 * e(first) * de(first) - 2.0 * e(last) * de(last));
+  };
+  const int fine_last = grid_.coarse_intervals > 0 ? grid_.fine_intervals : K - 1;
+  integrate_segment(0, fine_last, grid_.step_s);
+  if (grid_.coarse_intervals > 0) integrate_segment(fine_last, K - 1, grid_.coarse_step_s);
   m.iae = iae;
   m.ise = ise;
   m.itae = itae;
 
-  auto interval = [&](const double* f, const double* df, int k) {
-    return Hermite{f[k], f[k + 1], df[k], df[k + 1], t[k + 1] - t[k]};
-  };
-  // Refined extremum of f around sample k (intervals k−1..k and k..k+1). Returns {value, time}.
-  auto refine_extremum = [&](const double* f, const double* df, int k, double sign) {
+  auto interval_y = [&](int k) { return Hermite{y[k], y[k + 1], dy(k), dy(k + 1), t[k + 1] - t[k]}; };
+  auto interval_u = [&](int k) { return Hermite{u[k], u[k + 1], du(k), du(k + 1), t[k + 1] - t[k]}; };
+  // Refined extremum around sample k (intervals k−1..k and k..k+1). Returns {value, time}.
+  auto refine_extremum = [&](const double* f, auto interval, int k, double sign) {
     std::pair<double, double> best{f[k], t[k]};
     for (int j : {k - 1, k}) {
       if (j < 0 || j + 1 >= K) continue;
-      const auto [v, s] = interval(f, df, j).extremum(sign);
+      const auto [v, s] = interval(j).extremum(sign);
       if (sign * v > sign * best.first) best = {v, t[j] + s * (t[j + 1] - t[j])};
     }
     return best;
   };
 
   const double sign = y_inf > 0.0 ? 1.0 : -1.0;  // extremes of y/y∞ are extremes of sign·y
-  const auto [y_peak, t_peak] = refine_extremum(y, dy, k_max, sign);
+  const auto [y_peak, t_peak] = refine_extremum(y, interval_y, k_max, sign);
   const double peak_n = y_peak * inv;
   if (peak_n > 1.0 + 1e-9) {
     m.overshoot_pct = (peak_n - 1.0) * 100.0;
     m.peak_time_s = t_peak;
   }
-  const auto [y_low, t_low] = refine_extremum(y, dy, k_min, -sign);
+  const auto [y_low, t_low] = refine_extremum(y, interval_y, k_min, -sign);
   (void)t_low;
   m.undershoot_pct = std::max(0.0, -y_low * inv) * 100.0;
 
-  const auto [u_peak, t_u] = refine_extremum(u, du, k_effort, u[k_effort] >= 0.0 ? 1.0 : -1.0);
+  const auto [u_peak, t_u] = refine_extremum(u, interval_u, k_effort, u[k_effort] >= 0.0 ? 1.0 : -1.0);
   (void)t_u;
   m.effort_peak = std::abs(u_peak);
 
   auto crossing_time = [&](int k_after, double level_n) {
     // First sample at/above the level is k_after; the crossing is in (k_after − 1, k_after).
     if (k_after <= 0) return 0.0;
-    const double s = interval(y, dy, k_after - 1).crossing(level_n * y_inf);
+    const double s = interval_y(k_after - 1).crossing(level_n * y_inf);
     return t[k_after - 1] + s * (t[k_after] - t[k_after - 1]);
   };
   if (k10 >= 0 && k90 >= 0) m.rise_time_s = crossing_time(k90, 0.9) - crossing_time(k10, 0.1);
@@ -372,7 +414,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     m.band_entry_time_s = 0.0;
   } else if (k_entry > 0) {
     const double side = (y[k_entry - 1] * inv > 1.0) ? 1.0 : -1.0;
-    const double s = interval(y, dy, k_entry - 1).crossing((1.0 + side * band_fraction) * y_inf);
+    const double s = interval_y(k_entry - 1).crossing((1.0 + side * band_fraction) * y_inf);
     m.band_entry_time_s = t[k_entry - 1] + s * (t[k_entry] - t[k_entry - 1]);
   }
 
@@ -380,7 +422,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     m.settling_time_s = 0.0;
   } else if (k_outside + 1 < K) {
     const double side = (y[k_outside] * inv > 1.0) ? 1.0 : -1.0;
-    const double s = interval(y, dy, k_outside).crossing((1.0 + side * band_fraction) * y_inf);
+    const double s = interval_y(k_outside).crossing((1.0 + side * band_fraction) * y_inf);
     m.settling_time_s = t[k_outside] + s * (t[k_outside + 1] - t[k_outside]);
   }
 

@@ -83,6 +83,8 @@ class StepSimulator {
   void prepare(int states, int samples);
   void discretize(const StateSpace& loop, double amplitude, double step, Eigen::MatrixXd& phi, Eigen::VectorXd& gamma);
   void recur(int states, int first, int count);
+  // Exact slope of output row 1 (y') or 3 (u') at sample k, from the stored state.
+  double slope(int row, int k) const;
 
   TimeGridRules rules_;
   TimeGrid grid_;
@@ -95,7 +97,8 @@ class StepSimulator {
   Eigen::MatrixXd augmented_, power2_, power4_, power6_, even_, odd_, numer_, denom_, expo_;
   Eigen::MatrixXd phi_, outputs_;  // Φ and [C_y; C_y·A; C_u; C_u·A]
   Eigen::VectorXd gamma_, out_const_, x_, x_next_, solve_;
-  std::vector<double> t_, y_, dy_, u_, du_;
+  std::vector<double> t_, y_, u_;
+  std::vector<double> states_store_;  // x at every sample, for slopes on demand
 };
 
 }  // namespace specloop
