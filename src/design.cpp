@@ -47,9 +47,15 @@ std::vector<Requirement> requirement_list(const Requirements& r) {
 namespace {
 // Peak time as requirements read it: the time of the peak when the overshoot leaves the settling
 // band (a visible peak); otherwise (no overshoot, or one within the band, whose peak comes late
-// and flat) the first time the response comes within the band.
+// and flat) the first time the response comes within the band. Within kAmbiguousPct of the band
+// edge, where the measured overshoot could sit on either side of it, the later of the two is
+// read, so that a search pushed onto the edge cannot claim the earlier one by rounding.
+constexpr double kAmbiguousPct = 0.01;
 std::optional<double> effective_peak_time(const StepMetrics& m, double band_pct) {
-  return m.peak_time_s && m.overshoot_pct > band_pct ? m.peak_time_s : m.band_entry_time_s;
+  if (!m.peak_time_s) return m.band_entry_time_s;
+  if (m.overshoot_pct > band_pct + kAmbiguousPct) return m.peak_time_s;
+  if (m.overshoot_pct < band_pct - kAmbiguousPct) return m.band_entry_time_s;
+  return m.band_entry_time_s ? std::max(*m.peak_time_s, *m.band_entry_time_s) : m.peak_time_s;
 }
 }  // namespace
 

@@ -109,6 +109,12 @@ TEST_CASE("requirements read their values from the response", "[requirements]") 
   CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 0.6);
   m.overshoot_pct = 7.0;  // a visible peak: its time
   CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 1.5);
+  // At the band edge, where rounding could put the measured overshoot on either side, the later
+  // reading counts (regression: a search pushed onto the edge claimed the early band entry).
+  m.overshoot_pct = 2.0 - 1e-6;
+  CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 1.5);
+  m.overshoot_pct = 1.5;
+  CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 0.6);
   Margins margins;
   CHECK(std::isinf(*requirement_value(list[2], m, margins, 2.0, 2.0)));  // no gain crossover: infinite PM
 }

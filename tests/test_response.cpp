@@ -155,3 +155,24 @@ TEST_CASE("two-segment grid: samples stay exact across the switch", "[response]"
   REQUIRE(m.settling_time_s);
   CHECK_THAT(*m.settling_time_s, WithinRel(std::log(50.0) / -p1, 2e-3));
 }
+
+TEST_CASE("band entry when the rise jumps across the whole band between two samples", "[response]") {
+  // Regression: a fast rise can go from below the band to above it between samples; the first
+  // entry is then the crossing of the lower edge in that interval, not the later settling.
+  const double zeta = 0.2, wn = 3.0, wd = wn * std::sqrt(1 - zeta * zeta);
+  const auto plant = TransferFunction(Polynomial({wn * wn}), Polynomial({1.0, 2 * zeta * wn, 0.0}));
+  TimeGridRules coarse;
+  coarse.min_samples = coarse.max_samples = 40;  // h ≈ 0.4 s: the rise through ±2 % is skipped
+  coarse.max_step_pole_product = 100.0;
+  StepSimulator sim(coarse);
+  StepMetrics m;
+  REQUIRE(sim.simulate(close_loop(realize(plant), static_gain(1.0)), 1.0, 0.02, m) == StepStatus::ok);
+  auto y = [&](double t) {
+    return 1 - std::exp(-zeta * wn * t) * (std::cos(wd * t) + zeta / std::sqrt(1 - zeta * zeta) * std::sin(wd * t));
+  };
+  double lo = 0.0, hi = kPi / wd;  // y is increasing up to the peak: bisection for y = 0.98
+  for (int i = 0; i < 100; ++i) (y(0.5 * (lo + hi)) < 0.98 ? lo : hi) = 0.5 * (lo + hi);
+  REQUIRE(m.band_entry_time_s);
+  CHECK_THAT(*m.band_entry_time_s, WithinAbs(0.5 * (lo + hi), 0.05));  // the cubic on a coarse grid
+  CHECK(*m.band_entry_time_s < kPi / wd);                             // before the peak, not after
+}
