@@ -157,6 +157,15 @@ void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dy
   x_io = c[rest];  // the state at sample `samples`
 }
 
+// Eigenvalues with a fixed-size solver (no dynamic-size overhead, no allocation).
+template <int N>
+bool eigenvalues_fixed(const Eigen::MatrixXd& a, std::vector<Complex>& out) {
+  Eigen::EigenSolver<Eigen::Matrix<double, N, N>> solver(Eigen::Matrix<double, N, N>(a), false);
+  if (solver.info() != Eigen::Success) return false;
+  for (int i = 0; i < N; ++i) out.push_back(solver.eigenvalues()(i));
+  return true;
+}
+
 }  // namespace
 
 StepSimulator::StepSimulator(TimeGridRules rules) : rules_(rules) {}
@@ -251,6 +260,24 @@ void StepSimulator::recur(int n, int first, int count) {
   }
 }
 
+bool StepSimulator::eigenvalues(const Eigen::MatrixXd& a) {
+  switch (a.rows()) {
+    case 1: return eigenvalues_fixed<1>(a, poles_);
+    case 2: return eigenvalues_fixed<2>(a, poles_);
+    case 3: return eigenvalues_fixed<3>(a, poles_);
+    case 4: return eigenvalues_fixed<4>(a, poles_);
+    case 5: return eigenvalues_fixed<5>(a, poles_);
+    case 6: return eigenvalues_fixed<6>(a, poles_);
+    case 7: return eigenvalues_fixed<7>(a, poles_);
+    case 8: return eigenvalues_fixed<8>(a, poles_);
+    default: break;
+  }
+  eigen_.compute(a, false);
+  if (eigen_.info() != Eigen::Success) return false;
+  for (int i = 0; i < a.rows(); ++i) poles_.push_back(eigen_.eigenvalues()(i));
+  return true;
+}
+
 double StepSimulator::slope(int row, int k) const {
   if (states_ == 0) return 0.0;
   const Eigen::Map<const Eigen::VectorXd> x(states_store_.data() + static_cast<std::size_t>(k) * static_cast<std::size_t>(states_), states_);
@@ -266,9 +293,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   // Stability first, from the poles.
   poles_.clear();
   if (n > 0) {
-    eigen_.compute(loop.A, false);
-    if (eigen_.info() != Eigen::Success) return StepStatus::numerical_failure;
-    for (int i = 0; i < n; ++i) poles_.push_back(eigen_.eigenvalues()(i));
+    if (!eigenvalues(loop.A)) return StepStatus::numerical_failure;
     sort_roots(poles_);
     if (!all_stable(poles_)) return StepStatus::unstable;
   }
@@ -319,13 +344,26 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
 
   // Extremes first as plain reductions (they vectorize), then their indices.
   const double inv = 1.0 / y_inf;
-  double y_hi = y[0], y_lo = y[0], u_hi = u[0], u_lo = u[0];
-  for (int k = 1; k < K; ++k) {
-    y_hi = y[k] > y_hi ? y[k] : y_hi;
-    y_lo = y[k] < y_lo ? y[k] : y_lo;
-    u_hi = u[k] > u_hi ? u[k] : u_hi;
-    u_lo = u[k] < u_lo ? u[k] : u_lo;
+  // Four independent accumulators each, so the loop is not one long chain of dependent
+  // comparisons (floating-point reductions are not reordered by the compiler on its own).
+  double yh[4], yl[4], uh[4], ul[4];
+  for (int j = 0; j < 4; ++j) yh[j] = yl[j] = y[0], uh[j] = ul[j] = u[0];
+  int k4 = 0;
+  for (; k4 + 4 <= K; k4 += 4)
+    for (int j = 0; j < 4; ++j) {
+      yh[j] = y[k4 + j] > yh[j] ? y[k4 + j] : yh[j];
+      yl[j] = y[k4 + j] < yl[j] ? y[k4 + j] : yl[j];
+      uh[j] = u[k4 + j] > uh[j] ? u[k4 + j] : uh[j];
+      ul[j] = u[k4 + j] < ul[j] ? u[k4 + j] : ul[j];
+    }
+  for (; k4 < K; ++k4) {
+    yh[0] = y[k4] > yh[0] ? y[k4] : yh[0];
+    yl[0] = y[k4] < yl[0] ? y[k4] : yl[0];
+    uh[0] = u[k4] > uh[0] ? u[k4] : uh[0];
+    ul[0] = u[k4] < ul[0] ? u[k4] : ul[0];
   }
+  const double y_hi = std::max({yh[0], yh[1], yh[2], yh[3]}), y_lo = std::min({yl[0], yl[1], yl[2], yl[3]});
+  const double u_hi = std::max({uh[0], uh[1], uh[2], uh[3]}), u_lo = std::min({ul[0], ul[1], ul[2], ul[3]});
   if (!std::isfinite(y_hi) || !std::isfinite(y_lo) || !std::isfinite(u_hi) || !std::isfinite(u_lo))
     return StepStatus::numerical_failure;
   auto first_equal = [&](const double* f, double v) {
@@ -364,13 +402,24 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     const double c = h * h / 12.0;
     auto e = [&](int k) { return y_inf - y[k]; };
     auto de = [&](int k) { return -dy(k); };
-    double sum_e2 = 0.0, sum_abs = 0.0, sum_tabs = 0.0;
-    for (int k = first; k <= last; ++k) {
-      const double ek = y_inf - y[k];
-      sum_e2 += ek * ek;
-      sum_abs += std::abs(ek);
-      sum_tabs += t[k] * std::abs(ek);
+    double e2[4] = {0, 0, 0, 0}, ab[4] = {0, 0, 0, 0}, tab[4] = {0, 0, 0, 0};  // independent partial sums
+    int i = first;
+    for (; i + 4 <= last + 1; i += 4)
+      for (int j = 0; j < 4; ++j) {
+        const double ei = y_inf - y[i + j];
+        e2[j] += ei * ei;
+        ab[j] += std::abs(ei);
+        tab[j] += t[i + j] * std::abs(ei);
+      }
+    for (; i <= last; ++i) {
+      const double ei = y_inf - y[i];
+      e2[0] += ei * ei;
+      ab[0] += std::abs(ei);
+      tab[0] += t[i] * std::abs(ei);
     }
+    const double sum_e2 = (e2[0] + e2[1]) + (e2[2] + e2[3]);
+    const double sum_abs = (ab[0] + ab[1]) + (ab[2] + ab[3]);
+    const double sum_tabs = (tab[0] + tab[1]) + (tab[2] + tab[3]);
     auto ends = [&](double f_first, double f_last) { return 0.5 * (f_first + f_last); };
     const double e_a = e(first), e_b = e(last);
     ise += h * (sum_e2 - ends(e_a * e_a, e_b * e_b)) + c * (2.0 * e_a * de(first) - 2.0 * e_b * de(last));

@@ -83,6 +83,8 @@ class StepSimulator {
   void prepare(int states, int samples);
   void discretize(const StateSpace& loop, double amplitude, double step, Eigen::MatrixXd& phi, Eigen::VectorXd& gamma);
   void recur(int states, int first, int count);
+  // Fills poles_ with the eigenvalues of a; false when the solver fails.
+  bool eigenvalues(const Eigen::MatrixXd& a);
   // Exact slope of output row 1 (y') or 3 (u') at sample k, from the stored state.
   double slope(int row, int k) const;
 
