@@ -157,15 +157,6 @@ void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dy
   x_io = c[rest];  // the state at sample `samples`
 }
 
-// Eigenvalues with a fixed-size solver (no dynamic-size overhead, no allocation).
-template <int N>
-bool eigenvalues_fixed(const Eigen::MatrixXd& a, std::vector<Complex>& out) {
-  Eigen::EigenSolver<Eigen::Matrix<double, N, N>> solver(Eigen::Matrix<double, N, N>(a), false);
-  if (solver.info() != Eigen::Success) return false;
-  for (int i = 0; i < N; ++i) out.push_back(solver.eigenvalues()(i));
-  return true;
-}
-
 }  // namespace
 
 StepSimulator::StepSimulator(TimeGridRules rules) : rules_(rules) {}
@@ -261,17 +252,6 @@ void StepSimulator::recur(int n, int first, int count) {
 }
 
 bool StepSimulator::eigenvalues(const Eigen::MatrixXd& a) {
-  switch (a.rows()) {
-    case 1: return eigenvalues_fixed<1>(a, poles_);
-    case 2: return eigenvalues_fixed<2>(a, poles_);
-    case 3: return eigenvalues_fixed<3>(a, poles_);
-    case 4: return eigenvalues_fixed<4>(a, poles_);
-    case 5: return eigenvalues_fixed<5>(a, poles_);
-    case 6: return eigenvalues_fixed<6>(a, poles_);
-    case 7: return eigenvalues_fixed<7>(a, poles_);
-    case 8: return eigenvalues_fixed<8>(a, poles_);
-    default: break;
-  }
   eigen_.compute(a, false);
   if (eigen_.info() != Eigen::Success) return false;
   for (int i = 0; i < a.rows(); ++i) poles_.push_back(eigen_.eigenvalues()(i));
