@@ -15,12 +15,6 @@ namespace {
 constexpr double kInf = std::numeric_limits<double>::infinity();
 constexpr double kDeg = 180.0 / std::numbers::pi;
 
-double wrap_deg(double deg) {  // to (−180, 180]
-  deg = std::fmod(deg, 360.0);
-  if (deg <= -180.0) deg += 360.0;
-  if (deg > 180.0) deg -= 360.0;
-  return deg;
-}
 }  // namespace
 
 // ---- requirements -------------------------------------------------------------------------------
@@ -224,7 +218,7 @@ namespace {
 
 // ∠(C1·G)(s) in degrees, wrapped to (−180, 180]; the angle condition wants ±180°.
 double angle_error_deg(const TransferFunction& loop, Complex s) {
-  return wrap_deg(std::arg(loop(s)) * kDeg + 180.0);
+  return wrap_degrees(std::arg(loop(s)) * kDeg + 180.0);
 }
 
 // Finds x in [lo, hi] (log-scanned) where angle_error_deg(loop(x), target) = 0, the root whose
@@ -311,7 +305,7 @@ std::optional<Controller> classical_controller(const TransferFunction& plant, St
     series[0] = k;
     return make_controller(structure, std::move(series), n);
   };
-  const double needed = wrap_deg(-180.0 - std::arg(plant(target)) * kDeg);  // angle the compensator must add
+  const double needed = wrap_degrees(-180.0 - std::arg(plant(target)) * kDeg);  // angle the compensator must add
   switch (structure) {
     case Structure::p: {
       const auto k = gain_at_crossing(plant, zeta, notes);
@@ -370,7 +364,7 @@ std::optional<Controller> classical_controller(const TransferFunction& plant, St
         const double zg = sigma / 10.0;
         const double p_gain = gain_at_crossing(plant, zeta, notes).value_or(1.0);
         const double beta = lag_ratio(plant, p_gain, sse_max);
-        extra = -wrap_deg(std::arg((target + zg) / (target + zg / beta)) * kDeg);
+        extra = -wrap_degrees(std::arg((target + zg) / (target + zg / beta)) * kDeg);
         series = {1.0, 0.0, 0.0, zg, beta};
         notes.push_back(fmt::format("lag zero at −{:.4g} = σ/10, lag ratio β = {:.3g}", zg, beta));
       }

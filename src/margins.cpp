@@ -49,14 +49,15 @@ std::vector<double> positive_real_roots(const Polynomial& p) {
   return out;
 }
 
-double wrap_deg(double deg) {  // to (−180, 180]
-  deg = std::fmod(deg, 360.0);
-  if (deg <= -180.0) deg += 360.0;
-  if (deg > 180.0) deg -= 360.0;
-  return deg;
-}
 
 }  // namespace
+
+double wrap_degrees(double degrees) {
+  degrees = std::fmod(degrees, 360.0);
+  if (degrees <= -180.0) degrees += 360.0;
+  if (degrees > 180.0) degrees -= 360.0;
+  return degrees;
+}
 
 Polynomial squared_magnitude_in_w2(const Polynomial& p) {
   return even_odd_in_minus_x(p * reflected(p)).first;
@@ -85,7 +86,7 @@ Margins loop_margins(const TransferFunction& loop) {
   const Polynomial n2 = squared_magnitude_in_w2(n), d2 = squared_magnitude_in_w2(d);
   for (double x : positive_real_roots(n2 - d2)) {
     const double w = std::sqrt(x);
-    const double pm = wrap_deg(180.0 + std::arg(at(w)) * 180.0 / std::numbers::pi);
+    const double pm = wrap_degrees(180.0 + std::arg(at(w)) * 180.0 / std::numbers::pi);
     if (!m.phase_margin_deg || pm < *m.phase_margin_deg) {
       m.phase_margin_deg = pm;
       m.gain_crossover_rad_s = w;

@@ -30,6 +30,9 @@ struct Margins {
 /// meaningful and the caller should report the instability instead).
 Margins loop_margins(const TransferFunction& loop);
 
+/// An angle in degrees wrapped to (−180, 180].
+double wrap_degrees(double degrees);
+
 /// |P(jω)|² as a polynomial in x = ω² (highest power first).
 Polynomial squared_magnitude_in_w2(const Polynomial& p);
 
