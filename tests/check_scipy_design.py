@@ -106,6 +106,8 @@ import tempfile
 import numpy as np
 from scipy import linalg, optimize, signal
 
+from reference_common import Tally
+
 DECAY_FRACTION = 1e-4          # README: horizon T = ln(1/1e-4)/σ_slow
 SEGMENT_POINTS = 50_001        # per decade segment; six segments
 SEGMENT_DECADES = 5            # segments [0, T·1e-5], [T·1e-5, T·1e-4], ..., [T/10, T]
@@ -129,21 +131,6 @@ TOL_DELAY_REL = 1e-4
 TOL_CONTROLLER_REL = 1e-9
 TOL_OPTIMUM_REL = 1e-3
 BRANCH_RESOLUTION_PCT = 1e-7   # overshoot resolution of this reference (see the docstring)
-
-
-class Tally:
-    def __init__(self):
-        self.passed = 0
-        self.failed = 0
-
-    def check(self, case, what, ok, detail=""):
-        ok = bool(ok)
-        if ok:
-            self.passed += 1
-        else:
-            self.failed += 1
-        print(f"{'PASS' if ok else 'FAIL'}  {case}: {what}" + (f"  [{detail}]" if detail else ""), flush=True)
-        return ok
 
 
 def number(v):

@@ -55,6 +55,8 @@ import sys
 import numpy as np
 from scipy import linalg, signal
 
+from reference_common import Tally
+
 FINE_MIN_POINTS = 200_001
 FINE_MAX_POINTS = 2_000_001
 DECAY_FRACTION = 1e-4
@@ -69,20 +71,6 @@ TOL_EFFORT_REL = 1e-4
 TOL_INTEGRAL_REL = 1e-3
 TOL_POLE = 1e-6
 TOL_HORIZON_REL = 1e-6
-
-
-class Tally:
-    def __init__(self):
-        self.passed = 0
-        self.failed = 0
-
-    def check(self, case, what, ok, detail=""):
-        if ok:
-            self.passed += 1
-        else:
-            self.failed += 1
-        print(f"{'PASS' if ok else 'FAIL'}  {case}: {what}" + (f"  [{detail}]" if detail else ""), flush=True)
-        return ok
 
 
 # Generic loops: plant P = Np/Dp and controller C = Nc/Dc (highest power first). Invented test

@@ -1,0 +1,152 @@
+// nonlinear_probe: a test-only window onto simulate_nonlinear (saturation, rate limit,
+// anti-windup).
+//
+// Reads one JSON object from stdin:
+//   {"plant":      {"numerator": [...], "denominator": [...]},       highest power first
+//    "controller": {"structure": "pi", "series": [...], "derivative_filter": 10},
+//    "actuator":   {"min": -1, "max": 1, "rate_max": 0.5},             all optional
+//    "options":    {"anti_windup": "clamping", "setpoint_weight": 1, "derivative_weight": 1,
+//                   "tracking_time_s": 1, "disturbance_time_s": 0, "disturbance_size": 0,
+//                   "horizon_s": 10, "output_step_s": 0.01, "sample_times_s": [...],
+//                   "max_steps": 1000000, "relative_tolerance": 1e-8, "absolute_tolerance": 1e-10},
+//    "amplitude":  1.0, "band_pct": 2.0}
+// and prints {"status", "notes", "steps", "switches", "saturated_fraction", "time", "output",
+// "control", "command", "metrics"} (metrics null unless the status is "ok").
+// Exit codes: 0 printed a result (whatever the status), 2 malformed input (message on stderr).
+#include <cmath>
+#include <iostream>
+#include <iterator>
+#include <stdexcept>
+#include <string>
+#include <vector>
+
+#include <nlohmann/json.hpp>
+
+#include "specloop/json_io.hpp"
+#include "specloop/nonlinear.hpp"
+
+namespace {
+
+using nlohmann::json;
+using namespace specloop;
+
+struct InputError : std::runtime_error {
+  using std::runtime_error::runtime_error;
+};
+
+void only_keys(const json& obj, const std::string& where, std::initializer_list<const char*> keys) {
+  if (!obj.is_object()) throw InputError(where + ": expected an object");
+  for (const auto& item : obj.items()) {
+    bool known = false;
+    for (const char* k : keys) known = known || item.key() == k;
+    if (!known) throw InputError(where + "." + item.key() + ": unknown key");
+  }
+}
+
+double number(const json& v, const std::string& where) {
+  if (!v.is_number()) throw InputError(where + ": expected a number, got " + v.dump());
+  const double x = v.get<double>();
+  if (!std::isfinite(x)) throw InputError(where + ": non-finite");
+  return x;
+}
+
+std::vector<double> numbers(const json& v, const std::string& where) {
+  if (!v.is_array() || v.empty()) throw InputError(where + ": expected a non-empty array of numbers");
+  std::vector<double> out;
+  for (const json& e : v) out.push_back(number(e, where));
+  return out;
+}
+
+int run() {
+  const std::string text((std::istreambuf_iterator<char>(std::cin)), std::istreambuf_iterator<char>());
+  json in;
+  try {
+    in = json::parse(text);
+  } catch (const json::parse_error& e) {
+    throw InputError(std::string("stdin is not valid JSON: ") + e.what());
+  }
+  only_keys(in, "input", {"plant", "controller", "actuator", "options", "amplitude", "band_pct"});
+  const json& p = in.at("plant");
+  only_keys(p, "plant", {"numerator", "denominator"});
+  const TransferFunction plant_tf(Polynomial(numbers(p.at("numerator"), "plant.numerator")),
+                                  Polynomial(numbers(p.at("denominator"), "plant.denominator")));
+  const json& c = in.at("controller");
+  only_keys(c, "controller", {"structure", "series", "derivative_filter"});
+  const auto structure = parse_structure(c.at("structure").get<std::string>());
+  if (!structure) throw InputError("controller.structure: unknown name");
+  const Controller controller =
+      make_controller(*structure, numbers(c.at("series"), "controller.series"),
+                      c.contains("derivative_filter") ? number(c["derivative_filter"], "controller.derivative_filter") : 10.0);
+
+  ActuatorModel act;
+  if (in.contains("actuator")) {
+    const json& a = in["actuator"];
+    only_keys(a, "actuator", {"min", "max", "rate_max"});
+    if (a.contains("min")) act.min = number(a["min"], "actuator.min");
+    if (a.contains("max")) act.max = number(a["max"], "actuator.max");
+    if (a.contains("rate_max")) act.rate_max = number(a["rate_max"], "actuator.rate_max");
+  }
+  LoopOptions opt;
+  if (in.contains("options")) {
+    const json& o = in["options"];
+    only_keys(o, "options", {"anti_windup", "setpoint_weight", "derivative_weight", "tracking_time_s",
+                             "disturbance_time_s", "disturbance_size", "horizon_s", "output_step_s", "sample_times_s",
+                             "max_steps", "relative_tolerance", "absolute_tolerance"});
+    if (o.contains("anti_windup")) {
+      const auto aw = parse_anti_windup(o["anti_windup"].get<std::string>());
+      if (!aw) throw InputError("options.anti_windup: expected none, clamping or back-calculation");
+      opt.anti_windup = *aw;
+    }
+    auto set = [&](const char* key, double& field) {
+      if (o.contains(key)) field = number(o[key], std::string("options.") + key);
+    };
+    set("setpoint_weight", opt.setpoint_weight);
+    set("derivative_weight", opt.derivative_weight);
+    set("disturbance_time_s", opt.disturbance_time_s);
+    set("disturbance_size", opt.disturbance_size);
+    set("horizon_s", opt.horizon_s);
+    set("output_step_s", opt.output_step_s);
+    set("relative_tolerance", opt.relative_tolerance);
+    set("absolute_tolerance", opt.absolute_tolerance);
+    if (o.contains("tracking_time_s")) opt.tracking_time_s = number(o["tracking_time_s"], "options.tracking_time_s");
+    if (o.contains("sample_times_s")) opt.sample_times_s = numbers(o["sample_times_s"], "options.sample_times_s");
+    if (o.contains("max_steps")) opt.max_steps = o["max_steps"].get<int>();
+  }
+  const double amplitude = in.contains("amplitude") ? number(in["amplitude"], "amplitude") : 1.0;
+  const double band_pct = in.contains("band_pct") ? number(in["band_pct"], "band_pct") : 2.0;
+
+  const NonlinearResult r = simulate_nonlinear(realize(plant_tf), controller, act, opt, amplitude, band_pct / 100.0);
+  json out;
+  out["status"] = std::string(status_name(r.status));
+  out["notes"] = r.notes;
+  out["steps"] = r.steps;
+  out["switches"] = r.switches;
+  out["saturated_fraction"] = r.saturated_fraction;
+  out["time"] = r.time_s;
+  out["output"] = r.output;
+  out["control"] = r.control;
+  out["command"] = r.command;
+  out["metrics"] = r.status == NonlinearStatus::ok ? metrics_json(r.metrics) : json(nullptr);
+  std::cout << out.dump() << "\n";
+  return 0;
+}
+
+}  // namespace
+
+int main() {
+  try {
+    return run();
+  } catch (const InputError& e) {
+    std::cerr << "nonlinear_probe: " << e.what() << "\n";
+    return 2;
+  } catch (const json::exception& e) {
+    std::cerr << "nonlinear_probe: malformed input: " << e.what() << "\n";
+    return 2;
+  } catch (const std::invalid_argument& e) {
+    std::cerr << "nonlinear_probe: malformed input: " << e.what() << "\n";
+    return 2;
+  } catch (const std::exception& e) {
+    std::cerr << "nonlinear_probe: internal error: " << e.what() << "\n";
+    return 3;
+  }
+}
