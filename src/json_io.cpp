@@ -177,15 +177,19 @@ json design_json(const Design& d) {
                 {"ti", c.standard->has_integral ? number_json(c.standard->ti) : json(nullptr)},
                 {"td", c.standard->has_derivative ? number_json(c.standard->td) : json(nullptr)},
                 {"n", c.standard->has_derivative ? number_json(c.standard->n) : json(nullptr)}};
-  json checks = json::array();
-  for (const auto& check : d.checks)
-    checks.push_back({{"requirement", check.requirement.key},
-                      {"limit", number_json(check.requirement.limit)},
-                      {"bound", check.requirement.upper ? "max" : "min"},
-                      {"unit", check.requirement.unit},
-                      {"value", optional_number(check.value)},
-                      {"met", check.met},
-                      {"violation", number_json(check.violation)}});
+  auto checks_json = [](const std::vector<RequirementCheck>& list) {
+    json out = json::array();
+    for (const auto& check : list)
+      out.push_back({{"requirement", check.requirement.key},
+                     {"limit", number_json(check.requirement.limit)},
+                     {"bound", check.requirement.upper ? "max" : "min"},
+                     {"unit", check.requirement.unit},
+                     {"value", optional_number(check.value)},
+                     {"met", check.met},
+                     {"violation", number_json(check.violation)}});
+    return out;
+  };
+  const json checks = checks_json(d.checks);
   json out = {{"status", status_name(d.status)},
               {"controller",
                {{"structure", structure_name(c.structure)},
@@ -207,6 +211,19 @@ json design_json(const Design& d) {
                                    {"natural_frequency", number_json(d.second_order->natural_frequency)}}
                             : json(nullptr);
   out["simulated"] = d.status == StepStatus::ok ? metrics_json(d.simulated) : json(nullptr);
+  if (d.nonlinear) {
+    const NonlinearConfirmation& n = *d.nonlinear;
+    out["nonlinear"] = {{"status", status_name(n.status)},
+                        {"simulated", n.status == NonlinearStatus::ok ? metrics_json(n.simulated) : json(nullptr)},
+                        {"saturated_fraction", number_json(n.saturated_fraction)},
+                        {"checks", checks_json(n.checks)},
+                        {"meets_all", n.meets_all},
+                        {"confirmed", n.confirmed},
+                        {"verdict", n.verdict},
+                        {"notes", n.notes}};
+  } else {
+    out["nonlinear"] = nullptr;
+  }
   if (d.margins) {
     const Margins& m = *d.margins;
     // An absent crossover means an infinite margin.

@@ -127,7 +127,13 @@ void print_design(const DesignRun& run, const std::string& result_path) {
   margin_row("phase margin (deg)", [](const Margins& m) { return m.phase_margin_deg; });
   margin_row("sensitivity peak Ms", [](const Margins& m) { return std::optional<double>(m.sensitivity_peak); });
   margin_row("delay margin (s)", [](const Margins& m) { return m.delay_margin_s; });
-  fmt::print("\n");
+  fmt::print("  {:<24} {:>12}", "nonlinear loop", "");
+  for (const Design& d : run.designs)
+    fmt::print(" {:>14}", !d.nonlinear ? "—" : d.nonlinear->confirmed ? "confirmed" : "NOT confirmed");
+  fmt::print("\n  {:<24} {:>12}", "saturated (% of time)", "");
+  for (const Design& d : run.designs)
+    fmt::print(" {:>14}", d.nonlinear ? fmt::format("{:.1f}", 100.0 * d.nonlinear->saturated_fraction) : "—");
+  fmt::print("\n\n");
   const Design* best = run.find("optimized");
   if (best) {
     const Controller& c = best->controller;
@@ -150,6 +156,7 @@ void print_design(const DesignRun& run, const std::string& result_path) {
   } else {
     fmt::print("\nMET: the optimized design meets every requirement on the linear loop.\n");
   }
+  if (best && best->nonlinear) fmt::print("Nonlinear loop: {}\n", best->nonlinear->verdict);
   fmt::print("Result: {}\n", result_path);
   fmt::print("Caution: a simulated design is not a verified machine; validate on the real system with interlocks.\n");
 }

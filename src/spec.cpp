@@ -108,14 +108,15 @@ struct SectionSchema {
 const std::vector<SectionSchema>& section_schemas() {
   static const std::vector<SectionSchema> schemas{
       {"plant", {"zeros", "poles", "gain", "numerator", "denominator", "delay"}},
-      {"actuator", {"min", "max"}},
-      {"controller", {"structure", "derivative_filter"}},
+      {"actuator", {"min", "max", "rate_max"}},
+      {"controller", {"structure", "derivative_filter", "anti_windup", "tracking_time"}},
       {"requirements",
        {"overshoot_max_pct", "peak_time_ratio", "settling_time_max", "peak_time_max",
         "rise_time_max", "settling_band_pct", "steady_state_error_max", "effort_max",
         "undershoot_max_pct", "phase_margin_min_deg", "gain_margin_min_db", "sensitivity_peak_max"}},
       {"reference", {"amplitude"}},
       {"search", {"objective", "seed", "max_evaluations", "max_time", "bounds"}},
+      {"disturbance", {"time", "size"}},
   };
   return schemas;
 }
@@ -344,6 +345,7 @@ class SpecReader {
     read_requirements(spec.requirements);
     read_reference(spec.reference);
     read_search(spec.search, spec.controller.structure);
+    read_disturbance(spec.disturbance);
     check_consistency(spec);
     return spec;
   }
@@ -635,6 +637,8 @@ class SpecReader {
   void read_actuator(ActuatorSpec& actuator) const {
     const toml::table* table = section("actuator");
     if (table == nullptr) return;
+    actuator.rate_max = ranged_number(table, "actuator", "rate_max", [](double v) { return v > 0.0; },
+                                      "a rate in actuator units per second > 0");
     const auto min = optional_number(table, "actuator", "min");
     const auto max = optional_number(table, "actuator", "max");
     if (!min && !max) return;
@@ -644,6 +648,9 @@ class SpecReader {
       fail(header_of(*table), "actuator.min", "missing; give both min and max, or neither");
     require(max->value > min->value, *max, "actuator.max",
             fmt::format("a number greater than actuator.min ({})", min->shown));
+    // The loop starts at rest with u = 0, so the range must contain it.
+    require(min->value <= 0.0, *min, "actuator.min", "a limit <= 0 (the loop starts at rest with u = 0)");
+    require(max->value >= 0.0, *max, "actuator.max", "a limit >= 0 (the loop starts at rest with u = 0)");
     actuator.min = min->value;
     actuator.max = max->value;
     actuator.limited = true;
@@ -675,6 +682,23 @@ class SpecReader {
             "a number > 0")) {
       controller.derivative_filter = *filter;
     }
+    if (const auto entry = find_entry(*table, "anti_windup")) {
+      const std::string valid = fmt::format("{}", fmt::join(anti_windup_names(), ", "));
+      const auto* text = entry->value->as_string();
+      if (text == nullptr)
+        fail_expected(entry->at, "controller.anti_windup", fmt::format("one of {}", valid), describe(*entry->value));
+      const auto scheme = parse_anti_windup(text->get());
+      if (!scheme) {
+        std::vector<std::string_view> names(anti_windup_names().begin(), anti_windup_names().end());
+        const auto suggestion = closest_name(text->get(), names);
+        fail(entry->at, "controller.anti_windup",
+             fmt::format("unknown scheme {}{}; valid schemes: {}", in_quotes(text->get()),
+                         suggestion ? fmt::format(" (did you mean '{}'?)", *suggestion) : "", valid));
+      }
+      controller.anti_windup = *scheme;
+    }
+    controller.tracking_time_s = ranged_number(table, "controller", "tracking_time", [](double v) { return v > 0.0; },
+                                               "a time in s > 0");
   }
 
   void read_requirements(Requirements& requirements) const {
@@ -716,6 +740,15 @@ class SpecReader {
     requirements.sensitivity_peak_max = ranged_number(
         table, kSection, "sensitivity_peak_max", [](double v) { return v > 1.0; },
         "a number > 1 (|S| is at least 1 somewhere for any loop of relative degree >= 1)");
+  }
+
+  void read_disturbance(DisturbanceSpec& disturbance) const {
+    const toml::table* table = section("disturbance");
+    if (table == nullptr) return;
+    if (const auto time = ranged_number(table, "disturbance", "time", [](double v) { return v >= 0.0; },
+                                        "a time in s >= 0"))
+      disturbance.time_s = *time;
+    if (const auto size = optional_number(table, "disturbance", "size")) disturbance.size = size->value;
   }
 
   void read_search(SearchSpec& search, Structure structure) const {

@@ -1,6 +1,7 @@
 #!/usr/bin/env python3
-"""Smoke test: every spec in specs/ runs through `specloop analyze` (tables and --json), so the
-README's examples cannot rot. Checks the exit code and the JSON contract keys."""
+"""Smoke test: every spec in specs/ runs through `specloop analyze` (tables and --json) and
+`specloop design`, so the README's examples cannot rot. Checks the exit codes and the JSON
+contract keys."""
 import argparse
 import json
 import pathlib
@@ -49,6 +50,26 @@ def main() -> int:
                 if block is not None:
                     check(all(k in block["simulated"] for k in METRIC_KEYS), f"{spec.name}: {name}.simulated keys")
             check("NaN" not in run.stdout, f"{spec.name}: no NaN in the output")
+            # design: exit 0 (met) or 1 (not met), result.json written with every design
+            # confirmed (or not) on the nonlinear loop.
+            out_dir = pathlib.Path(work, "out")
+            run = subprocess.run([args.specloop, "design", str(spec), "--out", str(out_dir)], cwd=work,
+                                 capture_output=True, text=True)
+            check(run.returncode in (0, 1), f"{spec.name}: design exits 0 or 1 (rc {run.returncode}) {run.stderr.strip()}")
+            result_file = out_dir / "result.json"
+            check(result_file.exists(), f"{spec.name}: design writes result.json")
+            if result_file.exists():
+                result = json.loads(result_file.read_text())
+                designs = result.get("designs", {})
+                check("optimized" in designs and "reference" in designs, f"{spec.name}: reference and optimized designs")
+                optimized = designs.get("optimized", {})
+                check((run.returncode == 0) == bool(optimized.get("meets_all")),
+                      f"{spec.name}: exit code agrees with the optimized design's meets_all")
+                for name, d in designs.items():
+                    nl = d.get("nonlinear")
+                    check(nl is not None and nl.get("status") == "ok" and isinstance(nl.get("confirmed"), bool)
+                          and nl.get("verdict"), f"{spec.name}: {name} confirmed or not on the nonlinear loop")
+                check("NaN" not in result_file.read_text(), f"{spec.name}: no NaN in result.json")
             first = spec.read_text().splitlines()[0]
             check(first.startswith("#"), f"{spec.name}: starts with a header comment saying what it models")
     print(f"{passed} passed, {failed} failed")

@@ -118,3 +118,44 @@ TEST_CASE("requirements read their values from the response", "[requirements]") 
   Margins margins;
   CHECK(std::isinf(*requirement_value(list[2], m, margins, 2.0, 2.0)));  // no gain crossover: infinite PM
 }
+
+namespace {
+Problem problem_from(const std::string& text) {
+  const Spec spec = parse_spec(text, "specs/unit.toml");
+  return make_problem(spec, characterize(spec));
+}
+}  // namespace
+
+TEST_CASE("nonlinear confirmation: wide limits reproduce the linear loop", "[confirmation]") {
+  // An invented winch drive, PI on two lags; limits far beyond anything the loop asks for.
+  const Problem p = problem_from(
+      "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[actuator]\nmin = -1e6\nmax = 1e6\n"
+      "[controller]\nstructure = \"pi\"\n[requirements]\novershoot_max_pct = 10.0\nsettling_time_max = 30.0\n");
+  const Design d = measure_design(p, "test", make_controller(Structure::pi, {1.2, 0.6}, 10.0));
+  REQUIRE(d.nonlinear);
+  REQUIRE(d.nonlinear->status == NonlinearStatus::ok);
+  CHECK(d.nonlinear->confirmed);
+  CHECK(d.nonlinear->saturated_fraction == 0.0);
+  // Sample-based metrics (nonlinear.hpp): 20000 samples over the horizon.
+  CHECK_THAT(d.nonlinear->simulated.overshoot_pct, WithinAbs(d.simulated.overshoot_pct, 1e-3));
+  CHECK_THAT(d.nonlinear->simulated.itae, WithinRel(d.simulated.itae, 1e-4));
+  CHECK_THAT(*d.nonlinear->simulated.settling_time_s, WithinRel(*d.simulated.settling_time_s, 1e-3));
+}
+
+TEST_CASE("nonlinear confirmation: a saturating actuator with no anti-windup is caught", "[confirmation]") {
+  // The same drive with a weak actuator and no anti-windup: the integrator winds up, the
+  // overshoot grows past the limit the linear design met, and the verdict says why.
+  const Problem p = problem_from(
+      "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[actuator]\nmin = -0.9\nmax = 0.9\n"
+      "[controller]\nstructure = \"pi\"\nanti_windup = \"none\"\n"
+      "[requirements]\novershoot_max_pct = 10.0\n[reference]\namplitude = 1.0\n");
+  // Linear: 3.8 % overshoot with a peak effort of 2.06, so the ±0.9 actuator saturates.
+  const Design d = measure_design(p, "test", make_controller(Structure::pi, {2.0, 0.8}, 10.0));
+  REQUIRE(d.checks.front().met);  // linear overshoot within the limit
+  REQUIRE(d.nonlinear);
+  CHECK(d.nonlinear->saturated_fraction > 0.0);
+  CHECK(d.nonlinear->simulated.overshoot_pct > d.simulated.overshoot_pct);
+  CHECK_FALSE(d.nonlinear->confirmed);
+  CHECK(d.nonlinear->verdict.find("overshoot_max_pct") != std::string::npos);
+  CHECK(d.nonlinear->verdict.find("saturates") != std::string::npos);
+}

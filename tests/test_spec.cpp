@@ -301,13 +301,13 @@ TEST_CASE("unknown names get a did-you-mean or the list of valid names", "[spec]
         "specs/unit.toml:2:1: plant.pols: unknown key; did you mean 'poles'?");
   CHECK(error_of("[plant]\nPoles = [-1.0]\n") ==
         "specs/unit.toml:2:1: plant.Poles: unknown key; did you mean 'poles'?");
-  CHECK(error_of("[plant]\npoles = [-1.0]\n[actuator]\nmin = 0\nmax = 1\nrate = 5\n") ==
-        "specs/unit.toml:6:1: actuator.rate: unknown key; valid keys in [actuator]: min, max");
+  CHECK(error_of("[plant]\npoles = [-1.0]\n[actuator]\nmin = 0\nmax = 1\nbias = 5\n") ==
+        "specs/unit.toml:6:1: actuator.bias: unknown key; valid keys in [actuator]: min, max, rate_max");
   CHECK(error_of("[plant]\npoles = [-1.0]\n\n[controler]\nstructure = \"pi\"\n") ==
         "specs/unit.toml:4:1: controler: unknown section; did you mean 'controller'?");
   CHECK(error_of("[plant]\npoles = [-1.0]\n[logging]\nlevel = 3\n") ==
         "specs/unit.toml:3:1: logging: unknown section; valid top-level names: title, plant, "
-        "actuator, controller, requirements, reference, search");
+        "actuator, controller, requirements, reference, search, disturbance");
   CHECK(error_of("titel = \"Valve\"\n[plant]\npoles = [-1.0]\n") ==
         "specs/unit.toml:1:1: titel: unknown key; did you mean 'title'?");
   CHECK(error_of("[plant]\npoles = [-1.0]\n[controller]\nstructure = \"Lead\"\n") ==

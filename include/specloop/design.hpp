@@ -10,6 +10,7 @@
 #include "specloop/characterize.hpp"
 #include "specloop/compensator.hpp"
 #include "specloop/margins.hpp"
+#include "specloop/nonlinear.hpp"
 
 namespace specloop {
 
@@ -50,7 +51,19 @@ struct RequirementCheck {
   double violation = 0.0;       // normalized: (value − limit)/|limit| for upper bounds, > 0 when missed
 };
 
-/// A design measured on the linear loop.
+/// A design re-measured on the nonlinear loop (saturation, rate limit, anti-windup, disturbance).
+struct NonlinearConfirmation {
+  NonlinearStatus status = NonlinearStatus::ok;
+  StepMetrics simulated;              // same definitions as the linear metrics (nonlinear.hpp)
+  double saturated_fraction = 0.0;    // time with the command beyond a limit ÷ horizon
+  std::vector<RequirementCheck> checks;
+  bool meets_all = false;
+  bool confirmed = false;             // every requirement met on the linear loop is met here too
+  std::string verdict;                // one sentence, with the numbers
+  std::vector<std::string> notes;
+};
+
+/// A design measured on the linear loop, and confirmed on the nonlinear one.
 struct Design {
   std::string name;                 // reference, classical, ultimate_gain, optimized
   Controller controller;
@@ -61,10 +74,13 @@ struct Design {
   std::optional<Margins> margins;   // empty when the closed loop is unstable
   std::vector<RequirementCheck> checks;
   bool meets_all = false;
+  std::optional<NonlinearConfirmation> nonlinear;  // empty when the linear loop is unstable
   std::vector<std::string> notes;   // how it was made, what was left out
 };
 
-/// Measures a controller on the problem's linear loop and checks every requirement.
+/// Measures a controller on the problem's linear loop and checks every requirement, then
+/// confirms it on the nonlinear loop (the spec's actuator limits, rate limit, anti-windup and
+/// disturbance) and checks every requirement again there.
 Design measure_design(const Problem& problem, std::string name, const Controller& controller);
 
 /// The value a requirement reads from a measured response (std::nullopt: not defined).

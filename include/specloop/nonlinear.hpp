@@ -28,21 +28,6 @@ struct ActuatorModel {
                                    // limit; back-calculation feeds back the applied (rate-limited) u.
 };
 
-/// Integrator protection while the actuator is saturated (parallel-form controllers only).
-enum class AntiWindup {
-  none,              // the integrator integrates the error regardless of saturation
-  clamping,          // conditional integration: stop while saturated and the error drives further in;
-                     // where neither integrating nor stopping is consistent, u_c slides on the limit
-                     // (Filippov: the integrator moves just enough to hold u_c there)
-  back_calculation,  // I' = Ki·e + (u_applied − u_c)/Tt
-};
-/// "none", "clamping", "back-calculation".
-std::string_view anti_windup_name(AntiWindup a);
-/// Parses a spelling; std::nullopt for an unknown name.
-std::optional<AntiWindup> parse_anti_windup(std::string_view name);
-/// All spellings, in declaration order, for error messages.
-const std::vector<std::string>& anti_windup_names();
-
 struct LoopOptions {
   double setpoint_weight = 1.0;    // b: proportional term acts on b·r − y (parallel form only)
   double derivative_weight = 1.0;  // c: derivative of c·r − y; 1 = on error, 0 = on measurement

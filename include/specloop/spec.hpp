@@ -42,15 +42,39 @@ struct PlantSpec {
   double delay_s = 0.0;                       // transport delay, s (>= 0)
 };
 
+/// Integrator protection while the actuator is saturated (parallel-form controllers only).
+enum class AntiWindup {
+  none,              // the integrator integrates the error regardless of saturation
+  clamping,          // conditional integration: stop while saturated and the error drives further in;
+                     // where neither integrating nor stopping is consistent, u_c slides on the limit
+                     // (Filippov: the integrator moves just enough to hold u_c there)
+  back_calculation,  // I' = Ki·e + (u_applied − u_c)/Tt
+};
+/// "none", "clamping", "back-calculation".
+std::string_view anti_windup_name(AntiWindup a);
+/// Parses a spelling; std::nullopt for an unknown name.
+std::optional<AntiWindup> parse_anti_windup(std::string_view name);
+/// All spellings, in declaration order, for error messages.
+const std::vector<std::string>& anti_windup_names();
+
 struct ActuatorSpec {
   double min = -1e300;                        // lower saturation limit, actuator units
   double max = 1e300;                         // upper saturation limit, actuator units
   bool limited = false;                       // true when the file gave min/max
+  std::optional<double> rate_max;             // |du/dt| limit, actuator units/s (> 0)
 };
 
 struct ControllerSpec {
   Structure structure = Structure::pid;
   double derivative_filter = 10.0;            // N: derivative filter pole at N/Td (> 0)
+  AntiWindup anti_windup = AntiWindup::clamping;
+  std::optional<double> tracking_time_s;      // back-calculation Tt, s (> 0); default by rule
+};
+
+/// A load disturbance: a step added at the plant input (used by the nonlinear confirmation).
+struct DisturbanceSpec {
+  double time_s = 0.0;                        // when it arrives, s (>= 0)
+  double size = 0.0;                          // plant-input units; 0: none
 };
 
 /// Each requirement is optional: a requirement left out is not required.
@@ -98,6 +122,7 @@ struct Spec {
   Requirements requirements;
   ReferenceSpec reference;
   SearchSpec search;
+  DisturbanceSpec disturbance;
 };
 
 /// Reads and validates a spec file. Throws SpecError (message as above) on any problem:
