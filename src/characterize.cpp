@@ -320,6 +320,12 @@ std::optional<GainPoint> find_reference(const TransferFunction& plant, const Cha
 
 }  // namespace
 
+TransferFunction linear_plant(const Spec& spec) {
+  const TransferFunction given(Polynomial(spec.plant.numerator), Polynomial(spec.plant.denominator));
+  if (spec.plant.delay_s == 0.0) return given;
+  return given * delay_approximant(spec.plant.delay_s, kDelayApproximantOrder);
+}
+
 Characterization characterize(const Spec& spec) {
   if (!spec.requirements.overshoot_max_pct)
     throw SpecError(spec.path + ": requirements.overshoot_max_pct: required by 'analyze' (the ζ-line comes from it)");
@@ -328,10 +334,10 @@ Characterization characterize(const Spec& spec) {
   const double amplitude = spec.reference.amplitude;
   ch.band_fraction = spec.requirements.settling_band_pct / 100.0;
   ch.damping_ratio = damping_from_overshoot(limit);
-  const TransferFunction plant(Polynomial(spec.plant.numerator), Polynomial(spec.plant.denominator));
+  const TransferFunction plant = linear_plant(spec);
   if (spec.plant.delay_s > 0.0)
-    ch.notes.push_back(fmt::format("the plant's transport delay ({:.4g} s) is left out of this delay-free analysis",
-                                   spec.plant.delay_s));
+    ch.notes.push_back(fmt::format("the plant's transport delay ({:.4g} s) is represented by its order-{} Padé "
+                                   "approximant in this linear analysis", spec.plant.delay_s, kDelayApproximantOrder));
 
   StepSimulator sim;
   ch.crossings = damping_line_crossings(plant, ch.damping_ratio);

@@ -95,8 +95,12 @@ double violation_of(const Requirement& r, const std::optional<double>& value) {
 Problem make_problem(const Spec& spec, const Characterization& ch) {
   Problem p;
   p.spec = spec;
-  p.plant = TransferFunction(Polynomial(spec.plant.numerator), Polynomial(spec.plant.denominator));
+  p.plant = linear_plant(spec);
   p.plant_realization = realize(p.plant);
+  p.delay_free_realization =
+      spec.plant.delay_s > 0.0
+          ? realize(TransferFunction(Polynomial(spec.plant.numerator), Polynomial(spec.plant.denominator)))
+          : p.plant_realization;
   if (ch.reference && ch.reference->simulated.peak_time_s) p.reference_peak_time_s = ch.reference->simulated.peak_time_s;
   p.requirements = requirement_list(spec.requirements);
   p.band_fraction = spec.requirements.settling_band_pct / 100.0;
@@ -174,7 +178,7 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   options.output_step_s = options.horizon_s / kConfirmationSamples;
   NonlinearResult r;
   try {
-    r = simulate_nonlinear(problem.plant_realization, d.controller, actuator, options, spec.reference.amplitude,
+    r = simulate_nonlinear(problem.delay_free_realization, d.controller, actuator, options, spec.reference.amplitude,
                            problem.band_fraction);
   } catch (const std::invalid_argument& e) {
     nc.status = NonlinearStatus::non_finite;

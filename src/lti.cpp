@@ -233,6 +233,22 @@ ClosedLoopTF close_loop(const TransferFunction& plant, const TransferFunction& c
           TransferFunction(controller.numerator * plant.denominator, characteristic)};
 }
 
+TransferFunction delay_approximant(double delay_s, int order) {
+  if (!(delay_s >= 0.0) || order < 1) throw std::invalid_argument("delay_approximant: needs delay >= 0 and order >= 1");
+  if (delay_s == 0.0) return {Polynomial({1.0}), Polynomial({1.0})};
+  // c_k by the recurrence c_{k+1} = c_k·(m − k)/((2m − k)(k + 1)), c_0 = 1.
+  std::vector<double> num(static_cast<std::size_t>(order) + 1), den(num.size());
+  double c = 1.0, lk = 1.0;
+  for (int k = 0; k <= order; ++k) {
+    const std::size_t at = static_cast<std::size_t>(order - k);  // highest power first
+    den[at] = c * lk;
+    num[at] = ((k % 2 == 0) ? 1.0 : -1.0) * c * lk;
+    c *= static_cast<double>(order - k) / (static_cast<double>(2 * order - k) * (k + 1));
+    lk *= delay_s;
+  }
+  return {Polynomial(num), Polynomial(den)};
+}
+
 bool all_stable(const std::vector<Complex>& poles, double tolerance) {
   return std::all_of(poles.begin(), poles.end(), [&](const Complex& p) {
     return p.real() < -tolerance * std::max(1.0, std::abs(p));

@@ -115,3 +115,28 @@ TEST_CASE("closed loop: T = L/(1+L) and U = C/(1+L) from both the realization an
   for (std::size_t i = 0; i < from_poly.size(); ++i) CHECK(std::abs(from_matrix[i] - from_poly[i]) < 1e-8);
   CHECK_THROWS_AS(close_loop(static_gain(1.0), static_gain(-1.0)), std::domain_error);
 }
+
+TEST_CASE("delay approximant: the [3/3] Padé coefficients, all-pass, phase close to −ωL", "[lti]") {
+  // e^{−x} ≈ (1 − x/2 + x²/10 − x³/120)/(1 + x/2 + x²/10 + x³/120) (the classical [3/3] Padé
+  // approximant; Baker & Graves-Morris, Padé Approximants).
+  const double L = 0.4;
+  const TransferFunction d = delay_approximant(L, 3);
+  const auto& den = d.denominator.coefficients;
+  const auto& num = d.numerator.coefficients;
+  REQUIRE(den.size() == 4);
+  CHECK_THAT(den[0], WithinRel(std::pow(L, 3) / 120.0, 1e-14));
+  CHECK_THAT(den[1], WithinRel(L * L / 10.0, 1e-14));
+  CHECK_THAT(den[2], WithinRel(L / 2.0, 1e-14));
+  CHECK(den[3] == 1.0);
+  CHECK_THAT(num[0], WithinRel(-std::pow(L, 3) / 120.0, 1e-14));
+  CHECK_THAT(num[2], WithinRel(-L / 2.0, 1e-14));
+  for (double w : {0.1, 1.0, 5.0, 20.0}) {
+    const Complex v = d(Complex(0.0, w));
+    CHECK_THAT(std::abs(v), WithinAbs(1.0, 1e-12));  // all-pass
+  }
+  // Phase error at ω·L = 1 is small for order 3 (series remainder ~ (ωL)^7/100800·2).
+  const Complex v = d(Complex(0.0, 1.0 / L));
+  CHECK_THAT(std::arg(v), WithinAbs(-1.0, 1e-4));
+  CHECK(delay_approximant(0.0, 3).numerator.coefficients == std::vector<double>{1.0});
+  CHECK_THROWS(delay_approximant(-1.0, 3));
+}

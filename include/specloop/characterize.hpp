@@ -88,6 +88,15 @@ struct Characterization {
   std::vector<std::string> notes;    // e.g. the plant delay is not part of this analysis
 };
 
+/// Order of the Padé approximant that stands for the plant's transport delay in every linear
+/// computation (analyze, the classical design, the search); the nonlinear confirmation uses the
+/// exact delay.
+constexpr int kDelayApproximantOrder = 3;
+
+/// The plant as the linear computations see it: G(s), times the delay approximant when
+/// plant.delay > 0.
+TransferFunction linear_plant(const Spec& spec);
+
 /// Runs the whole characterization for the spec's plant. Throws SpecError when the spec lacks
 /// what this needs (an overshoot limit).
 Characterization characterize(const Spec& spec);

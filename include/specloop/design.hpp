@@ -29,8 +29,9 @@ std::vector<Requirement> requirement_list(const Requirements& r);
 /// Everything the search does not change, computed once per spec.
 struct Problem {
   Spec spec;
-  TransferFunction plant;
-  StateSpace plant_realization;
+  TransferFunction plant;                 // the linear model: G(s), times the delay approximant
+  StateSpace plant_realization;           // of `plant`
+  StateSpace delay_free_realization;      // of G(s) alone, for the nonlinear loop (exact delay)
   std::optional<double> reference_peak_time_s;  // from the characterization (P gain at the limit)
   std::vector<Requirement> requirements;
   double band_fraction = 0.02;

@@ -76,6 +76,12 @@ struct ClosedLoopTF {
 };
 ClosedLoopTF close_loop(const TransferFunction& plant, const TransferFunction& controller);
 
+/// The [m/m] Padé approximant of a transport delay e^{−sL}: N(s)/D(s) with
+/// D(s) = Σ c_k (sL)^k, N(s) = Σ (−1)^k c_k (sL)^k, c_k = (2m − k)!·m!/((2m)!·k!·(m − k)!)
+/// (Baker & Graves-Morris, Padé Approximants). Exact in magnitude (all-pass); its phase error
+/// grows with ω·L. L = 0 gives 1.
+TransferFunction delay_approximant(double delay_s, int order);
+
 /// True when every pole has real part below −tolerance·max(1, |p|).
 bool all_stable(const std::vector<Complex>& poles, double tolerance = 1e-9);
 
