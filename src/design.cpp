@@ -175,6 +175,9 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   // The linear horizon, stretched so that a disturbance has as long to settle as the step had.
   options.horizon_s = linear_horizon_s;
   if (spec.disturbance.size != 0.0) options.horizon_s = spec.disturbance.time_s + linear_horizon_s;
+  options.delay_s = spec.plant.delay_s;
+  options.sample_time_s = spec.controller.sample_time_s;
+  options.horizon_s += spec.plant.delay_s;
   options.output_step_s = options.horizon_s / kConfirmationSamples;
   NonlinearResult r;
   try {
@@ -187,6 +190,7 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   }
   nc.status = r.status;
   nc.notes = r.notes;
+  nc.difference_equation = r.difference_equation;
   nc.saturated_fraction = r.saturated_fraction;
   if (r.status != NonlinearStatus::ok) {
     nc.verdict = fmt::format("not confirmed: the nonlinear simulation stopped ({})", status_name(r.status));
@@ -223,9 +227,14 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   if (spec.disturbance.size != 0.0)
     causes += (causes.empty() ? "" : "; ") + fmt::format("a load step of {:.4g} at t = {:.4g} s", spec.disturbance.size,
                                                          spec.disturbance.time_s);
+  if (spec.plant.delay_s > 0.0)
+    causes += (causes.empty() ? "" : "; ") +
+              fmt::format("the exact {:.4g} s delay (the linear loop used its Padé approximant)", spec.plant.delay_s);
+  if (spec.controller.sample_time_s > 0.0)
+    causes += (causes.empty() ? "" : "; ") + fmt::format("sampling at {:.4g} s", spec.controller.sample_time_s);
   if (nc.confirmed)
     nc.verdict = causes.empty() ? "confirmed: nothing saturates; the nonlinear loop matches the linear one"
-                                : "confirmed despite the nonlinearities (" + causes + ")";
+                                : "confirmed, with these in the loop: " + causes;
   else
     nc.verdict = fmt::format("NOT confirmed: {}{}", fmt::join(degraded, "; "),
                              causes.empty() ? "" : " — because " + causes);

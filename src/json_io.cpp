@@ -221,6 +221,16 @@ json design_json(const Design& d) {
                         {"confirmed", n.confirmed},
                         {"verdict", n.verdict},
                         {"notes", n.notes}};
+    if (n.difference_equation) {
+      const DifferenceEquation& de = *n.difference_equation;
+      out["nonlinear"]["difference_equation"] = {{"sample_time", number_json(de.sample_time_s)},
+                                                 {"reference_numerator", numbers(de.reference_numerator)},
+                                                 {"measurement_numerator", numbers(de.measurement_numerator)},
+                                                 {"denominator", numbers(de.denominator)},
+                                                 {"method", de.method}};
+    } else {
+      out["nonlinear"]["difference_equation"] = nullptr;
+    }
   } else {
     out["nonlinear"] = nullptr;
   }

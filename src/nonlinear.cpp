@@ -8,6 +8,10 @@
 // "guard" changed sign); if not, the switch is located by bisection on the dense output to a
 // few ulps of t, the state there becomes the new initial state, the modes are re-chosen and the
 // integration restarts. The reference step (t = 0) and the disturbance step start new pieces.
+//
+// Delay: a DelayLine stores the applied u of every integrated piece (six dense-output points per
+// step, interpolated by a degree-5 polynomial); steps are capped at L (method of steps) and
+// every restart time s adds the break point s + L. Sampled controller: run_sampled below.
 #include "specloop/nonlinear.hpp"
 
 #include <algorithm>
@@ -15,6 +19,7 @@
 #include <chrono>
 #include <cmath>
 #include <limits>
+#include <set>
 #include <stdexcept>
 #include <string>
 
@@ -68,6 +73,45 @@ struct Modes {
 
 void fail(const std::string& what) { throw std::invalid_argument("simulate_nonlinear: " + what); }
 
+// The applied u over the integrated past, for a transport delay (method of steps).
+struct DelayLine {
+  static constexpr int nodes = 6;  // equally spaced in each piece: degree-5 interpolation
+  struct Segment {
+    double t0, t1;
+    std::array<double, nodes> u;
+  };
+  double delay = 0.0;
+  std::vector<Segment> segments;  // contiguous, increasing, from t = 0
+  // Window of delayed times τ = t − L of the integration piece under way; inside it u has no
+  // jump. At its left end the right limit is used, elsewhere the left limit; outside it the
+  // polynomial of the segment at the nearer end is extended (smooth for the stepper's stages
+  // that fall past a piece end).
+  double lo = 0.0, hi = 0.0;
+
+  static double interpolate(const Segment& s, double tau) {
+    const double h = s.t1 - s.t0;
+    if (!(h > 0.0)) return s.u[0];
+    const double th = (tau - s.t0) / h * (nodes - 1);  // in node units
+    double v = 0.0;
+    for (int j = 0; j < nodes; ++j) {
+      double w = 1.0;
+      for (int i = 0; i < nodes; ++i)
+        if (i != j) w *= (th - i) / static_cast<double>(j - i);
+      v += w * s.u[static_cast<std::size_t>(j)];
+    }
+    return v;
+  }
+  double value(double tau) const {
+    const bool right = tau <= lo;
+    const double q = right ? lo : std::min(tau, hi);
+    if (q < 0.0 || (q == 0.0 && !right) || segments.empty()) return 0.0;  // at rest before t = 0
+    auto it = right ? std::upper_bound(segments.begin(), segments.end(), q, [](double v, const Segment& s) { return v < s.t1; })
+                    : std::lower_bound(segments.begin(), segments.end(), q, [](const Segment& s, double v) { return s.t1 < v; });
+    if (it == segments.end()) --it;
+    return interpolate(*it, tau);
+  }
+};
+
 // The closed loop with its modes' algebra. State layout: [plant | controller | applied u].
 struct LoopModel {
   // Plant x' = Ap·x + Bp·(u + d), y = Cp·x.
@@ -93,6 +137,7 @@ struct LoopModel {
   int size = 0;
   double r = 0;          // reference (after the step)
   double command_r = 0;  // ∂u_c/∂r
+  const DelayLine* delay = nullptr;  // set: the plant input is the applied u delayed
 
   double output(const double* x) const {
     double y = 0;
@@ -119,12 +164,13 @@ struct LoopModel {
     return saturated(command(x), m);
   }
 
-  void derivative(const double* x, double* dx, const Modes& m, double d) const {
+  void derivative(const double* x, double* dx, const Modes& m, double d, double t) const {
     const double y = output(x), uc = command(x), us = saturated(uc, m);
     const double ua = (rate && m.rate != RateMode::tracking) ? x[ua_index] : us;
+    const double up = delay ? delay->value(t - delay->delay) : ua;
     const double e = r - y;
     for (int i = 0; i < np; ++i) {
-      double s = bp(i) * (ua + d);
+      double s = bp(i) * (up + d);
       for (int j = 0; j < np; ++j) s += ap(i, j) * x[j];
       dx[i] = s;
     }
@@ -161,12 +207,12 @@ struct LoopModel {
   bool clamps() const { return parallel && i_index >= 0 && anti_windup == AntiWindup::clamping; }
 
   // True when the state is consistent with the held modes (no guard has changed sign).
-  bool consistent(const double* x, const Modes& m, double d, State& scratch) const {
+  bool consistent(const double* x, const Modes& m, double d, State& scratch, double t) const {
     const double uc = command(x);
     if (m.sliding) {
       // Sliding holds while the integration it needs lies between frozen and full:
       // 0 <= s·I' <= s·Ki·e (s = +1 on the upper limit, −1 on the lower).
-      derivative(x, scratch.data(), m, d);
+      derivative(x, scratch.data(), m, d, t);
       const double s = m.sat, held = s * scratch[i_index], full = s * ki * (r - output(x));
       if (held < 0.0 || held > full) return false;
     } else {
@@ -184,7 +230,7 @@ struct LoopModel {
       if (m.rate == RateMode::up && x[ua_index] > us) return false;
       if (m.rate == RateMode::down && x[ua_index] < us) return false;
       if (m.rate == RateMode::tracking && m.sat == 0) {
-        derivative(x, scratch.data(), m, d);
+        derivative(x, scratch.data(), m, d, t);
         if (std::abs(command_linear(scratch.data())) > rate_max) return false;
       }
     }
@@ -197,7 +243,7 @@ struct LoopModel {
   // when the actuator leaves tracking, and may move I by at most ~1e-7 to put u_c exactly on a
   // limit it is sliding on. `by_slope`: on a limit, decide from the slopes of u_c in each
   // candidate mode rather than from its value (which is ambiguous there).
-  Modes choose(State& x, Modes m, double d, State& scratch, bool by_slope) const {
+  Modes choose(State& x, Modes m, double d, State& scratch, bool by_slope, double t) const {
     const double uc = command(x.data());
     m.sat = uc > umax ? 1 : (uc < umin ? -1 : 0);
     m.sliding = false;
@@ -211,7 +257,7 @@ struct LoopModel {
       Modes probe = m;
       probe.sat = side;
       probe.integrating = false;
-      derivative(x.data(), scratch.data(), probe, d);
+      derivative(x.data(), scratch.data(), probe, d, t);
       if (clamps()) scratch[i_index] = 0.0;
       const double frozen = s * command_linear(scratch.data());  // s·u_c' with I frozen
       const double drive = clamps() ? s * ki * (r - output(x.data())) : 0.0;
@@ -221,7 +267,7 @@ struct LoopModel {
         else { m.sat = 0; m.integrating = true; }
       } else {
         probe.integrating = true;
-        derivative(x.data(), scratch.data(), probe, d);
+        derivative(x.data(), scratch.data(), probe, d, t);
         const double slope = s * command_linear(scratch.data());
         m.sat = slope > 0.0 ? side : 0;
         m.integrating = true;
@@ -232,7 +278,7 @@ struct LoopModel {
       if (m.rate == RateMode::up && x[ua_index] >= us) m.rate = RateMode::tracking;
       if (m.rate == RateMode::down && x[ua_index] <= us) m.rate = RateMode::tracking;
       if (m.rate == RateMode::tracking && m.sat == 0) {
-        derivative(x.data(), scratch.data(), m, d);
+        derivative(x.data(), scratch.data(), m, d, t);
         const double slope = command_linear(scratch.data());
         if (std::abs(slope) > rate_max) {
           m.rate = slope > 0 ? RateMode::up : RateMode::down;
@@ -249,8 +295,8 @@ struct HeldModeSystem {
   const LoopModel* model;
   Modes modes;
   double disturbance;
-  void operator()(const State& x, State& dxdt, double /*t*/) const {
-    model->derivative(x.data(), dxdt.data(), modes, disturbance);
+  void operator()(const State& x, State& dxdt, double t) const {
+    model->derivative(x.data(), dxdt.data(), modes, disturbance, t);
   }
 };
 
@@ -314,6 +360,144 @@ StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, 
   return m;
 }
 
+// ---- Sampled controller ----------------------------------------------------------------------
+
+// Polynomials in w = z⁻¹, lowest power first.
+std::vector<double> poly_mul(const std::vector<double>& a, const std::vector<double>& b) {
+  std::vector<double> c(a.size() + b.size() - 1, 0.0);
+  for (std::size_t i = 0; i < a.size(); ++i)
+    for (std::size_t j = 0; j < b.size(); ++j) c[i + j] += a[i] * b[j];
+  return c;
+}
+std::vector<double> poly_add(std::vector<double> a, const std::vector<double>& b, double scale) {
+  if (a.size() < b.size()) a.resize(b.size(), 0.0);
+  for (std::size_t i = 0; i < b.size(); ++i) a[i] += scale * b[i];
+  return a;
+}
+
+// Tustin image of N(s)/D(s) (coefficients highest power first, proper): s = (2/Ts)(1 − w)/(1 + w)
+// with w = z⁻¹; both multiplied by (1 + w)^n, n = deg D. Returns {num, den} with den[0] = 1.
+std::pair<std::vector<double>, std::vector<double>> tustin_of(const Polynomial& num, const Polynomial& den, double ts) {
+  const int n = den.degree();
+  auto image = [&](const Polynomial& p) {
+    std::vector<double> out(static_cast<std::size_t>(n) + 1, 0.0);
+    const int deg = p.degree();
+    for (int i = 0; i <= deg; ++i) {  // the s^i term
+      const double coef = p.coefficients[static_cast<std::size_t>(deg - i)] * std::pow(2.0 / ts, i);
+      std::vector<double> term{coef};
+      for (int k = 0; k < i; ++k) term = poly_mul(term, {1.0, -1.0});
+      for (int k = i; k < n; ++k) term = poly_mul(term, {1.0, 1.0});
+      out = poly_add(out, term, 1.0);
+    }
+    return out;
+  };
+  std::vector<double> nz = image(num), dz = image(den);
+  const double d0 = dz[0];
+  if (!(std::abs(d0) > 0.0) || !std::isfinite(d0)) fail("controller: the Tustin image has a zero leading denominator coefficient");
+  for (double& v : nz) v /= d0;
+  for (double& v : dz) v /= d0;
+  return {nz, dz};
+}
+
+// The controller as difference equations, with its anti-windup at the samples.
+struct SampledController {
+  double ts = 0.0;
+  bool parallel = false;
+  double kp = 0, ki = 0, kd = 0, tf = 0, b = 1, c = 1, tt = 1, a_d = 0;
+  AntiWindup anti_windup = AntiWindup::none;
+  double umin = 0, umax = 0;
+  // Parallel-form states.
+  double integral = 0, deriv = 0, e_prev = 0, v_prev = 0, uc_prev = 0;
+  double ua_prev = 0;  // applied value at the end of the previous period (back-calculation)
+  // Direct form (Tustin of C(s) on e): newest first.
+  std::vector<double> num, den, e_hist, u_hist;
+  DifferenceEquation equation;
+
+  double update(double r, double y) {
+    if (parallel) {
+      const double e = r - y, v = c * r - y;
+      const double p = kp * (b * r - y);
+      double di = ki != 0.0 ? ki * ts / 2.0 * (e + e_prev) : 0.0;
+      if (ki != 0.0 && anti_windup == AntiWindup::back_calculation) di += ts / tt * (ua_prev - uc_prev);
+      const double dn = kd != 0.0 ? a_d * deriv + kd / (tf + ts) * (v - v_prev) : 0.0;
+      double uc = p + integral + di + dn;
+      if (ki != 0.0 && anti_windup == AntiWindup::clamping && ((uc > umax && di > 0.0) || (uc < umin && di < 0.0))) {
+        di = 0.0;  // conditional integration: the increment would push further into the limit
+        uc = p + integral + dn;
+      }
+      integral += di;
+      deriv = dn;
+      e_prev = e;
+      v_prev = v;
+      uc_prev = uc;
+      return uc;
+    }
+    std::rotate(e_hist.rbegin(), e_hist.rbegin() + 1, e_hist.rend());
+    e_hist[0] = r - y;
+    double uc = 0.0;
+    for (std::size_t j = 0; j < num.size(); ++j) uc += num[j] * e_hist[j];
+    for (std::size_t j = 1; j < den.size(); ++j) uc -= den[j] * u_hist[j - 1];
+    std::rotate(u_hist.rbegin(), u_hist.rbegin() + 1, u_hist.rend());
+    if (!u_hist.empty()) u_hist[0] = uc;
+    uc_prev = uc;
+    return uc;
+  }
+};
+
+SampledController make_sampled(const Controller& controller, const LoopModel& model, double ts) {
+  SampledController sc;
+  sc.ts = ts;
+  sc.umin = model.umin;
+  sc.umax = model.umax;
+  sc.equation.sample_time_s = ts;
+  const Structure st = controller.structure;
+  const bool tustin_whole = !controller.parallel || st == Structure::lead || st == Structure::lag || st == Structure::lead_lag;
+  if (!tustin_whole) {
+    sc.parallel = true;
+    sc.kp = model.kp;
+    sc.ki = model.ki;
+    sc.kd = model.kd;
+    sc.tf = model.tf;
+    sc.b = model.b;
+    sc.c = model.c;
+    sc.tt = model.tt;
+    sc.anti_windup = model.anti_windup;
+    sc.a_d = sc.kd != 0.0 ? sc.tf / (sc.tf + ts) : 0.0;
+    const std::vector<double> den_i = sc.ki != 0.0 ? std::vector<double>{1.0, -1.0} : std::vector<double>{1.0};
+    const std::vector<double> den_d = sc.kd != 0.0 ? std::vector<double>{1.0, -sc.a_d} : std::vector<double>{1.0};
+    const std::vector<double> den = poly_mul(den_i, den_d);
+    auto numerator = [&](double pw, double dw) {
+      std::vector<double> n = poly_add({}, den, sc.kp * pw);
+      if (sc.ki != 0.0) n = poly_add(n, poly_mul({1.0, 1.0}, den_d), sc.ki * ts / 2.0);
+      if (sc.kd != 0.0) n = poly_add(n, poly_mul({1.0, -1.0}, den_i), sc.kd / (sc.tf + ts) * dw);
+      return n;
+    };
+    sc.equation.reference_numerator = numerator(sc.b, sc.c);
+    sc.equation.measurement_numerator = numerator(1.0, 1.0);
+    sc.equation.denominator = den;
+    sc.equation.method = "proportional: direct; integral: Tustin (bilinear); derivative: backward difference on the filtered term Kd*s/(Tf*s + 1)";
+  } else {
+    const TransferFunction& tf = controller.transfer;
+    if (!tf.is_proper()) fail("controller: C(s) must be proper for a sampled controller");
+    auto [nz, dz] = tustin_of(tf.numerator, tf.denominator, ts);
+    sc.num = nz;
+    sc.den = dz;
+    sc.e_hist.assign(nz.size(), 0.0);
+    sc.u_hist.assign(dz.size() > 1 ? dz.size() - 1 : 0, 0.0);
+    sc.equation.reference_numerator = nz;
+    sc.equation.measurement_numerator = nz;
+    sc.equation.denominator = dz;
+    sc.equation.method = "Tustin (bilinear) transform of C(s), acting on e = r - y";
+  }
+  return sc;
+}
+
+// The applied u from time t on (until the next knot): value + slope·(τ − t).
+struct Knot {
+  double t, plant_t;  // at the actuator, and at the plant (t + L)
+  double value, slope;
+};
+
 }  // namespace
 
 NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& controller, const ActuatorModel& actuator,
@@ -341,6 +525,11 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     fail("disturbance_time_s, disturbance_size: expected a finite time >= 0 and a finite size");
   if (options.tracking_time_s && !(std::isfinite(*options.tracking_time_s) && *options.tracking_time_s > 0.0))
     fail("tracking_time_s: expected a finite number > 0");
+  if (!std::isfinite(options.delay_s) || options.delay_s < 0.0)
+    fail("delay_s: expected a finite number >= 0, got " + to_string(options.delay_s));
+  if (!std::isfinite(options.sample_time_s) || options.sample_time_s < 0.0)
+    fail("sample_time_s: expected a finite number >= 0 (0: continuous controller), got " + to_string(options.sample_time_s));
+  const double delay = options.delay_s, period = options.sample_time_s;
 
   NonlinearResult result;
   LoopModel model;
@@ -422,6 +611,10 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
         if (es.info() != Eigen::Success || !all_stable(poles))
           fail("horizon_s: no default, the linear loop is not stable; give horizon_s explicitly");
         horizon = choose_time_grid(poles, TimeGridRules{}).horizon_s();
+        if (delay > 0.0) {
+          horizon += delay;
+          result.notes.push_back("default horizon from the delay-free loop, extended by delay_s");
+        }
       }
     }
   }
@@ -444,61 +637,193 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   for (std::vector<double>* v : {&result.time_s, &result.output, &result.control, &result.command})
     v->reserve(samples.size());
 
-  // ---- Pieces between known discontinuities.
-  std::vector<std::pair<double, double>> pieces;  // (end time, disturbance during the piece)
-  const double td = options.disturbance_time_s, dsize = options.disturbance_size;
-  if (dsize != 0.0 && td > 0.0 && td < horizon) {
-    pieces.emplace_back(td, 0.0);
-    pieces.emplace_back(horizon, dsize);
-  } else {
-    pieces.emplace_back(horizon, (dsize != 0.0 && td <= 0.0) ? dsize : 0.0);
-  }
-  if (dsize != 0.0 && td >= horizon) result.notes.push_back("disturbance_time_s is at or beyond the horizon: no disturbance simulated");
+  if (period > 0.0 && horizon / period > 1e8) fail("sample_time_s: more than 1e8 controller samples per horizon");
 
-  State x(static_cast<std::size_t>(size), 0.0), xe(x), scratch(x);
-  std::size_t next_sample = 0;
-  auto record_until = [&](double t_end, const Modes& m, auto&& state_at) {
-    while (next_sample < samples.size() && samples[next_sample] <= t_end) {
-      const double ts = samples[next_sample++];
-      const State& xs = state_at(ts);
-      result.time_s.push_back(ts);
-      result.output.push_back(model.output(xs.data()));
-      result.command.push_back(model.command(xs.data()));
-      result.control.push_back(model.applied(xs.data(), m));
-    }
-  };
+  const double td = options.disturbance_time_s, dsize = options.disturbance_size;
+  if (dsize != 0.0 && td >= horizon) result.notes.push_back("disturbance_time_s is at or beyond the horizon: no disturbance simulated");
+  auto disturbance_at = [&](double time) { return (dsize != 0.0 && td < horizon && time >= td) ? dsize : 0.0; };
+  // Known discontinuities: the integration restarts at each.
+  std::set<double> breaks{horizon};
+  if (dsize != 0.0 && td > 0.0 && td < horizon) breaks.insert(td);
 
   using Stepper = boost::numeric::odeint::runge_kutta_dopri5<State>;
-  const double max_dt = horizon / 100.0;  // bounds how far a double switch can hide inside one step
-  auto dense = boost::numeric::odeint::make_dense_output(options.absolute_tolerance, options.relative_tolerance, max_dt,
-                                                         Stepper());
   const auto started = std::chrono::steady_clock::now();
   auto wall = [&] { return std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count(); };
   int work = 0;  // accepted steps + restarts, against max_steps
   double saturated_time = 0.0;
-  double dt = std::min(horizon / 4000.0, max_dt);
-
-  Modes modes;
-  if (model.rate) {  // the actuator starts at rest at u = 0 and must slew to the command at 0+
-    const double us = std::clamp(model.command(x.data()), model.umin, model.umax);
-    modes.rate = us > 0.0 ? RateMode::up : (us < 0.0 ? RateMode::down : RateMode::tracking);
-  }
-
   auto stop = [&](NonlinearStatus s, const std::string& why) {
     result.status = s;
     result.notes.push_back(why);
     return result;
   };
+  std::size_t next_sample = 0;
 
-  double t = 0.0;
-  try {
-    for (const auto& [t_end, disturbance] : pieces) {
-      while (t < t_end) {
-        for (int i = 0; i < 4; ++i) {  // a chosen mode can imply another (e.g. tracking at too steep a slope)
-          modes = model.choose(x, modes, disturbance, scratch, i < 2);
-          if (model.consistent(x.data(), modes, disturbance, scratch)) break;
+  if (period > 0.0) {
+    // ---- Sampled controller: zero-order hold (with slew), plant integrated between switches.
+    SampledController ctl = make_sampled(controller, model, period);
+    result.difference_equation = ctl.equation;
+    if (!ctl.parallel && controller.parallel) result.notes.push_back("sampled lead/lag: Tustin of C(s) on e = r - y; set-point and derivative weights and anti-windup not applied");
+    const int np = model.np;
+    State x(static_cast<std::size_t>(np), 0.0), xe(x), scratch(x);
+    std::vector<Knot> knots{{-std::numeric_limits<double>::infinity(), -std::numeric_limits<double>::infinity(), 0.0, 0.0}};
+    auto applied_at = [&](double tau) {  // right-continuous, at the actuator
+      std::size_t k = knots.size() - 1;
+      while (k > 0 && knots[k].t > tau) --k;
+      return knots[k].slope == 0.0 ? knots[k].value : knots[k].value + knots[k].slope * (tau - knots[k].t);
+    };
+    auto plant_knot = [&](double time) -> const Knot& {  // right-continuous, at the plant
+      std::size_t k = knots.size() - 1;
+      while (k > 0 && knots[k].plant_t > time) --k;
+      return knots[k];
+    };
+    std::vector<double> commands;  // u_c[k]
+    auto record = [&](double ts, const State& xs) {
+      result.time_s.push_back(ts);
+      result.output.push_back(model.cp.dot(Eigen::Map<const Eigen::VectorXd>(xs.data(), np)));
+      const auto k = static_cast<std::size_t>(std::max(0.0, std::floor(ts / period + 1e-9)));
+      result.command.push_back(commands[std::min(k, commands.size() - 1)]);
+      result.control.push_back(applied_at(ts));
+      const Knot& kn = plant_knot(ts);
+      result.plant_input.push_back(kn.slope == 0.0 ? kn.value : kn.value + kn.slope * (ts - kn.plant_t));
+    };
+    struct PlantSystem {
+      const LoopModel* m;
+      double u0, slope, t0, d;
+      void operator()(const State& xs, State& dx, double time) const {
+        const double u = u0 + slope * (time - t0) + d;
+        for (int i = 0; i < m->np; ++i) {
+          double v = m->bp(i) * u;
+          for (int j = 0; j < m->np; ++j) v += m->ap(i, j) * xs[static_cast<std::size_t>(j)];
+          dx[static_cast<std::size_t>(i)] = v;
         }
-        record_until(t, modes, [&](double) -> const State& { return x; });
+      }
+    };
+    auto dense = boost::numeric::odeint::make_dense_output(options.absolute_tolerance, options.relative_tolerance, horizon / 100.0, Stepper());
+    double dt = std::min(horizon / 4000.0, period);
+    long k = 0;
+    double t = 0.0;
+    try {
+      while (true) {
+        // Controller samples due now.
+        while (static_cast<double>(k) * period <= t && static_cast<double>(k) * period <= horizon) {
+          const double tk = static_cast<double>(k) * period;
+          const double y = model.cp.dot(Eigen::Map<const Eigen::VectorXd>(x.data(), np));
+          const double uc = ctl.update(amplitude, y);
+          if (!std::isfinite(uc)) return stop(NonlinearStatus::non_finite, "the controller output became non-finite at t = " + to_string(tk) + " s");
+          commands.push_back(uc);
+          if (uc > model.umax || uc < model.umin) saturated_time += std::min(period, horizon - tk);
+          const double target = std::clamp(uc, model.umin, model.umax);
+          const double now = applied_at(tk);
+          double end_value = target;
+          if (model.rate && target != now) {
+            const double slope = target > now ? model.rate_max : -model.rate_max;
+            const double reach = tk + (target - now) / slope;
+            knots.push_back({tk, tk + delay, now, slope});
+            if (reach < tk + period) knots.push_back({reach, reach + delay, target, 0.0});
+            else end_value = now + slope * period;
+          } else {
+            knots.push_back({tk, tk + delay, target, 0.0});
+          }
+          ctl.ua_prev = end_value;
+          for (std::size_t i = knots.size() - (knots.back().t > tk ? 2 : 1); i < knots.size(); ++i)
+            if (knots[i].plant_t < horizon) breaks.insert(knots[i].plant_t);
+          ++k;
+          if (static_cast<double>(k) * period < horizon) breaks.insert(static_cast<double>(k) * period);
+        }
+        while (next_sample < samples.size() && samples[next_sample] <= t) record(samples[next_sample++], x);
+        if (t >= horizon) break;
+        const double t_end = *breaks.upper_bound(t);
+        if (++work > options.max_steps)
+          return stop(NonlinearStatus::step_limit, "stopped at t = " + to_string(t) + " s: max_steps = " + to_string(options.max_steps) + " reached");
+        ++result.switches;
+        if (t_end - t > 1e-13 * std::max(1.0, std::abs(t))) {  // shorter pieces (rounding of k·Ts + L) are skipped
+          const Knot& kn = plant_knot(t);
+          PlantSystem system{&model, kn.slope == 0.0 ? kn.value : kn.value + kn.slope * (t - kn.plant_t), kn.slope, t,
+                             disturbance_at(t)};
+          dense.initialize(x, t, std::min(dt, t_end - t));
+          while (true) {
+            if (++work > options.max_steps)
+              return stop(NonlinearStatus::step_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_steps = " + to_string(options.max_steps) + " reached");
+            if (wall() > options.max_wall_time_s)
+              return stop(NonlinearStatus::time_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_wall_time_s = " + to_string(options.max_wall_time_s) + " reached");
+            const double tb = dense.do_step(system).second;
+            ++result.steps;
+            dt = dense.current_time_step();
+            const double tc = std::min(tb, t_end);
+            if (tb <= t_end) xe = dense.current_state();
+            else dense.calc_state(tc, xe);
+            if (!all_finite(xe)) return stop(NonlinearStatus::non_finite, "the state became non-finite near t = " + to_string(tc) + " s");
+            while (next_sample < samples.size() && samples[next_sample] < tc) {
+              dense.calc_state(samples[next_sample], scratch);
+              record(samples[next_sample++], scratch);
+            }
+            if (tb >= t_end) break;
+          }
+          x = xe;
+        }
+        t = t_end;
+      }
+    } catch (const boost::numeric::odeint::odeint_error& e) {
+      return stop(NonlinearStatus::step_limit, std::string("the integrator gave up: ") + e.what());
+    }
+  } else {
+    // ---- Continuous controller: hybrid integration with located switches (and delay line).
+    DelayLine line;
+    line.delay = delay;
+    if (delay > 0.0) model.delay = &line;
+    State x(static_cast<std::size_t>(size), 0.0), xe(x), scratch(x);
+    // Samples at a break point are recorded after the restart there (right limits of the
+    // delayed input); without delay every piece is inclusive as before.
+    auto record_until = [&](double t_end, bool inclusive, const Modes& m, auto&& state_at) {
+      while (next_sample < samples.size() && (inclusive ? samples[next_sample] <= t_end : samples[next_sample] < t_end)) {
+        const double ts = samples[next_sample++];
+        const State& xs = state_at(ts);
+        result.time_s.push_back(ts);
+        result.output.push_back(model.output(xs.data()));
+        result.command.push_back(model.command(xs.data()));
+        const double ua = model.applied(xs.data(), m);
+        result.control.push_back(ua);
+        result.plant_input.push_back(delay > 0.0 ? line.value(ts - delay) : ua);
+      }
+    };
+    // Stores the applied u of [t0, t1] (inside the dense stepper's current step) in the line.
+    auto store = [&](auto& stepper, double t0, double t1, const Modes& m) {
+      if (!(delay > 0.0) || !(t1 > t0)) return;
+      DelayLine::Segment seg{t0, t1, {}};
+      for (int j = 0; j < DelayLine::nodes; ++j) {
+        const double tj = j == DelayLine::nodes - 1 ? t1 : t0 + (t1 - t0) * j / (DelayLine::nodes - 1);
+        stepper.calc_state(tj, scratch);
+        seg.u[static_cast<std::size_t>(j)] = model.applied(scratch.data(), m);
+      }
+      line.segments.push_back(seg);
+    };
+
+    double max_dt = horizon / 100.0;  // bounds how far a double switch can hide inside one step
+    if (delay > 0.0) max_dt = std::min(max_dt, delay);  // method of steps: stages need only the past
+    auto dense = boost::numeric::odeint::make_dense_output(options.absolute_tolerance, options.relative_tolerance, max_dt,
+                                                           Stepper());
+    double dt = std::min(horizon / 4000.0, max_dt);
+
+    Modes modes;
+    if (model.rate) {  // the actuator starts at rest at u = 0 and must slew to the command at 0+
+      const double us = std::clamp(model.command(x.data()), model.umin, model.umax);
+      modes.rate = us > 0.0 ? RateMode::up : (us < 0.0 ? RateMode::down : RateMode::tracking);
+    }
+
+    double t = 0.0;
+    try {
+      while (t < horizon) {
+        if (delay > 0.0 && t + delay < horizon) breaks.insert(t + delay);  // a restart reaches the plant L later
+        const double t_end = *breaks.upper_bound(t);
+        const bool inclusive = !(delay > 0.0) || t_end >= horizon;
+        const double disturbance = disturbance_at(t);
+        line.lo = t - delay;
+        line.hi = t_end - delay;
+        for (int i = 0; i < 4; ++i) {  // a chosen mode can imply another (e.g. tracking at too steep a slope)
+          modes = model.choose(x, modes, disturbance, scratch, i < 2, t);
+          if (model.consistent(x.data(), modes, disturbance, scratch, t)) break;
+        }
+        record_until(t, true, modes, [&](double) -> const State& { return x; });
         HeldModeSystem system{&model, modes, disturbance};
         dense.initialize(x, t, std::min(dt, t_end - t));
         while (true) {
@@ -516,23 +841,25 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
           else dense.calc_state(tc, xe);
           if (!all_finite(xe))
             return stop(NonlinearStatus::non_finite, "the state became non-finite near t = " + to_string(tc) + " s");
-          if (!model.consistent(xe.data(), modes, disturbance, scratch)) {
+          if (!model.consistent(xe.data(), modes, disturbance, scratch, tc)) {
             // Locate the switch: consistent at lo, not at hi.
             double lo = ta, hi = tc;
             for (int it = 0; it < 200 && hi - lo > 4.0 * std::numeric_limits<double>::epsilon() * std::max(1.0, hi); ++it) {
               const double mid = 0.5 * (lo + hi);
               dense.calc_state(mid, xe);
-              if (model.consistent(xe.data(), modes, disturbance, scratch)) lo = mid;
+              if (model.consistent(xe.data(), modes, disturbance, scratch, mid)) lo = mid;
               else hi = mid;
             }
-            record_until(hi, modes, [&](double ts) -> const State& { dense.calc_state(ts, scratch); return scratch; });
+            store(dense, ta, hi, modes);
+            record_until(hi, true, modes, [&](double ts) -> const State& { dense.calc_state(ts, scratch); return scratch; });
             if (modes.sat != 0) saturated_time += hi - ta;
             dense.calc_state(hi, x);
             t = hi;
             ++result.switches;
             break;
           }
-          record_until(tc, modes, [&](double ts) -> const State& { dense.calc_state(ts, scratch); return scratch; });
+          store(dense, ta, tc, modes);
+          record_until(tc, inclusive || tb < t_end, modes, [&](double ts) -> const State& { dense.calc_state(ts, scratch); return scratch; });
           if (modes.sat != 0) saturated_time += tc - ta;
           if (tb >= t_end) {
             x = xe;
@@ -541,11 +868,11 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
           }
         }
       }
+    } catch (const boost::numeric::odeint::odeint_error& e) {
+      if (!all_finite(dense.current_state()))
+        return stop(NonlinearStatus::non_finite, std::string("the state became non-finite: ") + e.what());
+      return stop(NonlinearStatus::step_limit, std::string("the integrator gave up: ") + e.what());
     }
-  } catch (const boost::numeric::odeint::odeint_error& e) {
-    if (!all_finite(dense.current_state()))
-      return stop(NonlinearStatus::non_finite, std::string("the state became non-finite: ") + e.what());
-    return stop(NonlinearStatus::step_limit, std::string("the integrator gave up: ") + e.what());
   }
   for (double v : result.output)
     if (!std::isfinite(v)) return stop(NonlinearStatus::non_finite, "a sampled output is non-finite");

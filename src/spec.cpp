@@ -109,7 +109,7 @@ const std::vector<SectionSchema>& section_schemas() {
   static const std::vector<SectionSchema> schemas{
       {"plant", {"zeros", "poles", "gain", "numerator", "denominator", "delay"}},
       {"actuator", {"min", "max", "rate_max"}},
-      {"controller", {"structure", "derivative_filter", "anti_windup", "tracking_time"}},
+      {"controller", {"structure", "derivative_filter", "anti_windup", "tracking_time", "sample_time"}},
       {"requirements",
        {"overshoot_max_pct", "peak_time_ratio", "settling_time_max", "peak_time_max",
         "rise_time_max", "settling_band_pct", "steady_state_error_max", "effort_max",
@@ -699,6 +699,9 @@ class SpecReader {
     }
     controller.tracking_time_s = ranged_number(table, "controller", "tracking_time", [](double v) { return v > 0.0; },
                                                "a time in s > 0");
+    if (const auto ts = ranged_number(table, "controller", "sample_time", [](double v) { return v > 0.0; },
+                                      "a sample period in s > 0 (leave it out for a continuous controller)"))
+      controller.sample_time_s = *ts;
   }
 
   void read_requirements(Requirements& requirements) const {

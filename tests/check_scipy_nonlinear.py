@@ -32,6 +32,32 @@ Checks per case (tolerances and why):
                  the probe's samples, y∞ = r (integral action); only integration error remains.
   saturated      |Δ fraction| <= 1e-5: time at a limit ÷ horizon from the located switch times.
 The last line is "N passed, M failed"; exit status 1 on any failure.
+Transport delay and sampled controller (the loops below are invented):
+
+  sampled + delay   With a sampled controller (period Ts, zero-order hold) and a delay of m·Ts
+                    the loop is a pure discrete-time system at the instants k·Ts: the plant is
+                    discretized with scipy.signal.cont2discrete (method "zoh") and the loop run as
+                    a hand-written recursion: x[k+1] = Ad x[k] + Bd u[k−m], the PI integral by
+                    Tustin, u[k] = u[k−1] + (Kp + Ki Ts/2) e[k] + (−Kp + Ki Ts/2) e[k−1]
+                    (Franklin, Powell & Workman, Digital Control of Dynamic Systems, bilinear
+                    transformation section; formula), the filtered derivative by the backward
+                    difference D[k] = Tf/(Tf+Ts) D[k−1] + Kd/(Tf+Ts) (v[k] − v[k−1]) (specloop's
+                    documented rule), clamping as documented (skip the integral increment when the
+                    command with it lies beyond a limit and the increment pushes further).
+                    max |Δy| <= 1e-8 at the instants: the probe integrates at rtol 1e-11, and the
+                    ZOH discretization is exact, so only integration error (~1e-11) remains; a
+                    sample late by one period or a wrong coefficient differs by 1e-3 or more.
+                    The reported difference equation of the PI: coefficients within 1e-13.
+  continuous delay  A continuous PI loop with delay L against the linear loop with e^{−sL}
+                    replaced by its (n, n) Padé approximant, numerator/denominator coefficients
+                    c_k = (2n−k)! n! / ((2n)! k! (n−k)!), (∓sL)^k (a standard formula, e.g.
+                    Franklin, Powell & Emami-Naeini, Feedback Control of Dynamic Systems, Padé
+                    approximation; recalled from memory), stepped with scipy.signal.step. The
+                    Padé error must shrink with n (each order strictly better than the previous
+                    one) and be small at n = 8: <= 5e-6 for a loop whose control has no jump
+                    (set-point weight 0; measured ~2e-6: Padé's own error, unchanged when the
+                    simulation tolerances are tightened 1000×), <= 5e-4 with the proportional
+                    kick (a jump that Padé reproduces only slowly; measured ~2e-4).
 """
 import argparse
 import json
@@ -211,6 +237,170 @@ def reference(case, amplitude, samples):
     return y, u, at_limit / horizon
 
 
+PLANT_LAG = ([2.5], [1.0, 3.5, 2.5])
+PLANT_3 = ([10.0], [1.0, 8.0, 17.0, 10.0])
+TOL_SAMPLED = 1e-8
+TOL_COEF = 1e-13
+
+
+def sampled_reference(plant, gains, ts, m, steps, b=1.0, c=1.0, limits=(-np.inf, np.inf)):
+    """Hand-written discrete loop: ZOH plant, m-sample delay, Tustin PI, backward-difference D."""
+    kp, ki, kd, tf = gains
+    A, B, C, D = signal.tf2ss(*plant)
+    Ad, Bd, _, _, _ = signal.cont2discrete((A, B, C, D), ts, method="zoh")
+    Bd, C = Bd[:, 0], C[0, :]
+    umin, umax = limits
+    x = np.zeros(A.shape[0])
+    queue = [0.0] * m
+    integral = deriv = e_prev = v_prev = 0.0
+    a_d = tf / (tf + ts) if kd else 0.0
+    ys, us = [], []
+    clamped = 0
+    for _ in range(steps):
+        y = C @ x
+        r = 1.0
+        e, v = r - y, c * r - y
+        p = kp * (b * r - y)
+        di = ki * ts / 2 * (e + e_prev)
+        dn = a_d * deriv + (kd / (tf + ts) * (v - v_prev) if kd else 0.0)
+        uc = p + integral + di + dn
+        if (uc > umax and di > 0) or (uc < umin and di < 0):
+            di = 0.0
+            uc = p + integral + dn
+            clamped += 1
+        integral += di
+        deriv, e_prev, v_prev = dn, e, v
+        u = min(max(uc, umin), umax)
+        ys.append(y)
+        us.append(uc)
+        queue.append(u)
+        x = Ad @ x + Bd * queue.pop(0)
+    return np.array(ys), np.array(us), clamped
+
+
+def pid_gains(kp, w0, zc, n):
+    """Parallel gains of Kp (1 + 1/(Ti s) + Td s/(Td/N s + 1)) whose zeros are the roots of
+    s² + 2 ζc ω0 s + ω0² (specloop's documented PID parameterization, filter Tf = Td/N).
+    Over the common denominator Ti s (Tf s + 1) the numerator is
+    Kp [Ti (Tf + Td) s² + (Ti + Tf) s + 1], Tf + Td = (N + 1) Tf, so Ti·Tf = 1/(ω0² (N + 1)) and
+    Ti + Tf = 2 ζc/ω0: Ti and Tf are the roots of x² − (2ζc/ω0) x + 1/(ω0² (N + 1)), Tf the smaller."""
+    b_, c_ = 2.0 * zc / w0, 1.0 / (w0 * w0 * (n + 1.0))
+    disc = math.sqrt(b_ * b_ - 4.0 * c_)
+    ti, tf = (b_ + disc) / 2.0, (b_ - disc) / 2.0
+    return kp, kp / ti, kp * n * tf, tf
+
+
+def pade_of_delay(L, n):
+    """(n, n) Padé approximant of e^{-sL}, highest power first."""
+    coef = [math.factorial(2 * n - k) * math.factorial(n) / (math.factorial(2 * n) * math.factorial(k) * math.factorial(n - k))
+            for k in range(n + 1)]
+    num = np.array([coef[k] * (-L) ** k for k in range(n + 1)][::-1])
+    den = np.array([coef[k] * L ** k for k in range(n + 1)][::-1])
+    return num, den
+
+
+def padé_loop_step(plant, kp, ki, b, L, n, t):
+    """Step of u = Kp (b r − y) + Ki ∫(r − y) on P·e^{−sL} (Padé), unity feedback."""
+    pn, pdn = plant
+    dn, dd = pade_of_delay(L, n)
+    gn, gd = np.polymul(pn, dn), np.polymul(pdn, dd)  # plant with delay
+    # Y (s + (Kp s + Ki) G) = (Kp b s + Ki) G R
+    num = np.polymul([kp * b, ki], gn)
+    den = np.polyadd(np.polymul([1.0, 0.0], gd), np.polymul([kp, ki], gn))
+    _, y = signal.step((num, den), T=t)
+    return y
+
+
+def check_delay_and_sampling(tally, nlprobe):
+    # --- Sampled controller with a delay of m periods against the discrete-time loop.
+    tight = {"relative_tolerance": 1e-11, "absolute_tolerance": 1e-13}
+    sampled_cases = [
+        {"name": "sampled PI, Ts 0.1, delay 3 Ts, lag plant", "plant": PLANT_LAG, "structure": "pi",
+         "series": [1.2, 0.7], "gains": (1.2, 1.2 * 0.7, 0.0, 0.0), "ts": 0.1, "m": 3, "steps": 121,
+         "limits": None, "options": {}},
+        {"name": "sampled PID b 0.5 c 0, clamping, Ts 0.05, delay 2 Ts, third-order plant", "plant": PLANT_3,
+         "structure": "pid", "series": [4.0, 1.5, 0.8], "ts": 0.05, "m": 2, "steps": 301,
+         "limits": (-0.5, 1.2), "options": {"setpoint_weight": 0.5, "derivative_weight": 0.0, "anti_windup": "clamping"}},
+    ]
+    for sc in sampled_cases:
+        ts, m, steps = sc["ts"], sc["m"], sc["steps"]
+        opts = dict(tight, **sc["options"], sample_time_s=ts, delay_s=m * ts, horizon_s=(steps - 1) * ts,
+                    sample_times_s=[k * ts for k in range(steps)])
+        payload = {"plant": {"numerator": sc["plant"][0], "denominator": sc["plant"][1]},
+                   "controller": {"structure": sc["structure"], "series": sc["series"]},
+                   "options": opts, "amplitude": 1.0, "band_pct": 2.0}
+        if sc["limits"]:
+            payload["actuator"] = {"min": sc["limits"][0], "max": sc["limits"][1]}
+        rc, out, err = run_probe(nlprobe, payload)
+        if rc != 0:
+            tally.check(sc["name"], "probe ran", False, err.strip())
+            continue
+        res = json.loads(out)
+        if res["status"] != "ok":
+            tally.check(sc["name"], "status ok", False, res["status"])
+            continue
+        gains = sc.get("gains") or pid_gains(*sc["series"], 10.0)
+        kw = {"b": sc["options"].get("setpoint_weight", 1.0), "c": sc["options"].get("derivative_weight", 1.0)}
+        if sc["limits"]:
+            kw["limits"] = sc["limits"]
+        y_ref, u_ref, clamped = sampled_reference(sc["plant"], gains, ts, m, steps, **kw)
+        dy = np.max(np.abs(np.array(res["output"]) - y_ref))
+        tally.check(sc["name"], "output at the instants vs cont2discrete loop", dy <= TOL_SAMPLED, f"max|dy| = {dy:.2e} (tol {TOL_SAMPLED:g})")
+        du = np.max(np.abs(np.array(res["command"]) - u_ref)) / max(np.max(np.abs(u_ref)), 1e-300)
+        tally.check(sc["name"], "commands at the instants", du <= TOL_SAMPLED, f"max|du|/max|u| = {du:.2e} (tol {TOL_SAMPLED:g})")
+        if sc["structure"] == "pi":
+            kp, ki = gains[0], gains[1]
+            want = [kp + ki * ts / 2, -kp + ki * ts / 2]
+            de = res["difference_equation"]
+            ok = (de is not None and np.allclose(de["denominator"], [1.0, -1.0], rtol=0, atol=TOL_COEF)
+                  and np.allclose(de["measurement_numerator"], want, rtol=0, atol=TOL_COEF * kp)
+                  and np.allclose(de["reference_numerator"], want, rtol=0, atol=TOL_COEF * kp))
+            tally.check(sc["name"], "Tustin PI coefficients (textbook formula)", ok, json.dumps(de))
+        if sc["limits"]:
+            lo, hi = sc["limits"]
+            pin = np.array(res["plant_input"])
+            inside = np.min(pin) >= lo and np.max(pin) <= hi
+            active = bool(np.any((u_ref > hi) | (u_ref < lo)))
+            tally.check(sc["name"], "plant input within the limits, saturation and clamping active",
+                        inside and active and clamped > 0,
+                        f"plant input in [{np.min(pin):.4f}, {np.max(pin):.4f}], command in "
+                        f"[{np.min(u_ref):.4f}, {np.max(u_ref):.4f}], {clamped} clamped samples")
+
+    # --- Continuous PI with delay against Padé-approximated linear loops of rising order.
+    delay_cases = [
+        {"name": "continuous PI b 0, delay 0.3, lag plant", "b": 0.0, "orders": (2, 3, 4, 5, 6, 8), "tol": 5e-6},
+        {"name": "continuous PI b 1 (kick), delay 0.3, lag plant", "b": 1.0, "orders": (2, 4, 6, 8), "tol": 5e-4},
+    ]
+    for dc in delay_cases:
+        K, z, L = 1.2, 0.7, 0.3
+        payload = {"plant": {"numerator": PLANT_LAG[0], "denominator": PLANT_LAG[1]},
+                   "controller": {"structure": "pi", "series": [K, z]},
+                   "options": {"delay_s": L, "horizon_s": 20.0, "output_step_s": 0.005, "setpoint_weight": dc["b"]},
+                   "amplitude": 1.0, "band_pct": 2.0}
+        rc, out, err = run_probe(nlprobe, payload)
+        if rc != 0:
+            tally.check(dc["name"], "probe ran", False, err.strip())
+            continue
+        res = json.loads(out)
+        if res["status"] != "ok":
+            tally.check(dc["name"], "status ok", False, res["status"])
+            continue
+        t, y = np.array(res["time"]), np.array(res["output"])
+        errs = [float(np.max(np.abs(padé_loop_step(PLANT_LAG, K, K * z, dc["b"], L, n, t) - y))) for n in dc["orders"]]
+        detail = ", ".join(f"n={n}: {e:.2e}" for n, e in zip(dc["orders"], errs))
+        tally.check(dc["name"], "Padé error shrinks with the order", all(b < a for a, b in zip(errs, errs[1:])), detail)
+        tally.check(dc["name"], f"Padé order {dc['orders'][-1]} error <= {dc['tol']:g}", errs[-1] <= dc["tol"], detail)
+        # Before L nothing reaches the plant: y is exactly 0 there.
+        tally.check(dc["name"], "output zero before the delay", np.all(y[t <= L] == 0.0))
+
+    # --- Malformed delay / sample time: exit 2 naming the field.
+    for field in ("delay_s", "sample_time_s"):
+        bad = {"plant": {"numerator": PLANT_LAG[0], "denominator": PLANT_LAG[1]},
+               "controller": {"structure": "pi", "series": [1.2, 0.7]}, "options": {field: -0.1, "horizon_s": 5.0}}
+        rc, _, err = run_probe(nlprobe, bad)
+        tally.check("malformed", f"negative {field} rejected with exit 2", rc == 2 and field in err, err.strip())
+
+
 def probe_input(case, amplitude):
     num, den = case["plant"]
     return {"plant": {"numerator": num, "denominator": den},
@@ -263,6 +453,7 @@ def main():
     bad["actuator"] = {"min": 1.0, "max": -1.0}
     rc, _, err = run_probe(args.nonlinear_probe, bad)
     tally.check("malformed", "min > max rejected with exit 2", rc == 2 and "min < max" in err, err.strip())
+    check_delay_and_sampling(tally, args.nonlinear_probe)
     print(f"{tally.passed} passed, {tally.failed} failed")
     return 1 if tally.failed else 0
 

@@ -4,7 +4,10 @@
 #include <catch2/catch.hpp>
 #include <algorithm>
 #include <cmath>
+#include <complex>
+#include <limits>
 #include <string>
+#include <vector>
 
 #include "specloop/nonlinear.hpp"
 
@@ -230,4 +233,302 @@ TEST_CASE("anti-windup names round-trip", "[nonlinear]") {
     CHECK(anti_windup_name(*a) == name);
   }
   CHECK_FALSE(parse_anti_windup("back_calculation"));
+}
+
+// ---- Transport delay and sampled controller -------------------------------------------------
+
+namespace {
+
+// Samples k/256 s (exact in binary) up to `horizon`, so that t − L lands exactly on an earlier
+// sample when L is a multiple of 1/256.
+std::vector<double> binary_grid(double horizon) {
+  std::vector<double> t;
+  for (int k = 0; k / 256.0 <= horizon; ++k) t.push_back(k / 256.0);
+  return t;
+}
+
+std::complex<double> eval_w(const std::vector<double>& p, std::complex<double> w) {  // Σ p[i]·w^i
+  std::complex<double> v = 0.0, wp = 1.0;
+  for (double c : p) {
+    v += c * wp;
+    wp *= w;
+  }
+  return v;
+}
+
+}  // namespace
+
+TEST_CASE("a transport delay feeds the plant the applied control shifted by exactly L", "[nonlinear][delay]") {
+  // Definition of a transport delay: u_plant(t) = u(t − L), 0 before L. L = 0.5 s = 128/256 s,
+  // so sample k − 128 is exactly t − L. Tolerance 1e-12·max|u|: both values come from the same
+  // dense-output polynomial (the delay line interpolates it through six points, exact for its
+  // degree), so only rounding separates them.
+  const StateSpace plant = lag_plant();
+  const Controller c = make_controller(Structure::pi, {1.5, 0.8}, 10.0);
+  ActuatorModel act;
+  act.min = -1.2;
+  act.max = 1.2;  // the kick asks for 1.5: the saturation switch must be located
+  LoopOptions opt;
+  opt.delay_s = 0.5;
+  opt.horizon_s = 20.0;
+  opt.sample_times_s = binary_grid(20.0);
+  SECTION("saturation") {}
+  SECTION("saturation and rate limit") { act.rate_max = 2.0; }
+  const NonlinearResult r = simulate_nonlinear(plant, c, act, opt, 1.0, 0.02);
+  REQUIRE(r.status == NonlinearStatus::ok);
+  REQUIRE(r.plant_input.size() == r.control.size());
+  CHECK_FALSE(r.difference_equation);
+  CHECK(r.switches >= 1);
+  CHECK(all_finite(r.output));
+  double umax = 0.0, worst = 0.0;
+  for (double u : r.control) umax = std::max(umax, std::abs(u));
+  for (std::size_t k = 0; k < r.time_s.size(); ++k) {
+    if (k < 128) CHECK(r.plant_input[k] == 0.0);
+    else worst = std::max(worst, std::abs(r.plant_input[k] - r.control[k - 128]));
+  }
+  CHECK(worst <= 1e-12 * umax);
+  CHECK(*std::max_element(r.control.begin(), r.control.end()) <= act.max);
+  // Nothing reaches the output before the delay (plant at rest).
+  for (std::size_t k = 0; k <= 128; ++k) CHECK(r.output[k] == 0.0);
+  CHECK(std::abs(r.output.back() - 1.0) < 1e-3);  // integral action still settles (stable delayed loop)
+}
+
+TEST_CASE("delayed proportional loop on a first-order plant follows the method-of-steps closed form", "[nonlinear][delay]") {
+  // P = 1/(s + 1), u = K·(r − y), plant input u(t − L), r = 1, K = 0.8, L = 0.4. Closed form by
+  // the method of steps (derived by hand; El'sgol'ts & Norkin, Introduction to the Theory and
+  // Application of Differential Equations with Deviating Arguments, 1973, method of steps):
+  //   t ≤ L:       y = 0
+  //   L ≤ t ≤ 2L:  y = K·r·(1 − e^{−(t−L)})
+  //   2L ≤ t ≤ 3L: with s = t − 2L, y' + y = a + b·e^{−s}, a = K·r·(1 − K), b = K²·r:
+  //                y = a + (y(2L) − a)·e^{−s} + b·s·e^{−s}.
+  // Tolerance 1e-8 absolute: the integrator's own error at rtol 1e-8 (measured ~4e-10); a
+  // delayed input interpolated linearly instead of by the dense output costs ~1e-4.
+  const double K = 0.8, L = 0.4, r0 = 1.0;
+  LoopOptions opt;
+  opt.delay_s = L;
+  opt.horizon_s = 3.0 * L;
+  opt.output_step_s = L / 200.0;
+  const NonlinearResult r =
+      simulate_nonlinear(plant_of({1.0}, {1.0, 1.0}), make_controller(Structure::p, {K}, 10.0), ActuatorModel{}, opt, r0, 0.02);
+  REQUIRE(r.status == NonlinearStatus::ok);
+  const double y2 = K * r0 * (1.0 - std::exp(-L)), a = K * r0 * (1.0 - K), b = K * K * r0;
+  double worst = 0.0;
+  for (std::size_t k = 0; k < r.time_s.size(); ++k) {
+    const double t = r.time_s[k];
+    double y = 0.0;
+    if (t > 2.0 * L) {
+      const double s = t - 2.0 * L;
+      y = a + (y2 - a) * std::exp(-s) + b * s * std::exp(-s);
+    } else if (t > L) {
+      y = K * r0 * (1.0 - std::exp(-(t - L)));
+    }
+    worst = std::max(worst, std::abs(r.output[k] - y));
+  }
+  CHECK(worst < 1e-8);
+}
+
+TEST_CASE("sampled PI: Tustin coefficients and the recursion the loop runs", "[nonlinear][sampled]") {
+  // Bilinear (Tustin) transform of Kp + Ki/s: Kp + Ki·Ts/2·(z + 1)/(z − 1) (Franklin, Powell &
+  // Workman, Digital Control of Dynamic Systems, bilinear transformation section; formula), i.e.
+  // u[k] = u[k−1] + (Kp + Ki·Ts/2)·e[k] + (−Kp + Ki·Ts/2)·e[k−1].
+  const Controller c = make_controller(Structure::pi, {1.5, 0.8}, 10.0);  // Kp = 1.5, Ki = 1.2
+  const double kp = c.parallel->kp, ki = c.parallel->ki, ts = 0.05;
+  LoopOptions opt;
+  opt.sample_time_s = ts;
+  opt.horizon_s = 10.0;
+  for (int k = 0; k <= 200; ++k) opt.sample_times_s.push_back(k * ts);  // the controller's own instants
+  const NonlinearResult r = simulate_nonlinear(lag_plant(), c, ActuatorModel{}, opt, 1.0, 0.02);
+  REQUIRE(r.status == NonlinearStatus::ok);
+  REQUIRE(r.difference_equation);
+  const DifferenceEquation& d = *r.difference_equation;
+  CHECK(d.sample_time_s == ts);
+  CHECK_THAT(d.method, Contains("Tustin"));
+  // Coefficients: rounding only (1e-14 relative).
+  REQUIRE(d.denominator.size() == 2);
+  REQUIRE(d.reference_numerator.size() == 2);
+  REQUIRE(d.measurement_numerator.size() == 2);
+  CHECK(d.denominator[0] == 1.0);
+  CHECK(d.denominator[1] == -1.0);
+  for (const auto* n : {&d.reference_numerator, &d.measurement_numerator}) {
+    CHECK(std::abs((*n)[0] - (kp + ki * ts / 2.0)) < 1e-14 * kp);
+    CHECK(std::abs((*n)[1] - (-kp + ki * ts / 2.0)) < 1e-14 * kp);
+  }
+  // The simulated commands obey the textbook recursion with e[k] = 1 − y(k·Ts) (e[−1] = 0, u[−1] = 0).
+  // Tolerance 1e-12: rounding of the recursion only.
+  double u_prev = 0.0, e_prev = 0.0, worst = 0.0;
+  for (std::size_t k = 0; k < r.time_s.size(); ++k) {
+    const double e = 1.0 - r.output[k];
+    const double u = u_prev + (kp + ki * ts / 2.0) * e + (-kp + ki * ts / 2.0) * e_prev;
+    worst = std::max(worst, std::abs(u - r.command[k]));
+    u_prev = r.command[k];
+    e_prev = e;
+  }
+  CHECK(worst < 1e-12);
+  // Zero-order hold: the applied u equals the command at the instant and is held; the plant
+  // input is the applied u (no delay here).
+  for (std::size_t k = 0; k < r.time_s.size(); ++k) {
+    CHECK(r.control[k] == r.command[k]);
+    CHECK(r.plant_input[k] == r.control[k]);
+  }
+}
+
+TEST_CASE("sampled PID and lead: the difference equations are the documented discretizations", "[nonlinear][sampled]") {
+  // Checked as transfer functions of w = z⁻¹ at points on the unit circle, z = e^{jθ}:
+  //   PID: Kp·b + Ki·Ts/2·(1 + w)/(1 − w) + Kd/(Tf + Ts)·c·(1 − w)/(1 − Tf/(Tf + Ts)·w)
+  //        (Tustin integral; backward difference s ≈ (1 − w)/Ts in Kd·s/(Tf·s + 1));
+  //   lead: C(s) at s = (2/Ts)·(1 − w)/(1 + w) (Franklin, Powell & Workman, bilinear
+  //        transformation section; formula).
+  // Tolerance 1e-10 relative: polynomial algebra in double precision.
+  const double ts = 0.02;
+  LoopOptions opt;
+  opt.sample_time_s = ts;
+  opt.horizon_s = 5.0;
+  opt.setpoint_weight = 0.6;
+  opt.derivative_weight = 0.0;
+  const std::vector<double> thetas{0.1, 0.7, 2.0, 3.0};
+  SECTION("PID with set-point weights") {
+    const Controller c = make_controller(Structure::pid, {2.0, 1.2, 0.7}, 10.0);
+    const ParallelGains g = *c.parallel;
+    const NonlinearResult r = simulate_nonlinear(lag_plant(), c, ActuatorModel{}, opt, 1.0, 0.02);
+    REQUIRE(r.status == NonlinearStatus::ok);
+    REQUIRE(r.difference_equation);
+    const DifferenceEquation& d = *r.difference_equation;
+    CHECK(d.denominator[0] == 1.0);
+    for (double th : thetas) {
+      const std::complex<double> w = std::exp(std::complex<double>(0.0, -th));
+      const auto integ = g.ki * ts / 2.0 * (1.0 + w) / (1.0 - w);
+      const auto deriv = g.kd / (g.tf + ts) * (1.0 - w) / (1.0 - g.tf / (g.tf + ts) * w);
+      const auto want_r = g.kp * 0.6 + integ + 0.0 * deriv, want_y = g.kp + integ + deriv;
+      const auto got_r = eval_w(d.reference_numerator, w) / eval_w(d.denominator, w);
+      const auto got_y = eval_w(d.measurement_numerator, w) / eval_w(d.denominator, w);
+      CHECK(std::abs(got_r - want_r) < 1e-10 * std::abs(want_r));
+      CHECK(std::abs(got_y - want_y) < 1e-10 * std::abs(want_y));
+    }
+  }
+  SECTION("lead (Tustin of the whole C(s))") {
+    const Controller c = make_controller(Structure::lead, {4.0, 1.5, 5.0}, 10.0);
+    const NonlinearResult r = simulate_nonlinear(plant_of({1.0}, {1.0, 2.0, 0.0}), c, ActuatorModel{}, opt, 1.0, 0.02);
+    REQUIRE(r.status == NonlinearStatus::ok);
+    REQUIRE(r.difference_equation);
+    const DifferenceEquation& d = *r.difference_equation;
+    CHECK(d.denominator[0] == 1.0);
+    CHECK(d.reference_numerator == d.measurement_numerator);  // acts on e = r − y
+    for (double th : thetas) {
+      const std::complex<double> w = std::exp(std::complex<double>(0.0, -th));
+      const std::complex<double> want = c.transfer(2.0 / ts * (1.0 - w) / (1.0 + w));
+      const auto got = eval_w(d.reference_numerator, w) / eval_w(d.denominator, w);
+      CHECK(std::abs(got - want) < 1e-10 * std::abs(want));
+    }
+  }
+}
+
+TEST_CASE("the sampled loop converges to the continuous one as the period shrinks", "[nonlinear][sampled]") {
+  // Common practice: a sampled controller with zero-order hold approaches the continuous one as
+  // Ts → 0, the error shrinking about linearly (the hold acts like a Ts/2 delay). Dominant time
+  // constant of the lag plant: 1 s; Ts = 0.1, 0.03, 0.01 s. Checks: each error at most 0.6× the
+  // previous (first order would give 0.3 and 0.33), the last below 1e-2 of the unit step.
+  const StateSpace plant = lag_plant();
+  const Controller c = make_controller(Structure::pid, {2.0, 1.2, 0.7}, 10.0);
+  ActuatorModel act;
+  act.min = -4.0;
+  act.max = 4.0;
+  LoopOptions opt;
+  opt.horizon_s = 15.0;
+  opt.output_step_s = 0.01;
+  opt.derivative_weight = 0.0;  // derivative on the measurement: no kick, whose spike of width Tf
+                                // a sampled derivative only resolves once Ts << Tf
+  const NonlinearResult cont = simulate_nonlinear(plant, c, act, opt, 1.0, 0.02);
+  REQUIRE(cont.status == NonlinearStatus::ok);
+  std::vector<double> errors;
+  for (double ts : {0.1, 0.03, 0.01}) {
+    opt.sample_time_s = ts;
+    const NonlinearResult r = simulate_nonlinear(plant, c, act, opt, 1.0, 0.02);
+    REQUIRE(r.status == NonlinearStatus::ok);
+    REQUIRE(r.output.size() == cont.output.size());
+    double e = 0.0;
+    for (std::size_t k = 0; k < r.output.size(); ++k) e = std::max(e, std::abs(r.output[k] - cont.output[k]));
+    errors.push_back(e);
+  }
+  INFO("errors " << errors[0] << ", " << errors[1] << ", " << errors[2]);
+  CHECK(errors[1] < 0.6 * errors[0]);
+  CHECK(errors[2] < 0.6 * errors[1]);
+  CHECK(errors[2] < 1e-2);
+}
+
+TEST_CASE("sampled loop: saturation, rate limit and anti-windup at the samples", "[nonlinear][sampled]") {
+  const StateSpace plant = lag_plant();
+  LoopOptions opt;
+  opt.sample_time_s = 0.05;
+  opt.delay_s = 0.12;  // not a multiple of Ts: shifts the hold's switching instants only
+  SECTION("windup: no anti-windup overshoots more than clamping and back-calculation") {
+    // Property (Åström & Hägglund, Advanced PID Control, 2006, integrator windup), as in the
+    // continuous test above.
+    const Controller c = make_controller(Structure::pi, {3.0, 1.5}, 10.0);
+    ActuatorModel act;
+    act.min = -1.3;
+    act.max = 1.3;
+    opt.horizon_s = 40.0;
+    auto run = [&](AntiWindup a) {
+      opt.anti_windup = a;
+      const NonlinearResult r = simulate_nonlinear(plant, c, act, opt, 1.0, 0.02);
+      REQUIRE(r.status == NonlinearStatus::ok);
+      CHECK(r.saturated_fraction > 0.0);
+      CHECK(*std::max_element(r.control.begin(), r.control.end()) <= act.max);
+      CHECK(*std::max_element(r.plant_input.begin(), r.plant_input.end()) <= act.max);
+      CHECK(std::abs(r.output.back() - 1.0) < 1e-3);
+      return r.metrics.overshoot_pct;
+    };
+    const double none = run(AntiWindup::none);
+    CHECK(none > run(AntiWindup::clamping) + 1.0);
+    CHECK(none > run(AntiWindup::back_calculation) + 1.0);
+  }
+  SECTION("the rate limit bounds the slope of the applied control between samples") {
+    const Controller c = make_controller(Structure::pid, {2.0, 1.2, 0.7}, 10.0);
+    ActuatorModel act;
+    act.min = -2.0;
+    act.max = 2.0;
+    act.rate_max = 0.8;
+    opt.horizon_s = 25.0;
+    opt.output_step_s = 0.005;
+    const NonlinearResult r = simulate_nonlinear(plant, c, act, opt, 1.0, 0.02);
+    REQUIRE(r.status == NonlinearStatus::ok);
+    double steepest = 0.0;
+    for (std::size_t k = 1; k < r.time_s.size(); ++k)
+      steepest = std::max(steepest, std::abs(r.control[k] - r.control[k - 1]) / (r.time_s[k] - r.time_s[k - 1]));
+    // Tolerance 1e-9 relative: the slew is a straight line evaluated in double precision.
+    CHECK(steepest <= 0.8 * (1.0 + 1e-9));
+    CHECK(steepest >= 0.8 * (1.0 - 1e-9));  // the limit is active (the PID kick is a jump)
+    CHECK(r.control.front() == 0.0);          // starts at rest and slews
+    CHECK(std::abs(r.output.back() - 1.0) < 1e-3);
+    // The delay shifts the (continuous, piecewise-linear) applied u by L = 0.12 s = 24 samples.
+    // Tolerance 1e-9: the sample times carry rounding (~1e-15 s) times the slope (<= 0.8).
+    double worst = 0.0;
+    for (std::size_t k = 24; k < r.time_s.size(); ++k) worst = std::max(worst, std::abs(r.plant_input[k] - r.control[k - 24]));
+    CHECK(worst < 1e-9);
+    for (std::size_t k = 0; k < 24; ++k) CHECK(r.plant_input[k] == 0.0);
+  }
+}
+
+TEST_CASE("delay and sample time: malformed values are rejected, naming the field", "[nonlinear]") {
+  const StateSpace plant = lag_plant();
+  const Controller c = make_controller(Structure::pi, {1.5, 0.8}, 10.0);
+  LoopOptions opt;
+  opt.horizon_s = 5.0;
+  const double nan = std::numeric_limits<double>::quiet_NaN(), inf = std::numeric_limits<double>::infinity();
+  for (double bad : {-0.1, nan, inf}) {
+    LoopOptions o = opt;
+    o.delay_s = bad;
+    CHECK_THROWS_WITH(simulate_nonlinear(plant, c, ActuatorModel{}, o, 1.0, 0.02), Contains("delay_s"));
+    o = opt;
+    o.sample_time_s = bad;
+    CHECK_THROWS_WITH(simulate_nonlinear(plant, c, ActuatorModel{}, o, 1.0, 0.02), Contains("sample_time_s"));
+  }
+  SECTION("a tiny delay exhausts the step budget as a status, not a hang or NaN") {
+    LoopOptions o = opt;
+    o.delay_s = 1e-9;  // the method of steps caps every step at L
+    o.max_steps = 2000;
+    const NonlinearResult r = simulate_nonlinear(plant, c, ActuatorModel{}, o, 1.0, 0.02);
+    CHECK(r.status == NonlinearStatus::step_limit);
+    CHECK(all_finite(r.output));
+  }
 }

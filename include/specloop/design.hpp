@@ -61,6 +61,7 @@ struct NonlinearConfirmation {
   bool meets_all = false;
   bool confirmed = false;             // every requirement met on the linear loop is met here too
   std::string verdict;                // one sentence, with the numbers
+  std::optional<DifferenceEquation> difference_equation;  // when the controller is sampled
   std::vector<std::string> notes;
 };
 

@@ -3,6 +3,10 @@
 // clamping anti-windup switch and the rate-limit modes are frozen within an integration piece;
 // a switch is detected between accepted steps, located by bisection on the dense output, and
 // the integration restarts there. Confirms on the nonlinear loop a design made on the linear one.
+//
+// Extensions: an exact transport delay between the actuator and the plant (a delay differential
+// equation solved by the method of steps), and a sampled controller (difference equations at a
+// fixed period, zero-order hold, the plant integrated piece by piece between the hold's switches).
 #pragma once
 
 #include <limits>
@@ -42,6 +46,19 @@ struct LoopOptions {
   double max_wall_time_s = 60.0;       // wall-clock cap on one simulation, s
   double relative_tolerance = 1e-8;    // dopri5 error control, per step
   double absolute_tolerance = 1e-10;
+  double delay_s = 0.0;        // transport delay between the applied actuator output and the plant input, s (>= 0)
+  double sample_time_s = 0.0;  // > 0: the controller runs at this period (see below); 0: continuous
+};
+
+/// u[k] as a linear recursion of the controller's discrete transfer functions in z⁻¹, from the
+/// reference and from the measurement: U(z) = (R(z)·r_num − Y(z)·y_num)/den, coefficients of
+/// z⁰, z⁻¹, … (den[0] = 1). For PI/PID: integral by Tustin, filtered derivative by the documented rule.
+struct DifferenceEquation {
+  double sample_time_s = 0.0;
+  std::vector<double> reference_numerator;    // acting on r[k], r[k−1], …
+  std::vector<double> measurement_numerator;  // acting on y[k], y[k−1], …
+  std::vector<double> denominator;            // 1, a1, a2, …
+  std::string method;                         // in words, e.g. "integral: Tustin; derivative: backward difference on the filtered term"
 };
 
 enum class NonlinearStatus {
@@ -55,11 +72,15 @@ std::string_view status_name(NonlinearStatus s);
 struct NonlinearResult {
   NonlinearStatus status = NonlinearStatus::ok;
   std::vector<double> time_s, output, control /*applied u*/, command /*u_c before saturation*/;
+  std::vector<double> plant_input;  // the applied u as it reaches the plant: control delayed by
+                                    // delay_s (0 before it); the disturbance is not included
   double saturated_fraction = 0.0;  // time with the command beyond a limit ÷ horizon
   int steps = 0;                    // accepted integrator steps
   int switches = 0;                 // located mode switches (integration restarts)
   StepMetrics metrics;              // measured on the samples; valid only when status is ok
   std::vector<std::string> notes;   // what was simplified or not applied, in words
+  /// For a sampled controller: its difference equations at sample_time_s (empty when continuous).
+  std::optional<DifferenceEquation> difference_equation;
 };
 
 /// Simulates a step of `amplitude` in the reference at t = 0 (zero initial state; the
@@ -77,6 +98,42 @@ struct NonlinearResult {
 /// linearly interpolated, integrals use the trapezoid rule; with the default 4000 samples per
 /// horizon that is accurate to about 1e-5 relative on smooth responses (the samples themselves
 /// carry the integrator's error, ~1e-7 relative at the default tolerances).
+///
+/// Transport delay (delay_s = L > 0), exact: the plant input at t is the applied u at t − L (0
+/// before L); the disturbance acts at the plant input undelayed. With a continuous controller
+/// the loop is a delay differential equation, solved by the method of steps: every dopri5 step
+/// is capped at L, so all its stages need u only at times already integrated. The applied u of
+/// each accepted step (or part of a step up to a located switch) is stored as its values at six
+/// equally spaced points of the step, taken from the stepper's own dense output; dopri5's
+/// continuous extension is a polynomial of degree ≤ 5 in the step fraction within a held-mode
+/// piece, so the degree-5 interpolant through those points reproduces it to rounding and the
+/// delayed input carries only the dense output's error (4th order, about the step tolerance).
+/// Every restart time s (t = 0, located switches, the disturbance step) makes s + L a break
+/// point where the integration restarts, so the jumps and kinks of u reach the plant at a piece
+/// boundary. Mode switches are located as without delay. A very small L forces many steps and
+/// can end in step_limit. Without a horizon, the default one (from the delay-free loop) is
+/// extended by L.
+///
+/// Sampled controller (sample_time_s = Ts > 0): at t = k·Ts (k = 0, 1, …; r[k] = amplitude, the
+/// loop at rest before 0) the controller reads y(k·Ts) and computes the command u_c[k] by its
+/// difference equation (reported in `difference_equation`):
+///   p, pi, pd, pid (parallel gains): P[k] = Kp·(b·r − y);
+///     integral by Tustin, I[k] = I[k−1] + Ki·Ts/2·(e[k] + e[k−1]);
+///     derivative by the backward difference s ≈ (1 − z⁻¹)/Ts on Kd·s/(Tf·s + 1) acting on
+///     v = c·r − y: D[k] = Tf/(Tf + Ts)·D[k−1] + Kd/(Tf + Ts)·(v[k] − v[k−1]) (pole in (0, 1):
+///     stable for every Tf > 0);
+///   lead, lag, lead-lag: Tustin of C(s), s = (2/Ts)·(1 − z⁻¹)/(1 + z⁻¹), acting on e = r − y
+///     in direct form (no weights, no anti-windup, as in the continuous case).
+/// The command is saturated at the sample; anti-windup acts at the samples: clamping skips the
+/// integral increment when the command with it lies beyond a limit and the increment pushes
+/// further; back-calculation adds the discrete tracking term Ts/Tt·(u_a[k−1] − u_c[k−1]) to the
+/// increment, u_a[k−1] being the applied value at the end of period k−1. Zero-order hold: the
+/// saturated command is held until the next sample; with a rate limit the applied u slews at
+/// ±rate_max from its current value toward it (reaching it within the period or continuing to
+/// slew until the next sample). The applied u is thus piecewise linear and known in advance; the
+/// delay shifts its switching instants exactly; the plant is integrated with dopri5 piece by
+/// piece between those instants. `switches` counts the integration pieces; the saturated
+/// fraction counts the sample periods whose command lies beyond a limit.
 ///
 /// Throws std::invalid_argument for malformed input (the message names the field); numerical
 /// failures are reported in `status`, never as NaN samples.

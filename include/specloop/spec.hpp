@@ -69,6 +69,7 @@ struct ControllerSpec {
   double derivative_filter = 10.0;            // N: derivative filter pole at N/Td (> 0)
   AntiWindup anti_windup = AntiWindup::clamping;
   std::optional<double> tracking_time_s;      // back-calculation Tt, s (> 0); default by rule
+  double sample_time_s = 0.0;                 // > 0: a digital controller at this period, s
 };
 
 /// A load disturbance: a step added at the plant input (used by the nonlinear confirmation).

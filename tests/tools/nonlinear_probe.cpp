@@ -8,10 +8,13 @@
 //    "options":    {"anti_windup": "clamping", "setpoint_weight": 1, "derivative_weight": 1,
 //                   "tracking_time_s": 1, "disturbance_time_s": 0, "disturbance_size": 0,
 //                   "horizon_s": 10, "output_step_s": 0.01, "sample_times_s": [...],
-//                   "max_steps": 1000000, "relative_tolerance": 1e-8, "absolute_tolerance": 1e-10},
+//                   "max_steps": 1000000, "relative_tolerance": 1e-8, "absolute_tolerance": 1e-10,
+//                   "delay_s": 0, "sample_time_s": 0},
 //    "amplitude":  1.0, "band_pct": 2.0}
 // and prints {"status", "notes", "steps", "switches", "saturated_fraction", "time", "output",
-// "control", "command", "metrics"} (metrics null unless the status is "ok").
+// "control", "command", "plant_input", "metrics", "difference_equation"} (metrics null unless
+// the status is "ok"; difference_equation null for a continuous controller, else
+// {"sample_time_s", "reference_numerator", "measurement_numerator", "denominator", "method"}).
 // Exit codes: 0 printed a result (whatever the status), 2 malformed input (message on stderr).
 #include <cmath>
 #include <iostream>
@@ -91,7 +94,7 @@ int run() {
     const json& o = in["options"];
     only_keys(o, "options", {"anti_windup", "setpoint_weight", "derivative_weight", "tracking_time_s",
                              "disturbance_time_s", "disturbance_size", "horizon_s", "output_step_s", "sample_times_s",
-                             "max_steps", "relative_tolerance", "absolute_tolerance"});
+                             "max_steps", "relative_tolerance", "absolute_tolerance", "delay_s", "sample_time_s"});
     if (o.contains("anti_windup")) {
       const auto aw = parse_anti_windup(o["anti_windup"].get<std::string>());
       if (!aw) throw InputError("options.anti_windup: expected none, clamping or back-calculation");
@@ -108,6 +111,8 @@ int run() {
     set("output_step_s", opt.output_step_s);
     set("relative_tolerance", opt.relative_tolerance);
     set("absolute_tolerance", opt.absolute_tolerance);
+    set("delay_s", opt.delay_s);
+    set("sample_time_s", opt.sample_time_s);
     if (o.contains("tracking_time_s")) opt.tracking_time_s = number(o["tracking_time_s"], "options.tracking_time_s");
     if (o.contains("sample_times_s")) opt.sample_times_s = numbers(o["sample_times_s"], "options.sample_times_s");
     if (o.contains("max_steps")) opt.max_steps = o["max_steps"].get<int>();
@@ -126,6 +131,15 @@ int run() {
   out["output"] = r.output;
   out["control"] = r.control;
   out["command"] = r.command;
+  out["plant_input"] = r.plant_input;
+  if (r.difference_equation) {
+    const DifferenceEquation& d = *r.difference_equation;
+    out["difference_equation"] = {{"sample_time_s", d.sample_time_s}, {"reference_numerator", d.reference_numerator},
+                                  {"measurement_numerator", d.measurement_numerator}, {"denominator", d.denominator},
+                                  {"method", d.method}};
+  } else {
+    out["difference_equation"] = nullptr;
+  }
   out["metrics"] = r.status == NonlinearStatus::ok ? metrics_json(r.metrics) : json(nullptr);
   std::cout << out.dump() << "\n";
   return 0;
