@@ -165,3 +165,24 @@ Controller make_controller(Structure s, const std::vector<double>& series, doubl
 }
 
 }  // namespace specloop
+
+namespace specloop {
+
+TransferFunction reference_path(const Controller& c, double b, double cw) {
+  if (b == 1.0 && cw == 1.0) return c.transfer;
+  if (!c.parallel) throw std::invalid_argument("set-point weights need a parallel form; this structure has none");
+  const ParallelGains& g = *c.parallel;
+  // Over the common denominator s^i·(Tf·s + 1)^d (i: integral present, d: derivative present).
+  const bool integral = g.ki != 0.0, derivative = g.kd != 0.0;
+  Polynomial den({1.0});
+  if (integral) den = den * Polynomial({1.0, 0.0});
+  if (derivative) den = den * Polynomial({g.tf, 1.0});
+  Polynomial num = (g.kp * b) * den;
+  if (integral) num = num + g.ki * (derivative ? Polynomial({g.tf, 1.0}) : Polynomial({1.0}));
+  if (derivative) num = num + (g.kd * cw) * (integral ? Polynomial({1.0, 0.0, 0.0}) : Polynomial({1.0, 0.0}));
+  // Express over C's own denominator (same roots, possibly another scaling).
+  const double scale = c.transfer.denominator.leading() / den.leading();
+  return {scale * num, scale * den};
+}
+
+}  // namespace specloop

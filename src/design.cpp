@@ -169,6 +169,8 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   actuator.rate_max = spec.actuator.rate_max;
   LoopOptions options;
   options.anti_windup = spec.controller.anti_windup;
+  options.setpoint_weight = spec.controller.setpoint_weight;
+  options.derivative_weight = spec.controller.derivative_on_measurement ? 0.0 : 1.0;
   options.tracking_time_s = spec.controller.tracking_time_s;
   options.disturbance_time_s = spec.disturbance.time_s;
   options.disturbance_size = spec.disturbance.size;
@@ -247,7 +249,9 @@ Design measure_design(const Problem& problem, std::string name, const Controller
   Design d;
   d.name = std::move(name);
   d.controller = controller;
-  const StateSpace loop = close_loop(problem.plant_realization, realize(controller.transfer));
+  const ControllerSpec& cs = problem.spec.controller;
+  d.reference_path = reference_path(controller, cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0);
+  const StateSpace loop = close_loop(problem.plant_realization, controller.transfer, d.reference_path);
   StepSimulator sim;
   d.status = sim.simulate(loop, problem.spec.reference.amplitude, problem.band_fraction, d.simulated);
   const ClosedLoopTF cl = close_loop(problem.plant, controller.transfer);

@@ -196,6 +196,8 @@ json design_json(const Design& d) {
                 {"numerator", numbers(c.transfer.numerator.coefficients)},
                 {"denominator", numbers(c.transfer.denominator.coefficients)},
                 {"derivative_filter", number_json(c.derivative_filter)},
+                {"reference_numerator", numbers(d.reference_path.numerator.coefficients)},
+                {"reference_denominator", numbers(d.reference_path.denominator.coefficients)},
                 {"series", series},
                 {"parallel", parallel},
                 {"standard", standard}}},

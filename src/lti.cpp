@@ -225,6 +225,68 @@ StateSpace close_loop(const StateSpace& plant, const StateSpace& controller) {
   return cl;
 }
 
+StateSpace close_loop(const StateSpace& plant, const TransferFunction& feedback, const TransferFunction& reference) {
+  // Observable canonical form of the two-input controller over the monic common denominator
+  // d(s) = s^m + a1 s^(m−1) + … + am: x' = A x + B_r r − B_y y, u = x_1 + d_r r − d_y y.
+  const TransferFunction fb = feedback.normalized();
+  const TransferFunction rf = reference.normalized();
+  const auto& den = fb.denominator.coefficients;
+  const int m = fb.denominator.degree();
+  if (rf.denominator.degree() != m || fb.numerator.degree() > m || rf.numerator.degree() > m)
+    throw std::invalid_argument("two-input controller: both paths need one proper common denominator");
+  for (int i = 0; i <= m; ++i)
+    if (std::abs(rf.denominator.coefficients[static_cast<std::size_t>(i)] - den[static_cast<std::size_t>(i)]) >
+        1e-9 * std::max(1.0, std::abs(den[static_cast<std::size_t>(i)])))
+      throw std::invalid_argument("two-input controller: the paths' denominators differ");
+  auto padded = [&](const Polynomial& p) {
+    std::vector<double> c(static_cast<std::size_t>(m) + 1, 0.0);
+    std::copy(p.coefficients.begin(), p.coefficients.end(), c.end() - static_cast<std::ptrdiff_t>(p.coefficients.size()));
+    return c;
+  };
+  const auto ny = padded(fb.numerator), nr = padded(rf.numerator);
+  StateSpace ctrl;  // inputs handled below: column 0 = r, column 1 = y (with its minus sign)
+  ctrl.A = Eigen::MatrixXd::Zero(m, m);
+  Eigen::VectorXd br(m), by(m);
+  for (int i = 0; i < m; ++i) {
+    ctrl.A(i, 0) = -den[static_cast<std::size_t>(i) + 1];
+    if (i + 1 < m) ctrl.A(i, i + 1) = 1.0;
+    br(i) = nr[static_cast<std::size_t>(i) + 1] - nr[0] * den[static_cast<std::size_t>(i) + 1];
+    by(i) = ny[static_cast<std::size_t>(i) + 1] - ny[0] * den[static_cast<std::size_t>(i) + 1];
+  }
+  const double dr = nr[0], dy = ny[0];
+  const int np = plant.states(), n = np + m;
+  const double dp = plant.D(0);
+  const double denom = 1.0 + dy * dp;
+  if (std::abs(denom) < 1e-12) throw std::domain_error("closed loop is ill-posed: 1 + Dc·Dp = 0");
+  // u = (x_c1 + dr r − dy Cp xp)/denom ; y = Cp xp + Dp u.
+  const Eigen::RowVectorXd cp = plant.C.row(0);
+  Eigen::RowVectorXd u_x = Eigen::RowVectorXd::Zero(n);
+  u_x.head(np) = -dy * cp / denom;
+  if (m > 0) u_x(np) = 1.0 / denom;
+  const double u_r = dr / denom;
+  Eigen::RowVectorXd y_x = Eigen::RowVectorXd::Zero(n);
+  y_x.head(np) = cp;
+  y_x += dp * u_x;
+  const double y_r = dp * u_r;
+  StateSpace cl;
+  cl.A = Eigen::MatrixXd::Zero(n, n);
+  cl.B = Eigen::VectorXd::Zero(n);
+  cl.A.topRows(np) = plant.B * u_x;
+  cl.A.topLeftCorner(np, np) += plant.A;
+  cl.B.head(np) = plant.B * u_r;
+  if (m > 0) {
+    cl.A.bottomRows(m) = -by * y_x;
+    cl.A.bottomRightCorner(m, m) += ctrl.A;
+    cl.B.tail(m) = br - by * y_r;
+  }
+  cl.C.resize(2, n);
+  cl.C.row(0) = y_x;
+  cl.C.row(1) = u_x;
+  cl.D.resize(2);
+  cl.D << y_r, u_r;
+  return cl;
+}
+
 ClosedLoopTF close_loop(const TransferFunction& plant, const TransferFunction& controller) {
   const Polynomial loop_num = controller.numerator * plant.numerator;
   const Polynomial loop_den = controller.denominator * plant.denominator;

@@ -43,7 +43,13 @@ class CostFunction {
     Outcome out;
     controller_polynomials(structure_, params, n_, num_, den_);
     const TransferFunction c{Polynomial(num_), Polynomial(den_)};
-    const StateSpace loop = close_loop(problem_.plant_realization, realize(c));
+    const ControllerSpec& cs = problem_.spec.controller;
+    const bool weighted = cs.setpoint_weight != 1.0 || cs.derivative_on_measurement;
+    const StateSpace loop =
+        weighted ? close_loop(problem_.plant_realization, c,
+                              reference_path(make_controller(structure_, std::vector<double>(params, params + problem_.parameters.size()), n_),
+                                             cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0))
+                 : close_loop(problem_.plant_realization, realize(c));
     const StepStatus status = sim_.simulate(loop, problem_.spec.reference.amplitude, problem_.band_fraction, metrics_);
     if (status != StepStatus::ok) {
       double rightmost = 0.0;

@@ -109,7 +109,9 @@ const std::vector<SectionSchema>& section_schemas() {
   static const std::vector<SectionSchema> schemas{
       {"plant", {"zeros", "poles", "gain", "numerator", "denominator", "delay"}},
       {"actuator", {"min", "max", "rate_max"}},
-      {"controller", {"structure", "derivative_filter", "anti_windup", "tracking_time", "sample_time"}},
+      {"controller",
+       {"structure", "derivative_filter", "anti_windup", "tracking_time", "sample_time", "setpoint_weight",
+        "derivative_on"}},
       {"requirements",
        {"overshoot_max_pct", "peak_time_ratio", "settling_time_max", "peak_time_max",
         "rise_time_max", "settling_band_pct", "steady_state_error_max", "effort_max",
@@ -702,6 +704,24 @@ class SpecReader {
     if (const auto ts = ranged_number(table, "controller", "sample_time", [](double v) { return v > 0.0; },
                                       "a sample period in s > 0 (leave it out for a continuous controller)"))
       controller.sample_time_s = *ts;
+    if (const auto b = ranged_number(table, "controller", "setpoint_weight", [](double v) { return v >= 0.0 && v <= 1.0; },
+                                     "a weight in [0, 1]"))
+      controller.setpoint_weight = *b;
+    if (const auto entry = find_entry(*table, "derivative_on")) {
+      const auto* text = entry->value->as_string();
+      if (text == nullptr || (text->get() != "error" && text->get() != "measurement"))
+        fail_expected(entry->at, "controller.derivative_on", "\"error\" or \"measurement\"",
+                      text ? in_quotes(text->get()) : describe(*entry->value));
+      controller.derivative_on_measurement = text->get() == "measurement";
+    }
+    // Weights act on the parallel form; lag and lead-lag have none.
+    const bool weighted = controller.setpoint_weight != 1.0 || controller.derivative_on_measurement;
+    if (weighted && (controller.structure == Structure::lag || controller.structure == Structure::lead_lag)) {
+      const auto entry = find_entry(*table, controller.setpoint_weight != 1.0 ? "setpoint_weight" : "derivative_on");
+      fail(entry->at, fmt::format("controller.{}", entry->key),
+           fmt::format("set-point weighting needs a parallel (PID-type) form; structure '{}' has none",
+                       structure_name(controller.structure)));
+    }
   }
 
   void read_requirements(Requirements& requirements) const {

@@ -183,3 +183,37 @@ TEST_CASE("nonlinear confirmation carries the exact delay and the sampled contro
   CHECK(s.nonlinear->difference_equation->sample_time_s == 0.02);
   CHECK_THAT(s.nonlinear->simulated.itae, WithinRel(d.simulated.itae, 0.05));
 }
+
+TEST_CASE("set-point weights: the linear and nonlinear loops agree, and the derivative kick goes", "[confirmation]") {
+  // u = Kp·(b·r − y) + Ki∫(r − y) + Kd·D(c·r − y) (Åström–Hägglund's two-degree-of-freedom PID):
+  // with b = 0.5 and the derivative on the measurement (c = 0), u(0+) = Kp·b·r, no kick.
+  const Problem p = problem_from(
+      "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[controller]\nstructure = \"pid\"\nsetpoint_weight = 0.5\n"
+      "derivative_on = \"measurement\"\n[requirements]\novershoot_max_pct = 10.0\n");
+  const Controller c = make_controller(Structure::pid, {1.5, 1.2, 1.1}, 10.0);
+  const Design d = measure_design(p, "test", c);
+  REQUIRE(d.status == StepStatus::ok);
+  {
+    StepSimulator sim;
+    StepMetrics m;
+    StepTrace trace;
+    REQUIRE(sim.simulate(close_loop(p.plant_realization, c.transfer, d.reference_path), 1.0, 0.02, m, &trace) ==
+            StepStatus::ok);
+    CHECK_THAT(trace.effort.front(), WithinRel(1.5 * 0.5, 1e-12));  // u(0+) = Kp·b·r
+  }
+  CHECK(d.simulated.effort_peak < 1.5 * 11.0 / 4.0);               // far below the kick Kp·(1 + N)·r
+  // The reference path: C_r(0) has the same integral action, so zero steady-state error remains.
+  CHECK_THAT(d.simulated.steady_state_error, WithinAbs(0.0, 1e-12));
+  // Without saturation the nonlinear loop (the parallel form itself) reproduces the linear one.
+  REQUIRE(d.nonlinear);
+  CHECK_THAT(d.nonlinear->simulated.itae, WithinRel(d.simulated.itae, 1e-4));
+  CHECK_THAT(d.nonlinear->simulated.overshoot_pct, WithinAbs(d.simulated.overshoot_pct, 1e-3));
+  // Unweighted, the kick is Kp·(1 + N)·r.
+  const Problem plain = problem_from(
+      "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[controller]\nstructure = \"pid\"\n[requirements]\n"
+      "overshoot_max_pct = 10.0\n");
+  const Design k = measure_design(plain, "test", c);
+  CHECK_THAT(k.simulated.effort_peak, WithinRel(1.5 * 11.0, 1e-9));
+  CHECK_THROWS_AS(parse_spec("[plant]\npoles = [-1.0]\n[controller]\nstructure = \"lag\"\nsetpoint_weight = 0.5\n",
+                             "specs/unit.toml"), SpecError);
+}

@@ -55,6 +55,11 @@ struct Controller {
 /// not positive and finite or the count is wrong.
 Controller make_controller(Structure s, const std::vector<double>& series, double derivative_filter);
 
+/// The reference path of a two-degree-of-freedom controller u = C_r(s)·r − C(s)·y with
+/// C_r = Kp·b + Ki/s + Kd·c·s/(Tf·s + 1) (set-point weights b and c; Åström–Hägglund). It shares
+/// C's denominator. b = c = 1 gives C itself; lag and lead-lag (no parallel form) only allow that.
+TransferFunction reference_path(const Controller& c, double setpoint_weight, double derivative_weight);
+
 /// Writes C(s) for the series parameters into `num`/`den` without building the rest (hot path).
 void controller_polynomials(Structure s, const double* series, double derivative_filter,
                             std::vector<double>& num, std::vector<double>& den);

@@ -69,6 +69,7 @@ struct NonlinearConfirmation {
 struct Design {
   std::string name;                 // reference, classical, ultimate_gain, optimized
   Controller controller;
+  TransferFunction reference_path;  // C_r: u = C_r·r − C·y (equals C without set-point weights)
   StepStatus status = StepStatus::ok;
   std::vector<Complex> closed_loop_poles;
   std::optional<SecondOrderPrediction> second_order;  // from the slowest complex closed-loop pair

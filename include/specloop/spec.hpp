@@ -70,6 +70,8 @@ struct ControllerSpec {
   AntiWindup anti_windup = AntiWindup::clamping;
   std::optional<double> tracking_time_s;      // back-calculation Tt, s (> 0); default by rule
   double sample_time_s = 0.0;                 // > 0: a digital controller at this period, s
+  double setpoint_weight = 1.0;               // b: the proportional term acts on b·r − y
+  bool derivative_on_measurement = false;     // c = 0 (no derivative kick) instead of c = 1
 };
 
 /// A load disturbance: a step added at the plant input (used by the nonlinear confirmation).
