@@ -188,35 +188,43 @@ StateSpace realize(const TransferFunction& g) {
   return result;
 }
 
-StateSpace close_loop(const StateSpace& plant, const StateSpace& controller) {
-  const int np = plant.states(), nc = controller.states();
-  const double dp = plant.D(0), dc = controller.D(0);
-  const double denom = 1.0 + dc * dp;
+namespace {
+
+// A two-input controller x' = A x + B_r r − B_y y, u = C x + d_r r − d_y y.
+struct TwoInputController {
+  Eigen::MatrixXd A;
+  Eigen::VectorXd b_r, b_y;
+  Eigen::RowVectorXd c;
+  double d_r = 0.0, d_y = 0.0;
+};
+
+// The loop y = P·u with that controller. Outputs: row 0 = y, row 1 = u.
+StateSpace assemble_loop(const StateSpace& plant, const TwoInputController& k) {
+  const int np = plant.states(), nc = static_cast<int>(k.A.rows()), n = np + nc;
+  const double dp = plant.D(0);
+  const double denom = 1.0 + k.d_y * dp;
   if (std::abs(denom) < 1e-12) throw std::domain_error("closed loop is ill-posed: 1 + Dc·Dp = 0");
-  // u = (Cc xc + Dc r − Dc Cp xp)/denom ;  y = Cp xp + Dp u ;  e = r − y.
+  // u = (C xc + d_r r − d_y Cp xp)/denom ;  y = Cp xp + Dp u.
   const Eigen::RowVectorXd cp = plant.C.row(0);
-  const Eigen::RowVectorXd cc = controller.C.row(0);
-  Eigen::MatrixXd u_x(1, np + nc);
-  u_x.leftCols(np) = -dc * cp / denom;
-  u_x.rightCols(nc) = cc / denom;
-  const double u_r = dc / denom;
-  Eigen::MatrixXd y_x(1, np + nc);
-  y_x.leftCols(np) = cp + dp * u_x.leftCols(np);
-  y_x.rightCols(nc) = dp * u_x.rightCols(nc);
+  Eigen::RowVectorXd u_x(n);
+  u_x.head(np) = -k.d_y * cp / denom;
+  u_x.tail(nc) = k.c / denom;
+  const double u_r = k.d_r / denom;
+  Eigen::RowVectorXd y_x = dp * u_x;
+  y_x.head(np) += cp;
   const double y_r = dp * u_r;
 
   StateSpace cl;
-  const int n = np + nc;
   cl.A = Eigen::MatrixXd::Zero(n, n);
   cl.B = Eigen::VectorXd::Zero(n);
   // xp' = Ap xp + Bp u
   cl.A.topRows(np) = plant.B * u_x;
   cl.A.topLeftCorner(np, np) += plant.A;
   cl.B.head(np) = plant.B * u_r;
-  // xc' = Ac xc + Bc (r − y)
-  cl.A.bottomRows(nc) = -controller.B * y_x;
-  cl.A.bottomRightCorner(nc, nc) += controller.A;
-  cl.B.tail(nc) = controller.B * (1.0 - y_r);
+  // xc' = A xc + B_r r − B_y y
+  cl.A.bottomRows(nc) = -k.b_y * y_x;
+  cl.A.bottomRightCorner(nc, nc) += k.A;
+  cl.B.tail(nc) = k.b_r - k.b_y * y_r;
   cl.C.resize(2, n);
   cl.C.row(0) = y_x;
   cl.C.row(1) = u_x;
@@ -225,9 +233,18 @@ StateSpace close_loop(const StateSpace& plant, const StateSpace& controller) {
   return cl;
 }
 
+}  // namespace
+
+StateSpace close_loop(const StateSpace& plant, const StateSpace& controller) {
+  // e = r − y drives the controller: both inputs share its B and D.
+  return assemble_loop(plant, {controller.A, controller.B, controller.B, controller.C.row(0), controller.D(0),
+                               controller.D(0)});
+}
+
 StateSpace close_loop(const StateSpace& plant, const TransferFunction& feedback, const TransferFunction& reference) {
   // Observable canonical form of the two-input controller over the monic common denominator
-  // d(s) = s^m + a1 s^(m−1) + … + am: x' = A x + B_r r − B_y y, u = x_1 + d_r r − d_y y.
+  // d(s) = s^m + a1 s^(m−1) + … + am: A has −a in its first column and ones above the diagonal,
+  // B = numerator − n0·a (per path), C = [1 0 … 0], D = n0.
   const TransferFunction fb = feedback.normalized();
   const TransferFunction rf = reference.normalized();
   const auto& den = fb.denominator.coefficients;
@@ -244,47 +261,22 @@ StateSpace close_loop(const StateSpace& plant, const TransferFunction& feedback,
     return c;
   };
   const auto ny = padded(fb.numerator), nr = padded(rf.numerator);
-  StateSpace ctrl;  // inputs handled below: column 0 = r, column 1 = y (with its minus sign)
-  ctrl.A = Eigen::MatrixXd::Zero(m, m);
-  Eigen::VectorXd br(m), by(m);
+  TwoInputController k;
+  k.A = Eigen::MatrixXd::Zero(m, m);
+  k.b_r.resize(m);
+  k.b_y.resize(m);
+  k.c = Eigen::RowVectorXd::Zero(m);
+  if (m > 0) k.c(0) = 1.0;
   for (int i = 0; i < m; ++i) {
-    ctrl.A(i, 0) = -den[static_cast<std::size_t>(i) + 1];
-    if (i + 1 < m) ctrl.A(i, i + 1) = 1.0;
-    br(i) = nr[static_cast<std::size_t>(i) + 1] - nr[0] * den[static_cast<std::size_t>(i) + 1];
-    by(i) = ny[static_cast<std::size_t>(i) + 1] - ny[0] * den[static_cast<std::size_t>(i) + 1];
+    const auto a = den[static_cast<std::size_t>(i) + 1];
+    k.A(i, 0) = -a;
+    if (i + 1 < m) k.A(i, i + 1) = 1.0;
+    k.b_r(i) = nr[static_cast<std::size_t>(i) + 1] - nr[0] * a;
+    k.b_y(i) = ny[static_cast<std::size_t>(i) + 1] - ny[0] * a;
   }
-  const double dr = nr[0], dy = ny[0];
-  const int np = plant.states(), n = np + m;
-  const double dp = plant.D(0);
-  const double denom = 1.0 + dy * dp;
-  if (std::abs(denom) < 1e-12) throw std::domain_error("closed loop is ill-posed: 1 + Dc·Dp = 0");
-  // u = (x_c1 + dr r − dy Cp xp)/denom ; y = Cp xp + Dp u.
-  const Eigen::RowVectorXd cp = plant.C.row(0);
-  Eigen::RowVectorXd u_x = Eigen::RowVectorXd::Zero(n);
-  u_x.head(np) = -dy * cp / denom;
-  if (m > 0) u_x(np) = 1.0 / denom;
-  const double u_r = dr / denom;
-  Eigen::RowVectorXd y_x = Eigen::RowVectorXd::Zero(n);
-  y_x.head(np) = cp;
-  y_x += dp * u_x;
-  const double y_r = dp * u_r;
-  StateSpace cl;
-  cl.A = Eigen::MatrixXd::Zero(n, n);
-  cl.B = Eigen::VectorXd::Zero(n);
-  cl.A.topRows(np) = plant.B * u_x;
-  cl.A.topLeftCorner(np, np) += plant.A;
-  cl.B.head(np) = plant.B * u_r;
-  if (m > 0) {
-    cl.A.bottomRows(m) = -by * y_x;
-    cl.A.bottomRightCorner(m, m) += ctrl.A;
-    cl.B.tail(m) = br - by * y_r;
-  }
-  cl.C.resize(2, n);
-  cl.C.row(0) = y_x;
-  cl.C.row(1) = u_x;
-  cl.D.resize(2);
-  cl.D << y_r, u_r;
-  return cl;
+  k.d_r = nr[0];
+  k.d_y = ny[0];
+  return assemble_loop(plant, k);
 }
 
 ClosedLoopTF close_loop(const TransferFunction& plant, const TransferFunction& controller) {

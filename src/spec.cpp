@@ -636,6 +636,29 @@ class SpecReader {
 
   // --- other sections ----------------------------------------------------------------------
 
+  /// A string naming one of `names`, parsed by `parse` (which returns a std::optional); an
+  /// unknown name is an error listing the valid ones, with a did-you-mean when one is close.
+  template <typename Parse>
+  auto read_choice(const toml::table& table, std::string_view section_name, std::string_view key,
+                   std::string_view what, const std::vector<std::string>& names, Parse parse) const
+      -> decltype(parse(std::string_view{})) {
+    const auto entry = find_entry(table, key);
+    if (!entry) return std::nullopt;
+    const std::string dotted_key = dotted(section_name, key);
+    const std::string valid = fmt::format("{}", fmt::join(names, ", "));
+    const auto* text = entry->value->as_string();
+    if (text == nullptr) fail_expected(entry->at, dotted_key, fmt::format("one of {}", valid), describe(*entry->value));
+    auto value = parse(text->get());
+    if (!value) {
+      std::vector<std::string_view> views(names.begin(), names.end());
+      const auto suggestion = closest_name(text->get(), views);
+      fail(entry->at, dotted_key,
+           fmt::format("unknown {} {}{}; valid {}s: {}", what, in_quotes(text->get()),
+                       suggestion ? fmt::format(" (did you mean '{}'?)", *suggestion) : "", what, valid));
+    }
+    return value;
+  }
+
   void read_actuator(ActuatorSpec& actuator) const {
     const toml::table* table = section("actuator");
     if (table == nullptr) return;
@@ -661,44 +684,17 @@ class SpecReader {
   void read_controller(ControllerSpec& controller) const {
     const toml::table* table = section("controller");
     if (table == nullptr) return;
-    if (const auto entry = find_entry(*table, "structure")) {
-      const std::string valid = fmt::format("{}", fmt::join(structure_names(), ", "));
-      const auto* text = entry->value->as_string();
-      if (text == nullptr) {
-        fail_expected(entry->at, "controller.structure", fmt::format("one of {}", valid),
-                      describe(*entry->value));
-      }
-      const auto structure = parse_structure(text->get());
-      if (!structure) {
-        std::vector<std::string_view> names(structure_names().begin(), structure_names().end());
-        const auto suggestion = closest_name(text->get(), names);
-        fail(entry->at, "controller.structure",
-             fmt::format("unknown structure {}{}; valid structures: {}", in_quotes(text->get()),
-                         suggestion ? fmt::format(" (did you mean '{}'?)", *suggestion) : "",
-                         valid));
-      }
+    if (const auto structure = read_choice(*table, "controller", "structure", "structure", structure_names(),
+                                           parse_structure))
       controller.structure = *structure;
-    }
     if (const auto filter = ranged_number(
             table, "controller", "derivative_filter", [](double v) { return v > 0.0; },
             "a number > 0")) {
       controller.derivative_filter = *filter;
     }
-    if (const auto entry = find_entry(*table, "anti_windup")) {
-      const std::string valid = fmt::format("{}", fmt::join(anti_windup_names(), ", "));
-      const auto* text = entry->value->as_string();
-      if (text == nullptr)
-        fail_expected(entry->at, "controller.anti_windup", fmt::format("one of {}", valid), describe(*entry->value));
-      const auto scheme = parse_anti_windup(text->get());
-      if (!scheme) {
-        std::vector<std::string_view> names(anti_windup_names().begin(), anti_windup_names().end());
-        const auto suggestion = closest_name(text->get(), names);
-        fail(entry->at, "controller.anti_windup",
-             fmt::format("unknown scheme {}{}; valid schemes: {}", in_quotes(text->get()),
-                         suggestion ? fmt::format(" (did you mean '{}'?)", *suggestion) : "", valid));
-      }
+    if (const auto scheme = read_choice(*table, "controller", "anti_windup", "scheme", anti_windup_names(),
+                                        parse_anti_windup))
       controller.anti_windup = *scheme;
-    }
     controller.tracking_time_s = ranged_number(table, "controller", "tracking_time", [](double v) { return v > 0.0; },
                                                "a time in s > 0");
     if (const auto ts = ranged_number(table, "controller", "sample_time", [](double v) { return v > 0.0; },
@@ -707,13 +703,14 @@ class SpecReader {
     if (const auto b = ranged_number(table, "controller", "setpoint_weight", [](double v) { return v >= 0.0 && v <= 1.0; },
                                      "a weight in [0, 1]"))
       controller.setpoint_weight = *b;
-    if (const auto entry = find_entry(*table, "derivative_on")) {
-      const auto* text = entry->value->as_string();
-      if (text == nullptr || (text->get() != "error" && text->get() != "measurement"))
-        fail_expected(entry->at, "controller.derivative_on", "\"error\" or \"measurement\"",
-                      text ? in_quotes(text->get()) : describe(*entry->value));
-      controller.derivative_on_measurement = text->get() == "measurement";
-    }
+    static const std::vector<std::string> kDerivativeOn{"error", "measurement"};
+    if (const auto on = read_choice(*table, "controller", "derivative_on", "place", kDerivativeOn,
+                                    [](std::string_view v) -> std::optional<bool> {
+                                      if (v == "error") return false;
+                                      if (v == "measurement") return true;
+                                      return std::nullopt;
+                                    }))
+      controller.derivative_on_measurement = *on;
     // Weights act on the parallel form; lag and lead-lag have none.
     const bool weighted = controller.setpoint_weight != 1.0 || controller.derivative_on_measurement;
     if (weighted && (controller.structure == Structure::lag || controller.structure == Structure::lead_lag)) {
@@ -778,21 +775,9 @@ class SpecReader {
     const toml::table* table = section("search");
     if (table == nullptr) return;
     constexpr std::string_view kSection = "search";
-    if (const auto entry = find_entry(*table, "objective")) {
-      const std::string valid = fmt::format("{}", fmt::join(objective_names(), ", "));
-      const auto* text = entry->value->as_string();
-      if (text == nullptr)
-        fail_expected(entry->at, "search.objective", fmt::format("one of {}", valid), describe(*entry->value));
-      const auto objective = parse_objective(text->get());
-      if (!objective) {
-        std::vector<std::string_view> names(objective_names().begin(), objective_names().end());
-        const auto suggestion = closest_name(text->get(), names);
-        fail(entry->at, "search.objective",
-             fmt::format("unknown objective {}{}; valid objectives: {}", in_quotes(text->get()),
-                         suggestion ? fmt::format(" (did you mean '{}'?)", *suggestion) : "", valid));
-      }
+    if (const auto objective = read_choice(*table, "search", "objective", "objective", objective_names(),
+                                           parse_objective))
       search.objective = *objective;
-    }
     const auto whole = [](double v) { return v == std::floor(v); };
     if (const auto seed = ranged_number(
             table, kSection, "seed", [&](double v) { return v >= 0.0 && v <= 4294967295.0 && whole(v); },
