@@ -76,9 +76,7 @@ std::optional<double> requirement_value(const Requirement& r, const StepMetrics&
   throw std::logic_error("requirement_value: unknown requirement " + k);
 }
 
-namespace {
-// Normalized violation, > 0 when missed; a missing value counts as a 100 % miss.
-double violation_of(const Requirement& r, const std::optional<double>& value) {
+double requirement_violation(const Requirement& r, const std::optional<double>& value) {
   if (!value) return 1.0;
   // A zero limit (steady-state error 0) is scaled by 1 % so that a miss is measurable.
   const double scale = r.limit != 0.0 ? std::abs(r.limit) : 0.01;
@@ -88,7 +86,6 @@ double violation_of(const Requirement& r, const std::optional<double>& value) {
   // Exact zero steady-state error is computed to ~1e-12; count that as met.
   return miss > 1e-9 ? miss : 0.0;
 }
-}  // namespace
 
 // ---- problem ------------------------------------------------------------------------------------
 
@@ -157,30 +154,43 @@ namespace {
 constexpr double kConfirmationTolerance = 2e-3;  // normalized violation (0.2 % of the limit)
 constexpr int kConfirmationSamples = 20000;     // samples over the horizon
 
-// The nonlinear loop of the spec for a design whose linear loop is stable.
-NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d, double linear_horizon_s) {
+}  // namespace
+
+NonlinearSetup nonlinear_setup(const Problem& problem, double linear_horizon_s, int samples) {
   const Spec& spec = problem.spec;
-  NonlinearConfirmation nc;
-  ActuatorModel actuator;
+  NonlinearSetup setup;
   if (spec.actuator.limited) {
-    actuator.min = spec.actuator.min;
-    actuator.max = spec.actuator.max;
+    setup.actuator.min = spec.actuator.min;
+    setup.actuator.max = spec.actuator.max;
   }
-  actuator.rate_max = spec.actuator.rate_max;
-  LoopOptions options;
+  setup.actuator.rate_max = spec.actuator.rate_max;
+  LoopOptions& options = setup.options;
   options.anti_windup = spec.controller.anti_windup;
   options.setpoint_weight = spec.controller.setpoint_weight;
   options.derivative_weight = spec.controller.derivative_on_measurement ? 0.0 : 1.0;
   options.tracking_time_s = spec.controller.tracking_time_s;
   options.disturbance_time_s = spec.disturbance.time_s;
   options.disturbance_size = spec.disturbance.size;
-  // The linear horizon, stretched so that a disturbance has as long to settle as the step had.
+  // The linear horizon, stretched so that a disturbance has as long to settle as the step had,
+  // and by the delay.
   options.horizon_s = linear_horizon_s;
   if (spec.disturbance.size != 0.0) options.horizon_s = spec.disturbance.time_s + linear_horizon_s;
   options.delay_s = spec.plant.delay_s;
   options.sample_time_s = spec.controller.sample_time_s;
   options.horizon_s += spec.plant.delay_s;
-  options.output_step_s = options.horizon_s / kConfirmationSamples;
+  options.output_step_s = options.horizon_s / samples;
+  return setup;
+}
+
+namespace {
+
+// The nonlinear loop of the spec for a design whose linear loop is stable.
+NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d, double linear_horizon_s) {
+  const Spec& spec = problem.spec;
+  NonlinearConfirmation nc;
+  const NonlinearSetup setup = nonlinear_setup(problem, linear_horizon_s, kConfirmationSamples);
+  const ActuatorModel& actuator = setup.actuator;
+  const LoopOptions& options = setup.options;
   NonlinearResult r;
   try {
     r = simulate_nonlinear(problem.delay_free_realization, d.controller, actuator, options, spec.reference.amplitude,
@@ -208,7 +218,7 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
     c.requirement = req;
     c.value = requirement_value(req, nc.simulated, d.margins, problem.reference_peak_time_s,
                                 problem.band_fraction * 100.0);
-    c.violation = violation_of(req, c.value);
+    c.violation = requirement_violation(req, c.value);
     c.met = c.violation == 0.0;
     nc.meets_all = nc.meets_all && c.met;
     // Nonlinear metrics are read off samples (nonlinear.hpp), not refined between them: a miss
@@ -270,7 +280,7 @@ Design measure_design(const Problem& problem, std::string name, const Controller
     c.requirement = r;
     if (d.status == StepStatus::ok) c.value = requirement_value(r, d.simulated, d.margins, problem.reference_peak_time_s,
                                                              problem.band_fraction * 100.0);
-    c.violation = d.status == StepStatus::ok ? violation_of(r, c.value) : 1.0;
+    c.violation = d.status == StepStatus::ok ? requirement_violation(r, c.value) : 1.0;
     c.met = d.status == StepStatus::ok && c.violation == 0.0;
     d.meets_all = d.meets_all && c.met;
     d.checks.push_back(c);

@@ -258,6 +258,8 @@ json search_json(const SearchSummary& s) {
           {"evaluations", s.evaluations},
           {"global_evaluations", s.global_evaluations},
           {"local_evaluations", s.local_evaluations},
+          {"nonlinear_evaluations", s.nonlinear_evaluations},
+          {"nonlinear_stage", s.nonlinear_stage},
           {"unstable_candidates", s.unstable},
           {"infeasible_candidates", s.infeasible},
           {"wall_time_s", number_json(s.wall_time_s)},
@@ -285,6 +287,8 @@ json result_json(const DesignRun& run) {
               {"reference_peak_time", optional_number(run.problem.reference_peak_time_s)},
               {"designs", designs},
               {"search", search_json(run.search)},
+              {"met", run.met},
+              {"judged_on", run.judged_on_nonlinear ? "nonlinear" : "linear"},
               {"safety", "A simulated design is not a verified machine: validate on the real system with interlocks, "
                          "and defer to local codes, applicable functional-safety standards and licensed engineering "
                          "practice."}};

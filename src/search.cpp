@@ -25,6 +25,9 @@ namespace {
 
 constexpr double kInfeasibleCost = 1e4;
 constexpr double kUnstableCost = 1e9;
+constexpr int kRefinementSamples = 4000;       // output samples per nonlinear evaluation in the refinement
+constexpr int kRefinementMaxSteps = 20000;     // integrator steps per nonlinear evaluation, at most
+constexpr double kRefinementMaxSeconds = 0.25; // wall time per nonlinear evaluation, at most
 
 class CostFunction {
  public:
@@ -60,34 +63,78 @@ class CostFunction {
     out.stable = true;
     std::optional<Margins> margins;
     if (problem_.needs_margins || options_.objective_requirement) margins = loop_margins(c * problem_.plant);
-    for (const Requirement& r : problem_.requirements) {
-      const auto value = requirement_value(r, metrics_, margins, problem_.reference_peak_time_s,
-                                           problem_.band_fraction * 100.0);
-      double miss = 1.0;
-      if (value) {
-        const double scale = r.limit != 0.0 ? std::abs(r.limit) : 0.01;
-        miss = std::isinf(*value) ? ((*value > 0) == r.upper ? 1e3 : 0.0)
-                                  : (r.upper ? (*value - r.limit) : (r.limit - *value)) / scale;
-      }
-      if (miss > 1e-9) out.violation += miss;
-    }
+    out.violation = total_violation(metrics_, margins);
+    out.objective = objective_of(metrics_, margins, c, sim_.grid().horizon_s());
+    return out;
+  }
+
+  // Σ normalized violations of the problem's requirements (a missing value counts as 1).
+  double total_violation(const StepMetrics& m, const std::optional<Margins>& margins) const {
+    double total = 0.0;
+    for (const Requirement& r : problem_.requirements)
+      total += requirement_violation(
+          r, requirement_value(r, m, margins, problem_.reference_peak_time_s, problem_.band_fraction * 100.0));
+    return total;
+  }
+
+  // What is minimized among feasible candidates.
+  double objective_of(const StepMetrics& m, const std::optional<Margins>& margins, const TransferFunction& c,
+                      double horizon_s) const {
     if (options_.objective_requirement) {
-      const auto v = requirement_value(*options_.objective_requirement, metrics_, margins, problem_.reference_peak_time_s,
+      const auto v = requirement_value(*options_.objective_requirement, m, margins, problem_.reference_peak_time_s,
                                        problem_.band_fraction * 100.0);
       const double big = 1e3 * std::max(1.0, std::abs(options_.objective_requirement->limit));
-      out.objective = !v ? big : options_.objective_requirement->upper ? *v : 1.0 / std::max(*v, 1e-12);
-      return out;
+      return !v ? big : options_.objective_requirement->upper ? *v : 1.0 / std::max(*v, 1e-12);
     }
     switch (options_.objective) {
-      case Objective::itae: out.objective = metrics_.itae; break;
-      case Objective::iae: out.objective = metrics_.iae; break;
-      case Objective::ise: out.objective = metrics_.ise; break;
-      case Objective::effort: out.objective = metrics_.effort_peak; break;
-      case Objective::settling_time: out.objective = metrics_.settling_time_s.value_or(1e3 * sim_.grid().horizon_s()); break;
+      case Objective::itae: return m.itae;
+      case Objective::iae: return m.iae;
+      case Objective::ise: return m.ise;
+      case Objective::effort: return m.effort_peak;
+      case Objective::settling_time: return m.settling_time_s.value_or(1e3 * horizon_s);
       case Objective::sensitivity_peak:
-        out.objective = margins ? margins->sensitivity_peak : loop_margins(c * problem_.plant).sensitivity_peak;
-        break;
+        return margins ? margins->sensitivity_peak : loop_margins(c * problem_.plant).sensitivity_peak;
     }
+    return 0.0;
+  }
+
+  // The same outcome measured on the spec's nonlinear loop (the refinement stage).
+  Outcome evaluate_nonlinear(const double* params) {
+    Outcome out;
+    Controller c;
+    try {
+      c = make_controller(structure_, std::vector<double>(params, params + problem_.parameters.size()), n_);
+    } catch (const std::invalid_argument&) {
+      out.objective = kUnstableCost;
+      return out;
+    }
+    const ControllerSpec& cs = problem_.spec.controller;
+    const StateSpace loop = close_loop(problem_.plant_realization, c.transfer,
+                                       reference_path(c, cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0));
+    if (sim_.simulate(loop, problem_.spec.reference.amplitude, problem_.band_fraction, metrics_) != StepStatus::ok) {
+      out.objective = kUnstableCost;
+      return out;
+    }
+    NonlinearSetup setup = nonlinear_setup(problem_, sim_.grid().horizon_s(), kRefinementSamples);
+    setup.options.max_steps = kRefinementMaxSteps;  // a candidate that needs more counts as failed
+    setup.options.max_wall_time_s = kRefinementMaxSeconds;
+    NonlinearResult r;
+    try {
+      r = simulate_nonlinear(problem_.delay_free_realization, c, setup.actuator, setup.options,
+                             problem_.spec.reference.amplitude, problem_.band_fraction);
+    } catch (const std::invalid_argument&) {
+      out.objective = kUnstableCost;
+      return out;
+    }
+    if (r.status != NonlinearStatus::ok) {
+      out.objective = kUnstableCost;
+      return out;
+    }
+    out.stable = true;
+    std::optional<Margins> margins;
+    if (problem_.needs_margins) margins = loop_margins(c.transfer * problem_.plant);
+    out.violation = total_violation(r.metrics, margins);
+    out.objective = objective_of(r.metrics, margins, c.transfer, r.time_s.empty() ? 1.0 : r.time_s.back());
     return out;
   }
 
@@ -259,8 +306,56 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
                                                        : fmt::format("infeasible (Σ normalized violation {:.3g})",
                                                                      summary.best_violation));
 
+  std::vector<double> best_x = cost.best_x.empty() ? x : cost.best_x;
+  if (options.nonlinear_refinement) {
+    // Refinement on the nonlinear loop: the same ranking, measured there, from the linear optimum.
+    struct Refine {
+      CostFunction* cost;
+      std::vector<double> params, best_x;
+      double best = std::numeric_limits<double>::infinity();
+      int evaluations = 0;
+    } refine{&cost, std::vector<double>(dim), {}, std::numeric_limits<double>::infinity(), 0};
+    auto objective = [](const std::vector<double>& lx, std::vector<double>&, void* data) {
+      auto* rf = static_cast<Refine*>(data);
+      for (std::size_t i = 0; i < lx.size(); ++i) rf->params[i] = std::exp(lx[i]);
+      const double c = rf->cost->cost(rf->cost->evaluate_nonlinear(rf->params.data()));
+      ++rf->evaluations;
+      if (c < rf->best) {
+        rf->best = c;
+        rf->best_x = lx;
+      }
+      return c;
+    };
+    nlopt::opt stage(algorithm_named(options.local_algorithm), static_cast<unsigned>(dim));
+    stage.set_lower_bounds(lower);
+    stage.set_upper_bounds(upper);
+    stage.set_min_objective(objective, &refine);
+    stage.set_maxeval(options.nonlinear_evaluations);
+    const double spent = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+    stage.set_maxtime(std::max(0.5, options.max_time_s - spent));
+    stage.set_ftol_rel(options.local_relative_tolerance);
+    std::vector<double> nx = best_x;
+    try {
+      stage.optimize(nx, value);
+    } catch (const std::exception&) {
+      // the best point so far stays in `refine`
+    }
+    summary.nonlinear_evaluations = refine.evaluations;
+    if (!refine.best_x.empty() && refine.best_x != best_x) {
+      best_x = refine.best_x;
+      summary.nonlinear_stage = fmt::format(
+          "nonlinear refinement: {} evaluations on the nonlinear loop moved the design (nonlinear rank {:.6g})",
+          refine.evaluations, refine.best);
+    } else {
+      summary.nonlinear_stage = fmt::format(
+          "nonlinear refinement: {} evaluations on the nonlinear loop found nothing better than the linear optimum",
+          refine.evaluations);
+    }
+    summary.evaluations += refine.evaluations;
+    summary.wall_time_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  }
   std::vector<double> best(dim);
-  for (std::size_t i = 0; i < dim; ++i) best[i] = std::exp(cost.best_x.empty() ? x[i] : cost.best_x[i]);
+  for (std::size_t i = 0; i < dim; ++i) best[i] = std::exp(best_x[i]);
   SearchResult result{make_controller(problem.spec.controller.structure, best, problem.spec.controller.derivative_filter),
                       summary};
   return result;

@@ -117,7 +117,7 @@ const std::vector<SectionSchema>& section_schemas() {
         "rise_time_max", "settling_band_pct", "steady_state_error_max", "effort_max",
         "undershoot_max_pct", "phase_margin_min_deg", "gain_margin_min_db", "sensitivity_peak_max"}},
       {"reference", {"amplitude"}},
-      {"search", {"objective", "seed", "max_evaluations", "max_time", "bounds"}},
+      {"search", {"objective", "seed", "max_evaluations", "max_time", "simulate", "bounds"}},
       {"disturbance", {"time", "size"}},
   };
   return schemas;
@@ -778,6 +778,14 @@ class SpecReader {
     if (const auto objective = read_choice(*table, "search", "objective", "objective", objective_names(),
                                            parse_objective))
       search.objective = *objective;
+    static const std::vector<std::string> kSimulate{"linear", "nonlinear"};
+    if (const auto mode = read_choice(*table, "search", "simulate", "mode", kSimulate,
+                                      [](std::string_view v) -> std::optional<bool> {
+                                        if (v == "linear") return false;
+                                        if (v == "nonlinear") return true;
+                                        return std::nullopt;
+                                      }))
+      search.simulate_nonlinear = *mode;
     const auto whole = [](double v) { return v == std::floor(v); };
     if (const auto seed = ranged_number(
             table, kSection, "seed", [&](double v) { return v >= 0.0 && v <= 4294967295.0 && whole(v); },

@@ -217,3 +217,26 @@ TEST_CASE("set-point weights: the linear and nonlinear loops agree, and the deri
   CHECK_THROWS_AS(parse_spec("[plant]\npoles = [-1.0]\n[controller]\nstructure = \"lag\"\nsetpoint_weight = 0.5\n",
                              "specs/unit.toml"), SpecError);
 }
+
+TEST_CASE("search.simulate = nonlinear refines a design that fails only on the nonlinear loop", "[search]") {
+  // An invented winch drive whose ±0.9 actuator saturates and whose PI has no anti-windup: the
+  // linear optimum winds up on the real loop; the refinement on the nonlinear loop repairs it.
+  const std::string base =
+      "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[actuator]\nmin = -0.9\nmax = 0.9\n"
+      "[controller]\nstructure = \"pi\"\nanti_windup = \"none\"\n"
+      "[requirements]\novershoot_max_pct = 5.0\nsettling_time_max = 6.0\nsteady_state_error_max = 0.0\n";
+  const DesignRun linear = run_design(parse_spec(base, "specs/unit.toml"));
+  REQUIRE(linear.met);
+  REQUIRE_FALSE(linear.judged_on_nonlinear);
+  const Design* l = linear.find("optimized");
+  REQUIRE(l->nonlinear);
+  CHECK_FALSE(l->nonlinear->confirmed);  // the linear optimum winds up
+
+  const DesignRun refined = run_design(parse_spec(base + "[search]\nsimulate = \"nonlinear\"\n", "specs/unit.toml"));
+  CHECK(refined.judged_on_nonlinear);
+  CHECK(refined.search.nonlinear_evaluations > 0);
+  const Design* r = refined.find("optimized");
+  REQUIRE(r->nonlinear);
+  CHECK(r->nonlinear->meets_all);
+  CHECK(refined.met);
+}

@@ -81,6 +81,14 @@ struct Design {
   std::vector<std::string> notes;   // how it was made, what was left out
 };
 
+/// The spec's nonlinear loop: actuator, anti-windup, weights, disturbance, delay, sampling; the
+/// horizon from the linear loop's (stretched by a disturbance and the delay), `samples` outputs.
+struct NonlinearSetup {
+  ActuatorModel actuator;
+  LoopOptions options;
+};
+NonlinearSetup nonlinear_setup(const Problem& problem, double linear_horizon_s, int samples);
+
 /// Measures a controller on the problem's linear loop and checks every requirement, then
 /// confirms it on the nonlinear loop (the spec's actuator limits, rate limit, anti-windup and
 /// disturbance) and checks every requirement again there.
@@ -92,6 +100,11 @@ Design measure_design(const Problem& problem, std::string name, const Controller
 std::optional<double> requirement_value(const Requirement& r, const StepMetrics& m,
                                         const std::optional<Margins>& margins,
                                         const std::optional<double>& reference_peak_time_s, double band_pct);
+
+/// Normalized violation of a requirement by a value: (value − limit)/|limit| for an upper bound
+/// (the reverse for a lower one; a zero limit is scaled by 0.01), 0 when met; a missing value
+/// counts as a 100 % miss, an infinite miss as 1000.
+double requirement_violation(const Requirement& r, const std::optional<double>& value);
 
 // ---- classical design -------------------------------------------------------------------------
 
@@ -142,6 +155,10 @@ struct SearchOptions {
   double max_time_s = 20.0;           // wall-time cap for the whole search, s
   double global_share = 0.6;          // fraction of the evaluation budget for the global stage
   double local_relative_tolerance = 1e-6;  // local stage stops when |Δcost|/cost falls below this
+  /// When true, a final local stage minimizes the same ranking measured on the nonlinear loop
+  /// (for loops that must saturate), from the linear optimum, with `nonlinear_evaluations`.
+  bool nonlinear_refinement = false;
+  int nonlinear_evaluations = 300;
   std::string global_algorithm = "GN_DIRECT_L";  // NLopt algorithm names (nlopt_algorithm_from_string)
   std::string local_algorithm = "LN_SBPLX";
 };
@@ -153,6 +170,8 @@ struct SearchSummary {
   int evaluations = 0;
   int global_evaluations = 0;
   int local_evaluations = 0;
+  int nonlinear_evaluations = 0;      // of the nonlinear refinement stage (0: none)
+  std::string nonlinear_stage;        // what it did, in words
   int unstable = 0;                   // candidates rejected by the stability barrier
   int infeasible = 0;                 // stable candidates missing at least one requirement
   double wall_time_s = 0.0;
@@ -194,6 +213,8 @@ struct DesignRun {
   std::vector<Design> designs;              // reference, classical, ultimate_gain, optimized (those that exist)
   SearchSummary search;
   std::optional<Infeasibility> infeasibility;
+  bool met = false;                         // the optimized design meets every requirement …
+  bool judged_on_nonlinear = false;         // … on the nonlinear loop (search.simulate = "nonlinear") or the linear one
   const Design* find(std::string_view name) const;
 };
 

@@ -107,6 +107,7 @@ struct SearchSpec {
   unsigned seed = 1;                          // NLopt's random seed
   int max_evaluations = 6000;                 // cost evaluations, global + local
   double max_time_s = 20.0;                   // wall-time cap, s
+  bool simulate_nonlinear = false;            // search.simulate = "nonlinear": a final refinement on the nonlinear loop
   /// [search.bounds]: parameter name → [lo, hi], natural units, 0 < lo < hi.
   std::vector<std::pair<std::string, std::pair<double, double>>> bounds;
 };

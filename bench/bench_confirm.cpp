@@ -1,0 +1,157 @@
+// Benchmark (not a test): the nonlinear confirmation of one demo design. Runs the design pipeline
+// once on a spec, takes the optimized design (the classical one when there is none), rebuilds
+// the ActuatorModel and LoopOptions exactly as the pipeline's confirmation step does (design.cpp,
+// confirm_nonlinear: the linear loop's horizon, 20000 output samples, the spec's limits, rate limit,
+// anti-windup, weights, disturbance, delay) and times simulate_nonlinear alone, many repetitions.
+// Prints median/p10/p90 in ms, the accepted steps and located switches. With --dump FILE, writes
+// the loop description and the sampled output as JSON (read by bench/scipy_confirm.py).
+//
+// Usage: specloop_bench_confirm [spec.toml] [--repeats N] [--dump FILE]
+#include <algorithm>
+#include <chrono>
+#include <cstring>
+#include <fmt/format.h>
+#include <fstream>
+#include <nlohmann/json.hpp>
+#include <string>
+#include <vector>
+
+#include "specloop/design.hpp"
+#include "specloop/lti.hpp"
+#include "specloop/response.hpp"
+
+using namespace specloop;
+
+namespace {
+
+constexpr int kSamples = 20000;  // as design.cpp's kConfirmationSamples
+
+double percentile(const std::vector<double>& sorted, double q) {
+  const double pos = q * static_cast<double>(sorted.size() - 1);
+  const auto i = static_cast<std::size_t>(pos);
+  const double f = pos - static_cast<double>(i);
+  return i + 1 < sorted.size() ? sorted[i] * (1.0 - f) + sorted[i + 1] * f : sorted[i];
+}
+
+const char* anti_windup_text(AntiWindup a) {
+  switch (a) {
+    case AntiWindup::none: return "none";
+    case AntiWindup::clamping: return "clamping";
+    case AntiWindup::back_calculation: return "back-calculation";
+  }
+  return "?";
+}
+
+nlohmann::json finite_or_null(double v) { return std::isfinite(v) ? nlohmann::json(v) : nlohmann::json(nullptr); }
+
+}  // namespace
+
+int main(int argc, char** argv) {
+  std::string spec_path = "specs/conveyor_speed.toml", dump;
+  int repeats = 200;
+  for (int i = 1; i < argc; ++i) {
+    if (std::strcmp(argv[i], "--dump") == 0 && i + 1 < argc) dump = argv[++i];
+    else if (std::strcmp(argv[i], "--repeats") == 0 && i + 1 < argc) repeats = std::max(1, std::stoi(argv[++i]));
+    else spec_path = argv[i];
+  }
+  const Spec spec = load_spec(spec_path);
+  const DesignRun run = run_design(spec);
+  const Design* d = run.find("optimized");
+  if (!d) d = run.find("classical");
+  if (!d) {
+    fmt::print("confirm {} : no optimized or classical design\n", spec.name);
+    return 1;
+  }
+  const Problem& problem = run.problem;
+
+  // The linear horizon, as measure_design obtains it.
+  const ControllerSpec& cs = spec.controller;
+  const TransferFunction ref = reference_path(d->controller, cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0);
+  const StateSpace loop = close_loop(problem.plant_realization, d->controller.transfer, ref);
+  StepSimulator sim;
+  StepMetrics linear_metrics;
+  sim.simulate(loop, spec.reference.amplitude, problem.band_fraction, linear_metrics);
+  const double linear_horizon_s = sim.grid().horizon_s();
+
+  // ActuatorModel and LoopOptions, as confirm_nonlinear builds them.
+  ActuatorModel actuator;
+  if (spec.actuator.limited) {
+    actuator.min = spec.actuator.min;
+    actuator.max = spec.actuator.max;
+  }
+  actuator.rate_max = spec.actuator.rate_max;
+  LoopOptions options;
+  options.anti_windup = cs.anti_windup;
+  options.setpoint_weight = cs.setpoint_weight;
+  options.derivative_weight = cs.derivative_on_measurement ? 0.0 : 1.0;
+  options.tracking_time_s = cs.tracking_time_s;
+  options.disturbance_time_s = spec.disturbance.time_s;
+  options.disturbance_size = spec.disturbance.size;
+  options.horizon_s = linear_horizon_s;
+  if (spec.disturbance.size != 0.0) options.horizon_s = spec.disturbance.time_s + linear_horizon_s;
+  options.delay_s = spec.plant.delay_s;
+  options.sample_time_s = cs.sample_time_s;
+  options.horizon_s += spec.plant.delay_s;
+  options.output_step_s = options.horizon_s / kSamples;
+
+  const double amplitude = spec.reference.amplitude;
+  NonlinearResult r = simulate_nonlinear(problem.delay_free_realization, d->controller, actuator, options, amplitude,
+                                         problem.band_fraction);  // warm-up, and the result reported
+  std::vector<double> ms;
+  ms.reserve(static_cast<std::size_t>(repeats));
+  double sink = 0.0;
+  for (int k = 0; k < repeats; ++k) {
+    const auto t0 = std::chrono::steady_clock::now();
+    const NonlinearResult q = simulate_nonlinear(problem.delay_free_realization, d->controller, actuator, options,
+                                                 amplitude, problem.band_fraction);
+    ms.push_back(std::chrono::duration<double, std::milli>(std::chrono::steady_clock::now() - t0).count());
+    sink += q.output.back();
+  }
+  std::sort(ms.begin(), ms.end());
+  fmt::print(
+      "confirm {} design {} status {} median_ms {:.3f} p10_ms {:.3f} p90_ms {:.3f} repeats {} steps {} switches {} "
+      "samples {} saturated_fraction {:.4f} horizon_s {:.6g}{}\n",
+      spec.name, d->name, status_name(r.status), percentile(ms, 0.5), percentile(ms, 0.1), percentile(ms, 0.9), repeats,
+      r.steps, r.switches, r.output.size(), r.saturated_fraction, options.horizon_s, sink == 0.12345 ? " " : "");
+
+  if (!dump.empty()) {
+    nlohmann::json j;
+    j["spec"] = spec.name;
+    j["design"] = d->name;
+    j["timed_call"] = "simulate_nonlinear as confirm_nonlinear calls it (linear part not timed)";
+    j["plant"] = {{"numerator", problem.plant.numerator.coefficients},
+                  {"denominator", problem.plant.denominator.coefficients},
+                  {"delay_s", spec.plant.delay_s}};
+    j["controller"]["structure_series"] = d->controller.series;
+    if (d->controller.parallel) {
+      const ParallelGains& g = *d->controller.parallel;
+      j["controller"]["parallel"] = {{"kp", g.kp}, {"ki", g.ki}, {"kd", g.kd}, {"tf", g.tf}};
+    }
+    j["controller"]["numerator"] = d->controller.transfer.numerator.coefficients;
+    j["controller"]["denominator"] = d->controller.transfer.denominator.coefficients;
+    j["actuator"] = {{"min", finite_or_null(actuator.min)}, {"max", finite_or_null(actuator.max)},
+                     {"rate_max", actuator.rate_max ? nlohmann::json(*actuator.rate_max) : nlohmann::json(nullptr)}};
+    j["options"] = {{"anti_windup", anti_windup_text(options.anti_windup)},
+                    {"setpoint_weight", options.setpoint_weight},
+                    {"derivative_weight", options.derivative_weight},
+                    {"disturbance_time_s", options.disturbance_time_s},
+                    {"disturbance_size", options.disturbance_size},
+                    {"horizon_s", options.horizon_s},
+                    {"output_step_s", options.output_step_s},
+                    {"sample_time_s", options.sample_time_s},
+                    {"relative_tolerance", options.relative_tolerance},
+                    {"absolute_tolerance", options.absolute_tolerance}};
+    j["samples"] = kSamples;
+    j["amplitude"] = amplitude;
+    j["result"] = {{"status", std::string(status_name(r.status))},
+                   {"median_ms", percentile(ms, 0.5)},
+                   {"steps", r.steps},
+                   {"switches", r.switches},
+                   {"saturated_fraction", r.saturated_fraction},
+                   {"time_s", r.time_s},
+                   {"output", r.output},
+                   {"control", r.control}};
+    std::ofstream(dump) << j.dump() << '\n';
+  }
+  return 0;
+}
