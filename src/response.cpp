@@ -290,6 +290,8 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   if (std::abs(y_inf) <= 1e-12 * std::abs(amplitude)) return StepStatus::zero_final_value;
   m.final_value = y_inf;
   m.steady_state_error = (amplitude - y_inf) / amplitude;
+  // Below 1e-12 the error is the DC-gain solve's rounding (a loop with an integrator): report 0.
+  if (std::abs(m.steady_state_error) < 1e-12) m.steady_state_error = 0.0;
 
   grid_ = choose_time_grid(poles_, rules_);
   prepare(n, grid_.samples);

@@ -63,8 +63,10 @@ def main() -> int:
                 designs = result.get("designs", {})
                 check("optimized" in designs and "reference" in designs, f"{spec.name}: reference and optimized designs")
                 optimized = designs.get("optimized", {})
-                check((run.returncode == 0) == bool(optimized.get("meets_all")),
-                      f"{spec.name}: exit code agrees with the optimized design's meets_all")
+                judged_nonlinear = result.get("judged_on") == "nonlinear"
+                met = (optimized.get("nonlinear") or {}).get("meets_all") if judged_nonlinear else optimized.get("meets_all")
+                check(result.get("met") == bool(met), f"{spec.name}: 'met' agrees with the optimized design's checks")
+                check((run.returncode == 0) == bool(result.get("met")), f"{spec.name}: exit code agrees with 'met'")
                 for name, d in designs.items():
                     nl = d.get("nonlinear")
                     check(nl is not None and nl.get("status") == "ok" and isinstance(nl.get("confirmed"), bool)
