@@ -31,11 +31,11 @@ std::vector<double> middle_of_bounds(const Problem& p) {
   return x;
 }
 
-Infeasibility analyze_misses(const Problem& problem, const Design& best, const SearchResult& first,
-                             const SearchOptions& options) {
+// Every missed check, and the one missed by the most (normalized) as the binding requirement.
+Infeasibility collect_misses(const std::vector<RequirementCheck>& checks) {
   Infeasibility info;
   double worst = -1.0;
-  for (const RequirementCheck& c : best.checks) {
+  for (const RequirementCheck& c : checks) {
     if (c.met) continue;
     info.misses.push_back(c);
     if (c.violation > worst) {
@@ -43,6 +43,12 @@ Infeasibility analyze_misses(const Problem& problem, const Design& best, const S
       info.binding = c.requirement.key;
     }
   }
+  return info;
+}
+
+Infeasibility analyze_misses(const Problem& problem, const Design& best, const SearchResult& first,
+                             const SearchOptions& options) {
+  Infeasibility info = collect_misses(best.checks);
   if (info.binding.empty()) {
     info.binding = "stability";
     info.nearest_text = "no stable design was found within the search bounds";
@@ -140,16 +146,7 @@ DesignRun run_design(const Spec& spec) {
     best.notes.push_back(result.summary.nonlinear_stage);
     run.met = best.nonlinear && best.nonlinear->status == NonlinearStatus::ok && best.nonlinear->meets_all;
     if (!run.met) {
-      Infeasibility info;
-      double worst = -1.0;
-      for (const RequirementCheck& c : best.nonlinear ? best.nonlinear->checks : std::vector<RequirementCheck>{}) {
-        if (c.met) continue;
-        info.misses.push_back(c);
-        if (c.violation > worst) {
-          worst = c.violation;
-          info.binding = c.requirement.key;
-        }
-      }
+      Infeasibility info = collect_misses(best.nonlinear ? best.nonlinear->checks : std::vector<RequirementCheck>{});
       if (info.binding.empty()) info.binding = "the nonlinear simulation";
       info.nearest_text = "judged on the nonlinear loop (search.simulate = \"nonlinear\"); the best reachable value is not "
                           "searched in this mode";
