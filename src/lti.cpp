@@ -1,4 +1,4 @@
-// Transfer functions, the cascade realization and the feedback interconnection.
+// Transfer functions, the cascade realization and the closed-loop interconnection.
 #include "specloop/lti.hpp"
 
 #include <algorithm>
@@ -241,11 +241,11 @@ StateSpace close_loop(const StateSpace& plant, const StateSpace& controller) {
                                controller.D(0)});
 }
 
-StateSpace close_loop(const StateSpace& plant, const TransferFunction& feedback, const TransferFunction& reference) {
+StateSpace close_loop(const StateSpace& plant, const TransferFunction& controller, const TransferFunction& reference) {
   // Observable canonical form of the two-input controller over the monic common denominator
   // d(s) = s^m + a1 s^(m−1) + … + am: A has −a in its first column and ones above the diagonal,
   // B = numerator − n0·a (per path), C = [1 0 … 0], D = n0.
-  const TransferFunction fb = feedback.normalized();
+  const TransferFunction fb = controller.normalized();
   const TransferFunction rf = reference.normalized();
   const auto& den = fb.denominator.coefficients;
   const int m = fb.denominator.degree();

@@ -71,7 +71,7 @@ StateSpace close_loop(const StateSpace& plant, const StateSpace& controller);
 
 /// Two-degree-of-freedom loop u = C_r·r − C·y, y = P·u, with C_r and C over one denominator
 /// (reference_path). Outputs: row 0 = y, row 1 = u. C_r = C is close_loop(plant, realize(C)).
-StateSpace close_loop(const StateSpace& plant, const TransferFunction& feedback, const TransferFunction& reference);
+StateSpace close_loop(const StateSpace& plant, const TransferFunction& controller, const TransferFunction& reference);
 
 /// Closed-loop transfer functions of the same loop, as polynomials.
 struct ClosedLoopTF {

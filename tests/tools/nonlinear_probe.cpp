@@ -18,7 +18,6 @@
 // Exit codes: 0 printed a result (whatever the status), 2 malformed input (message on stderr).
 #include <cmath>
 #include <iostream>
-#include <iterator>
 #include <stdexcept>
 #include <string>
 #include <vector>
@@ -26,6 +25,7 @@
 #include <nlohmann/json.hpp>
 
 #include "specloop/json_io.hpp"
+#include "probe_io.hpp"
 #include "specloop/nonlinear.hpp"
 
 namespace {
@@ -33,9 +33,7 @@ namespace {
 using nlohmann::json;
 using namespace specloop;
 
-struct InputError : std::runtime_error {
-  using std::runtime_error::runtime_error;
-};
+using probe::InputError;
 
 void only_keys(const json& obj, const std::string& where, std::initializer_list<const char*> keys) {
   if (!obj.is_object()) throw InputError(where + ": expected an object");
@@ -61,13 +59,7 @@ std::vector<double> numbers(const json& v, const std::string& where) {
 }
 
 int run() {
-  const std::string text((std::istreambuf_iterator<char>(std::cin)), std::istreambuf_iterator<char>());
-  json in;
-  try {
-    in = json::parse(text);
-  } catch (const json::parse_error& e) {
-    throw InputError(std::string("stdin is not valid JSON: ") + e.what());
-  }
+  const json in = probe::read_stdin_json();
   only_keys(in, "input", {"plant", "controller", "actuator", "options", "amplitude", "band_pct"});
   const json& p = in.at("plant");
   only_keys(p, "plant", {"numerator", "denominator"});
@@ -147,20 +139,4 @@ int run() {
 
 }  // namespace
 
-int main() {
-  try {
-    return run();
-  } catch (const InputError& e) {
-    std::cerr << "nonlinear_probe: " << e.what() << "\n";
-    return 2;
-  } catch (const json::exception& e) {
-    std::cerr << "nonlinear_probe: malformed input: " << e.what() << "\n";
-    return 2;
-  } catch (const std::invalid_argument& e) {
-    std::cerr << "nonlinear_probe: malformed input: " << e.what() << "\n";
-    return 2;
-  } catch (const std::exception& e) {
-    std::cerr << "nonlinear_probe: internal error: " << e.what() << "\n";
-    return 3;
-  }
-}
+int main() { return probe::run_main("nonlinear_probe", run); }

@@ -16,7 +16,6 @@
 // Exit codes: 0 printed a result (whatever the status), 2 malformed input (message on stderr).
 #include <cmath>
 #include <iostream>
-#include <iterator>
 #include <stdexcept>
 #include <string>
 #include <vector>
@@ -24,6 +23,7 @@
 #include <nlohmann/json.hpp>
 
 #include "specloop/json_io.hpp"
+#include "probe_io.hpp"
 #include "specloop/lti.hpp"
 #include "specloop/response.hpp"
 
@@ -32,9 +32,7 @@ namespace {
 using nlohmann::json;
 using namespace specloop;
 
-struct InputError : std::runtime_error {
-  using std::runtime_error::runtime_error;
-};
+using probe::InputError;
 
 std::vector<double> coefficients(const json& owner, const std::string& where, const char* key) {
   const auto it = owner.find(key);
@@ -73,13 +71,7 @@ double optional_number(const json& root, const char* key, double fallback) {
 }
 
 int run() {
-  const std::string text((std::istreambuf_iterator<char>(std::cin)), std::istreambuf_iterator<char>());
-  json input;
-  try {
-    input = json::parse(text);
-  } catch (const json::parse_error& e) {
-    throw InputError(std::string("stdin is not valid JSON: ") + e.what());
-  }
+  const json input = probe::read_stdin_json();
   if (!input.is_object()) throw InputError("expected one JSON object on stdin");
   for (const auto& item : input.items()) {
     const std::string& k = item.key();
@@ -138,20 +130,4 @@ int run() {
 
 }  // namespace
 
-int main() {
-  try {
-    return run();
-  } catch (const InputError& e) {
-    std::cerr << "step_probe: " << e.what() << "\n";
-    return 2;
-  } catch (const json::exception& e) {
-    std::cerr << "step_probe: malformed input: " << e.what() << "\n";
-    return 2;
-  } catch (const std::invalid_argument& e) {
-    std::cerr << "step_probe: malformed input: " << e.what() << "\n";
-    return 2;
-  } catch (const std::exception& e) {
-    std::cerr << "step_probe: internal error: " << e.what() << "\n";
-    return 3;
-  }
-}
+int main() { return probe::run_main("step_probe", run); }
