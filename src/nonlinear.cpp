@@ -112,8 +112,15 @@ struct DelayLine {
   }
 };
 
+// The parallel control law u = Kp·(b·r − y) + I + Kd·D(c·r − y), shared by the continuous loop
+// and the sampled controller.
+struct PidLaw {
+  double kp = 0, ki = 0, kd = 0, tf = 0, b = 1, c = 1, tt = 1;
+  AntiWindup anti_windup = AntiWindup::none;
+};
+
 // The closed loop with its modes' algebra. State layout: [plant | controller | applied u].
-struct LoopModel {
+struct LoopModel : PidLaw {
   // Plant x' = Ap·x + Bp·(u + d), y = Cp·x.
   Eigen::MatrixXd ap;
   Eigen::VectorXd bp;
@@ -121,9 +128,7 @@ struct LoopModel {
   int np = 0;
   // Parallel controller.
   bool parallel = false;
-  double kp = 0, ki = 0, kd = 0, tf = 0, b = 1, c = 1, tt = 1;
   int i_index = -1, d_index = -1;
-  AntiWindup anti_windup = AntiWindup::none;
   // State-space controller on e = r − y.
   Eigen::MatrixXd ac;
   Eigen::VectorXd bc;
@@ -400,11 +405,10 @@ std::pair<std::vector<double>, std::vector<double>> tustin_of(const Polynomial& 
 }
 
 // The controller as difference equations, with its anti-windup at the samples.
-struct SampledController {
+struct SampledController : PidLaw {
   double ts = 0.0;
   bool parallel = false;
-  double kp = 0, ki = 0, kd = 0, tf = 0, b = 1, c = 1, tt = 1, a_d = 0;
-  AntiWindup anti_windup = AntiWindup::none;
+  double a_d = 0;
   double umin = 0, umax = 0;
   // Parallel-form states.
   double integral = 0, deriv = 0, e_prev = 0, v_prev = 0, uc_prev = 0;
@@ -454,14 +458,7 @@ SampledController make_sampled(const Controller& controller, const LoopModel& mo
   const bool tustin_whole = !controller.parallel || st == Structure::lead || st == Structure::lag || st == Structure::lead_lag;
   if (!tustin_whole) {
     sc.parallel = true;
-    sc.kp = model.kp;
-    sc.ki = model.ki;
-    sc.kd = model.kd;
-    sc.tf = model.tf;
-    sc.b = model.b;
-    sc.c = model.c;
-    sc.tt = model.tt;
-    sc.anti_windup = model.anti_windup;
+    static_cast<PidLaw&>(sc) = model;
     sc.a_d = sc.kd != 0.0 ? sc.tf / (sc.tf + ts) : 0.0;
     const std::vector<double> den_i = sc.ki != 0.0 ? std::vector<double>{1.0, -1.0} : std::vector<double>{1.0};
     const std::vector<double> den_d = sc.kd != 0.0 ? std::vector<double>{1.0, -sc.a_d} : std::vector<double>{1.0};
