@@ -6,7 +6,9 @@
 // Prints median/p10/p90 in ms, the accepted steps and located switches. With --dump FILE, writes
 // the loop description and the sampled output as JSON (read by bench/scipy_confirm.py).
 //
-// Usage: specloop_bench_confirm [spec.toml] [--repeats N] [--dump FILE]
+// With --stepper-sweep: the stiffness sweep below instead (dopri5 against Rosenbrock).
+//
+// Usage: specloop_bench_confirm [spec.toml] [--repeats N] [--dump FILE] [--stepper-sweep]
 #include <algorithm>
 #include <chrono>
 #include <cstring>
@@ -33,27 +35,60 @@ double percentile(const std::vector<double>& sorted, double q) {
   return i + 1 < sorted.size() ? sorted[i] * (1.0 - f) + sorted[i + 1] * f : sorted[i];
 }
 
-const char* anti_windup_text(AntiWindup a) {
-  switch (a) {
-    case AntiWindup::none: return "none";
-    case AntiWindup::clamping: return "clamping";
-    case AntiWindup::back_calculation: return "back-calculation";
-  }
-  return "?";
-}
-
 nlohmann::json finite_or_null(double v) { return std::isfinite(v) ? nlohmann::json(v) : nlohmann::json(nullptr); }
 
 }  // namespace
 
+// The stiffness sweep behind kStiffStepThreshold: a saturated PI loop on a lag at 1 rad/s behind
+// a fast lag at p rad/s, 1/((s + 1)(s/p + 1)), integrated with each stepper; prints the explicit
+// step estimate horizon·ρ/3.3 and both medians, so the crossover can be read off one run.
+int stepper_sweep(int repeats) {
+  const Controller pi = make_controller(Structure::pi, {2.0, 1.5}, 10.0);
+  ActuatorModel act;
+  act.min = -1.5;
+  act.max = 1.5;
+  for (double p : {1e2, 1e3, 3e3, 1e4, 3e4, 1e5, 3e5}) {
+    const StateSpace plant = realize(TransferFunction(Polynomial({p}), Polynomial({1.0, 1.0 + p, p})));
+    LoopOptions opt;
+    opt.horizon_s = 8.0;
+    opt.output_step_s = opt.horizon_s / kSamples;
+    opt.anti_windup = AntiWindup::back_calculation;
+    std::string line = fmt::format("stiffness fast_pole {:.0e}", p);
+    double medians[2] = {0.0, 0.0};
+    for (NonlinearStepper st : {NonlinearStepper::dopri5, NonlinearStepper::rosenbrock4}) {
+      opt.stepper = st;
+      NonlinearResult r = simulate_nonlinear(plant, pi, act, opt, 1.0, 0.02);
+      std::vector<double> ms;
+      for (int k = 0; k < repeats; ++k) {
+        const auto t0 = std::chrono::steady_clock::now();
+        r = simulate_nonlinear(plant, pi, act, opt, 1.0, 0.02);
+        ms.push_back(std::chrono::duration<double, std::milli>(std::chrono::steady_clock::now() - t0).count());
+      }
+      std::sort(ms.begin(), ms.end());
+      medians[st == NonlinearStepper::rosenbrock4] = percentile(ms, 0.5);
+      if (st == NonlinearStepper::dopri5) line += fmt::format(" explicit_steps_estimate {:.0f}", r.explicit_steps_estimate);
+      line += fmt::format(" {}_ms {:.3f} {}_steps {} {}_status {}", stepper_name(st), percentile(ms, 0.5), stepper_name(st),
+                          r.steps, stepper_name(st), status_name(r.status));
+    }
+    opt.stepper.reset();
+    const NonlinearResult chosen = simulate_nonlinear(plant, pi, act, opt, 1.0, 0.02);
+    fmt::print("{} faster {} chosen {}\n", line, medians[0] <= medians[1] ? "dopri5" : "rosenbrock4",
+               stepper_name(chosen.stepper));
+  }
+  return 0;
+}
+
 int main(int argc, char** argv) {
   std::string spec_path = "specs/conveyor_speed.toml", dump;
   int repeats = 200;
+  bool sweep = false;
   for (int i = 1; i < argc; ++i) {
-    if (std::strcmp(argv[i], "--dump") == 0 && i + 1 < argc) dump = argv[++i];
+    if (std::strcmp(argv[i], "--stepper-sweep") == 0) sweep = true;
+    else if (std::strcmp(argv[i], "--dump") == 0 && i + 1 < argc) dump = argv[++i];
     else if (std::strcmp(argv[i], "--repeats") == 0 && i + 1 < argc) repeats = std::max(1, std::stoi(argv[++i]));
     else spec_path = argv[i];
   }
+  if (sweep) return stepper_sweep(std::min(repeats, 20));
   const Spec spec = load_spec(spec_path);
   const DesignRun run = run_design(spec);
   const Design* d = run.find("optimized");
@@ -74,25 +109,9 @@ int main(int argc, char** argv) {
   const double linear_horizon_s = sim.grid().horizon_s();
 
   // ActuatorModel and LoopOptions, as confirm_nonlinear builds them.
-  ActuatorModel actuator;
-  if (spec.actuator.limited) {
-    actuator.min = spec.actuator.min;
-    actuator.max = spec.actuator.max;
-  }
-  actuator.rate_max = spec.actuator.rate_max;
-  LoopOptions options;
-  options.anti_windup = cs.anti_windup;
-  options.setpoint_weight = cs.setpoint_weight;
-  options.derivative_weight = cs.derivative_on_measurement ? 0.0 : 1.0;
-  options.tracking_time_s = cs.tracking_time_s;
-  options.disturbance_time_s = spec.disturbance.time_s;
-  options.disturbance_size = spec.disturbance.size;
-  options.horizon_s = linear_horizon_s;
-  if (spec.disturbance.size != 0.0) options.horizon_s = spec.disturbance.time_s + linear_horizon_s;
-  options.delay_s = spec.plant.delay_s;
-  options.sample_time_s = cs.sample_time_s;
-  options.horizon_s += spec.plant.delay_s;
-  options.output_step_s = options.horizon_s / kSamples;
+  const NonlinearSetup setup = nonlinear_setup(problem, linear_horizon_s, kSamples);
+  const ActuatorModel& actuator = setup.actuator;
+  const LoopOptions& options = setup.options;
 
   const double amplitude = spec.reference.amplitude;
   NonlinearResult r = simulate_nonlinear(problem.delay_free_realization, d->controller, actuator, options, amplitude,
@@ -110,9 +129,10 @@ int main(int argc, char** argv) {
   std::sort(ms.begin(), ms.end());
   fmt::print(
       "confirm {} design {} status {} median_ms {:.3f} p10_ms {:.3f} p90_ms {:.3f} repeats {} steps {} switches {} "
-      "samples {} saturated_fraction {:.4f} horizon_s {:.6g}{}\n",
+      "samples {} saturated_fraction {:.4f} horizon_s {:.6g} stepper {} explicit_steps_estimate {:.0f}{}\n",
       spec.name, d->name, status_name(r.status), percentile(ms, 0.5), percentile(ms, 0.1), percentile(ms, 0.9), repeats,
-      r.steps, r.switches, r.output.size(), r.saturated_fraction, options.horizon_s, sink == 0.12345 ? " " : "");
+      r.steps, r.switches, r.output.size(), r.saturated_fraction, options.horizon_s, stepper_name(r.stepper),
+      r.explicit_steps_estimate, sink == 0.12345 ? " " : "");
 
   if (!dump.empty()) {
     nlohmann::json j;
@@ -131,7 +151,7 @@ int main(int argc, char** argv) {
     j["controller"]["denominator"] = d->controller.transfer.denominator.coefficients;
     j["actuator"] = {{"min", finite_or_null(actuator.min)}, {"max", finite_or_null(actuator.max)},
                      {"rate_max", actuator.rate_max ? nlohmann::json(*actuator.rate_max) : nlohmann::json(nullptr)}};
-    j["options"] = {{"anti_windup", anti_windup_text(options.anti_windup)},
+    j["options"] = {{"anti_windup", std::string(anti_windup_name(options.anti_windup))},
                     {"setpoint_weight", options.setpoint_weight},
                     {"derivative_weight", options.derivative_weight},
                     {"disturbance_time_s", options.disturbance_time_s},

@@ -31,4 +31,6 @@ for spec in conveyor_speed oven_heater valve_positioner pump_pressure; do
   printf '%-18s specloop median %s ms, scipy median %s ms, scipy/specloop %sx, max|dy|/|r| %s (%s); target <= %s ms: %s\n' \
     "$spec" "$ours" "${theirs:-n/a}" "$ratio" "${dy:-n/a}" "$agree" "$target_ms" "$verdict"
 done
+echo "stepper choice: dopri5 against the implicit Rosenbrock method on 1/((s + 1)(s/p + 1)) under a saturated PI loop"
+(cd "$root" && "$bench" --stepper-sweep --repeats 10)
 exit 0

@@ -171,6 +171,9 @@ NonlinearSetup nonlinear_setup(const Problem& problem, double linear_horizon_s, 
   options.tracking_time_s = spec.controller.tracking_time_s;
   options.disturbance_time_s = spec.disturbance.time_s;
   options.disturbance_size = spec.disturbance.size;
+  options.noise_rms = spec.disturbance.noise_rms;
+  options.noise_period_s = spec.disturbance.noise_period_s;
+  options.noise_seed = spec.disturbance.noise_seed;
   // The linear horizon, stretched so that a disturbance has as long to settle as the step had,
   // and by the delay.
   options.horizon_s = linear_horizon_s;
@@ -184,17 +187,42 @@ NonlinearSetup nonlinear_setup(const Problem& problem, double linear_horizon_s, 
 
 namespace {
 
+// A requirement read off a measured response.
+RequirementCheck check_requirement(const Problem& problem, const Requirement& req, const StepMetrics& m,
+                                   const std::optional<Margins>& margins) {
+  RequirementCheck c;
+  c.requirement = req;
+  c.value = requirement_value(req, m, margins, problem.reference_peak_time_s, problem.band_fraction * 100.0);
+  c.violation = requirement_violation(req, c.value);
+  c.met = c.violation == 0.0;
+  return c;
+}
+
+std::string show_value(const Requirement& req, const std::optional<double>& v) {
+  return v ? fmt::format("{:.4g}{}", *v, req.unit.empty() ? "" : " " + req.unit) : std::string("none");
+}
+
+NonlinearResult simulate_setup(const Problem& problem, const Design& d, const NonlinearSetup& setup) {
+  return simulate_nonlinear(problem.delay_free_realization, d.controller, setup.actuator, setup.options,
+                            problem.spec.reference.amplitude, problem.band_fraction);
+}
+
+// An effect of the nonlinear loop that can be taken out of the setup to see what it costs.
+struct Effect {
+  const char* factor;
+  const char* removed;
+  bool active;
+  void (*take_out)(NonlinearSetup&);
+};
+
 // The nonlinear loop of the spec for a design whose linear loop is stable.
 NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d, double linear_horizon_s) {
   const Spec& spec = problem.spec;
   NonlinearConfirmation nc;
   const NonlinearSetup setup = nonlinear_setup(problem, linear_horizon_s, kConfirmationSamples);
-  const ActuatorModel& actuator = setup.actuator;
-  const LoopOptions& options = setup.options;
   NonlinearResult r;
   try {
-    r = simulate_nonlinear(problem.delay_free_realization, d.controller, actuator, options, spec.reference.amplitude,
-                           problem.band_fraction);
+    r = simulate_setup(problem, d, setup);
   } catch (const std::invalid_argument& e) {
     nc.status = NonlinearStatus::non_finite;
     nc.verdict = std::string("not confirmed: the nonlinear loop cannot be simulated (") + e.what() + ")";
@@ -204,6 +232,9 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   nc.notes = r.notes;
   nc.difference_equation = r.difference_equation;
   nc.saturated_fraction = r.saturated_fraction;
+  nc.rate_limited_fraction = r.rate_limited_fraction;
+  nc.command_excess_max = r.command_excess_max;
+  nc.stepper = r.stepper;
   if (r.status != NonlinearStatus::ok) {
     nc.verdict = fmt::format("not confirmed: the nonlinear simulation stopped ({})", status_name(r.status));
     return nc;
@@ -212,44 +243,86 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   nc.meets_all = true;
   nc.confirmed = true;
   std::vector<std::string> degraded;
+  std::vector<std::size_t> degraded_index;
   for (std::size_t i = 0; i < problem.requirements.size(); ++i) {
     const Requirement& req = problem.requirements[i];
-    RequirementCheck c;
-    c.requirement = req;
-    c.value = requirement_value(req, nc.simulated, d.margins, problem.reference_peak_time_s,
-                                problem.band_fraction * 100.0);
-    c.violation = requirement_violation(req, c.value);
-    c.met = c.violation == 0.0;
+    const RequirementCheck c = check_requirement(problem, req, nc.simulated, d.margins);
     nc.meets_all = nc.meets_all && c.met;
     // Nonlinear metrics are read off samples (nonlinear.hpp), not refined between them: a miss
     // within kConfirmationTolerance of the limit is within that resolution, not a degradation.
     if (c.violation > kConfirmationTolerance && d.checks[i].met) {
       nc.confirmed = false;
-      const auto show = [&](const std::optional<double>& v) {
-        return v ? fmt::format("{:.4g}{}", *v, req.unit.empty() ? "" : " " + req.unit) : std::string("none");
-      };
-      degraded.push_back(fmt::format("{} {} on the linear loop, {} here", req.key, show(d.checks[i].value), show(c.value)));
+      degraded.push_back(fmt::format("{} {} on the linear loop, {} here", req.key, show_value(req, d.checks[i].value),
+                                     show_value(req, c.value)));
+      degraded_index.push_back(i);
     }
     nc.checks.push_back(c);
   }
-  std::string causes;
+  std::vector<std::string> causes;
   if (nc.saturated_fraction > 0.0)
-    causes = fmt::format("the actuator saturates {:.1f} % of the time", 100.0 * nc.saturated_fraction);
-  if (spec.actuator.rate_max) causes += (causes.empty() ? "" : "; ") + std::string("the rate limit is in the loop");
+    causes.push_back(fmt::format("the actuator saturates {:.1f} % of the time (the command runs up to {:.4g} beyond a limit)",
+                                 100.0 * nc.saturated_fraction, nc.command_excess_max));
+  if (nc.rate_limited_fraction > 0.0)
+    causes.push_back(fmt::format("the actuator slews at its rate limit {:.1f} % of the time", 100.0 * nc.rate_limited_fraction));
   if (spec.disturbance.size != 0.0)
-    causes += (causes.empty() ? "" : "; ") + fmt::format("a load step of {:.4g} at t = {:.4g} s", spec.disturbance.size,
-                                                         spec.disturbance.time_s);
+    causes.push_back(fmt::format("a load step of {:.4g} at t = {:.4g} s", spec.disturbance.size, spec.disturbance.time_s));
+  if (spec.disturbance.noise_rms > 0.0)
+    causes.push_back(fmt::format("measurement noise of {:.4g} rms", spec.disturbance.noise_rms));
   if (spec.plant.delay_s > 0.0)
-    causes += (causes.empty() ? "" : "; ") +
-              fmt::format("the exact {:.4g} s delay (the linear loop used its Padé approximant)", spec.plant.delay_s);
-  if (spec.controller.sample_time_s > 0.0)
-    causes += (causes.empty() ? "" : "; ") + fmt::format("sampling at {:.4g} s", spec.controller.sample_time_s);
-  if (nc.confirmed)
+    causes.push_back(fmt::format("the exact {:.4g} s delay (the linear loop used its Padé approximant)", spec.plant.delay_s));
+  if (spec.controller.sample_time_s > 0.0) causes.push_back(fmt::format("sampling at {:.4g} s", spec.controller.sample_time_s));
+  const std::string because = fmt::format("{}", fmt::join(causes, "; "));
+  if (nc.confirmed) {
     nc.verdict = causes.empty() ? "confirmed: nothing saturates; the nonlinear loop matches the linear one"
-                                : "confirmed, with these in the loop: " + causes;
-  else
-    nc.verdict = fmt::format("NOT confirmed: {}{}", fmt::join(degraded, "; "),
-                             causes.empty() ? "" : " — because " + causes);
+                                : "confirmed, with these in the loop: " + because;
+    return nc;
+  }
+
+  // Attribution: take each active effect out in turn (the others kept) and re-read the degraded
+  // requirements; an effect whose removal restores them all is a cause on its own.
+  const Effect effects[] = {
+      {"saturation", "actuator limits removed", nc.saturated_fraction > 0.0,
+       [](NonlinearSetup& s) { s.actuator.min = -kInf; s.actuator.max = kInf; }},
+      {"rate limit", "rate limit removed", nc.rate_limited_fraction > 0.0,
+       [](NonlinearSetup& s) { s.actuator.rate_max.reset(); }},
+      {"sampling", "continuous controller", spec.controller.sample_time_s > 0.0,
+       [](NonlinearSetup& s) { s.options.sample_time_s = 0.0; }},
+      {"load step", "no load step", spec.disturbance.size != 0.0,
+       [](NonlinearSetup& s) { s.options.disturbance_size = 0.0; }},
+      {"measurement noise", "no measurement noise", spec.disturbance.noise_rms > 0.0,
+       [](NonlinearSetup& s) { s.options.noise_rms = 0.0; }},
+  };
+  std::vector<std::string> without;
+  for (const Effect& effect : effects) {
+    if (!effect.active) continue;
+    CauseTrial trial;
+    trial.factor = effect.factor;
+    trial.removed = effect.removed;
+    NonlinearSetup reduced = setup;
+    effect.take_out(reduced);
+    try {
+      const NonlinearResult rr = simulate_setup(problem, d, reduced);
+      trial.status = rr.status;
+      if (rr.status == NonlinearStatus::ok) {
+        trial.restores = true;
+        std::vector<std::string> values;
+        for (std::size_t i : degraded_index) {
+          const Requirement& req = problem.requirements[i];
+          RequirementCheck c = check_requirement(problem, req, rr.metrics, d.margins);
+          trial.restores = trial.restores && c.violation <= kConfirmationTolerance;
+          values.push_back(fmt::format("{} {}", req.key, show_value(req, c.value)));
+          trial.checks.push_back(std::move(c));
+        }
+        without.push_back(fmt::format("without {}: {}{}", effect.factor, fmt::join(values, ", "),
+                                      trial.restores ? " (met)" : ""));
+      }
+    } catch (const std::invalid_argument&) {
+      trial.status = NonlinearStatus::non_finite;
+    }
+    nc.attribution.push_back(std::move(trial));
+  }
+  nc.verdict = fmt::format("NOT confirmed: {}{}{}", fmt::join(degraded, "; "), causes.empty() ? "" : " — because " + because,
+                           without.empty() ? "" : fmt::format(" — {}", fmt::join(without, "; ")));
   return nc;
 }
 
@@ -277,11 +350,12 @@ Design measure_design(const Problem& problem, std::string name, const Controller
   const double horizon = sim.grid().horizon_s();
   for (const Requirement& r : problem.requirements) {
     RequirementCheck c;
-    c.requirement = r;
-    if (d.status == StepStatus::ok) c.value = requirement_value(r, d.simulated, d.margins, problem.reference_peak_time_s,
-                                                             problem.band_fraction * 100.0);
-    c.violation = d.status == StepStatus::ok ? requirement_violation(r, c.value) : 1.0;
-    c.met = d.status == StepStatus::ok && c.violation == 0.0;
+    if (d.status == StepStatus::ok) {
+      c = check_requirement(problem, r, d.simulated, d.margins);
+    } else {
+      c.requirement = r;
+      c.violation = 1.0;
+    }
     d.meets_all = d.meets_all && c.met;
     d.checks.push_back(c);
   }

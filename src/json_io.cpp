@@ -218,11 +218,22 @@ json design_json(const Design& d) {
     out["nonlinear"] = {{"status", status_name(n.status)},
                         {"simulated", n.status == NonlinearStatus::ok ? metrics_json(n.simulated) : json(nullptr)},
                         {"saturated_fraction", number_json(n.saturated_fraction)},
+                        {"rate_limited_fraction", number_json(n.rate_limited_fraction)},
+                        {"command_excess_max", number_json(n.command_excess_max)},
+                        {"stepper", stepper_name(n.stepper)},
                         {"checks", checks_json(n.checks)},
                         {"meets_all", n.meets_all},
                         {"confirmed", n.confirmed},
                         {"verdict", n.verdict},
                         {"notes", n.notes}};
+    json attribution = json::array();
+    for (const CauseTrial& t : n.attribution)
+      attribution.push_back({{"factor", t.factor},
+                             {"removed", t.removed},
+                             {"status", status_name(t.status)},
+                             {"checks", checks_json(t.checks)},
+                             {"restores", t.restores}});
+    out["nonlinear"]["attribution"] = attribution;
     if (n.difference_equation) {
       const DifferenceEquation& de = *n.difference_equation;
       out["nonlinear"]["difference_equation"] = {{"sample_time", number_json(de.sample_time_s)},

@@ -19,12 +19,15 @@
 #include <chrono>
 #include <cmath>
 #include <limits>
+#include <random>
 #include <set>
 #include <stdexcept>
 #include <string>
 
 #include <Eigen/Dense>
 #include <boost/numeric/odeint.hpp>
+
+#include "implicit_stepper.hpp"
 
 namespace specloop {
 
@@ -46,6 +49,26 @@ std::optional<AntiWindup> parse_anti_windup(std::string_view name) {
   for (AntiWindup a : {AntiWindup::none, AntiWindup::clamping, AntiWindup::back_calculation})
     if (anti_windup_name(a) == name) return a;
   return std::nullopt;
+}
+
+std::vector<double> gaussian_sequence(double rms, std::uint64_t seed, std::size_t count) {
+  std::mt19937_64 bits(seed);
+  const auto uniform = [&] {  // in (0, 1]: 53 random bits, never 0 (log below)
+    return (static_cast<double>(bits() >> 11) + 1.0) * 0x1.0p-53;
+  };
+  std::vector<double> out;
+  out.reserve(count + 1);
+  while (out.size() < count) {
+    const double radius = rms * std::sqrt(-2.0 * std::log(uniform())), angle = 2.0 * M_PI * uniform();
+    out.push_back(radius * std::cos(angle));
+    out.push_back(radius * std::sin(angle));
+  }
+  out.resize(count);
+  return out;
+}
+
+std::string_view stepper_name(NonlinearStepper s) {
+  return s == NonlinearStepper::dopri5 ? "dopri5" : "rosenbrock4";
 }
 
 std::string_view status_name(NonlinearStatus s) {
@@ -142,6 +165,8 @@ struct LoopModel : PidLaw {
   int size = 0;
   double r = 0;          // reference (after the step)
   double command_r = 0;  // ∂u_c/∂r
+  double n = 0;          // measurement noise held over the current piece: the controller reads y + n
+  double command_n = 0;  // −∂u_c/∂n
   const DelayLine* delay = nullptr;  // set: the plant input is the applied u delayed
 
   double output(const double* x) const {
@@ -149,6 +174,8 @@ struct LoopModel : PidLaw {
     for (int i = 0; i < np; ++i) y += cp(i) * x[i];
     return y;
   }
+  // The control error as the controller sees it (through the noisy measurement).
+  double error(const double* x) const { return r - output(x) - n; }
   // The part of u_c that is linear in the state (applied to x' it gives u_c').
   double command_linear(const double* x) const {
     const double y = output(x);
@@ -162,7 +189,7 @@ struct LoopModel : PidLaw {
     for (int i = 0; i < nc; ++i) u += cc(i) * x[c_index + i];
     return u;
   }
-  double command(const double* x) const { return command_linear(x) + command_r * r; }
+  double command(const double* x) const { return command_linear(x) + command_r * r - command_n * n; }
   double saturated(double uc, const Modes& m) const { return m.sat > 0 ? umax : (m.sat < 0 ? umin : uc); }
   double applied(const double* x, const Modes& m) const {
     if (rate && m.rate != RateMode::tracking) return x[ua_index];
@@ -173,7 +200,7 @@ struct LoopModel : PidLaw {
     const double y = output(x), uc = command(x), us = saturated(uc, m);
     const double ua = (rate && m.rate != RateMode::tracking) ? x[ua_index] : us;
     const double up = delay ? delay->value(t - delay->delay) : ua;
-    const double e = r - y;
+    const double e = r - y - n;
     for (int i = 0; i < np; ++i) {
       double s = bp(i) * (up + d);
       for (int j = 0; j < np; ++j) s += ap(i, j) * x[j];
@@ -189,7 +216,7 @@ struct LoopModel : PidLaw {
               // region) nor frozen (u_c would leave the limit inward) is consistent, so the
               // integrator moves just enough to hold u_c' = 0.
               dx[i_index] = 0.0;
-              if (d_index >= 0) dx[d_index] = (c * r - y - x[d_index]) / tf;
+              if (d_index >= 0) dx[d_index] = (c * r - y - n - x[d_index]) / tf;
               dx[i_index] = -command_linear(dx);
             } else {
               dx[i_index] = m.integrating ? ki * e : 0.0;
@@ -198,7 +225,7 @@ struct LoopModel : PidLaw {
           case AntiWindup::back_calculation: dx[i_index] = ki * e + (ua - uc) / tt; break;
         }
       }
-      if (d_index >= 0) dx[d_index] = (c * r - y - x[d_index]) / tf;
+      if (d_index >= 0) dx[d_index] = (c * r - y - n - x[d_index]) / tf;
     } else {
       for (int i = 0; i < nc; ++i) {
         double s = bc(i) * e;
@@ -212,13 +239,13 @@ struct LoopModel : PidLaw {
   bool clamps() const { return parallel && i_index >= 0 && anti_windup == AntiWindup::clamping; }
 
   // True when the state is consistent with the held modes (no guard has changed sign).
-  bool consistent(const double* x, const Modes& m, double d, State& scratch, double t) const {
+  bool consistent(const double* x, const Modes& m, double d, double* scratch, double t) const {
     const double uc = command(x);
     if (m.sliding) {
       // Sliding holds while the integration it needs lies between frozen and full:
       // 0 <= s·I' <= s·Ki·e (s = +1 on the upper limit, −1 on the lower).
-      derivative(x, scratch.data(), m, d, t);
-      const double s = m.sat, held = s * scratch[i_index], full = s * ki * (r - output(x));
+      derivative(x, scratch, m, d, t);
+      const double s = m.sat, held = s * scratch[i_index], full = s * ki * error(x);
       if (held < 0.0 || held > full) return false;
     } else {
       if (m.sat == 0 && (uc > umax + value_tolerance(umax) || uc < umin - value_tolerance(umin))) return false;
@@ -226,7 +253,7 @@ struct LoopModel : PidLaw {
       if (m.sat < 0 && uc > umin + value_tolerance(umin)) return false;
     }
     if (clamps() && m.sat != 0 && !m.sliding) {
-      const double drive = ki * (r - output(x)) * m.sat;  // > 0: integrating pushes further in
+      const double drive = ki * error(x) * m.sat;  // > 0: integrating pushes further in
       if (m.integrating && drive > 0) return false;
       if (!m.integrating && drive < 0) return false;
     }
@@ -235,8 +262,8 @@ struct LoopModel : PidLaw {
       if (m.rate == RateMode::up && x[ua_index] > us) return false;
       if (m.rate == RateMode::down && x[ua_index] < us) return false;
       if (m.rate == RateMode::tracking && m.sat == 0) {
-        derivative(x, scratch.data(), m, d, t);
-        if (std::abs(command_linear(scratch.data())) > rate_max) return false;
+        derivative(x, scratch, m, d, t);
+        if (std::abs(command_linear(scratch)) > rate_max) return false;
       }
     }
     return true;
@@ -248,11 +275,11 @@ struct LoopModel : PidLaw {
   // when the actuator leaves tracking, and may move I by at most ~1e-7 to put u_c exactly on a
   // limit it is sliding on. `by_slope`: on a limit, decide from the slopes of u_c in each
   // candidate mode rather than from its value (which is ambiguous there).
-  Modes choose(State& x, Modes m, double d, State& scratch, bool by_slope, double t) const {
-    const double uc = command(x.data());
+  Modes choose(double* x, Modes m, double d, double* scratch, bool by_slope, double t) const {
+    const double uc = command(x);
     m.sat = uc > umax ? 1 : (uc < umin ? -1 : 0);
     m.sliding = false;
-    if (clamps()) m.integrating = !(m.sat != 0 && ki * (r - output(x.data())) * m.sat > 0);
+    if (clamps()) m.integrating = !(m.sat != 0 && ki * error(x) * m.sat > 0);
     const double near_hi = 1e-7 * std::max(1.0, std::abs(umax)), near_lo = 1e-7 * std::max(1.0, std::abs(umin));
     const int side = (std::isfinite(umax) && std::abs(uc - umax) <= near_hi) ? 1
                      : (std::isfinite(umin) && std::abs(uc - umin) <= near_lo) ? -1 : 0;
@@ -262,18 +289,18 @@ struct LoopModel : PidLaw {
       Modes probe = m;
       probe.sat = side;
       probe.integrating = false;
-      derivative(x.data(), scratch.data(), probe, d, t);
+      derivative(x, scratch, probe, d, t);
       if (clamps()) scratch[i_index] = 0.0;
-      const double frozen = s * command_linear(scratch.data());  // s·u_c' with I frozen
-      const double drive = clamps() ? s * ki * (r - output(x.data())) : 0.0;
+      const double frozen = s * command_linear(scratch);  // s·u_c' with I frozen
+      const double drive = clamps() ? s * ki * error(x) : 0.0;
       if (clamps() && drive > 0.0) {
         if (frozen >= 0.0) { m.sat = side; m.integrating = false; }
         else if (frozen + drive > 0.0) { m.sat = side; m.integrating = false; m.sliding = true; }
         else { m.sat = 0; m.integrating = true; }
       } else {
         probe.integrating = true;
-        derivative(x.data(), scratch.data(), probe, d, t);
-        const double slope = s * command_linear(scratch.data());
+        derivative(x, scratch, probe, d, t);
+        const double slope = s * command_linear(scratch);
         m.sat = slope > 0.0 ? side : 0;
         m.integrating = true;
       }
@@ -283,8 +310,8 @@ struct LoopModel : PidLaw {
       if (m.rate == RateMode::up && x[ua_index] >= us) m.rate = RateMode::tracking;
       if (m.rate == RateMode::down && x[ua_index] <= us) m.rate = RateMode::tracking;
       if (m.rate == RateMode::tracking && m.sat == 0) {
-        derivative(x.data(), scratch.data(), m, d, t);
-        const double slope = command_linear(scratch.data());
+        derivative(x, scratch, m, d, t);
+        const double slope = command_linear(scratch);
         if (std::abs(slope) > rate_max) {
           m.rate = slope > 0 ? RateMode::up : RateMode::down;
           x[ua_index] = us;
@@ -303,6 +330,31 @@ struct HeldModeSystem {
   void operator()(const State& x, State& dxdt, double t) const {
     model->derivative(x.data(), dxdt.data(), modes, disturbance, t);
   }
+};
+
+// The implicit stepper behind odeint's dense-output interface, on the same State.
+class ImplicitDense {
+ public:
+  ImplicitDense(std::size_t n, double atol, double rtol, double max_dt) : stepper_(n, atol, rtol, max_dt), state_(n) {}
+  void initialize(const State& x, double t, double dt) { stepper_.initialize(x.data(), t, dt); }
+  std::pair<double, double> do_step(const HeldModeSystem& system) {
+    stepper_.set_system([](const void* c, const double* x, double* dx, double t) {
+      const auto& s = *static_cast<const HeldModeSystem*>(c);
+      s.model->derivative(x, dx, s.modes, s.disturbance, t);
+    }, &system, system.model->delay != nullptr);
+    return stepper_.do_step();
+  }
+  void calc_state(double t, State& x) const { stepper_.calc_state(t, x.data()); }
+  const State& current_state() {
+    std::copy(stepper_.current_state(), stepper_.current_state() + state_.size(), state_.begin());
+    return state_;
+  }
+  double current_time() const { return stepper_.current_time(); }
+  double current_time_step() const { return stepper_.current_time_step(); }
+
+ private:
+  detail::ImplicitDenseStepper stepper_;
+  State state_;
 };
 
 bool all_finite(const State& x) {
@@ -526,6 +578,9 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     fail("delay_s: expected a finite number >= 0, got " + to_string(options.delay_s));
   if (!std::isfinite(options.sample_time_s) || options.sample_time_s < 0.0)
     fail("sample_time_s: expected a finite number >= 0 (0: continuous controller), got " + to_string(options.sample_time_s));
+  if (!std::isfinite(options.noise_rms) || options.noise_rms < 0.0)
+    fail("noise_rms: expected a finite number >= 0, got " + to_string(options.noise_rms));
+  if (!std::isfinite(options.noise_period_s)) fail("noise_period_s: expected a finite number");
   const double delay = options.delay_s, period = options.sample_time_s;
 
   NonlinearResult result;
@@ -555,6 +610,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     if (g.ki != 0.0) model.i_index = size++;
     if (g.kd != 0.0) model.d_index = size++;
     model.command_r = g.kp * model.b + (g.kd != 0.0 ? g.kd / g.tf * model.c : 0.0);
+    model.command_n = g.kp + (g.kd != 0.0 ? g.kd / g.tf : 0.0);
     if (g.ki != 0.0 && options.anti_windup == AntiWindup::back_calculation) {
       if (options.tracking_time_s) {
         model.tt = *options.tracking_time_s;
@@ -581,6 +637,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     model.cc = cs.C.row(0);
     model.dc = cs.D(0);
     model.command_r = model.dc;
+    model.command_n = model.dc;
     result.notes.push_back("controller has no parallel form: C(s) realized as a state space acting on e = r - y; "
                            "no anti-windup, set-point and derivative weights not applied");
   }
@@ -617,6 +674,23 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   }
   if (!std::isfinite(horizon) || !(horizon > 0.0)) fail("horizon_s: expected a finite number > 0");
 
+  // ---- Stiffness estimate: the stepper for the continuous loop.
+  {
+    double rho = 0.0;
+    for (const Eigen::MatrixXd* a : {&linear.A, &plant.A}) {
+      Eigen::EigenSolver<Eigen::MatrixXd> es(*a, false);
+      if (es.info() == Eigen::Success) rho = std::max(rho, es.eigenvalues().cwiseAbs().maxCoeff());
+    }
+    result.explicit_steps_estimate = horizon * rho / 3.3;
+    result.stepper = options.stepper ? *options.stepper
+                                     : (result.explicit_steps_estimate > kStiffStepThreshold ? NonlinearStepper::rosenbrock4
+                                                                                             : NonlinearStepper::dopri5);
+    if (period > 0.0) result.stepper = NonlinearStepper::dopri5;
+    if (result.stepper == NonlinearStepper::rosenbrock4)
+      result.notes.push_back("stiff loop (dopri5 would need about " + to_string(static_cast<long>(result.explicit_steps_estimate)) +
+                             " steps for stability alone): integrated with the implicit Rosenbrock method");
+  }
+
   // ---- Sample times.
   std::vector<double> samples = options.sample_times_s;
   if (samples.empty()) {
@@ -636,18 +710,38 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
 
   if (period > 0.0 && horizon / period > 1e8) fail("sample_time_s: more than 1e8 controller samples per horizon");
 
+  // Measurement noise: a zero-order-held Gaussian sequence, one value per noise period.
+  std::vector<double> noise;
+  double noise_period = 0.0;
+  if (options.noise_rms > 0.0) {
+    noise_period = options.noise_period_s > 0.0 ? options.noise_period_s : (period > 0.0 ? period : horizon / 2000.0);
+    if (horizon / noise_period > 1e6) fail("noise_period_s: more than 1e6 noise values per horizon");
+    noise = gaussian_sequence(options.noise_rms, options.noise_seed,
+                              static_cast<std::size_t>(std::floor(horizon / noise_period)) + 2);
+    result.notes.push_back("measurement noise: " + to_string(options.noise_rms) + " rms, held for " +
+                           to_string(noise_period) + " s per value, seed " + to_string(options.noise_seed) +
+                           "; metrics read on the noise-free plant output");
+  }
+  auto noise_at = [&](double time) {
+    if (noise.empty()) return 0.0;
+    const auto k = static_cast<std::size_t>(std::max(0.0, std::floor(time / noise_period + 1e-9)));
+    return noise[std::min(k, noise.size() - 1)];
+  };
+
   const double td = options.disturbance_time_s, dsize = options.disturbance_size;
   if (dsize != 0.0 && td >= horizon) result.notes.push_back("disturbance_time_s is at or beyond the horizon: no disturbance simulated");
   auto disturbance_at = [&](double time) { return (dsize != 0.0 && td < horizon && time >= td) ? dsize : 0.0; };
   // Known discontinuities: the integration restarts at each.
   std::set<double> breaks{horizon};
   if (dsize != 0.0 && td > 0.0 && td < horizon) breaks.insert(td);
+  if (!noise.empty() && !(period > 0.0))  // a continuous controller sees every new noise value
+    for (std::size_t k = 1; static_cast<double>(k) * noise_period < horizon; ++k) breaks.insert(static_cast<double>(k) * noise_period);
 
   using Stepper = boost::numeric::odeint::runge_kutta_dopri5<State>;
   const auto started = std::chrono::steady_clock::now();
   auto wall = [&] { return std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count(); };
   int work = 0;  // accepted steps + restarts, against max_steps
-  double saturated_time = 0.0;
+  double saturated_time = 0.0, slewing_time = 0.0;
   auto stop = [&](NonlinearStatus s, const std::string& why) {
     result.status = s;
     result.notes.push_back(why);
@@ -704,7 +798,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
         // Controller samples due now.
         while (static_cast<double>(k) * period <= t && static_cast<double>(k) * period <= horizon) {
           const double tk = static_cast<double>(k) * period;
-          const double y = model.cp.dot(Eigen::Map<const Eigen::VectorXd>(x.data(), np));
+          const double y = model.cp.dot(Eigen::Map<const Eigen::VectorXd>(x.data(), np)) + noise_at(tk);
           const double uc = ctl.update(amplitude, y);
           if (!std::isfinite(uc)) return stop(NonlinearStatus::non_finite, "the controller output became non-finite at t = " + to_string(tk) + " s");
           commands.push_back(uc);
@@ -716,6 +810,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
             const double slope = target > now ? model.rate_max : -model.rate_max;
             const double reach = tk + (target - now) / slope;
             knots.push_back({tk, tk + delay, now, slope});
+            slewing_time += std::min({reach, tk + period, horizon}) - tk;
             if (reach < tk + period) knots.push_back({reach, reach + delay, target, 0.0});
             else end_value = now + slope * period;
           } else {
@@ -768,108 +863,144 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     DelayLine line;
     line.delay = delay;
     if (delay > 0.0) model.delay = &line;
-    State x(static_cast<std::size_t>(size), 0.0), xe(x), scratch(x);
-    // Samples at a break point are recorded after the restart there (right limits of the
-    // delayed input); without delay every piece is inclusive as before.
-    auto record_until = [&](double t_end, bool inclusive, const Modes& m, auto&& state_at) {
-      while (next_sample < samples.size() && (inclusive ? samples[next_sample] <= t_end : samples[next_sample] < t_end)) {
-        const double ts = samples[next_sample++];
-        const State& xs = state_at(ts);
-        result.time_s.push_back(ts);
-        result.output.push_back(model.output(xs.data()));
-        result.command.push_back(model.command(xs.data()));
-        const double ua = model.applied(xs.data(), m);
-        result.control.push_back(ua);
-        result.plant_input.push_back(delay > 0.0 ? line.value(ts - delay) : ua);
-      }
+    // Halts the run with a status (inside the integration below, which returns false then).
+    auto halt = [&](NonlinearStatus s, const std::string& why) {
+      result.status = s;
+      result.notes.push_back(why);
+      return false;
     };
-    // Stores the applied u of [t0, t1] (inside the dense stepper's current step) in the line.
-    auto store = [&](auto& stepper, double t0, double t1, const Modes& m) {
-      if (!(delay > 0.0) || !(t1 > t0)) return;
-      DelayLine::Segment seg{t0, t1, {}};
-      for (int j = 0; j < DelayLine::nodes; ++j) {
-        const double tj = j == DelayLine::nodes - 1 ? t1 : t0 + (t1 - t0) * j / (DelayLine::nodes - 1);
-        stepper.calc_state(tj, scratch);
-        seg.u[static_cast<std::size_t>(j)] = model.applied(scratch.data(), m);
-      }
-      line.segments.push_back(seg);
-    };
-
     double max_dt = horizon / 100.0;  // bounds how far a double switch can hide inside one step
     if (delay > 0.0) max_dt = std::min(max_dt, delay);  // method of steps: stages need only the past
-    auto dense = boost::numeric::odeint::make_dense_output(options.absolute_tolerance, options.relative_tolerance, max_dt,
-                                                           Stepper());
-    double dt = std::min(horizon / 4000.0, max_dt);
 
-    Modes modes;
-    if (model.rate) {  // the actuator starts at rest at u = 0 and must slew to the command at 0+
-      const double us = std::clamp(model.command(x.data()), model.umin, model.umax);
-      modes.rate = us > 0.0 ? RateMode::up : (us < 0.0 ? RateMode::down : RateMode::tracking);
-    }
+    // The hybrid integration, for either stepper: `dense` is odeint's dense-output stepper and
+    // `step(dense, system)` advances it one step with the held-mode system.
+    auto integrate = [&](auto& dense) {
+      State x(static_cast<std::size_t>(size), 0.0), xe(x), scratch(x);
+      // Samples at a break point are recorded after the restart there (right limits of the
+      // delayed input); without delay every piece is inclusive as before.
+      auto record_until = [&](double t_end, bool inclusive, const Modes& m, auto&& state_at) {
+        while (next_sample < samples.size() && (inclusive ? samples[next_sample] <= t_end : samples[next_sample] < t_end)) {
+          const double ts = samples[next_sample++];
+          const double* xs = state_at(ts);
+          result.time_s.push_back(ts);
+          result.output.push_back(model.output(xs));
+          result.command.push_back(model.command(xs));
+          const double ua = model.applied(xs, m);
+          result.control.push_back(ua);
+          result.plant_input.push_back(delay > 0.0 ? line.value(ts - delay) : ua);
+        }
+      };
+      auto dense_at = [&](double ts) -> const double* {
+        dense.calc_state(ts, scratch);
+        return scratch.data();
+      };
+      // Stores the applied u of [t0, t1] (inside the dense stepper's current step) in the line.
+      auto store = [&](double t0, double t1, const Modes& m) {
+        if (!(delay > 0.0) || !(t1 > t0)) return;
+        DelayLine::Segment seg{t0, t1, {}};
+        for (int j = 0; j < DelayLine::nodes; ++j) {
+          const double tj = j == DelayLine::nodes - 1 ? t1 : t0 + (t1 - t0) * j / (DelayLine::nodes - 1);
+          seg.u[static_cast<std::size_t>(j)] = model.applied(dense_at(tj), m);
+        }
+        line.segments.push_back(seg);
+      };
 
-    double t = 0.0;
-    try {
-      while (t < horizon) {
-        if (delay > 0.0 && t + delay < horizon) breaks.insert(t + delay);  // a restart reaches the plant L later
-        const double t_end = *breaks.upper_bound(t);
-        const bool inclusive = !(delay > 0.0) || t_end >= horizon;
-        const double disturbance = disturbance_at(t);
-        line.lo = t - delay;
-        line.hi = t_end - delay;
-        for (int i = 0; i < 4; ++i) {  // a chosen mode can imply another (e.g. tracking at too steep a slope)
-          modes = model.choose(x, modes, disturbance, scratch, i < 2, t);
-          if (model.consistent(x.data(), modes, disturbance, scratch, t)) break;
-        }
-        record_until(t, true, modes, [&](double) -> const State& { return x; });
-        HeldModeSystem system{&model, modes, disturbance};
-        dense.initialize(x, t, std::min(dt, t_end - t));
-        while (true) {
-          if (++work > options.max_steps)
-            return stop(NonlinearStatus::step_limit, "stopped at t = " + to_string(dense.current_time()) +
-                                                         " s: max_steps = " + to_string(options.max_steps) + " reached");
-          if (wall() > options.max_wall_time_s)
-            return stop(NonlinearStatus::time_limit, "stopped at t = " + to_string(dense.current_time()) +
-                                                         " s: max_wall_time_s = " + to_string(options.max_wall_time_s) + " reached");
-          const auto [ta, tb] = dense.do_step(system);
-          ++result.steps;
-          dt = dense.current_time_step();
-          const double tc = std::min(tb, t_end);
-          if (tb <= t_end) xe = dense.current_state();
-          else dense.calc_state(tc, xe);
-          if (!all_finite(xe))
-            return stop(NonlinearStatus::non_finite, "the state became non-finite near t = " + to_string(tc) + " s");
-          if (!model.consistent(xe.data(), modes, disturbance, scratch, tc)) {
-            // Locate the switch: consistent at lo, not at hi.
-            double lo = ta, hi = tc;
-            for (int it = 0; it < 200 && hi - lo > 4.0 * std::numeric_limits<double>::epsilon() * std::max(1.0, hi); ++it) {
-              const double mid = 0.5 * (lo + hi);
-              dense.calc_state(mid, xe);
-              if (model.consistent(xe.data(), modes, disturbance, scratch, mid)) lo = mid;
-              else hi = mid;
-            }
-            store(dense, ta, hi, modes);
-            record_until(hi, true, modes, [&](double ts) -> const State& { dense.calc_state(ts, scratch); return scratch; });
-            if (modes.sat != 0) saturated_time += hi - ta;
-            dense.calc_state(hi, x);
-            t = hi;
-            ++result.switches;
-            break;
-          }
-          store(dense, ta, tc, modes);
-          record_until(tc, inclusive || tb < t_end, modes, [&](double ts) -> const State& { dense.calc_state(ts, scratch); return scratch; });
-          if (modes.sat != 0) saturated_time += tc - ta;
-          if (tb >= t_end) {
-            x = xe;
-            t = t_end;
-            break;
-          }
-        }
+      double dt = std::min(horizon / 4000.0, max_dt);
+      Modes modes;
+      if (model.rate) {  // the actuator starts at rest at u = 0 and must slew to the command at 0+
+        const double us = std::clamp(model.command(x.data()), model.umin, model.umax);
+        modes.rate = us > 0.0 ? RateMode::up : (us < 0.0 ? RateMode::down : RateMode::tracking);
       }
-    } catch (const boost::numeric::odeint::odeint_error& e) {
-      if (!all_finite(dense.current_state()))
-        return stop(NonlinearStatus::non_finite, std::string("the state became non-finite: ") + e.what());
-      return stop(NonlinearStatus::step_limit, std::string("the integrator gave up: ") + e.what());
+      double t = 0.0;
+      try {
+        while (t < horizon) {
+          if (delay > 0.0 && t + delay < horizon) breaks.insert(t + delay);  // a restart reaches the plant L later
+          const double t_end = *breaks.upper_bound(t);
+          const bool inclusive = !(delay > 0.0) || t_end >= horizon;
+          const double disturbance = disturbance_at(t);
+          const double noise_now = noise_at(t);
+          if (noise_now != model.n) {
+            // A new noise value steps the command; a rate-limited actuator that was tracking
+            // must slew from where it was, not jump with it.
+            const double before = model.applied(x.data(), modes);
+            model.n = noise_now;
+            const double target = std::clamp(model.command(x.data()), model.umin, model.umax);
+            if (model.rate && modes.rate == RateMode::tracking && target != before) {
+              modes.rate = target > before ? RateMode::up : RateMode::down;
+              x[static_cast<std::size_t>(model.ua_index)] = before;
+            }
+          }
+          line.lo = t - delay;
+          line.hi = t_end - delay;
+          for (int i = 0; i < 4; ++i) {  // a chosen mode can imply another (e.g. tracking at too steep a slope)
+            modes = model.choose(x.data(), modes, disturbance, scratch.data(), i < 2, t);
+            if (model.consistent(x.data(), modes, disturbance, scratch.data(), t)) break;
+          }
+          record_until(t, true, modes, [&](double) { return x.data(); });
+          const HeldModeSystem system{&model, modes, disturbance};
+          dense.initialize(x, t, std::min(dt, t_end - t));
+          while (true) {
+            if (++work > options.max_steps)
+              return halt(NonlinearStatus::step_limit, "stopped at t = " + to_string(dense.current_time()) +
+                                                           " s: max_steps = " + to_string(options.max_steps) + " reached");
+            if (wall() > options.max_wall_time_s)
+              return halt(NonlinearStatus::time_limit, "stopped at t = " + to_string(dense.current_time()) +
+                                                           " s: max_wall_time_s = " + to_string(options.max_wall_time_s) + " reached");
+            const auto [ta, tb] = dense.do_step(system);
+            ++result.steps;
+            dt = dense.current_time_step();
+            const double tc = std::min(tb, t_end);
+            if (tb <= t_end) xe = dense.current_state();
+            else dense.calc_state(tc, xe);
+            if (!all_finite(xe))
+              return halt(NonlinearStatus::non_finite, "the state became non-finite near t = " + to_string(tc) + " s");
+            if (!model.consistent(xe.data(), modes, disturbance, scratch.data(), tc)) {
+              // Locate the switch: consistent at lo, not at hi.
+              double lo = ta, hi = tc;
+              for (int it = 0; it < 200 && hi - lo > 4.0 * std::numeric_limits<double>::epsilon() * std::max(1.0, hi); ++it) {
+                const double mid = 0.5 * (lo + hi);
+                dense.calc_state(mid, xe);
+                if (model.consistent(xe.data(), modes, disturbance, scratch.data(), mid)) lo = mid;
+                else hi = mid;
+              }
+              store(ta, hi, modes);
+              record_until(hi, true, modes, dense_at);
+              if (modes.sat != 0) saturated_time += hi - ta;
+              if (modes.rate != RateMode::tracking) slewing_time += hi - ta;
+              dense.calc_state(hi, x);
+              t = hi;
+              ++result.switches;
+              break;
+            }
+            store(ta, tc, modes);
+            record_until(tc, inclusive || tb < t_end, modes, dense_at);
+            if (modes.sat != 0) saturated_time += tc - ta;
+            if (modes.rate != RateMode::tracking) slewing_time += tc - ta;
+            if (tb >= t_end) {
+              x = xe;
+              t = t_end;
+              break;
+            }
+          }
+        }
+      } catch (const boost::numeric::odeint::odeint_error& e) {
+        if (!all_finite(dense.current_state()))
+          return halt(NonlinearStatus::non_finite, std::string("the state became non-finite: ") + e.what());
+        return halt(NonlinearStatus::step_limit, std::string("the integrator gave up: ") + e.what());
+      }
+      return true;
+    };
+
+    bool completed = false;
+    if (result.stepper == NonlinearStepper::rosenbrock4) {
+      ImplicitDense dense(static_cast<std::size_t>(size), options.absolute_tolerance, options.relative_tolerance, max_dt);
+      completed = integrate(dense);
+    } else {
+      auto dense = boost::numeric::odeint::make_dense_output(options.absolute_tolerance, options.relative_tolerance, max_dt,
+                                                             Stepper());
+      completed = integrate(dense);
     }
+    if (!completed) return result;
   }
   for (double v : result.output)
     if (!std::isfinite(v)) return stop(NonlinearStatus::non_finite, "a sampled output is non-finite");
@@ -877,6 +1008,9 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     if (!std::isfinite(v)) return stop(NonlinearStatus::non_finite, "a sampled control is non-finite");
 
   result.saturated_fraction = saturated_time / horizon;
+  result.rate_limited_fraction = slewing_time / horizon;
+  for (double uc : result.command)
+    result.command_excess_max = std::max(result.command_excess_max, std::max(uc - model.umax, model.umin - uc));
   if (std::isfinite(y_inf) && std::abs(y_inf) > 1e-12 * std::abs(amplitude)) {
     result.metrics = measure(result.time_s, result.output, result.control, y_inf, amplitude, band_fraction);
     result.notes.push_back("metrics relative to the linear loop's final value y_inf = " + to_string(y_inf));

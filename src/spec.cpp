@@ -118,7 +118,7 @@ const std::vector<SectionSchema>& section_schemas() {
         "undershoot_max_pct", "phase_margin_min_deg", "gain_margin_min_db", "sensitivity_peak_max"}},
       {"reference", {"amplitude"}},
       {"search", {"objective", "seed", "max_evaluations", "max_time", "simulate", "bounds"}},
-      {"disturbance", {"time", "size"}},
+      {"disturbance", {"time", "size", "noise_rms", "noise_period", "seed"}},
   };
   return schemas;
 }
@@ -769,6 +769,17 @@ class SpecReader {
                                         "a time in s >= 0"))
       disturbance.time_s = *time;
     if (const auto size = optional_number(table, "disturbance", "size")) disturbance.size = size->value;
+    if (const auto rms = ranged_number(table, "disturbance", "noise_rms", [](double v) { return v >= 0.0; },
+                                       "a standard deviation in output units >= 0"))
+      disturbance.noise_rms = *rms;
+    if (const auto period = ranged_number(table, "disturbance", "noise_period", [](double v) { return v > 0.0; },
+                                          "a time in s > 0"))
+      disturbance.noise_period_s = *period;
+    if (const auto seed = ranged_number(
+            table, "disturbance", "seed",
+            [](double v) { return v >= 0.0 && v <= 9007199254740992.0 && v == std::floor(v); },
+            "a whole number in [0, 2^53]"))
+      disturbance.noise_seed = static_cast<std::uint64_t>(*seed);
   }
 
   void read_search(SearchSpec& search, Structure structure) const {

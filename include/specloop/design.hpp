@@ -52,11 +52,25 @@ struct RequirementCheck {
   double violation = 0.0;       // normalized: (value − limit)/|limit| for upper bounds, > 0 when missed
 };
 
+/// One effect of the nonlinear loop taken out (the others kept), to see what it cost: the
+/// requirements that degraded, re-read on that loop.
+struct CauseTrial {
+  std::string factor;                 // "saturation", "rate limit", "sampling", "load step", "measurement noise"
+  std::string removed;                // how it was taken out, in words
+  NonlinearStatus status = NonlinearStatus::ok;
+  std::vector<RequirementCheck> checks;  // the degraded requirements, re-checked without the factor
+  bool restores = false;              // without it, every degraded requirement is met again
+};
+
 /// A design re-measured on the nonlinear loop (saturation, rate limit, anti-windup, disturbance).
 struct NonlinearConfirmation {
   NonlinearStatus status = NonlinearStatus::ok;
   StepMetrics simulated;              // same definitions as the linear metrics (nonlinear.hpp)
   double saturated_fraction = 0.0;    // time with the command beyond a limit ÷ horizon
+  double rate_limited_fraction = 0.0; // time the applied u slews at the rate limit ÷ horizon
+  double command_excess_max = 0.0;    // largest distance of the command beyond a limit (windup)
+  std::vector<CauseTrial> attribution;  // when not confirmed: each active effect taken out in turn
+  NonlinearStepper stepper = NonlinearStepper::dopri5;  // the integrator the stiffness estimate chose
   std::vector<RequirementCheck> checks;
   bool meets_all = false;
   bool confirmed = false;             // every requirement met on the linear loop is met here too

@@ -9,6 +9,7 @@
 // fixed period, zero-order hold, the plant integrated piece by piece between the hold's switches).
 #pragma once
 
+#include <cstdint>
 #include <limits>
 #include <optional>
 #include <string>
@@ -32,6 +33,22 @@ struct ActuatorModel {
                                    // limit; back-calculation feeds back the applied (rate-limited) u.
 };
 
+/// The integrator for the continuous loop: odeint's explicit dopri5 (controlled, dense output)
+/// or its implicit Rosenbrock method of order 4 (for stiff loops).
+enum class NonlinearStepper { dopri5, rosenbrock4 };
+std::string_view stepper_name(NonlinearStepper s);
+
+/// A loop is integrated implicitly when dopri5 would need more than this many steps for
+/// stability alone over the horizon (horizon·ρ/3.3, ρ the largest |eigenvalue| of the linear
+/// loop or of the plant; 3.3 ≈ dopri5's stability limit on the negative real axis, Hairer &
+/// Wanner, Solving ODEs II, 1996, sec. IV.2 — recalled from memory). Chosen by measurement
+/// (`specloop_bench_confirm --stepper-sweep`, printed by bench/run_bench_confirm.sh): on a
+/// saturated 3-state loop dopri5 took the estimated number of steps to within 1 % once it
+/// exceeded ~1000, and Rosenbrock (about 200 steps, each several times dearer) was 1.5× faster
+/// at an estimate of 2400 and 3.3× at 7300; on the demo loops (estimates 55–813, larger states)
+/// Rosenbrock was 1.3–8× slower. Above 5000 the implicit stepper wins with margin.
+inline constexpr double kStiffStepThreshold = 5000.0;
+
 struct LoopOptions {
   double setpoint_weight = 1.0;    // b: proportional term acts on b·r − y (parallel form only)
   double derivative_weight = 1.0;  // c: derivative of c·r − y; 1 = on error, 0 = on measurement
@@ -48,7 +65,16 @@ struct LoopOptions {
   double absolute_tolerance = 1e-10;
   double delay_s = 0.0;        // transport delay between the applied actuator output and the plant input, s (>= 0)
   double sample_time_s = 0.0;  // > 0: the controller runs at this period (see below); 0: continuous
+  double noise_rms = 0.0;      // measurement noise added to y where the controller reads it (>= 0); 0: none
+  double noise_period_s = 0.0; // each noise value is held this long, s; <= 0: sample_time_s, or horizon/2000
+  std::uint64_t noise_seed = 1;
+  std::optional<NonlinearStepper> stepper;  // empty: chosen by the stiffness estimate (above)
 };
+
+/// `count` values of zero-mean Gaussian noise with standard deviation `rms`, from the 64-bit
+/// Mersenne Twister (whose output the C++ standard fixes) by the Box–Muller transform on 53-bit
+/// uniforms, so a seed gives the same sequence on every platform and build.
+std::vector<double> gaussian_sequence(double rms, std::uint64_t seed, std::size_t count);
 
 /// u[k] as a linear recursion of the controller's discrete transfer functions in z⁻¹, from the
 /// reference and from the measurement: U(z) = (R(z)·r_num − Y(z)·y_num)/den, coefficients of
@@ -75,8 +101,13 @@ struct NonlinearResult {
   std::vector<double> plant_input;  // the applied u as it reaches the plant: control delayed by
                                     // delay_s (0 before it); the disturbance is not included
   double saturated_fraction = 0.0;  // time with the command beyond a limit ÷ horizon
+  double rate_limited_fraction = 0.0;  // time the applied u slews at ±rate_max ÷ horizon
+  double command_excess_max = 0.0;  // largest |u_c − clamp(u_c)| at the samples: how far the
+                                    // command runs beyond the limits (integrator windup shows here)
   int steps = 0;                    // accepted integrator steps
   int switches = 0;                 // located mode switches (integration restarts)
+  NonlinearStepper stepper = NonlinearStepper::dopri5;  // the one used
+  double explicit_steps_estimate = 0.0;  // horizon·ρ/3.3: dopri5's steps for stability alone
   StepMetrics metrics;              // measured on the samples; valid only when status is ok
   std::vector<std::string> notes;   // what was simplified or not applied, in words
   /// For a sampled controller: its difference equations at sample_time_s (empty when continuous).
@@ -134,6 +165,13 @@ struct NonlinearResult {
 /// delay shifts its switching instants exactly; the plant is integrated with dopri5 piece by
 /// piece between those instants. `switches` counts the integration pieces; the saturated
 /// fraction counts the sample periods whose command lies beyond a limit.
+///
+/// Measurement noise (noise_rms > 0): values n_k = gaussian_sequence(noise_rms, noise_seed)[k],
+/// each held over [k·Tn, (k+1)·Tn), Tn = noise_period_s; the controller reads y + n (proportional,
+/// integral and derivative terms, and e for the state-space form). With a continuous controller
+/// every k·Tn is a break point where the integration restarts (the noise is a staircase, so the
+/// right-hand side stays smooth within a piece); a sampled controller reads y(k·Ts) + n at its
+/// samples. The recorded output and the metrics are the noise-free plant output.
 ///
 /// Throws std::invalid_argument for malformed input (the message names the field); numerical
 /// failures are reported in `status`, never as NaN samples.

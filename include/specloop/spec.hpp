@@ -3,6 +3,7 @@
 #pragma once
 
 #include <complex>
+#include <cstdint>
 #include <optional>
 #include <stdexcept>
 #include <string>
@@ -78,6 +79,9 @@ struct ControllerSpec {
 struct DisturbanceSpec {
   double time_s = 0.0;                        // when it arrives, s (>= 0)
   double size = 0.0;                          // plant-input units; 0: none
+  double noise_rms = 0.0;                     // measurement noise, output units (>= 0); 0: none
+  double noise_period_s = 0.0;                // each noise value held this long, s; 0: default (README)
+  std::uint64_t noise_seed = 1;               // seed of the noise sequence
 };
 
 /// Each requirement is optional: a requirement left out is not required.

@@ -9,14 +9,17 @@
 //                   "tracking_time_s": 1, "disturbance_time_s": 0, "disturbance_size": 0,
 //                   "horizon_s": 10, "output_step_s": 0.01, "sample_times_s": [...],
 //                   "max_steps": 1000000, "relative_tolerance": 1e-8, "absolute_tolerance": 1e-10,
-//                   "delay_s": 0, "sample_time_s": 0},
+//                   "delay_s": 0, "sample_time_s": 0, "noise_rms": 0, "noise_period_s": 0,
+//                   "noise_seed": 1, "stepper": "dopri5" | "rosenbrock4"},
 //    "amplitude":  1.0, "band_pct": 2.0}
-// and prints {"status", "notes", "steps", "switches", "saturated_fraction", "time", "output",
+// and prints {"status", "notes", "steps", "switches", "saturated_fraction", "rate_limited_fraction",
+// "command_excess_max", "stepper", "noise", "time", "output",
 // "control", "command", "plant_input", "metrics", "difference_equation"} (metrics null unless
 // the status is "ok"; difference_equation null for a continuous controller, else
 // {"sample_time_s", "reference_numerator", "measurement_numerator", "denominator", "method"}).
 // Exit codes: 0 printed a result (whatever the status), 2 malformed input (message on stderr).
 #include <cmath>
+#include <cstdint>
 #include <iostream>
 #include <stdexcept>
 #include <string>
@@ -86,7 +89,8 @@ int run() {
     const json& o = in["options"];
     only_keys(o, "options", {"anti_windup", "setpoint_weight", "derivative_weight", "tracking_time_s",
                              "disturbance_time_s", "disturbance_size", "horizon_s", "output_step_s", "sample_times_s",
-                             "max_steps", "relative_tolerance", "absolute_tolerance", "delay_s", "sample_time_s"});
+                             "max_steps", "relative_tolerance", "absolute_tolerance", "delay_s", "sample_time_s",
+                             "noise_rms", "noise_period_s", "noise_seed", "stepper"});
     if (o.contains("anti_windup")) {
       const auto aw = parse_anti_windup(o["anti_windup"].get<std::string>());
       if (!aw) throw InputError("options.anti_windup: expected none, clamping or back-calculation");
@@ -108,6 +112,14 @@ int run() {
     if (o.contains("tracking_time_s")) opt.tracking_time_s = number(o["tracking_time_s"], "options.tracking_time_s");
     if (o.contains("sample_times_s")) opt.sample_times_s = numbers(o["sample_times_s"], "options.sample_times_s");
     if (o.contains("max_steps")) opt.max_steps = o["max_steps"].get<int>();
+    set("noise_rms", opt.noise_rms);
+    set("noise_period_s", opt.noise_period_s);
+    if (o.contains("noise_seed")) opt.noise_seed = o["noise_seed"].get<std::uint64_t>();
+    if (o.contains("stepper")) {
+      const std::string name = o["stepper"].get<std::string>();
+      if (name != "dopri5" && name != "rosenbrock4") throw InputError("options.stepper: expected dopri5 or rosenbrock4");
+      opt.stepper = name == "dopri5" ? NonlinearStepper::dopri5 : NonlinearStepper::rosenbrock4;
+    }
   }
   const double amplitude = in.contains("amplitude") ? number(in["amplitude"], "amplitude") : 1.0;
   const double band_pct = in.contains("band_pct") ? number(in["band_pct"], "band_pct") : 2.0;
@@ -119,6 +131,15 @@ int run() {
   out["steps"] = r.steps;
   out["switches"] = r.switches;
   out["saturated_fraction"] = r.saturated_fraction;
+  out["rate_limited_fraction"] = r.rate_limited_fraction;
+  out["command_excess_max"] = r.command_excess_max;
+  out["stepper"] = std::string(stepper_name(r.stepper));
+  // The noise values the loop used, one per noise period over [0, horizon] (the sequence is a
+  // prefix of any longer one with the same seed), when both are given explicitly.
+  out["noise"] = json::array();
+  if (opt.noise_rms > 0.0 && opt.noise_period_s > 0.0 && opt.horizon_s > 0.0)
+    out["noise"] = gaussian_sequence(opt.noise_rms, opt.noise_seed,
+                                     static_cast<std::size_t>(std::floor(opt.horizon_s / opt.noise_period_s)) + 1);
   out["time"] = r.time_s;
   out["output"] = r.output;
   out["control"] = r.control;
