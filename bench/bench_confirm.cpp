@@ -26,7 +26,7 @@ using namespace specloop;
 
 namespace {
 
-constexpr int kSamples = 20000;  // as design.cpp's kConfirmationSamples
+constexpr int kSamples = kConfirmationSamples;
 
 double percentile(const std::vector<double>& sorted, double q) {
   const double pos = q * static_cast<double>(sorted.size() - 1);
@@ -114,15 +114,13 @@ int main(int argc, char** argv) {
   const LoopOptions& options = setup.options;
 
   const double amplitude = spec.reference.amplitude;
-  NonlinearResult r = simulate_nonlinear(problem.delay_free_realization, d->controller, actuator, options, amplitude,
-                                         problem.band_fraction);  // warm-up, and the result reported
+  NonlinearResult r = simulate_on_nonlinear_loop(problem, d->controller, setup);  // warm-up, and the result reported
   std::vector<double> ms;
   ms.reserve(static_cast<std::size_t>(repeats));
   double sink = 0.0;
   for (int k = 0; k < repeats; ++k) {
     const auto t0 = std::chrono::steady_clock::now();
-    const NonlinearResult q = simulate_nonlinear(problem.delay_free_realization, d->controller, actuator, options,
-                                                 amplitude, problem.band_fraction);
+    const NonlinearResult q = simulate_on_nonlinear_loop(problem, d->controller, setup);
     ms.push_back(std::chrono::duration<double, std::milli>(std::chrono::steady_clock::now() - t0).count());
     sink += q.output.back();
   }

@@ -204,20 +204,18 @@ std::optional<std::size_t> dominant_crossing(const TransferFunction& plant,
   return std::nullopt;
 }
 
-namespace {
-
-DominanceDiagnosis diagnose(const TransferFunction& plant, const LocusCrossing& c,
-                            const SecondOrderPrediction& pred, const StepMetrics& sim) {
+DominanceDiagnosis diagnose_dominance(const TransferFunction& t, Complex pair_pole, const SecondOrderPrediction& pred,
+                                      const StepMetrics& sim) {
   DominanceDiagnosis d;
-  const TransferFunction t = close_loop(plant, TransferFunction(Polynomial({c.gain}), Polynomial({1.0}))).output;
   d.modes = mode_shares(t);
-  const double sigma = -c.pair_pole.real();
+  const double sigma = -pair_pole.real();
   const auto cl_poles = t.poles();
   for (const auto& m : d.modes) {
-    if (std::abs(m.pole - c.pair_pole) <= 1e-6 * std::abs(c.pair_pole)) continue;
+    if (std::abs(m.pole - pair_pole) <= 1e-6 * std::abs(pair_pole)) continue;
     const double ratio = -m.pole.real() / sigma;
     const bool significant = !m.share || *m.share > kNegligibleShare;
     if (ratio < kFarRatio && significant) {
+      d.slow_poles.push_back(m.pole);
       d.reasons.push_back(fmt::format(
           "closed-loop pole {} decays at {:.2f}× the dominant pair's rate (needs ≥ {:.0f}×) and carries {} of the "
           "response", fmt_pole(m.pole), ratio, kFarRatio,
@@ -233,6 +231,7 @@ DominanceDiagnosis diagnose(const TransferFunction& plant, const LocusCrossing& 
         return std::abs(p - z) <= 0.1 * std::max(std::abs(z), sigma);
       });
       if (cancelled) continue;
+      d.near_zeros.push_back(z);
       d.reasons.push_back(fmt::format(
           "closed-loop zero {} lies {:.2f}× the pair's σ from the imaginary axis (needs ≥ {:.0f}×) with no pole "
           "near it to cancel it{}", fmt_pole(z), ratio, kFarRatio, z.real() > 0.0 ? " (right half plane)" : ""));
@@ -264,6 +263,8 @@ DominanceDiagnosis diagnose(const TransferFunction& plant, const LocusCrossing& 
   }
   return d;
 }
+
+namespace {
 
 // The smallest P gain whose simulated overshoot equals the limit.
 std::optional<GainPoint> find_reference(const TransferFunction& plant, const Characterization& ch, double limit,
@@ -347,7 +348,8 @@ Characterization characterize(const Spec& spec) {
     ch.dominant = measure_gain(plant, c.gain, amplitude, ch.band_fraction, sim);
     if (ch.dominant) {
       ch.second_order = predict_second_order(c.pair_pole, ch.band_fraction);
-      ch.dominance = diagnose(plant, c, *ch.second_order, ch.dominant->simulated);
+      ch.dominance = diagnose_dominance(close_loop(plant, TransferFunction(Polynomial({c.gain}), Polynomial({1.0}))).output, c.pair_pole, *ch.second_order,
+                                        ch.dominant->simulated);
     }
   }
   ch.reference = find_reference(plant, ch, limit, amplitude, sim, ch.reference_note);

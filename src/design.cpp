@@ -152,9 +152,13 @@ std::optional<Complex> slowest_complex_pair(const std::vector<Complex>& poles) {
 namespace {
 
 constexpr double kConfirmationTolerance = 2e-3;  // normalized violation (0.2 % of the limit)
-constexpr int kConfirmationSamples = 20000;     // samples over the horizon
 
 }  // namespace
+
+NonlinearResult simulate_on_nonlinear_loop(const Problem& problem, const Controller& controller, const NonlinearSetup& setup) {
+  return simulate_nonlinear(problem.delay_free_realization, controller, setup.actuator, setup.options,
+                            problem.spec.reference.amplitude, problem.band_fraction);
+}
 
 NonlinearSetup nonlinear_setup(const Problem& problem, double linear_horizon_s, int samples) {
   const Spec& spec = problem.spec;
@@ -202,11 +206,6 @@ std::string show_value(const Requirement& req, const std::optional<double>& v) {
   return v ? fmt::format("{:.4g}{}", *v, req.unit.empty() ? "" : " " + req.unit) : std::string("none");
 }
 
-NonlinearResult simulate_setup(const Problem& problem, const Design& d, const NonlinearSetup& setup) {
-  return simulate_nonlinear(problem.delay_free_realization, d.controller, setup.actuator, setup.options,
-                            problem.spec.reference.amplitude, problem.band_fraction);
-}
-
 // An effect of the nonlinear loop that can be taken out of the setup to see what it costs.
 struct Effect {
   const char* factor;
@@ -222,7 +221,7 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   const NonlinearSetup setup = nonlinear_setup(problem, linear_horizon_s, kConfirmationSamples);
   NonlinearResult r;
   try {
-    r = simulate_setup(problem, d, setup);
+    r = simulate_on_nonlinear_loop(problem, d.controller, setup);
   } catch (const std::invalid_argument& e) {
     nc.status = NonlinearStatus::non_finite;
     nc.verdict = std::string("not confirmed: the nonlinear loop cannot be simulated (") + e.what() + ")";
@@ -301,7 +300,7 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
     NonlinearSetup reduced = setup;
     effect.take_out(reduced);
     try {
-      const NonlinearResult rr = simulate_setup(problem, d, reduced);
+      const NonlinearResult rr = simulate_on_nonlinear_loop(problem, d.controller, reduced);
       trial.status = rr.status;
       if (rr.status == NonlinearStatus::ok) {
         trial.restores = true;
@@ -341,7 +340,14 @@ Design measure_design(const Problem& problem, std::string name, const Controller
   d.closed_loop_poles = cl.output.poles();
   if (d.status == StepStatus::ok) {
     const auto pair = slowest_complex_pair(d.closed_loop_poles);
-    if (pair) d.second_order = predict_second_order(*pair, problem.band_fraction);
+    if (pair) {
+      d.second_order = predict_second_order(*pair, problem.band_fraction);
+      // r → y through the two-degree-of-freedom controller: C_r shares C's denominator, so
+      // T = C_r,num·G_num / (C_den·G_den + C_num·G_num).
+      const TransferFunction& g = problem.plant;
+      const TransferFunction t(d.reference_path.numerator * g.numerator, cl.output.denominator);
+      d.dominance = diagnose_dominance(t, *pair, *d.second_order, d.simulated);
+    }
     d.margins = loop_margins(controller.transfer * problem.plant);
   } else {
     d.notes.push_back(fmt::format("linear loop {}: no metrics", status_name(d.status)));

@@ -1,5 +1,6 @@
 // JSON output of the characterization.
 #include "specloop/json_io.hpp"
+#include "specloop/report.hpp"
 
 #include <cmath>
 #include <stdexcept>
@@ -51,6 +52,18 @@ json metrics_json(const StepMetrics& m) {
           {"itae", number_json(m.itae)}};
 }
 
+json dominance_json(const DominanceDiagnosis& d) {
+  json modes = json::array();
+  for (const auto& m : d.modes) modes.push_back({{"pole", complex_json(m.pole)}, {"share", optional_json(m.share)}});
+  return {{"verdict", d.verdict},
+          {"holds", d.holds},
+          {"reasons", d.reasons},
+          {"modes", modes},
+          {"overshoot_error_pct", number_json(d.overshoot_error_pct)},
+          {"peak_time_error_pct", optional_json(d.peak_time_error_pct)},
+          {"settling_time_error_pct", optional_json(d.settling_time_error_pct)}};
+}
+
 json characterization_json(const Spec& spec, const Characterization& ch) {
   json out;
   out["spec"] = spec.path;
@@ -88,16 +101,7 @@ json characterization_json(const Spec& spec, const Characterization& ch) {
     out["reference_note"] = ch.reference_note;
   }
   if (ch.dominance) {
-    const auto& d = *ch.dominance;
-    json modes = json::array();
-    for (const auto& m : d.modes) modes.push_back({{"pole", complex_json(m.pole)}, {"share", optional_json(m.share)}});
-    out["dominance"] = {{"verdict", d.verdict},
-                        {"holds", d.holds},
-                        {"reasons", d.reasons},
-                        {"modes", modes},
-                        {"overshoot_error_pct", number_json(d.overshoot_error_pct)},
-                        {"peak_time_error_pct", optional_json(d.peak_time_error_pct)},
-                        {"settling_time_error_pct", optional_json(d.settling_time_error_pct)}};
+    out["dominance"] = dominance_json(*ch.dominance);
   } else {
     out["dominance"] = {{"verdict", "no dominant crossing: nothing to compare"}, {"holds", false},
                         {"reasons", json::array({ch.dominant_reason})}};
@@ -213,6 +217,7 @@ json design_json(const Design& d) {
                                    {"natural_frequency", number_json(d.second_order->natural_frequency)}}
                             : json(nullptr);
   out["simulated"] = d.status == StepStatus::ok ? metrics_json(d.simulated) : json(nullptr);
+  out["dominance"] = d.dominance ? dominance_json(*d.dominance) : json(nullptr);
   if (d.nonlinear) {
     const NonlinearConfirmation& n = *d.nonlinear;
     out["nonlinear"] = {{"status", status_name(n.status)},
@@ -300,9 +305,7 @@ json result_json(const DesignRun& run) {
               {"search", search_json(run.search)},
               {"met", run.met},
               {"judged_on", run.judged_on_nonlinear ? "nonlinear" : "linear"},
-              {"safety", "A simulated design is not a verified machine: validate on the real system with interlocks, "
-                         "and defer to local codes, applicable functional-safety standards and licensed engineering "
-                         "practice."}};
+              {"safety", kSafetyCaution}};
   if (run.target)
     out["target_pole"] = {{"pole", complex_json(run.target->pole)}, {"derivation", run.target->derivation}};
   if (run.ultimate)

@@ -8,6 +8,7 @@
 
 #include "specloop/characterize.hpp"
 #include "specloop/json_io.hpp"
+#include "specloop/report.hpp"
 #include "specloop/spec.hpp"
 
 namespace {
@@ -96,7 +97,7 @@ std::string check_cell(const RequirementCheck& c) {
   return fmt::format("{:>10} {}", text, c.met ? "✓" : "✗");
 }
 
-void print_design(const DesignRun& run, const std::string& result_path) {
+void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   const Spec& spec = run.problem.spec;
   fmt::print("{}  —  structure {}\n\n", spec.title.empty() ? spec.name : spec.title,
              structure_name(spec.controller.structure));
@@ -159,20 +160,10 @@ void print_design(const DesignRun& run, const std::string& result_path) {
                run.judged_on_nonlinear ? "nonlinear" : "linear");
   }
   if (best && best->nonlinear) fmt::print("Nonlinear loop: {}\n", best->nonlinear->verdict);
-  fmt::print("Result: {}\n", result_path);
-  fmt::print("Caution: a simulated design is not a verified machine; validate on the real system with interlocks.\n");
-}
-
-// Writes `text` to `path` through a temporary file and a rename, so no half-written file remains.
-void write_atomically(const std::filesystem::path& path, const std::string& text) {
-  std::filesystem::create_directories(path.parent_path());
-  const auto tmp = path.string() + ".tmp";
-  {
-    std::ofstream out(tmp, std::ios::binary | std::ios::trunc);
-    out << text;
-    if (!out) throw std::runtime_error("cannot write " + tmp);
-  }
-  std::filesystem::rename(tmp, path);
+  fmt::print("Report: {} (also {}; data in {})\n", outcome.html.string(), outcome.markdown.string(),
+             outcome.result.string());
+  if (!outcome.figures_rendered) fmt::print("{}\n", outcome.figures_note);
+  fmt::print("Caution: {}\n", kSafetyCaution);
 }
 
 }  // namespace
@@ -213,9 +204,8 @@ int main(int argc, char** argv) {
       const Spec spec = load_spec(spec_path);
       const DesignRun run = run_design(spec);
       const std::filesystem::path dir = out_dir.empty() ? std::filesystem::path("results") / spec.name : std::filesystem::path(out_dir);
-      const auto result_path = dir / "result.json";
-      write_atomically(result_path, result_json(run).dump(2) + "\n");
-      print_design(run, result_path.string());
+      const ReportOutcome outcome = write_design_outputs(run, dir);
+      print_design(run, outcome);
       return run.met ? 0 : 1;
     }
   } catch (const SpecError& e) {

@@ -60,11 +60,21 @@ struct DominanceDiagnosis {
   bool holds = false;
   std::string verdict;               // one plain sentence
   std::vector<std::string> reasons;  // what breaks it (or why it holds), with numbers
+  std::vector<Complex> slow_poles;   // the closed-loop poles named in `reasons` (upper members)
+  std::vector<Complex> near_zeros;   // the closed-loop zeros named in `reasons` (upper members)
   std::vector<ModeShare> modes;
   double overshoot_error_pct = 0.0;  // (simulated − predicted)/predicted·100
   std::optional<double> peak_time_error_pct;
   std::optional<double> settling_time_error_pct;
 };
+
+/// Does the second-order approximation from `pair_pole` (upper member of the closed-loop pair)
+/// describe the closed loop `t`? Names every other pole slower than 5× the pair's decay that
+/// carries more than 5 % of the step response, and every zero within 5× the pair's σ of the
+/// imaginary axis with no pole to cancel it; compares the prediction with the simulated metrics
+/// (agreement: overshoot and peak time within 10 %).
+DominanceDiagnosis diagnose_dominance(const TransferFunction& t, Complex pair_pole, const SecondOrderPrediction& pred,
+                                      const StepMetrics& sim);
 
 /// A P gain with its closed-loop poles and simulated step metrics.
 struct GainPoint {

@@ -87,6 +87,7 @@ struct Design {
   StepStatus status = StepStatus::ok;
   std::vector<Complex> closed_loop_poles;
   std::optional<SecondOrderPrediction> second_order;  // from the slowest complex closed-loop pair
+  std::optional<DominanceDiagnosis> dominance;        // does that prediction hold, and what breaks it
   StepMetrics simulated;
   std::optional<Margins> margins;   // empty when the closed loop is unstable
   std::vector<RequirementCheck> checks;
@@ -102,6 +103,10 @@ struct NonlinearSetup {
   LoopOptions options;
 };
 NonlinearSetup nonlinear_setup(const Problem& problem, double linear_horizon_s, int samples);
+/// The step of the spec's reference through that loop with `controller` (the spec's plant).
+NonlinearResult simulate_on_nonlinear_loop(const Problem& problem, const Controller& controller, const NonlinearSetup& setup);
+/// Output samples of the confirmation run (and of the report's nonlinear traces).
+inline constexpr int kConfirmationSamples = 20000;
 
 /// Measures a controller on the problem's linear loop and checks every requirement, then
 /// confirms it on the nonlinear loop (the spec's actuator limits, rate limit, anti-windup and

@@ -18,6 +18,8 @@ nlohmann::json number_json(double v);
 /// Step metrics with the keys overshoot_pct, peak_time, settling_time, rise_time,
 /// steady_state_error, effort_peak, undershoot_pct, final_value, iae, ise, itae (null = none).
 nlohmann::json metrics_json(const StepMetrics& m);
+/// Whether the second-order prediction holds: verdict, reasons, modes with their shares, errors.
+nlohmann::json dominance_json(const DominanceDiagnosis& d);
 /// The whole `analyze --json` object.
 nlohmann::json characterization_json(const Spec& spec, const Characterization& ch);
 

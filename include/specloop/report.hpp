@@ -1,0 +1,58 @@
+// The design report: result.json, report.html (self-contained), report.md, the series behind every
+// figure as CSV, and each figure as a gnuplot script with its SVG and PNG.
+#pragma once
+
+#include <filesystem>
+#include <string>
+#include <vector>
+
+#include "specloop/design.hpp"
+#include "specloop/locus.hpp"
+
+namespace specloop {
+
+/// One response curve of a design: time, output, applied control (and the command before the
+/// actuator, for the nonlinear loop).
+struct ResponseTrace {
+  std::string design;      // reference, classical, ultimate_gain, optimized
+  bool nonlinear = false;  // the nonlinear loop (limits, rate limit, delay, sampling) or the linear one
+  std::vector<double> time_s, output, control, command;
+};
+
+/// Everything the figures draw, computed from a design run.
+struct ReportData {
+  std::vector<ResponseTrace> traces;  // linear for every design that simulates, + the recommended one nonlinear
+  std::string locus_design;           // whose controller the locus varies (the recommended design)
+  TransferFunction locus_loop;        // its C(s)·G(s)
+  RootLocus locus;
+  std::vector<std::pair<std::string, FrequencySeries>> frequency;  // classical and optimized loops
+  double plot_horizon_s = 0.0;        // time axis of the step and effort figures
+};
+
+/// The design the report recommends: the optimized one, else the classical one, else none.
+const Design* recommended_design(const DesignRun& run);
+
+/// Computes the traces (exact linear step simulation; the nonlinear loop as confirmed, 4000
+/// samples), the root locus of the recommended loop for gain multipliers 1e-3 … 1e3 and the
+/// classical and optimized loops' frequency responses.
+ReportData report_data(const DesignRun& run);
+
+struct ReportOptions {
+  bool render_figures = true;  // run gnuplot (when found) to draw plots/*.svg and *.png
+};
+
+struct ReportOutcome {
+  std::filesystem::path result, html, markdown;
+  bool figures_rendered = false;
+  std::string figures_note;  // why not, and how to get them
+};
+
+/// Writes DIR/result.json, DIR/report.html, DIR/report.md, DIR/series/*.csv and DIR/plots/.
+/// Everything is first written to a staging folder beside DIR and then moved in, so an error
+/// leaves either the previous outputs or the complete new ones, never a half-written report.
+ReportOutcome write_design_outputs(const DesignRun& run, const std::filesystem::path& dir, const ReportOptions& options = {});
+
+/// The safety caution every report and the README carry.
+extern const char* const kSafetyCaution;
+
+}  // namespace specloop
