@@ -34,7 +34,7 @@ const Design* recommended_design(const DesignRun& run) {
 
 namespace {
 
-constexpr int kReportNonlinearSamples = 4000;
+constexpr int kReportNonlinearSamples = 2000;
 
 std::vector<double> subsample(const std::vector<double>& v, std::size_t stride) {
   std::vector<double> out;
@@ -104,7 +104,7 @@ ReportData report_data(const DesignRun& run) {
     if (!d || d->status != StepStatus::ok) continue;
     const TransferFunction loop = d->controller.transfer * problem.plant;
     const auto [lo, hi] = frequency_range(loop, d->margins);
-    data.frequency.emplace_back(name, loop_frequency_response(loop, lo, hi));
+    data.frequency.emplace_back(name, loop_frequency_response(loop, lo, hi, 300));
   }
   data.plot_horizon_s = horizon > 0.0 ? horizon : 1.0;
   return data;
@@ -255,8 +255,10 @@ std::string step_script(const DesignRun& run, const ReportData& data, bool effor
   }
   for (const ResponseTrace& t : data.traces) {
     if (t.design == "ultimate_gain") continue;  // in the CSV; the figure shows the designs compared
-    plots.push_back(fmt::format("'../series/{}' using 1:{} with lines lc rgb '{}' lw {} {} title {}", trace_file(t),
-                                effort ? 3 : 2, colour_of(t.design, t.nonlinear), t.design == "reference" ? "1.2" : "2",
+    // Draw at most ~700 points per curve (the CSV keeps every row): smooth curves, small SVGs.
+    const std::size_t rows = std::min<std::size_t>(t.time_s.size(), 2000);
+    plots.push_back(fmt::format("'../series/{}' every {} using 1:{} with lines lc rgb '{}' lw {} {} title {}", trace_file(t),
+                                std::max<std::size_t>(1, rows / 700), effort ? 3 : 2, colour_of(t.design, t.nonlinear), t.design == "reference" ? "1.2" : "2",
                                 t.nonlinear ? "dt (8,4)" : "", quoted(label_of(t.design, t.nonlinear))));
   }
   s += fmt::format("  plot {}\n", fmt::join(plots, ", \\\n       "));
@@ -345,8 +347,8 @@ std::string frequency_script(const DesignRun& run, const ReportData& data) {
 std::pair<double, double> write_series(const DesignRun& run, const ReportData& data, const fs::path& dir) {
   fs::create_directories(dir);
   for (const ResponseTrace& t : data.traces) {
-    // Keep committed examples small: at most ~4000 rows per trace.
-    const std::size_t stride = std::max<std::size_t>(1, t.time_s.size() / 4000);
+    // Keep reports small: at most ~2000 rows per trace (every sample of the usual grids).
+    const std::size_t stride = std::max<std::size_t>(1, t.time_s.size() / 2000);
     const auto time = subsample(t.time_s, stride), y = subsample(t.output, stride), u = subsample(t.control, stride);
     if (t.nonlinear) {
       const auto uc = subsample(t.command, stride);

@@ -22,7 +22,7 @@ result.json, series/*.csv and plots/{step,effort,splane,frequency}.{gp,svg,png}.
                scipy.interpolate.CubicSpline; crossings by scipy.optimize.brentq) reproduce
                result.json's overshoot, peak, rise and settling times. For the linear loop the samples are those of the exact simulation:
                0.002 points, 0.01 % or a twentieth of a sample step. For the nonlinear loop the
-               report keeps 4000 of the confirmation's 20000 samples: 0.05 points, 0.2 % or two
+               report keeps 2000 of the confirmation's 20000 samples: 0.05 points, 0.2 % or two
                report sample steps.
   root locus   every plotted pole set satisfies the characteristic equation D(s) + k·N(s) = 0 of
                the recommended loop (N, D from result.json, evaluated with numpy.polyval) to a

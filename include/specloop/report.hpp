@@ -32,7 +32,7 @@ struct ReportData {
 /// The design the report recommends: the optimized one, else the classical one, else none.
 const Design* recommended_design(const DesignRun& run);
 
-/// Computes the traces (exact linear step simulation; the nonlinear loop as confirmed, 4000
+/// Computes the traces (exact linear step simulation; the nonlinear loop as confirmed, 2000
 /// samples), the root locus of the recommended loop for gain multipliers 1e-3 … 1e3 and the
 /// classical and optimized loops' frequency responses.
 ReportData report_data(const DesignRun& run);
