@@ -2,6 +2,8 @@
 // ultimate-gain baseline. The NLopt search lives in search.cpp.
 #include "specloop/design.hpp"
 
+#include "specloop/expression_plant.hpp"
+
 #include <algorithm>
 #include <boost/math/tools/roots.hpp>
 #include <cmath>
@@ -159,12 +161,16 @@ constexpr int kConfirmationSamples = 20000;     // samples over the horizon
 NonlinearSetup nonlinear_setup(const Problem& problem, double linear_horizon_s, int samples) {
   const Spec& spec = problem.spec;
   NonlinearSetup setup;
+  // A nonlinear plant runs in deviation variables around its operating point: the spec's absolute
+  // actuator limits become deviations from u0 (the spec parser checked that they bracket u0).
+  const double u0 = spec.plant.nonlinear ? spec.plant.nonlinear->input : 0.0;
   if (spec.actuator.limited) {
-    setup.actuator.min = spec.actuator.min;
-    setup.actuator.max = spec.actuator.max;
+    setup.actuator.min = spec.actuator.min - u0;
+    setup.actuator.max = spec.actuator.max - u0;
   }
   setup.actuator.rate_max = spec.actuator.rate_max;
   LoopOptions& options = setup.options;
+  if (spec.plant.nonlinear) options.plant_model = spec.plant.nonlinear->model;
   options.anti_windup = spec.controller.anti_windup;
   options.setpoint_weight = spec.controller.setpoint_weight;
   options.derivative_weight = spec.controller.derivative_on_measurement ? 0.0 : 1.0;
@@ -244,6 +250,9 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
               fmt::format("the exact {:.4g} s delay (the linear loop used its Padé approximant)", spec.plant.delay_s);
   if (spec.controller.sample_time_s > 0.0)
     causes += (causes.empty() ? "" : "; ") + fmt::format("sampling at {:.4g} s", spec.controller.sample_time_s);
+  if (spec.plant.nonlinear)
+    causes += (causes.empty() ? "" : "; ") +
+              std::string("the nonlinear plant model (the design used its linearization at the operating point)");
   if (nc.confirmed)
     nc.verdict = causes.empty() ? "confirmed: nothing saturates; the nonlinear loop matches the linear one"
                                 : "confirmed, with these in the loop: " + causes;

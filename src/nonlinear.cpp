@@ -126,6 +126,7 @@ struct LoopModel : PidLaw {
   Eigen::VectorXd bp;
   Eigen::RowVectorXd cp;
   int np = 0;
+  const PlantModel* pm = nullptr;  // set: a nonlinear plant (deviation variables) replaces Ap, Bp, Cp
   // Parallel controller.
   bool parallel = false;
   int i_index = -1, d_index = -1;
@@ -145,13 +146,18 @@ struct LoopModel : PidLaw {
   const DelayLine* delay = nullptr;  // set: the plant input is the applied u delayed
 
   double output(const double* x) const {
+    if (pm) return pm->output(x);
     double y = 0;
     for (int i = 0; i < np; ++i) y += cp(i) * x[i];
     return y;
   }
-  // The part of u_c that is linear in the state (applied to x' it gives u_c').
-  double command_linear(const double* x) const {
-    const double y = output(x);
+  // The part of u_c that is linear in the state and the output.
+  double command_linear(const double* x) const { return command_linear(x, output(x)); }
+  // u_c' along the loop's state rate xdot at x (the command's linear part applied to x', y').
+  double command_rate(const double* x, const double* xdot) const {
+    return command_linear(xdot, pm ? pm->output_rate(x, xdot) : output(xdot));
+  }
+  double command_linear(const double* x, double y) const {
     if (parallel) {
       double u = -kp * y;
       if (i_index >= 0) u += x[i_index];
@@ -174,10 +180,14 @@ struct LoopModel : PidLaw {
     const double ua = (rate && m.rate != RateMode::tracking) ? x[ua_index] : us;
     const double up = delay ? delay->value(t - delay->delay) : ua;
     const double e = r - y;
-    for (int i = 0; i < np; ++i) {
-      double s = bp(i) * (up + d);
-      for (int j = 0; j < np; ++j) s += ap(i, j) * x[j];
-      dx[i] = s;
+    if (pm) {
+      pm->derivative(x, up + d, dx);
+    } else {
+      for (int i = 0; i < np; ++i) {
+        double s = bp(i) * (up + d);
+        for (int j = 0; j < np; ++j) s += ap(i, j) * x[j];
+        dx[i] = s;
+      }
     }
     if (parallel) {
       if (i_index >= 0) {
@@ -190,7 +200,7 @@ struct LoopModel : PidLaw {
               // integrator moves just enough to hold u_c' = 0.
               dx[i_index] = 0.0;
               if (d_index >= 0) dx[d_index] = (c * r - y - x[d_index]) / tf;
-              dx[i_index] = -command_linear(dx);
+              dx[i_index] = -command_rate(x, dx);
             } else {
               dx[i_index] = m.integrating ? ki * e : 0.0;
             }
@@ -236,7 +246,7 @@ struct LoopModel : PidLaw {
       if (m.rate == RateMode::down && x[ua_index] < us) return false;
       if (m.rate == RateMode::tracking && m.sat == 0) {
         derivative(x, scratch.data(), m, d, t);
-        if (std::abs(command_linear(scratch.data())) > rate_max) return false;
+        if (std::abs(command_rate(x, scratch.data())) > rate_max) return false;
       }
     }
     return true;
@@ -264,7 +274,7 @@ struct LoopModel : PidLaw {
       probe.integrating = false;
       derivative(x.data(), scratch.data(), probe, d, t);
       if (clamps()) scratch[i_index] = 0.0;
-      const double frozen = s * command_linear(scratch.data());  // s·u_c' with I frozen
+      const double frozen = s * command_rate(x.data(), scratch.data());  // s·u_c' with I frozen
       const double drive = clamps() ? s * ki * (r - output(x.data())) : 0.0;
       if (clamps() && drive > 0.0) {
         if (frozen >= 0.0) { m.sat = side; m.integrating = false; }
@@ -273,7 +283,7 @@ struct LoopModel : PidLaw {
       } else {
         probe.integrating = true;
         derivative(x.data(), scratch.data(), probe, d, t);
-        const double slope = s * command_linear(scratch.data());
+        const double slope = s * command_rate(x.data(), scratch.data());
         m.sat = slope > 0.0 ? side : 0;
         m.integrating = true;
       }
@@ -284,7 +294,7 @@ struct LoopModel : PidLaw {
       if (m.rate == RateMode::down && x[ua_index] <= us) m.rate = RateMode::tracking;
       if (m.rate == RateMode::tracking && m.sat == 0) {
         derivative(x.data(), scratch.data(), m, d, t);
-        const double slope = command_linear(scratch.data());
+        const double slope = command_rate(x.data(), scratch.data());
         if (std::abs(slope) > rate_max) {
           m.rate = slope > 0 ? RateMode::up : RateMode::down;
           x[ua_index] = us;
@@ -534,6 +544,11 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   model.bp = plant.B;
   model.cp = plant.C.row(0);
   model.np = plant.states();
+  if (options.plant_model) {
+    if (options.plant_model->states() < 1) fail("plant_model: needs at least one state");
+    model.pm = options.plant_model.get();
+    model.np = model.pm->states();
+  }
   model.r = amplitude;
   model.umin = actuator.min;
   model.umax = actuator.max;
@@ -676,7 +691,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     std::vector<double> commands;  // u_c[k]
     auto record = [&](double ts, const State& xs) {
       result.time_s.push_back(ts);
-      result.output.push_back(model.cp.dot(Eigen::Map<const Eigen::VectorXd>(xs.data(), np)));
+      result.output.push_back(model.output(xs.data()));
       const auto k = static_cast<std::size_t>(std::max(0.0, std::floor(ts / period + 1e-9)));
       result.command.push_back(commands[std::min(k, commands.size() - 1)]);
       result.control.push_back(applied_at(ts));
@@ -688,6 +703,10 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
       double u0, slope, t0, d;
       void operator()(const State& xs, State& dx, double time) const {
         const double u = u0 + slope * (time - t0) + d;
+        if (m->pm) {
+          m->pm->derivative(xs.data(), u, dx.data());
+          return;
+        }
         for (int i = 0; i < m->np; ++i) {
           double v = m->bp(i) * u;
           for (int j = 0; j < m->np; ++j) v += m->ap(i, j) * xs[static_cast<std::size_t>(j)];
@@ -704,7 +723,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
         // Controller samples due now.
         while (static_cast<double>(k) * period <= t && static_cast<double>(k) * period <= horizon) {
           const double tk = static_cast<double>(k) * period;
-          const double y = model.cp.dot(Eigen::Map<const Eigen::VectorXd>(x.data(), np));
+          const double y = model.output(x.data());
           const double uc = ctl.update(amplitude, y);
           if (!std::isfinite(uc)) return stop(NonlinearStatus::non_finite, "the controller output became non-finite at t = " + to_string(tk) + " s");
           commands.push_back(uc);
@@ -762,6 +781,8 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
       }
     } catch (const boost::numeric::odeint::odeint_error& e) {
       return stop(NonlinearStatus::step_limit, std::string("the integrator gave up: ") + e.what());
+    } catch (const PlantEvaluationError& e) {
+      return stop(NonlinearStatus::non_finite, std::string(e.what()) + " (integrating from t = " + to_string(t) + " s)");
     }
   } else {
     // ---- Continuous controller: hybrid integration with located switches (and delay line).
@@ -869,6 +890,9 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
       if (!all_finite(dense.current_state()))
         return stop(NonlinearStatus::non_finite, std::string("the state became non-finite: ") + e.what());
       return stop(NonlinearStatus::step_limit, std::string("the integrator gave up: ") + e.what());
+    } catch (const PlantEvaluationError& e) {
+      return stop(NonlinearStatus::non_finite,
+                  std::string(e.what()) + " (integrating from t = " + to_string(dense.current_time()) + " s)");
     }
   }
   for (double v : result.output)

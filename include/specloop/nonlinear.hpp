@@ -10,7 +10,9 @@
 #pragma once
 
 #include <limits>
+#include <memory>
 #include <optional>
+#include <stdexcept>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -32,6 +34,29 @@ struct ActuatorModel {
                                    // limit; back-calculation feeds back the applied (rate-limited) u.
 };
 
+/// A plant given by its own right-hand side instead of (A, B, C), in deviation variables around
+/// an operating point (x0, u0, y0): the simulation's state is δx = x − x0, its input δu = u − u0,
+/// its output δy = h(x0 + δx) − y0. Implemented by ExpressionPlant (expression_plant.hpp).
+/// Evaluations may throw PlantEvaluationError (a NaN or infinity from the model); the simulation
+/// turns that into status non_finite with the message as a note.
+class PlantModel {
+ public:
+  virtual ~PlantModel() = default;
+  virtual int states() const = 0;
+  /// δx' = f(x0 + δx, u0 + δu).
+  virtual void derivative(const double* deviation, double input_deviation, double* rate) const = 0;
+  /// δy = h(x0 + δx) − y0.
+  virtual double output(const double* deviation) const = 0;
+  /// dδy/dt along the state rate `rate` at δx: ∂h/∂x·rate.
+  virtual double output_rate(const double* deviation, const double* rate) const = 0;
+};
+
+/// A plant model evaluated to NaN or infinity; the message names the expression and the values.
+class PlantEvaluationError : public std::runtime_error {
+ public:
+  using std::runtime_error::runtime_error;
+};
+
 struct LoopOptions {
   double setpoint_weight = 1.0;    // b: proportional term acts on b·r − y (parallel form only)
   double derivative_weight = 1.0;  // c: derivative of c·r − y; 1 = on error, 0 = on measurement
@@ -48,6 +73,9 @@ struct LoopOptions {
   double absolute_tolerance = 1e-10;
   double delay_s = 0.0;        // transport delay between the applied actuator output and the plant input, s (>= 0)
   double sample_time_s = 0.0;  // > 0: the controller runs at this period (see below); 0: continuous
+  /// Set: the plant is this model (deviation variables) instead of the StateSpace argument, which
+  /// then only gives the linear loop's final value y∞ and the default horizon (its linearization).
+  std::shared_ptr<const PlantModel> plant_model;
 };
 
 /// u[k] as a linear recursion of the controller's discrete transfer functions in z⁻¹, from the
@@ -134,6 +162,11 @@ struct NonlinearResult {
 /// delay shifts its switching instants exactly; the plant is integrated with dopri5 piece by
 /// piece between those instants. `switches` counts the integration pieces; the saturated
 /// fraction counts the sample periods whose command lies beyond a limit.
+///
+/// Nonlinear plant (options.plant_model set): the plant part of the loop is the model's
+/// right-hand side in deviation variables; everything else (actuator limits and rates, which are
+/// then deviations from u0 too, anti-windup, delay, sampling) is unchanged. A NaN or infinity from
+/// the model ends the run with status non_finite and a note naming the expression and the time.
 ///
 /// Throws std::invalid_argument for malformed input (the message names the field); numerical
 /// failures are reported in `status`, never as NaN samples.
