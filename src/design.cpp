@@ -211,7 +211,8 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   nc.difference_equation = r.difference_equation;
   nc.saturated_fraction = r.saturated_fraction;
   if (r.status != NonlinearStatus::ok) {
-    nc.verdict = fmt::format("not confirmed: the nonlinear simulation stopped ({})", status_name(r.status));
+    nc.verdict = fmt::format("not confirmed: the nonlinear simulation stopped ({}{})", status_name(r.status),
+                             r.notes.empty() ? std::string() : ": " + r.notes.back());
     return nc;
   }
   nc.simulated = r.metrics;

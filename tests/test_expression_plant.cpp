@@ -12,7 +12,9 @@
 #include <string>
 #include <vector>
 
+#include "specloop/characterize.hpp"
 #include "specloop/compensator.hpp"
+#include "specloop/design.hpp"
 #include "specloop/expression_plant.hpp"
 #include "specloop/nonlinear.hpp"
 #include "specloop/spec.hpp"
@@ -273,4 +275,97 @@ TEST_CASE("spec: expression mistakes name their key and line", "[expression][spe
                                "x.toml"),
                     Contains("plant.nonlinear.operating_point.q") && Contains("missing"));
   CHECK_NOTHROW(load("states = [\"h\"]\nderivatives = [\"u - h\"]\noutput = \"h\"\n"));
+}
+
+TEST_CASE("free integrator: Newton stops on the line of equilibria nearest the guess", "[expression]") {
+  // A drive: angle' = rate, rate' = (gain·u − rate)/lag. With u = 0 every (angle, 0) is an
+  // equilibrium (A is singular); the minimum-norm Newton step changes only the rate. The linearized
+  // G(s) = (gain/lag)/(s·(s + 1/lag)) has a pole exactly at 0 (derived).
+  ExpressionDefinition d;
+  d.states = {"angle", "rate"};
+  d.derivatives = {"rate", "(gain*u - rate)/lag"};
+  d.output = "angle";
+  d.parameters = {{"gain", 2.0}, {"lag", 0.5}};
+  const ExpressionPlant drive(d);
+  const Equilibrium eq = drive.find_equilibrium({0.3, 0.2}, 0.0);
+  CHECK(std::abs(eq.states[1]) < 1e-12);
+  CHECK(std::abs(eq.states[0] - 0.3) < 1e-12);  // the rate was off, not the angle
+  const TransferFunction g = transfer_function_of(drive.linearize(eq.states, 0.0).model);
+  REQUIRE(g.denominator.degree() == 2);
+  CHECK(g.denominator.constant() == 0.0);  // exactly: a structural zero stays zero
+  CHECK(g.system_type() == 1);
+  CHECK(relative_error(g.numerator.constant() / g.denominator.leading(), 2.0 / 0.5) < 1e-10);
+}
+
+TEST_CASE("sampled controller on an expression plant: small steps approach the linear loop", "[expression][nonlinear]") {
+  // The sampled path integrates the plant between hold switches with its own functor: the same
+  // quadratic property as the continuous path (Taylor), with a PI at Ts = 2 s.
+  auto tank = std::make_shared<ExpressionPlant>(tank_definition());
+  const Equilibrium eq = tank->find_equilibrium({1.0}, 0.43);
+  tank->set_operating_point(eq.states, 0.43);
+  const StateSpace linear = realize(transfer_function_of(tank->linearize(eq.states, 0.43).model));
+  const Controller pi = make_controller(Structure::pi, {2.0, 0.02}, 10.0);
+  const auto error_at = [&](double amplitude) {
+    LoopOptions options;
+    options.horizon_s = 400.0;
+    options.output_step_s = 1.0;
+    options.sample_time_s = 2.0;
+    options.relative_tolerance = 1e-11;
+    options.absolute_tolerance = 1e-14;
+    const NonlinearResult lin = simulate_nonlinear(linear, pi, ActuatorModel{}, options, amplitude, 0.02);
+    options.plant_model = tank;
+    const NonlinearResult nl = simulate_nonlinear(linear, pi, ActuatorModel{}, options, amplitude, 0.02);
+    REQUIRE(lin.status == NonlinearStatus::ok);
+    REQUIRE(nl.status == NonlinearStatus::ok);
+    REQUIRE(nl.difference_equation);
+    double worst = 0.0;
+    for (std::size_t k = 0; k < nl.output.size(); ++k) worst = std::max(worst, std::abs(nl.output[k] - lin.output[k]));
+    return worst;
+  };
+  const double e1 = error_at(0.04), e2 = error_at(0.02);
+  INFO("max |Δy| at a = 0.04, 0.02: " << e1 << ", " << e2);
+  CHECK(e1 / e2 > 3.5);
+  CHECK(e1 / e2 < 4.5);
+}
+
+TEST_CASE("design: limits become deviations and the confirmation runs the expressions", "[expression][design]") {
+  // The demo tank: absolute pump limits [0, 1] around u0 = 0.5 become [−0.5, 0.5]. The confirmation
+  // must integrate the expressions, not the linearization: at a tiny step the two loops agree, at
+  // the spec's 0.25 m step the tank's gain falls with the level (√ outflow) and they differ.
+  Spec spec = load_spec(std::string(SPECLOOP_SOURCE_DIR) + "/specs/greywater_buffer.toml");
+  REQUIRE(spec.plant.nonlinear);
+  const Problem problem = make_problem(spec, characterize(spec));
+  const NonlinearSetup setup = nonlinear_setup(problem, 300.0, 2000);
+  CHECK(setup.actuator.min == Approx(0.0 - spec.plant.nonlinear->input));
+  CHECK(setup.actuator.max == Approx(1.0 - spec.plant.nonlinear->input));
+  CHECK(setup.options.plant_model != nullptr);
+
+  const Controller pi = make_controller(Structure::pi, {2.5, 0.012}, 10.0);
+  const auto overshoot_gap = [&](double amplitude) {
+    Spec scaled = spec;
+    scaled.reference.amplitude = amplitude;
+    const Problem p = make_problem(scaled, characterize(scaled));
+    const Design d = measure_design(p, "probe", pi);
+    REQUIRE(d.nonlinear);
+    REQUIRE(d.nonlinear->status == NonlinearStatus::ok);
+    return std::abs(d.nonlinear->simulated.overshoot_pct - d.simulated.overshoot_pct);
+  };
+  const double tiny = overshoot_gap(1e-4), full = overshoot_gap(0.25);
+  INFO("overshoot gap (points) at 1e-4 m: " << tiny << ", at 0.25 m: " << full);
+  CHECK(tiny < 0.01);  // sample-maximum resolution of the confirmation's metrics
+  CHECK(full > 10.0 * tiny);
+  CHECK(full > 0.05);
+}
+
+TEST_CASE("design: a tank asked to drain below empty is not confirmed, and the verdict says why", "[expression][design]") {
+  // A step to 1.2 m below a 1 m operating level: the pump stops, the orifice empties the tank in
+  // finite time (Torricelli) and √level turns NaN. Every design's confirmation must say so.
+  Spec spec = load_spec(std::string(SPECLOOP_SOURCE_DIR) + "/specs/greywater_buffer.toml");
+  spec.reference.amplitude = -1.2;
+  const Problem problem = make_problem(spec, characterize(spec));
+  const Design d = measure_design(problem, "probe", make_controller(Structure::pi, {2.5, 0.012}, 10.0));
+  REQUIRE(d.nonlinear);
+  CHECK(d.nonlinear->status == NonlinearStatus::non_finite);
+  CHECK_FALSE(d.nonlinear->confirmed);
+  CHECK_THAT(d.nonlinear->verdict, Contains("non_finite") && Contains("sqrt(level)") && Contains("NaN"));
 }
