@@ -202,11 +202,11 @@ std::string ExpressionPlant::describe_point(const double* x, double u) const {
   return fmt::format("{}", fmt::join(parts, ", "));
 }
 
-Linearization ExpressionPlant::linearize(const std::vector<double>& x, double u) const {
+Linearization ExpressionPlant::jacobians_at(const std::vector<double>& x, double u) const {
   using Part = ExpressionError::Part;
   const int n = states();
   const auto un = static_cast<std::size_t>(n);
-  if (x.size() != un) throw std::invalid_argument("linearize: expected one value per state");
+  if (x.size() != un) throw std::invalid_argument("jacobians_at: expected one value per state");
   Linearization lin;
   StateSpace& m = lin.model;
   m.A = Eigen::MatrixXd::Zero(n, n);
@@ -290,7 +290,7 @@ Equilibrium ExpressionPlant::find_equilibrium(const std::vector<double>& guess, 
   for (int iteration = 0;; ++iteration) {
     Linearization lin;
     try {
-      lin = linearize(x, u);
+      lin = jacobians_at(x, u);
     } catch (const ExpressionError& e) {
       throw std::runtime_error(fmt::format("no equilibrium found with u = {:.6g}: after {} Newton iteration{} the "
                                            "iterate {} is at the edge of the domain of {}[{}], which {} (change the "

@@ -806,7 +806,7 @@ class SpecReader {
     Linearization linearization;
     try {
       equilibrium = model->find_equilibrium(nl.state_guess, nl.input);
-      linearization = model->linearize(equilibrium.states, nl.input);
+      linearization = model->jacobians_at(equilibrium.states, nl.input);
     } catch (const ExpressionError& e) {
       fail_expression(e);
     } catch (const std::runtime_error& e) {

@@ -63,7 +63,7 @@ TEST_CASE("tank: numerical Jacobian against the analytic one", "[expression]") {
   // Away from equilibrium too: the Jacobian is a property of f at any point.
   for (const double h0 : {0.05, 0.6, 1.2, 7.0}) {
     const double u0 = 0.43;
-    const Linearization lin = tank.linearize({h0}, u0);
+    const Linearization lin = tank.jacobians_at({h0}, u0);
     INFO("h0 = " << h0);
     const double a = -kOutlet / (2.0 * kArea * std::sqrt(h0));
     const double b = kGain / kArea;
@@ -102,7 +102,7 @@ TEST_CASE("pendulum: Jacobians, equilibrium and transfer function against the an
     const Equilibrium eq = pendulum.find_equilibrium({theta0 + 0.2, 0.1}, u0);
     CHECK(std::abs(eq.states[0] - theta0) < 1e-12);
     CHECK(std::abs(eq.states[1]) < 1e-12);
-    const Linearization lin = pendulum.linearize(eq.states, u0);
+    const Linearization lin = pendulum.jacobians_at(eq.states, u0);
     const double a21 = -(kGravity / kLength) * std::cos(theta0), a22 = -kFriction / inertia, b2 = 1.0 / inertia;
     CHECK(lin.model.A(0, 0) == 0.0);  // θ' = ω does not depend on θ: the difference is exactly 0
     CHECK(relative_error(lin.model.A(0, 1), 1.0) < 1e-12);
@@ -185,7 +185,7 @@ double small_step_error(double amplitude) {
   const double u0 = 0.43;
   const Equilibrium eq = tank->find_equilibrium({1.0}, u0);
   tank->set_operating_point(eq.states, u0);
-  const StateSpace linear = realize(transfer_function_of(tank->linearize(eq.states, u0).model));
+  const StateSpace linear = realize(transfer_function_of(tank->jacobians_at(eq.states, u0).model));
   const Controller pi = make_controller(Structure::pi, {2.0, 0.02}, 10.0);
   LoopOptions options;
   options.horizon_s = 400.0;
@@ -225,7 +225,7 @@ TEST_CASE("a NaN from the plant during the simulation is status non_finite with 
   const double u0 = 0.43;
   const Equilibrium eq = tank->find_equilibrium({1.0}, u0);
   tank->set_operating_point(eq.states, u0);
-  const StateSpace linear = realize(transfer_function_of(tank->linearize(eq.states, u0).model));
+  const StateSpace linear = realize(transfer_function_of(tank->jacobians_at(eq.states, u0).model));
   const Controller p = make_controller(Structure::p, {5.0}, 10.0);
   ActuatorModel pump;
   pump.min = 0.0 - u0;  // deviation limits of an absolute range [0, 1]
@@ -290,7 +290,7 @@ TEST_CASE("free integrator: Newton stops on the line of equilibria nearest the g
   const Equilibrium eq = drive.find_equilibrium({0.3, 0.2}, 0.0);
   CHECK(std::abs(eq.states[1]) < 1e-12);
   CHECK(std::abs(eq.states[0] - 0.3) < 1e-12);  // the rate was off, not the angle
-  const TransferFunction g = transfer_function_of(drive.linearize(eq.states, 0.0).model);
+  const TransferFunction g = transfer_function_of(drive.jacobians_at(eq.states, 0.0).model);
   REQUIRE(g.denominator.degree() == 2);
   CHECK(g.denominator.constant() == 0.0);  // exactly: a structural zero stays zero
   CHECK(g.system_type() == 1);
@@ -303,7 +303,7 @@ TEST_CASE("sampled controller on an expression plant: small steps approach the l
   auto tank = std::make_shared<ExpressionPlant>(tank_definition());
   const Equilibrium eq = tank->find_equilibrium({1.0}, 0.43);
   tank->set_operating_point(eq.states, 0.43);
-  const StateSpace linear = realize(transfer_function_of(tank->linearize(eq.states, 0.43).model));
+  const StateSpace linear = realize(transfer_function_of(tank->jacobians_at(eq.states, 0.43).model));
   const Controller pi = make_controller(Structure::pi, {2.0, 0.02}, 10.0);
   const auto error_at = [&](double amplitude) {
     LoopOptions options;

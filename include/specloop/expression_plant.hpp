@@ -76,7 +76,7 @@ class ExpressionPlant final : public PlantModel {
   /// (ε = 2.2e-16; truncation O(h²) and rounding O(ε/h) balance at a relative error of about
   /// ε^(2/3) ≈ 4e-11 for smooth right-hand sides of unit scale). Throws ExpressionError when an
   /// expression is not finite at x or at a perturbed point (too close to its domain's edge).
-  Linearization linearize(const std::vector<double>& x, double u) const;
+  Linearization jacobians_at(const std::vector<double>& x, double u) const;
 
   /// Newton's method on f(x, u) = 0 with u fixed, from `guess`: minimum-norm steps (so a plant
   /// with a free integrator, whose equilibria form a line, converges to the nearest one), halved

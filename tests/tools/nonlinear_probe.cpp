@@ -95,7 +95,7 @@ int run() {
     const double u0 = number(op.at("u"), "plant.nonlinear.operating_point.u");
     const Equilibrium eq = expression_plant->find_equilibrium(guess, u0);
     expression_plant->set_operating_point(eq.states, u0);
-    plant_tf = transfer_function_of(expression_plant->linearize(eq.states, u0).model);
+    plant_tf = transfer_function_of(expression_plant->jacobians_at(eq.states, u0).model);
     operating_point = {{"states", eq.states}, {"u", u0}, {"y", eq.output}};
   } else {
     plant_tf = TransferFunction(Polynomial(numbers(p.at("numerator"), "plant.numerator")),
