@@ -305,6 +305,29 @@ struct LoopModel : PidLaw {
   }
 };
 
+// One dense-output step that survives a plant model evaluated outside its domain at a trial
+// stage: the step is retried from the same (accepted) state with a step ten times smaller, up to
+// kDomainRetries times per step and kDomainRetriesPerRun over a run (a trajectory that really
+// reaches the domain's edge, like a tank draining empty, would otherwise crawl along it); a
+// failure at the accepted state itself, or past either budget, is rethrown (the simulation
+// reports it as non_finite). Each retry counts as work.
+constexpr int kDomainRetries = 12;
+constexpr int kDomainRetriesPerRun = 200;
+template <typename Dense, typename System>
+std::pair<double, double> step_within_domain(Dense& dense, System& system, int& work, int& retries) {
+  for (int attempt = 0;; ++attempt) {
+    try {
+      return dense.do_step(system);
+    } catch (const PlantEvaluationError&) {
+      if (attempt >= kDomainRetries || retries >= kDomainRetriesPerRun) throw;
+      ++retries;
+      ++work;
+      const State x = dense.current_state();
+      dense.initialize(x, dense.current_time(), dense.current_time_step() / 10.0);
+    }
+  }
+}
+
 // The functor odeint integrates: the loop with its modes held.
 struct HeldModeSystem {
   const LoopModel* model;
@@ -662,6 +685,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   const auto started = std::chrono::steady_clock::now();
   auto wall = [&] { return std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count(); };
   int work = 0;  // accepted steps + restarts, against max_steps
+  int domain_retries = 0;  // smaller-step retries after a plant model left its domain
   double saturated_time = 0.0;
   auto stop = [&](NonlinearStatus s, const std::string& why) {
     result.status = s;
@@ -762,7 +786,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
               return stop(NonlinearStatus::step_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_steps = " + to_string(options.max_steps) + " reached");
             if (wall() > options.max_wall_time_s)
               return stop(NonlinearStatus::time_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_wall_time_s = " + to_string(options.max_wall_time_s) + " reached");
-            const double tb = dense.do_step(system).second;
+            const double tb = step_within_domain(dense, system, work, domain_retries).second;
             ++result.steps;
             dt = dense.current_time_step();
             const double tc = std::min(tb, t_end);
@@ -851,7 +875,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
           if (wall() > options.max_wall_time_s)
             return stop(NonlinearStatus::time_limit, "stopped at t = " + to_string(dense.current_time()) +
                                                          " s: max_wall_time_s = " + to_string(options.max_wall_time_s) + " reached");
-          const auto [ta, tb] = dense.do_step(system);
+          const auto [ta, tb] = step_within_domain(dense, system, work, domain_retries);
           ++result.steps;
           dt = dense.current_time_step();
           const double tc = std::min(tb, t_end);
@@ -900,6 +924,9 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   for (double v : result.control)
     if (!std::isfinite(v)) return stop(NonlinearStatus::non_finite, "a sampled control is non-finite");
 
+  if (domain_retries > 0)
+    result.notes.push_back(std::to_string(domain_retries) + " integrator step(s) retried smaller after a trial stage left the "
+                           "plant model's domain");
   result.saturated_fraction = saturated_time / horizon;
   if (std::isfinite(y_inf) && std::abs(y_inf) > 1e-12 * std::abs(amplitude)) {
     result.metrics = measure(result.time_s, result.output, result.control, y_inf, amplitude, band_fraction);

@@ -423,7 +423,7 @@ TANK = {"area": 0.8, "q_gain": 0.05, "outlet": 0.02}
 TOL_EXPRESSION = 1e-7
 
 
-def expression_case(two_state, law):
+def expression_case(two_state, law, amplitude=0.5, kp=3.0, tight=True):
     """Probe input and the independent reference for an invented tank loop (absolute pump limits 0..1)."""
     u0 = 0.43
     params = dict(TANK)
@@ -436,15 +436,14 @@ def expression_case(two_state, law):
         states = ["h"]
         derivatives = ["(q_gain*u - outlet*sqrt(h))/area"]
         guess = {"h": 1.0}
-    kp, z = 3.0, 0.02
+    z = 0.02
     ki = kp * z
-    amplitude = 0.5
     payload = {"plant": {"nonlinear": {"states": states, "derivatives": derivatives, "output": "h",
                                        "parameters": params, "operating_point": dict(guess, u=u0)}},
                "controller": {"structure": "pi", "series": [kp, z]},
                "actuator": {"min": 0.0 - u0, "max": 1.0 - u0},
-               "options": {"anti_windup": law, "horizon_s": 600.0, "output_step_s": 0.5,
-                           "relative_tolerance": 1e-11, "absolute_tolerance": 1e-13},
+               "options": dict({"anti_windup": law, "horizon_s": 600.0, "output_step_s": 0.5},
+                               **({"relative_tolerance": 1e-11, "absolute_tolerance": 1e-13} if tight else {})),
                "amplitude": amplitude, "band_pct": 2.0}
     gain = params["pump_flow"] if two_state else params["q_gain"]
     h0 = (gain * u0 / params["outlet"]) ** 2  # h' = 0 (and q0 = Q·u0 for the pump lag)
@@ -467,13 +466,20 @@ def expression_case(two_state, law):
         return plant + [di]
 
     x0 = [h0, gain * u0, 0.0] if two_state else [h0, 0.0]
-    return payload, rhs, x0, h0, u0, amplitude
+    return payload, rhs, x0, h0, u0, amplitude, kp
 
 
 def check_expression_plants(tally, nlprobe):
-    for two_state, law in ((False, "none"), (True, "back-calculation")):
-        name = f"expression tank{' + pump lag' if two_state else ''}, PI {law}"
-        payload, rhs, x0, h0, u0, amplitude = expression_case(two_state, law)
+    # The third case drains the tank to 6 mm above empty with a stiff PI (Kp = 40) at the default
+    # tolerances: √h is steep there and trial stages of large steps land below h = 0 (without the
+    # simulator's smaller-step retries this case ends in non_finite); the accepted trajectory never
+    # leaves h > 0, so the result must be ok and agree with solve_ivp (to 1e-5: default rtol 1e-8).
+    for two_state, law, amplitude, kp, tight in ((False, "none", 0.5, 3.0, True),
+                                                 (True, "back-calculation", 0.5, 3.0, True),
+                                                 (False, "back-calculation", -1.15, 40.0, False)):
+        name = f"expression tank{' + pump lag' if two_state else ''}, PI {law}, Kp {kp:g}, step {amplitude:+g} m"
+        payload, rhs, x0, h0, u0, amplitude, kp = expression_case(two_state, law, amplitude, kp, tight)
+        tolerance = TOL_EXPRESSION if tight else 1e-5
         rc, out, err = run_probe(nlprobe, payload)
         if not tally.check(name, "probe ran", rc == 0, err.strip()):
             continue
@@ -489,15 +495,15 @@ def check_expression_plants(tally, nlprobe):
             continue
         h_ref = sol.y[0]
         e = h0 + amplitude - h_ref
-        u_ref = np.clip(u0 + 3.0 * e + sol.y[-1], 0.0, 1.0)
+        u_ref = np.clip(u0 + kp * e + sol.y[-1], 0.0, 1.0)
         y = np.array(res["output"]) + op["y"]          # deviation -> absolute level
         u = np.array(res["control"]) + op["u"]         # deviation -> absolute pump command
-        dy = np.max(np.abs(y - h_ref)) / amplitude
+        dy = np.max(np.abs(y - h_ref)) / abs(amplitude)
         du = np.max(np.abs(u - u_ref))
-        tally.check(name, "output trace", dy <= TOL_EXPRESSION, f"max|dh|/r = {dy:.2e} (tol {TOL_EXPRESSION:g})")
-        tally.check(name, "control trace", du <= TOL_EXPRESSION, f"max|du| = {du:.2e} (tol {TOL_EXPRESSION:g})")
+        tally.check(name, "output trace", dy <= tolerance, f"max|dh|/r = {dy:.2e} (tol {tolerance:g})")
+        tally.check(name, "control trace", du <= tolerance, f"max|du| = {du:.2e} (tol {tolerance:g})")
         tally.check(name, "the pump saturates (limits converted to deviations)",
-                    res["saturated_fraction"] > 0.0 and np.max(u_ref) == 1.0,
+                    res["saturated_fraction"] > 0.0 and (np.max(u_ref) == 1.0 or np.min(u_ref) == 0.0),
                     f"saturated fraction {res['saturated_fraction']:.4f}")
 
 

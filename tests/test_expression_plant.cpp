@@ -219,9 +219,14 @@ TEST_CASE("small steps: the nonlinear loop approaches the linear one quadratical
 }
 
 TEST_CASE("a NaN from the plant during the simulation is status non_finite with a note", "[expression][nonlinear]") {
-  // Asking the tank for a level below zero with the pump stopped: Torricelli's outflow empties it
-  // in finite time, the integrator steps past h = 0 and √h is NaN. No crash, no NaN sample.
-  auto tank = std::make_shared<ExpressionPlant>(tank_definition());
+  // A tank with a constant seepage besides the orifice: area·h' = q_gain·u − outlet·√h − seep.
+  // Asked for a level below zero, the pump stops and h' <= −seep/area < 0 even at h = 0, so the
+  // level must cross zero and √h turns NaN (an empty tank without seepage would instead stay at
+  // h = 0, where h' = 0). No crash, no NaN sample: status non_finite, the expression named.
+  ExpressionDefinition leaky = tank_definition();
+  leaky.derivatives = {"(q_gain*u - outlet*sqrt(h) - seep)/area"};
+  leaky.parameters.emplace_back("seep", 0.002);
+  auto tank = std::make_shared<ExpressionPlant>(leaky);
   const double u0 = 0.43;
   const Equilibrium eq = tank->find_equilibrium({1.0}, u0);
   tank->set_operating_point(eq.states, u0);
@@ -238,6 +243,36 @@ TEST_CASE("a NaN from the plant during the simulation is status non_finite with 
   REQUIRE_FALSE(r.notes.empty());
   CHECK_THAT(r.notes.back(), Contains("derivatives[0]") && Contains("NaN") && Contains("t = "));
   for (double y : r.output) CHECK(std::isfinite(y));
+  // The run stopped early: the samples end before the horizon.
+  REQUIRE_FALSE(r.time_s.empty());
+  CHECK(r.time_s.back() < options.horizon_s);
+}
+
+TEST_CASE("an empty tank without seepage stays empty: reaching the domain's edge is not an error", "[expression][nonlinear]") {
+  // area·h' = −outlet·√h with the pump stopped empties the tank in the finite time
+  // T = 2·area·√h0/outlet (Torricelli; integrate dh/√h), after which h = 0 is a solution (h' = 0
+  // there). Trial steps past h = 0 are retried smaller, so the run ends ok with the level at 0.
+  auto tank = std::make_shared<ExpressionPlant>(tank_definition());
+  const double u0 = 0.43;
+  const Equilibrium eq = tank->find_equilibrium({1.0}, u0);
+  tank->set_operating_point(eq.states, u0);
+  const StateSpace linear = realize(transfer_function_of(tank->jacobians_at(eq.states, u0).model));
+  ActuatorModel pump;
+  pump.min = -u0;
+  pump.max = 1.0 - u0;
+  LoopOptions options;
+  options.plant_model = tank;
+  options.horizon_s = 300.0;
+  const NonlinearResult r = simulate_nonlinear(linear, make_controller(Structure::p, {5.0}, 10.0), pump, options,
+                                               -2.0 * eq.states[0], 0.02);
+  REQUIRE(r.status == NonlinearStatus::ok);
+  const double drain_time = 2.0 * kArea * std::sqrt(eq.states[0]) / kOutlet;  // ≈ 86 s
+  for (std::size_t k = 0; k < r.time_s.size(); ++k) {
+    const double level = eq.states[0] + r.output[k];
+    CHECK(level >= 0.0);
+    if (r.time_s[k] > 1.01 * drain_time) CHECK(level < 1e-9);
+    if (r.time_s[k] < 0.99 * drain_time) CHECK(level > 0.0);
+  }
 }
 
 TEST_CASE("spec: expression mistakes name their key and line", "[expression][spec]") {
@@ -358,10 +393,27 @@ TEST_CASE("design: limits become deviations and the confirmation runs the expres
 }
 
 TEST_CASE("design: a tank asked to drain below empty is not confirmed, and the verdict says why", "[expression][design]") {
-  // A step to 1.2 m below a 1 m operating level: the pump stops, the orifice empties the tank in
-  // finite time (Torricelli) and √level turns NaN. Every design's confirmation must say so.
-  Spec spec = load_spec(std::string(SPECLOOP_SOURCE_DIR) + "/specs/greywater_buffer.toml");
-  spec.reference.amplitude = -1.2;
+  // The seeping tank of the test above, as a spec: a step to below empty makes the level cross
+  // zero (h' <= −seep/area there), √level turns NaN, and the confirmation must say so.
+  const Spec spec = parse_spec(R"(
+[plant.nonlinear]
+states = ["level"]
+derivatives = ["(q_gain*u - outlet*sqrt(level) - seep)/area"]
+output = "level"
+parameters = { area = 0.8, q_gain = 0.05, outlet = 0.02, seep = 0.002 }
+[plant.nonlinear.operating_point]
+level = 1.0
+u = 0.43
+[actuator]
+min = 0.0
+max = 1.0
+[controller]
+structure = "pi"
+[requirements]
+overshoot_max_pct = 10.0
+[reference]
+amplitude = -2.0
+)", "seeping_tank.toml");
   const Problem problem = make_problem(spec, characterize(spec));
   const Design d = measure_design(problem, "probe", make_controller(Structure::pi, {2.5, 0.012}, 10.0));
   REQUIRE(d.nonlinear);

@@ -166,7 +166,9 @@ struct NonlinearResult {
 /// Nonlinear plant (options.plant_model set): the plant part of the loop is the model's
 /// right-hand side in deviation variables; everything else (actuator limits and rates, which are
 /// then deviations from u0 too, anti-windup, delay, sampling) is unchanged. A NaN or infinity from
-/// the model ends the run with status non_finite and a note naming the expression and the time.
+/// the model in a trial step is retried from the last accepted state with steps ten times smaller
+/// (up to 12 times: trial stages may leave the model's domain where the solution does not); if it
+/// persists the run ends with status non_finite and a note naming the expression and the time.
 ///
 /// Throws std::invalid_argument for malformed input (the message names the field); numerical
 /// failures are reported in `status`, never as NaN samples.
