@@ -821,9 +821,12 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
         const double ts = samples[next_sample++];
         const State& xs = state_at(ts);
         result.time_s.push_back(ts);
-        result.output.push_back(model.output(xs.data()));
-        result.command.push_back(model.command(xs.data()));
-        const double ua = model.applied(xs.data(), m);
+        // One output evaluation per sample (an expression plant's output is a parser call).
+        const double y = model.output(xs.data());
+        const double uc = model.command_linear(xs.data(), y) + model.command_r * model.r;
+        result.output.push_back(y);
+        result.command.push_back(uc);
+        const double ua = (model.rate && m.rate != RateMode::tracking) ? xs[model.ua_index] : model.saturated(uc, m);
         result.control.push_back(ua);
         result.plant_input.push_back(delay > 0.0 ? line.value(ts - delay) : ua);
       }
