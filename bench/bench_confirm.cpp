@@ -108,7 +108,8 @@ int main(int argc, char** argv) {
   sim.simulate(loop, spec.reference.amplitude, problem.band_fraction, linear_metrics);
   const double linear_horizon_s = sim.grid().horizon_s();
 
-  // ActuatorModel and LoopOptions, as confirm_nonlinear builds them.
+  // ActuatorModel and LoopOptions, as confirm_nonlinear builds them (for an expression plant:
+  // limits as deviations from the operating input, and the plant model itself).
   const NonlinearSetup setup = nonlinear_setup(problem, linear_horizon_s, kSamples);
   const ActuatorModel& actuator = setup.actuator;
   const LoopOptions& options = setup.options;
@@ -132,7 +133,11 @@ int main(int argc, char** argv) {
       r.steps, r.switches, r.output.size(), r.saturated_fraction, options.horizon_s, stepper_name(r.stepper),
       r.explicit_steps_estimate, sink == 0.12345 ? " " : "");
 
-  if (!dump.empty()) {
+  if (!dump.empty() && spec.plant.nonlinear) {
+    // The dump describes a linear plant for bench/scipy_confirm.py; an expression plant's loop is
+    // checked against SciPy by tests/check_scipy_nonlinear.py instead.
+    fmt::print(stderr, "--dump: {} has an expression plant; not dumped\n", spec.name);
+  } else if (!dump.empty()) {
     nlohmann::json j;
     j["spec"] = spec.name;
     j["design"] = d->name;

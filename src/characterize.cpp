@@ -336,6 +336,16 @@ Characterization characterize(const Spec& spec) {
   ch.band_fraction = spec.requirements.settling_band_pct / 100.0;
   ch.damping_ratio = damping_from_overshoot(limit);
   const TransferFunction plant = linear_plant(spec);
+  if (spec.plant.nonlinear) {
+    const NonlinearPlantSpec& nl = *spec.plant.nonlinear;
+    std::string point;
+    for (std::size_t i = 0; i < nl.states.size(); ++i) point += fmt::format("{} = {:.6g}, ", nl.states[i], nl.equilibrium[i]);
+    ch.notes.push_back(fmt::format("the plant is the linearization of [plant.nonlinear] at the operating point "
+                                   "({}u = {:.6g}, y = {:.6g}; equilibrium found in {} Newton iteration{}); gains, "
+                                   "poles and responses here are for deviations from that point",
+                                   point, nl.input, nl.output_value, nl.newton_iterations,
+                                   nl.newton_iterations == 1 ? "" : "s"));
+  }
   if (spec.plant.delay_s > 0.0)
     ch.notes.push_back(fmt::format("the plant's transport delay ({:.4g} s) is represented by its order-{} Padé "
                                    "approximant in this linear analysis", spec.plant.delay_s, kDelayApproximantOrder));

@@ -2,6 +2,8 @@
 // ultimate-gain baseline. The NLopt search lives in search.cpp.
 #include "specloop/design.hpp"
 
+#include "specloop/expression_plant.hpp"
+
 #include <algorithm>
 #include <boost/math/tools/roots.hpp>
 #include <cmath>
@@ -163,12 +165,16 @@ NonlinearResult simulate_on_nonlinear_loop(const Problem& problem, const Control
 NonlinearSetup nonlinear_setup(const Problem& problem, double linear_horizon_s, int samples) {
   const Spec& spec = problem.spec;
   NonlinearSetup setup;
+  // A nonlinear plant runs in deviation variables around its operating point: the spec's absolute
+  // actuator limits become deviations from u0 (the spec parser checked that they bracket u0).
+  const double u0 = spec.plant.nonlinear ? spec.plant.nonlinear->input : 0.0;
   if (spec.actuator.limited) {
-    setup.actuator.min = spec.actuator.min;
-    setup.actuator.max = spec.actuator.max;
+    setup.actuator.min = spec.actuator.min - u0;
+    setup.actuator.max = spec.actuator.max - u0;
   }
   setup.actuator.rate_max = spec.actuator.rate_max;
   LoopOptions& options = setup.options;
+  if (spec.plant.nonlinear) options.plant_model = spec.plant.nonlinear->model;
   options.anti_windup = spec.controller.anti_windup;
   options.setpoint_weight = spec.controller.setpoint_weight;
   options.derivative_weight = spec.controller.derivative_on_measurement ? 0.0 : 1.0;
@@ -235,7 +241,8 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   nc.command_excess_max = r.command_excess_max;
   nc.stepper = r.stepper;
   if (r.status != NonlinearStatus::ok) {
-    nc.verdict = fmt::format("not confirmed: the nonlinear simulation stopped ({})", status_name(r.status));
+    nc.verdict = fmt::format("not confirmed: the nonlinear simulation stopped ({}{})", status_name(r.status),
+                             r.notes.empty() ? std::string() : ": " + r.notes.back());
     return nc;
   }
   nc.simulated = r.metrics;
@@ -270,6 +277,8 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   if (spec.plant.delay_s > 0.0)
     causes.push_back(fmt::format("the exact {:.4g} s delay (the linear loop used its Padé approximant)", spec.plant.delay_s));
   if (spec.controller.sample_time_s > 0.0) causes.push_back(fmt::format("sampling at {:.4g} s", spec.controller.sample_time_s));
+  if (spec.plant.nonlinear)
+    causes.push_back("the nonlinear plant model (the design used its linearization at the operating point)");
   const std::string because = fmt::format("{}", fmt::join(causes, "; "));
   if (nc.confirmed) {
     nc.verdict = causes.empty() ? "confirmed: nothing saturates; the nonlinear loop matches the linear one"
@@ -290,6 +299,8 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
        [](NonlinearSetup& s) { s.options.disturbance_size = 0.0; }},
       {"measurement noise", "no measurement noise", spec.disturbance.noise_rms > 0.0,
        [](NonlinearSetup& s) { s.options.noise_rms = 0.0; }},
+      {"plant nonlinearity", "the plant's linearization at the operating point", static_cast<bool>(spec.plant.nonlinear),
+       [](NonlinearSetup& s) { s.options.plant_model.reset(); }},
   };
   std::vector<std::string> without;
   for (const Effect& effect : effects) {

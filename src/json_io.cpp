@@ -107,6 +107,7 @@ json characterization_json(const Spec& spec, const Characterization& ch) {
                         {"reasons", json::array({ch.dominant_reason})}};
   }
   out["notes"] = ch.notes;
+  out["linearization"] = linearization_json(spec);
   return out;
 }
 
@@ -123,6 +124,23 @@ json numbers(const std::vector<double>& v) {
 }
 }  // namespace
 
+json linearization_json(const Spec& spec) {
+  if (!spec.plant.nonlinear) return nullptr;
+  const NonlinearPlantSpec& nl = *spec.plant.nonlinear;
+  json states = json::object();
+  for (std::size_t i = 0; i < nl.states.size(); ++i) states[nl.states[i]] = number_json(nl.equilibrium[i]);
+  json a = json::array();
+  for (const auto& row : nl.a) a.push_back(numbers(row));
+  return {{"operating_point", {{"states", states}, {"u", number_json(nl.input)}, {"y", number_json(nl.output_value)}}},
+          {"state_order", nl.states},
+          {"jacobians", {{"A", a}, {"B", numbers(nl.b)}, {"C", numbers(nl.c)}, {"D", number_json(nl.d)}}},
+          {"newton_iterations", nl.newton_iterations},
+          {"equilibrium_residual", number_json(nl.residual)},
+          {"note", "the design used this linearization of [plant.nonlinear] at the operating point (Jacobians by "
+                   "central differences); every design was confirmed on the nonlinear model in deviation variables: "
+                   "r, y and u are measured from the operating point, actuator limits are absolute"}};
+}
+
 json spec_json(const Spec& spec) {
   json plant = {{"zeros", poles_json(spec.plant.zeros)},
                 {"poles", poles_json(spec.plant.poles)},
@@ -130,7 +148,21 @@ json spec_json(const Spec& spec) {
                 {"numerator", numbers(spec.plant.numerator)},
                 {"denominator", numbers(spec.plant.denominator)},
                 {"delay", number_json(spec.plant.delay_s)},
-                {"given_as", spec.plant.given_as_zeros_poles ? "zeros_poles" : "numerator_denominator"}};
+                {"given_as", spec.plant.nonlinear ? "nonlinear"
+                                                  : spec.plant.given_as_zeros_poles ? "zeros_poles" : "numerator_denominator"}};
+  if (spec.plant.nonlinear) {
+    const NonlinearPlantSpec& nl = *spec.plant.nonlinear;
+    json parameters = json::object();
+    for (const auto& [name, value] : nl.parameters) parameters[name] = number_json(value);
+    json guess = json::object();
+    for (std::size_t i = 0; i < nl.states.size(); ++i) guess[nl.states[i]] = number_json(nl.state_guess[i]);
+    guess["u"] = number_json(nl.input);
+    plant["nonlinear"] = {{"states", nl.states},
+                          {"derivatives", nl.derivatives},
+                          {"output", nl.output},
+                          {"parameters", parameters},
+                          {"operating_point", guess}};
+  }
   json actuator = spec.actuator.limited
                       ? json{{"min", number_json(spec.actuator.min)}, {"max", number_json(spec.actuator.max)}}
                       : json{{"min", nullptr}, {"max", nullptr}};
@@ -306,6 +338,7 @@ json result_json(const DesignRun& run) {
               {"met", run.met},
               {"judged_on", run.judged_on_nonlinear ? "nonlinear" : "linear"},
               {"safety", kSafetyCaution}};
+  out["linear_model"]["linearization"] = linearization_json(run.problem.spec);
   if (run.target)
     out["target_pole"] = {{"pole", complex_json(run.target->pole)}, {"derivation", run.target->derivation}};
   if (run.ultimate)

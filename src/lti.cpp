@@ -120,6 +120,48 @@ StateSpace series(const StateSpace& first, const StateSpace& second) {
   return ss;
 }
 
+TransferFunction transfer_function_of(const StateSpace& s) {
+  const int n = s.states();
+  if (s.outputs() < 1) throw std::invalid_argument("transfer_function_of: the state space has no output");
+  const double d = s.D.size() > 0 ? s.D(0) : 0.0;
+  if (n == 0) return TransferFunction(Polynomial(std::vector<double>{d}), Polynomial(std::vector<double>{1.0}));
+  const Eigen::RowVectorXd c = s.C.row(0);
+  std::vector<double> den{1.0};
+  std::vector<double> adj;  // C·N_k·B, k = 0..n−1: coefficients of s^(n−1−k)
+  Eigen::MatrixXd nk = Eigen::MatrixXd::Identity(n, n);
+  for (int k = 1; k <= n; ++k) {
+    adj.push_back(c.dot(nk * s.B));
+    const Eigen::MatrixXd an = s.A * nk;
+    const double ck = -an.trace() / k;
+    den.push_back(ck);
+    nk = an;
+    nk.diagonal().array() += ck;
+  }
+  // Numerator C·adj(sI − A)·B + D·det(sI − A), degree ≤ n.
+  std::vector<double> num(static_cast<std::size_t>(n) + 1, 0.0);
+  for (int k = 0; k <= n; ++k) num[static_cast<std::size_t>(k)] = d * den[static_cast<std::size_t>(k)];
+  for (int k = 0; k < n; ++k) num[static_cast<std::size_t>(k) + 1] += adj[static_cast<std::size_t>(k)];
+  // Drop leading coefficients that are rounding: each weighted by w^power at the frequency scale w.
+  double w = 1.0;
+  if (s.A.allFinite()) {
+    const Eigen::VectorXcd eig = s.A.eigenvalues();
+    double rho = 0.0;
+    for (Eigen::Index i = 0; i < eig.size(); ++i) rho = std::max(rho, std::abs(eig(i)));
+    if (rho > 0.0) w = rho;
+  }
+  std::vector<double> weighted(num.size());
+  double largest = 0.0;
+  for (std::size_t k = 0; k < num.size(); ++k) {
+    weighted[k] = std::abs(num[k]) * std::pow(w, static_cast<double>(num.size() - 1 - k));
+    largest = std::max(largest, weighted[k]);
+  }
+  std::size_t first = 0;
+  while (first + 1 < num.size() && weighted[first] <= 1e-9 * largest) ++first;
+  num.erase(num.begin(), num.begin() + static_cast<std::ptrdiff_t>(first));
+  if (largest == 0.0) num = {0.0};
+  return TransferFunction(Polynomial(num), Polynomial(den));
+}
+
 StateSpace realize(const TransferFunction& g) {
   if (!g.is_proper())
     throw std::invalid_argument("cannot realize an improper transfer function (numerator degree " +

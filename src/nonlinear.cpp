@@ -149,6 +149,7 @@ struct LoopModel : PidLaw {
   Eigen::VectorXd bp;
   Eigen::RowVectorXd cp;
   int np = 0;
+  const PlantModel* pm = nullptr;  // set: a nonlinear plant (deviation variables) replaces Ap, Bp, Cp
   // Parallel controller.
   bool parallel = false;
   int i_index = -1, d_index = -1;
@@ -170,15 +171,20 @@ struct LoopModel : PidLaw {
   const DelayLine* delay = nullptr;  // set: the plant input is the applied u delayed
 
   double output(const double* x) const {
+    if (pm) return pm->output(x);
     double y = 0;
     for (int i = 0; i < np; ++i) y += cp(i) * x[i];
     return y;
   }
   // The control error as the controller sees it (through the noisy measurement).
   double error(const double* x) const { return r - output(x) - n; }
-  // The part of u_c that is linear in the state (applied to x' it gives u_c').
-  double command_linear(const double* x) const {
-    const double y = output(x);
+  // The part of u_c that is linear in the state and the output.
+  double command_linear(const double* x) const { return command_linear(x, output(x)); }
+  // u_c' along the loop's state rate xdot at x (the command's linear part applied to x', y').
+  double command_rate(const double* x, const double* xdot) const {
+    return command_linear(xdot, pm ? pm->output_rate(x, xdot) : output(xdot));
+  }
+  double command_linear(const double* x, double y) const {
     if (parallel) {
       double u = -kp * y;
       if (i_index >= 0) u += x[i_index];
@@ -201,10 +207,14 @@ struct LoopModel : PidLaw {
     const double ua = (rate && m.rate != RateMode::tracking) ? x[ua_index] : us;
     const double up = delay ? delay->value(t - delay->delay) : ua;
     const double e = r - y - n;
-    for (int i = 0; i < np; ++i) {
-      double s = bp(i) * (up + d);
-      for (int j = 0; j < np; ++j) s += ap(i, j) * x[j];
-      dx[i] = s;
+    if (pm) {
+      pm->derivative(x, up + d, dx);
+    } else {
+      for (int i = 0; i < np; ++i) {
+        double s = bp(i) * (up + d);
+        for (int j = 0; j < np; ++j) s += ap(i, j) * x[j];
+        dx[i] = s;
+      }
     }
     if (parallel) {
       if (i_index >= 0) {
@@ -217,7 +227,7 @@ struct LoopModel : PidLaw {
               // integrator moves just enough to hold u_c' = 0.
               dx[i_index] = 0.0;
               if (d_index >= 0) dx[d_index] = (c * r - y - n - x[d_index]) / tf;
-              dx[i_index] = -command_linear(dx);
+              dx[i_index] = -command_rate(x, dx);
             } else {
               dx[i_index] = m.integrating ? ki * e : 0.0;
             }
@@ -263,7 +273,7 @@ struct LoopModel : PidLaw {
       if (m.rate == RateMode::down && x[ua_index] < us) return false;
       if (m.rate == RateMode::tracking && m.sat == 0) {
         derivative(x, scratch, m, d, t);
-        if (std::abs(command_linear(scratch)) > rate_max) return false;
+        if (std::abs(command_rate(x, scratch)) > rate_max) return false;
       }
     }
     return true;
@@ -291,7 +301,7 @@ struct LoopModel : PidLaw {
       probe.integrating = false;
       derivative(x, scratch, probe, d, t);
       if (clamps()) scratch[i_index] = 0.0;
-      const double frozen = s * command_linear(scratch);  // s·u_c' with I frozen
+      const double frozen = s * command_rate(x, scratch);  // s·u_c' with I frozen
       const double drive = clamps() ? s * ki * error(x) : 0.0;
       if (clamps() && drive > 0.0) {
         if (frozen >= 0.0) { m.sat = side; m.integrating = false; }
@@ -300,7 +310,7 @@ struct LoopModel : PidLaw {
       } else {
         probe.integrating = true;
         derivative(x, scratch, probe, d, t);
-        const double slope = s * command_linear(scratch);
+        const double slope = s * command_rate(x, scratch);
         m.sat = slope > 0.0 ? side : 0;
         m.integrating = true;
       }
@@ -311,7 +321,7 @@ struct LoopModel : PidLaw {
       if (m.rate == RateMode::down && x[ua_index] <= us) m.rate = RateMode::tracking;
       if (m.rate == RateMode::tracking && m.sat == 0) {
         derivative(x, scratch, m, d, t);
-        const double slope = command_linear(scratch);
+        const double slope = command_rate(x, scratch);
         if (std::abs(slope) > rate_max) {
           m.rate = slope > 0 ? RateMode::up : RateMode::down;
           x[ua_index] = us;
@@ -321,6 +331,29 @@ struct LoopModel : PidLaw {
     return m;
   }
 };
+
+// One dense-output step that survives a plant model evaluated outside its domain at a trial
+// stage: the step is retried from the same (accepted) state with a step ten times smaller, up to
+// kDomainRetries times per step and kDomainRetriesPerRun over a run (a trajectory that really
+// reaches the domain's edge, like a tank draining empty, would otherwise crawl along it); a
+// failure at the accepted state itself, or past either budget, is rethrown (the simulation
+// reports it as non_finite). Each retry counts as work.
+constexpr int kDomainRetries = 12;
+constexpr int kDomainRetriesPerRun = 200;
+template <typename Dense, typename System>
+std::pair<double, double> step_within_domain(Dense& dense, System& system, int& work, int& retries) {
+  for (int attempt = 0;; ++attempt) {
+    try {
+      return dense.do_step(system);
+    } catch (const PlantEvaluationError&) {
+      if (attempt >= kDomainRetries || retries >= kDomainRetriesPerRun) throw;
+      ++retries;
+      ++work;
+      const State x = dense.current_state();
+      dense.initialize(x, dense.current_time(), dense.current_time_step() / 10.0);
+    }
+  }
+}
 
 // The functor odeint integrates: the loop with its modes held.
 struct HeldModeSystem {
@@ -589,6 +622,11 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   model.bp = plant.B;
   model.cp = plant.C.row(0);
   model.np = plant.states();
+  if (options.plant_model) {
+    if (options.plant_model->states() < 1) fail("plant_model: needs at least one state");
+    model.pm = options.plant_model.get();
+    model.np = model.pm->states();
+  }
   model.r = amplitude;
   model.umin = actuator.min;
   model.umax = actuator.max;
@@ -741,6 +779,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   const auto started = std::chrono::steady_clock::now();
   auto wall = [&] { return std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count(); };
   int work = 0;  // accepted steps + restarts, against max_steps
+  int domain_retries = 0;  // smaller-step retries after a plant model left its domain
   double saturated_time = 0.0, slewing_time = 0.0;
   auto stop = [&](NonlinearStatus s, const std::string& why) {
     result.status = s;
@@ -770,7 +809,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     std::vector<double> commands;  // u_c[k]
     auto record = [&](double ts, const State& xs) {
       result.time_s.push_back(ts);
-      result.output.push_back(model.cp.dot(Eigen::Map<const Eigen::VectorXd>(xs.data(), np)));
+      result.output.push_back(model.output(xs.data()));
       const auto k = static_cast<std::size_t>(std::max(0.0, std::floor(ts / period + 1e-9)));
       result.command.push_back(commands[std::min(k, commands.size() - 1)]);
       result.control.push_back(applied_at(ts));
@@ -782,6 +821,10 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
       double u0, slope, t0, d;
       void operator()(const State& xs, State& dx, double time) const {
         const double u = u0 + slope * (time - t0) + d;
+        if (m->pm) {
+          m->pm->derivative(xs.data(), u, dx.data());
+          return;
+        }
         for (int i = 0; i < m->np; ++i) {
           double v = m->bp(i) * u;
           for (int j = 0; j < m->np; ++j) v += m->ap(i, j) * xs[static_cast<std::size_t>(j)];
@@ -798,7 +841,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
         // Controller samples due now.
         while (static_cast<double>(k) * period <= t && static_cast<double>(k) * period <= horizon) {
           const double tk = static_cast<double>(k) * period;
-          const double y = model.cp.dot(Eigen::Map<const Eigen::VectorXd>(x.data(), np)) + noise_at(tk);
+          const double y = model.output(x.data()) + noise_at(tk);
           const double uc = ctl.update(amplitude, y);
           if (!std::isfinite(uc)) return stop(NonlinearStatus::non_finite, "the controller output became non-finite at t = " + to_string(tk) + " s");
           commands.push_back(uc);
@@ -838,7 +881,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
               return stop(NonlinearStatus::step_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_steps = " + to_string(options.max_steps) + " reached");
             if (wall() > options.max_wall_time_s)
               return stop(NonlinearStatus::time_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_wall_time_s = " + to_string(options.max_wall_time_s) + " reached");
-            const double tb = dense.do_step(system).second;
+            const double tb = step_within_domain(dense, system, work, domain_retries).second;
             ++result.steps;
             dt = dense.current_time_step();
             const double tc = std::min(tb, t_end);
@@ -857,6 +900,8 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
       }
     } catch (const boost::numeric::odeint::odeint_error& e) {
       return stop(NonlinearStatus::step_limit, std::string("the integrator gave up: ") + e.what());
+    } catch (const PlantEvaluationError& e) {
+      return stop(NonlinearStatus::non_finite, std::string(e.what()) + " (integrating from t = " + to_string(t) + " s)");
     }
   } else {
     // ---- Continuous controller: hybrid integration with located switches (and delay line).
@@ -883,9 +928,12 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
           const double ts = samples[next_sample++];
           const double* xs = state_at(ts);
           result.time_s.push_back(ts);
-          result.output.push_back(model.output(xs));
-          result.command.push_back(model.command(xs));
-          const double ua = model.applied(xs, m);
+          // One output evaluation per sample (an expression plant's output is a parser call).
+          const double y = model.output(xs);
+          const double uc = model.command_linear(xs, y) + model.command_r * model.r - model.command_n * model.n;
+          result.output.push_back(y);
+          result.command.push_back(uc);
+          const double ua = (model.rate && m.rate != RateMode::tracking) ? xs[model.ua_index] : model.saturated(uc, m);
           result.control.push_back(ua);
           result.plant_input.push_back(delay > 0.0 ? line.value(ts - delay) : ua);
         }
@@ -946,7 +994,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
             if (wall() > options.max_wall_time_s)
               return halt(NonlinearStatus::time_limit, "stopped at t = " + to_string(dense.current_time()) +
                                                            " s: max_wall_time_s = " + to_string(options.max_wall_time_s) + " reached");
-            const auto [ta, tb] = dense.do_step(system);
+            const auto [ta, tb] = step_within_domain(dense, system, work, domain_retries);
             ++result.steps;
             dt = dense.current_time_step();
             const double tc = std::min(tb, t_end);
@@ -987,6 +1035,9 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
         if (!all_finite(dense.current_state()))
           return halt(NonlinearStatus::non_finite, std::string("the state became non-finite: ") + e.what());
         return halt(NonlinearStatus::step_limit, std::string("the integrator gave up: ") + e.what());
+      } catch (const PlantEvaluationError& e) {
+        return halt(NonlinearStatus::non_finite,
+                    std::string(e.what()) + " (integrating from t = " + to_string(dense.current_time()) + " s)");
       }
       return true;
     };
@@ -1007,6 +1058,9 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   for (double v : result.control)
     if (!std::isfinite(v)) return stop(NonlinearStatus::non_finite, "a sampled control is non-finite");
 
+  if (domain_retries > 0)
+    result.notes.push_back(std::to_string(domain_retries) + " integrator step(s) retried smaller after a trial stage left the "
+                           "plant model's domain");
   result.saturated_fraction = saturated_time / horizon;
   result.rate_limited_fraction = slewing_time / horizon;
   for (double uc : result.command)

@@ -478,16 +478,14 @@ std::string html_table(const Table& t) {
 }
 
 std::string md_table(const Table& t) {
-  std::string s = "| " + [&] {
-    std::string h;
-    for (std::size_t i = 0; i < t.header.size(); ++i) h += (i ? " | " : "") + escape_md(t.header[i]);
-    return h;
-  }() + " |\n|";
+  std::string s = "|";
+  for (const std::string& h : t.header) s.append(" ").append(escape_md(h)).append(" |");
+  s += "\n|";
   for (std::size_t i = 0; i < t.header.size(); ++i) s += i ? " ---: |" : " --- |";
   s += "\n";
   for (const auto& row : t.rows) {
     s += "|";
-    for (const Cell& c : row) s += " " + escape_md(c.text) + " |";
+    for (const Cell& c : row) s.append(" ").append(escape_md(c.text)).append(" |");
     s += "\n";
   }
   return s;

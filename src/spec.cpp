@@ -5,6 +5,8 @@
 #include "specloop/spec.hpp"
 
 #include "specloop/compensator.hpp"
+#include "specloop/expression_plant.hpp"
+#include "specloop/lti.hpp"
 
 #include <fmt/format.h>
 #include <fmt/ranges.h>
@@ -107,7 +109,7 @@ struct SectionSchema {
 
 const std::vector<SectionSchema>& section_schemas() {
   static const std::vector<SectionSchema> schemas{
-      {"plant", {"zeros", "poles", "gain", "numerator", "denominator", "delay"}},
+      {"plant", {"zeros", "poles", "gain", "numerator", "denominator", "delay", "nonlinear"}},
       {"actuator", {"min", "max", "rate_max"}},
       {"controller",
        {"structure", "derivative_filter", "anti_windup", "tracking_time", "sample_time", "setpoint_weight",
@@ -324,6 +326,16 @@ std::vector<std::complex<double>> polynomial_roots(const std::vector<double>& hi
   return roots;
 }
 
+}  // namespace
+
+std::optional<std::string> likely_name(std::string_view unknown, const std::vector<std::string>& known) {
+  const std::vector<std::string_view> views(known.begin(), known.end());
+  if (const auto best = closest_name(unknown, views)) return std::string(*best);
+  return std::nullopt;
+}
+
+namespace {
+
 // ---------------------------------------------------------------------------------------------
 // The reader: one parsed document and the file path for messages
 // ---------------------------------------------------------------------------------------------
@@ -342,7 +354,7 @@ class SpecReader {
       spec.title = std::string(title->value->as_string()->get());
     }
     read_plant(spec.plant);
-    read_actuator(spec.actuator);
+    read_actuator(spec.actuator, spec.plant);
     read_controller(spec.controller);
     read_requirements(spec.requirements);
     read_reference(spec.reference);
@@ -531,6 +543,8 @@ class SpecReader {
     const auto gain = find_entry(*table, "gain");
     const auto numerator = find_entry(*table, "numerator");
     const auto denominator = find_entry(*table, "denominator");
+    auto nonlinear = find_entry(*table, "nonlinear");
+    if (nonlinear && nonlinear->value->is_table()) nonlinear->at = position_of(nonlinear->value->source());
 
     // The two forms exclude each other; blame whichever key of the second form comes later.
     const auto first_present = [](std::initializer_list<const std::optional<Entry>*> entries) {
@@ -551,8 +565,20 @@ class SpecReader {
                        "numerator/denominator, not both",
                        earlier.key));
     }
+    if (nonlinear && (root_form || coefficient_form)) {
+      const Entry& linear = root_form ? *root_form : *coefficient_form;
+      const bool nonlinear_first = comes_before(nonlinear->at, linear.at);
+      const Entry& offender = nonlinear_first ? linear : *nonlinear;
+      const Entry& earlier = nonlinear_first ? *nonlinear : linear;
+      fail(offender.at, dotted("plant", offender.key),
+           fmt::format("cannot be combined with plant.{}; give exactly one plant form: zeros/poles/gain, "
+                       "numerator/denominator, or [plant.nonlinear]",
+                       earlier.key));
+    }
 
-    if (coefficient_form) {
+    if (nonlinear) {
+      read_nonlinear_form(plant, *nonlinear);
+    } else if (coefficient_form) {
       if (!denominator) {
         fail(header, "plant.denominator", "missing (required with plant.numerator)");
       }
@@ -567,7 +593,8 @@ class SpecReader {
                fmt::format("missing (required with plant.{})", root_form->key));
         }
         fail(header, "plant.poles",
-             "missing; give poles (with optional zeros and gain) or numerator and denominator");
+             "missing; give poles (with optional zeros and gain), numerator and denominator, or a "
+             "[plant.nonlinear] section");
       }
       read_root_form(plant, zeros, *poles, gain);
     }
@@ -634,6 +661,200 @@ class SpecReader {
     plant.gain = num.front() / den.front();
   }
 
+  // --- [plant.nonlinear] -------------------------------------------------------------------
+
+  /// A non-empty array of strings, with each element's position.
+  std::vector<std::pair<std::string, toml::source_position>> string_list(const Entry& entry, const std::string& key,
+                                                                         std::string_view what) const {
+    const auto* list = entry.value->as_array();
+    if (list == nullptr || list->empty())
+      fail_expected(entry.at, key, fmt::format("a non-empty array of {}", what), describe(*entry.value));
+    std::vector<std::pair<std::string, toml::source_position>> out;
+    for (std::size_t i = 0; i < list->size(); ++i) {
+      const toml::node& element = *list->get(i);
+      const auto at = position_of(element.source());
+      const auto* text = element.as_string();
+      if (text == nullptr) fail_expected(at, fmt::format("{}[{}]", key, i), fmt::format("a string ({})", what), describe(element));
+      out.emplace_back(std::string(text->get()), at);
+    }
+    return out;
+  }
+
+  void read_nonlinear_form(PlantSpec& plant, const Entry& entry) const {
+    constexpr std::string_view kSection = "plant.nonlinear";
+    const auto* table = entry.value->as_table();
+    if (table == nullptr)
+      fail_expected(entry.at, kSection, "a table (a [plant.nonlinear] section)", describe(*entry.value));
+    static const std::vector<std::string_view> kKeys{"states", "derivatives", "output", "parameters", "operating_point"};
+    for (const auto& key_entry : entries_in_file_order(*table)) {
+      if (std::find(kKeys.begin(), kKeys.end(), key_entry.key) != kKeys.end()) continue;
+      const std::string key = dotted(kSection, key_entry.key);
+      if (const auto suggestion = closest_name(key_entry.key, kKeys))
+        fail(key_entry.at, key, fmt::format("unknown key; did you mean '{}'?", *suggestion));
+      fail(key_entry.at, key, fmt::format("unknown key; valid keys in [plant.nonlinear]: {}", fmt::join(kKeys, ", ")));
+    }
+    const auto header = header_of(*table);
+    const auto required = [&](std::string_view key, std::string_view what) {
+      const auto found = find_entry(*table, key);
+      if (!found) fail(header, dotted(kSection, key), fmt::format("missing; {}", what));
+      return *found;
+    };
+    const Entry states_entry = required("states", "the state names, e.g. states = [\"level\"]");
+    const Entry derivatives_entry =
+        required("derivatives", "one expression per state for its time derivative, e.g. derivatives = [\"(q_in - k*sqrt(level))/area\"]");
+    const Entry output_entry = required("output", "the measured output as an expression of the states, e.g. output = \"level\"");
+    const Entry point_entry = required("operating_point", "a [plant.nonlinear.operating_point] table with u and a guess per state");
+
+    ExpressionDefinition definition;
+    const auto states = string_list(states_entry, "plant.nonlinear.states", "state names");
+    const auto derivatives = string_list(derivatives_entry, "plant.nonlinear.derivatives", "expressions");
+    for (const auto& [name, at] : states) definition.states.push_back(name);
+    for (const auto& [text, at] : derivatives) definition.derivatives.push_back(text);
+    const auto* output_text = output_entry.value->as_string();
+    if (output_text == nullptr)
+      fail_expected(output_entry.at, "plant.nonlinear.output", "a string (an expression of the states)",
+                    describe(*output_entry.value));
+    definition.output = std::string(output_text->get());
+    std::vector<toml::source_position> parameter_at;
+    if (const auto parameters = find_entry(*table, "parameters")) {
+      const auto* list = parameters->value->as_table();
+      if (list == nullptr)
+        fail_expected(parameters->at, "plant.nonlinear.parameters", "a table of name = number",
+                      describe(*parameters->value));
+      for (const auto& p : entries_in_file_order(*list)) {
+        const Number value = number_from(*p.value, p.at, fmt::format("plant.nonlinear.parameters.{}", p.key));
+        definition.parameters.emplace_back(std::string(p.key), value.value);
+        parameter_at.push_back(p.at);
+      }
+    }
+
+    // Where an ExpressionError points: the element, key or parameter it names.
+    const auto fail_expression = [&](const ExpressionError& e) {
+      using Part = ExpressionError::Part;
+      std::string key;
+      toml::source_position at;
+      switch (e.part) {
+        case Part::state:
+          key = fmt::format("plant.nonlinear.states[{}]", e.index);
+          at = e.index < states.size() ? states[e.index].second : states_entry.at;
+          break;
+        case Part::parameter:
+          key = fmt::format("plant.nonlinear.parameters.{}", definition.parameters[e.index].first);
+          at = parameter_at[e.index];
+          break;
+        case Part::derivative:
+          if (e.index < derivatives.size()) {
+            key = fmt::format("plant.nonlinear.derivatives[{}]", e.index);
+            at = derivatives[e.index].second;
+          } else {
+            key = "plant.nonlinear.derivatives";
+            at = derivatives_entry.at;
+          }
+          break;
+        case Part::output:
+          key = "plant.nonlinear.output";
+          at = output_entry.at;
+          break;
+      }
+      std::string message = e.what();
+      if (e.position >= 0 && message.find("position") == std::string::npos && message.find("character") == std::string::npos)
+        message += fmt::format(" (at character {} of the expression)", e.position + 1);
+      fail(at, key, message);
+    };
+
+    std::shared_ptr<ExpressionPlant> model;
+    try {
+      model = std::make_shared<ExpressionPlant>(definition);
+    } catch (const ExpressionError& e) {
+      fail_expression(e);
+    }
+
+    // The operating point: u and a guess for every state.
+    const auto* point = point_entry.value->as_table();
+    if (point == nullptr)
+      fail_expected(point_entry.at, "plant.nonlinear.operating_point", "a table of u and one guess per state",
+                    describe(*point_entry.value));
+    const auto point_header = position_of(point->source());
+    std::vector<std::string> point_names = definition.states;
+    point_names.emplace_back("u");
+    for (const auto& p : entries_in_file_order(*point)) {
+      if (std::find(point_names.begin(), point_names.end(), p.key) != point_names.end()) continue;
+      const auto suggestion = likely_name(p.key, point_names);
+      fail(p.at, fmt::format("plant.nonlinear.operating_point.{}", p.key),
+           fmt::format("not a state or u{}; expected u and a guess for each state: {}",
+                       suggestion ? fmt::format(" (did you mean '{}'?)", *suggestion) : "",
+                       fmt::join(point_names, ", ")));
+    }
+    NonlinearPlantSpec nl;
+    for (const auto& name : point_names) {
+      const auto found = find_entry(*point, name);
+      if (!found)
+        fail(point_header, fmt::format("plant.nonlinear.operating_point.{}", name),
+             name == "u" ? std::string("missing; the actuator value held at the operating point (absolute units)")
+                         : fmt::format("missing; a guess for state '{}' (the equilibrium is searched from it)", name));
+      const Number value = number_from(*found->value, found->at, fmt::format("plant.nonlinear.operating_point.{}", name));
+      if (name == "u") {
+        nl.input = value.value;
+        operating_input_at_ = found->at;
+        operating_input_shown_ = value.shown;
+      } else {
+        nl.state_guess.push_back(value.value);
+      }
+    }
+
+    Equilibrium equilibrium;
+    Linearization linearization;
+    try {
+      equilibrium = model->find_equilibrium(nl.state_guess, nl.input);
+      linearization = model->jacobians_at(equilibrium.states, nl.input);
+    } catch (const ExpressionError& e) {
+      fail_expression(e);
+    } catch (const std::runtime_error& e) {
+      fail(point_header, "plant.nonlinear.operating_point", e.what());
+    }
+    const StateSpace& lin = linearization.model;
+    if (lin.B.cwiseAbs().maxCoeff() == 0.0)
+      fail(derivatives_entry.at, "plant.nonlinear.derivatives",
+           fmt::format("no derivative changes with u at the operating point (∂f/∂u = 0 there): the input cannot "
+                       "move the plant, so no loop can control it at this point"));
+    if (lin.C.cwiseAbs().maxCoeff() == 0.0)
+      fail(output_entry.at, "plant.nonlinear.output",
+           "does not change with any state at the operating point (∂h/∂x = 0 there): the loop would see nothing");
+    const TransferFunction g = transfer_function_of(lin);
+    if (g.numerator.is_zero())
+      fail(point_header, "plant.nonlinear.operating_point",
+           "the linearization's transfer function is zero: u does not reach the output at this operating point "
+           "(the states u moves are not those the output sees)");
+    for (double v : g.numerator.coefficients)
+      if (!std::isfinite(v)) fail(point_header, "plant.nonlinear.operating_point", "the linearization is not finite");
+
+    nl.states = definition.states;
+    nl.derivatives = definition.derivatives;
+    nl.output = definition.output;
+    nl.parameters = definition.parameters;
+    nl.equilibrium = equilibrium.states;
+    nl.output_value = equilibrium.output;
+    nl.newton_iterations = equilibrium.iterations;
+    nl.residual = equilibrium.residual;
+    for (Eigen::Index i = 0; i < lin.A.rows(); ++i) {
+      nl.a.emplace_back();
+      for (Eigen::Index j = 0; j < lin.A.cols(); ++j) nl.a.back().push_back(lin.A(i, j));
+      nl.b.push_back(lin.B(i));
+      nl.c.push_back(lin.C(0, i));
+    }
+    nl.d = lin.D(0);
+    model->set_operating_point(equilibrium.states, nl.input);
+    nl.model = model;
+
+    plant.given_as_zeros_poles = false;
+    plant.numerator = g.numerator.coefficients;
+    plant.denominator = g.denominator.coefficients;
+    plant.zeros = polynomial_roots(plant.numerator);
+    plant.poles = polynomial_roots(plant.denominator);
+    plant.gain = plant.numerator.front() / plant.denominator.front();
+    plant.nonlinear = std::move(nl);
+  }
+
   // --- other sections ----------------------------------------------------------------------
 
   /// A string naming one of `names`, parsed by `parse` (which returns a std::optional); an
@@ -659,7 +880,7 @@ class SpecReader {
     return value;
   }
 
-  void read_actuator(ActuatorSpec& actuator) const {
+  void read_actuator(ActuatorSpec& actuator, const PlantSpec& plant) const {
     const toml::table* table = section("actuator");
     if (table == nullptr) return;
     actuator.rate_max = ranged_number(table, "actuator", "rate_max", [](double v) { return v > 0.0; },
@@ -673,9 +894,20 @@ class SpecReader {
       fail(header_of(*table), "actuator.min", "missing; give both min and max, or neither");
     require(max->value > min->value, *max, "actuator.max",
             fmt::format("a number greater than actuator.min ({})", min->shown));
-    // The loop starts at rest with u = 0, so the range must contain it.
-    require(min->value <= 0.0, *min, "actuator.min", "a limit <= 0 (the loop starts at rest with u = 0)");
-    require(max->value >= 0.0, *max, "actuator.max", "a limit >= 0 (the loop starts at rest with u = 0)");
+    if (plant.nonlinear) {
+      // Absolute actuator values; the loop starts at rest at the operating point, u = u0.
+      const double u0 = plant.nonlinear->input;
+      if (!(u0 >= min->value && u0 <= max->value))
+        fail(operating_input_at_, "plant.nonlinear.operating_point.u",
+             fmt::format("{} lies outside the actuator limits [{}, {}]; for a nonlinear plant actuator.min and "
+                         "actuator.max are absolute actuator values and the loop starts at rest at the operating "
+                         "point, so u must lie within them",
+                         operating_input_shown_, min->shown, max->shown));
+    } else {
+      // The loop starts at rest with u = 0, so the range must contain it.
+      require(min->value <= 0.0, *min, "actuator.min", "a limit <= 0 (the loop starts at rest with u = 0)");
+      require(max->value >= 0.0, *max, "actuator.max", "a limit >= 0 (the loop starts at rest with u = 0)");
+    }
     actuator.min = min->value;
     actuator.max = max->value;
     actuator.limited = true;
@@ -866,6 +1098,8 @@ class SpecReader {
 
   const toml::table& document_;
   std::string path_;
+  mutable toml::source_position operating_input_at_{};  // where plant.nonlinear.operating_point.u was written
+  mutable std::string operating_input_shown_;
 };
 
 }  // namespace

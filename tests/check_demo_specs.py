@@ -72,6 +72,18 @@ def main() -> int:
                     check(nl is not None and nl.get("status") == "ok" and isinstance(nl.get("confirmed"), bool)
                           and nl.get("verdict"), f"{spec.name}: {name} confirmed or not on the nonlinear loop")
                 check("NaN" not in result_file.read_text(), f"{spec.name}: no NaN in result.json")
+                if result["spec"]["plant"].get("given_as") == "nonlinear":
+                    # An expression plant: the design ran on its linearization, which result.json
+                    # and analyze must say, with the operating point and the Jacobians.
+                    lin = (result.get("linear_model") or {}).get("linearization") or {}
+                    n = len(result["spec"]["plant"]["nonlinear"]["states"])
+                    jac = lin.get("jacobians", {})
+                    check(len(jac.get("A", [])) == n and all(len(row) == n for row in jac["A"])
+                          and len(jac.get("B", [])) == n and len(jac.get("C", [])) == n and "D" in jac
+                          and set(lin.get("operating_point", {})) == {"states", "u", "y"} and lin.get("note"),
+                          f"{spec.name}: result.json has the linearization (operating point, A, B, C, D, note)")
+                    check("linearization" in text.stdout and "operating point" in text.stdout,
+                          f"{spec.name}: analyze says the plant is a linearization at the operating point")
             first = spec.read_text().splitlines()[0]
             check(first.startswith("#"), f"{spec.name}: starts with a header comment saying what it models")
     print(f"{passed} passed, {failed} failed")

@@ -214,6 +214,24 @@ TEST_CASE("a failed confirmation names the effect that caused it", "[confirmatio
     CHECK(d.nonlinear->verdict.find("without saturation") != std::string::npos);
     CHECK(d.nonlinear->command_excess_max > 0.0);
   }
+  SECTION("a large step on an expression plant: its nonlinearity, not its limits, costs the overshoot") {
+    // An invented tank with square-root outflow and a pump lag, asked for 0.9 m above its 1 m
+    // operating level (the linearization holds for small steps only); the limits are far away.
+    const Problem p = problem_from(
+        "[plant.nonlinear]\nstates = [\"level\", \"flow\"]\n"
+        "derivatives = [\"(flow - orifice*sqrt(level))/area\", \"(pump_flow*u - flow)/spin_up\"]\n"
+        "output = \"level\"\nparameters = { area = 0.25, orifice = 0.006, pump_flow = 0.012, spin_up = 6.0 }\n"
+        "[plant.nonlinear.operating_point]\nlevel = 0.8\nflow = 0.005\nu = 0.5\n"
+        "[actuator]\nmin = -20.0\nmax = 20.0\n[controller]\nstructure = \"pi\"\n"
+        "[requirements]\novershoot_max_pct = 10.5\n[reference]\namplitude = 0.9\n");
+    const Design d = measure_design(p, "test", make_controller(Structure::pi, {2.484, 0.012}, 10.0));
+    REQUIRE(d.checks.front().met);  // about 10.0 % on the linearization
+    REQUIRE(d.nonlinear);
+    REQUIRE_FALSE(d.nonlinear->confirmed);  // about 11.8 % on the expressions
+    REQUIRE(d.nonlinear->attribution.size() == 1);
+    CHECK(d.nonlinear->attribution.front().factor == "plant nonlinearity");
+    CHECK(d.nonlinear->attribution.front().restores);
+  }
   SECTION("a load step and noise: only the load step explains the settling miss") {
     const Problem p = problem_from(
         "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[actuator]\nmin = -50.0\nmax = 50.0\n"

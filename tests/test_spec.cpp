@@ -322,7 +322,7 @@ TEST_CASE("the first problem in file order is the one reported", "[spec][errors]
   // toml++ iterates keys alphabetically; the reader must still report the earlier line.
   CHECK(error_of("[plant]\nzzz = 1\naaa = 2\npoles = [-1.0]\n") ==
         "specs/unit.toml:2:1: plant.zzz: unknown key; valid keys in [plant]: zeros, poles, "
-        "gain, numerator, denominator, delay");
+        "gain, numerator, denominator, delay, nonlinear");
 }
 
 TEST_CASE("plant form errors name the offending key", "[spec][errors]") {
@@ -330,8 +330,8 @@ TEST_CASE("plant form errors name the offending key", "[spec][errors]") {
         "specs/unit.toml:1:1: plant: missing section; a spec needs [plant] with poles (and "
         "optional zeros, gain) or with numerator and denominator");
   CHECK(error_of("title = \"Fan\"\n\n[plant]\ndelay = 1.0\n") ==
-        "specs/unit.toml:3:1: plant.poles: missing; give poles (with optional zeros and gain) or "
-        "numerator and denominator");
+        "specs/unit.toml:3:1: plant.poles: missing; give poles (with optional zeros and gain), "
+        "numerator and denominator, or a [plant.nonlinear] section");
   CHECK(error_of("[plant]\ndenominator = [1.0, 2.0]\npoles = [-2.0]\n") ==
         "specs/unit.toml:3:1: plant.poles: cannot be combined with plant.denominator; give "
         "either zeros/poles/gain or numerator/denominator, not both");

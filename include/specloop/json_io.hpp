@@ -23,6 +23,9 @@ nlohmann::json dominance_json(const DominanceDiagnosis& d);
 /// The whole `analyze --json` object.
 nlohmann::json characterization_json(const Spec& spec, const Characterization& ch);
 
+/// For a [plant.nonlinear] spec: the operating point (states, u, y), the Jacobians A, B, C, D at it
+/// and a note that the design used this linearization; null for a linear plant.
+nlohmann::json linearization_json(const Spec& spec);
 /// The spec as normalized (both plant forms, every default filled in).
 nlohmann::json spec_json(const Spec& spec);
 /// One design: controller (all parameterizations), poles, second-order prediction, simulated

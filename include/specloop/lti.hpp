@@ -56,6 +56,15 @@ struct StateSpace {
   int outputs() const { return static_cast<int>(C.rows()); }
 };
 
+/// The SISO transfer function C·(sI − A)⁻¹·B + D of a state space (row 0 of C), by the
+/// Faddeev–LeVerrier recursion: N_0 = I, c_k = −tr(A·N_{k−1})/k, N_k = A·N_{k−1} + c_k·I; then
+/// det(sI − A) = Σ c_k s^(n−k) and C·adj(sI − A)·B = Σ (C·N_k·B) s^(n−1−k) (Gantmacher, The Theory
+/// of Matrices, vol. 1, ch. IV §4; recalled from memory). Leading numerator coefficients below
+/// 1e-9 of the largest (each weighted by w^power, w the spectral radius of A or 1) are dropped as
+/// rounding. Meant for the few states of a hand-written plant (the recursion loses accuracy for
+/// large n).
+TransferFunction transfer_function_of(const StateSpace& s);
+
 /// A well-conditioned realization of a proper transfer function: a cascade of first- and
 /// second-order sections built from its poles and zeros, each section scaled so its
 /// companion block is balanced (natural frequency on both off-diagonal entries).

@@ -11,7 +11,9 @@
 
 #include <cstdint>
 #include <limits>
+#include <memory>
 #include <optional>
+#include <stdexcept>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -48,6 +50,28 @@ std::string_view stepper_name(NonlinearStepper s);
 /// at an estimate of 2400 and 3.3× at 7300; on the demo loops (estimates 55–813, larger states)
 /// Rosenbrock was 1.3–8× slower. Above 5000 the implicit stepper wins with margin.
 inline constexpr double kStiffStepThreshold = 5000.0;
+/// A plant given by its own right-hand side instead of (A, B, C), in deviation variables around
+/// an operating point (x0, u0, y0): the simulation's state is δx = x − x0, its input δu = u − u0,
+/// its output δy = h(x0 + δx) − y0. Implemented by ExpressionPlant (expression_plant.hpp).
+/// Evaluations may throw PlantEvaluationError (a NaN or infinity from the model); the simulation
+/// turns that into status non_finite with the message as a note.
+class PlantModel {
+ public:
+  virtual ~PlantModel() = default;
+  virtual int states() const = 0;
+  /// δx' = f(x0 + δx, u0 + δu).
+  virtual void derivative(const double* deviation, double input_deviation, double* rate) const = 0;
+  /// δy = h(x0 + δx) − y0.
+  virtual double output(const double* deviation) const = 0;
+  /// dδy/dt along the state rate `rate` at δx: ∂h/∂x·rate.
+  virtual double output_rate(const double* deviation, const double* rate) const = 0;
+};
+
+/// A plant model evaluated to NaN or infinity; the message names the expression and the values.
+class PlantEvaluationError : public std::runtime_error {
+ public:
+  using std::runtime_error::runtime_error;
+};
 
 struct LoopOptions {
   double setpoint_weight = 1.0;    // b: proportional term acts on b·r − y (parallel form only)
@@ -69,6 +93,9 @@ struct LoopOptions {
   double noise_period_s = 0.0; // each noise value is held this long, s; <= 0: sample_time_s, or horizon/2000
   std::uint64_t noise_seed = 1;
   std::optional<NonlinearStepper> stepper;  // empty: chosen by the stiffness estimate (above)
+  /// Set: the plant is this model (deviation variables) instead of the StateSpace argument, which
+  /// then only gives the linear loop's final value y∞ and the default horizon (its linearization).
+  std::shared_ptr<const PlantModel> plant_model;
 };
 
 /// `count` values of zero-mean Gaussian noise with standard deviation `rms`, from the 64-bit
@@ -172,6 +199,12 @@ struct NonlinearResult {
 /// every k·Tn is a break point where the integration restarts (the noise is a staircase, so the
 /// right-hand side stays smooth within a piece); a sampled controller reads y(k·Ts) + n at its
 /// samples. The recorded output and the metrics are the noise-free plant output.
+/// Nonlinear plant (options.plant_model set): the plant part of the loop is the model's
+/// right-hand side in deviation variables; everything else (actuator limits and rates, which are
+/// then deviations from u0 too, anti-windup, delay, sampling) is unchanged. A NaN or infinity from
+/// the model in a trial step is retried from the last accepted state with steps ten times smaller
+/// (up to 12 times: trial stages may leave the model's domain where the solution does not); if it
+/// persists the run ends with status non_finite and a note naming the expression and the time.
 ///
 /// Throws std::invalid_argument for malformed input (the message names the field); numerical
 /// failures are reported in `status`, never as NaN samples.

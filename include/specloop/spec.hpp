@@ -4,6 +4,7 @@
 
 #include <complex>
 #include <cstdint>
+#include <memory>
 #include <optional>
 #include <stdexcept>
 #include <string>
@@ -25,6 +26,10 @@ const std::vector<std::string>& structure_names();
 /// True when the structure contains an integrator (pi, pid).
 bool has_integrator(Structure s);
 
+/// The known name closest to `unknown` when it is a likely typo (equal ignoring case, or within
+/// edit distance 2), for did-you-mean messages; std::nullopt otherwise.
+std::optional<std::string> likely_name(std::string_view unknown, const std::vector<std::string>& known);
+
 /// A bad spec: the message is complete and already reads
 /// "specs/x.toml:12:1: requirements.overshoot_max_pct: expected a number in (0, 100), got -5".
 class SpecError : public std::runtime_error {
@@ -32,7 +37,31 @@ class SpecError : public std::runtime_error {
   using std::runtime_error::runtime_error;
 };
 
-/// The plant as written; both forms are filled after loading (the other one is derived).
+class ExpressionPlant;
+
+/// [plant.nonlinear]: the plant as ODE right-hand sides, and what loading found from them.
+struct NonlinearPlantSpec {
+  std::vector<std::string> states;            // names, in state order
+  std::vector<std::string> derivatives;       // d(state)/dt, one expression per state
+  std::string output;                         // y as an expression of states and parameters
+  std::vector<std::pair<std::string, double>> parameters;  // as listed
+  std::vector<double> state_guess;            // [plant.nonlinear.operating_point], per state
+  double input = 0.0;                         // operating_point.u: the actuator value held (absolute units)
+  // Found at load time:
+  std::vector<double> equilibrium;            // states where every derivative is 0 with u = input
+  double output_value = 0.0;                  // y0 = h(equilibrium)
+  int newton_iterations = 0;
+  double residual = 0.0;                      // max |f_i| at the equilibrium
+  std::vector<std::vector<double>> a;         // ∂f/∂x at the equilibrium (rows)
+  std::vector<double> b;                      // ∂f/∂u
+  std::vector<double> c;                      // ∂h/∂x
+  double d = 0.0;                             // ∂h/∂u (0: the output may not use u)
+  /// The compiled model, its deviation variables measured from (equilibrium, input, output_value).
+  std::shared_ptr<const ExpressionPlant> model;
+};
+
+/// The plant as written; both forms are filled after loading (the other one is derived). For a
+/// nonlinear plant, both are the linearization at the operating point.
 struct PlantSpec {
   bool given_as_zeros_poles = true;           // which form the file used
   std::vector<std::complex<double>> zeros;    // rad/s, conjugate pairs expanded, as listed
@@ -41,6 +70,7 @@ struct PlantSpec {
   std::vector<double> numerator;              // highest power of s first
   std::vector<double> denominator;            // highest power of s first, leading coefficient != 0
   double delay_s = 0.0;                       // transport delay, s (>= 0)
+  std::optional<NonlinearPlantSpec> nonlinear;  // set when the file gave [plant.nonlinear]
 };
 
 /// Integrator protection while the actuator is saturated (parallel-form controllers only).

@@ -3,6 +3,11 @@
 //
 // Reads one JSON object from stdin:
 //   {"plant":      {"numerator": [...], "denominator": [...]},       highest power first
+//                  or {"nonlinear": {"states": [...], "derivatives": [...], "output": "...",
+//                                    "parameters": {...}, "operating_point": {<state>: guess, "u": u0}}}
+//                  (an ExpressionPlant: the equilibrium is found from the guess with u = u0, the
+//                  loop runs in deviation variables around it; actuator limits, amplitude and all
+//                  printed traces are then deviations too),
 //    "controller": {"structure": "pi", "series": [...], "derivative_filter": 10},
 //    "actuator":   {"min": -1, "max": 1, "rate_max": 0.5},             all optional
 //    "options":    {"anti_windup": "clamping", "setpoint_weight": 1, "derivative_weight": 1,
@@ -13,20 +18,23 @@
 //                   "noise_seed": 1, "stepper": "dopri5" | "rosenbrock4"},
 //    "amplitude":  1.0, "band_pct": 2.0}
 // and prints {"status", "notes", "steps", "switches", "saturated_fraction", "rate_limited_fraction",
-// "command_excess_max", "stepper", "noise", "time", "output",
-// "control", "command", "plant_input", "metrics", "difference_equation"} (metrics null unless
+// "command_excess_max", "stepper", "noise", "time", "output", "control", "command", "plant_input",
+// "metrics", "difference_equation", "operating_point"}
+// (operating_point: {"states": [...], "u", "y"} for a nonlinear plant, else null; metrics null unless
 // the status is "ok"; difference_equation null for a continuous controller, else
 // {"sample_time_s", "reference_numerator", "measurement_numerator", "denominator", "method"}).
 // Exit codes: 0 printed a result (whatever the status), 2 malformed input (message on stderr).
 #include <cmath>
 #include <cstdint>
 #include <iostream>
+#include <memory>
 #include <stdexcept>
 #include <string>
 #include <vector>
 
 #include <nlohmann/json.hpp>
 
+#include "specloop/expression_plant.hpp"
 #include "specloop/json_io.hpp"
 #include "probe_io.hpp"
 #include "specloop/nonlinear.hpp"
@@ -65,9 +73,37 @@ int run() {
   const json in = probe::read_stdin_json();
   only_keys(in, "input", {"plant", "controller", "actuator", "options", "amplitude", "band_pct"});
   const json& p = in.at("plant");
-  only_keys(p, "plant", {"numerator", "denominator"});
-  const TransferFunction plant_tf(Polynomial(numbers(p.at("numerator"), "plant.numerator")),
-                                  Polynomial(numbers(p.at("denominator"), "plant.denominator")));
+  only_keys(p, "plant", {"numerator", "denominator", "nonlinear"});
+  TransferFunction plant_tf;
+  std::shared_ptr<ExpressionPlant> expression_plant;
+  json operating_point = nullptr;
+  if (p.contains("nonlinear")) {
+    const json& nl = p["nonlinear"];
+    only_keys(nl, "plant.nonlinear", {"states", "derivatives", "output", "parameters", "operating_point"});
+    ExpressionDefinition def;
+    def.states = nl.at("states").get<std::vector<std::string>>();
+    def.derivatives = nl.at("derivatives").get<std::vector<std::string>>();
+    def.output = nl.at("output").get<std::string>();
+    if (nl.contains("parameters"))
+      for (const auto& item : nl["parameters"].items())
+        def.parameters.emplace_back(item.key(), number(item.value(), "plant.nonlinear.parameters." + item.key()));
+    try {
+      expression_plant = std::make_shared<ExpressionPlant>(def);
+    } catch (const ExpressionError& e) {
+      throw InputError(std::string("plant.nonlinear: ") + e.what());
+    }
+    const json& op = nl.at("operating_point");
+    std::vector<double> guess;
+    for (const auto& name : def.states) guess.push_back(number(op.at(name), "plant.nonlinear.operating_point." + name));
+    const double u0 = number(op.at("u"), "plant.nonlinear.operating_point.u");
+    const Equilibrium eq = expression_plant->find_equilibrium(guess, u0);
+    expression_plant->set_operating_point(eq.states, u0);
+    plant_tf = transfer_function_of(expression_plant->jacobians_at(eq.states, u0).model);
+    operating_point = {{"states", eq.states}, {"u", u0}, {"y", eq.output}};
+  } else {
+    plant_tf = TransferFunction(Polynomial(numbers(p.at("numerator"), "plant.numerator")),
+                                Polynomial(numbers(p.at("denominator"), "plant.denominator")));
+  }
   const json& c = in.at("controller");
   only_keys(c, "controller", {"structure", "series", "derivative_filter"});
   const auto structure = parse_structure(c.at("structure").get<std::string>());
@@ -121,6 +157,7 @@ int run() {
       opt.stepper = name == "dopri5" ? NonlinearStepper::dopri5 : NonlinearStepper::rosenbrock4;
     }
   }
+  opt.plant_model = expression_plant;
   const double amplitude = in.contains("amplitude") ? number(in["amplitude"], "amplitude") : 1.0;
   const double band_pct = in.contains("band_pct") ? number(in["band_pct"], "band_pct") : 2.0;
 
@@ -153,6 +190,7 @@ int run() {
   } else {
     out["difference_equation"] = nullptr;
   }
+  out["operating_point"] = operating_point;
   out["metrics"] = r.status == NonlinearStatus::ok ? metrics_json(r.metrics) : json(nullptr);
   std::cout << out.dump() << "\n";
   return 0;
