@@ -360,9 +360,9 @@ struct HeldModeSystem {
   const LoopModel* model;
   Modes modes;
   double disturbance;
-  void operator()(const State& x, State& dxdt, double t) const {
-    model->derivative(x.data(), dxdt.data(), modes, disturbance, t);
-  }
+  void evaluate(const double* x, double* dxdt, double t) const { model->derivative(x, dxdt, modes, disturbance, t); }
+  void operator()(const State& x, State& dxdt, double t) const { evaluate(x.data(), dxdt.data(), t); }
+  bool time_varying() const { return model->delay != nullptr; }  // the delayed input
 };
 
 // The implicit stepper behind odeint's dense-output interface, on the same State.
@@ -370,11 +370,11 @@ class ImplicitDense {
  public:
   ImplicitDense(std::size_t n, double atol, double rtol, double max_dt) : stepper_(n, atol, rtol, max_dt), state_(n) {}
   void initialize(const State& x, double t, double dt) { stepper_.initialize(x.data(), t, dt); }
-  std::pair<double, double> do_step(const HeldModeSystem& system) {
+  template <class System>  // evaluate(x, dxdt, t) and time_varying()
+  std::pair<double, double> do_step(const System& system) {
     stepper_.set_system([](const void* c, const double* x, double* dx, double t) {
-      const auto& s = *static_cast<const HeldModeSystem*>(c);
-      s.model->derivative(x, dx, s.modes, s.disturbance, t);
-    }, &system, system.model->delay != nullptr);
+      static_cast<const System*>(c)->evaluate(x, dx, t);
+    }, &system, system.time_varying());
     return stepper_.do_step();
   }
   void calc_state(double t, State& x) const { stepper_.calc_state(t, x.data()); }
@@ -723,7 +723,6 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     result.stepper = options.stepper ? *options.stepper
                                      : (result.explicit_steps_estimate > kStiffStepThreshold ? NonlinearStepper::rosenbrock4
                                                                                              : NonlinearStepper::dopri5);
-    if (period > 0.0) result.stepper = NonlinearStepper::dopri5;
     if (result.stepper == NonlinearStepper::rosenbrock4)
       result.notes.push_back("stiff loop (dopri5 would need about " + to_string(static_cast<long>(result.explicit_steps_estimate)) +
                              " steps for stability alone): integrated with the implicit Rosenbrock method");
@@ -819,90 +818,109 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     struct PlantSystem {
       const LoopModel* m;
       double u0, slope, t0, d;
-      void operator()(const State& xs, State& dx, double time) const {
+      void evaluate(const double* xs, double* dx, double time) const {
         const double u = u0 + slope * (time - t0) + d;
         if (m->pm) {
-          m->pm->derivative(xs.data(), u, dx.data());
+          m->pm->derivative(xs, u, dx);
           return;
         }
         for (int i = 0; i < m->np; ++i) {
           double v = m->bp(i) * u;
-          for (int j = 0; j < m->np; ++j) v += m->ap(i, j) * xs[static_cast<std::size_t>(j)];
-          dx[static_cast<std::size_t>(i)] = v;
+          for (int j = 0; j < m->np; ++j) v += m->ap(i, j) * xs[j];
+          dx[i] = v;
         }
       }
+      void operator()(const State& xs, State& dx, double time) const { evaluate(xs.data(), dx.data(), time); }
+      bool time_varying() const { return slope != 0.0; }  // a slewing input
     };
-    auto dense = boost::numeric::odeint::make_dense_output(options.absolute_tolerance, options.relative_tolerance, horizon / 100.0, Stepper());
-    double dt = std::min(horizon / 4000.0, period);
-    long k = 0;
-    double t = 0.0;
-    try {
-      while (true) {
-        // Controller samples due now.
-        while (static_cast<double>(k) * period <= t && static_cast<double>(k) * period <= horizon) {
-          const double tk = static_cast<double>(k) * period;
-          const double y = model.output(x.data()) + noise_at(tk);
-          const double uc = ctl.update(amplitude, y);
-          if (!std::isfinite(uc)) return stop(NonlinearStatus::non_finite, "the controller output became non-finite at t = " + to_string(tk) + " s");
-          commands.push_back(uc);
-          if (uc > model.umax || uc < model.umin) saturated_time += std::min(period, horizon - tk);
-          const double target = std::clamp(uc, model.umin, model.umax);
-          const double now = applied_at(tk);
-          double end_value = target;
-          if (model.rate && target != now) {
-            const double slope = target > now ? model.rate_max : -model.rate_max;
-            const double reach = tk + (target - now) / slope;
-            knots.push_back({tk, tk + delay, now, slope});
-            slewing_time += std::min({reach, tk + period, horizon}) - tk;
-            if (reach < tk + period) knots.push_back({reach, reach + delay, target, 0.0});
-            else end_value = now + slope * period;
-          } else {
-            knots.push_back({tk, tk + delay, target, 0.0});
-          }
-          ctl.ua_prev = end_value;
-          for (std::size_t i = knots.size() - (knots.back().t > tk ? 2 : 1); i < knots.size(); ++i)
-            if (knots[i].plant_t < horizon) breaks.insert(knots[i].plant_t);
-          ++k;
-          if (static_cast<double>(k) * period < horizon) breaks.insert(static_cast<double>(k) * period);
-        }
-        while (next_sample < samples.size() && samples[next_sample] <= t) record(samples[next_sample++], x);
-        if (t >= horizon) break;
-        const double t_end = *breaks.upper_bound(t);
-        if (++work > options.max_steps)
-          return stop(NonlinearStatus::step_limit, "stopped at t = " + to_string(t) + " s: max_steps = " + to_string(options.max_steps) + " reached");
-        ++result.switches;
-        if (t_end - t > 1e-13 * std::max(1.0, std::abs(t))) {  // shorter pieces (rounding of k·Ts + L) are skipped
-          const Knot& kn = plant_knot(t);
-          PlantSystem system{&model, kn.slope == 0.0 ? kn.value : kn.value + kn.slope * (t - kn.plant_t), kn.slope, t,
-                             disturbance_at(t)};
-          dense.initialize(x, t, std::min(dt, t_end - t));
-          while (true) {
-            if (++work > options.max_steps)
-              return stop(NonlinearStatus::step_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_steps = " + to_string(options.max_steps) + " reached");
-            if (wall() > options.max_wall_time_s)
-              return stop(NonlinearStatus::time_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_wall_time_s = " + to_string(options.max_wall_time_s) + " reached");
-            const double tb = step_within_domain(dense, system, work, domain_retries).second;
-            ++result.steps;
-            dt = dense.current_time_step();
-            const double tc = std::min(tb, t_end);
-            if (tb <= t_end) xe = dense.current_state();
-            else dense.calc_state(tc, xe);
-            if (!all_finite(xe)) return stop(NonlinearStatus::non_finite, "the state became non-finite near t = " + to_string(tc) + " s");
-            while (next_sample < samples.size() && samples[next_sample] < tc) {
-              dense.calc_state(samples[next_sample], scratch);
-              record(samples[next_sample++], scratch);
+    // The plant between the hold's switches, with either stepper; false: stopped (status set).
+    auto integrate_held = [&](auto& dense) -> bool {
+      auto halt = [&](NonlinearStatus s, const std::string& why) {
+        stop(s, why);
+        return false;
+      };
+      double dt = std::min(horizon / 4000.0, period);
+      long k = 0;
+      double t = 0.0;
+      try {
+        while (true) {
+          // Controller samples due now.
+          while (static_cast<double>(k) * period <= t && static_cast<double>(k) * period <= horizon) {
+            const double tk = static_cast<double>(k) * period;
+            const double y = model.output(x.data()) + noise_at(tk);
+            const double uc = ctl.update(amplitude, y);
+            if (!std::isfinite(uc)) return halt(NonlinearStatus::non_finite, "the controller output became non-finite at t = " + to_string(tk) + " s");
+            commands.push_back(uc);
+            if (uc > model.umax || uc < model.umin) saturated_time += std::min(period, horizon - tk);
+            const double target = std::clamp(uc, model.umin, model.umax);
+            const double now = applied_at(tk);
+            double end_value = target;
+            if (model.rate && target != now) {
+              const double slope = target > now ? model.rate_max : -model.rate_max;
+              const double reach = tk + (target - now) / slope;
+              knots.push_back({tk, tk + delay, now, slope});
+              slewing_time += std::min({reach, tk + period, horizon}) - tk;
+              if (reach < tk + period) knots.push_back({reach, reach + delay, target, 0.0});
+              else end_value = now + slope * period;
+            } else {
+              knots.push_back({tk, tk + delay, target, 0.0});
             }
-            if (tb >= t_end) break;
+            ctl.ua_prev = end_value;
+            for (std::size_t i = knots.size() - (knots.back().t > tk ? 2 : 1); i < knots.size(); ++i)
+              if (knots[i].plant_t < horizon) breaks.insert(knots[i].plant_t);
+            ++k;
+            if (static_cast<double>(k) * period < horizon) breaks.insert(static_cast<double>(k) * period);
           }
-          x = xe;
+          while (next_sample < samples.size() && samples[next_sample] <= t) record(samples[next_sample++], x);
+          if (t >= horizon) break;
+          const double t_end = *breaks.upper_bound(t);
+          if (++work > options.max_steps)
+            return halt(NonlinearStatus::step_limit, "stopped at t = " + to_string(t) + " s: max_steps = " + to_string(options.max_steps) + " reached");
+          ++result.switches;
+          if (t_end - t > 1e-13 * std::max(1.0, std::abs(t))) {  // shorter pieces (rounding of k·Ts + L) are skipped
+            const Knot& kn = plant_knot(t);
+            PlantSystem system{&model, kn.slope == 0.0 ? kn.value : kn.value + kn.slope * (t - kn.plant_t), kn.slope, t,
+                               disturbance_at(t)};
+            dense.initialize(x, t, std::min(dt, t_end - t));
+            while (true) {
+              if (++work > options.max_steps)
+                return halt(NonlinearStatus::step_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_steps = " + to_string(options.max_steps) + " reached");
+              if (wall() > options.max_wall_time_s)
+                return halt(NonlinearStatus::time_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_wall_time_s = " + to_string(options.max_wall_time_s) + " reached");
+              const double tb = step_within_domain(dense, system, work, domain_retries).second;
+              ++result.steps;
+              dt = dense.current_time_step();
+              const double tc = std::min(tb, t_end);
+              if (tb <= t_end) xe = dense.current_state();
+              else dense.calc_state(tc, xe);
+              if (!all_finite(xe)) return halt(NonlinearStatus::non_finite, "the state became non-finite near t = " + to_string(tc) + " s");
+              while (next_sample < samples.size() && samples[next_sample] < tc) {
+                dense.calc_state(samples[next_sample], scratch);
+                record(samples[next_sample++], scratch);
+              }
+              if (tb >= t_end) break;
+            }
+            x = xe;
+          }
+          t = t_end;
         }
-        t = t_end;
+      } catch (const boost::numeric::odeint::odeint_error& e) {
+        return halt(NonlinearStatus::step_limit, std::string("the integrator gave up: ") + e.what());
+      } catch (const PlantEvaluationError& e) {
+        return halt(NonlinearStatus::non_finite, std::string(e.what()) + " (integrating from t = " + to_string(t) + " s)");
       }
-    } catch (const boost::numeric::odeint::odeint_error& e) {
-      return stop(NonlinearStatus::step_limit, std::string("the integrator gave up: ") + e.what());
-    } catch (const PlantEvaluationError& e) {
-      return stop(NonlinearStatus::non_finite, std::string(e.what()) + " (integrating from t = " + to_string(t) + " s)");
+      return true;
+    };
+    bool completed = false;
+    if (result.stepper == NonlinearStepper::rosenbrock4) {
+      ImplicitDense dense(static_cast<std::size_t>(np), options.absolute_tolerance, options.relative_tolerance, horizon / 100.0);
+      completed = integrate_held(dense);
+    } else {
+      auto dense = boost::numeric::odeint::make_dense_output(options.absolute_tolerance, options.relative_tolerance,
+                                                             horizon / 100.0, Stepper());
+      completed = integrate_held(dense);
     }
+    if (!completed) return result;
   } else {
     // ---- Continuous controller: hybrid integration with located switches (and delay line).
     DelayLine line;

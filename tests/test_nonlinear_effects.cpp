@@ -155,6 +155,19 @@ TEST_CASE("a stiff loop is integrated implicitly, and both steppers agree", "[st
     CHECK(max_difference(implicit_delayed.output, explicit_delayed.output) < 1e-5);
   }
 
+  SECTION("with a sampled controller (the plant between the hold's switches)") {
+    opt.sample_time_s = 0.01;
+    opt.stepper.reset();
+    const NonlinearResult implicit_sampled = simulate_nonlinear(stiff, pi, act, opt, 1.0, 0.02);
+    opt.stepper = NonlinearStepper::dopri5;
+    const NonlinearResult explicit_sampled = simulate_nonlinear(stiff, pi, act, opt, 1.0, 0.02);
+    REQUIRE(implicit_sampled.status == NonlinearStatus::ok);
+    REQUIRE(explicit_sampled.status == NonlinearStatus::ok);
+    CHECK(implicit_sampled.stepper == NonlinearStepper::rosenbrock4);
+    CHECK(max_difference(implicit_sampled.output, explicit_sampled.output) < 1e-5);
+    CHECK(implicit_sampled.steps < explicit_sampled.steps);
+  }
+
   SECTION("a loop that is not stiff stays explicit") {
     opt.stepper.reset();
     const NonlinearResult r = simulate_nonlinear(lag_plant(), pi, act, opt, 1.0, 0.02);
