@@ -39,7 +39,7 @@ from scipy import signal
 from scipy.integrate import solve_ivp
 
 from check_scipy_nonlinear import pid_gains
-from reference_common import Tally
+from reference_common import Tally, sample_segments
 
 TOL_TRACE = 1e-4
 TOL_FRACTION = 1e-5
@@ -223,17 +223,8 @@ def reference(case, amplitude, samples, noise):
                 t = t_end
             if len(segments) > 2000:
                 raise RuntimeError("more than 2000 switches: chattering reference")
-    y = np.empty(len(samples))
-    u = np.empty(len(samples))
-    k = 0
-    for i, ts in enumerate(samples):
-        while k + 1 < len(segments) and ts > segments[k][1]:
-            k += 1
-        t0, t1, dense, mode, nz = segments[k]
-        xs = dense(min(max(ts, t0), t1))
-        y[i] = C @ xs[:n]
-        u[i] = applied(xs, mode, nz)
-    return y, u, beyond / horizon, slewing / horizon
+    y, u = sample_segments(segments, samples, lambda xs, mode, nz: (C @ xs[:n], applied(xs, mode, nz)))
+    return np.array(y), np.array(u), beyond / horizon, slewing / horizon
 
 
 def probe_input(case, amplitude):

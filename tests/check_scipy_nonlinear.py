@@ -87,7 +87,7 @@ import numpy as np
 from scipy import signal
 from scipy.integrate import solve_ivp
 
-from reference_common import Tally
+from reference_common import Tally, sample_segments
 
 TOL_TRACE = 1e-4
 TOL_OVERSHOOT_PTS = 1e-3
@@ -242,17 +242,8 @@ def reference(case, amplitude, samples):
                 fired = (mode, index)
             if len(segments) > 1000:
                 raise RuntimeError("more than 1000 switches: chattering reference")
-    y = np.empty(len(samples))
-    u = np.empty(len(samples))
-    k = 0
-    for i, ts in enumerate(samples):
-        while k + 1 < len(segments) and ts > segments[k][1]:
-            k += 1
-        t0, t1, dense, mode = segments[k]
-        xs = dense(min(max(ts, t0), t1))
-        y[i] = C @ xs[:n]
-        u[i] = applied(xs, mode)
-    return y, u, at_limit / horizon
+    y, u = sample_segments(segments, samples, lambda xs, mode: (C @ xs[:n], applied(xs, mode)))
+    return np.array(y), np.array(u), at_limit / horizon
 
 
 PLANT_LAG = ([2.5], [1.0, 3.5, 2.5])

@@ -1,4 +1,5 @@
-"""Shared by the Python reference checks: the pass/fail tally and its closing line."""
+"""Shared by the Python reference checks: the pass/fail tally and its closing line, and the
+sampling of a piecewise (hybrid) solve_ivp solution."""
 
 
 class Tally:
@@ -16,3 +17,19 @@ class Tally:
             self.failed += 1
         print(f"{'PASS' if ok else 'FAIL'}  {case}: {what}" + (f"  [{detail}]" if detail else ""), flush=True)
         return ok
+
+
+def sample_segments(segments, samples, observe):
+    """Reads a hybrid solution at `samples` (increasing): `segments` are (t0, t1, dense, *mode) in
+    time order, `dense` solve_ivp's dense output on [t0, t1]; `observe(x, *mode)` returns (y, u).
+    A sample on a switch takes the earlier segment (the left limit). Returns two lists."""
+    ys, us = [], []
+    k = 0
+    for ts in samples:
+        while k + 1 < len(segments) and ts > segments[k][1]:
+            k += 1
+        t0, t1, dense, *mode = segments[k]
+        y, u = observe(dense(min(max(ts, t0), t1)), *mode)
+        ys.append(y)
+        us.append(u)
+    return ys, us

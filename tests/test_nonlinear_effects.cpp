@@ -127,16 +127,22 @@ TEST_CASE("a stiff loop is integrated implicitly, and both steppers agree", "[st
   LoopOptions opt;
   opt.horizon_s = 8.0;
   opt.anti_windup = AntiWindup::back_calculation;
-  const NonlinearResult automatic = simulate_nonlinear(stiff, pi, act, opt, 1.0, 0.02);
-  REQUIRE(automatic.status == NonlinearStatus::ok);
-  CHECK(automatic.stepper == NonlinearStepper::rosenbrock4);
+  // The automatic choice and a forced dopri5 run on the same loop.
+  auto both = [&](LoopOptions o) {
+    o.stepper.reset();
+    const NonlinearResult chosen = simulate_nonlinear(stiff, pi, act, o, 1.0, 0.02);
+    o.stepper = NonlinearStepper::dopri5;
+    const NonlinearResult explicit_run = simulate_nonlinear(stiff, pi, act, o, 1.0, 0.02);
+    REQUIRE(chosen.status == NonlinearStatus::ok);
+    REQUIRE(explicit_run.status == NonlinearStatus::ok);
+    CHECK(chosen.stepper == NonlinearStepper::rosenbrock4);
+    // Both at rtol 1e-8: the outputs agree far below any metric's resolution.
+    CHECK(max_difference(chosen.output, explicit_run.output) < 1e-5);
+    return std::pair{chosen, explicit_run};
+  };
+  const auto [automatic, explicit_run] = both(opt);
   CHECK(automatic.explicit_steps_estimate > kStiffStepThreshold);
   CHECK(automatic.saturated_fraction > 0.0);
-  opt.stepper = NonlinearStepper::dopri5;
-  const NonlinearResult explicit_run = simulate_nonlinear(stiff, pi, act, opt, 1.0, 0.02);
-  REQUIRE(explicit_run.status == NonlinearStatus::ok);
-  // Both at rtol 1e-8: the outputs agree far below any metric's resolution.
-  CHECK(max_difference(automatic.output, explicit_run.output) < 1e-5);
   CHECK_THAT(automatic.metrics.overshoot_pct, WithinAbs(explicit_run.metrics.overshoot_pct, 1e-3));
   CHECK_THAT(automatic.saturated_fraction, WithinAbs(explicit_run.saturated_fraction, 1e-4));
   // The point of the choice: the explicit stepper is held to h ≲ 3.3/ρ by stability.
@@ -145,26 +151,12 @@ TEST_CASE("a stiff loop is integrated implicitly, and both steppers agree", "[st
   SECTION("with a transport delay (∂f/∂t through the delayed input)") {
     opt.delay_s = 0.05;
     opt.horizon_s = 10.0;
-    opt.stepper.reset();
-    const NonlinearResult implicit_delayed = simulate_nonlinear(stiff, pi, act, opt, 1.0, 0.02);
-    opt.stepper = NonlinearStepper::dopri5;
-    const NonlinearResult explicit_delayed = simulate_nonlinear(stiff, pi, act, opt, 1.0, 0.02);
-    REQUIRE(implicit_delayed.status == NonlinearStatus::ok);
-    REQUIRE(explicit_delayed.status == NonlinearStatus::ok);
-    CHECK(implicit_delayed.stepper == NonlinearStepper::rosenbrock4);
-    CHECK(max_difference(implicit_delayed.output, explicit_delayed.output) < 1e-5);
+    both(opt);
   }
 
   SECTION("with a sampled controller (the plant between the hold's switches)") {
     opt.sample_time_s = 0.01;
-    opt.stepper.reset();
-    const NonlinearResult implicit_sampled = simulate_nonlinear(stiff, pi, act, opt, 1.0, 0.02);
-    opt.stepper = NonlinearStepper::dopri5;
-    const NonlinearResult explicit_sampled = simulate_nonlinear(stiff, pi, act, opt, 1.0, 0.02);
-    REQUIRE(implicit_sampled.status == NonlinearStatus::ok);
-    REQUIRE(explicit_sampled.status == NonlinearStatus::ok);
-    CHECK(implicit_sampled.stepper == NonlinearStepper::rosenbrock4);
-    CHECK(max_difference(implicit_sampled.output, explicit_sampled.output) < 1e-5);
+    const auto [implicit_sampled, explicit_sampled] = both(opt);
     CHECK(implicit_sampled.steps < explicit_sampled.steps);
   }
 
