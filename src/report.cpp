@@ -605,7 +605,7 @@ struct Section {
 
 std::string paragraph_html(const std::string& text) { return "<p>" + escape_html(text) + "</p>\n"; }
 
-std::vector<Section> sections(const DesignRun& run, const ReportData& data, const ReportOutcome& outcome,
+std::vector<Section> sections(const DesignRun& run, const ReportOutcome& outcome,
                               const std::vector<std::pair<std::string, std::string>>& figures /* id → svg (may be empty) */) {
   std::vector<Section> out;
   const Spec& spec = run.problem.spec;
@@ -729,7 +729,6 @@ std::vector<Section> sections(const DesignRun& run, const ReportData& data, cons
     Section s{"safety", "Safety", paragraph_html(kSafetyCaution), std::string(kSafetyCaution) + "\n"};
     out.push_back(std::move(s));
   }
-  (void)data;
   return out;
 }
 
@@ -798,7 +797,7 @@ ReportOutcome write_design_outputs(const DesignRun& run, const fs::path& dir, co
       }
     }
 
-    const std::vector<Section> parts = sections(run, data, outcome, figures);
+    const std::vector<Section> parts = sections(run, outcome, figures);
     const Spec& spec = run.problem.spec;
     const std::string title = spec.title.empty() ? spec.name : spec.title;
     const std::string verdict = verdict_line(run);
