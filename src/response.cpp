@@ -188,6 +188,8 @@ struct SegmentSums {
 
 SegmentSums segment_sums(const double* y, int first, int last, double y_inf, double t_first, double h) {
   using Pair = double __attribute__((vector_size(16)));
+  using Bits = std::uint64_t __attribute__((vector_size(16)));
+  const Bits magnitude{~(std::uint64_t{1} << 63), ~(std::uint64_t{1} << 63)};
   const Pair inf{y_inf, y_inf}, two{2.0, 2.0};
   Pair sq[2] = {}, ab[2] = {}, idx_ab[2] = {}, idx[2] = {Pair{0.0, 1.0}, Pair{2.0, 3.0}};
   const Pair four = two + two;
@@ -197,7 +199,7 @@ SegmentSums segment_sums(const double* y, int first, int last, double y_inf, dou
       Pair yv;
       std::memcpy(&yv, y + k + 2 * p, sizeof yv);
       const Pair e = inf - yv;
-      const Pair a = e < 0.0 ? -e : e;
+      const Pair a = std::bit_cast<Pair>(std::bit_cast<Bits>(e) & magnitude);  // |e|: sign bit cleared
       sq[p] += e * e;
       ab[p] += a;
       idx_ab[p] += idx[p] * a;
