@@ -7,6 +7,8 @@
 // and integrals between samples use the cubic Hermite interpolant of those four numbers.
 #include "specloop/response.hpp"
 
+#include <boost/math/tools/toms748_solve.hpp>
+
 #include <algorithm>
 #include <bit>
 #include <cmath>
@@ -107,15 +109,23 @@ struct Hermite {
     return best;
   }
   // s in [0, 1] where the interpolant equals `level`; f0 and f1 lie on opposite sides (or on it).
+  // TOMS 748 (Alefeld, Potra & Shi; Boost) brackets the root to a few ulps in about ten
+  // evaluations, where bisection needed fifty.
   double crossing(double level) const {
-    double lo = 0.0, hi = 1.0;
-    const double g0 = f0 - level;
+    const double g0 = f0 - level, g1 = f1 - level;
     if (g0 == 0.0) return 0.0;
-    for (int i = 0; i < 50; ++i) {
-      const double mid = 0.5 * (lo + hi);
-      const double g = value(mid) - level;
-      if ((g > 0.0) == (g0 > 0.0)) lo = mid; else hi = mid;
+    if (g1 == 0.0) return 1.0;
+    if ((g0 > 0.0) == (g1 > 0.0)) {  // not bracketed (rounding at the band edge): plain bisection
+      double lo = 0.0, hi = 1.0;
+      for (int i = 0; i < 50; ++i) {
+        const double mid = 0.5 * (lo + hi);
+        if ((value(mid) - level > 0.0) == (g0 > 0.0)) lo = mid; else hi = mid;
+      }
+      return 0.5 * (lo + hi);
     }
+    std::uintmax_t iterations = 100;
+    const auto [lo, hi] = boost::math::tools::toms748_solve([&](double s) { return value(s) - level; }, 0.0, 1.0, g0, g1,
+                                                            boost::math::tools::eps_tolerance<double>(), iterations);
     return 0.5 * (lo + hi);
   }
 };
