@@ -324,31 +324,68 @@ bool with_fixed_size(int n, F&& f) {
 // works on whole rows of four chains: no shuffles, no horizontal sums, and the matrix entries
 // are read pre-broadcast from memory. The states are stored the same way, one block of N×4
 // per four samples (see StepSimulator::state_at).
+// Output coordinates for the fixed-size kernels: z = T·x with z_p = c_y·x (p the index of the
+// largest |c_y,j|) and z_j = x_j otherwise, so y = z_p + D_y·r costs no product per sample. T⁻¹
+// only rescales coordinate p and subtracts multiples of the others (|c_y,j/c_y,p| ≤ 1), so the
+// change is well conditioned. With c_y = 0 (a constant output) T = I and y is its constant.
+struct OutputCoordinates {
+  int p = 0;
+  bool active = false;
+};
+OutputCoordinates output_coordinates(const Eigen::MatrixXd& outputs) {
+  OutputCoordinates oc;
+  const auto cy = outputs.row(0);
+  for (int j = 1; j < cy.size(); ++j)
+    if (std::abs(cy(j)) > std::abs(cy(oc.p))) oc.p = j;
+  oc.active = cy.size() > 0 && cy(oc.p) != 0.0;
+  return oc;
+}
+// row ← row·T⁻¹ (a row acting on x, rewritten to act on z).
+template <class Row, class Cy>
+void to_output_coordinates(Row&& row, const Cy& cy, const OutputCoordinates& oc) {
+  if (!oc.active) return;
+  const double rp = row(oc.p) / cy(oc.p);
+  for (int j = 0; j < cy.size(); ++j)
+    if (j != oc.p) row(j) -= rp * cy(j);
+  row(oc.p) = rp;
+}
+
 template <int N>
 void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dyn,
                  const Eigen::MatrixXd& out_dyn, const Eigen::VectorXd& oc_dyn, Eigen::VectorXd& x_io,
                  int samples, double* y, double* u, double* states) {
   using Vec = Eigen::Matrix<double, N, 1>;
   using Mat = Eigen::Matrix<double, N, N>;
+  using RowVec = Eigen::Matrix<double, 1, N>;
   // Two chains side by side (GCC/Clang vector extension: one SSE2 register on x86-64, plain
   // scalar code elsewhere).
   using Pair = double __attribute__((vector_size(16)));
   constexpr int C = kChains, P = kChains / 2;
-  const Mat phi = phi_dyn;
-  const Vec gamma = gamma_dyn;
+  const OutputCoordinates oc = output_coordinates(out_dyn);
+  const int q = oc.p;
+  const RowVec c_y = out_dyn.row(0);
+  Mat t = Mat::Identity(), t_inv = Mat::Identity();
+  if (oc.active) {
+    t.row(q) = c_y;
+    t_inv.row(q) = -c_y / c_y(q);
+    t_inv(q, q) = 1.0 / c_y(q);
+  }
+  const Mat phi = t * phi_dyn * t_inv;
+  const Vec gamma = t * gamma_dyn;
   const Mat phi2 = phi * phi;
   const Mat phi4 = phi2 * phi2;
   const Vec gamma4 = phi2 * (phi * gamma + gamma) + phi * gamma + gamma;
+  RowVec c_u = out_dyn.row(2);
+  to_output_coordinates(c_u, c_y, oc);
   auto both = [](double v) { return Pair{v, v}; };
-  Pair p4[N][N], g4[N], cy[N], cu[N], z[N][P];
+  Pair p4[N][N], g4[N], cu[N], z[N][P];
   for (int i = 0; i < N; ++i) {
     for (int j = 0; j < N; ++j) p4[i][j] = both(phi4(i, j));
     g4[i] = both(gamma4(i));
-    cy[i] = both(out_dyn(0, i));
-    cu[i] = both(out_dyn(2, i));
+    cu[i] = both(c_u(i));
   }
-  const Pair oy = both(oc_dyn(0)), ou = both(oc_dyn(2));
-  Vec start = x_io;
+  const Pair oy = both(oc_dyn(0)), ou = both(oc_dyn(2)), wy = both(oc.active ? 1.0 : 0.0);
+  Vec start = t * x_io;
   for (int c = 0; c < C; ++c) {
     for (int i = 0; i < N; ++i) z[i][c / 2][c % 2] = start(i);
     start = phi * start + gamma;
@@ -360,11 +397,9 @@ void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dy
       for (int p = 0; p < P; ++p) std::memcpy(block + i * C + 2 * p, &z[i][p], sizeof(Pair));
     if (k + C > samples) break;  // the last, partial block: stored whole, outputs below
     for (int p = 0; p < P; ++p) {
-      Pair yb = oy, ub = ou;
-      for (int i = 0; i < N; ++i) {
-        yb += cy[i] * z[i][p];
-        ub += cu[i] * z[i][p];
-      }
+      const Pair yb = wy * z[q][p] + oy;
+      Pair ub = ou;
+      for (int i = 0; i < N; ++i) ub += cu[i] * z[i][p];
       std::memcpy(y + k + 2 * p, &yb, sizeof(Pair));
       std::memcpy(u + k + 2 * p, &ub, sizeof(Pair));
     }
@@ -380,12 +415,14 @@ void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dy
   }
   const int rest = samples - k;  // 0..3 samples left: they sit in chains 0 .. rest − 1
   for (int c = 0; c < rest; ++c) {
-    double yv = oy[0], uv = ou[0];
-    for (int i = 0; i < N; ++i) yv += cy[i][0] * z[i][c / 2][c % 2], uv += cu[i][0] * z[i][c / 2][c % 2];
+    double yv = wy[0] * z[q][c / 2][c % 2] + oy[0], uv = ou[0];
+    for (int i = 0; i < N; ++i) uv += cu[i][0] * z[i][c / 2][c % 2];
     y[k + c] = yv;
     u[k + c] = uv;
   }
-  for (int i = 0; i < N; ++i) x_io(i) = z[i][rest / 2][rest % 2];  // the state at sample `samples`
+  Vec last;
+  for (int i = 0; i < N; ++i) last(i) = z[i][rest / 2][rest % 2];
+  x_io = t_inv * last;  // the state at sample `samples`, back in the loop's coordinates
 }
 
 }  // namespace
@@ -569,6 +606,11 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
       recur(n, 0, fine_samples - 1);
       discretize(loop, amplitude, grid_.coarse_step_s, phi_, gamma_);
       recur(n, fine_samples - 1, grid_.coarse_intervals + 1);
+    }
+    if (n <= 8) {  // the fixed-size kernels stored z = T·x: the slope rows now act on z
+      const OutputCoordinates oc = output_coordinates(outputs_);
+      to_output_coordinates(outputs_.row(1), outputs_.row(0), oc);
+      to_output_coordinates(outputs_.row(3), outputs_.row(0), oc);
     }
   } else {
     for (int k = 0; k < grid_.samples; ++k) {
