@@ -370,8 +370,10 @@ void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dy
     t_inv.row(q) = -c_y / c_y(q);
     t_inv(q, q) = 1.0 / c_y(q);
   }
-  const Mat phi = t * phi_dyn * t_inv;
-  const Vec gamma = t * gamma_dyn;
+  const Mat phi_x = phi_dyn;  // fixed-size copies first: a product with a dynamic operand allocates
+  const Vec gamma_x = gamma_dyn;
+  const Mat phi = t * phi_x * t_inv;
+  const Vec gamma = t * gamma_x;
   const Mat phi2 = phi * phi;
   const Mat phi4 = phi2 * phi2;
   const Vec gamma4 = phi2 * (phi * gamma + gamma) + phi * gamma + gamma;
@@ -385,7 +387,8 @@ void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dy
     cu[i] = both(c_u(i));
   }
   const Pair oy = both(oc_dyn(0)), ou = both(oc_dyn(2)), wy = both(oc.active ? 1.0 : 0.0);
-  Vec start = t * x_io;
+  const Vec x_start = x_io;
+  Vec start = t * x_start;
   for (int c = 0; c < C; ++c) {
     for (int i = 0; i < N; ++i) z[i][c / 2][c % 2] = start(i);
     start = phi * start + gamma;
