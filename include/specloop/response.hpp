@@ -102,7 +102,7 @@ class StepSimulator {
   Eigen::MatrixXd augmented_, power2_, power4_, power6_, even_, odd_, numer_, denom_;
   Eigen::MatrixXd phi_, outputs_;  // Φ and [C_y; C_y·A; C_u; C_u·A]
   Eigen::VectorXd gamma_, out_const_, x_, x_next_, solve_;
-  std::vector<double> t_, y_, u_;
+  std::vector<double> y_, u_;  // sampled output and effort (times follow from grid_)
   std::vector<double> states_store_;  // x at every sample, for slopes on demand
   // One bit per sample, 64 to a word: e = y∞ − y < 0, and |y/y∞ − 1| > band.
   std::vector<std::uint64_t> below_bits_, outside_bits_;
