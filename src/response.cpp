@@ -7,9 +7,17 @@
 // and integrals between samples use the cubic Hermite interpolant of those four numbers.
 #include "specloop/response.hpp"
 
+#include <boost/math/tools/toms748_solve.hpp>
+
 #include <algorithm>
+#include <bit>
 #include <cmath>
+#include <cstring>
 #include <limits>
+#include <type_traits>
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
 
 namespace specloop {
 
@@ -101,60 +109,323 @@ struct Hermite {
     return best;
   }
   // s in [0, 1] where the interpolant equals `level`; f0 and f1 lie on opposite sides (or on it).
+  // TOMS 748 (Alefeld, Potra & Shi; Boost) brackets the root to a few ulps in about ten
+  // evaluations, where bisection needed fifty.
   double crossing(double level) const {
-    double lo = 0.0, hi = 1.0;
-    const double g0 = f0 - level;
+    const double g0 = f0 - level, g1 = f1 - level;
     if (g0 == 0.0) return 0.0;
-    for (int i = 0; i < 50; ++i) {
-      const double mid = 0.5 * (lo + hi);
-      const double g = value(mid) - level;
-      if ((g > 0.0) == (g0 > 0.0)) lo = mid; else hi = mid;
+    if (g1 == 0.0) return 1.0;
+    if ((g0 > 0.0) == (g1 > 0.0)) {  // not bracketed (rounding at the band edge): plain bisection
+      double lo = 0.0, hi = 1.0;
+      for (int i = 0; i < 50; ++i) {
+        const double mid = 0.5 * (lo + hi);
+        if ((value(mid) - level > 0.0) == (g0 > 0.0)) lo = mid; else hi = mid;
+      }
+      return 0.5 * (lo + hi);
     }
+    std::uintmax_t iterations = 100;
+    const auto [lo, hi] = boost::math::tools::toms748_solve([&](double s) { return value(s) - level; }, 0.0, 1.0, g0, g1,
+                                                            boost::math::tools::eps_tolerance<double>(), iterations);
     return 0.5 * (lo + hi);
   }
 };
 
+// One pass over the samples: the extremes of y and u, and two bit masks (64 samples a word, bit j
+// of word w is sample 64w + j): `below`, e = y∞ − y < 0 (the sign bit of e), and `outside`,
+// |y/y∞ − 1| > band. Sign changes of e and band exits are then found a word at a time.
+struct SampleExtremes {
+  double y_hi, y_lo, u_hi, u_lo;
+};
+
+SampleExtremes scan_samples(const double* y, const double* u, int count, double y_inf, double inv, double band,
+                            std::uint64_t* below, std::uint64_t* outside) {
+  double yh = y[0], yl = y[0], uh = u[0], ul = u[0];
+  int k = 0;
+#if defined(__SSE2__)
+  // Two samples a step; max/min keep the comparison order of the scalar tail (no NaN reaches
+  // here unnoticed: the caller checks the last sample, which a NaN would have spread to).
+  const __m128d v_inf = _mm_set1_pd(y_inf), v_inv = _mm_set1_pd(inv), v_one = _mm_set1_pd(1.0),
+                v_band = _mm_set1_pd(band), v_abs = _mm_castsi128_pd(_mm_set1_epi64x(0x7fffffffffffffffLL));
+  __m128d vyh = _mm_set1_pd(yh), vyl = vyh, vuh = _mm_set1_pd(uh), vul = vuh;
+  for (; k + 64 <= count; k += 64) {
+    std::uint64_t b = 0, o = 0;
+    for (int j = 0; j < 64; j += 2) {
+      const __m128d yv = _mm_loadu_pd(y + k + j), uv = _mm_loadu_pd(u + k + j);
+      b |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_sub_pd(v_inf, yv))) << j;
+      const __m128d dev = _mm_and_pd(_mm_sub_pd(_mm_mul_pd(yv, v_inv), v_one), v_abs);
+      o |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmpgt_pd(dev, v_band))) << j;
+      vyh = _mm_max_pd(yv, vyh);
+      vyl = _mm_min_pd(yv, vyl);
+      vuh = _mm_max_pd(uv, vuh);
+      vul = _mm_min_pd(uv, vul);
+    }
+    below[k / 64] = b;
+    outside[k / 64] = o;
+  }
+  double lanes[2];
+  _mm_storeu_pd(lanes, vyh);
+  yh = std::max(lanes[0], lanes[1]);
+  _mm_storeu_pd(lanes, vyl);
+  yl = std::min(lanes[0], lanes[1]);
+  _mm_storeu_pd(lanes, vuh);
+  uh = std::max(lanes[0], lanes[1]);
+  _mm_storeu_pd(lanes, vul);
+  ul = std::min(lanes[0], lanes[1]);
+#endif
+  for (; k < count; k += 64) {  // the rest (everything without SSE2)
+    std::uint64_t b = 0, o = 0;
+    for (int j = 0; j < 64 && k + j < count; ++j) {
+      const double yk = y[k + j], uk = u[k + j];
+      b |= static_cast<std::uint64_t>(std::signbit(y_inf - yk)) << j;
+      o |= static_cast<std::uint64_t>(std::abs(yk * inv - 1.0) > band) << j;
+      yh = yk > yh ? yk : yh;
+      yl = yk < yl ? yk : yl;
+      uh = uk > uh ? uk : uh;
+      ul = uk < ul ? uk : ul;
+    }
+    below[k / 64] = b;
+    outside[k / 64] = o;
+  }
+  return {yh, yl, uh, ul};
+}
+
+// Σe², Σ|e| and Σt·|e| over samples first..last of one uniform segment (t = t_first + (k − first)·h),
+// e = y∞ − y: two samples a step, two independent partial sums each (floating-point sums are
+// not reordered by the compiler on its own, so the partial sums are written out).
+struct SegmentSums {
+  double squares, absolute, time_absolute;
+};
+
+SegmentSums segment_sums(const double* y, int first, int last, double y_inf, double t_first, double h) {
+  using Pair = double __attribute__((vector_size(16)));
+  using Bits = std::uint64_t __attribute__((vector_size(16)));
+  const Bits magnitude{~(std::uint64_t{1} << 63), ~(std::uint64_t{1} << 63)};
+  const Pair inf{y_inf, y_inf}, two{2.0, 2.0};
+  Pair sq[2] = {}, ab[2] = {}, idx_ab[2] = {}, idx[2] = {Pair{0.0, 1.0}, Pair{2.0, 3.0}};
+  const Pair four = two + two;
+  int k = first;
+  for (; k + 4 <= last + 1; k += 4)
+    for (int p = 0; p < 2; ++p) {
+      Pair yv;
+      std::memcpy(&yv, y + k + 2 * p, sizeof yv);
+      const Pair e = inf - yv;
+      const Pair a = std::bit_cast<Pair>(std::bit_cast<Bits>(e) & magnitude);  // |e|: sign bit cleared
+      sq[p] += e * e;
+      ab[p] += a;
+      idx_ab[p] += idx[p] * a;
+      idx[p] += four;
+    }
+  double squares = (sq[0][0] + sq[0][1]) + (sq[1][0] + sq[1][1]);
+  double absolute = (ab[0][0] + ab[0][1]) + (ab[1][0] + ab[1][1]);
+  double weighted = (idx_ab[0][0] + idx_ab[0][1]) + (idx_ab[1][0] + idx_ab[1][1]);
+  for (; k <= last; ++k) {
+    const double e = y_inf - y[k], a = std::abs(e);
+    squares += e * e;
+    absolute += a;
+    weighted += (k - first) * a;
+  }
+  return {squares, absolute, t_first * absolute + h * weighted};
+}
+
+// Queries on the bit masks of scan_samples for `count` samples.
+class SampleBits {
+ public:
+  SampleBits(const std::uint64_t* below, const std::uint64_t* outside, int count)
+      : below_(below), outside_(outside), count_(count), words_((count + 63) / 64) {}
+
+  // Smallest k in [from, count) where e changes sign between samples k − 1 and k; count if none.
+  int next_sign_change(int from) const {
+    if (from < 1) from = 1;
+    for (int w = from / 64; w < words_; ++w) {
+      const std::uint64_t carry = w > 0 ? below_[w - 1] >> 63 : below_[0] & 1u;
+      std::uint64_t changes = (below_[w] ^ ((below_[w] << 1) | carry)) & valid(w);
+      const int lo = from - 64 * w;
+      if (lo > 0) changes &= ~std::uint64_t{0} << lo;
+      if (changes) return 64 * w + std::countr_zero(changes);
+    }
+    return count_;
+  }
+  // First sample inside the band; count if none.
+  int first_inside() const {
+    for (int w = 0; w < words_; ++w)
+      if (const std::uint64_t inside = ~outside_[w] & valid(w)) return 64 * w + std::countr_zero(inside);
+    return count_;
+  }
+  // Last sample outside the band; −1 if none.
+  int last_outside() const {
+    for (int w = words_ - 1; w >= 0; --w)
+      if (const std::uint64_t o = outside_[w] & valid(w)) return 64 * w + 63 - std::countl_zero(o);
+    return -1;
+  }
+
+ private:
+  std::uint64_t valid(int w) const {
+    const int n = count_ - 64 * w;
+    return n >= 64 ? ~std::uint64_t{0} : (std::uint64_t{1} << n) - 1;
+  }
+  const std::uint64_t *below_, *outside_;
+  int count_, words_;
+};
+
+// Interleaved recurrence chains; the stored states come in blocks of this many samples.
+constexpr int kChains = 4;
+
 // Padé(6,6) coefficients of the exponential (Moler & Van Loan, "Nineteen dubious ways...").
 constexpr double kPade[7] = {1.0, 1.0 / 2, 5.0 / 44, 1.0 / 66, 1.0 / 792, 1.0 / 15840, 1.0 / 665280};
 
-// Writes samples [0, count) of y and u, and the states themselves (column-major, N per sample,
-// for slopes computed on demand), starting from x_io, which is left at the state after the last
-// sample (ready for the next segment). Four interleaved chains (samples k, k+1, k+2, k+3 stepped
-// by Φ⁴ with Γ₄ = (Φ³ + Φ² + Φ + I)·Γ) shorten the dependency chain that bounds the loop's speed:
-// one 4×4 matrix-vector product has a latency of about 20 cycles, four in flight hide it.
+// exp(a) in place by scaling and squaring with the Padé(6,6) approximant. One body for the
+// fixed-size matrices (n ≤ 8, on the stack) and the dynamic workspace (larger loops); the
+// temporaries are the caller's, so neither allocates.
+template <class Mat, class Lu>
+void pade_exponential(Mat& a, Mat& p2, Mat& p4, Mat& p6, Mat& even, Mat& odd, Mat& numer, Mat& denom, Lu& lu) {
+  const double norm = a.cwiseAbs().rowwise().sum().maxCoeff();
+  int squarings = 0;
+  if (norm > 0.5) squarings = static_cast<int>(std::ceil(std::log2(norm / 0.5)));
+  a *= std::ldexp(1.0, -squarings);
+  p2.noalias() = a * a;
+  p4.noalias() = p2 * p2;
+  p6.noalias() = p4 * p2;
+  even = kPade[2] * p2 + kPade[4] * p4 + kPade[6] * p6;
+  even.diagonal().array() += kPade[0];
+  numer = kPade[3] * p2 + kPade[5] * p4;
+  numer.diagonal().array() += kPade[1];
+  odd.noalias() = a * numer;
+  numer = even + odd;
+  denom = even - odd;
+  lu.compute(denom);
+  a = lu.solve(numer);
+  for (int i = 0; i < squarings; ++i) {
+    p2.noalias() = a * a;
+    a = p2;
+  }
+}
+
+// Calls f(std::integral_constant<int, N>) for 1 ≤ n ≤ 8 and returns true; false otherwise.
+template <class F>
+bool with_fixed_size(int n, F&& f) {
+  switch (n) {
+    case 1: f(std::integral_constant<int, 1>{}); return true;
+    case 2: f(std::integral_constant<int, 2>{}); return true;
+    case 3: f(std::integral_constant<int, 3>{}); return true;
+    case 4: f(std::integral_constant<int, 4>{}); return true;
+    case 5: f(std::integral_constant<int, 5>{}); return true;
+    case 6: f(std::integral_constant<int, 6>{}); return true;
+    case 7: f(std::integral_constant<int, 7>{}); return true;
+    case 8: f(std::integral_constant<int, 8>{}); return true;
+    default: return false;
+  }
+}
+
+// Writes samples [0, count) of y and u, and the states themselves (for slopes computed on
+// demand), starting from x_io, which is left at the state after the last sample (ready for the
+// next segment). Four interleaved chains (samples k, k+1, k+2, k+3 stepped by Φ⁴ with
+// Γ₄ = (Φ³ + Φ² + Φ + I)·Γ) shorten the dependency chain that bounds the loop's speed. The
+// chains are held state-component-major (z[i][c]: component i of chain c), so every operation
+// works on whole rows of four chains: no shuffles, no horizontal sums, and the matrix entries
+// are read pre-broadcast from memory. The states are stored the same way, one block of N×4
+// per four samples (see StepSimulator::state_at).
+// Output coordinates for the fixed-size kernels: z = T·x with z_p = c_y·x (p the index of the
+// largest |c_y,j|) and z_j = x_j otherwise, so y = z_p + D_y·r costs no product per sample. T⁻¹
+// only rescales coordinate p and subtracts multiples of the others (|c_y,j/c_y,p| ≤ 1), so the
+// change is well conditioned. With c_y = 0 (a constant output) T = I and y is its constant.
+struct OutputCoordinates {
+  int p = 0;
+  bool active = false;
+};
+OutputCoordinates output_coordinates(const Eigen::MatrixXd& outputs) {
+  OutputCoordinates oc;
+  const auto cy = outputs.row(0);
+  for (int j = 1; j < cy.size(); ++j)
+    if (std::abs(cy(j)) > std::abs(cy(oc.p))) oc.p = j;
+  oc.active = cy.size() > 0 && cy(oc.p) != 0.0;
+  return oc;
+}
+// row ← row·T⁻¹ (a row acting on x, rewritten to act on z).
+template <class Row, class Cy>
+void to_output_coordinates(Row&& row, const Cy& cy, const OutputCoordinates& oc) {
+  if (!oc.active) return;
+  const double rp = row(oc.p) / cy(oc.p);
+  for (int j = 0; j < cy.size(); ++j)
+    if (j != oc.p) row(j) -= rp * cy(j);
+  row(oc.p) = rp;
+}
+
 template <int N>
 void recur_fixed(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dyn,
                  const Eigen::MatrixXd& out_dyn, const Eigen::VectorXd& oc_dyn, Eigen::VectorXd& x_io,
                  int samples, double* y, double* u, double* states) {
   using Vec = Eigen::Matrix<double, N, 1>;
   using Mat = Eigen::Matrix<double, N, N>;
-  constexpr int kChains = 4;
-  const Mat phi = phi_dyn;
-  const Vec gamma = gamma_dyn;
+  using RowVec = Eigen::Matrix<double, 1, N>;
+  // Two chains side by side (GCC/Clang vector extension: one SSE2 register on x86-64, plain
+  // scalar code elsewhere).
+  using Pair = double __attribute__((vector_size(16)));
+  constexpr int C = kChains, P = kChains / 2;
+  const OutputCoordinates oc = output_coordinates(out_dyn);
+  const int q = oc.p;
+  const RowVec c_y = out_dyn.row(0);
+  Mat t = Mat::Identity(), t_inv = Mat::Identity();
+  if (oc.active) {
+    t.row(q) = c_y;
+    t_inv.row(q) = -c_y / c_y(q);
+    t_inv(q, q) = 1.0 / c_y(q);
+  }
+  const Mat phi_x = phi_dyn;  // fixed-size copies first: a product with a dynamic operand allocates
+  const Vec gamma_x = gamma_dyn;
+  const Mat phi = t * phi_x * t_inv;
+  const Vec gamma = t * gamma_x;
   const Mat phi2 = phi * phi;
   const Mat phi4 = phi2 * phi2;
   const Vec gamma4 = phi2 * (phi * gamma + gamma) + phi * gamma + gamma;
-  const Eigen::Matrix<double, 1, N> cy = out_dyn.row(0), cu = out_dyn.row(2);
-  const double oy = oc_dyn(0), ou = oc_dyn(2);
-  Vec c[kChains];
-  c[0] = x_io;
-  for (int j = 1; j < kChains; ++j) c[j] = phi * c[j - 1] + gamma;
+  RowVec c_u = out_dyn.row(2);
+  to_output_coordinates(c_u, c_y, oc);
+  auto both = [](double v) { return Pair{v, v}; };
+  Pair p4[N][N], g4[N], cu[N], z[N][P];
+  for (int i = 0; i < N; ++i) {
+    for (int j = 0; j < N; ++j) p4[i][j] = both(phi4(i, j));
+    g4[i] = both(gamma4(i));
+    cu[i] = both(c_u(i));
+  }
+  const Pair oy = both(oc_dyn(0)), ou = both(oc_dyn(2)), wy = both(oc.active ? 1.0 : 0.0);
+  const Vec x_start = x_io;
+  Vec start = t * x_start;
+  for (int c = 0; c < C; ++c) {
+    for (int i = 0; i < N; ++i) z[i][c / 2][c % 2] = start(i);
+    start = phi * start + gamma;
+  }
   int k = 0;
-  for (; k + kChains <= samples; k += kChains) {
-    for (int j = 0; j < kChains; ++j) {
-      Eigen::Map<Vec>(states + (k + j) * N) = c[j];
-      y[k + j] = cy.dot(c[j]) + oy;
-      u[k + j] = cu.dot(c[j]) + ou;
+  for (;; k += C) {
+    double* block = states + static_cast<std::ptrdiff_t>(k) * N;
+    for (int i = 0; i < N; ++i)
+      for (int p = 0; p < P; ++p) std::memcpy(block + i * C + 2 * p, &z[i][p], sizeof(Pair));
+    if (k + C > samples) break;  // the last, partial block: stored whole, outputs below
+    for (int p = 0; p < P; ++p) {
+      const Pair yb = wy * z[q][p] + oy;
+      Pair ub = ou;
+      for (int i = 0; i < N; ++i) ub += cu[i] * z[i][p];
+      std::memcpy(y + k + 2 * p, &yb, sizeof(Pair));
+      std::memcpy(u + k + 2 * p, &ub, sizeof(Pair));
     }
-    for (int j = 0; j < kChains; ++j) c[j] = phi4 * c[j] + gamma4;
+    Pair next[N][P];
+    for (int i = 0; i < N; ++i)
+      for (int p = 0; p < P; ++p) {
+        Pair v = g4[i];
+        for (int j = 0; j < N; ++j) v += p4[i][j] * z[j][p];
+        next[i][p] = v;
+      }
+    for (int i = 0; i < N; ++i)
+      for (int p = 0; p < P; ++p) z[i][p] = next[i][p];
   }
-  const int rest = samples - k;  // 0..3 samples left: they sit in c[0 .. rest − 1]
-  for (int j = 0; j < rest; ++j) {
-    Eigen::Map<Vec>(states + (k + j) * N) = c[j];
-    y[k + j] = cy.dot(c[j]) + oy;
-    u[k + j] = cu.dot(c[j]) + ou;
+  const int rest = samples - k;  // 0..3 samples left: they sit in chains 0 .. rest − 1
+  for (int c = 0; c < rest; ++c) {
+    double yv = wy[0] * z[q][c / 2][c % 2] + oy[0], uv = ou[0];
+    for (int i = 0; i < N; ++i) uv += cu[i][0] * z[i][c / 2][c % 2];
+    y[k + c] = yv;
+    u[k + c] = uv;
   }
-  x_io = c[rest];  // the state at sample `samples`
+  Vec last;
+  for (int i = 0; i < N; ++i) last(i) = z[i][rest / 2][rest % 2];
+  x_io = t_inv * last;  // the state at sample `samples`, back in the loop's coordinates
 }
 
 }  // namespace
@@ -167,7 +438,7 @@ void StepSimulator::prepare(int n, int samples) {
     eigen_ = Eigen::EigenSolver<Eigen::MatrixXd>(n);
     lu_state_ = Eigen::PartialPivLU<Eigen::MatrixXd>(n);
     lu_pade_ = Eigen::PartialPivLU<Eigen::MatrixXd>(m);
-    for (Eigen::MatrixXd* mat : {&augmented_, &power2_, &power4_, &power6_, &even_, &odd_, &numer_, &denom_, &expo_})
+    for (Eigen::MatrixXd* mat : {&augmented_, &power2_, &power4_, &power6_, &even_, &odd_, &numer_, &denom_})
       mat->resize(m, m);
     phi_.resize(n, n);
     outputs_.resize(4, n);
@@ -180,41 +451,45 @@ void StepSimulator::prepare(int n, int samples) {
     states_ = n;
   }
   if (static_cast<int>(y_.size()) < samples) {
-    for (auto* v : {&t_, &y_, &u_}) v->resize(static_cast<std::size_t>(samples));
+    for (auto* v : {&y_, &u_}) v->resize(static_cast<std::size_t>(samples));
   }
-  if (states_store_.size() < static_cast<std::size_t>(samples) * static_cast<std::size_t>(n))
-    states_store_.resize(static_cast<std::size_t>(samples) * static_cast<std::size_t>(n));
+  const std::size_t words = static_cast<std::size_t>(samples + 63) / 64;
+  if (below_bits_.size() < words) {
+    below_bits_.resize(words);
+    outside_bits_.resize(words);
+  }
+  // Room for the fixed-size kernels' blocks: each segment starts on a whole block and its last,
+  // partial block is stored whole.
+  const std::size_t store = static_cast<std::size_t>(samples + 2 * kChains) * static_cast<std::size_t>(n);
+  if (states_store_.size() < store) states_store_.resize(store);
 }
 
 void StepSimulator::discretize(const StateSpace& loop, double amplitude, double h, Eigen::MatrixXd& phi,
                                Eigen::VectorXd& gamma) {
   const int n = loop.states();
   // Augmented exponential: exp([[A, B·r], [0, 0]]·h) = [[Φ, Γ·r], [0, 1]].
-  augmented_.setZero();
-  augmented_.topLeftCorner(n, n) = loop.A * h;
-  augmented_.topRightCorner(n, 1) = loop.B * (amplitude * h);
-  // Scaling and squaring with a Padé(6,6) approximant: scale so the norm is at most 1/2.
-  const double norm = augmented_.cwiseAbs().rowwise().sum().maxCoeff();
-  int squarings = 0;
-  if (norm > 0.5) squarings = static_cast<int>(std::ceil(std::log2(norm / 0.5)));
-  augmented_ *= std::ldexp(1.0, -squarings);
-  power2_.noalias() = augmented_ * augmented_;
-  power4_.noalias() = power2_ * power2_;
-  power6_.noalias() = power4_ * power2_;
-  even_ = kPade[2] * power2_ + kPade[4] * power4_ + kPade[6] * power6_;
-  even_.diagonal().array() += kPade[0];
-  numer_ = kPade[1] * Eigen::MatrixXd::Identity(n + 1, n + 1) + kPade[3] * power2_ + kPade[5] * power4_;
-  odd_.noalias() = augmented_ * numer_;
-  numer_ = even_ + odd_;
-  denom_ = even_ - odd_;
-  lu_pade_.compute(denom_);
-  expo_ = lu_pade_.solve(numer_);
-  for (int i = 0; i < squarings; ++i) {
-    power2_.noalias() = expo_ * expo_;
-    expo_.swap(power2_);
+  const bool fixed = with_fixed_size(n, [&](auto size) {
+    constexpr int N = decltype(size)::value, M = N + 1;
+    using Mat = Eigen::Matrix<double, M, M>;
+    Mat a = Mat::Zero(), p2, p4, p6, even, odd, numer, denom;
+    Eigen::PartialPivLU<Mat> lu;
+    a.template topLeftCorner<N, N>() = loop.A * h;
+    a.template topRightCorner<N, 1>() = loop.B * (amplitude * h);
+    pade_exponential(a, p2, p4, p6, even, odd, numer, denom, lu);
+    phi = a.template topLeftCorner<N, N>();
+    gamma = a.template topRightCorner<N, 1>();
+  });
+  if (!fixed) {
+    augmented_.setZero();
+    augmented_.topLeftCorner(n, n) = loop.A * h;
+    augmented_.topRightCorner(n, 1) = loop.B * (amplitude * h);
+    pade_exponential(augmented_, power2_, power4_, power6_, even_, odd_, numer_, denom_, lu_pade_);
+    phi = augmented_.topLeftCorner(n, n);
+    gamma = augmented_.topRightCorner(n, 1);
   }
-  phi = expo_.topLeftCorner(n, n);
-  gamma = expo_.topRightCorner(n, 1);
+}
+
+void StepSimulator::output_rows(const StateSpace& loop, double amplitude) {
   // Outputs and their slopes: y = C_y x + D_y r, y' = C_y A x + C_y B r (likewise u).
   outputs_.row(0) = loop.C.row(0);
   outputs_.row(1).noalias() = loop.C.row(0) * loop.A;
@@ -229,7 +504,9 @@ void StepSimulator::discretize(const StateSpace& loop, double amplitude, double 
 void StepSimulator::recur(int n, int first, int count) {
   double* y = y_.data() + first;
   double* u = u_.data() + first;
-  double* states = states_store_.data() + static_cast<std::size_t>(first) * static_cast<std::size_t>(n);
+  // Fixed-size kernels store blocks of kChains samples, each segment from a whole block on.
+  const int base = n <= 8 && first > 0 ? (first + kChains - 1) / kChains * kChains : first;
+  double* states = states_store_.data() + static_cast<std::size_t>(base) * static_cast<std::size_t>(n);
   switch (n) {
     case 1: return recur_fixed<1>(phi_, gamma_, outputs_, out_const_, x_, count, y, u, states);
     case 2: return recur_fixed<2>(phi_, gamma_, outputs_, out_const_, x_, count, y, u, states);
@@ -259,9 +536,24 @@ bool StepSimulator::eigenvalues(const Eigen::MatrixXd& a) {
 }
 
 double StepSimulator::slope(int row, int k) const {
-  if (states_ == 0) return 0.0;
-  const Eigen::Map<const Eigen::VectorXd> x(states_store_.data() + static_cast<std::size_t>(k) * static_cast<std::size_t>(states_), states_);
-  return outputs_.row(row).dot(x) + out_const_(row);
+  const int n = states_;
+  if (n == 0) return 0.0;
+  const double* x = states_store_.data();
+  std::ptrdiff_t stride = 1;
+  if (n <= 8) {  // blocks of kChains samples, component-major, per segment (see recur)
+    int local = k, base = 0;
+    if (grid_.coarse_intervals > 0 && k >= grid_.fine_intervals) {
+      local = k - grid_.fine_intervals;
+      base = (grid_.fine_intervals + kChains - 1) / kChains * kChains;
+    }
+    x += static_cast<std::ptrdiff_t>(base + local / kChains * kChains) * n + local % kChains;
+    stride = kChains;
+  } else {
+    x += static_cast<std::ptrdiff_t>(k) * n;
+  }
+  double v = out_const_(row);
+  for (int i = 0; i < n; ++i) v += outputs_(row, i) * x[i * stride];
+  return v;
 }
 
 StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, double band_fraction,
@@ -281,9 +573,17 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   // Final value: y∞ = r·(D_y − C_y A⁻¹ B).
   double dc = loop.D(0);
   if (n > 0) {
-    lu_state_.compute(loop.A);
-    solve_ = lu_state_.solve(loop.B);
-    dc -= loop.C.row(0).dot(solve_);
+    const bool fixed = with_fixed_size(n, [&](auto size) {
+      constexpr int N = decltype(size)::value;
+      const Eigen::PartialPivLU<Eigen::Matrix<double, N, N>> lu(loop.A);
+      const Eigen::Matrix<double, N, 1> solved = lu.solve(loop.B);
+      dc -= loop.C.row(0).dot(solved);
+    });
+    if (!fixed) {
+      lu_state_.compute(loop.A);
+      solve_ = lu_state_.solve(loop.B);
+      dc -= loop.C.row(0).dot(solve_);
+    }
   }
   const double y_inf = amplitude * dc;
   if (!std::isfinite(y_inf)) return StepStatus::numerical_failure;
@@ -297,11 +597,10 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   prepare(n, grid_.samples);
   const int K = grid_.samples;
   const int fine_samples = grid_.fine_intervals + 1;
-  for (int k = 0; k < fine_samples; ++k) t_[k] = k * grid_.step_s;
-  for (int k = fine_samples; k < K; ++k) t_[k] = t_[fine_samples - 1] + (k - fine_samples + 1) * grid_.coarse_step_s;
   if (n > 0) {
     // The fine segment writes samples 0 .. T₁ − h₁ and leaves x_ at T₁; the coarse segment
     // writes T₁ .. T with the coarse step. Without a coarse segment the fine one runs to T.
+    output_rows(loop, amplitude);
     discretize(loop, amplitude, grid_.step_s, phi_, gamma_);
     x_.setZero();
     if (grid_.coarse_intervals == 0) {
@@ -311,43 +610,33 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
       discretize(loop, amplitude, grid_.coarse_step_s, phi_, gamma_);
       recur(n, fine_samples - 1, grid_.coarse_intervals + 1);
     }
+    if (n <= 8) {  // the fixed-size kernels stored z = T·x: the slope rows now act on z
+      const OutputCoordinates oc = output_coordinates(outputs_);
+      to_output_coordinates(outputs_.row(1), outputs_.row(0), oc);
+      to_output_coordinates(outputs_.row(3), outputs_.row(0), oc);
+    }
   } else {
     for (int k = 0; k < grid_.samples; ++k) {
       y_[k] = loop.D(0) * amplitude;
       u_[k] = loop.D(1) * amplitude;
     }
   }
-  const double* t = t_.data();
+  // Sample times: k·h₁ on the fine segment, T₁ + (k − F)·h₂ after it (F = fine intervals).
+  const int last_fine = grid_.coarse_intervals > 0 ? grid_.fine_intervals : K - 1;
+  const double t_switch = last_fine * grid_.step_s;
+  auto t = [&](int k) { return k <= last_fine ? k * grid_.step_s : t_switch + (k - last_fine) * grid_.coarse_step_s; };
   const double* y = y_.data();
   const double* u = u_.data();
   if (!std::isfinite(y[K - 1]) || !std::isfinite(u[K - 1])) return StepStatus::numerical_failure;
   auto dy = [&](int k) { return slope(1, k); };  // exact y'(t_k)
   auto du = [&](int k) { return slope(3, k); };  // exact u'(t_k)
 
-  // Extremes first as plain reductions (they vectorize), then their indices.
   const double inv = 1.0 / y_inf;
-  // Four independent accumulators each, so the loop is not one long chain of dependent
-  // comparisons (floating-point reductions are not reordered by the compiler on its own).
-  double yh[4], yl[4], uh[4], ul[4];
-  for (int j = 0; j < 4; ++j) yh[j] = yl[j] = y[0], uh[j] = ul[j] = u[0];
-  int k4 = 0;
-  for (; k4 + 4 <= K; k4 += 4)
-    for (int j = 0; j < 4; ++j) {
-      yh[j] = y[k4 + j] > yh[j] ? y[k4 + j] : yh[j];
-      yl[j] = y[k4 + j] < yl[j] ? y[k4 + j] : yl[j];
-      uh[j] = u[k4 + j] > uh[j] ? u[k4 + j] : uh[j];
-      ul[j] = u[k4 + j] < ul[j] ? u[k4 + j] : ul[j];
-    }
-  for (; k4 < K; ++k4) {
-    yh[0] = y[k4] > yh[0] ? y[k4] : yh[0];
-    yl[0] = y[k4] < yl[0] ? y[k4] : yl[0];
-    uh[0] = u[k4] > uh[0] ? u[k4] : uh[0];
-    ul[0] = u[k4] < ul[0] ? u[k4] : ul[0];
-  }
-  const double y_hi = std::max({yh[0], yh[1], yh[2], yh[3]}), y_lo = std::min({yl[0], yl[1], yl[2], yl[3]});
-  const double u_hi = std::max({uh[0], uh[1], uh[2], uh[3]}), u_lo = std::min({ul[0], ul[1], ul[2], ul[3]});
+  const auto [y_hi, y_lo, u_hi, u_lo] =
+      scan_samples(y, u, K, y_inf, inv, band_fraction, below_bits_.data(), outside_bits_.data());
   if (!std::isfinite(y_hi) || !std::isfinite(y_lo) || !std::isfinite(u_hi) || !std::isfinite(u_lo))
     return StepStatus::numerical_failure;
+  const SampleBits bits(below_bits_.data(), outside_bits_.data(), K);
   auto first_equal = [&](const double* f, double v) {
     int k = 0;
     while (f[k] != v) ++k;
@@ -357,21 +646,18 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   const int k_max = first_equal(y, y_inf > 0.0 ? y_hi : y_lo);
   const int k_min = first_equal(y, y_inf > 0.0 ? y_lo : y_hi);
   const int k_effort = first_equal(u, std::abs(u_hi) >= std::abs(u_lo) ? u_hi : u_lo);
-  // Thresholds from the front, the last band exit from the back: each scan stops early.
-  int k10 = -1, k90 = -1, k_entry = -1, k_outside = -1;
+  // Thresholds from the front (each scan stops early), band entry and exit from the bit masks.
+  int k10 = -1, k90 = -1;
   for (int k = 0; k < K; ++k)
     if (y[k] * inv >= 0.1) { k10 = k; break; }
   for (int k = std::max(k10, 0); k10 >= 0 && k < K; ++k)
     if (y[k] * inv >= 0.9) { k90 = k; break; }
   // First entry into the band: the first sample inside it, or the first interval that jumps
-  // across it (a fast rise can pass from below the band to above it between two samples).
-  for (int k = 0; k < K; ++k) {
-    const double yn = y[k] * inv;
-    if (std::abs(yn - 1.0) <= band_fraction) { k_entry = k; break; }
-    if (k > 0 && (yn - 1.0) * (y[k - 1] * inv - 1.0) < 0.0) { k_entry = k; break; }
-  }
-  for (int k = K - 1; k >= 0; --k)
-    if (std::abs(y[k] * inv - 1.0) > band_fraction) { k_outside = k; break; }
+  // across it (a fast rise can pass from below the band to above it between two samples: e
+  // changes sign there).
+  int k_entry = std::min(bits.first_inside(), bits.next_sign_change(1));
+  if (k_entry >= K) k_entry = -1;
+  const int k_outside = bits.last_outside();
 
   // Integrals of e = y∞ − y, per uniform segment: the trapezoid rule with the Hermite end
   // correction h²/12·(f'(a) − f'(b)) (exact for cubics). The corrections of neighbouring
@@ -384,45 +670,26 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     const double c = h * h / 12.0;
     auto e = [&](int k) { return y_inf - y[k]; };
     auto de = [&](int k) { return -dy(k); };
-    double e2[4] = {0, 0, 0, 0}, ab[4] = {0, 0, 0, 0}, tab[4] = {0, 0, 0, 0};  // independent partial sums
-    int i = first;
-    for (; i + 4 <= last + 1; i += 4)
-      for (int j = 0; j < 4; ++j) {
-        const double ei = y_inf - y[i + j];
-        e2[j] += ei * ei;
-        ab[j] += std::abs(ei);
-        tab[j] += t[i + j] * std::abs(ei);
-      }
-    for (; i <= last; ++i) {
-      const double ei = y_inf - y[i];
-      e2[0] += ei * ei;
-      ab[0] += std::abs(ei);
-      tab[0] += t[i] * std::abs(ei);
-    }
-    const double sum_e2 = (e2[0] + e2[1]) + (e2[2] + e2[3]);
-    const double sum_abs = (ab[0] + ab[1]) + (ab[2] + ab[3]);
-    const double sum_tabs = (tab[0] + tab[1]) + (tab[2] + tab[3]);
+    const auto [sum_e2, sum_abs, sum_tabs] = segment_sums(y, first, last, y_inf, t(first), h);
     auto ends = [&](double f_first, double f_last) { return 0.5 * (f_first + f_last); };
     const double e_a = e(first), e_b = e(last);
     ise += h * (sum_e2 - ends(e_a * e_a, e_b * e_b)) + c * (2.0 * e_a * de(first) - 2.0 * e_b * de(last));
     iae += h * (sum_abs - ends(std::abs(e_a), std::abs(e_b)));
-    itae += h * (sum_tabs - ends(t[first] * std::abs(e_a), t[last] * std::abs(e_b)));
+    itae += h * (sum_tabs - ends(t(first) * std::abs(e_a), t(last) * std::abs(e_b)));
     auto close_run = [&](int a, int b) {  // samples a..b share the sign of e(a)
       if (b <= a) return;
       const double sgn = e(a) >= 0.0 ? 1.0 : -1.0;
       iae += sgn * c * (de(a) - de(b));
-      itae += sgn * c * ((e(a) + t[a] * de(a)) - (e(b) + t[b] * de(b)));
+      itae += sgn * c * ((e(a) + t(a) * de(a)) - (e(b) + t(b) * de(b)));
     };
     int run = first;
-    bool positive = e_a >= 0.0;
-    for (int k = first; k < last; ++k) {
-      if ((y_inf - y[k + 1] >= 0.0) == positive) continue;
-      positive = !positive;
+    for (int k1 = bits.next_sign_change(first + 1); k1 <= last; k1 = bits.next_sign_change(k1 + 1)) {
+      const int k = k1 - 1;  // e changes sign in (t_k, t_k+1)
       const double e0 = e(k), e1 = e(k + 1), split = e0 / (e0 - e1);
       // Replace this interval's trapezoid by the two triangles either side of the zero.
       iae += 0.5 * h * (std::abs(e0) * split + std::abs(e1) * (1.0 - split) - (std::abs(e0) + std::abs(e1)));
-      itae += 0.5 * h * (t[k] * std::abs(e0) * split + t[k + 1] * std::abs(e1) * (1.0 - split) -
-                         (t[k] * std::abs(e0) + t[k + 1] * std::abs(e1)));
+      itae += 0.5 * h * (t(k) * std::abs(e0) * split + t(k + 1) * std::abs(e1) * (1.0 - split) -
+                         (t(k) * std::abs(e0) + t(k + 1) * std::abs(e1)));
       close_run(run, k);
       run = k + 1;
     }
@@ -435,15 +702,15 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   m.ise = ise;
   m.itae = itae;
 
-  auto interval_y = [&](int k) { return Hermite{y[k], y[k + 1], dy(k), dy(k + 1), t[k + 1] - t[k]}; };
-  auto interval_u = [&](int k) { return Hermite{u[k], u[k + 1], du(k), du(k + 1), t[k + 1] - t[k]}; };
+  auto interval_y = [&](int k) { return Hermite{y[k], y[k + 1], dy(k), dy(k + 1), t(k + 1) - t(k)}; };
+  auto interval_u = [&](int k) { return Hermite{u[k], u[k + 1], du(k), du(k + 1), t(k + 1) - t(k)}; };
   // Refined extremum around sample k (intervals k−1..k and k..k+1). Returns {value, time}.
   auto refine_extremum = [&](const double* f, auto interval, int k, double sign) {
-    std::pair<double, double> best{f[k], t[k]};
+    std::pair<double, double> best{f[k], t(k)};
     for (int j : {k - 1, k}) {
       if (j < 0 || j + 1 >= K) continue;
       const auto [v, s] = interval(j).extremum(sign);
-      if (sign * v > sign * best.first) best = {v, t[j] + s * (t[j + 1] - t[j])};
+      if (sign * v > sign * best.first) best = {v, t(j) + s * (t(j + 1) - t(j))};
     }
     return best;
   };
@@ -467,7 +734,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     // First sample at/above the level is k_after; the crossing is in (k_after − 1, k_after).
     if (k_after <= 0) return 0.0;
     const double s = interval_y(k_after - 1).crossing(level_n * y_inf);
-    return t[k_after - 1] + s * (t[k_after] - t[k_after - 1]);
+    return t(k_after - 1) + s * (t(k_after) - t(k_after - 1));
   };
   if (k10 >= 0 && k90 >= 0) m.rise_time_s = crossing_time(k90, 0.9) - crossing_time(k10, 0.1);
   if (k_entry == 0) {
@@ -475,7 +742,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   } else if (k_entry > 0) {
     const double side = (y[k_entry - 1] * inv > 1.0) ? 1.0 : -1.0;
     const double s = interval_y(k_entry - 1).crossing((1.0 + side * band_fraction) * y_inf);
-    m.band_entry_time_s = t[k_entry - 1] + s * (t[k_entry] - t[k_entry - 1]);
+    m.band_entry_time_s = t(k_entry - 1) + s * (t(k_entry) - t(k_entry - 1));
   }
 
   if (k_outside < 0) {
@@ -483,7 +750,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   } else if (k_outside + 1 < K) {
     const double side = (y[k_outside] * inv > 1.0) ? 1.0 : -1.0;
     const double s = interval_y(k_outside).crossing((1.0 + side * band_fraction) * y_inf);
-    m.settling_time_s = t[k_outside] + s * (t[k_outside + 1] - t[k_outside]);
+    m.settling_time_s = t(k_outside) + s * (t(k_outside + 1) - t(k_outside));
   }
 
   if (!std::isfinite(m.overshoot_pct) || !std::isfinite(m.effort_peak) || !std::isfinite(m.itae))
@@ -492,7 +759,8 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   if (trace) {
     trace->output.assign(y, y + K);
     trace->effort.assign(u, u + K);
-    trace->time_s.assign(t, t + K);
+    trace->time_s.resize(static_cast<std::size_t>(K));
+    for (int k = 0; k < K; ++k) trace->time_s[static_cast<std::size_t>(k)] = t(k);
   }
   return StepStatus::ok;
 }

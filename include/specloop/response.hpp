@@ -3,6 +3,7 @@
 #pragma once
 
 #include <Eigen/Dense>
+#include <cstdint>
 #include <optional>
 #include <string_view>
 #include <vector>
@@ -82,6 +83,8 @@ class StepSimulator {
  private:
   void prepare(int states, int samples);
   void discretize(const StateSpace& loop, double amplitude, double step, Eigen::MatrixXd& phi, Eigen::VectorXd& gamma);
+  // Fills outputs_ and out_const_: the rows giving y, y', u, u' from the state.
+  void output_rows(const StateSpace& loop, double amplitude);
   void recur(int states, int first, int count);
   // Fills poles_ with the eigenvalues of a; false when the solver fails.
   bool eigenvalues(const Eigen::MatrixXd& a);
@@ -96,11 +99,13 @@ class StepSimulator {
   Eigen::EigenSolver<Eigen::MatrixXd> eigen_;
   Eigen::PartialPivLU<Eigen::MatrixXd> lu_state_;
   Eigen::PartialPivLU<Eigen::MatrixXd> lu_pade_;
-  Eigen::MatrixXd augmented_, power2_, power4_, power6_, even_, odd_, numer_, denom_, expo_;
+  Eigen::MatrixXd augmented_, power2_, power4_, power6_, even_, odd_, numer_, denom_;
   Eigen::MatrixXd phi_, outputs_;  // Φ and [C_y; C_y·A; C_u; C_u·A]
   Eigen::VectorXd gamma_, out_const_, x_, x_next_, solve_;
-  std::vector<double> t_, y_, u_;
+  std::vector<double> y_, u_;  // sampled output and effort (times follow from grid_)
   std::vector<double> states_store_;  // x at every sample, for slopes on demand
+  // One bit per sample, 64 to a word: e = y∞ − y < 0, and |y/y∞ − 1| > band.
+  std::vector<std::uint64_t> below_bits_, outside_bits_;
 };
 
 }  // namespace specloop
