@@ -49,6 +49,18 @@ def rows(store):
         return db.execute(f"SELECT {COMPARED} FROM sweep_results ORDER BY idx").fetchall()
 
 
+def stored(store):
+    """Finished points in a store that a sweep may be writing (0 before it exists)."""
+    for _ in range(50):
+        if not store.exists():
+            return 0
+        try:
+            return len(rows(store))
+        except sqlite3.OperationalError:  # busy for a moment: try again
+            time.sleep(0.02)
+    raise RuntimeError(f"{store}: could not be read for a second")
+
+
 def main() -> int:
     ap = argparse.ArgumentParser()
     ap.add_argument("--specloop", required=True)
@@ -122,24 +134,18 @@ def main() -> int:
         killed = work / "killed.sqlite"
         kills, counts = 0, []
 
-        def stored():
-            try:
-                return len(rows(killed)) if killed.exists() else 0
-            except sqlite3.Error:
-                return 0
-
         for _ in range(20):
-            target = stored() + rng.randint(1, 3)
+            target = stored(killed) + rng.randint(1, 2)
             proc = subprocess.Popen([exe, "sweep", str(spec), *VARY, "--jobs", "2", "--store", str(killed)],
                                     cwd=work, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-            while proc.poll() is None and stored() < target:
+            while proc.poll() is None and stored(killed) < target:
                 time.sleep(0.01)
             time.sleep(rng.uniform(0.0, 1.5) * per_point)
             if proc.poll() is None:
                 proc.send_signal(signal.SIGKILL)
                 proc.wait()
                 kills += 1
-                counts.append(stored())
+                counts.append(stored(killed))
                 if kills >= 4:
                     break
             else:
@@ -158,7 +164,9 @@ def main() -> int:
         stopped = work / "stopped.sqlite"
         proc = subprocess.Popen([exe, "sweep", str(spec), *VARY, "--jobs", "1", "--store", str(stopped)],
                                 cwd=work, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-        time.sleep(startup + rng.uniform(2.0, 6.0) * per_point)
+        while proc.poll() is None and stored(stopped) < 2:  # the handler is installed by then
+            time.sleep(0.01)
+        time.sleep(rng.uniform(0.0, 1.5) * per_point)
         proc.send_signal(signal.SIGINT)
         out, err = proc.communicate(timeout=60)
         if proc.returncode == 130:
