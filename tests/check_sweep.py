@@ -126,6 +126,20 @@ def main() -> int:
                 r.returncode == 0 and f"{POINTS} already in" in r.stdout and rows(two) == reference,
                 r.stdout.strip()[-200:])
 
+        # An expression plant (muparser) varied in one of its parameters: each worker parses its
+        # own spec, so no parser is shared; the rows must not depend on --jobs either.
+        grey = pathlib.Path(args.source_dir, "specs", "greywater_buffer.toml")
+        grey_vary = ["--vary", "plant.nonlinear.parameters.orifice=0.005:0.007:3",
+                     "--vary", "requirements.overshoot_max_pct=5,15"]
+        for jobs in ("1", "2"):
+            r = subprocess.run([exe, "sweep", str(grey), *grey_vary, "--jobs", jobs, "--store",
+                                str(work / f"grey{jobs}.sqlite")], capture_output=True, text=True, timeout=120)
+            t.check("jobs", f"expression plant, --jobs {jobs}: exit 0, 6 points without error",
+                    r.returncode == 0 and [row[1] for row in rows(work / f"grey{jobs}.sqlite")] == ["ok"] * 6,
+                    r.stderr.strip())
+        t.check("jobs", "expression plant: --jobs 2 gives the same rows as --jobs 1",
+                rows(work / "grey1.sqlite") == rows(work / "grey2.sqlite"))
+
         # --- (a) SIGKILL at random moments, resume -------------------------------------------
         # Each run is killed at a random moment after a random number (1–3) of further points
         # were stored: during a design, a commit, or between them (the store is polled through a
