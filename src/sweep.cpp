@@ -2,7 +2,12 @@
 // single writer), worker threads, shards' merge. The store's layout is documented in README.md.
 #include <fmt/format.h>
 #include <sqlite3.h>
+#include <fcntl.h>
+#include <sys/file.h>
 #include <unistd.h>
+
+#include <cerrno>
+#include <cstring>
 
 #include <chrono>
 #include <condition_variable>
@@ -341,6 +346,31 @@ void write_schema(const Db& db, const Header& h, const SweepGrid& grid) {
   db.exec("COMMIT");
 }
 
+/// An exclusive advisory lock (flock) on the store file for the whole run, so that a second sweep
+/// on the same store is refused instead of designing the same points. flock locks are separate from
+/// the POSIX record locks SQLite takes, so the two do not interfere.
+class StoreLock {
+ public:
+  explicit StoreLock(const std::string& path) {
+    fd_ = ::open(path.c_str(), O_RDONLY | O_CLOEXEC);
+    if (fd_ < 0) throw SweepError(fmt::format("{}: cannot open the store: {}", path, std::strerror(errno)));
+    if (::flock(fd_, LOCK_EX | LOCK_NB) != 0) {
+      const int reason = errno;
+      ::close(fd_);
+      if (reason == EWOULDBLOCK)
+        throw SweepError(fmt::format("{}: the store is in use by another sweep; wait for it to end (or stop it) "
+                                     "and run the command again", path));
+      throw SweepError(fmt::format("{}: cannot lock the store: {}", path, std::strerror(reason)));
+    }
+  }
+  ~StoreLock() { ::close(fd_); }
+  StoreLock(const StoreLock&) = delete;
+  StoreLock& operator=(const StoreLock&) = delete;
+
+ private:
+  int fd_ = -1;
+};
+
 /// A temporary path beside `path`, unique to this process.
 std::string temp_beside(const std::string& path) {
   return fmt::format("{}.tmp-{}", path, static_cast<long>(getpid()));
@@ -499,6 +529,7 @@ SweepOutcome run_sweep(const SweepSpec& spec, const SweepGrid& grid, const Sweep
     fs::rename(tmp, path, ec);
     if (ec) throw SweepError(fmt::format("{}: cannot create the store: {}", path, ec.message()));
   }
+  const StoreLock store_lock(path);
   auto db = open_store(path, true);
   const Header have = read_header(*db);
   if (have.spec_hash != want.spec_hash || have.spec_text != want.spec_text)

@@ -190,6 +190,19 @@ def main() -> int:
                     or n == POINTS, f"{n} rows")
         else:
             t.check("sigint", "Ctrl-C arrived after the end: exit 0", proc.returncode == 0, err.strip())
+        # A second sweep on a store in use is refused, and the first is not disturbed.
+        busy = work / "busy.sqlite"
+        proc = subprocess.Popen([exe, "sweep", str(spec), *VARY, "--jobs", "1", "--store", str(busy)],
+                                cwd=work, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+        while proc.poll() is None and stored(busy) < 1:
+            time.sleep(0.01)
+        r = sweep("--jobs", "1", store=busy)
+        finished_first = proc.poll() is not None
+        proc.wait(timeout=120)
+        t.check("busy", "a second sweep on a store in use: exit 2, 'in use by another sweep'",
+                finished_first or (r.returncode == 2 and "in use by another sweep" in r.stderr), r.stderr.strip())
+        t.check("busy", "the first sweep completes undisturbed", proc.returncode == 0 and rows(busy) == reference)
+
         r = sweep("--jobs", "1", store=stopped)
         t.check("sigint", "resumed after Ctrl-C, the store equals the uninterrupted run's",
                 r.returncode == 0 and rows(stopped) == reference, r.stderr.strip())
