@@ -5,6 +5,8 @@
 #include <complex>
 #include <filesystem>
 #include <fstream>
+#include <random>
+#include <cmath>
 #include <set>
 #include <string>
 #include <vector>
@@ -186,4 +188,51 @@ TEST_CASE("[sweep] vary in a spec is read and its syntax checked with the line",
                     Catch::Contains("sweep.vary: expected a non-empty array of strings"));
   CHECK_THROWS_WITH(parse_spec(std::string(kSpec) + "[sweep]\nvary = [\"x=1\"]\nstore = \"a\"\n", "s.toml"),
                     Catch::Contains("unknown key"));
+}
+
+namespace {
+
+/// The definition, applied to every pair: p is kept unless some q is ≤ everywhere and < somewhere.
+std::vector<std::size_t> brute_force_front(const std::vector<std::vector<double>>& pts) {
+  std::vector<std::size_t> out;
+  for (std::size_t i = 0; i < pts.size(); ++i) {
+    bool dominated = false;
+    for (std::size_t j = 0; j < pts.size() && !dominated; ++j) {
+      bool all_le = true, some_lt = false;
+      for (std::size_t d = 0; d < pts[i].size(); ++d) {
+        all_le = all_le && pts[j][d] <= pts[i][d];
+        some_lt = some_lt || pts[j][d] < pts[i][d];
+      }
+      dominated = all_le && some_lt;
+    }
+    if (!dominated) out.push_back(i);
+  }
+  return out;
+}
+
+}  // namespace
+
+TEST_CASE("non-dominated points: a hand example", "[sweep][pareto]") {
+  // (peak time, effort): (1, 5) (2, 3) (3, 4) (4, 1) (2, 3) (5, 5); (3, 4) is beaten by (2, 3),
+  // (5, 5) by all; the duplicate (2, 3) stays twice.
+  const std::vector<std::vector<double>> p{{1, 5}, {2, 3}, {3, 4}, {4, 1}, {2, 3}, {5, 5}};
+  CHECK(non_dominated(p) == std::vector<std::size_t>{0, 1, 3, 4});
+  CHECK(non_dominated({}).empty());
+  CHECK_THROWS_AS(non_dominated({{1, 2}, {1}}), std::invalid_argument);
+  CHECK_THROWS_AS(non_dominated({{1, std::nan("")}}), std::invalid_argument);
+}
+
+TEST_CASE("non-dominated points agree with a brute-force check on random points", "[sweep][pareto]") {
+  std::mt19937_64 rng(12345);
+  for (int trial = 0; trial < 200; ++trial) {
+    const std::size_t k = 2 + static_cast<std::size_t>(trial % 3);       // 2, 3, 4 objectives
+    const std::size_t n = 1 + static_cast<std::size_t>(rng() % 120);
+    const bool coarse = trial % 2 == 0;  // small integers: many ties and duplicates
+    std::vector<std::vector<double>> pts(n, std::vector<double>(k));
+    for (auto& p : pts)
+      for (auto& v : p)
+        v = coarse ? static_cast<double>(rng() % 6) : std::uniform_real_distribution<double>(-1.0, 1.0)(rng);
+    INFO("trial " << trial << ", " << n << " points, " << k << " objectives");
+    REQUIRE(non_dominated(pts) == brute_force_front(pts));
+  }
 }
