@@ -107,13 +107,13 @@ toml::node* find_node(toml::table& root, const std::string& key, const std::stri
 
 /// Replaces a numeric node's value, keeping an integer an integer when the value is integral.
 void set_number(toml::table& root, const std::string& key, double value, const std::string& spec_path) {
+  const toml::node* old = find_node(root, key, spec_path);  // throws unless every step exists
   const auto steps = split_key(key);
   toml::node* parent = &root;
   for (std::size_t s = 0; s + 1 < steps.size(); ++s) {
     if (!steps[s].index) parent = parent->as_table()->get(steps[s].key);
     else parent = parent->as_array()->get(*steps[s].index);
   }
-  const toml::node* old = find_node(root, key, spec_path);
   const bool keep_integer = old->is_integer() && std::floor(value) == value && std::abs(value) < 9.0e15;
   const auto& last = steps.back();
   if (!last.index) {
