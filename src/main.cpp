@@ -2,7 +2,12 @@
 // and the terminal tables.
 #include <CLI/CLI.hpp>
 #include <fmt/format.h>
+#include <unistd.h>
+
+#include <atomic>
+#include <csignal>
 #include <filesystem>
+#include <thread>
 #include <fstream>
 #include <iostream>
 
@@ -10,6 +15,7 @@
 #include "specloop/json_io.hpp"
 #include "specloop/report.hpp"
 #include "specloop/spec.hpp"
+#include "specloop/sweep.hpp"
 
 namespace {
 
@@ -166,6 +172,69 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   fmt::print("Caution: {}\n", kSafetyCaution);
 }
 
+std::atomic<bool> g_stop{false};
+
+extern "C" void on_interrupt(int) {
+  g_stop.store(true);
+  std::signal(SIGINT, SIG_DFL);  // a second Ctrl-C ends the process at once
+}
+
+std::string duration_text(double s) {
+  if (!std::isfinite(s) || s < 0.0) return "—";
+  const long t = std::lround(s);
+  if (t >= 3600) return fmt::format("{}h{:02}m", t / 3600, (t % 3600) / 60);
+  if (t >= 60) return fmt::format("{}m{:02}s", t / 60, t % 60);
+  return fmt::format("{}s", t);
+}
+
+int run_sweep_command(const std::string& spec_path, const std::vector<std::string>& vary, const std::string& store,
+                      unsigned jobs, const std::string& shard_text) {
+  const SweepSpec spec(spec_path);
+  SweepGrid grid;
+  for (const auto& v : vary.empty() ? spec.vary_in_file() : vary) grid.axes.push_back(parse_sweep_axis(v));
+  SweepOptions options;
+  if (!shard_text.empty()) options.shard = parse_shard(shard_text);
+  options.store_path = store.empty() ? default_store_path(spec.name(), options.shard) : store;
+  options.jobs = jobs;
+  options.stop = &g_stop;
+  const bool terminal = isatty(STDOUT_FILENO) != 0;
+  double last_line = -1.0;
+  options.progress = [&](std::size_t done, std::size_t total, std::size_t met, double elapsed, std::size_t now) {
+    const double rate = elapsed > 0.0 ? static_cast<double>(now) / elapsed : 0.0;
+    const double eta = rate > 0.0 ? static_cast<double>(total - done) / rate : -1.0;
+    const std::string line = fmt::format("{}/{} points, {} met, {:.2f} points/s, ETA {}", done, total, met, rate,
+                                         duration_text(eta));
+    if (terminal) {
+      const int width = 24;
+      const int filled = total ? static_cast<int>(width * done / total) : width;
+      fmt::print("\r[{}{}] {}\x1b[K", std::string(static_cast<std::size_t>(filled), '#'),
+                 std::string(static_cast<std::size_t>(width - filled), '.'), line);
+      std::fflush(stdout);
+    } else if (done == total || last_line < 0.0 || elapsed - last_line >= 5.0) {
+      fmt::print("sweep: {}\n", line);
+      std::fflush(stdout);
+      last_line = elapsed;
+    }
+  };
+  options.started = [&](const SweepOutcome& at) {
+    fmt::print("sweep: {}: {} point(s) in the grid, {} in shard {}, {} already in {}; {} job(s)\n", spec_path,
+               grid.size(), at.total, options.shard.text(), at.done_before, options.store_path, jobs);
+    std::fflush(stdout);
+  };
+  std::signal(SIGINT, on_interrupt);
+  const SweepOutcome out = run_sweep(spec, grid, options);
+  std::signal(SIGINT, SIG_DFL);
+  if (terminal && out.done_now > 0) fmt::print("\n");
+  fmt::print("sweep: {} of {} point(s) finished ({} already in the store, {} now, {} failed), {} met; {:.1f} s\n",
+             out.done_before + out.done_now, out.total, out.done_before, out.done_now, out.failed, out.met,
+             out.wall_time_s);
+  if (out.interrupted) {
+    fmt::print("sweep: interrupted; run the same command again to continue\n");
+    return 130;
+  }
+  return 0;
+}
+
 }  // namespace
 
 int main(int argc, char** argv) {
@@ -184,6 +253,24 @@ int main(int argc, char** argv) {
                                               "checked against every requirement");
   design->add_option("SPEC", spec_path, "spec file (TOML)")->required();
   design->add_option("--out", out_dir, "output folder (default results/<spec name>/)");
+
+  std::vector<std::string> vary;
+  std::string store, shard;
+  unsigned jobs = std::max(1u, std::thread::hardware_concurrency());
+  auto* sweep = app.add_subcommand("sweep", "Design the spec over a grid of values of its numeric keys; results "
+                                            "in a resumable SQLite store");
+  sweep->add_option("SPEC", spec_path, "spec file (TOML)")->required();
+  sweep->add_option("--vary", vary, "KEY=FROM:TO:COUNT, KEY=FROM:TO:COUNTlog or KEY=a,b,c (repeatable; the first "
+                                    "varies slowest; replaces the spec's [sweep] vary list)");
+  sweep->add_option("--store", store, "SQLite store (default results/<spec name>.sweep.sqlite)");
+  sweep->add_option("--jobs", jobs, "points designed at once (default: all cores)")->check(CLI::Range(1u, 4096u));
+  sweep->add_option("--shard", shard, "K/N: only the points with index % N == K - 1");
+
+  std::string merge_out;
+  std::vector<std::string> merge_in;
+  auto* merge = app.add_subcommand("merge", "Combine sweep stores of the same spec and grid (shards) into one");
+  merge->add_option("OUT", merge_out, "merged store (written whole, then moved into place)")->required();
+  merge->add_option("IN", merge_in, "input stores")->required();
 
   try {
     app.parse(argc, argv);
@@ -208,6 +295,15 @@ int main(int argc, char** argv) {
       print_design(run, outcome);
       return run.met ? 0 : 1;
     }
+    if (*sweep) return run_sweep_command(spec_path, vary, store, jobs, shard);
+    if (*merge) {
+      const std::size_t n = merge_stores(merge_out, merge_in);
+      fmt::print("merge: {} finished point(s) from {} store(s) in {}\n", n, merge_in.size(), merge_out);
+      return 0;
+    }
+  } catch (const SweepError& e) {
+    std::cerr << e.what() << "\n";
+    return 2;
   } catch (const SpecError& e) {
     std::cerr << e.what() << "\n";
     return 2;

@@ -3,6 +3,7 @@
 // "file:line:column: dotted.key: expected ..., got ...". A valid spec is normalized so that
 // both plant forms (zeros/poles/gain and numerator/denominator) are filled.
 #include "specloop/spec.hpp"
+#include "specloop/sweep.hpp"
 
 #include "specloop/compensator.hpp"
 #include "specloop/expression_plant.hpp"
@@ -121,6 +122,7 @@ const std::vector<SectionSchema>& section_schemas() {
       {"reference", {"amplitude"}},
       {"search", {"objective", "seed", "max_evaluations", "max_time", "simulate", "bounds"}},
       {"disturbance", {"time", "size", "noise_rms", "noise_period", "seed"}},
+      {"sweep", {"vary"}},
   };
   return schemas;
 }
@@ -360,6 +362,7 @@ class SpecReader {
     read_reference(spec.reference);
     read_search(spec.search, spec.controller.structure);
     read_disturbance(spec.disturbance);
+    read_sweep(spec.sweep_vary);
     check_consistency(spec);
     return spec;
   }
@@ -1074,6 +1077,32 @@ class SpecReader {
             section("reference"), "reference", "amplitude", [](double v) { return v != 0.0; },
             "a nonzero number")) {
       reference.amplitude = *amplitude;
+    }
+  }
+
+  void read_sweep(std::vector<std::string>& vary) const {
+    const toml::table* table = section("sweep");
+    if (table == nullptr) return;
+    const auto entry = find_entry(*table, "vary");
+    if (!entry) return;
+    const auto* list = entry->value->as_array();
+    if (list == nullptr || list->empty())
+      fail_expected(entry->at, "sweep.vary", "a non-empty array of strings such as \"plant.delay=0:0.2:5\"",
+                    describe(*entry->value));
+    for (std::size_t i = 0; i < list->size(); ++i) {
+      const auto* text = list->get(i)->as_string();
+      const std::string key = fmt::format("sweep.vary[{}]", i);
+      if (text == nullptr)
+        fail_expected(position_of(list->get(i)->source()), key, "a string \"KEY=FROM:TO:COUNT\", \"KEY=FROM:TO:COUNTlog\" or \"KEY=a,b,c\"",
+                      describe(*list->get(i)));
+      try {
+        (void)parse_sweep_axis(text->get());
+      } catch (const SweepError& error) {
+        std::string why = error.what();
+        if (why.rfind("--vary ", 0) == 0) why = why.substr(7);
+        fail(position_of(list->get(i)->source()), key, why);
+      }
+      vary.push_back(text->get());
     }
   }
 

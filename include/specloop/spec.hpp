@@ -161,6 +161,9 @@ struct Spec {
   ReferenceSpec reference;
   SearchSpec search;
   DisturbanceSpec disturbance;
+  /// [sweep] vary: the axes of `specloop sweep`, each "KEY=FROM:TO:COUNT[log]" or "KEY=a,b,c"
+  /// (syntax checked here; the keys are checked against the file by the sweep).
+  std::vector<std::string> sweep_vary;
 };
 
 /// Reads and validates a spec file. Throws SpecError (message as above) on any problem:

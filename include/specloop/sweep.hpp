@@ -1,0 +1,128 @@
+// Sweeps: a grid of spec variants (the Cartesian product of varied numeric keys), each point
+// designed in full, the results kept in a resumable SQLite store; shards and their merge.
+#pragma once
+
+#include <atomic>
+#include <cstdint>
+#include <functional>
+#include <optional>
+#include <stdexcept>
+#include <string>
+#include <string_view>
+#include <vector>
+
+namespace specloop {
+
+/// A bad sweep request (grid, key, store): the message is complete; the CLI exits 2.
+class SweepError : public std::runtime_error {
+ public:
+  using std::runtime_error::runtime_error;
+};
+
+/// One varied key and its values, from "KEY=FROM:TO:COUNT", "KEY=FROM:TO:COUNTlog" or "KEY=a,b,c".
+struct SweepAxis {
+  std::string key;          // dotted path from the document root, array elements as [i] (0-based)
+  std::string definition;   // the text after '=', as given
+  std::vector<double> values;
+};
+
+/// Parses one axis. Throws SweepError naming the text and what was expected (COUNT ≥ 1, a log
+/// range with both bounds > 0, finite numbers, a key before '=').
+SweepAxis parse_sweep_axis(std::string_view text);
+
+/// The grid: axes in the order given; the first axis varies slowest (row-major, like nested loops
+/// with the first axis outermost). Point i's value on axis a is values[digit_a(i)].
+struct SweepGrid {
+  std::vector<SweepAxis> axes;
+  std::size_t size() const;                            // product of the axis lengths (1 for no axes)
+  std::vector<double> point(std::size_t index) const;  // the values of point `index`, one per axis
+  std::string canonical() const;                       // "key=def;key=def" with values listed exactly
+};
+
+/// Shard K of N (1 ≤ K ≤ N): the points with index % N == K − 1.
+struct Shard {
+  int k = 1;
+  int n = 1;
+  bool contains(std::size_t index) const { return index % static_cast<std::size_t>(n) == static_cast<std::size_t>(k - 1); }
+  std::string text() const;                            // "K/N"
+};
+/// Parses "K/N"; throws SweepError otherwise.
+Shard parse_shard(std::string_view text);
+/// The indices of `grid` that belong to `shard`, ascending.
+std::vector<std::size_t> shard_points(std::size_t grid_size, const Shard& shard);
+
+/// The non-dominated points among `points` (each a vector of the same length, every objective
+/// minimized): indices, ascending. q dominates p when q ≤ p in every objective and q < p in at least
+/// one; equal points do not dominate each other (both stay). Throws std::invalid_argument for a
+/// NaN or for rows of different lengths. O(n log n + n·f·k) for f front points, k objectives.
+std::vector<std::size_t> non_dominated(const std::vector<std::vector<double>>& points);
+
+/// 64-bit FNV-1a of the bytes, as 16 lowercase hex digits (the store's spec hash).
+std::string fnv1a64_hex(std::string_view bytes);
+
+/// A spec file prepared for sweeping: the document re-serialized without its [sweep] table (the
+/// canonical text that identifies the spec), and the point texts.
+class SweepSpec {
+ public:
+  /// Reads the file (SpecError/SweepError on problems). Does not validate the axes' keys yet.
+  explicit SweepSpec(const std::string& path);
+  ~SweepSpec();
+  SweepSpec(const SweepSpec&) = delete;
+  SweepSpec& operator=(const SweepSpec&) = delete;
+
+  const std::string& path() const { return path_; }
+  const std::string& name() const { return name_; }
+  const std::string& canonical_text() const { return canonical_; }
+  /// The axes written in the spec's [sweep] vary list (empty when there is none).
+  const std::vector<std::string>& vary_in_file() const { return vary_in_file_; }
+  /// Checks that every axis key names a number present in the document (not in [sweep]).
+  void check_keys(const SweepGrid& grid) const;
+  /// The spec text of one point: the canonical document with each axis key set to its value.
+  std::string point_text(const SweepGrid& grid, std::size_t index) const;
+
+ private:
+  struct Impl;
+  Impl* impl_;
+  std::string path_, name_, canonical_;
+  std::vector<std::string> vary_in_file_;
+};
+
+/// What a sweep run did.
+struct SweepOutcome {
+  std::size_t total = 0;        // points in this shard
+  std::size_t done_before = 0;  // found finished in the store at the start
+  std::size_t done_now = 0;     // finished in this run
+  std::size_t met = 0;          // of all finished points in this shard
+  std::size_t failed = 0;       // points whose design threw (recorded with status "error")
+  bool interrupted = false;     // stopped by the stop flag before every point was done
+  double wall_time_s = 0.0;
+};
+
+struct SweepOptions {
+  std::string store_path;
+  unsigned jobs = 1;
+  Shard shard;
+  /// Set asynchronously (SIGINT): no new point starts; points in flight finish and are stored.
+  const std::atomic<bool>* stop = nullptr;
+  /// Called once the grid is validated and the store opened, before any point runs.
+  std::function<void(const SweepOutcome& at_start)> started;
+  /// Progress: called by the writer thread after each stored point.
+  std::function<void(std::size_t done, std::size_t total, std::size_t met, double elapsed_s,
+                     std::size_t done_this_run)> progress;
+};
+
+/// Validates the grid against the spec (every point parsed as a spec; SweepError/SpecError),
+/// opens or creates the store (refusing a store of another spec, grid or shard), runs the points
+/// not yet finished on `jobs` threads and commits each in its own transaction.
+SweepOutcome run_sweep(const SweepSpec& spec, const SweepGrid& grid, const SweepOptions& options);
+
+/// The default store path: results/<name>.sweep.sqlite, with ".shard-K-of-N" before ".sqlite"
+/// for a shard other than 1/1.
+std::string default_store_path(const std::string& spec_name, const Shard& shard);
+
+/// Combines stores of the same spec and grid into `out` (written to a temporary file beside it,
+/// then renamed). Throws SweepError naming the files on a mismatch or a disagreeing overlap.
+/// Returns the number of finished points in `out`.
+std::size_t merge_stores(const std::string& out, const std::vector<std::string>& inputs);
+
+}  // namespace specloop

@@ -1,0 +1,238 @@
+// Unit tests for sweep grids: axis syntax (linear, geometric, lists), the Cartesian numbering
+// (first axis slowest), shard selection, the store's hash, point spec texts and key checks.
+// Expected values are computed by hand in the comments beside them.
+#include <catch2/catch.hpp>
+#include <complex>
+#include <filesystem>
+#include <fstream>
+#include <random>
+#include <cmath>
+#include <set>
+#include <string>
+#include <vector>
+
+#include "specloop/spec.hpp"
+#include "specloop/sweep.hpp"
+
+using namespace specloop;
+
+namespace {
+
+std::string temp_spec(const std::string& name, const std::string& text) {
+  const auto path = std::filesystem::temp_directory_path() / ("specloop_test_sweep_" + name + ".toml");
+  std::ofstream(path) << text;
+  return path.string();
+}
+
+const char* kSpec = R"(title = "fan speed"
+[plant]
+poles = [-1.0, [-4.0, 3.0], -40.0]
+gain = 160.0
+delay = 0.0
+[controller]
+structure = "pi"
+[requirements]
+overshoot_max_pct = 12.0
+settling_time_max = 4
+[search]
+max_evaluations = 200
+)";
+
+}  // namespace
+
+TEST_CASE("linear axis: FROM:TO:COUNT is evenly spaced with exact ends", "[sweep]") {
+  const SweepAxis a = parse_sweep_axis("requirements.overshoot_max_pct=2:20:4");
+  CHECK(a.key == "requirements.overshoot_max_pct");
+  // step (20 − 2)/3 = 6: 2, 8, 14, 20
+  REQUIRE(a.values.size() == 4);
+  CHECK(a.values[0] == 2.0);
+  CHECK(a.values[1] == Approx(8.0).epsilon(1e-15));
+  CHECK(a.values[2] == Approx(14.0).epsilon(1e-15));
+  CHECK(a.values[3] == 20.0);
+  const SweepAxis down = parse_sweep_axis("plant.delay=0.5:0:3");  // 0.5, 0.25, 0
+  CHECK(down.values == std::vector<double>{0.5, 0.25, 0.0});
+  CHECK(parse_sweep_axis("x=3:3:1").values == std::vector<double>{3.0});
+}
+
+TEST_CASE("log axis: the suffix makes a geometric sequence", "[sweep]") {
+  const SweepAxis a = parse_sweep_axis("requirements.effort_max=1:100:5log");
+  // ratio 100^(1/4) = √10: 1, 3.16228, 10, 31.6228, 100
+  REQUIRE(a.values.size() == 5);
+  CHECK(a.values[0] == 1.0);
+  CHECK(a.values[1] == Approx(3.1622776601683795).epsilon(1e-14));
+  CHECK(a.values[2] == Approx(10.0).epsilon(1e-14));
+  CHECK(a.values[3] == Approx(31.622776601683793).epsilon(1e-14));
+  CHECK(a.values[4] == 100.0);
+}
+
+TEST_CASE("list axis: values as written, in order", "[sweep]") {
+  CHECK(parse_sweep_axis("plant.gain=3, 1.5,-2,1e2").values == std::vector<double>{3.0, 1.5, -2.0, 100.0});
+  CHECK(parse_sweep_axis("plant.gain=7").values == std::vector<double>{7.0});
+}
+
+TEST_CASE("bad axes are refused with the reason", "[sweep]") {
+  auto message = [](const char* text) {
+    try {
+      parse_sweep_axis(text);
+    } catch (const SweepError& e) {
+      return std::string(e.what());
+    }
+    return std::string("(accepted)");
+  };
+  CHECK_THAT(message("x=1:2:0"), Catch::Contains("COUNT '0' must be an integer >= 1"));
+  CHECK_THAT(message("x=0:10:3log"), Catch::Contains("log range needs FROM > 0"));
+  CHECK_THAT(message("x=-1:10:3log"), Catch::Contains("log range needs FROM > 0"));
+  CHECK_THAT(message("x=1:2"), Catch::Contains("three fields"));
+  CHECK_THAT(message("x=a:2:3"), Catch::Contains("FROM 'a'"));
+  CHECK_THAT(message("x=1,zz"), Catch::Contains("'zz'"));
+  CHECK_THAT(message("x=1:inf:3"), Catch::Contains("TO 'inf'"));
+  CHECK_THAT(message("no equals sign"), Catch::Contains("expected KEY="));
+  CHECK_THAT(message("=1,2"), Catch::Contains("expected a spec key"));
+  CHECK_THAT(message("x=1:2:1"), Catch::Contains("COUNT 1 needs FROM equal to TO"));
+}
+
+TEST_CASE("grid numbering: the first axis varies slowest", "[sweep]") {
+  SweepGrid g;
+  g.axes.push_back(parse_sweep_axis("a=1,2"));
+  g.axes.push_back(parse_sweep_axis("b=10,20,30"));
+  REQUIRE(g.size() == 6);
+  // index = i_a·3 + i_b
+  CHECK(g.point(0) == std::vector<double>{1, 10});
+  CHECK(g.point(1) == std::vector<double>{1, 20});
+  CHECK(g.point(2) == std::vector<double>{1, 30});
+  CHECK(g.point(3) == std::vector<double>{2, 10});
+  CHECK(g.point(5) == std::vector<double>{2, 30});
+  CHECK(g.canonical() == "a=1,2;b=10,20,30");
+  SweepGrid three = g;
+  three.axes.push_back(parse_sweep_axis("c=0:1:2"));
+  // index 7 = 1·6 + 0·2 + 1 → (2, 10, 1)
+  CHECK(three.point(7) == std::vector<double>{2, 10, 1});
+  CHECK(three.size() == 12);
+}
+
+TEST_CASE("shards are interleaved, disjoint and cover the grid", "[sweep]") {
+  CHECK(shard_points(8, parse_shard("2/3")) == std::vector<std::size_t>{1, 4, 7});
+  CHECK(shard_points(8, parse_shard("3/3")) == std::vector<std::size_t>{2, 5});
+  CHECK(shard_points(3, parse_shard("4/4")).empty());
+  std::multiset<std::size_t> all;
+  for (int k = 1; k <= 4; ++k)
+    for (std::size_t i : shard_points(13, Shard{k, 4})) all.insert(i);
+  CHECK(all.size() == 13);
+  CHECK(std::set<std::size_t>(all.begin(), all.end()).size() == 13);
+  for (const char* bad : {"0/3", "4/3", "a/b", "3", "1/0", "-1/2"}) CHECK_THROWS_AS(parse_shard(bad), SweepError);
+  CHECK(default_store_path("oven", Shard{2, 4}) == "results/oven.sweep.shard-2-of-4.sqlite");
+  CHECK(default_store_path("oven", Shard{}) == "results/oven.sweep.sqlite");
+}
+
+TEST_CASE("the spec hash is 64-bit FNV-1a", "[sweep]") {
+  // Test vectors of the FNV reference (Fowler, Noll, Vo), recalled from memory and recomputed
+  // independently in Python while writing this test.
+  CHECK(fnv1a64_hex("") == "cbf29ce484222325");
+  CHECK(fnv1a64_hex("a") == "af63dc4c8601ec8c");
+  CHECK(fnv1a64_hex("foobar") == "85944171f73967e8");
+}
+
+TEST_CASE("point texts set the varied keys; poles are indexed as written", "[sweep]") {
+  const auto path = temp_spec("points", kSpec);
+  const SweepSpec spec(path);
+  SweepGrid g;
+  g.axes.push_back(parse_sweep_axis("plant.poles[1][0]=-5,-6"));   // real part of the pair
+  g.axes.push_back(parse_sweep_axis("plant.poles[0]=-2,-3"));      // a real pole
+  g.axes.push_back(parse_sweep_axis("requirements.settling_time_max=2.5"));  // an integer in the file
+  g.axes.push_back(parse_sweep_axis("search.max_evaluations=150"));          // stays an integer
+  spec.check_keys(g);
+  const Spec p = parse_spec(spec.point_text(g, 2), path);  // (−6, −2, 2.5, 150)
+  std::vector<std::complex<double>> poles = p.plant.poles;
+  CHECK(std::count(poles.begin(), poles.end(), std::complex<double>(-6.0, 3.0)) == 1);
+  CHECK(std::count(poles.begin(), poles.end(), std::complex<double>(-6.0, -3.0)) == 1);
+  CHECK(std::count(poles.begin(), poles.end(), std::complex<double>(-2.0, 0.0)) == 1);
+  CHECK(*p.requirements.settling_time_max_s == 2.5);
+  CHECK(p.search.max_evaluations == 150);
+  CHECK(p.name == Spec(parse_spec(kSpec, path)).name);
+  // Values round-trip exactly through the re-written text.
+  SweepGrid fine;
+  fine.axes.push_back(parse_sweep_axis("requirements.overshoot_max_pct=0.1:9.7:7"));
+  for (std::size_t i = 0; i < fine.size(); ++i)
+    CHECK(*parse_spec(spec.point_text(fine, i), path).requirements.overshoot_max_pct == fine.point(i)[0]);
+}
+
+TEST_CASE("keys that are missing, not numbers or out of range are refused", "[sweep]") {
+  const auto path = temp_spec("keys", kSpec);
+  const SweepSpec spec(path);
+  auto message = [&](const char* axis) {
+    SweepGrid g;
+    g.axes.push_back(parse_sweep_axis(axis));
+    try {
+      spec.check_keys(g);
+    } catch (const SweepError& e) {
+      return std::string(e.what());
+    }
+    return std::string("(accepted)");
+  };
+  CHECK_THAT(message("requirements.effort_max=1,2"), Catch::Contains("'requirements.effort_max' is not in the spec file"));
+  CHECK_THAT(message("plant.poles=1,2"), Catch::Contains("expected a numeric spec key (it is an array"));
+  CHECK_THAT(message("plant.poles[1]=1,2"), Catch::Contains("[i][0] is its real part"));
+  CHECK_THAT(message("plant.poles[3]=1,2"), Catch::Contains("index 3 is out of range"));
+  CHECK_THAT(message("controller.structure=1,2"), Catch::Contains("(it is a string)"));
+  CHECK_THAT(message("plant.gain[0]=1,2"), Catch::Contains("'plant.gain' is not an array"));
+  CHECK(message("plant.delay=0,0.1") == "(accepted)");
+}
+
+TEST_CASE("[sweep] vary in a spec is read and its syntax checked with the line", "[sweep][spec]") {
+  const std::string ok = std::string(kSpec) + "[sweep]\nvary = [\"plant.delay=0:0.1:3\", \"plant.gain=1,2\"]\n";
+  CHECK(parse_spec(ok, "s.toml").sweep_vary == std::vector<std::string>{"plant.delay=0:0.1:3", "plant.gain=1,2"});
+  const std::string bad = std::string(kSpec) + "[sweep]\nvary = [\"plant.delay=0:0.1:0\"]\n";
+  CHECK_THROWS_WITH(parse_spec(bad, "s.toml"), Catch::StartsWith("s.toml:14:") && Catch::Contains("sweep.vary[0]") &&
+                                                    Catch::Contains("COUNT '0'"));
+  CHECK_THROWS_WITH(parse_spec(std::string(kSpec) + "[sweep]\nvary = 3\n", "s.toml"),
+                    Catch::Contains("sweep.vary: expected a non-empty array of strings"));
+  CHECK_THROWS_WITH(parse_spec(std::string(kSpec) + "[sweep]\nvary = [\"x=1\"]\nstore = \"a\"\n", "s.toml"),
+                    Catch::Contains("unknown key"));
+}
+
+namespace {
+
+/// The definition, applied to every pair: p is kept unless some q is ≤ everywhere and < somewhere.
+std::vector<std::size_t> brute_force_front(const std::vector<std::vector<double>>& pts) {
+  std::vector<std::size_t> out;
+  for (std::size_t i = 0; i < pts.size(); ++i) {
+    bool dominated = false;
+    for (std::size_t j = 0; j < pts.size() && !dominated; ++j) {
+      bool all_le = true, some_lt = false;
+      for (std::size_t d = 0; d < pts[i].size(); ++d) {
+        all_le = all_le && pts[j][d] <= pts[i][d];
+        some_lt = some_lt || pts[j][d] < pts[i][d];
+      }
+      dominated = all_le && some_lt;
+    }
+    if (!dominated) out.push_back(i);
+  }
+  return out;
+}
+
+}  // namespace
+
+TEST_CASE("non-dominated points: a hand example", "[sweep][pareto]") {
+  // (peak time, effort): (1, 5) (2, 3) (3, 4) (4, 1) (2, 3) (5, 5); (3, 4) is beaten by (2, 3),
+  // (5, 5) by all; the duplicate (2, 3) stays twice.
+  const std::vector<std::vector<double>> p{{1, 5}, {2, 3}, {3, 4}, {4, 1}, {2, 3}, {5, 5}};
+  CHECK(non_dominated(p) == std::vector<std::size_t>{0, 1, 3, 4});
+  CHECK(non_dominated({}).empty());
+  CHECK_THROWS_AS(non_dominated({{1, 2}, {1}}), std::invalid_argument);
+  CHECK_THROWS_AS(non_dominated({{1, std::nan("")}}), std::invalid_argument);
+}
+
+TEST_CASE("non-dominated points agree with a brute-force check on random points", "[sweep][pareto]") {
+  std::mt19937_64 rng(12345);
+  for (int trial = 0; trial < 200; ++trial) {
+    const std::size_t k = 2 + static_cast<std::size_t>(trial % 3);       // 2, 3, 4 objectives
+    const std::size_t n = 1 + static_cast<std::size_t>(rng() % 120);
+    const bool coarse = trial % 2 == 0;  // small integers: many ties and duplicates
+    std::vector<std::vector<double>> pts(n, std::vector<double>(k));
+    for (auto& p : pts)
+      for (auto& v : p)
+        v = coarse ? static_cast<double>(rng() % 6) : std::uniform_real_distribution<double>(-1.0, 1.0)(rng);
+    INFO("trial " << trial << ", " << n << " points, " << k << " objectives");
+    REQUIRE(non_dominated(pts) == brute_force_front(pts));
+  }
+}
