@@ -39,7 +39,7 @@ from scipy import signal
 from scipy.integrate import solve_ivp
 
 from check_scipy_nonlinear import pid_gains
-from reference_common import Tally, sample_segments
+from reference_common import TerminalEvents, Tally, sample_segments
 
 TOL_TRACE = 1e-4
 TOL_FRACTION = 1e-5
@@ -113,13 +113,8 @@ def reference(case, amplitude, samples, noise):
 
     def events(mode, d, nz):
         side, slew = mode
-        evs = []
-
-        def ev(fun, direction):
-            fun.terminal = True
-            fun.direction = direction
-            evs.append(fun)
-
+        evs = TerminalEvents()
+        ev = evs.add
         if side == 0:
             ev(lambda t, x: command(x, nz) - umax, 1)
             ev(lambda t, x: command(x, nz) - umin, -1)

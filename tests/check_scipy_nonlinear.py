@@ -87,7 +87,7 @@ import numpy as np
 from scipy import signal
 from scipy.integrate import solve_ivp
 
-from reference_common import Tally, sample_segments
+from reference_common import TerminalEvents, Tally, sample_segments
 
 TOL_TRACE = 1e-4
 TOL_OVERSHOOT_PTS = 1e-3
@@ -162,13 +162,8 @@ def reference(case, amplitude, samples):
 
     def events(mode, d):
         side, kind = mode
-        evs = []
-
-        def ev(fun, direction):
-            fun.terminal = True
-            fun.direction = direction
-            evs.append(fun)
-
+        evs = TerminalEvents()
+        ev = evs.add
         if kind == "slide":
             s = side
             ev(lambda t, x: s * kp * (C @ rhs(mode, d)(t, x)[:n]), -1)          # held I' reaches 0

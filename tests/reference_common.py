@@ -33,3 +33,13 @@ def sample_segments(segments, samples, observe):
         ys.append(y)
         us.append(u)
     return ys, us
+
+
+class TerminalEvents(list):
+    """solve_ivp events that stop the integration: `add(fun, direction)` marks `fun` terminal with
+    the given crossing direction and keeps it, in order (the index says which guard fired)."""
+
+    def add(self, fun, direction):
+        fun.terminal = True
+        fun.direction = direction
+        self.append(fun)
