@@ -31,14 +31,13 @@ The last line is "N passed, M failed"; exit status 1 on any failure.
 """
 import argparse
 import json
-import subprocess
 import sys
 
 import numpy as np
 from scipy import signal
 from scipy.integrate import solve_ivp
 
-from check_scipy_nonlinear import pid_gains
+from check_scipy_nonlinear import pid_gains, run_probe
 from reference_common import TerminalEvents, Tally, sample_segments
 
 TOL_TRACE = 1e-4
@@ -237,12 +236,11 @@ def main():
     amplitude = 1.0
     for case in CASES:
         name = case["name"]
-        proc = subprocess.run([args.nonlinear_probe], input=json.dumps(probe_input(case, amplitude)),
-                              capture_output=True, text=True, timeout=120)
-        if proc.returncode != 0:
-            tally.check(name, "probe ran", False, proc.stderr.strip())
+        rc, out, err = run_probe(args.nonlinear_probe, probe_input(case, amplitude))
+        if rc != 0:
+            tally.check(name, "probe ran", False, err.strip())
             continue
-        res = json.loads(proc.stdout)
+        res = json.loads(out)
         if res["status"] != "ok":
             tally.check(name, "status ok", False, res["status"] + " " + "; ".join(res["notes"]))
             continue
