@@ -89,6 +89,29 @@ double requirement_violation(const Requirement& r, const std::optional<double>& 
   return miss > 1e-9 ? miss : 0.0;
 }
 
+double requirement_slack(const Requirement& r, const std::optional<double>& value) {
+  if (!value) return -1.0;
+  const double scale = r.limit != 0.0 ? std::abs(r.limit) : 0.01;
+  const double v = std::isinf(*value) ? (*value > 0 ? kInf : -kInf) : *value;
+  const double room = r.upper ? (r.limit - v) / scale : (v - r.limit) / scale;
+  return std::isinf(room) ? (room > 0 ? 1e3 : -1e3) : room;
+}
+
+std::string tightest_requirement(const std::vector<RequirementCheck>& checks) {
+  std::string name;
+  double least = kInf;
+  for (const RequirementCheck& c : checks) {
+    if (!c.met || !c.value) continue;
+    if (c.requirement.limit == 0.0 && std::abs(*c.value) <= 1e-9) continue;
+    const double room = requirement_slack(c.requirement, c.value);
+    if (room < least) {
+      least = room;
+      name = c.requirement.key;
+    }
+  }
+  return name;
+}
+
 // ---- problem ------------------------------------------------------------------------------------
 
 Problem make_problem(const Spec& spec, const Characterization& ch) {

@@ -16,6 +16,7 @@
 #include "specloop/report.hpp"
 #include "specloop/spec.hpp"
 #include "specloop/sweep.hpp"
+#include "specloop/sweep_report.hpp"
 
 namespace {
 
@@ -272,6 +273,23 @@ int main(int argc, char** argv) {
   merge->add_option("OUT", merge_out, "merged store (written whole, then moved into place)")->required();
   merge->add_option("IN", merge_in, "input stores")->required();
 
+  std::string report_store, report_out, map_keys, front_metrics = "peak_time,effort_peak", front_loop = "nonlinear";
+  std::vector<std::string> report_at;
+  double threshold_pct = 10.0;
+  auto* sweep_report = app.add_subcommand("sweep-report", "Maps, Pareto front, approximation errors and gains of a sweep "
+                                                          "store, as HTML, Markdown and CSV");
+  sweep_report->add_option("STORE", report_store, "sweep store (SQLite)")->required();
+  sweep_report->add_option("--out", report_out, "output folder (default: beside the store, <store name>-report)");
+  sweep_report->add_option("--map", map_keys, "KEY_X,KEY_Y: the two axes of the maps (default: the first two)");
+  sweep_report->add_option("--at", report_at, "KEY=VALUE: where the axes not on the maps are held (repeatable; default: "
+                                              "their first value)");
+  sweep_report->add_option("--front", front_metrics, "two or three metrics for the Pareto front, comma-separated: "
+                                                     "overshoot_pct, peak_time, settling_time, rise_time, effort_peak, iae, "
+                                                     "ise, itae (default peak_time,effort_peak)");
+  sweep_report->add_option("--front-loop", front_loop, "loop the front's metrics are read on: nonlinear (default) or linear");
+  sweep_report->add_option("--threshold", threshold_pct, "relative error of the second-order prediction, %, beyond which "
+                                                         "a map cell is outlined (default 10)");
+
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
@@ -296,6 +314,34 @@ int main(int argc, char** argv) {
       return run.met ? 0 : 1;
     }
     if (*sweep) return run_sweep_command(spec_path, vary, store, jobs, shard);
+    if (*sweep_report) {
+      const SweepStoreContents contents = read_sweep_store(report_store);
+      SweepReportOptions options;
+      const auto split = [](const std::string& text) {
+        std::vector<std::string> parts;
+        std::size_t start = 0;
+        while (start <= text.size()) {
+          const auto comma = text.find(',', start);
+          const std::string part = text.substr(start, comma == std::string::npos ? std::string::npos : comma - start);
+          if (!part.empty()) parts.push_back(part);
+          if (comma == std::string::npos) break;
+          start = comma + 1;
+        }
+        return parts;
+      };
+      options.map_keys = split(map_keys);
+      options.at = report_at;
+      options.front_metrics = split(front_metrics);
+      options.front_loop = front_loop;
+      options.approximation_threshold_pct = threshold_pct;
+      const std::filesystem::path dir = report_out.empty() ? default_sweep_report_dir(report_store) : std::filesystem::path(report_out);
+      const SweepReportOutcome outcome = write_sweep_report(contents, dir, options);
+      fmt::print("sweep-report: {} of {} point(s) finished, {} met, {} on the Pareto front\n", outcome.finished,
+                 contents.points.size(), outcome.met, outcome.front_size);
+      if (!outcome.figures_rendered) fmt::print("sweep-report: {}\n", outcome.figures_note);
+      fmt::print("sweep-report: {}\n", outcome.html.string());
+      return 0;
+    }
     if (*merge) {
       const std::size_t n = merge_stores(merge_out, merge_in);
       fmt::print("merge: {} finished point(s) from {} store(s) in {}\n", n, merge_in.size(), merge_out);

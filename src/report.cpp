@@ -12,6 +12,7 @@
 #include <stdexcept>
 #include <unistd.h>
 
+#include "page_kit.hpp"
 #include "specloop/json_io.hpp"
 
 namespace specloop {
@@ -21,6 +22,7 @@ const char* const kSafetyCaution =
     "codes, applicable functional-safety standards and licensed engineering practice.";
 
 namespace fs = std::filesystem;
+using namespace page;
 
 const Design* recommended_design(const DesignRun& run) {
   for (const char* name : {"optimized", "classical"}) {
@@ -114,39 +116,9 @@ ReportData report_data(const DesignRun& run) {
 
 namespace {
 
-void write_text(const fs::path& path, const std::string& text) {
-  std::ofstream out(path, std::ios::binary | std::ios::trunc);
-  out << text;
-  if (!out) throw std::runtime_error("cannot write " + path.string());
-}
-
-std::string read_text(const fs::path& path) {
-  std::ifstream in(path, std::ios::binary);
-  std::ostringstream s;
-  s << in.rdbuf();
-  return s.str();
-}
-
-std::string csv_number(double v) {
-  if (!std::isfinite(v)) throw std::runtime_error("report: a non-finite value in a series");
-  return fmt::format("{:.10g}", v);
-}
-
-// Columns of equal length under a header row (units in the column names).
-void write_csv(const fs::path& path, const std::vector<std::string>& header, const std::vector<const std::vector<double>*>& columns) {
-  std::string text = fmt::format("{}\n", fmt::join(header, ","));
-  const std::size_t n = columns.front()->size();
-  for (std::size_t i = 0; i < n; ++i) {
-    for (std::size_t c = 0; c < columns.size(); ++c) {
-      if (c) text += ',';
-      text += csv_number((*columns[c])[i]);
-    }
-    text += '\n';
-  }
-  write_text(path, text);
-}
-
 std::string trace_file(const ResponseTrace& t) { return fmt::format("step_{}{}.csv", t.design, t.nonlinear ? "_nonlinear" : ""); }
+
+std::string with_unit(double v, const std::string& unit) { return fmt::format("{:.4g}{}", v, unit.empty() ? "" : " " + unit); }
 
 // A stable look of our own: muted colours per design, thin grid, sans-serif.
 const char* colour_of(const std::string& design, bool nonlinear) {
@@ -160,36 +132,6 @@ const char* colour_of(const std::string& design, bool nonlinear) {
 std::string label_of(const std::string& design, bool nonlinear) {
   std::string name = design == "ultimate_gain" ? "ultimate gain (ZN)" : design;
   return nonlinear ? name + " (nonlinear loop)" : name + (design == "reference" ? " (P only)" : "");
-}
-
-// A gnuplot single-quoted string, its characters literal under enhanced text (which the axis
-// exponents use): the markup characters are escaped.
-std::string quoted(const std::string& s) {
-  std::string out = "'";
-  for (char c : s) {
-    if (c == '\'') out += "''";
-    else if (std::string_view("_^{}@&~").find(c) != std::string_view::npos) out += std::string("\\") + c;
-    else out += c;
-  }
-  return out + "'";
-}
-
-// Both terminals from one script: the SVG for the pages, the PNG for anything else.
-std::string script_frame(const std::string& name, const std::string& body) {
-  return fmt::format(
-      "# {0}: drawn by specloop from the CSV files in ../series (re-run: gnuplot {0}.gp)\n"
-      "set datafile separator ','\n"
-      "set key top right box opaque font ',10'\n"
-      "set grid lc rgb '#dddddd' lw 1\n"
-      "set border lc rgb '#555555'\n"
-      "set tics textcolor rgb '#333333'\n"
-      "do for [term in 'svg png'] {{\n"
-      "  if (term eq 'svg') {{ set terminal svg size 900,520 dynamic font 'Helvetica,12' background rgb 'white'; set output '{0}.svg' }} "
-      "else {{ set terminal pngcairo size 1200,690 font 'Helvetica,12' background rgb 'white'; set output '{0}.png' }}\n"
-      "{1}"
-      "  unset output\n"
-      "}}\n",
-      name, body);
 }
 
 std::string step_script(const DesignRun& run, const ReportData& data, bool effort) {
@@ -419,78 +361,6 @@ std::pair<double, double> write_series(const DesignRun& run, const ReportData& d
   return {extent_re, extent_im};
 }
 
-bool gnuplot_available() { return std::system("command -v gnuplot >/dev/null 2>&1") == 0; }
-
-std::string shell_quoted(const std::string& s) {
-  std::string out = "'";
-  for (char c : s) out += c == '\'' ? std::string("'\\''") : std::string(1, c);
-  return out + "'";
-}
-
-// ---- pages ---------------------------------------------------------------------------------------
-
-std::string escape_html(const std::string& s) {
-  std::string out;
-  for (char c : s) {
-    switch (c) {
-      case '&': out += "&amp;"; break;
-      case '<': out += "&lt;"; break;
-      case '>': out += "&gt;"; break;
-      case '"': out += "&quot;"; break;
-      default: out += c;
-    }
-  }
-  return out;
-}
-
-std::string escape_md(const std::string& s) {
-  std::string out;
-  for (char c : s) {
-    if (c == '|' || c == '*' || c == '_' || c == '`') out += '\\';
-    out += c;
-  }
-  return out;
-}
-
-std::string with_unit(double v, const std::string& unit) { return fmt::format("{:.4g}{}", v, unit.empty() ? "" : " " + unit); }
-
-// A table: header cells, rows of cells; each cell has display text and optional HTML attributes.
-struct Cell {
-  std::string text;
-  std::string attributes;  // e.g. data-value="..."
-};
-struct Table {
-  std::string id;
-  std::vector<std::string> header;
-  std::vector<std::vector<Cell>> rows;
-};
-
-std::string html_table(const Table& t) {
-  std::string s = fmt::format("<table id=\"{}\">\n<thead><tr>", t.id);
-  for (const auto& h : t.header) s += "<th>" + escape_html(h) + "</th>";
-  s += "</tr></thead>\n<tbody>\n";
-  for (const auto& row : t.rows) {
-    s += "<tr>";
-    for (const Cell& c : row) s += "<td" + (c.attributes.empty() ? "" : " " + c.attributes) + ">" + escape_html(c.text) + "</td>";
-    s += "</tr>\n";
-  }
-  return s + "</tbody></table>\n";
-}
-
-std::string md_table(const Table& t) {
-  std::string s = "|";
-  for (const std::string& h : t.header) s.append(" ").append(escape_md(h)).append(" |");
-  s += "\n|";
-  for (std::size_t i = 0; i < t.header.size(); ++i) s += i ? " ---: |" : " --- |";
-  s += "\n";
-  for (const auto& row : t.rows) {
-    s += "|";
-    for (const Cell& c : row) s.append(" ").append(escape_md(c.text)).append(" |");
-    s += "\n";
-  }
-  return s;
-}
-
 std::string value_attribute(const std::optional<double>& v) {
   return v ? fmt::format("data-value=\"{:.17g}\"", *v) : std::string("data-value=\"none\"");
 }
@@ -597,13 +467,6 @@ std::string verdict_line(const DesignRun& run) {
     line += best->nonlinear->confirmed ? " Confirmed on the nonlinear loop." : " NOT confirmed on the nonlinear loop.";
   return line;
 }
-
-// The sections both pages share, each as (heading, html body, markdown body).
-struct Section {
-  std::string id, heading, html, markdown;
-};
-
-std::string paragraph_html(const std::string& text) { return "<p>" + escape_html(text) + "</p>\n"; }
 
 std::vector<Section> sections(const DesignRun& run, const ReportOutcome& outcome,
                               const std::vector<std::pair<std::string, std::string>>& figures /* id → svg (may be empty) */) {
@@ -732,104 +595,30 @@ std::vector<Section> sections(const DesignRun& run, const ReportOutcome& outcome
   return out;
 }
 
-const char* kStyle = R"(body{font-family:Helvetica,Arial,sans-serif;max-width:1000px;margin:2em auto;padding:0 1em;color:#222;line-height:1.45}
-h1{font-size:1.6em;margin-bottom:.2em}h2{font-size:1.2em;border-bottom:1px solid #ccc;padding-bottom:.2em;margin-top:1.8em}
-.verdict{font-size:1.1em;padding:.6em .8em;border-left:5px solid #1f5f99;background:#eef3f8}
-.verdict.bad{border-color:#c62828;background:#fbeeee}
-table{border-collapse:collapse;margin:.6em 0;font-size:.92em}th,td{border:1px solid #ccc;padding:.25em .6em;text-align:right}
-th:first-child,td:first-child{text-align:left}thead th{background:#f2f2f2}td.met{color:#1b5e20}td.missed{color:#b71c1c;font-weight:bold}
-pre{background:#f6f6f6;padding:.7em;overflow-x:auto;font-size:.85em}figure{margin:1.2em 0}figure svg{max-width:100%;height:auto}
-figcaption{font-size:.9em;color:#444}.caution{border:1px solid #c62828;padding:.6em .8em;background:#fff8f8})";
-
-// The SVG as an inline element: without its XML prolog, and with its element ids prefixed so the
-// four figures on one page do not share ids (gnuplot names its symbols and clips alike in each).
-std::string inline_svg(const std::string& svg, const std::string& prefix) {
-  const auto start = svg.find("<svg");
-  if (start == std::string::npos) return {};
-  std::string out = svg.substr(start);
-  for (const std::string pattern : {"id='", "id=\"", "href='#", "href=\"#", "url(#"}) {
-    const std::string replacement = pattern + prefix;
-    for (std::size_t at = out.find(pattern); at != std::string::npos; at = out.find(pattern, at + replacement.size()))
-      out.replace(at, pattern.size(), replacement);
-  }
-  return out;
-}
-
 }  // namespace
 
 ReportOutcome write_design_outputs(const DesignRun& run, const fs::path& dir, const ReportOptions& options) {
   const ReportData data = report_data(run);
-  const fs::path target = dir.empty() ? fs::path(".") : dir;
-  fs::create_directories(target.parent_path().empty() ? fs::path(".") : target.parent_path());
-  const fs::path staging = target.parent_path() / fmt::format(".{}.partial-{}", target.filename().string(), ::getpid());
-  fs::remove_all(staging);
-  fs::create_directories(staging / "plots");
   ReportOutcome outcome;
-  try {
+  write_staged(dir, {"series", "plots", "report.md", "report.html", "result.json"}, [&](const fs::path& staging) {
     write_text(staging / "result.json", result_json(run).dump(2) + "\n");
     const auto [extent_re, extent_im] = write_series(run, data, staging / "series");
     const double zeta = run.characterization.damping_ratio;
-    const std::vector<std::pair<std::string, std::string>> scripts{
-        {"step", step_script(run, data, false)},
-        {"effort", step_script(run, data, true)},
-        {"splane", splane_script(run, data, zeta, extent_re, extent_im)},
-        {"frequency", frequency_script(run, data)}};
-    for (const auto& [name, text] : scripts) write_text(staging / "plots" / (name + ".gp"), text);
-
-    std::vector<std::pair<std::string, std::string>> figures;
-    if (!options.render_figures) {
-      outcome.figures_note = "Figures not drawn (rendering switched off); render them with: cd plots && gnuplot *.gp";
-    } else if (!gnuplot_available()) {
-      outcome.figures_note = "Figures not drawn: gnuplot was not found. Install it (Debian: apt-get install gnuplot-nox) and "
-                             "re-run, or render the scripts yourself: cd plots && for f in *.gp; do gnuplot \"$f\"; done";
-    } else {
-      outcome.figures_rendered = true;
-      for (const auto& [name, text] : scripts) {
-        const std::string command = fmt::format("cd {} && gnuplot {}.gp > {}.log 2>&1", shell_quoted((staging / "plots").string()),
-                                                name, name);
-        const fs::path svg = staging / "plots" / (name + ".svg");
-        if (std::system(command.c_str()) != 0 || !fs::exists(svg) || !fs::exists(staging / "plots" / (name + ".png"))) {
-          throw std::runtime_error(fmt::format("gnuplot failed on plots/{}.gp: {}", name,
-                                               read_text(staging / "plots" / (name + ".log"))));
-        }
-        fs::remove(staging / "plots" / (name + ".log"));
-        figures.emplace_back(name, inline_svg(read_text(svg), "fig-" + name + "-"));
-      }
-    }
-
-    const std::vector<Section> parts = sections(run, outcome, figures);
+    const RenderedFigures figures = write_and_render(staging / "plots",
+                                                     {{"step", step_script(run, data, false)},
+                                                      {"effort", step_script(run, data, true)},
+                                                      {"splane", splane_script(run, data, zeta, extent_re, extent_im)},
+                                                      {"frequency", frequency_script(run, data)}},
+                                                     options.render_figures);
+    outcome.figures_note = figures.note;
+    outcome.figures_rendered = figures.rendered;
     const Spec& spec = run.problem.spec;
-    const std::string title = spec.title.empty() ? spec.name : spec.title;
-    const std::string verdict = verdict_line(run);
     const bool good = run.met && recommended_design(run) && recommended_design(run)->nonlinear &&
                       recommended_design(run)->nonlinear->confirmed;
-    std::string html = fmt::format(
-        "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n<title>{0} — specloop report</title>\n"
-        "<style>{1}</style>\n</head>\n<body>\n<h1>{0}</h1>\n<p class=\"verdict{2}\" id=\"verdict\">{3}</p>\n"
-        "<p class=\"caution\">{4}</p>\n",
-        escape_html(title), kStyle, good ? "" : " bad", escape_html(verdict), escape_html(kSafetyCaution));
-    std::string md = fmt::format("# {}\n\n**{}**\n\n> {}\n\n", title, verdict, kSafetyCaution);
-    for (const Section& s : parts) {
-      html += fmt::format("<section id=\"{}\">\n<h2>{}</h2>\n{}</section>\n", s.id, escape_html(s.heading), s.html);
-      md += fmt::format("## {}\n\n{}\n", s.heading, s.markdown);
-    }
-    html += fmt::format("<footer><p>specloop {} — spec {}</p></footer>\n</body>\n</html>\n", SPECLOOP_VERSION, escape_html(spec.path));
-    write_text(staging / "report.html", html);
-    write_text(staging / "report.md", md);
-
-    // Move everything in: files first replace their old versions, folders are swapped whole.
-    fs::create_directories(target);
-    for (const char* folder : {"series", "plots"}) {
-      fs::remove_all(target / folder);
-      fs::rename(staging / folder, target / folder);
-    }
-    for (const char* file : {"report.md", "report.html", "result.json"}) fs::rename(staging / file, target / file);
-    fs::remove_all(staging);
-  } catch (...) {
-    std::error_code ignored;
-    fs::remove_all(staging, ignored);
-    throw;
-  }
+    write_pages(staging, spec.title.empty() ? spec.name : spec.title, "specloop report", verdict_line(run), good,
+                sections(run, outcome, figures.svgs), fmt::format("specloop {} — spec {}", SPECLOOP_VERSION, spec.path));
+  });
+  const fs::path target = dir.empty() ? fs::path(".") : dir;
   outcome.result = target / "result.json";
   outcome.html = target / "report.html";
   outcome.markdown = target / "report.md";

@@ -6,6 +6,7 @@
 #include <sys/file.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <cerrno>
 #include <cstring>
 
@@ -190,7 +191,7 @@ std::string SweepSpec::point_text(const SweepGrid& grid, std::size_t index) cons
 
 namespace {
 
-constexpr std::string_view kFormat = "specloop-sweep-1";
+constexpr std::string_view kFormat = "specloop-sweep-2";
 
 class Db {
  public:
@@ -284,7 +285,7 @@ std::unique_ptr<Db> open_store(const std::string& path, bool writable) {
   tables.step();
   if (tables.integer(0) != 4)
     throw SweepError(fmt::format("{}: an SQLite database but not a specloop sweep store (it lacks the sweep_header, "
-                                 "sweep_axes, sweep_points and sweep_results tables); give another --store path",
+                                 "sweep_axes, sweep_points and sweep_results tables); name another file",
                                  path));
   return db;
 }
@@ -396,15 +397,26 @@ json controller_summary(const Controller& c) {
   return j;
 }
 
+json checks_summary(const std::vector<RequirementCheck>& checks) {
+  json list = json::array();
+  for (const RequirementCheck& c : checks)
+    list.push_back({{"requirement", c.requirement.key}, {"limit", number_json(c.requirement.limit)},
+                    {"upper", c.requirement.upper}, {"value", c.value ? number_json(*c.value) : json(nullptr)},
+                    {"met", c.met}, {"slack", number_json(requirement_slack(c.requirement, c.value))}});
+  return list;
+}
+
 json design_summary(const Design& d) {
   json j{{"status", std::string(status_name(d.status))}, {"meets_all", d.meets_all},
-         {"linear", metrics_json(d.simulated)}, {"controller", controller_summary(d.controller)}};
+         {"linear", metrics_json(d.simulated)}, {"checks", checks_summary(d.checks)},
+         {"controller", controller_summary(d.controller)}};
   j["second_order"] = d.second_order ? json{{"overshoot_pct", number_json(d.second_order->overshoot_pct)},
                                             {"peak_time", number_json(d.second_order->peak_time_s)}}
                                      : json(nullptr);
   if (d.nonlinear) {
     j["nonlinear"] = {{"status", std::string(status_name(d.nonlinear->status))},
                       {"metrics", metrics_json(d.nonlinear->simulated)},
+                      {"checks", checks_summary(d.nonlinear->checks)},
                       {"meets_all", d.nonlinear->meets_all},
                       {"confirmed", d.nonlinear->confirmed}};
   } else {
@@ -433,7 +445,13 @@ PointRow run_point(const SweepSpec& spec, const SweepGrid& grid, std::size_t ind
     const DesignRun run = run_design(point);
     row.met = run.met;
     row.judged_on = run.judged_on_nonlinear ? "nonlinear" : "linear";
-    if (run.infeasibility) row.binding = run.infeasibility->binding;
+    // The binding requirement: missed by the most when infeasible, else the tightest at the optimum
+    // on the loop the design was judged on.
+    if (run.infeasibility) {
+      row.binding = run.infeasibility->binding;
+    } else if (const Design* o = run.find("optimized"); o && run.met) {
+      row.binding = tightest_requirement(run.judged_on_nonlinear && o->nonlinear ? o->nonlinear->checks : o->checks);
+    }
     row.evaluations = run.search.evaluations;
     row.search_wall_time_s = run.search.wall_time_s;
     if (const Design* c = run.find("classical")) {
@@ -706,6 +724,84 @@ std::size_t merge_stores(const std::string& out, const std::vector<std::string>&
     throw;
   }
   return rows.size();
+}
+
+// ---------------------------------------------------------------------------------------------
+// Reading a store
+// ---------------------------------------------------------------------------------------------
+
+std::size_t SweepStoreContents::finished() const {
+  return static_cast<std::size_t>(std::count_if(points.begin(), points.end(), [](const StoredPoint& p) { return p.finished; }));
+}
+
+SweepStoreContents read_sweep_store(const std::string& path) {
+  std::error_code ec;
+  if (!fs::exists(path, ec)) throw SweepError(fmt::format("{}: no such file", path));
+  if (fs::is_directory(path, ec)) throw SweepError(fmt::format("{}: a folder, not a sweep store", path));
+  auto db = open_store(path, false);
+  const Header h = read_header(*db);
+  SweepStoreContents out;
+  out.path = path;
+  out.format = h.format;
+  out.tool_version = h.tool_version;
+  out.spec_name = h.spec_name;
+  out.spec_text = h.spec_text;
+  out.spec_hash = h.spec_hash;
+  out.shard = h.shard;
+  {
+    Stmt s(*db, "SELECT key, definition FROM sweep_axes ORDER BY axis");
+    while (s.step()) out.grid.axes.push_back(parse_sweep_axis(s.text(0) + "=" + s.text(1)));
+  }
+  if (out.grid.canonical() != h.grid || static_cast<std::int64_t>(out.grid.size()) != h.point_count)
+    throw SweepError(fmt::format("{}: the store's axes do not reproduce its grid (damaged)", path));
+  out.points.resize(out.grid.size());
+  {
+    Stmt s(*db, "SELECT * FROM sweep_points ORDER BY idx");
+    const int columns = sqlite3_column_count(s.get());
+    if (columns != static_cast<int>(out.grid.axes.size()) + 1)
+      throw SweepError(fmt::format("{}: sweep_points has {} value column(s) for {} axes (damaged)", path, columns - 1,
+                                   out.grid.axes.size()));
+    std::size_t rows = 0;
+    while (s.step()) {
+      const std::int64_t idx = s.integer(0);
+      if (idx < 0 || static_cast<std::size_t>(idx) >= out.points.size())
+        throw SweepError(fmt::format("{}: point index {} outside the grid of {} (damaged)", path, idx, out.points.size()));
+      StoredPoint& p = out.points[static_cast<std::size_t>(idx)];
+      p.index = static_cast<std::size_t>(idx);
+      for (int c = 1; c < columns; ++c) p.values.push_back(sqlite3_column_double(s.get(), c));
+      ++rows;
+    }
+    if (rows != out.points.size())
+      throw SweepError(fmt::format("{}: {} grid point(s) stored for a grid of {} (damaged)", path, rows, out.points.size()));
+  }
+  {
+    Stmt s(*db, "SELECT idx, status, error, met, judged_on, binding, evaluations, classical_confirmed, optimized_confirmed, "
+                "classical, optimized, search_wall_time_s, point_wall_time_s FROM sweep_results ORDER BY idx");
+    const auto optional_bool = [&](int c) -> std::optional<bool> {
+      if (sqlite3_column_type(s.get(), c) == SQLITE_NULL) return std::nullopt;
+      return s.integer(c) != 0;
+    };
+    while (s.step()) {
+      const std::int64_t idx = s.integer(0);
+      if (idx < 0 || static_cast<std::size_t>(idx) >= out.points.size())
+        throw SweepError(fmt::format("{}: a result for point {} outside the grid (damaged)", path, idx));
+      StoredPoint& p = out.points[static_cast<std::size_t>(idx)];
+      p.finished = true;
+      p.status = s.text(1);
+      p.error = s.text(2);
+      p.met = s.integer(3) != 0;
+      p.judged_on = s.text(4);
+      p.binding = s.text(5);
+      p.evaluations = static_cast<int>(s.integer(6));
+      p.classical_confirmed = optional_bool(7);
+      p.optimized_confirmed = optional_bool(8);
+      p.classical = s.text(9);
+      p.optimized = s.text(10);
+      p.search_wall_time_s = sqlite3_column_double(s.get(), 11);
+      p.point_wall_time_s = sqlite3_column_double(s.get(), 12);
+    }
+  }
+  return out;
 }
 
 }  // namespace specloop

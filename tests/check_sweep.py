@@ -44,6 +44,23 @@ def fnv1a64(data: bytes) -> str:
     return f"{h:016x}"
 
 
+def tightest_ok(row):
+    """Recomputes a met row's binding requirement from its stored linear checks: the least
+    normalized room (limit − value)/|limit| for an upper bound, the reverse for a lower one, a
+    zero limit met exactly (|value| ≤ 1e-9) not counted. The oven spec is judged on the linear loop."""
+    import json
+    checks = json.loads(row[10])["checks"]
+    best, name = None, None
+    for c in checks:
+        if not c["met"] or c["value"] is None or (c["limit"] == 0 and abs(c["value"]) <= 1e-9):
+            continue
+        scale = abs(c["limit"]) if c["limit"] != 0 else 0.01
+        room = (c["limit"] - c["value"]) / scale if c["upper"] else (c["value"] - c["limit"]) / scale
+        if best is None or room < best:
+            best, name = room, c["requirement"]
+    return row[4] == "linear" and row[5] == name
+
+
 def rows(store):
     with sqlite3.connect(f"file:{store}?mode=ro", uri=True) as db:
         return db.execute(f"SELECT {COMPARED} FROM sweep_results ORDER BY idx").fetchall()
@@ -98,8 +115,8 @@ def main() -> int:
                                 "FROM sweep_header").fetchall()
             points = db.execute("SELECT idx, v1, v2 FROM sweep_points ORDER BY idx").fetchall()
             mode = db.execute("PRAGMA journal_mode").fetchone()[0]
-        t.check("store", "one header row, format specloop-sweep-1, 12 points, shard 1/1",
-                len(header) == 1 and header[0][0] == "specloop-sweep-1" and header[0][6] == POINTS
+        t.check("store", "one header row, format specloop-sweep-2, 12 points, shard 1/1",
+                len(header) == 1 and header[0][0] == "specloop-sweep-2" and header[0][6] == POINTS
                 and header[0][5] == "1/1", str(header[0][:2] + header[0][4:]) if header else "none")
         t.check("store", "the spec hash is the FNV-1a 64 of the stored spec text",
                 header[0][3] == fnv1a64(header[0][2].encode()), header[0][3])
@@ -109,8 +126,11 @@ def main() -> int:
                 len(points) == POINTS and all(p[0] == q[0] and abs(p[1] - q[1]) <= 1e-12 * q[1] and p[2] == q[2]
                                               for p, q in zip(points, expected)), str(points[:4]))
         t.check("store", "WAL journal mode", mode == "wal", mode)
-        t.check("store", "met rows carry no binding requirement, missed rows name one",
-                all((row[3] == 1) == (row[5] is None) for row in reference))
+        t.check("store", "every missed row names the requirement missed by the most",
+                all(row[5] is not None for row in reference if row[3] == 0))
+        t.check("store", "a met row's binding requirement has the least room among its linear checks "
+                "(a zero limit met exactly not counted)", all(tightest_ok(row) for row in reference if row[3] == 1),
+                str([row[5] for row in reference if row[3] == 1]))
 
         two = work / "two.sqlite"
         start = time.monotonic()

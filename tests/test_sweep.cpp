@@ -5,7 +5,9 @@
 #include <complex>
 #include <filesystem>
 #include <fstream>
+#include <map>
 #include <random>
+#include <tuple>
 #include <cmath>
 #include <set>
 #include <string>
@@ -13,6 +15,7 @@
 
 #include "specloop/spec.hpp"
 #include "specloop/sweep.hpp"
+#include "specloop/sweep_report.hpp"
 
 using namespace specloop;
 
@@ -235,4 +238,48 @@ TEST_CASE("non-dominated points agree with a brute-force check on random points"
     INFO("trial " << trial << ", " << n << " points, " << k << " objectives");
     REQUIRE(non_dominated(pts) == brute_force_front(pts));
   }
+}
+
+// The outline of flagged map cells, against counting: a set of F unit squares with A edge-adjacent
+// pairs inside it has a boundary of 4F − 2A unit edges (each shared edge removes two), and a
+// boundary made of closed curves meets every vertex an even number of times (Euler's
+// handshake argument for closed walks).
+TEST_CASE("outline of flagged map cells: edge count and closed curves", "[sweep][report]") {
+  std::mt19937_64 rng(777);
+  for (int trial = 0; trial < 300; ++trial) {
+    const std::size_t nx = 1 + rng() % 9, ny = 1 + rng() % 9;
+    std::vector<bool> flagged(nx * ny);
+    const unsigned density = 1 + static_cast<unsigned>(rng() % 4);  // 25 … 100 % of the cells
+    for (std::size_t k = 0; k < flagged.size(); ++k) flagged[k] = (rng() % 4) < density;
+    std::size_t f = 0, adjacent = 0;
+    for (std::size_t j = 0; j < ny; ++j)
+      for (std::size_t i = 0; i < nx; ++i) {
+        if (!flagged[j * nx + i]) continue;
+        ++f;
+        if (i + 1 < nx && flagged[j * nx + i + 1]) ++adjacent;
+        if (j + 1 < ny && flagged[(j + 1) * nx + i]) ++adjacent;
+      }
+    const auto segments = outline_cells(flagged, nx, ny);
+    INFO("trial " << trial << ": " << nx << " x " << ny << ", " << f << " flagged");
+    REQUIRE(segments.size() == 4 * f - 2 * adjacent);
+    std::map<std::pair<long, long>, int> degree;  // vertices at half-integers, doubled to integers
+    std::set<std::tuple<long, long, long, long>> unique;
+    for (const auto& s : segments) {
+      REQUIRE(std::abs(std::abs(s.x1 - s.x0) + std::abs(s.y1 - s.y0) - 1.0) < 1e-12);  // unit, axis-parallel
+      const long a = std::lround(2 * s.x0), b = std::lround(2 * s.y0), c = std::lround(2 * s.x1), d = std::lround(2 * s.y1);
+      REQUIRE(unique.insert({a, b, c, d}).second);
+      ++degree[{a, b}];
+      ++degree[{c, d}];
+    }
+    for (const auto& [vertex, n] : degree) REQUIRE(n % 2 == 0);
+  }
+  // The whole grid flagged: its frame, 2(nx + ny) edges.
+  CHECK(outline_cells(std::vector<bool>(12, true), 4, 3).size() == 14);
+  CHECK(outline_cells(std::vector<bool>(12, false), 4, 3).empty());
+  CHECK_THROWS_AS(outline_cells(std::vector<bool>(5, true), 2, 2), std::invalid_argument);
+}
+
+TEST_CASE("the sweep report's default folder sits beside the store", "[sweep][report]") {
+  CHECK(default_sweep_report_dir("results/oven.sweep.sqlite") == std::filesystem::path("results/oven.sweep-report"));
+  CHECK(default_sweep_report_dir("a.db") == std::filesystem::path("a.db-report"));
 }

@@ -125,6 +125,14 @@ std::optional<double> requirement_value(const Requirement& r, const StepMetrics&
 /// counts as a 100 % miss, an infinite miss as 1000.
 double requirement_violation(const Requirement& r, const std::optional<double>& value);
 
+/// Normalized room left by a value, the same scale as requirement_violation but signed: positive
+/// when met with room, negative when missed; −1 for a missing value.
+double requirement_slack(const Requirement& r, const std::optional<double>& value);
+
+/// The tightest requirement among met checks (smallest slack), ignoring a zero limit met exactly
+/// (zero steady-state error from an integrator is structure, not a trade-off); "" when none.
+std::string tightest_requirement(const std::vector<RequirementCheck>& checks);
+
 // ---- classical design -------------------------------------------------------------------------
 
 /// The desired dominant pole −σ + jω_d from the requirements, and how it was derived.

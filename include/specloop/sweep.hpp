@@ -125,4 +125,31 @@ std::string default_store_path(const std::string& spec_name, const Shard& shard)
 /// Returns the number of finished points in `out`.
 std::size_t merge_stores(const std::string& out, const std::vector<std::string>& inputs);
 
+/// One grid point of a store, with its result when finished.
+struct StoredPoint {
+  std::size_t index = 0;
+  std::vector<double> values;        // one per axis
+  bool finished = false;             // has a result row
+  std::string status;                // "ok" or "error" (finished points)
+  std::string error;                 // the message of an "error" point
+  bool met = false;
+  std::string judged_on, binding;    // binding: "" when none
+  int evaluations = 0;
+  std::optional<bool> classical_confirmed, optimized_confirmed;
+  std::string classical, optimized;  // JSON text (README, "The store"); empty: no such design
+  double search_wall_time_s = 0.0, point_wall_time_s = 0.0;
+};
+
+/// A whole store, read.
+struct SweepStoreContents {
+  std::string path, format, tool_version, spec_name, spec_text, spec_hash, shard;
+  SweepGrid grid;
+  std::vector<StoredPoint> points;   // every grid point, by index
+  std::size_t finished() const;
+};
+
+/// Reads a store (read-only). Throws SweepError for a missing, damaged, truncated, foreign or
+/// other-format file, naming the file and what is wrong.
+SweepStoreContents read_sweep_store(const std::string& path);
+
 }  // namespace specloop
