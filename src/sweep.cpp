@@ -290,6 +290,15 @@ std::unique_ptr<Db> open_store(const std::string& path, bool writable) {
   return db;
 }
 
+/// Opens a store only to read it. Read-write when the file and its folder allow it, so that closing
+/// the last connection checkpoints the WAL and removes the -wal/-shm files (a read-only connection
+/// would leave them beside the store); read-only otherwise. Nothing is written either way.
+std::unique_ptr<Db> open_store_for_reading(const std::string& path) {
+  const fs::path parent = fs::path(path).parent_path().empty() ? fs::path(".") : fs::path(path).parent_path();
+  const bool writable = ::access(path.c_str(), W_OK) == 0 && ::access(parent.c_str(), W_OK) == 0;
+  return open_store(path, writable);
+}
+
 Header read_header(const Db& db) {
   Stmt s(db, "SELECT format, tool_version, spec_name, spec_text, spec_hash, grid, shard, point_count FROM sweep_header");
   if (!s.step()) throw SweepError(fmt::format("{}: the specloop store has no header row (damaged)", db.path()));
@@ -650,7 +659,7 @@ std::size_t merge_stores(const std::string& out, const std::vector<std::string>&
   std::vector<Input> in;
   for (const auto& path : inputs) {
     if (!fs::exists(path)) throw SweepError(fmt::format("{}: no such file", path));
-    auto db = open_store(path, false);
+    auto db = open_store_for_reading(path);
     Header h = read_header(*db);
     in.push_back({path, std::move(db), std::move(h)});
   }
@@ -738,7 +747,7 @@ SweepStoreContents read_sweep_store(const std::string& path) {
   std::error_code ec;
   if (!fs::exists(path, ec)) throw SweepError(fmt::format("{}: no such file", path));
   if (fs::is_directory(path, ec)) throw SweepError(fmt::format("{}: a folder, not a sweep store", path));
-  auto db = open_store(path, false);
+  auto db = open_store_for_reading(path);
   const Header h = read_header(*db);
   SweepStoreContents out;
   out.path = path;
