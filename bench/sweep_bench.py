@@ -12,15 +12,19 @@ import tempfile
 import time
 
 
-def run(cmd, cwd):
-    """Runs one sweep; returns (seconds, max RSS in MiB) of that child alone (wait4)."""
+def run(cmd, cwd, store=None):
+    """Runs one sweep (on a fresh store); returns (seconds, max RSS in MiB, CPU seconds) of that
+    child alone (wait4)."""
+    if store is not None:
+        for suffix in ("", "-wal", "-shm"):
+            pathlib.Path(cwd, store + suffix).unlink(missing_ok=True)
     start = time.monotonic()
     proc = subprocess.Popen(cmd, cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     _, status, usage = os.wait4(proc.pid, 0)
     seconds = time.monotonic() - start
     if os.waitstatus_to_exitcode(status) != 0:
         sys.exit(f"sweep failed: {' '.join(cmd)}: {proc.stderr.read().decode()}")
-    return seconds, usage.ru_maxrss / 1024.0
+    return seconds, usage.ru_maxrss / 1024.0, usage.ru_utime + usage.ru_stime
 
 
 def main() -> int:
@@ -29,6 +33,8 @@ def main() -> int:
     ap.add_argument("--spec", required=True)
     ap.add_argument("--size", type=int, default=20, help="points per axis (default 20: 400 points)")
     ap.add_argument("--max-evaluations", type=int, default=2000, help="search budget per point")
+    ap.add_argument("--rounds", type=int, default=2, help="1-job and 2-job runs alternated this many times; the "
+                    "fastest of each is compared (the least disturbed by other work on the machine)")
     args = ap.parse_args()
     exe = str(pathlib.Path(args.specloop).resolve())
     n = args.size
@@ -40,19 +46,27 @@ def main() -> int:
         spec.write_text(text + f"\n[search]\nmax_evaluations = {args.max_evaluations}\n")
         vary = ["--vary", f"requirements.overshoot_max_pct=2:20:{n}", "--vary", f"requirements.effort_max=8:24:{n}"]
         small = ["--vary", "requirements.overshoot_max_pct=2:20:2", "--vary", "requirements.effort_max=8:24:2"]
-        t_small, rss_small = run([exe, "sweep", str(spec), *small, "--jobs", "1", "--store", "s.sqlite"], work)
+        t_small, rss_small, _ = run([exe, "sweep", str(spec), *small, "--jobs", "1", "--store", "s.sqlite"], work)
         size_small = pathlib.Path(work, "s.sqlite").stat().st_size
-        t1, rss1 = run([exe, "sweep", str(spec), *vary, "--jobs", "1", "--store", "a.sqlite"], work)
-        t2, rss2 = run([exe, "sweep", str(spec), *vary, "--jobs", "2", "--store", "b.sqlite"], work)
+        ones, twos = [], []
+        load_before = os.getloadavg()[0]
+        for _ in range(max(1, args.rounds)):
+            ones.append(run([exe, "sweep", str(spec), *vary, "--jobs", "1", "--store", "a.sqlite"], work, "a.sqlite"))
+            twos.append(run([exe, "sweep", str(spec), *vary, "--jobs", "2", "--store", "b.sqlite"], work, "b.sqlite"))
+        t1, rss1, cpu1 = min(ones)
+        t2, rss2, cpu2 = min(twos)
         size = pathlib.Path(work, "a.sqlite").stat().st_size
         points = n * n
         print(f"{points} points of {pathlib.Path(args.spec).name}, max_evaluations {args.max_evaluations}, "
-              f"{os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f}")
+              f"{os.cpu_count()} cores, load average {load_before:.1f} before, {os.getloadavg()[0]:.1f} after; "
+              f"fastest of {max(1, args.rounds)} alternated runs each")
         print(f"jobs 1: {points / t1:.2f} points/s ({t1:.1f} s)")
         print(f"jobs 2: {points / t2:.2f} points/s ({t2:.1f} s)")
         speedup = t1 / t2
         print(f"speed-up 2 jobs / 1 job: {speedup:.2f}x (target >= 1.8x on two free cores: "
               f"{'PASS' if speedup >= 1.8 else 'MISS'})")
+        print(f"CPU time: {cpu1:.1f} s on 1 job, {cpu2:.1f} s on 2 jobs (work added by running in parallel: "
+              f"{(cpu2 / cpu1 - 1) * 100:+.1f} %; the speed-up can reach {2 * cpu1 / cpu2:.2f}x when both cores are free)")
         print(f"store: {size} bytes for {points} points, {(size - size_small) / (points - 4):.0f} bytes per point "
               f"(the 4-point store: {size_small} bytes)")
         print(f"peak memory: {rss_small:.1f} MiB for 4 points, {rss1:.1f} MiB for {points} (ratio "
