@@ -103,6 +103,15 @@ std::string metric_label(const std::string& m) {
   return m;
 }
 
+// A member of a stored JSON object, or null when the object lacks it (a damaged or older row must
+// not reach json's unchecked const operator[]).
+const json& member(const json& j, const char* key) {
+  static const json none;
+  if (!j.is_object()) return none;
+  const auto it = j.find(key);
+  return it == j.end() ? none : *it;
+}
+
 std::optional<double> number_at(const json& j, std::initializer_list<const char*> path) {
   const json* node = &j;
   for (const char* key : path) {
@@ -172,11 +181,11 @@ std::optional<double> optimized_metric(const PointView& v, const std::string& me
   if (v.optimized.is_null()) return std::nullopt;
   const json* m = nullptr;
   if (nonlinear) {
-    const json& nl = v.optimized["nonlinear"];
+    const json& nl = member(v.optimized, "nonlinear");
     if (!nl.is_object() || nl.value("status", std::string()) != "ok") return std::nullopt;
-    m = &nl["metrics"];
+    m = &member(nl, "metrics");
   } else {
-    m = &v.optimized["linear"];
+    m = &member(v.optimized, "linear");
   }
   if (metric == "peak_time") {
     const auto overshoot = number_at(*m, {"overshoot_pct"});
@@ -199,10 +208,10 @@ GainSet gain_set(const std::vector<PointView>& views) {
   for (const PointView& v : views) {
     if (v.optimized.is_null()) continue;
     any = true;
-    const json& c = v.optimized["controller"];
-    if (!c["parallel"].is_object()) all_parallel = false;
-    if (c["series"].is_object())
-      for (const auto& [name, value] : c["series"].items())
+    const json& c = member(v.optimized, "controller");
+    if (!member(c, "parallel").is_object()) all_parallel = false;
+    if (member(c, "series").is_object())
+      for (const auto& [name, value] : member(c, "series").items())
         if (std::find(series_names.begin(), series_names.end(), name) == series_names.end()) series_names.push_back(name);
   }
   if (!any) return g;
@@ -212,7 +221,7 @@ GainSet gain_set(const std::vector<PointView>& views) {
     bool nonzero = false;
     for (const PointView& v : views) {
       if (v.optimized.is_null()) continue;
-      const auto value = number_at(v.optimized["controller"], {g.form.c_str(), name.c_str()});
+      const auto value = number_at(member(v.optimized, "controller"), {g.form.c_str(), name.c_str()});
       if (value && *value != 0.0) nonzero = true;
     }
     if (nonzero) g.names.push_back(name);
@@ -221,7 +230,7 @@ GainSet gain_set(const std::vector<PointView>& views) {
 }
 std::optional<double> gain_of(const PointView& v, const GainSet& g, const std::string& name) {
   if (v.optimized.is_null()) return std::nullopt;
-  return number_at(v.optimized["controller"], {g.form.c_str(), name.c_str()});
+  return number_at(member(v.optimized, "controller"), {g.form.c_str(), name.c_str()});
 }
 
 // ---- the slice the maps show ---------------------------------------------------------------------
@@ -512,8 +521,8 @@ void write_points_csv(const ReportInputs& in, const fs::path& path) {
     }
   std::vector<std::string> series_names;
   for (const PointView& v : in.views)
-    if (!v.optimized.is_null() && v.optimized["controller"]["series"].is_object())
-      for (const auto& [name, value] : v.optimized["controller"]["series"].items())
+    if (const json& series = member(member(v.optimized, "controller"), "series"); series.is_object())
+      for (const auto& [name, value] : series.items())
         if (std::find(series_names.begin(), series_names.end(), name) == series_names.end()) series_names.push_back(name);
   for (const auto& n : series_names) header.push_back("optimized_series_" + n);
   for (const char* c : {"search_wall_time_s", "point_wall_time_s", "error"}) header.emplace_back(c);
@@ -686,7 +695,22 @@ std::string data_value(const std::optional<double>& v) {
 
 }  // namespace
 
+namespace {
+SweepReportOutcome write_report(const SweepStoreContents& store, const fs::path& dir, const SweepReportOptions& options);
+}  // namespace
+
 SweepReportOutcome write_sweep_report(const SweepStoreContents& store, const fs::path& dir, const SweepReportOptions& options) {
+  try {
+    return write_report(store, dir, options);
+  } catch (const json::exception& e) {
+    throw SweepError(fmt::format("{}: a stored design summary does not have the expected form (damaged, or written by "
+                                 "another specloop): {}", store.path, e.what()));
+  }
+}
+
+namespace {
+
+SweepReportOutcome write_report(const SweepStoreContents& store, const fs::path& dir, const SweepReportOptions& options) {
   ReportInputs in{store, options, {}, {}, {}, 2.0, true, {}, {}, {}, {}};
   if (store.grid.axes.empty()) throw SweepError(fmt::format("{}: the store has no axes (damaged)", store.path));
   if (store.finished() == 0)
@@ -937,5 +961,7 @@ SweepReportOutcome write_sweep_report(const SweepStoreContents& store, const fs:
   outcome.points_csv = target / "points.csv";
   return outcome;
 }
+
+}  // namespace
 
 }  // namespace specloop

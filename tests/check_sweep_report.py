@@ -383,7 +383,19 @@ def main():
         shutil.copy(store, empty)
         with sqlite3.connect(empty) as db:
             db.execute("DELETE FROM sweep_results")
+        garbled = work / "garbled.sqlite"
+        shutil.copy(store, garbled)
+        with sqlite3.connect(garbled) as db:
+            db.execute("UPDATE sweep_results SET optimized = '{oops' WHERE idx = (SELECT min(idx) FROM sweep_results "
+                       "WHERE optimized IS NOT NULL)")
+        misshapen = work / "misshapen.sqlite"
+        shutil.copy(store, misshapen)
+        with sqlite3.connect(misshapen) as db:
+            db.execute("""UPDATE sweep_results SET optimized = '{"nonlinear": {"status": 7}, "linear": {}}' """
+                       "WHERE idx = (SELECT min(idx) FROM sweep_results WHERE met = 1)")
         cases = [
+            ("design summary not JSON", [str(garbled)], "not valid JSON"),
+            ("design summary of another form", [str(misshapen)], "does not have the expected form"),
             ("missing file", [str(work / "nowhere.sqlite")], "no such file"),
             ("truncated", [str(truncated)], "not a usable specloop sweep store"),
             ("not SQLite", [str(text_file)], "not a usable specloop sweep store"),
