@@ -189,7 +189,7 @@ std::string duration_text(double s) {
 }
 
 int run_sweep_command(const std::string& spec_path, const std::vector<std::string>& vary, const std::string& store,
-                      unsigned jobs, const std::string& shard_text) {
+                      unsigned jobs, const std::string& shard_text, const std::string& point_reports) {
   const SweepSpec spec(spec_path);
   SweepGrid grid;
   for (const auto& v : vary.empty() ? spec.vary_in_file() : vary) grid.axes.push_back(parse_sweep_axis(v));
@@ -197,6 +197,7 @@ int run_sweep_command(const std::string& spec_path, const std::vector<std::strin
   if (!shard_text.empty()) options.shard = parse_shard(shard_text);
   options.store_path = store.empty() ? default_store_path(spec.name(), options.shard) : store;
   options.jobs = jobs;
+  options.point_reports = point_reports;
   options.stop = &g_stop;
   const bool terminal = isatty(STDOUT_FILENO) != 0;
   double last_line = -1.0;
@@ -256,7 +257,7 @@ int main(int argc, char** argv) {
   design->add_option("--out", out_dir, "output folder (default results/<spec name>/)");
 
   std::vector<std::string> vary;
-  std::string store, shard;
+  std::string store, shard, point_reports;
   unsigned jobs = std::max(1u, std::thread::hardware_concurrency());
   auto* sweep = app.add_subcommand("sweep", "Design the spec over a grid of values of its numeric keys; results "
                                             "in a resumable SQLite store");
@@ -266,6 +267,8 @@ int main(int argc, char** argv) {
   sweep->add_option("--store", store, "SQLite store (default results/<spec name>.sweep.sqlite)");
   sweep->add_option("--jobs", jobs, "points designed at once (default: all cores)")->check(CLI::Range(1u, 4096u));
   sweep->add_option("--shard", shard, "K/N: only the points with index % N == K - 1");
+  sweep->add_option("--point-reports", point_reports, "also write each point's full design report into "
+                                                      "DIR/point-<index>/ (the points designed in this run)");
 
   std::string merge_out;
   std::vector<std::string> merge_in;
@@ -313,7 +316,7 @@ int main(int argc, char** argv) {
       print_design(run, outcome);
       return run.met ? 0 : 1;
     }
-    if (*sweep) return run_sweep_command(spec_path, vary, store, jobs, shard);
+    if (*sweep) return run_sweep_command(spec_path, vary, store, jobs, shard, point_reports);
     if (*sweep_report) {
       const SweepStoreContents contents = read_sweep_store(report_store);
       SweepReportOptions options;

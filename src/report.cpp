@@ -581,7 +581,8 @@ std::vector<Section> sections(const DesignRun& run, const ReportOutcome& outcome
   }
   {  // The spec as read.
     std::string text;
-    if (spec.path != "<string>" && fs::exists(spec.path)) text = read_text(spec.path);
+    if (!spec.source_text.empty()) text = spec.source_text;
+    else if (spec.path != "<string>" && fs::exists(spec.path)) text = read_text(spec.path);
     else text = spec_json(spec).dump(2);
     const std::string intro = fmt::format("From {} (every default filled in, as normalized, is in result.json under \"spec\").", spec.path);
     Section s{"spec", "The spec as read", paragraph_html(intro) + "<pre>" + escape_html(text) + "</pre>\n",

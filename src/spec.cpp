@@ -1146,7 +1146,9 @@ Spec parse_spec(std::string_view text, const std::string& path) {
     throw SpecError(
         fmt::format("{}:{}:{}: invalid TOML: {}", path, at.line, at.column, error.description()));
   }
-  return SpecReader(document, path).read();
+  Spec spec = SpecReader(document, path).read();
+  spec.source_text = std::string(text);
+  return spec;
 }
 
 Spec load_spec(const std::string& path) {

@@ -24,6 +24,7 @@
 
 #include "specloop/design.hpp"
 #include "specloop/json_io.hpp"
+#include "specloop/report.hpp"
 #include "specloop/spec.hpp"
 #include "specloop/sweep.hpp"
 
@@ -445,13 +446,25 @@ struct PointRow {
   double search_wall_time_s = 0.0, point_wall_time_s = 0.0;
 };
 
-PointRow run_point(const SweepSpec& spec, const SweepGrid& grid, std::size_t index) {
+PointRow run_point(const SweepSpec& spec, const SweepGrid& grid, std::size_t index, const std::string& reports) {
   const auto start = std::chrono::steady_clock::now();
   PointRow row;
   row.index = index;
   try {
-    const Spec point = parse_spec(spec.point_text(grid, index), spec.path());
+    Spec point = parse_spec(spec.point_text(grid, index), spec.path());
+    // Messages and reports of this point name it with its values.
+    const auto values = grid.point(index);
+    std::string named;
+    for (std::size_t a = 0; a < values.size(); ++a) named += fmt::format("{}{} = {}", a ? ", " : "", grid.axes[a].key, values[a]);
+    point.path = fmt::format("{} [sweep point {}: {}]", spec.path(), index, named);
     const DesignRun run = run_design(point);
+    if (!reports.empty()) {
+      try {
+        write_design_outputs(run, fs::path(reports) / point_report_name(index, grid.size()));
+      } catch (const std::exception& e) {
+        throw std::runtime_error(fmt::format("the point's report could not be written: {}", e.what()));
+      }
+    }
     row.met = run.met;
     row.judged_on = run.judged_on_nonlinear ? "nonlinear" : "linear";
     // The binding requirement: missed by the most when infeasible, else the tightest at the optimum
@@ -509,6 +522,11 @@ void insert_row(Stmt& s, const PointRow& r) {
 // ---------------------------------------------------------------------------------------------
 // The sweep
 // ---------------------------------------------------------------------------------------------
+
+std::string point_report_name(std::size_t index, std::size_t grid_size) {
+  const std::size_t width = fmt::format("{}", grid_size > 0 ? grid_size - 1 : 0).size();
+  return fmt::format("point-{:0{}}", index, width);
+}
 
 std::string default_store_path(const std::string& spec_name, const Shard& shard) {
   const std::string shard_part = shard.n == 1 ? "" : fmt::format(".shard-{}-of-{}", shard.k, shard.n);
@@ -604,7 +622,7 @@ SweepOutcome run_sweep(const SweepSpec& spec, const SweepGrid& grid, const Sweep
         if (options.stop && options.stop->load()) break;
         const std::size_t k = next.fetch_add(1);
         if (k >= todo.size()) break;
-        PointRow row = run_point(spec, grid, todo[k]);
+        PointRow row = run_point(spec, grid, todo[k], options.point_reports);
         std::lock_guard lock(mutex);
         queue.push_back(std::move(row));
         ready.notify_one();

@@ -355,6 +355,25 @@ def main():
         else:
             t.check("browser", "chromium found (Debian package chromium)", False, args.chromium)
 
+        # --point-reports: a full design report per point designed in this run, for that point's spec.
+        small = work / "small.sqlite"
+        reports = work / "points"
+        r = subprocess.run([exe, "sweep", str(spec), "--vary", "requirements.overshoot_max_pct=6,14", "--store", str(small),
+                            "--jobs", "2", "--point-reports", str(reports)], capture_output=True, text=True, timeout=300)
+        ok = r.returncode == 0 and sorted(p.name for p in reports.iterdir()) == ["point-0", "point-1"]
+        if ok:
+            _, small_results, _ = store_rows(small)
+            for i, limit in enumerate((6.0, 14.0)):
+                res = json.loads((reports / f"point-{i}" / "result.json").read_text())
+                page = (reports / f"point-{i}" / "report.md").read_text()
+                stored = small_results[i]["optimized"]["linear"]
+                ok = ok and res["spec"]["requirements"]["overshoot_max_pct"] == limit
+                ok = ok and f"overshoot_max_pct = {limit}" in page and f"sweep point {i}" in page
+                ok = ok and all(close(res["designs"]["optimized"]["simulated"][m], stored[m], 1e-12)
+                                for m in ("overshoot_pct", "effort_peak", "itae"))
+        t.check("point reports", "one design report per point, for that point's spec, agreeing with the store", ok,
+                r.stderr.strip()[-300:])
+
         # A part-finished store: the missing points show as not run.
         part = work / "part.sqlite"
         shutil.copy(store, part)

@@ -153,6 +153,7 @@ struct ReferenceSpec {
 struct Spec {
   std::string path;                           // file it was read from ("<string>" for text)
   std::string name;                           // file stem, used for default output folders
+  std::string source_text;                    // the TOML text parsed (what a report shows as "the spec as read")
   std::string title;
   PlantSpec plant;
   ActuatorSpec actuator;

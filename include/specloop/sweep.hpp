@@ -100,6 +100,9 @@ struct SweepOutcome {
 
 struct SweepOptions {
   std::string store_path;
+  /// When set, each point designed in this run also gets its full design report (report.html,
+  /// report.md, result.json, series, plots) in <point_reports>/point-<index>/.
+  std::string point_reports;
   unsigned jobs = 1;
   Shard shard;
   /// Set asynchronously (SIGINT): no new point starts; points in flight finish and are stored.
@@ -115,6 +118,10 @@ struct SweepOptions {
 /// opens or creates the store (refusing a store of another spec, grid or shard), runs the points
 /// not yet finished on `jobs` threads and commits each in its own transaction.
 SweepOutcome run_sweep(const SweepSpec& spec, const SweepGrid& grid, const SweepOptions& options);
+
+/// The folder of one point's design report: "point-" and the index, zero-padded to the width of
+/// the grid's largest index.
+std::string point_report_name(std::size_t index, std::size_t grid_size);
 
 /// The default store path: results/<name>.sweep.sqlite, with ".shard-K-of-N" before ".sqlite"
 /// for a shard other than 1/1.
