@@ -95,11 +95,12 @@ struct PackOf<4> {
   typedef std::uint64_t bits __attribute__((vector_size(32)));
 };
 
-#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__))
+#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__)) && !defined(SPECLOOP_NO_AVX)
 #define SPECLOOP_AVX_KERNELS 1
 // The AVX variants below (recurrence, sample scan, sums) do the same arithmetic as the SSE2
 // ones on twice the lanes, so they give the same bits; they are compiled for "avx" only (no
-// fused multiply-add) and chosen at run time.
+// fused multiply-add) and chosen at run time. Defining SPECLOOP_NO_AVX leaves them out (to
+// compare the two builds' results).
 bool has_avx() {
   static const bool avx = __builtin_cpu_supports("avx");
   return avx;
