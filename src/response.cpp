@@ -10,6 +10,7 @@
 #include <boost/math/tools/toms748_solve.hpp>
 
 #include <algorithm>
+#include <atomic>
 #include <bit>
 #include <cmath>
 #include <cstring>
@@ -101,9 +102,10 @@ struct PackOf<4> {
 // ones on twice the lanes, so they give the same bits; they are compiled for "avx" only (no
 // fused multiply-add) and chosen at run time. Defining SPECLOOP_NO_AVX leaves them out (to
 // compare the two builds' results).
+std::atomic<bool> g_portable_kernels{false};
 bool has_avx() {
   static const bool avx = __builtin_cpu_supports("avx");
-  return avx;
+  return avx && !g_portable_kernels.load(std::memory_order_relaxed);
 }
 #endif
 
@@ -930,5 +932,22 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   }
   return StepStatus::ok;
 }
+
+namespace detail {
+void use_portable_kernels(bool portable) {
+#if defined(SPECLOOP_AVX_KERNELS)
+  g_portable_kernels.store(portable, std::memory_order_relaxed);
+#else
+  (void)portable;
+#endif
+}
+bool wide_kernels_available() {
+#if defined(SPECLOOP_AVX_KERNELS)
+  return __builtin_cpu_supports("avx");
+#else
+  return false;
+#endif
+}
+}  // namespace detail
 
 }  // namespace specloop

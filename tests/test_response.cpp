@@ -3,6 +3,7 @@
 #include <catch2/catch.hpp>
 #include <cmath>
 #include <numbers>
+#include <random>
 
 #include "specloop/response.hpp"
 #include "specloop/second_order.hpp"
@@ -175,4 +176,56 @@ TEST_CASE("band entry when the rise jumps across the whole band between two samp
   REQUIRE(m.band_entry_time_s);
   CHECK_THAT(*m.band_entry_time_s, WithinAbs(0.5 * (lo + hi), 0.05));  // the cubic on a coarse grid
   CHECK(*m.band_entry_time_s < kPi / wd);                             // before the peak, not after
+}
+
+TEST_CASE("wide (AVX) and portable simulator kernels give the same bits", "[response]") {
+  // The wide variants reorder nothing (same sums in the same order, no fused multiply-add), so
+  // every sample and every metric must be identical, not merely close. Loops of 1 … 9 states,
+  // proportional (effort affine in y) and PI (effort with its own state) controllers.
+  if (!detail::wide_kernels_available()) WARN("no AVX on this processor: both runs take the portable kernels");
+  std::mt19937_64 rng(4242);
+  std::uniform_real_distribution<double> rate(0.3, 30.0), im(0.5, 8.0), gain(0.2, 3.0);
+  int compared = 0;
+  for (int trial = 0; trial < 60; ++trial) {
+    const int order = 1 + trial % 8;
+    Polynomial den({1.0});
+    for (int k = 0; k < order;) {
+      if (order - k >= 2 && rng() % 2) {
+        const double s = rate(rng), w = im(rng);
+        den = den * Polynomial({1.0, 2 * s, s * s + w * w});
+        k += 2;
+      } else {
+        den = den * Polynomial({1.0, rate(rng)});
+        k += 1;
+      }
+    }
+    const TransferFunction plant(Polynomial({den.constant() * gain(rng)}), den);
+    const bool pi = trial % 2 == 1;
+    const StateSpace controller = pi ? realize(TransferFunction(Polynomial({0.3, 0.2}), Polynomial({1.0, 0.0})))
+                                     : static_gain(0.5);
+    const StateSpace loop = close_loop(realize(plant), controller);
+    StepSimulator wide, portable;
+    StepMetrics mw, mp;
+    StepTrace tw, tp;
+    detail::use_portable_kernels(false);
+    const StepStatus sw = wide.simulate(loop, 1.5, 0.02, mw, &tw);
+    detail::use_portable_kernels(true);
+    const StepStatus sp = portable.simulate(loop, 1.5, 0.02, mp, &tp);
+    detail::use_portable_kernels(false);
+    INFO("trial " << trial << ", order " << order << (pi ? ", PI" : ", P"));
+    REQUIRE(sw == sp);
+    if (sw != StepStatus::ok) continue;
+    ++compared;
+    REQUIRE(tw.output == tp.output);
+    REQUIRE(tw.effort == tp.effort);
+    CHECK(mw.overshoot_pct == mp.overshoot_pct);
+    CHECK(mw.peak_time_s == mp.peak_time_s);
+    CHECK(mw.settling_time_s == mp.settling_time_s);
+    CHECK(mw.rise_time_s == mp.rise_time_s);
+    CHECK(mw.effort_peak == mp.effort_peak);
+    CHECK(mw.iae == mp.iae);
+    CHECK(mw.ise == mp.ise);
+    CHECK(mw.itae == mp.itae);
+  }
+  CHECK(compared >= 30);
 }

@@ -108,4 +108,12 @@ class StepSimulator {
   std::vector<std::uint64_t> below_bits_, outside_bits_;
 };
 
+namespace detail {
+/// The simulator's inner loops have wider (AVX) variants chosen at run time when the processor has
+/// AVX; they give the same bits as the portable (SSE2) ones. Tests force the portable ones to
+/// compare both on this machine. Not thread-safe to change while simulations run.
+void use_portable_kernels(bool portable);
+bool wide_kernels_available();  // compiled in and supported by this processor
+}  // namespace detail
+
 }  // namespace specloop
