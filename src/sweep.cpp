@@ -446,6 +446,14 @@ struct PointRow {
   double search_wall_time_s = 0.0, point_wall_time_s = 0.0;
 };
 
+/// "key = value, key = value" of one grid point.
+std::string point_values_text(const SweepGrid& grid, std::size_t index) {
+  const auto v = grid.point(index);
+  std::string text;
+  for (std::size_t a = 0; a < v.size(); ++a) text += fmt::format("{}{} = {}", a ? ", " : "", grid.axes[a].key, v[a]);
+  return text;
+}
+
 PointRow run_point(const SweepSpec& spec, const SweepGrid& grid, std::size_t index, const std::string& reports) {
   const auto start = std::chrono::steady_clock::now();
   PointRow row;
@@ -453,10 +461,7 @@ PointRow run_point(const SweepSpec& spec, const SweepGrid& grid, std::size_t ind
   try {
     Spec point = parse_spec(spec.point_text(grid, index), spec.path());
     // Messages and reports of this point name it with its values.
-    const auto values = grid.point(index);
-    std::string named;
-    for (std::size_t a = 0; a < values.size(); ++a) named += fmt::format("{}{} = {}", a ? ", " : "", grid.axes[a].key, values[a]);
-    point.path = fmt::format("{} [sweep point {}: {}]", spec.path(), index, named);
+    point.path = fmt::format("{} [sweep point {}: {}]", spec.path(), index, point_values_text(grid, index));
     const DesignRun run = run_design(point);
     if (!reports.empty()) {
       try {
@@ -544,9 +549,7 @@ SweepOutcome run_sweep(const SweepSpec& spec, const SweepGrid& grid, const Sweep
     try {
       (void)parse_spec(spec.point_text(grid, i), spec.path());
     } catch (const SpecError& e) {
-      const auto v = grid.point(i);
-      std::string values;
-      for (std::size_t a = 0; a < v.size(); ++a) values += fmt::format("{}{} = {}", a ? ", " : "", grid.axes[a].key, v[a]);
+      const std::string values = point_values_text(grid, i);
       std::string why = e.what();
       // The line numbers refer to the re-written point text, not the file: drop them.
       if (why.rfind(spec.path() + ":", 0) == 0) {
