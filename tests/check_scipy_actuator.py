@@ -37,7 +37,7 @@ import numpy as np
 from scipy import signal
 from scipy.integrate import solve_ivp
 
-from check_scipy_nonlinear import pid_gains, run_probe
+from check_scipy_nonlinear import pid_gains, probe_case
 from reference_common import TerminalEvents, Tally, sample_segments
 
 TOL_TRACE = 1e-4
@@ -236,17 +236,10 @@ def main():
     amplitude = 1.0
     for case in CASES:
         name = case["name"]
-        rc, out, err = run_probe(args.nonlinear_probe, probe_input(case, amplitude))
-        if rc != 0:
-            tally.check(name, "probe ran", False, err.strip())
+        run = probe_case(tally, args.nonlinear_probe, name, probe_input(case, amplitude))
+        if run is None:
             continue
-        res = json.loads(out)
-        if res["status"] != "ok":
-            tally.check(name, "status ok", False, res["status"] + " " + "; ".join(res["notes"]))
-            continue
-        t = np.array(res["time"])
-        y = np.array(res["output"])
-        u = np.array(res["control"])
+        res, t, y, u = run
         y_ref, u_ref, beyond, slewing = reference(case, amplitude, t, res["noise"])
         dy = np.max(np.abs(y - y_ref)) / abs(amplitude)
         du = np.max(np.abs(u - u_ref)) / max(np.max(np.abs(u_ref)), 1e-300)

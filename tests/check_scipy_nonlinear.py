@@ -506,6 +506,20 @@ def run_probe(probe, payload):
     return proc.returncode, proc.stdout, proc.stderr
 
 
+def probe_case(tally, probe, name, payload):
+    """Runs one case through the probe; returns (result, t, y, u), or None after recording why
+    the probe gave no usable run."""
+    rc, out, err = run_probe(probe, payload)
+    if rc != 0:
+        tally.check(name, "probe ran", False, err.strip())
+        return None
+    res = json.loads(out)
+    if res["status"] != "ok":
+        tally.check(name, "status ok", False, res["status"] + " " + "; ".join(res["notes"]))
+        return None
+    return res, np.array(res["time"]), np.array(res["output"]), np.array(res["control"])
+
+
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--specloop")
@@ -517,17 +531,10 @@ def main():
     amplitude = 1.0
     for case in CASES:
         name = case["name"]
-        rc, out, err = run_probe(args.nonlinear_probe, probe_input(case, amplitude))
-        if rc != 0:
-            tally.check(name, "probe ran", False, err.strip())
+        run = probe_case(tally, args.nonlinear_probe, name, probe_input(case, amplitude))
+        if run is None:
             continue
-        res = json.loads(out)
-        if res["status"] != "ok":
-            tally.check(name, "status ok", False, res["status"] + " " + "; ".join(res["notes"]))
-            continue
-        t = np.array(res["time"])
-        y = np.array(res["output"])
-        u = np.array(res["control"])
+        res, t, y, u = run
         y_ref, u_ref, sat_ref = reference(case, amplitude, t)
         dy = np.max(np.abs(y - y_ref)) / abs(amplitude)
         du = np.max(np.abs(u - u_ref)) / max(np.max(np.abs(u_ref)), 1e-300)
