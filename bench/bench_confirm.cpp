@@ -148,7 +148,7 @@ int main(int argc, char** argv) {
     j["controller"]["structure_series"] = d->controller.series;
     if (d->controller.parallel) {
       const ParallelGains& g = *d->controller.parallel;
-      j["controller"]["parallel"] = {{"kp", g.kp}, {"ki", g.ki}, {"kd", g.kd}, {"tf", g.tf}};
+      j["controller"]["parallel"] = {{"kp", g.kp}, {"ki", g.ki}, {"kd", g.kd}, {"filter_time", g.filter_time}};
     }
     j["controller"]["numerator"] = d->controller.transfer.numerator.coefficients;
     j["controller"]["denominator"] = d->controller.transfer.denominator.coefficients;

@@ -50,9 +50,9 @@ class Loop:
         self.parallel = "parallel" in ctl
         if self.parallel:
             g = ctl["parallel"]
-            self.kp, self.ki, self.kd, self.tf = g["kp"], g["ki"], g["kd"], g["tf"]
+            self.kp, self.ki, self.kd, self.tf = g["kp"], g["ki"], g["kd"], g["filter_time"]
             self.has_d = self.kd != 0.0
-            self.clamp = o["anti_windup"] == "clamping" and self.ki != 0.0
+            self.clamp = o["anti_windup"] == "conditional-integration" and self.ki != 0.0
             if o["anti_windup"] == "back-calculation" and self.ki != 0.0:
                 raise NotImplementedError("back-calculation")
             self.size = self.n + 1 + (1 if self.has_d else 0)  # [x | I | z]

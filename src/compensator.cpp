@@ -176,9 +176,9 @@ TransferFunction reference_path(const Controller& c, double b, double cw) {
   const bool integral = g.ki != 0.0, derivative = g.kd != 0.0;
   Polynomial den({1.0});
   if (integral) den = den * Polynomial({1.0, 0.0});
-  if (derivative) den = den * Polynomial({g.tf, 1.0});
+  if (derivative) den = den * Polynomial({g.filter_time, 1.0});
   Polynomial num = (g.kp * b) * den;
-  if (integral) num = num + g.ki * (derivative ? Polynomial({g.tf, 1.0}) : Polynomial({1.0}));
+  if (integral) num = num + g.ki * (derivative ? Polynomial({g.filter_time, 1.0}) : Polynomial({1.0}));
   if (derivative) num = num + (g.kd * cw) * (integral ? Polynomial({1.0, 0.0, 0.0}) : Polynomial({1.0, 0.0}));
   // Express over C's own denominator (same roots, possibly another scaling).
   const double scale = c.transfer.denominator.leading() / den.leading();

@@ -207,7 +207,7 @@ json design_json(const Design& d) {
   json parallel = nullptr, standard = nullptr;
   if (c.parallel)
     parallel = {{"kp", number_json(c.parallel->kp)}, {"ki", number_json(c.parallel->ki)},
-                {"kd", number_json(c.parallel->kd)}, {"tf", number_json(c.parallel->tf)}};
+                {"kd", number_json(c.parallel->kd)}, {"filter_time", number_json(c.parallel->filter_time)}};
   if (c.standard)
     standard = {{"kp", number_json(c.standard->kp)},
                 {"ti", c.standard->has_integral ? number_json(c.standard->ti) : json(nullptr)},

@@ -103,7 +103,7 @@ StateSpace static_gain(double k) {
   return ss;
 }
 
-StateSpace series(const StateSpace& first, const StateSpace& second) {
+StateSpace cascade(const StateSpace& first, const StateSpace& second) {
   const int n1 = first.states(), n2 = second.states();
   StateSpace ss;
   ss.A = Eigen::MatrixXd::Zero(n1 + n2, n1 + n2);
@@ -223,7 +223,7 @@ StateSpace realize(const TransferFunction& g) {
       std::copy(num.coefficients.begin(), num.coefficients.end(), b.end() - static_cast<std::ptrdiff_t>(num.coefficients.size()));
       block = second_order_section(den.coefficients[1], den.coefficients[2], b[0], b[1], b[2]);
     }
-    result = first ? series(block, result) : series(result, block);
+    result = first ? cascade(block, result) : cascade(result, block);
     first = false;
   }
   if (sections.empty()) return static_gain(k);

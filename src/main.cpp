@@ -151,7 +151,7 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
     fmt::print("\n");
     if (c.parallel)
       fmt::print("  parallel: Kp = {:.5g}, Ki = {:.5g}, Kd = {:.5g}, Tf = {:.4g} s\n", c.parallel->kp, c.parallel->ki,
-                 c.parallel->kd, c.parallel->tf);
+                 c.parallel->kd, c.parallel->filter_time);
   }
   const SearchSummary& s = run.search;
   fmt::print("Search: NLopt {} then {}, {} evaluations ({} unstable, {} infeasible) in {:.3f} s;\n  {}\n",

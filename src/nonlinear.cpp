@@ -34,19 +34,19 @@ namespace specloop {
 std::string_view anti_windup_name(AntiWindup a) {
   switch (a) {
     case AntiWindup::none: return "none";
-    case AntiWindup::clamping: return "clamping";
+    case AntiWindup::conditional_integration: return "conditional-integration";
     case AntiWindup::back_calculation: return "back-calculation";
   }
   throw std::invalid_argument("anti_windup_name: not an AntiWindup value");
 }
 
 const std::vector<std::string>& anti_windup_names() {
-  static const std::vector<std::string> names{"none", "clamping", "back-calculation"};
+  static const std::vector<std::string> names{"none", "conditional-integration", "back-calculation"};
   return names;
 }
 
 std::optional<AntiWindup> parse_anti_windup(std::string_view name) {
-  for (AntiWindup a : {AntiWindup::none, AntiWindup::clamping, AntiWindup::back_calculation})
+  for (AntiWindup a : {AntiWindup::none, AntiWindup::conditional_integration, AntiWindup::back_calculation})
     if (anti_windup_name(a) == name) return a;
   return std::nullopt;
 }
@@ -220,7 +220,7 @@ struct LoopModel : PidLaw {
       if (i_index >= 0) {
         switch (anti_windup) {
           case AntiWindup::none: dx[i_index] = ki * e; break;
-          case AntiWindup::clamping:
+          case AntiWindup::conditional_integration:
             if (m.sliding) {
               // Filippov sliding on the limit: neither integrating (u_c would re-enter the linear
               // region) nor frozen (u_c would leave the limit inward) is consistent, so the
@@ -246,7 +246,7 @@ struct LoopModel : PidLaw {
     if (rate) dx[ua_index] = m.rate == RateMode::up ? rate_max : (m.rate == RateMode::down ? -rate_max : 0.0);
   }
 
-  bool clamps() const { return parallel && i_index >= 0 && anti_windup == AntiWindup::clamping; }
+  bool clamps() const { return parallel && i_index >= 0 && anti_windup == AntiWindup::conditional_integration; }
 
   // True when the state is consistent with the held modes (no guard has changed sign).
   bool consistent(const double* x, const Modes& m, double d, double* scratch, double t) const {
@@ -510,7 +510,7 @@ struct SampledController : PidLaw {
       if (ki != 0.0 && anti_windup == AntiWindup::back_calculation) di += ts / tt * (ua_prev - uc_prev);
       const double dn = kd != 0.0 ? a_d * deriv + kd / (tf + ts) * (v - v_prev) : 0.0;
       double uc = p + integral + di + dn;
-      if (ki != 0.0 && anti_windup == AntiWindup::clamping && ((uc > umax && di > 0.0) || (uc < umin && di < 0.0))) {
+      if (ki != 0.0 && anti_windup == AntiWindup::conditional_integration && ((uc > umax && di > 0.0) || (uc < umin && di < 0.0))) {
         di = 0.0;  // conditional integration: the increment would push further into the limit
         uc = p + integral + dn;
       }
@@ -634,21 +634,21 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
 
   if (controller.parallel) {
     const ParallelGains& g = *controller.parallel;
-    if (!std::isfinite(g.kp) || !std::isfinite(g.ki) || !std::isfinite(g.kd) || !std::isfinite(g.tf))
+    if (!std::isfinite(g.kp) || !std::isfinite(g.ki) || !std::isfinite(g.kd) || !std::isfinite(g.filter_time))
       fail("controller: non-finite parallel gain");
-    if (g.kd != 0.0 && !(g.tf > 0.0)) fail("controller: derivative action needs a filter time Tf > 0");
+    if (g.kd != 0.0 && !(g.filter_time > 0.0)) fail("controller: derivative action needs a filter time Tf > 0");
     model.parallel = true;
     model.kp = g.kp;
     model.ki = g.ki;
     model.kd = g.kd;
-    model.tf = g.tf;
+    model.tf = g.filter_time;
     model.b = options.setpoint_weight;
     model.c = options.derivative_weight;
     model.anti_windup = options.anti_windup;
     if (g.ki != 0.0) model.i_index = size++;
     if (g.kd != 0.0) model.d_index = size++;
-    model.command_r = g.kp * model.b + (g.kd != 0.0 ? g.kd / g.tf * model.c : 0.0);
-    model.command_n = g.kp + (g.kd != 0.0 ? g.kd / g.tf : 0.0);
+    model.command_r = g.kp * model.b + (g.kd != 0.0 ? g.kd / g.filter_time * model.c : 0.0);
+    model.command_n = g.kp + (g.kd != 0.0 ? g.kd / g.filter_time : 0.0);
     if (g.ki != 0.0 && options.anti_windup == AntiWindup::back_calculation) {
       if (options.tracking_time_s) {
         model.tt = *options.tracking_time_s;

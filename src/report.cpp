@@ -425,7 +425,7 @@ std::string controller_lines(const Design& d) {
   s += fmt::format("series ({}): {}\n", structure_name(c.structure), fmt::join(series, ", "));
   if (c.parallel)
     s += fmt::format("parallel: Kp = {:.5g}, Ki = {:.5g} 1/s, Kd = {:.5g} s, Tf = {:.4g} s\n", c.parallel->kp, c.parallel->ki,
-                     c.parallel->kd, c.parallel->tf);
+                     c.parallel->kd, c.parallel->filter_time);
   else
     s += "parallel: none (this structure has no PID equivalent)\n";
   if (c.standard)

@@ -397,7 +397,7 @@ json controller_summary(const Controller& c) {
   for (std::size_t i = 0; i < info.size() && i < c.series.size(); ++i) series[info[i].name] = number_json(c.series[i]);
   json j{{"structure", std::string(structure_name(c.structure))}, {"series", series}};
   j["parallel"] = c.parallel ? json{{"kp", number_json(c.parallel->kp)}, {"ki", number_json(c.parallel->ki)},
-                                    {"kd", number_json(c.parallel->kd)}, {"tf", number_json(c.parallel->tf)}}
+                                    {"kd", number_json(c.parallel->kd)}, {"filter_time", number_json(c.parallel->filter_time)}}
                              : json(nullptr);
   j["standard"] = c.standard ? json{{"kp", number_json(c.standard->kp)},
                                     {"ti", c.standard->has_integral ? number_json(c.standard->ti) : json(nullptr)},

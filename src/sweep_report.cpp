@@ -514,9 +514,9 @@ void write_points_csv(const ReportInputs& in, const fs::path& path) {
   for (const std::string& m : metric_columns()) header.push_back("optimized_" + m);
   for (const std::string& m : metric_columns()) header.push_back("optimized_nonlinear_" + m);
   for (const char* f : {"parallel", "standard"})
-    for (const char* g : {"kp", "ki", "kd", "tf", "ti", "td", "n"}) {
+    for (const char* g : {"kp", "ki", "kd", "filter_time", "ti", "td", "n"}) {
       if (std::string(f) == "parallel" && (std::string(g) == "ti" || std::string(g) == "td" || std::string(g) == "n")) continue;
-      if (std::string(f) == "standard" && (std::string(g) == "ki" || std::string(g) == "kd" || std::string(g) == "tf")) continue;
+      if (std::string(f) == "standard" && (std::string(g) == "ki" || std::string(g) == "kd" || std::string(g) == "filter_time")) continue;
       header.push_back(fmt::format("optimized_{}_{}", f, g));
     }
   std::vector<std::string> series_names;
@@ -550,7 +550,7 @@ void write_points_csv(const ReportInputs& in, const fs::path& path) {
       row.push_back(v.optimized.is_null() ? "" : csv_optional(number_at(v.optimized, {"linear", m.c_str()})));
     for (const std::string& m : metric_columns())
       row.push_back(v.optimized.is_null() ? "" : csv_optional(number_at(v.optimized, {"nonlinear", "metrics", m.c_str()})));
-    for (const char* g : {"kp", "ki", "kd", "tf"})
+    for (const char* g : {"kp", "ki", "kd", "filter_time"})
       row.push_back(v.optimized.is_null() ? "" : csv_optional(number_at(v.optimized, {"controller", "parallel", g})));
     for (const char* g : {"kp", "ti", "td", "n"})
       row.push_back(v.optimized.is_null() ? "" : csv_optional(number_at(v.optimized, {"controller", "standard", g})));

@@ -408,7 +408,7 @@ def check_controller(tally, case, name, ctrl):
         forms.append(("series", f(wt)))
     par = ctrl.get("parallel")
     if par:
-        forms.append(("parallel", par["kp"] + par["ki"] / wt + par["kd"] * wt / (par["tf"] * wt + 1)))
+        forms.append(("parallel", par["kp"] + par["ki"] / wt + par["kd"] * wt / (par["filter_time"] * wt + 1)))
     std = ctrl.get("standard")
     if std and structure in ("pi", "pid"):
         td = number(std["td"]) or 0.0

@@ -98,7 +98,7 @@ RTOL, ATOL = 1e-10, 1e-12
 CASES = [
     {"name": "PI clamping, lag plant",
      "plant": ([2.5], [1.0, 3.5, 2.5]), "pi": (3.0, 1.5), "limits": (-1.3, 1.3),
-     "options": {"anti_windup": "clamping", "horizon_s": 30.0}},
+     "options": {"anti_windup": "conditional-integration", "horizon_s": 30.0}},
     {"name": "PI back-calculation (default Tt), lag plant",
      "plant": ([2.5], [1.0, 3.5, 2.5]), "pi": (3.0, 1.5), "limits": (-1.3, 1.3),
      "options": {"anti_windup": "back-calculation", "horizon_s": 30.0}},
@@ -107,7 +107,7 @@ CASES = [
      "options": {"anti_windup": "none", "horizon_s": 30.0}},
     {"name": "PI clamping, b = 0.5, third-order plant, disturbance into the lower limit",
      "plant": ([10.0], [1.0, 8.0, 17.0, 10.0]), "pi": (2.0, 0.6), "limits": (-0.2, 1.5),
-     "options": {"anti_windup": "clamping", "setpoint_weight": 0.5, "horizon_s": 40.0,
+     "options": {"anti_windup": "conditional-integration", "setpoint_weight": 0.5, "horizon_s": 40.0,
                  "disturbance_time_s": 20.0, "disturbance_size": 1.1}},
     {"name": "PI back-calculation Tt = 0.3 s, third-order plant, disturbance",
      "plant": ([10.0], [1.0, 8.0, 17.0, 10.0]), "pi": (2.0, 0.6), "limits": (-0.2, 1.5),
@@ -174,7 +174,7 @@ def reference(case, amplitude, samples):
         else:
             limit = umax if side > 0 else umin
             ev(lambda t, x: side * (command(x) - limit), -1)
-            if law == "clamping":
+            if law == "conditional-integration":
                 ev(lambda t, x: r - C @ x[:n], -1 if (kind == "frozen") == (side * ki > 0) else 1)
         return evs
 
@@ -191,7 +191,7 @@ def reference(case, amplitude, samples):
         for side, limit in ((1, umax), (-1, umin)):
             if abs(uc - limit) <= 1e-9 * max(1.0, abs(limit)):
                 e = r - C @ x[:n]
-                if law == "clamping":
+                if law == "conditional-integration":
                     x = x.copy()
                     x[n] += limit - uc  # exactly on the limit
                     frozen_slope = side * (-kp * (C @ rhs((side, "frozen"), d)(0.0, x)[:n]))
@@ -208,7 +208,7 @@ def reference(case, amplitude, samples):
                 return x, ((side, "int") if slope > 0 else (0, "int"))
         side = 1 if uc > umax else -1 if uc < umin else 0
         kind = "int"
-        if law == "clamping" and side != 0 and side * ki * (r - C @ x[:n]) > 0:
+        if law == "conditional-integration" and side != 0 and side * ki * (r - C @ x[:n]) > 0:
             kind = "frozen"
         return x, (side, kind)
 
@@ -324,7 +324,7 @@ def check_delay_and_sampling(tally, nlprobe):
          "limits": None, "options": {}},
         {"name": "sampled PID b 0.5 c 0, clamping, Ts 0.05, delay 2 Ts, third-order plant", "plant": PLANT_3,
          "structure": "pid", "series": [4.0, 1.5, 0.8], "ts": 0.05, "m": 2, "steps": 301,
-         "limits": (-0.5, 1.2), "options": {"setpoint_weight": 0.5, "derivative_weight": 0.0, "anti_windup": "clamping"}},
+         "limits": (-0.5, 1.2), "options": {"setpoint_weight": 0.5, "derivative_weight": 0.0, "anti_windup": "conditional-integration"}},
     ]
     for sc in sampled_cases:
         ts, m, steps = sc["ts"], sc["m"], sc["steps"]

@@ -204,7 +204,7 @@ def check_points_csv(t, out, points, results):
                     bad.append((idx, prefix + m, row[prefix + m], want))
         if r["optimized"] is not None:
             par = r["optimized"]["controller"]["parallel"]
-            for g in ("kp", "ki", "kd", "tf"):
+            for g in ("kp", "ki", "kd", "filter_time"):
                 if par and not close(number(row[f"optimized_parallel_{g}"]), par[g]):
                     bad.append((idx, g))
     t.check("points.csv", "values, verdicts, bindings, approximation errors, metrics and gains equal the store",

@@ -15,7 +15,7 @@ namespace {
 Complex parallel_value(const ParallelGains& g, Complex s) {
   Complex c = g.kp;
   if (g.ki != 0.0) c += g.ki / s;
-  if (g.kd != 0.0) c += g.kd * s / (g.tf * s + 1.0);
+  if (g.kd != 0.0) c += g.kd * s / (g.filter_time * s + 1.0);
   return c;
 }
 Complex standard_value(const StandardForm& f, Complex s) {
@@ -48,7 +48,7 @@ TEST_CASE("series, parallel and standard forms describe the same controller", "[
     }
     if (structure == Structure::pd || structure == Structure::pid) {
       // Åström–Hägglund's filtered derivative: Tf = Kd/(N·Kp).
-      CHECK_THAT(c.parallel->tf, WithinRel(c.parallel->kd / (n * c.parallel->kp), 1e-12));
+      CHECK_THAT(c.parallel->filter_time, WithinRel(c.parallel->kd / (n * c.parallel->kp), 1e-12));
     }
   }
 }

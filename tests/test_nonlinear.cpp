@@ -134,7 +134,7 @@ TEST_CASE("integrator windup: no anti-windup overshoots more than clamping and b
     return r.metrics.overshoot_pct;
   };
   const double none = run(AntiWindup::none);
-  const double clamp = run(AntiWindup::clamping);
+  const double clamp = run(AntiWindup::conditional_integration);
   const double back = run(AntiWindup::back_calculation);
   CHECK(none > clamp + 1.0);  // at least a percentage point apart: windup is visible, not noise
   CHECK(none > back + 1.0);
@@ -397,7 +397,7 @@ TEST_CASE("sampled PID and lead: the difference equations are the documented dis
     for (double th : thetas) {
       const std::complex<double> w = std::exp(std::complex<double>(0.0, -th));
       const auto integ = g.ki * ts / 2.0 * (1.0 + w) / (1.0 - w);
-      const auto deriv = g.kd / (g.tf + ts) * (1.0 - w) / (1.0 - g.tf / (g.tf + ts) * w);
+      const auto deriv = g.kd / (g.filter_time + ts) * (1.0 - w) / (1.0 - g.filter_time / (g.filter_time + ts) * w);
       const auto want_r = g.kp * 0.6 + integ + 0.0 * deriv, want_y = g.kp + integ + deriv;
       const auto got_r = eval_w(d.reference_numerator, w) / eval_w(d.denominator, w);
       const auto got_y = eval_w(d.measurement_numerator, w) / eval_w(d.denominator, w);
@@ -479,7 +479,7 @@ TEST_CASE("sampled loop: saturation, rate limit and anti-windup at the samples",
       return r.metrics.overshoot_pct;
     };
     const double none = run(AntiWindup::none);
-    CHECK(none > run(AntiWindup::clamping) + 1.0);
+    CHECK(none > run(AntiWindup::conditional_integration) + 1.0);
     CHECK(none > run(AntiWindup::back_calculation) + 1.0);
   }
   SECTION("the rate limit bounds the slope of the applied control between samples") {

@@ -179,7 +179,7 @@ TEST_CASE("rate-limited time and command excess are measured", "[nonlinear]") {
   opt.horizon_s = 30.0;
   opt.anti_windup = AntiWindup::none;
   const NonlinearResult none = simulate_nonlinear(plant, pi, act, opt, 1.0, 0.02);
-  opt.anti_windup = AntiWindup::clamping;
+  opt.anti_windup = AntiWindup::conditional_integration;
   const NonlinearResult clamped = simulate_nonlinear(plant, pi, act, opt, 1.0, 0.02);
   REQUIRE(none.status == NonlinearStatus::ok);
   REQUIRE(clamped.status == NonlinearStatus::ok);

@@ -32,7 +32,7 @@ const std::vector<ParameterInfo>& structure_parameters(Structure s);
 
 /// Parallel gains: C = Kp + Ki/s + Kd·s/(Tf·s + 1).
 struct ParallelGains {
-  double kp = 0.0, ki = 0.0, kd = 0.0, tf = 0.0;
+  double kp = 0.0, ki = 0.0, kd = 0.0, filter_time = 0.0;
 };
 /// Standard (ideal, filtered) form: C = Kp·(1 + 1/(Ti·s) + Td·s/(Td/N·s + 1)); Ti = ∞ without I.
 struct StandardForm {

@@ -71,8 +71,8 @@ TransferFunction transfer_function_of(const StateSpace& s);
 StateSpace realize(const TransferFunction& g);
 /// The realization of a static gain (no states).
 StateSpace static_gain(double k);
-/// Series connection: the output of `first` drives `second` (both single output).
-StateSpace series(const StateSpace& first, const StateSpace& second);
+/// Cascade connection: the output of `first` drives `second` (both single output).
+StateSpace cascade(const StateSpace& first, const StateSpace& second);
 
 /// Unity negative feedback e = r − y, u = C(e), y = P(u). Outputs: row 0 = y, row 1 = u.
 /// Throws std::domain_error when the loop is algebraically ill-posed (1 + Dc·Dp = 0).

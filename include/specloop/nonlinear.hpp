@@ -76,7 +76,7 @@ class PlantEvaluationError : public std::runtime_error {
 struct LoopOptions {
   double setpoint_weight = 1.0;    // b: proportional term acts on b·r − y (parallel form only)
   double derivative_weight = 1.0;  // c: derivative of c·r − y; 1 = on error, 0 = on measurement
-  AntiWindup anti_windup = AntiWindup::clamping;
+  AntiWindup anti_windup = AntiWindup::conditional_integration;
   std::optional<double> tracking_time_s;  // back-calculation Tt, s; default √(Ti·Td), or Ti without D
   double disturbance_time_s = 0.0;  // a step of disturbance_size added at the plant input from here
   double disturbance_size = 0.0;    // in plant-input units; 0: no disturbance

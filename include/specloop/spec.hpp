@@ -75,13 +75,13 @@ struct PlantSpec {
 
 /// Integrator protection while the actuator is saturated (parallel-form controllers only).
 enum class AntiWindup {
-  none,              // the integrator integrates the error regardless of saturation
-  clamping,          // conditional integration: stop while saturated and the error drives further in;
-                     // where neither integrating nor stopping is consistent, u_c slides on the limit
-                     // (Filippov: the integrator moves just enough to hold u_c there)
-  back_calculation,  // I' = Ki·e + (u_applied − u_c)/Tt
+  none,                     // the integrator integrates the error regardless of saturation
+  conditional_integration,  // stop integrating while saturated and the error drives further in;
+                            // where neither integrating nor stopping is consistent, u_c slides on
+                            // the limit (Filippov: the integrator moves just enough to hold u_c there)
+  back_calculation,         // I' = Ki·e + (u_applied − u_c)/Tt
 };
-/// "none", "clamping", "back-calculation".
+/// "none", "conditional-integration", "back-calculation".
 std::string_view anti_windup_name(AntiWindup a);
 /// Parses a spelling; std::nullopt for an unknown name.
 std::optional<AntiWindup> parse_anti_windup(std::string_view name);
@@ -98,7 +98,7 @@ struct ActuatorSpec {
 struct ControllerSpec {
   Structure structure = Structure::pid;
   double derivative_filter = 10.0;            // N: derivative filter pole at N/Td (> 0)
-  AntiWindup anti_windup = AntiWindup::clamping;
+  AntiWindup anti_windup = AntiWindup::conditional_integration;
   std::optional<double> tracking_time_s;      // back-calculation Tt, s (> 0); default by rule
   double sample_time_s = 0.0;                 // > 0: a digital controller at this period, s
   double setpoint_weight = 1.0;               // b: the proportional term acts on b·r − y

@@ -10,7 +10,7 @@
 //                  printed traces are then deviations too),
 //    "controller": {"structure": "pi", "series": [...], "derivative_filter": 10},
 //    "actuator":   {"min": -1, "max": 1, "rate_max": 0.5},             all optional
-//    "options":    {"anti_windup": "clamping", "setpoint_weight": 1, "derivative_weight": 1,
+//    "options":    {"anti_windup": "conditional-integration", "setpoint_weight": 1, "derivative_weight": 1,
 //                   "tracking_time_s": 1, "disturbance_time_s": 0, "disturbance_size": 0,
 //                   "horizon_s": 10, "output_step_s": 0.01, "sample_times_s": [...],
 //                   "max_steps": 1000000, "relative_tolerance": 1e-8, "absolute_tolerance": 1e-10,
@@ -129,7 +129,7 @@ int run() {
                              "noise_rms", "noise_period_s", "noise_seed", "stepper"});
     if (o.contains("anti_windup")) {
       const auto aw = parse_anti_windup(o["anti_windup"].get<std::string>());
-      if (!aw) throw InputError("options.anti_windup: expected none, clamping or back-calculation");
+      if (!aw) throw InputError("options.anti_windup: expected none, conditional-integration or back-calculation");
       opt.anti_windup = *aw;
     }
     auto set = [&](const char* key, double& field) {

@@ -5,7 +5,7 @@ set grid lc rgb '#dddddd' lw 1
 set border lc rgb '#555555'
 set tics textcolor rgb '#333333'
 do for [term in 'svg png'] {
-  if (term eq 'svg') { set terminal svg size 900,520 dynamic font 'Helvetica,12' background rgb 'white'; set output 'splane.svg' } else { set terminal pngcairo size 1200,690 font 'Helvetica,12' background rgb 'white'; set output 'splane.png' }
+  if (term eq 'svg') { set terminal svg size 900,520 dynamic font 'Helvetica,12' background rgb 'white'; set output 'splane.svg' } else { set terminal pngcairo size 1200,693 font 'Helvetica,12' background rgb 'white'; set output 'splane.png' }
   set title 's-plane: root locus of the optimized loop as its gain varies' font ',13'
   set xlabel 'real (1/s)'
   set ylabel 'imaginary (rad/s)'
