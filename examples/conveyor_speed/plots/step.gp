@@ -8,8 +8,9 @@ do for [term in 'svg png'] {
   if (term eq 'svg') { set terminal svg size 900,520 dynamic font 'Helvetica,12' background rgb 'white'; set output 'step.svg' } else { set terminal pngcairo size 1200,693 font 'Helvetica,12' background rgb 'white'; set output 'step.png' }
   set title 'Step response y(t)' font ',13'
   set xlabel 'time (s)'
-  set ylabel 'y (output units)'
-  set xrange [0:14.64261761]
+  set ylabel 'y (m/s)'
+  set xrange [0:12.20218134]
+  set key outside right top vertical Left reverse box opaque font ',10' samplen 2
   unset object; unset arrow; unset label
   set arrow from 2,1.02 to graph 1,first 1.02 nohead lc rgb '#6a1b9a' dt 3 lw 1.2
   set arrow from 2,0.98 to graph 1,first 0.98 nohead lc rgb '#6a1b9a' dt 3 lw 1.2
