@@ -196,6 +196,14 @@ std::string step_script(const DesignRun& run, const ReportData& data, bool effor
   s += "  unset object; unset arrow; unset label\n";
   std::vector<std::string> plots;
   if (!effort) {
+    // A limit's label beside its vertical line, where a step response leaves room: low in the plot
+    // (high for a negative step) at `height` of it, right of the line, or left of it in the last
+    // third of the axis; the two labels at different heights never meet.
+    auto limit_label = [&](const std::string& text, double at, double height, const char* colour) {
+      const bool right_of_line = at < 0.65 * data.plot_horizon_s;
+      s += fmt::format("  set label {} at {},graph {} {} offset {},0 textcolor rgb '{}' font ',10'\n", quoted(text), csv_number(at),
+                       r > 0.0 ? height : 1.0 - height, right_of_line ? "left" : "right", right_of_line ? "0.5" : "-0.5", colour);
+    };
     // The requirement envelope: overshoot ceiling, settling band from settling_time_max, peak-time limit.
     if (req.overshoot_max_pct) {
       const double ceiling = r * (1.0 + *req.overshoot_max_pct / 100.0);
@@ -208,15 +216,13 @@ std::string step_script(const DesignRun& run, const ReportData& data, bool effor
         s += fmt::format("  set arrow from {},{} to graph 1,first {} nohead lc rgb '#6a1b9a' dt 3 lw 1.2\n", csv_number(ts),
                          csv_number(edge), csv_number(edge));
       s += fmt::format("  set arrow from {},graph 0 to {},graph 1 nohead lc rgb '#6a1b9a' dt 3 lw 1\n", csv_number(ts), csv_number(ts));
-      s += fmt::format("  set label {} at {},graph 0.06 right offset -0.5,0 textcolor rgb '#6a1b9a' font ',10'\n",
-                       quoted(fmt::format("settling {:.4g} {}, ±{:.4g} % band", ts, units.time, band * 100.0)), csv_number(ts));
+      limit_label(fmt::format("settling {:.4g} {}, ±{:.4g} % band", ts, units.time, band * 100.0), ts, 0.05, "#6a1b9a");
     }
     const std::optional<double>& tp_limit = data.peak_time_limit_s;
     if (tp_limit) {
       s += fmt::format("  set arrow from {},graph 0 to {},graph 1 nohead lc rgb '#ef6c00' dt 4 lw 1.2\n", csv_number(*tp_limit),
                        csv_number(*tp_limit));
-      s += fmt::format("  set label {} at {},graph 0.95 left offset 0.5,0 textcolor rgb '#ef6c00' font ',10'\n",
-                       quoted(fmt::format("peak-time limit {:.4g} {}", *tp_limit, units.time)), csv_number(*tp_limit));
+      limit_label(fmt::format("peak-time limit {:.4g} {}", *tp_limit, units.time), *tp_limit, 0.12, "#ef6c00");
     }
   } else {
     const ActuatorSpec& a = spec.actuator;
@@ -253,15 +259,21 @@ std::string step_script(const DesignRun& run, const ReportData& data, bool effor
   return script_frame(effort ? "effort" : "step", s);
 }
 
-std::string splane_script(const DesignRun& run, const ReportData& data, double zeta, double extent_re, double extent_im) {
+// The s-plane view: real axis from −left to right (a quarter of left, or beyond the rightmost marked
+// point), imaginary axis ±im.
+struct SplaneView {
+  double left = 1.0, right = 0.25, im = 0.6;
+};
+
+std::string splane_script(const DesignRun& run, const ReportData& data, double zeta, const SplaneView& view) {
   const UnitsSpec& units = run.problem.spec.units;
   std::string s;
   s += fmt::format("  set title {} font ',13'\n",
                    quoted(fmt::format("s-plane: root locus of the {} loop as its gain varies", data.locus_design)));
   s += fmt::format("  set xlabel {}\n  set ylabel {}\n", quoted(fmt::format("real (1/{})", units.time)),
                    quoted(fmt::format("imaginary (rad/{})", units.time)));
-  s += fmt::format("  set xrange [{}:{}]\n  set yrange [{}:{}]\n", csv_number(-extent_re), csv_number(0.25 * extent_re),
-                   csv_number(-extent_im), csv_number(extent_im));
+  s += fmt::format("  set xrange [{}:{}]\n  set yrange [{}:{}]\n", csv_number(-view.left), csv_number(view.right),
+                   csv_number(-view.im), csv_number(view.im));
   // The legend right of the plot area (the square view leaves room there), never over a curve.
   s += "  set size ratio -1\n  set key outside right top vertical Left reverse box opaque font ',9' samplen 2\n";
   s += "  set arrow from graph 0,first 0 to graph 1,first 0 nohead lc rgb '#999999'\n";
@@ -345,8 +357,8 @@ std::string frequency_script(const DesignRun& run, const ReportData& data) {
   return script_frame("frequency", s);
 }
 
-// Writes the CSV series; returns the s-plane view (half-extents along re and im).
-std::pair<double, double> write_series(const DesignRun& run, const ReportData& data, const fs::path& dir) {
+// Writes the CSV series; returns the s-plane view that holds every marked point.
+SplaneView write_series(const DesignRun& run, const ReportData& data, const fs::path& dir) {
   fs::create_directories(dir);
   for (const ResponseTrace& t : data.traces) {
     // A plotted trace ends where the figure's time axis does (the axis covers its settling).
@@ -377,12 +389,13 @@ std::pair<double, double> write_series(const DesignRun& run, const ReportData& d
     write_csv(dir / "locus.csv", {"gain_multiplier", "branch", "real_per_s", "imag_rad_per_s"}, {&gain, &branch, &re, &im});
   }
   // Marked points of the s-plane, and the view that holds them.
-  double extent_re = 0.0, extent_im = 0.0;
+  double extent_re = 0.0, extent_im = 0.0, rightmost = 0.0;
   std::string points = "kind,design,real_per_s,imag_rad_per_s\n";
   auto point = [&](const std::string& kind, const std::string& design, Complex z) {
     points += fmt::format("{},{},{},{}\n", kind, design, csv_number(z.real()), csv_number(z.imag()));
     extent_re = std::max(extent_re, std::abs(z.real()));
     extent_im = std::max(extent_im, std::abs(z.imag()));
+    rightmost = std::max(rightmost, z.real());
   };
   if (!data.locus.poles.empty()) {
     // The delay's Padé approximant brings poles and zeros of its own into the loop: marked apart.
@@ -432,9 +445,11 @@ std::pair<double, double> write_series(const DesignRun& run, const ReportData& d
   for (const auto& [name, f] : data.frequency)
     write_csv(dir / fmt::format("frequency_{}.csv", name), {"omega_rad_per_s", "magnitude_db", "phase_deg"},
               {&f.omega_rad_s, &f.magnitude_db, &f.phase_deg});
-  extent_re = std::max(extent_re * 1.3, 1e-6);
-  extent_im = std::max(extent_im * 1.3, 0.6 * extent_re);
-  return {extent_re, extent_im};
+  SplaneView view;
+  view.left = std::max(extent_re * 1.3, 1e-6);
+  view.right = std::max(0.25 * view.left, 1.3 * rightmost);  // right-half-plane zeros (a delay's Padé zeros) in view
+  view.im = std::max(extent_im * 1.3, 0.6 * view.left);
+  return view;
 }
 
 std::string value_attribute(const std::optional<double>& v) {
@@ -782,12 +797,12 @@ ReportOutcome write_design_outputs(const DesignRun& run, const fs::path& dir, co
   ReportOutcome outcome;
   write_staged(dir, {"series", "plots", "report.md", "report.html", "result.json"}, [&](const fs::path& staging) {
     write_text(staging / "result.json", result_json(run).dump(2) + "\n");
-    const auto [extent_re, extent_im] = write_series(run, data, staging / "series");
+    const SplaneView view = write_series(run, data, staging / "series");
     const double zeta = run.characterization.damping_ratio;
     const RenderedFigures figures = write_and_render(staging / "plots",
                                                      {{"step", step_script(run, data, false)},
                                                       {"effort", step_script(run, data, true)},
-                                                      {"splane", splane_script(run, data, zeta, extent_re, extent_im)},
+                                                      {"splane", splane_script(run, data, zeta, view)},
                                                       {"frequency", frequency_script(run, data)}},
                                                      options.render_figures);
     outcome.figures_note = figures.note;

@@ -38,7 +38,8 @@ result.json, series/*.csv and plots/{step,effort,splane,frequency}.{gp,svg,png}.
                vertex or point of a curve's segments (every 2 px) inside a plot area falls in a
                legend box.
   labels       no two texts of a figure overlap (boxes estimated from position, anchor, font size
-               and length: 0.55 em per character); the margins table under the frequency figure
+               and length: 0.55 em per character), and no plotted curve or point crosses a label
+               written inside a plot area; the margins table under the frequency figure
                has one row per design drawn there, each equal to result.json's margins.
   controller   the recommended-controller box states where the derivative acts, the set-point
                weight, the action and the sample time, each equal to the spec (read with tomllib)
@@ -223,7 +224,10 @@ def check_figures(tally, name, out):
                     f"{len(areas)} areas, {len(keys)} legends")
         clash = [(k, a) for k in keys for a in areas if overlap(k, a)]
         tally.check(name, f"{fig}: every legend lies outside every plot area", not clash, str(clash[:2]))
-        covered = []
+        texts = svg_texts(svg)
+        # Labels written inside a plot area (the limits' names), as boxes.
+        labels = [t for t in texts if any(inside((t[0], t[1]), a) and inside((t[2], t[3]), a) for a in areas)]
+        covered, under_label = [], []
         for paths in svg_plot_vertices(svg):
             for path in paths:
                 if any(all(inside(p, k, -1.0) for p in path) for k in keys):
@@ -234,8 +238,10 @@ def check_figures(tally, name, out):
                     n = int(math.hypot(x1 - x0, y1 - y0) / 2.0)
                     along += [(x0 + (x1 - x0) * i / n, y0 + (y1 - y0) * i / n) for i in range(1, n)]
                 covered += [p for p in along for k in keys if inside(p, k) and any(inside(p, a, -1.0) for a in areas)]
+                under_label += [(t[4], p) for p in along for t in labels if inside(p, t, 1.0)]
         tally.check(name, f"{fig}: no plotted point lies under a legend", not covered, str(covered[:3]))
-        texts = svg_texts(svg)
+        tally.check(name, f"{fig}: no plotted curve or point crosses a label inside the plot ({len(labels)} labels)",
+                    not under_label, str(under_label[:3]))
         clashes = [(a[4], b[4]) for i, a in enumerate(texts) for b in texts[i + 1:] if overlap(a, b) and a[4] != b[4]]
         tally.check(name, f"{fig}: no two texts overlap ({len(texts)} texts)", texts and not clashes, str(clashes[:3]))
 
@@ -343,8 +349,15 @@ def check_page_content(tally, name, out, result, page, spec_toml, expect_delay=F
     # The s-plane: the dominant pair's mark, the Padé poles and zeros of a delayed plant.
     script = (out / "plots" / "splane.gp").read_text()
     dom_line = next((l for l in script.split(", \\") if "'dominant_pair'" in l), "")
-    tally.check(name, "s-plane: the dominant pair is not drawn as open squares", dom_line and " pt 4 " not in dom_line, dom_line)
+    ok = bool(dom_line) and " pt 4 " not in dom_line
+    tally.check(name, "s-plane: the dominant pair is not drawn as open squares", ok, "" if ok else dom_line)
     points = list(csv.reader(open(out / "series" / "splane_points.csv")))
+    rx = re.search(rf"set xrange \[({NUMBER}(?:e[-+]?\d+)?):({NUMBER}(?:e[-+]?\d+)?)\]", script)
+    ry = re.search(rf"set yrange \[({NUMBER}(?:e[-+]?\d+)?):({NUMBER}(?:e[-+]?\d+)?)\]", script)
+    outside_view = [r for r in points[1:] if not r[0].startswith("damping_line")
+                    and not (float(rx.group(1)) <= float(r[2]) <= float(rx.group(2))
+                             and float(ry.group(1)) <= float(r[3]) <= float(ry.group(2)))]
+    tally.check(name, "s-plane: every marked pole and zero is in view", rx and ry and not outside_view, str(outside_view[:3]))
     marked = {kind: [complex(float(r[2]), float(r[3])) for r in points[1:] if r[0] == kind]
               for kind in ("delay_approximant_pole", "delay_approximant_zero")}
     tau = float(spec_toml.get("plant", {}).get("delay", 0.0))
