@@ -18,6 +18,9 @@ constexpr double kInf = std::numeric_limits<double>::infinity();
 constexpr double kFarRatio = 5.0;
 constexpr double kNegligibleShare = 0.05;
 constexpr double kAgreementPct = 10.0;
+// Contributions whose sizes add up to more than this multiple of their sum cancel one another
+// (more of them is cancelled than remains).
+constexpr double kCancellingSize = 2.0;
 
 // Coefficients of p(r·w) as a polynomial in r (highest power first), complex.
 std::vector<Complex> scaled_argument(const Polynomial& p, Complex w) {
@@ -138,10 +141,14 @@ std::vector<LocusCrossing> damping_line_crossings(const TransferFunction& g, dou
 }
 
 std::vector<ModeShare> mode_shares(const TransferFunction& t) {
-  // Step response Y(s) = T(s)/s; residue at a simple pole p: N(p)/(p·D'(p)).
+  // Step response Y(s) = T(s)/s; residue at a simple pole p: N(p)/(p·D'(p)). Its term of
+  // y(t) − y∞ at t = 0⁺ is the residue (2·Re for a pair); negated and divided by y∞, that is the
+  // mode's signed contribution.
   std::vector<ModeShare> out;
   const double y_inf = t.dc_gain();
   const Polynomial d_slope = t.denominator.derivative();
+  std::size_t without = 0;
+  double known = 0.0;
   for (const Complex& p : t.poles()) {
     if (p.imag() < 0.0) continue;  // the upper member stands for the pair
     ModeShare m;
@@ -152,10 +159,37 @@ std::vector<ModeShare> mode_shares(const TransferFunction& t) {
         std::abs(p) > 0.0 && std::isfinite(y_inf) && y_inf != 0.0) {
       const Complex residue = t.numerator(p) / (p * dd);
       m.share = std::abs(residue) * (p.imag() > 0.0 ? 2.0 : 1.0) / std::abs(y_inf);
+      m.contribution = -residue.real() * (p.imag() > 0.0 ? 2.0 : 1.0) / y_inf;
+      known += *m.contribution;
+    } else {
+      ++without;
     }
     out.push_back(m);
   }
+  // One mode without a simple residue (a repeated real pole counted once, or a pair): it holds
+  // the rest of the sum, exactly.
+  if (without == 1 && std::isfinite(y_inf) && y_inf != 0.0)
+    for (ModeShare& m : out)
+      if (!m.contribution) m.contribution = contribution_total(t) - known;
   return out;
+}
+
+double contribution_total(const TransferFunction& t) {
+  // y(0⁺) = lim s·T(s)/s = T(∞): the ratio of leading coefficients when T is biproper, else 0.
+  const double y_inf = t.dc_gain();
+  const double y0 = t.numerator.degree() == t.denominator.degree() ? t.numerator.leading() / t.denominator.leading() : 0.0;
+  return 1.0 - y0 / y_inf;
+}
+
+std::optional<std::string> cancellation_note(const std::vector<ModeShare>& modes, double total) {
+  double size = 0.0;
+  for (const ModeShare& m : modes)
+    if (m.contribution) size += std::abs(*m.contribution);
+  if (!(size > kCancellingSize * std::max(std::abs(total), 1e-12))) return std::nullopt;
+  return fmt::format("the contributions' sizes add up to {:.0f} % but their sum is {:.0f} %: terms of opposite sign "
+                     "largely cancel one another (poles close to a zero or to each other), so no single mode's size "
+                     "says how much of the response it shapes",
+                     size * 100.0, total * 100.0);
 }
 
 std::optional<GainPoint> measure_gain(const TransferFunction& plant, double gain, double amplitude,
@@ -204,10 +238,20 @@ std::optional<std::size_t> dominant_crossing(const TransferFunction& plant,
   return std::nullopt;
 }
 
+std::string contribution_words(const ModeShare& m) {
+  if (!m.contribution) return "carries an unknown part of the response (repeated pole)";
+  std::string words = fmt::format("contributes {:+.0f} % of the step's final value", *m.contribution * 100.0);
+  // A pair's term oscillates: its size at t = 0 can be far below its amplitude.
+  if (m.pole.imag() != 0.0 && m.share) words += fmt::format(" (amplitude {:.0f} %)", *m.share * 100.0);
+  return words;
+}
+
 DominanceDiagnosis diagnose_dominance(const TransferFunction& t, Complex pair_pole, const SecondOrderPrediction& pred,
                                       const StepMetrics& sim) {
   DominanceDiagnosis d;
   d.modes = mode_shares(t);
+  d.contribution_sum = contribution_total(t);
+  d.cancellation = cancellation_note(d.modes, d.contribution_sum);
   const double sigma = -pair_pole.real();
   const auto cl_poles = t.poles();
   for (const auto& m : d.modes) {
@@ -217,9 +261,8 @@ DominanceDiagnosis diagnose_dominance(const TransferFunction& t, Complex pair_po
     if (ratio < kFarRatio && significant) {
       d.slow_poles.push_back(m.pole);
       d.reasons.push_back(fmt::format(
-          "closed-loop pole {} decays at {:.2f}× the dominant pair's rate (needs ≥ {:.0f}×) and carries {} of the "
-          "response", fmt_pole(m.pole), ratio, kFarRatio,
-          m.share ? fmt::format("{:.0f} %", *m.share * 100.0) : std::string("an unknown share (repeated pole)")));
+          "closed-loop pole {} decays at {:.2f}× the dominant pair's rate (needs ≥ {:.0f}×) and {}", fmt_pole(m.pole),
+          ratio, kFarRatio, contribution_words(m)));
     }
   }
   if (!t.numerator.is_zero()) {

@@ -52,13 +52,19 @@ json metrics_json(const StepMetrics& m) {
           {"itae", number_json(m.itae)}};
 }
 
+json units_json(const UnitsSpec& u) { return {{"output", u.output}, {"input", u.input}, {"time", u.time}}; }
+
 json dominance_json(const DominanceDiagnosis& d) {
   json modes = json::array();
-  for (const auto& m : d.modes) modes.push_back({{"pole", complex_json(m.pole)}, {"share", optional_json(m.share)}});
+  for (const auto& m : d.modes)
+    modes.push_back({{"pole", complex_json(m.pole)}, {"share", optional_json(m.share)},
+                     {"contribution", optional_json(m.contribution)}});
   return {{"verdict", d.verdict},
           {"holds", d.holds},
           {"reasons", d.reasons},
           {"modes", modes},
+          {"contribution_sum", number_json(d.contribution_sum)},
+          {"cancellation", d.cancellation ? json(*d.cancellation) : json(nullptr)},
           {"overshoot_error_pct", number_json(d.overshoot_error_pct)},
           {"peak_time_error_pct", optional_json(d.peak_time_error_pct)},
           {"settling_time_error_pct", optional_json(d.settling_time_error_pct)}};
@@ -108,6 +114,7 @@ json characterization_json(const Spec& spec, const Characterization& ch) {
   }
   out["notes"] = ch.notes;
   out["linearization"] = linearization_json(spec);
+  out["units"] = units_json(spec.units);
   return out;
 }
 
@@ -337,6 +344,7 @@ json result_json(const DesignRun& run) {
               {"search", search_json(run.search)},
               {"met", run.met},
               {"judged_on", run.judged_on_nonlinear ? "nonlinear" : "linear"},
+              {"units", units_json(run.problem.spec.units)},
               {"safety", kSafetyCaution}};
   out["linear_model"]["linearization"] = linearization_json(run.problem.spec);
   if (run.target)

@@ -4,6 +4,7 @@
 #include <fmt/format.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <atomic>
 #include <csignal>
 #include <filesystem>
@@ -22,7 +23,7 @@ namespace {
 
 using namespace specloop;
 
-std::string opt_time(const std::optional<double>& t) { return t ? fmt::format("{:.4g} s", *t) : "—"; }
+std::string opt_time(const std::optional<double>& t, const std::string& unit) { return t ? fmt::format("{:.4g} {}", *t, unit) : "—"; }
 
 std::string pole_text(Complex p) {
   if (p.imag() == 0.0) return fmt::format("{:.4g}", p.real());
@@ -41,8 +42,27 @@ std::string poles_text(const std::vector<Complex>& poles) {
 
 std::string constant_text(double v) { return std::isinf(v) ? "∞" : fmt::format("{:.4g}", v); }
 
+// The closed-loop modes at the dominant gain with their signed contributions (characterize.hpp).
+void print_modes(const DominanceDiagnosis& d) {
+  fmt::print("  modes (signed contribution to the step's final value at t = 0; they add up to {:.0f} %):\n",
+             d.contribution_sum * 100.0);
+  double known = 0.0;
+  bool missing = false;
+  for (const ModeShare& m : d.modes) {
+    const std::string pole = m.pole.imag() == 0.0 ? fmt::format("{:.4g}", m.pole.real())
+                                                  : fmt::format("{:.4g} ± j{:.4g}", m.pole.real(), m.pole.imag());
+    if (m.contribution) known += *m.contribution;
+    else missing = true;
+    fmt::print("    {:<22} {:>9}{}\n", pole, m.contribution ? fmt::format("{:+.1f} %", *m.contribution * 100.0) : "—",
+               m.pole.imag() != 0.0 && m.share ? fmt::format("   (oscillation amplitude {:.1f} %)", *m.share * 100.0) : "");
+  }
+  if (missing) fmt::print("    {:<22} {:>9}\n", "repeated poles together", fmt::format("{:+.1f} %", (d.contribution_sum - known) * 100.0));
+  if (d.cancellation) fmt::print("  modes cancel: {}\n", *d.cancellation);
+}
+
 void print_analysis(const Spec& spec, const Characterization& ch) {
   const double limit = *spec.requirements.overshoot_max_pct;
+  const std::string& tu = spec.units.time;
   fmt::print("{}\n", spec.title.empty() ? spec.name : spec.title);
   fmt::print("P-only loop K·G against overshoot ≤ {:.4g} %  →  ζ = {:.4f}\n\n", limit, ch.damping_ratio);
   if (ch.crossings.empty()) {
@@ -68,9 +88,9 @@ void print_analysis(const Spec& spec, const Characterization& ch) {
     fmt::print("  {:<18} {:>14} {:>14} {:>10}\n", "", "second-order", "simulated", "error");
     fmt::print("  {:<18} {:>12.3f} % {:>12.3f} % {:>9.0f} %\n", "overshoot", p.overshoot_pct, s.overshoot_pct,
                ch.dominance->overshoot_error_pct);
-    fmt::print("  {:<18} {:>12.4g} s {:>14} {:>10}\n", "peak time", p.peak_time_s, opt_time(s.peak_time_s),
+    fmt::print("  {:<18} {:>14} {:>14} {:>10}\n", "peak time", opt_time(p.peak_time_s, tu), opt_time(s.peak_time_s, tu),
                ch.dominance->peak_time_error_pct ? fmt::format("{:.0f} %", *ch.dominance->peak_time_error_pct) : "—");
-    fmt::print("  {:<18} {:>12.4g} s {:>14} {:>10}\n", "settling time", p.settling_time_s, opt_time(s.settling_time_s),
+    fmt::print("  {:<18} {:>14} {:>14} {:>10}\n", "settling time", opt_time(p.settling_time_s, tu), opt_time(s.settling_time_s, tu),
                ch.dominance->settling_time_error_pct ? fmt::format("{:.0f} %", *ch.dominance->settling_time_error_pct) : "—");
     fmt::print("\n");
   }
@@ -81,19 +101,21 @@ void print_analysis(const Spec& spec, const Characterization& ch) {
   auto row = [&](const char* name, auto f) { fmt::print("  {:<28} {:>14} {:>14}\n", name, cell(d, f), cell(r, f)); };
   row("gain", [](const GainPoint& g) { return fmt::format("{:.5g}", g.gain); });
   row("overshoot", [](const GainPoint& g) { return fmt::format("{:.3f} %", g.simulated.overshoot_pct); });
-  row("peak time", [](const GainPoint& g) { return opt_time(g.simulated.peak_time_s); });
-  row("settling time", [](const GainPoint& g) { return opt_time(g.simulated.settling_time_s); });
-  row("rise time (10–90 %)", [](const GainPoint& g) { return opt_time(g.simulated.rise_time_s); });
+  row("peak time", [&](const GainPoint& g) { return opt_time(g.simulated.peak_time_s, tu); });
+  row("settling time", [&](const GainPoint& g) { return opt_time(g.simulated.settling_time_s, tu); });
+  row("rise time (10–90 %)", [&](const GainPoint& g) { return opt_time(g.simulated.rise_time_s, tu); });
   row("position constant Kp", [](const GainPoint& g) { return constant_text(g.constants.position); });
   row("velocity constant Kv", [](const GainPoint& g) { return constant_text(g.constants.velocity); });
   row("steady-state error", [](const GainPoint& g) { return fmt::format("{:.4g}", g.simulated.steady_state_error); });
-  row("peak |u|", [](const GainPoint& g) { return fmt::format("{:.4g}", g.simulated.effort_peak); });
+  row("peak |u|", [&](const GainPoint& g) { return fmt::format("{:.4g} {}", g.simulated.effort_peak, spec.units.input); });
   row("ITAE", [](const GainPoint& g) { return fmt::format("{:.4g}", g.simulated.itae); });
-  if (r) fmt::print("  reference peak time (what peak_time_ratio multiplies): {}\n", opt_time(r->simulated.peak_time_s));
+  if (r) fmt::print("  reference peak time (what peak_time_ratio multiplies): {}\n", opt_time(r->simulated.peak_time_s, tu));
   else fmt::print("  no reference gain: {}\n", ch.reference_note);
   fmt::print("\nDominance: {}\n", ch.dominance ? ch.dominance->verdict : "no dominant crossing to judge");
-  if (ch.dominance)
+  if (ch.dominance) {
     for (const auto& reason : ch.dominance->reasons) fmt::print("  - {}\n", reason);
+    print_modes(*ch.dominance);
+  }
   for (const auto& note : ch.notes) fmt::print("Note: {}\n", note);
 }
 
@@ -114,8 +136,8 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   fmt::print("\n");
   for (std::size_t i = 0; i < run.problem.requirements.size(); ++i) {
     const Requirement& r = run.problem.requirements[i];
-    fmt::print("  {:<24} {:>12}", r.key, fmt::format("{} {:.4g}{}", r.upper ? "≤" : "≥", r.limit,
-                                                     r.unit.empty() ? "" : " " + r.unit));
+    const std::string unit = requirement_unit(r, spec.units);
+    fmt::print("  {:<24} {:>12}", r.key, fmt::format("{} {:.4g}{}", r.upper ? "≤" : "≥", r.limit, unit.empty() ? "" : " " + unit));
     for (const Design& d : run.designs) fmt::print(" {:>14}", check_cell(d.checks[i]));
     fmt::print("\n");
   }
@@ -123,7 +145,7 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   for (const Design& d : run.designs) fmt::print(" {:>14}", d.meets_all ? "yes" : "no");
   fmt::print("\n");
   // Margins, for every design (informational unless a margin requirement is set).
-  auto margin_row = [&](const char* name, auto get) {
+  auto margin_row = [&](const std::string& name, auto get) {
     fmt::print("  {:<24} {:>12}", name, "");
     for (const Design& d : run.designs) {
       const std::optional<double> v = d.margins ? get(*d.margins) : std::nullopt;
@@ -134,7 +156,7 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   margin_row("gain margin (dB)", [](const Margins& m) { return m.gain_margin_db; });
   margin_row("phase margin (deg)", [](const Margins& m) { return m.phase_margin_deg; });
   margin_row("sensitivity peak Ms", [](const Margins& m) { return std::optional<double>(m.sensitivity_peak); });
-  margin_row("delay margin (s)", [](const Margins& m) { return m.delay_margin_s; });
+  margin_row(fmt::format("delay margin ({})", spec.units.time), [](const Margins& m) { return m.delay_margin_s; });
   fmt::print("  {:<24} {:>12}", "nonlinear loop", "");
   for (const Design& d : run.designs)
     fmt::print(" {:>14}", !d.nonlinear ? "—" : d.nonlinear->confirmed ? "confirmed" : "NOT confirmed");
@@ -150,8 +172,8 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
     for (std::size_t i = 0; i < info.size(); ++i) fmt::print(" {} = {:.5g}", info[i].name, c.series[i]);
     fmt::print("\n");
     if (c.parallel)
-      fmt::print("  parallel: Kp = {:.5g}, Ki = {:.5g}, Kd = {:.5g}, Tf = {:.4g} s\n", c.parallel->kp, c.parallel->ki,
-                 c.parallel->kd, c.parallel->filter_time);
+      fmt::print("  parallel: Kp = {:.5g}, Ki = {:.5g}, Kd = {:.5g}, Tf = {:.4g} {}\n", c.parallel->kp, c.parallel->ki,
+                 c.parallel->kd, c.parallel->filter_time, spec.units.time);
   }
   const SearchSummary& s = run.search;
   fmt::print("Search: NLopt {} then {}, {} evaluations ({} unstable, {} infeasible) in {:.3f} s;\n  {}\n",
@@ -171,6 +193,84 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
              outcome.result.string());
   if (!outcome.figures_rendered) fmt::print("{}\n", outcome.figures_note);
   fmt::print("Caution: {}\n", kSafetyCaution);
+}
+
+// `specloop keys`: the spec-key table (spec_keys, the list the reader checks names against), as
+// plain text or as the README's Markdown table.
+std::string plain(std::string_view text) {
+  std::string out;
+  for (char c : text)
+    if (c != '`') out += c;
+  return out;
+}
+
+std::string markdown_cell(std::string_view text) {
+  std::string out;
+  for (char c : text) {
+    if (c == '|') out += '\\';
+    out += c;
+  }
+  return out;
+}
+
+// Words of `text` on lines of at most `width` characters, each line indented by `indent`.
+std::string wrapped(const std::string& text, std::size_t width, const std::string& indent) {
+  std::string out, line;
+  std::size_t line_length = 0;  // in code points
+  std::size_t start = 0;
+  while (start < text.size()) {
+    std::size_t end = text.find(' ', start);
+    if (end == std::string::npos) end = text.size();
+    const std::string word = text.substr(start, end - start);
+    std::size_t length = 0;
+    for (char c : word) length += (static_cast<unsigned char>(c) & 0xC0u) != 0x80u;
+    if (line_length > 0 && line_length + 1 + length > width) {
+      out += indent + line + "\n";
+      line.clear();
+      line_length = 0;
+    }
+    if (line_length > 0) {
+      line += ' ';
+      ++line_length;
+    }
+    line += word;
+    line_length += length;
+    start = end + 1;
+  }
+  if (!line.empty()) out += indent + line + "\n";
+  return out;
+}
+
+int print_keys(const std::string& prefix, bool markdown) {
+  std::vector<const SpecKey*> rows;
+  for (const SpecKey& k : spec_keys())
+    if (prefix.empty() || k.key == prefix || k.key.starts_with(prefix + "."))
+      rows.push_back(&k);
+  if (rows.empty()) {
+    std::vector<std::string> sections;
+    for (const SpecKey& k : spec_keys()) {
+      const std::string top(k.key.substr(0, k.key.find('.')));
+      if (std::find(sections.begin(), sections.end(), top) == sections.end()) sections.push_back(top);
+    }
+    const auto suggestion = likely_name(prefix, sections);
+    std::cerr << fmt::format("specloop keys: no spec key or section '{}'{}; sections: {}\n", prefix,
+                             suggestion ? fmt::format(" (did you mean '{}'?)", *suggestion) : "", fmt::join(sections, ", "));
+    return 2;
+  }
+  if (markdown) {
+    fmt::print("| key | unit | default | meaning and range |\n| --- | --- | --- | --- |\n");
+    for (const SpecKey* k : rows)
+      fmt::print("| `{}` | {} | {} | {} |\n", k->key, markdown_cell(k->unit), markdown_cell(k->default_value),
+                 markdown_cell(k->meaning));
+    return 0;
+  }
+  fmt::print("Spec file keys (every section but [plant] is optional; a requirement left out is not required):\n\n");
+  for (const SpecKey* k : rows) {
+    fmt::print("{}\n", k->key);
+    fmt::print("    unit: {}   default: {}\n", plain(k->unit), plain(k->default_value));
+    fmt::print("{}", wrapped(plain(k->meaning), 92, "    "));
+  }
+  return 0;
 }
 
 std::atomic<bool> g_stop{false};
@@ -276,6 +376,12 @@ int main(int argc, char** argv) {
   merge->add_option("OUT", merge_out, "merged store (written whole, then moved into place)")->required();
   merge->add_option("IN", merge_in, "input stores")->required();
 
+  std::string keys_prefix;
+  bool keys_markdown = false;
+  auto* keys = app.add_subcommand("keys", "Print the spec file's keys: unit, default, meaning and range");
+  keys->add_option("KEY", keys_prefix, "only this key or section (e.g. controller, requirements.effort_max)");
+  keys->add_flag("--markdown", keys_markdown, "print the table as Markdown (the README's spec-key table)");
+
   std::string report_store, report_out, map_keys, front_metrics = "peak_time,effort_peak", front_loop = "nonlinear";
   std::vector<std::string> report_at;
   double threshold_pct = 10.0;
@@ -292,6 +398,10 @@ int main(int argc, char** argv) {
   sweep_report->add_option("--front-loop", front_loop, "loop the front's metrics are read on: nonlinear (default) or linear");
   sweep_report->add_option("--threshold", threshold_pct, "relative error of the second-order prediction, %, beyond which "
                                                          "a map cell is outlined (default 10)");
+
+  const std::string keys_hint = "Spec file keys (unit, default, meaning): specloop keys [SECTION], or README.md, "
+                                "\"Spec file reference\".";
+  for (CLI::App* command : {&app, analyze, design, sweep}) command->footer(keys_hint);
 
   try {
     app.parse(argc, argv);
@@ -316,6 +426,7 @@ int main(int argc, char** argv) {
       print_design(run, outcome);
       return run.met ? 0 : 1;
     }
+    if (*keys) return print_keys(keys_prefix, keys_markdown);
     if (*sweep) return run_sweep_command(spec_path, vary, store, jobs, shard, point_reports);
     if (*sweep_report) {
       const SweepStoreContents contents = read_sweep_store(report_store);

@@ -108,22 +108,34 @@ struct SectionSchema {
   std::vector<std::string_view> keys;
 };
 
+/// The keys of table `section` ("plant", "plant.nonlinear", ...) in spec_keys() order: the first
+/// component after "section." of every dotted key under it (spec_keys is the one list).
+std::vector<std::string_view> keys_of_section(std::string_view section) {
+  std::vector<std::string_view> keys;
+  for (const SpecKey& row : spec_keys()) {
+    const std::string_view key = row.key;
+    if (key.size() <= section.size() + 1 || !key.starts_with(section) || key[section.size()] != '.') continue;
+    std::string_view rest = key.substr(section.size() + 1);
+    rest = rest.substr(0, rest.find('.'));
+    if (std::find(keys.begin(), keys.end(), rest) == keys.end()) keys.push_back(rest);
+  }
+  return keys;
+}
+
+/// The top-level sections with their keys, derived from spec_keys() (first-appearance order).
 const std::vector<SectionSchema>& section_schemas() {
-  static const std::vector<SectionSchema> schemas{
-      {"plant", {"zeros", "poles", "gain", "numerator", "denominator", "delay", "nonlinear"}},
-      {"actuator", {"min", "max", "rate_max"}},
-      {"controller",
-       {"structure", "derivative_filter", "anti_windup", "tracking_time", "sample_time", "setpoint_weight",
-        "derivative_on"}},
-      {"requirements",
-       {"overshoot_max_pct", "peak_time_ratio", "settling_time_max", "peak_time_max",
-        "rise_time_max", "settling_band_pct", "steady_state_error_max", "effort_max",
-        "undershoot_max_pct", "phase_margin_min_deg", "gain_margin_min_db", "sensitivity_peak_max"}},
-      {"reference", {"amplitude"}},
-      {"search", {"objective", "seed", "max_evaluations", "max_time", "simulate", "bounds"}},
-      {"disturbance", {"time", "size", "noise_rms", "noise_period", "seed"}},
-      {"sweep", {"vary"}},
-  };
+  static const std::vector<SectionSchema> schemas = [] {
+    std::vector<SectionSchema> out;
+    for (const SpecKey& row : spec_keys()) {
+      const std::string_view key = row.key;
+      const auto dot = key.find('.');
+      if (dot == std::string_view::npos) continue;  // a top-level key (title)
+      const std::string_view section = key.substr(0, dot);
+      if (std::none_of(out.begin(), out.end(), [&](const SectionSchema& s) { return s.name == section; }))
+        out.push_back({section, keys_of_section(section)});
+    }
+    return out;
+  }();
   return schemas;
 }
 
@@ -363,6 +375,7 @@ class SpecReader {
     read_search(spec.search, spec.controller.structure);
     read_disturbance(spec.disturbance);
     read_sweep(spec.sweep_vary);
+    read_units(spec.units);
     check_consistency(spec);
     return spec;
   }
@@ -688,7 +701,7 @@ class SpecReader {
     const auto* table = entry.value->as_table();
     if (table == nullptr)
       fail_expected(entry.at, kSection, "a table (a [plant.nonlinear] section)", describe(*entry.value));
-    static const std::vector<std::string_view> kKeys{"states", "derivatives", "output", "parameters", "operating_point"};
+    static const std::vector<std::string_view> kKeys = keys_of_section(kSection);
     for (const auto& key_entry : entries_in_file_order(*table)) {
       if (std::find(kKeys.begin(), kKeys.end(), key_entry.key) != kKeys.end()) continue;
       const std::string key = dotted(kSection, key_entry.key);
@@ -1103,6 +1116,41 @@ class SpecReader {
         fail(position_of(list->get(i)->source()), key, why);
       }
       vary.push_back(text->get());
+    }
+  }
+
+  /// [units]: each a label of 1 to kMaxUnitLength characters (code points), no control characters
+  /// (labels go into gnuplot scripts, the pages and terminal tables).
+  void read_units(UnitsSpec& units) const {
+    const toml::table* table = section("units");
+    if (table == nullptr) return;
+    constexpr std::size_t kMaxUnitLength = 24;
+    const std::string expected =
+        fmt::format("a unit name such as \"m/s\": a non-empty string of at most {} characters without control characters",
+                    kMaxUnitLength);
+    for (auto [name, target] : {std::pair<std::string_view, std::string*>{"output", &units.output},
+                                {"input", &units.input},
+                                {"time", &units.time}}) {
+      const auto entry = find_entry(*table, name);
+      if (!entry) continue;
+      const std::string key = dotted("units", name);
+      const auto* text = entry->value->as_string();
+      if (text == nullptr) fail_expected(entry->at, key, expected, describe(*entry->value));
+      const std::string_view value = text->get();
+      std::size_t code_points = 0;
+      bool control = false, blank = true;
+      for (const char c : value) {
+        const auto byte = static_cast<unsigned char>(c);
+        if ((byte & 0xC0u) != 0x80u) ++code_points;
+        if (byte < 0x20u || byte == 0x7Fu) control = true;
+        if (byte != ' ') blank = false;
+      }
+      if (blank || control || code_points > kMaxUnitLength)
+        fail_expected(entry->at, key, expected,
+                      blank ? std::string("an empty name")
+                            : control ? std::string("a name with a control character")
+                                      : fmt::format("{} ({} characters)", in_quotes(value), code_points));
+      *target = std::string(value);
     }
   }
 

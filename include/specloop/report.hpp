@@ -3,7 +3,9 @@
 #pragma once
 
 #include <filesystem>
+#include <optional>
 #include <string>
+#include <string_view>
 #include <vector>
 
 #include "specloop/design.hpp"
@@ -26,14 +28,29 @@ struct ReportData {
   TransferFunction locus_loop;        // its C(s)·G(s)
   RootLocus locus;
   std::vector<std::pair<std::string, FrequencySeries>> frequency;  // classical and optimized loops
-  double plot_horizon_s = 0.0;        // time axis of the step and effort figures
+  /// Time axis of the step and effort figures: it covers every plotted response's reported
+  /// settling time with room after it (or the whole response when it does not settle), and the
+  /// settling and peak-time limits where the data reach them. Plotted traces end there.
+  double plot_horizon_s = 0.0;
+  std::optional<double> peak_time_limit_s;  // the tighter of peak_time_max and peak_time_ratio × reference
 };
+
+/// A unit as shown with the spec's [units] names: "s" → units.time, "1/s" and "rad/s" per that
+/// time unit, "controller units" → "<input> per <output>"; anything else unchanged.
+std::string shown_unit(std::string_view unit, const UnitsSpec& units);
+
+/// The unit a requirement's limit and value are shown in (effort_max: the input unit).
+std::string requirement_unit(const Requirement& r, const UnitsSpec& units);
+
+/// The controller's action as the report states it: "direct" (u rises while y is below r). The
+/// one place that decides it, for every page and the terminal.
+std::string controller_action(const DesignRun& run);
 
 /// The design the report recommends: the optimized one, else the classical one, else none.
 const Design* recommended_design(const DesignRun& run);
 
 /// Computes the traces (exact linear step simulation; the nonlinear loop as confirmed, 2000
-/// samples), the root locus of the recommended loop for gain multipliers 1e-3 … 1e3 and the
+/// samples, longer when the confirmation reports a later settling time), the root locus of the recommended loop for gain multipliers 1e-3 … 1e3 and the
 /// classical and optimized loops' frequency responses.
 ReportData report_data(const DesignRun& run);
 

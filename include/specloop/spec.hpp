@@ -150,6 +150,14 @@ struct ReferenceSpec {
   double amplitude = 1.0;                     // step size, output units (!= 0)
 };
 
+/// [units]: the names of the units, shown in figure axes, tables, the terminal and result.json.
+/// Labels only: nothing is converted (with time = "min", poles are in rad/min).
+struct UnitsSpec {
+  std::string output = "output units";        // of y (and reference.amplitude, noise_rms)
+  std::string input = "input units";          // of u (actuator limits, effort_max, disturbance.size)
+  std::string time = "s";                     // of every time in the spec and the results
+};
+
 struct Spec {
   std::string path;                           // file it was read from ("<string>" for text)
   std::string name;                           // file stem, used for default output folders
@@ -162,10 +170,23 @@ struct Spec {
   ReferenceSpec reference;
   SearchSpec search;
   DisturbanceSpec disturbance;
+  UnitsSpec units;
   /// [sweep] vary: the axes of `specloop sweep`, each "KEY=FROM:TO:COUNT[log]" or "KEY=a,b,c"
   /// (syntax checked here; the keys are checked against the file by the sweep).
   std::vector<std::string> sweep_vary;
 };
+
+/// One key of the spec file, as `specloop keys` prints it and the README lists it. Free names
+/// are written in angle brackets ("plant.nonlinear.parameters.<name>").
+struct SpecKey {
+  std::string_view key;            // dotted, e.g. "controller.sample_time"; "title" at the top level
+  std::string_view unit;           // "—" for none
+  std::string_view default_value;  // as shown; "—" when there is none
+  std::string_view meaning;        // meaning and range (Markdown: `code`)
+};
+/// Every key the reader accepts, section by section. The reader's unknown-key checks (valid
+/// names, did-you-mean) iterate this table, so a key is accepted exactly when it is listed here.
+const std::vector<SpecKey>& spec_keys();
 
 /// Reads and validates a spec file. Throws SpecError (message as above) on any problem:
 /// unreadable file, TOML syntax, unknown key (with a did-you-mean), wrong type, out-of-range,

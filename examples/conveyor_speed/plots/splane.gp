@@ -12,7 +12,7 @@ do for [term in 'svg png'] {
   set xrange [-59.16795574:14.79198894]
   set yrange [-35.50077344:35.50077344]
   set size ratio -1
-  set key bottom left box opaque font ',9'
+  set key outside right top vertical Left reverse box opaque font ',9' samplen 2
   set arrow from graph 0,first 0 to graph 1,first 0 nohead lc rgb '#999999'
   set arrow from first 0,graph 0 to first 0,graph 1 nohead lc rgb '#999999'
   plot for [b=0:5] '../series/locus.csv' using ((column(2) == b) ? $3 : NaN):4 with lines lc rgb '#1f5f99' lw 1.3 title (b == 0 ? 'root locus (gain × 0.001 … 1000)' : ''), \
@@ -23,7 +23,7 @@ do for [term in 'svg png'] {
        '../series/splane_points.csv' using ((strcol(1) eq 'closed_loop_pole' && strcol(2) eq 'reference') ? $3 : NaN):4 with points pt 7 ps 1.0 lc rgb '#8c8c8c' title 'reference closed-loop poles', \
        '../series/splane_points.csv' using ((strcol(1) eq 'closed_loop_pole' && strcol(2) eq 'classical') ? $3 : NaN):4 with points pt 7 ps 1.0 lc rgb '#c26a1b' title 'classical closed-loop poles', \
        '../series/splane_points.csv' using ((strcol(1) eq 'closed_loop_pole' && strcol(2) eq 'optimized') ? $3 : NaN):4 with points pt 7 ps 1.0 lc rgb '#1f5f99' title 'optimized closed-loop poles', \
-       '../series/splane_points.csv' using ((strcol(1) eq 'dominant_pair') ? $3 : NaN):4 with points pt 4 ps 2.4 lw 2 lc rgb '#1f5f99' title 'dominant pair (recommended design)', \
+       '../series/splane_points.csv' using ((strcol(1) eq 'dominant_pair') ? $3 : NaN):4 with points pt 12 ps 2.8 lw 2 lc rgb '#1f5f99' title 'dominant pair (recommended design)', \
        '../series/splane_points.csv' using ((strcol(1) eq 'breaks_approximation') ? $3 : NaN):4 with points pt 3 ps 2.2 lw 2 lc rgb '#c62828' title 'modes that break the approximation'
   unset output
 }

@@ -8,12 +8,13 @@ do for [term in 'svg png'] {
   if (term eq 'svg') { set terminal svg size 900,520 dynamic font 'Helvetica,12' background rgb 'white'; set output 'effort.svg' } else { set terminal pngcairo size 1200,693 font 'Helvetica,12' background rgb 'white'; set output 'effort.png' }
   set title 'Control effort u(t)' font ',13'
   set xlabel 'time (s)'
-  set ylabel 'u (actuator units)'
-  set xrange [0:14.64261761]
+  set ylabel 'u (V)'
+  set xrange [0:12.20218134]
+  set key outside right top vertical Left reverse box opaque font ',10' samplen 2
   unset object; unset arrow; unset label
   plot 24 with lines lc rgb '#c62828' dt 2 lw 1.5 title 'actuator limits', \
        -24 with lines lc rgb '#c62828' dt 2 lw 1.5 notitle, \
-       24 with lines lc rgb '#6a1b9a' dt 3 lw 1.2 title 'effort\_max 24', \
+       24 with lines lc rgb '#6a1b9a' dt 3 lw 1.2 title 'effort\_max 24 V', \
        -24 with lines lc rgb '#6a1b9a' dt 3 lw 1.2 notitle, \
        '../series/step_reference.csv' every 2 using 1:3 with lines lc rgb '#8c8c8c' lw 1.2  title 'reference (P only)', \
        '../series/step_classical.csv' every 2 using 1:3 with lines lc rgb '#c26a1b' lw 2  title 'classical', \
