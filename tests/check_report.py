@@ -610,12 +610,12 @@ def main():
                             dparser.figures_with_svg == {f"fig-{f}" for f in FIGURES}, str(sorted(dparser.figures_with_svg)))
         tally.check("specs", "a spec without a ζ-line crossing is among them", crossing_seen)
         # The committed example (README) has the files and keys a fresh run writes, so it cannot rot.
-        example = pathlib.Path(args.source_dir, "examples", "conveyor_speed")
+        example = pathlib.Path(args.source_dir, "results", "examples", "conveyor_speed")
         fresh = work / "conveyor_speed"
         if fresh.exists():
             def listing(root):
                 return sorted(str(p.relative_to(root)) for p in root.rglob("*") if p.is_file())
-            tally.check("example", "examples/conveyor_speed holds the files a fresh run writes",
+            tally.check("example", "results/examples/conveyor_speed holds the files a fresh run writes",
                         listing(example) == listing(fresh), f"{listing(example)} vs {listing(fresh)}")
 
             def keys(v, depth=3):
@@ -624,7 +624,7 @@ def main():
                 return None
             old = json.loads((example / "result.json").read_text())
             new = json.loads((fresh / "result.json").read_text())
-            tally.check("example", "examples/conveyor_speed/result.json has the current keys", keys(old) == keys(new))
+            tally.check("example", "results/examples/conveyor_speed/result.json has the current keys", keys(old) == keys(new))
     print(f"{tally.passed} passed, {tally.failed} failed")
     return 1 if tally.failed else 0
 
