@@ -42,6 +42,29 @@ double TransferFunction::dc_gain() const {
   return type > 0 ? std::copysign(std::numeric_limits<double>::infinity(), ratio) : ratio;
 }
 
+double loop_action(const TransferFunction& plant) {
+  if (plant.numerator.is_zero()) return 1.0;
+  return lowest_nonzero_coefficient(plant.numerator) / plant.denominator.leading() < 0.0 ? -1.0 : 1.0;
+}
+
+const char* action_name(double action) { return action < 0.0 ? "reverse" : "direct"; }
+
+std::string action_reason(const TransferFunction& plant) {
+  const bool reverse = loop_action(plant) < 0.0;
+  const int type = plant.system_type();
+  const std::string which =
+      type > 0 ? "its velocity gain lim s·G(s) (s → 0)" : type == 0 ? "its DC gain G(0)" : "its lowest-order gain";
+  const bool unstable_flips = plant.numerator.is_zero() ? false
+                              : (lowest_nonzero_coefficient(plant.numerator) / lowest_nonzero_coefficient(plant.denominator) <
+                                 0.0) != reverse;
+  return std::string(reverse ? "reverse action: every controller gain is negative" : "direct action: every controller gain is positive") +
+         " (the sign of the plant's lowest-order numerator coefficient over its leading denominator coefficient" +
+         (unstable_flips ? ", the opposite of the sign of " + which + " because an odd number of real poles lie in the "
+                                                                     "right half plane"
+                         : ", the sign of " + which) +
+         "; the other sign can never give a stable loop that settles on the reference)";
+}
+
 TransferFunction operator*(const TransferFunction& a, const TransferFunction& b) {
   return {a.numerator * b.numerator, a.denominator * b.denominator};
 }

@@ -655,9 +655,11 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
       } else {
         // Default tracking time (Åström & Hägglund, Advanced PID Control, 2006, anti-windup
         // section; recalled from memory): Tt = √(Ti·Td) with derivative action, else Ti.
-        if (!(g.kp > 0.0 && g.ki > 0.0)) fail("tracking_time_s: no default without Kp > 0 and Ki > 0; give it explicitly");
+        // Ti = Kp/Ki and Td = Kd/Kp are positive for either action (reverse: all gains negative).
+        if (!(g.kp * g.ki > 0.0))
+          fail("tracking_time_s: no default without Kp and Ki of one sign; give it explicitly");
         const double ti = g.kp / g.ki;
-        model.tt = g.kd > 0.0 ? std::sqrt(ti * g.kd / g.kp) : ti;
+        model.tt = g.kd * g.kp > 0.0 ? std::sqrt(ti * g.kd / g.kp) : ti;
       }
       result.notes.push_back("back-calculation tracking time Tt = " + to_string(model.tt) + " s");
     }

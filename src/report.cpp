@@ -65,6 +65,28 @@ std::pair<double, double> frequency_range(const TransferFunction& loop, const st
   return {lo / 100.0, hi * 100.0};
 }
 
+bool all_finite(const std::vector<double>& v) {
+  return std::all_of(v.begin(), v.end(), [](double x) { return std::isfinite(x); });
+}
+
+// A figure's series never carries a NaN or an infinity: a trace with one is left out whole (the
+// figure is drawn without it), a frequency or locus point with one is left out alone.
+bool trace_is_finite(const ResponseTrace& t) {
+  return !t.time_s.empty() && all_finite(t.time_s) && all_finite(t.output) && all_finite(t.control) &&
+         all_finite(t.command);
+}
+
+FrequencySeries finite_rows(const FrequencySeries& f) {
+  FrequencySeries out;
+  for (std::size_t i = 0; i < f.omega_rad_s.size(); ++i)
+    if (std::isfinite(f.omega_rad_s[i]) && std::isfinite(f.magnitude_db[i]) && std::isfinite(f.phase_deg[i])) {
+      out.omega_rad_s.push_back(f.omega_rad_s[i]);
+      out.magnitude_db.push_back(f.magnitude_db[i]);
+      out.phase_deg.push_back(f.phase_deg[i]);
+    }
+  return out;
+}
+
 }  // namespace
 
 ReportData report_data(const DesignRun& run) {
@@ -81,6 +103,7 @@ ReportData report_data(const DesignRun& run) {
                      spec.reference.amplitude, problem.band_fraction, m, &trace) != StepStatus::ok)
       continue;
     ResponseTrace t{d.name, false, std::move(trace.time_s), std::move(trace.output), std::move(trace.effort), {}};
+    if (!trace_is_finite(t)) continue;
     // The time axis: until the slowest plotted design has settled, with room after it.
     const double settled = m.settling_time_s ? *m.settling_time_s : t.time_s.back();
     if (d.name != "ultimate_gain") horizon = std::max(horizon, std::min(1.5 * settled, t.time_s.back()));
@@ -92,9 +115,15 @@ ReportData report_data(const DesignRun& run) {
                                      [&](const ResponseTrace& t) { return t.design == best->name; });
     const double linear_horizon = linear != data.traces.end() ? linear->time_s.back() : horizon;
     const NonlinearSetup setup = nonlinear_setup(problem, linear_horizon, kReportNonlinearSamples);
-    const NonlinearResult r = simulate_on_nonlinear_loop(problem, best->controller, setup);
-    if (r.status == NonlinearStatus::ok) {
-      data.traces.push_back({best->name, true, r.time_s, r.output, r.control, r.command});
+    NonlinearResult r;
+    try {
+      r = simulate_on_nonlinear_loop(problem, best->controller, setup);
+    } catch (const std::invalid_argument&) {
+      r.status = NonlinearStatus::non_finite;  // the confirmation said why; the figure goes without this trace
+    }
+    ResponseTrace nonlinear_trace{best->name, true, r.time_s, r.output, r.control, r.command};
+    if (r.status == NonlinearStatus::ok && trace_is_finite(nonlinear_trace)) {
+      data.traces.push_back(std::move(nonlinear_trace));
       if (spec.disturbance.size != 0.0) horizon = std::max(horizon, std::min(r.time_s.back(), 2.0 * spec.disturbance.time_s));
     }
     data.locus_design = best->name;
@@ -106,9 +135,10 @@ ReportData report_data(const DesignRun& run) {
     if (!d || d->status != StepStatus::ok) continue;
     const TransferFunction loop = d->controller.transfer * problem.plant;
     const auto [lo, hi] = frequency_range(loop, d->margins);
-    data.frequency.emplace_back(name, loop_frequency_response(loop, lo, hi, 300));
+    FrequencySeries f = finite_rows(loop_frequency_response(loop, lo, hi, 300));
+    if (!f.omega_rad_s.empty()) data.frequency.emplace_back(name, std::move(f));
   }
-  data.plot_horizon_s = horizon > 0.0 ? horizon : 1.0;
+  data.plot_horizon_s = horizon > 0.0 && std::isfinite(horizon) ? horizon : 1.0;
   return data;
 }
 
@@ -203,7 +233,7 @@ std::string step_script(const DesignRun& run, const ReportData& data, bool effor
                                 std::max<std::size_t>(1, rows / 700), effort ? 3 : 2, colour_of(t.design, t.nonlinear), t.design == "reference" ? "1.2" : "2",
                                 t.nonlinear ? "dt (8,4)" : "", quoted(label_of(t.design, t.nonlinear))));
   }
-  s += fmt::format("  plot {}\n", fmt::join(plots, ", \\\n       "));
+  s += plot_command(plots, "no stable design to show");
   return script_frame(effort ? "effort" : "step", s);
 }
 
@@ -243,12 +273,19 @@ std::string splane_script(const DesignRun& run, const ReportData& data, double z
                   "lc rgb '#1f5f99' title 'dominant pair (recommended design)'");
   plots.push_back("'../series/splane_points.csv' using ((strcol(1) eq 'breaks_approximation') ? $3 : NaN):4 with points pt 3 ps "
                   "2.2 lw 2 lc rgb '#c62828' title 'modes that break the approximation'");
-  s += fmt::format("  plot {}\n", fmt::join(plots, ", \\\n       "));
+  s += plot_command(plots, "nothing to show");
   return script_frame("splane", s);
 }
 
 std::string frequency_script(const DesignRun& run, const ReportData& data) {
   std::string s;
+  if (data.frequency.empty()) {
+    // Neither loop is stable (or has a finite response): an empty frame that says so.
+    s += "  set title 'Loop frequency response L(jω) = C(jω)·G(jω)' font ',13'\n";
+    s += "  set xrange [0:1]\n  set yrange [0:1]\n  unset xtics\n  unset ytics\n";
+    s += plot_command({}, "no stable classical or optimized loop to show");
+    return script_frame("frequency", s);
+  }
   s += "  set multiplot layout 2,1 title 'Loop frequency response L(jω) = C(jω)·G(jω)' font ',13'\n";
   s += "  set logscale x\n  set format x '10^{%L}'\n  set xlabel 'ω (rad/s)'\n";
   for (int panel = 0; panel < 2; ++panel) {
@@ -303,6 +340,8 @@ std::pair<double, double> write_series(const DesignRun& run, const ReportData& d
     std::vector<double> gain, branch, re, im;
     for (std::size_t b = 0; !data.locus.poles.empty() && b < data.locus.poles.front().size(); ++b)
       for (std::size_t i = 0; i < data.locus.gains.size(); ++i) {
+        const Complex p = data.locus.poles[i][b];
+        if (!std::isfinite(data.locus.gains[i]) || !std::isfinite(p.real()) || !std::isfinite(p.imag())) continue;
         gain.push_back(data.locus.gains[i]);
         branch.push_back(static_cast<double>(b));
         re.push_back(data.locus.poles[i][b].real());
@@ -314,6 +353,7 @@ std::pair<double, double> write_series(const DesignRun& run, const ReportData& d
   double extent_re = 0.0, extent_im = 0.0;
   std::string points = "kind,design,real_per_s,imag_rad_per_s\n";
   auto point = [&](const std::string& kind, const std::string& design, Complex z) {
+    if (!std::isfinite(z.real()) || !std::isfinite(z.imag())) return;  // drawn without it
     points += fmt::format("{},{},{},{}\n", kind, design, csv_number(z.real()), csv_number(z.imag()));
     extent_re = std::max(extent_re, std::abs(z.real()));
     extent_im = std::max(extent_im, std::abs(z.imag()));
@@ -370,12 +410,14 @@ Table requirement_table(const DesignRun& run) {
   for (const Design& d : run.designs) t.header.push_back(d.name);
   for (std::size_t i = 0; i < run.problem.requirements.size(); ++i) {
     const Requirement& r = run.problem.requirements[i];
+    // The limit in its shortest round-trip form; a missed value gets the digits to tell it apart.
     std::vector<Cell> row{{r.key, fmt::format("data-key=\"{}\"", r.key)},
-                          {fmt::format("{} {}", r.upper ? "≤" : "≥", with_unit(r.limit, r.unit)),
+                          {fmt::format("{}{} {}{}", r.magnitude ? "|e| " : "", r.upper ? "≤" : "≥", r.limit,
+                                       r.unit.empty() ? "" : " " + r.unit),
                            fmt::format("data-value=\"{:.17g}\"", r.limit)}};
     for (const Design& d : run.designs) {
       const RequirementCheck& c = d.checks[i];
-      const std::string shown = c.value ? with_unit(*c.value, r.unit) : "none";
+      const std::string shown = c.value ? shown_value(c) + (r.unit.empty() ? "" : " " + r.unit) : "none";
       row.push_back({fmt::format("{} {}", shown, c.met ? "✓" : "✗"),
                      fmt::format("{} data-design=\"{}\" data-met=\"{}\" class=\"{}\"", value_attribute(c.value), d.name,
                                  c.met ? "true" : "false", c.met ? "met" : "missed")});
@@ -420,8 +462,13 @@ std::string controller_lines(const Design& d) {
   std::string s;
   const auto& info = structure_parameters(c.structure);
   std::vector<std::string> series;
+  const std::vector<double> shown = signed_series(c);
   for (std::size_t i = 0; i < info.size(); ++i)
-    series.push_back(fmt::format("{} = {:.5g}{}", info[i].name, c.series[i], info[i].unit.empty() ? "" : " " + info[i].unit));
+    series.push_back(fmt::format("{} = {:.5g}{}", info[i].name, shown[i], info[i].unit.empty() ? "" : " " + info[i].unit));
+  s += fmt::format("action: {}\n", c.action < 0.0 ? "reverse — every gain is negative, as the plant's sign requires (its "
+                                                      "lowest-order numerator coefficient over its leading denominator "
+                                                      "coefficient is negative)"
+                                                    : "direct — every gain is positive");
   s += fmt::format("series ({}): {}\n", structure_name(c.structure), fmt::join(series, ", "));
   if (c.parallel)
     s += fmt::format("parallel: Kp = {:.5g}, Ki = {:.5g} 1/s, Kd = {:.5g} s, Tf = {:.4g} s\n", c.parallel->kp, c.parallel->ki,

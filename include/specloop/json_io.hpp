@@ -20,6 +20,9 @@ nlohmann::json number_json(double v);
 nlohmann::json metrics_json(const StepMetrics& m);
 /// Whether the second-order prediction holds: verdict, reasons, modes with their shares, errors.
 nlohmann::json dominance_json(const DominanceDiagnosis& d);
+/// The P gains for which the loop is stable, as action × gain (signed, the gain on the plant as
+/// given): {"text", "ranges": [{"low", "high", "state": "stable"|"undamped"|"unstable"}]}, ±∞ as strings.
+nlohmann::json stable_gain_set_json(const StableGainSet& set, double action);
 /// The whole `analyze --json` object.
 nlohmann::json characterization_json(const Spec& spec, const Characterization& ch);
 
