@@ -2,6 +2,7 @@
 #include "specloop/json_io.hpp"
 #include "specloop/report.hpp"
 
+#include <algorithm>
 #include <cmath>
 #include <stdexcept>
 
@@ -40,9 +41,12 @@ json gain_point_json(const GainPoint& p, double action) {
 
 json stable_gain_set_json(const StableGainSet& set, double action) {
   json ranges = json::array();
-  for (const StableGainSet::Range& r : set.ranges) {
-    // Signed gains: for reverse action the range (low, high) of magnitudes is (−high, −low).
-    const double a = action * r.low, b = action * r.high;
+  // Signed gains, in increasing order: for reverse action the range (low, high) of magnitudes is
+  // (−high, −low), and the list runs from −∞ up to 0.
+  std::vector<StableGainSet::Range> in_order = set.ranges;
+  if (action < 0.0) std::reverse(in_order.begin(), in_order.end());
+  for (const StableGainSet::Range& r : in_order) {
+    const double a = r.low == 0.0 ? 0.0 : action * r.low, b = action * r.high;
     ranges.push_back({{"low", number_json(std::min(a, b))},
                       {"high", number_json(std::max(a, b))},
                       {"state", r.state == StableGainSet::State::stable     ? "stable"

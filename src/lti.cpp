@@ -3,6 +3,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <fmt/format.h>
 #include <limits>
 #include <stdexcept>
 
@@ -53,16 +54,17 @@ std::string action_reason(const TransferFunction& plant) {
   const bool reverse = loop_action(plant) < 0.0;
   const int type = plant.system_type();
   const std::string which =
-      type > 0 ? "its velocity gain lim s·G(s) (s → 0)" : type == 0 ? "its DC gain G(0)" : "its lowest-order gain";
-  const bool unstable_flips = plant.numerator.is_zero() ? false
-                              : (lowest_nonzero_coefficient(plant.numerator) / lowest_nonzero_coefficient(plant.denominator) <
-                                 0.0) != reverse;
-  return std::string(reverse ? "reverse action: every controller gain is negative" : "direct action: every controller gain is positive") +
-         " (the sign of the plant's lowest-order numerator coefficient over its leading denominator coefficient" +
-         (unstable_flips ? ", the opposite of the sign of " + which + " because an odd number of real poles lie in the "
-                                                                     "right half plane"
-                         : ", the sign of " + which) +
-         "; the other sign can never give a stable loop that settles on the reference)";
+      type > 0 ? "its velocity gain lim s·G(s), s → 0" : type == 0 ? "its DC gain G(0)" : "its lowest-order gain";
+  const bool flipped = !plant.numerator.is_zero() &&
+                       (lowest_nonzero_coefficient(plant.numerator) / lowest_nonzero_coefficient(plant.denominator) < 0.0) !=
+                           reverse;
+  return fmt::format("{} action: every controller gain is {}, because b_low/a_n {} 0 for this plant (its lowest-order "
+                     "numerator coefficient over its leading denominator coefficient; {}); the other sign can never give "
+                     "a stable loop that settles on the reference",
+                     reverse ? "reverse" : "direct", reverse ? "negative" : "positive", reverse ? "<" : ">",
+                     flipped ? "the opposite of the sign of " + which +
+                                   ", because an odd number of real poles lie in the right half plane"
+                             : "here the sign of " + which);
 }
 
 TransferFunction operator*(const TransferFunction& a, const TransferFunction& b) {

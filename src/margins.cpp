@@ -208,8 +208,9 @@ std::string StableGainSet::text(double action, const std::string& symbol) const 
   const bool reverse = action < 0.0;
   const std::string every = fmt::format("every {} {} 0", symbol, reverse ? "<" : ">");
   auto interval = [&](const Range& r) {
-    const std::string lo = fmt::format("{:.4g}", reverse ? -r.low : r.low);
-    const std::string hi = std::isinf(r.high) ? (reverse ? "−∞" : "∞") : fmt::format("{:.4g}", reverse ? -r.high : r.high);
+    auto shown = [&](double k) { return fmt::format("{:.4g}", reverse && k != 0.0 ? -k : k); };
+    const std::string lo = shown(r.low);
+    const std::string hi = std::isinf(r.high) ? (reverse ? "-∞" : "∞") : shown(r.high);
     return reverse ? fmt::format("({}, {})", hi, lo) : fmt::format("({}, {})", lo, hi);
   };
   auto list = [&](State state) {

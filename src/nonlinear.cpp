@@ -693,8 +693,15 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   double y_inf = std::numeric_limits<double>::quiet_NaN();
   double horizon = options.horizon_s;
   {
-    Eigen::FullPivLU<Eigen::MatrixXd> lu(linear.A);
-    if (lu.isInvertible()) y_inf = amplitude * (linear.D(0) - linear.C.row(0).dot(lu.solve(linear.B)));
+    // A loop whose poles are all in the left half plane has an invertible A; FullPivLU's rank
+    // threshold (relative to the largest pivot) misjudged loops with large controller gains as
+    // singular, so solve with partial pivoting and let a non-finite result say "none".
+    if (linear.states() > 0) {
+      const Eigen::PartialPivLU<Eigen::MatrixXd> lu(linear.A);
+      y_inf = amplitude * (linear.D(0) - linear.C.row(0).dot(lu.solve(linear.B)));
+    } else {
+      y_inf = amplitude * linear.D(0);
+    }
     if (!(horizon > 0.0)) {
       if (!options.sample_times_s.empty()) {
         horizon = options.sample_times_s.back();

@@ -651,6 +651,14 @@ class SpecReader {
       for (const LocatedRoot& z : zeros_where_) {
         if (std::abs(p.value - z.value) > kCancellationTolerance * std::max(std::abs(p.value), std::abs(z.value))) continue;
         const bool on_axis = p.value.real() <= kCancellationTolerance * std::abs(p.value);
+        if (plant.nonlinear)
+          fail(z.at, z.key,
+               fmt::format("the linearization at this operating point has a mode at {} {} that u cannot move or the "
+                           "output cannot see (its pole is cancelled by a zero in G(s)): {}, and no controller can "
+                           "reach it; expected every state that does not decay on its own to be driven by u and seen "
+                           "in the output",
+                           root_text(p.value), on_axis ? "on the imaginary axis" : "in the right half plane",
+                           on_axis ? "it never decays" : "it grows unseen"));
         fail(z.at, z.key,
              fmt::format("zero {} cancels the pole {} ({}) {}: the plant has a hidden mode that the output never shows "
                          "and that no controller can reach, so the loop can never be internally stable{}; expected no "
