@@ -427,6 +427,18 @@ Table requirement_table(const DesignRun& run) {
   std::vector<Cell> all{{"meets all", ""}, {"", ""}};
   for (const Design& d : run.designs) all.push_back({d.meets_all ? "yes" : "no", d.meets_all ? "class=\"met\"" : "class=\"missed\""});
   t.rows.push_back(std::move(all));
+  // A conditionally stable loop turns unstable when its gain drops: say by how much.
+  if (std::any_of(run.designs.begin(), run.designs.end(),
+                  [](const Design& d) { return d.margins && d.margins->lower_gain_margin_db; })) {
+    std::vector<Cell> lower{{"lower gain margin (dB)", ""}, {"", ""}};
+    for (const Design& d : run.designs)
+      lower.push_back({!d.margins                        ? "—"
+                       : d.margins->lower_gain_margin_db ? fmt::format("{:.3g} (unstable if the gain drops this much)",
+                                                                       *d.margins->lower_gain_margin_db)
+                                                         : "none",
+                       ""});
+    t.rows.push_back(std::move(lower));
+  }
   std::vector<Cell> confirmed{{"nonlinear loop", ""}, {"", ""}};
   for (const Design& d : run.designs)
     confirmed.push_back({!d.nonlinear ? "—" : d.nonlinear->confirmed ? "confirmed" : "NOT confirmed",
