@@ -240,7 +240,9 @@ std::string step_script(const DesignRun& run, const ReportData& data, bool effor
 std::string splane_script(const DesignRun& run, const ReportData& data, double zeta, double extent_re, double extent_im) {
   std::string s;
   s += fmt::format("  set title {} font ',13'\n",
-                   quoted(fmt::format("s-plane: root locus of the {} loop as its gain varies", data.locus_design)));
+                   quoted(data.locus_design.empty()
+                              ? std::string("s-plane: the plant's poles and zeros (no stable design to vary)")
+                              : fmt::format("s-plane: root locus of the {} loop as its gain varies", data.locus_design)));
   s += "  set xlabel 'real (1/s)'\n  set ylabel 'imaginary (rad/s)'\n";
   s += fmt::format("  set xrange [{}:{}]\n  set yrange [{}:{}]\n", csv_number(-extent_re), csv_number(0.25 * extent_re),
                    csv_number(-extent_im), csv_number(extent_im));
@@ -362,6 +364,11 @@ std::pair<double, double> write_series(const DesignRun& run, const ReportData& d
     for (const Complex& p : data.locus_loop.poles()) point("open_loop_pole", data.locus_design, p);
     if (!data.locus_loop.numerator.is_zero())
       for (const Complex& z : data.locus_loop.zeros()) point("open_loop_zero", data.locus_design, z);
+  } else {
+    // No stable design, so no locus: the plant's own poles and zeros at least.
+    for (const Complex& p : run.problem.plant.poles()) point("open_loop_pole", "plant", p);
+    if (!run.problem.plant.numerator.is_zero())
+      for (const Complex& z : run.problem.plant.zeros()) point("open_loop_zero", "plant", z);
   }
   for (const Design& d : run.designs)
     if (d.status == StepStatus::ok && d.name != "ultimate_gain")
@@ -396,7 +403,7 @@ std::pair<double, double> write_series(const DesignRun& run, const ReportData& d
   for (const auto& [name, f] : data.frequency)
     write_csv(dir / fmt::format("frequency_{}.csv", name), {"omega_rad_per_s", "magnitude_db", "phase_deg"},
               {&f.omega_rad_s, &f.magnitude_db, &f.phase_deg});
-  extent_re = std::max(extent_re * 1.3, 1e-6);
+  extent_re = extent_re > 0.0 ? std::max(extent_re * 1.3, 1e-6) : 1.0;  // every point at the origin: a unit view
   extent_im = std::max(extent_im * 1.3, 0.6 * extent_re);
   return {extent_re, extent_im};
 }

@@ -5,7 +5,8 @@ Invoked by CTest as
     /usr/bin/python3 tests/check_unusual_plants.py --specloop BIN --probe PROBE --source-dir ROOT
 
 Each file there is a valid spec of one class of plant (its first line says which: reverse acting,
-integrating, non-minimum phase with mixed signs, open-loop unstable, triple and double
+integrating, third order with every design rule, non-minimum phase with mixed signs, open-loop
+unstable, triple and double
 integrators, a cancelled stable pair, the edges of the supported magnitudes, a reverse-acting
 expression plant). For each, `specloop design` must exit 0 or 1 (never 2 or 3) and write
 result.json, report.html, report.md and the four figures. Then, from result.json alone:
@@ -31,6 +32,9 @@ result.json, report.html, report.md and the four figures. Then, from result.json
                 (series/step_optimized_nonlinear.csv) equals scipy.integrate.solve_ivp on the
                 same loop (u_c = Kp·(r − y) + I, u = clip(u_c), I' = Ki·(r − y) + (u − u_c)/Tt,
                 README "Confirmation on the nonlinear loop"; Åström & Hägglund's back-calculation).
+  ultimate      where result.json has `ultimate`: the P gain `ultimate.gain` (signed like the
+                action) puts a pair of closed-loop poles on the axis at ±j·`ultimate.frequency`
+                (numpy.roots), so the Ziegler–Nichols baseline starts from the right point.
   triple        triple_integrator_pid: exit 1, binding "stability", and the reason names the
                 missing s^3 term (a PID on 1/s³ gives Tf·s⁵ + s⁴ + 0·s³ + …, which no gains make
                 Hurwitz: Stodola's necessary condition, common practice).
@@ -215,6 +219,13 @@ def check_plant(tally, specloop, spec_file):
         tally.check(case, "action = the sign rule of the plant",
                     result["action"]["sign"] == action and result["action"]["name"] == ("reverse" if action < 0 else "direct"),
                     f"{result['action']} vs {action}")
+        if result.get("ultimate"):
+            # The ultimate gain (signed like the action) puts a closed-loop pair on the axis at ±jω_u.
+            ku, wu = result["ultimate"]["gain"], result["ultimate"]["frequency"]
+            roots = np.roots(np.polyadd(g_den, ku * np.asarray(g_num)))
+            on_axis = min(abs(r - 1j * wu) for r in roots) <= 1e-6 * wu
+            tally.check(case, f"ultimate gain {ku:.6g} (sign of the action) puts poles at ±j{wu:.6g}",
+                        on_axis and ku * action > 0, str(roots))
         band = result["spec"]["requirements"]["settling_band_pct"] / 100.0
         r = result["spec"]["reference"]["amplitude"]
         for name, d in result["designs"].items():
@@ -271,6 +282,10 @@ def check_plant(tally, specloop, spec_file):
             tally.check(case, "exit 1, binding 'stability', the missing s^3 term named",
                         run.returncode == 1 and info.get("binding") == "stability" and "s^3" in info.get("nearest", ""),
                         json.dumps(info)[:300])
+        if case == "reverse_third_order_pid":
+            tally.check(case, "every design rule ran (reference, classical, ultimate gain, optimized)",
+                        sorted(result["designs"]) == ["classical", "optimized", "reference", "ultimate_gain"]
+                        and result["ultimate"]["gain"] < 0, f"{sorted(result['designs'])}, {result.get('ultimate')}")
         if action < 0:
             tally.check(case, "terminal states the reverse action", "reverse action" in run.stdout)
             html = (out_dir / "report.html").read_text()
