@@ -309,9 +309,16 @@ DominanceDiagnosis diagnose_dominance(const TransferFunction& t, Complex pair_po
 
 namespace {
 
-// The smallest P gain whose simulated overshoot equals the limit.
+// The smallest P gain whose simulated overshoot equals the limit, searched within the stable
+// gains (ch.p_stability); gains are magnitudes on the plant with direct action.
 std::optional<GainPoint> find_reference(const TransferFunction& plant, const Characterization& ch, double limit,
                                         double amplitude, StepSimulator& sim, std::string& note) {
+  const double action = ch.action;
+  auto signed_gain = [&](double k) { return fmt::format("{:.4g}", action * k); };
+  if (ch.p_stability.never_stable()) {
+    note = fmt::format("no P gain gives a stable loop: the closed loop is {}", ch.p_stability.text(action));
+    return std::nullopt;
+  }
   double anchor = 0.0;
   if (ch.dominant) anchor = ch.dominant->gain;
   else if (!ch.crossings.empty()) anchor = ch.crossings.front().gain;
@@ -328,21 +335,32 @@ std::optional<GainPoint> find_reference(const TransferFunction& plant, const Cha
       return std::nullopt;
     return m.overshoot_pct;
   };
-  // Geometric scan upward from well below the anchor until the overshoot passes the limit.
+  // Geometric scan upward through each stable range of gains (from well below the anchor when
+  // the range starts at 0; up to well above it when it has no end) until the overshoot passes
+  // the limit.
   const int points = 120;
-  const double lo = anchor * 1e-4, hi = anchor * 1e4;
-  double prev_k = 0.0;
-  std::optional<double> prev_os;
-  for (int i = 0; i <= points; ++i) {
-    const double k = lo * std::pow(hi / lo, static_cast<double>(i) / points);
-    const auto os = overshoot(k);
-    if (!os) {
-      note = fmt::format("the loop turns unstable at K ≈ {:.4g} before any stable gain reaches {:.4g} % overshoot", k, limit);
-      return std::nullopt;
-    }
-    if (*os >= limit) {
+  std::optional<double> largest_seen;
+  for (const StableGainSet::Range& range : ch.p_stability.ranges) {
+    if (range.state != StableGainSet::State::stable) continue;
+    // Stay a hair inside the range: at its ends a pole sits on the imaginary axis.
+    const double lo = range.low > 0.0 ? range.low * (1.0 + 1e-6) : anchor * 1e-4;
+    const double hi = std::isinf(range.high) ? std::max(anchor, lo) * 1e4 : range.high * (1.0 - 1e-6);
+    if (!(hi > lo)) continue;
+    double prev_k = 0.0;
+    std::optional<double> prev_os;
+    for (int i = 0; i <= points; ++i) {
+      const double k = lo * std::pow(hi / lo, static_cast<double>(i) / points);
+      const auto os = overshoot(k);
+      if (!os) continue;  // at the edge of the range: rounding
+      largest_seen = std::max(largest_seen.value_or(0.0), *os);
+      if (*os < limit) {
+        prev_k = k;
+        prev_os = os;
+        continue;
+      }
       if (!prev_os) {
-        note = fmt::format("even K = {:.4g} already overshoots {:.4g} %", k, *os);
+        note = fmt::format("the closed loop is {}, and even K = {} already overshoots {:.4g} %",
+                           ch.p_stability.text(action), signed_gain(k), *os);
         return std::nullopt;
       }
       boost::uintmax_t iterations = 100;
@@ -354,11 +372,9 @@ std::optional<GainPoint> find_reference(const TransferFunction& plant, const Cha
       if (!point) note = "the reference gain could not be simulated";
       return point;
     }
-    prev_k = k;
-    prev_os = os;
   }
-  note = fmt::format("no P gain up to {:.4g} reaches {:.4g} % overshoot (largest seen {:.3g} %)", hi, limit,
-                     prev_os.value_or(0.0));
+  note = fmt::format("the closed loop is {}, and no stable P gain reaches {:.4g} % overshoot (largest seen {:.3g} %)",
+                     ch.p_stability.text(action), limit, largest_seen.value_or(0.0));
   return std::nullopt;
 }
 
@@ -378,7 +394,20 @@ Characterization characterize(const Spec& spec) {
   const double amplitude = spec.reference.amplitude;
   ch.band_fraction = spec.requirements.settling_band_pct / 100.0;
   ch.damping_ratio = damping_from_overshoot(limit);
-  const TransferFunction plant = linear_plant(spec);
+  // Every gain here is for the plant with direct action (action·G, positive gains); analyze and
+  // result.json show action × gain, the gain on the plant as given.
+  const TransferFunction given = linear_plant(spec);
+  ch.action = loop_action(given);
+  const TransferFunction plant(ch.action * given.numerator, given.denominator);
+  ch.p_stability = stable_gain_set(plant);
+  if (ch.action < 0.0)
+    ch.notes.push_back(action_reason(given) + "; every gain here is shown with that sign");
+  for (const Complex& p : spec.plant.poles)
+    for (const Complex& z : spec.plant.zeros)
+      if (p.imag() >= 0.0 && std::abs(p - z) <= kCancellationTolerance * std::max(std::abs(p), std::abs(z)))
+        ch.notes.push_back(fmt::format("the plant's pole {} is cancelled by its zero {}: a stable mode the output never "
+                                       "shows; it decays on its own, but a load at the plant input excites it unseen",
+                                       fmt_pole(p), fmt_pole(z)));
   if (spec.plant.nonlinear) {
     const NonlinearPlantSpec& nl = *spec.plant.nonlinear;
     std::string point;

@@ -33,6 +33,7 @@ std::vector<Requirement> requirement_list(const Requirements& r) {
   add(r.settling_time_max_s, "settling_time_max", "s", true);
   add(r.rise_time_max_s, "rise_time_max", "s", true);
   add(r.steady_state_error_max, "steady_state_error_max", "", true);
+  if (r.steady_state_error_max) out.back().magnitude = true;  // the signed error e∞ = (r − y∞)/r, |e∞| ≤ limit
   add(r.effort_max, "effort_max", "", true);
   add(r.phase_margin_min_deg, "phase_margin_min_deg", "deg", false);
   add(r.gain_margin_min_db, "gain_margin_min_db", "dB", false);
@@ -69,7 +70,7 @@ std::optional<double> requirement_value(const Requirement& r, const StepMetrics&
   if (k == "peak_time_max") return effective_peak_time(m, band_pct);
   if (k == "settling_time_max") return m.settling_time_s;
   if (k == "rise_time_max") return m.rise_time_s;
-  if (k == "steady_state_error_max") return std::abs(m.steady_state_error);
+  if (k == "steady_state_error_max") return m.steady_state_error;  // signed; the bound is on |e∞|
   if (k == "effort_max") return m.effort_peak;
   if (!margins) return std::nullopt;
   if (k == "phase_margin_min_deg") return margins->phase_margin_deg.value_or(kInf);
@@ -82,7 +83,8 @@ double requirement_violation(const Requirement& r, const std::optional<double>& 
   if (!value) return 1.0;
   // A zero limit (steady-state error 0) is scaled by 1 % so that a miss is measurable.
   const double scale = r.limit != 0.0 ? std::abs(r.limit) : 0.01;
-  const double v = std::isinf(*value) ? (*value > 0 ? kInf : -kInf) : *value;
+  const double read = r.magnitude ? std::abs(*value) : *value;
+  const double v = std::isinf(read) ? (read > 0 ? kInf : -kInf) : read;
   const double miss = r.upper ? (v - r.limit) / scale : (r.limit - v) / scale;
   if (std::isinf(miss)) return miss > 0 ? 1e3 : 0.0;
   // Exact zero steady-state error is computed to ~1e-12; count that as met.
@@ -92,9 +94,23 @@ double requirement_violation(const Requirement& r, const std::optional<double>& 
 double requirement_slack(const Requirement& r, const std::optional<double>& value) {
   if (!value) return -1.0;
   const double scale = r.limit != 0.0 ? std::abs(r.limit) : 0.01;
-  const double v = std::isinf(*value) ? (*value > 0 ? kInf : -kInf) : *value;
+  const double read = r.magnitude ? std::abs(*value) : *value;
+  const double v = std::isinf(read) ? (read > 0 ? kInf : -kInf) : read;
   const double room = r.upper ? (r.limit - v) / scale : (v - r.limit) / scale;
   return std::isinf(room) ? (room > 0 ? 1e3 : -1e3) : room;
+}
+
+std::string shown_value(const RequirementCheck& c) {
+  if (!c.value) return "—";
+  const double v = *c.value;
+  if (std::isinf(v)) return v > 0 ? "∞" : "−∞";
+  int digits = 4;
+  if (!c.met) {
+    // A miss never reads as the limit itself (tables show the limit in its shortest form).
+    const double read = c.requirement.magnitude ? std::abs(v) : v;
+    while (digits < 17 && std::stod(fmt::format("{:.{}g}", read, digits)) == c.requirement.limit) ++digits;
+  }
+  return fmt::format("{:.{}g}", v, digits);
 }
 
 std::string tightest_requirement(const std::vector<RequirementCheck>& checks) {
@@ -118,6 +134,8 @@ Problem make_problem(const Spec& spec, const Characterization& ch) {
   Problem p;
   p.spec = spec;
   p.plant = linear_plant(spec);
+  p.action = loop_action(p.plant);
+  p.normalized_plant = TransferFunction(p.action * p.plant.numerator, p.plant.denominator);
   p.plant_realization = realize(p.plant);
   p.delay_free_realization =
       spec.plant.delay_s > 0.0

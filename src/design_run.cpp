@@ -1,6 +1,7 @@
 // The `design` pipeline: every design of a spec, measured the same way.
 #include <cmath>
 #include <fmt/format.h>
+#include <optional>
 
 #include "specloop/design.hpp"
 
@@ -31,6 +32,27 @@ std::vector<double> middle_of_bounds(const Problem& p) {
   return x;
 }
 
+// The power of s that the closed loop's characteristic polynomial Dc·D + Nc·N lacks for every
+// choice of the structure's parameters, if any. Dc and Nc have positive coefficients wherever
+// they are nonzero, so a term is missing for all parameters exactly when it is missing at one
+// generic point (the geometric middle of the bounds, nudged off round numbers).
+std::optional<int> structurally_missing_power(const Problem& problem) {
+  std::vector<double> x;
+  for (const auto& [lo, hi] : problem.bounds) x.push_back(std::sqrt(lo * hi) * 1.0123456789);
+  Controller c;
+  try {
+    c = make_controller(problem.spec.controller.structure, x, problem.spec.controller.derivative_filter, 1.0);
+  } catch (const std::invalid_argument&) {
+    return std::nullopt;
+  }
+  const TransferFunction& g = problem.normalized_plant;
+  const Polynomial p = c.transfer.denominator * g.denominator + c.transfer.numerator * g.numerator;
+  const int n = p.degree();
+  for (int i = 0; i <= n; ++i)
+    if (p.coefficients[static_cast<std::size_t>(i)] == 0.0) return n - i;
+  return std::nullopt;
+}
+
 // Every missed check, and the one missed by the most (normalized) as the binding requirement.
 Infeasibility collect_misses(const std::vector<RequirementCheck>& checks) {
   Infeasibility info;
@@ -49,9 +71,16 @@ Infeasibility collect_misses(const std::vector<RequirementCheck>& checks) {
 Infeasibility analyze_misses(const Problem& problem, const Design& best, const SearchResult& first,
                              const SearchOptions& options) {
   Infeasibility info = collect_misses(best.checks);
-  if (info.binding.empty()) {
+  if (info.binding.empty() || best.status != StepStatus::ok) {
+    // Unstable: every requirement "missed" says nothing; stability is what binds.
     info.binding = "stability";
-    info.nearest_text = "no stable design was found within the search bounds";
+    const auto missing = structurally_missing_power(problem);
+    info.nearest_text =
+        missing ? fmt::format("no {} controller can stabilize this plant: the closed loop's characteristic polynomial "
+                              "has no s^{} term whatever the gains, and a polynomial with a missing term is never "
+                              "Hurwitz (Stodola's necessary condition); another structure is needed",
+                              structure_name(problem.spec.controller.structure), *missing)
+                : "no stable design was found within the search bounds";
     return info;
   }
   // How far can the binding requirement go with the others met? Search again on it alone.
@@ -98,7 +127,8 @@ DesignRun run_design(const Spec& spec) {
   const double n = spec.controller.derivative_filter;
 
   if (run.characterization.reference) {
-    Design ref = measure_design(problem, "reference", make_controller(Structure::p, {run.characterization.reference->gain}, n));
+    Design ref = measure_design(problem, "reference",
+                                make_controller(Structure::p, {run.characterization.reference->gain}, n, problem.action));
     ref.notes.push_back("P gain whose simulated overshoot equals the limit (from analyze)");
     run.designs.push_back(std::move(ref));
   }
@@ -110,9 +140,11 @@ DesignRun run_design(const Spec& spec) {
     classical_notes.push_back(fmt::format("target dominant pole {:.4g} ± j{:.4g} ({})", run.target->pole.real(),
                                           run.target->pole.imag(), run.target->derivation));
     const double zeta = -run.target->pole.real() / std::abs(run.target->pole);
-    classical = classical_controller(problem.plant, structure, n, run.target->pole, zeta,
+    // The hand rules work on the plant with direct action; the controller then takes the action.
+    classical = classical_controller(problem.normalized_plant, structure, n, run.target->pole, zeta,
                                      spec.requirements.steady_state_error_max, classical_notes);
     if (classical) {
+      classical = make_controller(structure, classical->series, n, problem.action);
       Design d = measure_design(problem, "classical", *classical);
       d.notes = classical_notes;
       run.designs.push_back(std::move(d));
@@ -120,14 +152,14 @@ DesignRun run_design(const Spec& spec) {
   }
 
   std::optional<Controller> baseline;
-  run.ultimate = ultimate_point(problem.plant);
+  run.ultimate = ultimate_point(problem.normalized_plant);
   if (run.ultimate) {
     if (const auto form = ziegler_nichols(structure, *run.ultimate, n)) {
       if (const auto series = series_from_standard(structure, *form)) {
-        baseline = make_controller(structure, *series, n);
+        baseline = make_controller(structure, *series, n, problem.action);
         Design d = measure_design(problem, "ultimate_gain", *baseline);
         d.notes.push_back(fmt::format("Ziegler–Nichols closed-loop rules from Ku = {:.4g}, Tu = {:.4g} s",
-                                      run.ultimate->gain, run.ultimate->period_s));
+                                      problem.action * run.ultimate->gain, run.ultimate->period_s));
         run.designs.push_back(std::move(d));
       }
     }
@@ -153,8 +185,23 @@ DesignRun run_design(const Spec& spec) {
       run.infeasibility = info;
     }
   } else {
-    run.met = best.meets_all;
-    if (!best.meets_all) run.infeasibility = analyze_misses(problem, best, result, options);
+    // "Met" needs the search's own evaluation of its best point and the re-measurement of the
+    // controller to agree: a best point the search rated unstable or infeasible is never met, even
+    // if the re-measurement (another realization of the same loop) passes.
+    run.met = best.meets_all && result.summary.feasible;
+    if (best.meets_all && !result.summary.feasible) {
+      Infeasibility info;
+      info.binding = "search";
+      info.nearest_text = fmt::format(
+          "the search rated its best point {}, but the re-measured controller meets every requirement: the two "
+          "evaluations of one loop disagree, which happens only at the edge of what the numerics resolve, so the "
+          "design is not claimed as met",
+          result.summary.best_violation > 0.0 ? "infeasible" : "unstable");
+      best.notes.push_back(info.nearest_text);
+      run.infeasibility = info;
+    } else if (!best.meets_all) {
+      run.infeasibility = analyze_misses(problem, best, result, options);
+    }
   }
   run.designs.push_back(std::move(best));
   return run;

@@ -2,6 +2,7 @@
 #include "specloop/json_io.hpp"
 #include "specloop/report.hpp"
 
+#include <algorithm>
 #include <cmath>
 #include <stdexcept>
 
@@ -26,8 +27,9 @@ json poles_json(const std::vector<Complex>& poles) {
 namespace {
 json optional_json(const std::optional<double>& v) { return v ? number_json(*v) : json(nullptr); }
 
-json gain_point_json(const GainPoint& p) {
-  return {{"gain", number_json(p.gain)},
+// Gains are shown as the controller gain on the plant as given: action × the magnitude.
+json gain_point_json(const GainPoint& p, double action) {
+  return {{"gain", number_json(action * p.gain)},
           {"poles", poles_json(p.poles)},
           {"simulated", metrics_json(p.simulated)},
           {"error_constants",
@@ -36,6 +38,23 @@ json gain_point_json(const GainPoint& p) {
             {"acceleration", number_json(p.constants.acceleration)}}}};
 }
 }  // namespace
+
+json stable_gain_set_json(const StableGainSet& set, double action) {
+  json ranges = json::array();
+  // Signed gains, in increasing order: for reverse action the range (low, high) of magnitudes is
+  // (−high, −low), and the list runs from −∞ up to 0.
+  std::vector<StableGainSet::Range> in_order = set.ranges;
+  if (action < 0.0) std::reverse(in_order.begin(), in_order.end());
+  for (const StableGainSet::Range& r : in_order) {
+    const double a = r.low == 0.0 ? 0.0 : action * r.low, b = action * r.high;
+    ranges.push_back({{"low", number_json(std::min(a, b))},
+                      {"high", number_json(std::max(a, b))},
+                      {"state", r.state == StableGainSet::State::stable     ? "stable"
+                                : r.state == StableGainSet::State::undamped ? "undamped"
+                                                                            : "unstable"}});
+  }
+  return {{"text", set.text(action)}, {"ranges", ranges}};
+}
 
 json metrics_json(const StepMetrics& m) {
   return {{"final_value", number_json(m.final_value)},
@@ -79,14 +98,14 @@ json characterization_json(const Spec& spec, const Characterization& ch) {
   out["settling_band_pct"] = number_json(ch.band_fraction * 100.0);
   json crossings = json::array();
   for (const auto& c : ch.crossings)
-    crossings.push_back({{"gain", number_json(c.gain)},
+    crossings.push_back({{"gain", number_json(ch.action * c.gain)},
                          {"pair", complex_json(c.pair_pole)},
                          {"poles", poles_json(c.poles)},
                          {"stable", c.stable},
                          {"decay_ratio", number_json(c.decay_ratio)}});
   out["crossings"] = crossings;
   if (ch.dominant && ch.second_order) {
-    json d = gain_point_json(*ch.dominant);
+    json d = gain_point_json(*ch.dominant, ch.action);
     d["index"] = *ch.dominant_index;
     d["pair"] = complex_json(ch.crossings[*ch.dominant_index].pair_pole);
     d["why"] = ch.dominant_reason;
@@ -101,7 +120,7 @@ json characterization_json(const Spec& spec, const Characterization& ch) {
     out["dominant_note"] = ch.dominant_reason;
   }
   if (ch.reference) {
-    out["reference"] = gain_point_json(*ch.reference);
+    out["reference"] = gain_point_json(*ch.reference, ch.action);
   } else {
     out["reference"] = nullptr;
     out["reference_note"] = ch.reference_note;
@@ -115,6 +134,8 @@ json characterization_json(const Spec& spec, const Characterization& ch) {
   out["notes"] = ch.notes;
   out["linearization"] = linearization_json(spec);
   out["units"] = units_json(spec.units);
+  out["action"] = action_name(ch.action);
+  out["p_stability"] = stable_gain_set_json(ch.p_stability, ch.action);
   return out;
 }
 
@@ -210,7 +231,8 @@ json design_json(const Design& d) {
   const Controller& c = d.controller;
   json series = json::object();
   const auto& info = structure_parameters(c.structure);
-  for (std::size_t i = 0; i < info.size(); ++i) series[info[i].name] = number_json(c.series[i]);
+  const std::vector<double> shown = signed_series(c);
+  for (std::size_t i = 0; i < info.size(); ++i) series[info[i].name] = number_json(shown[i]);
   json parallel = nullptr, standard = nullptr;
   if (c.parallel)
     parallel = {{"kp", number_json(c.parallel->kp)}, {"ki", number_json(c.parallel->ki)},
@@ -226,6 +248,7 @@ json design_json(const Design& d) {
       out.push_back({{"requirement", check.requirement.key},
                      {"limit", number_json(check.requirement.limit)},
                      {"bound", check.requirement.upper ? "max" : "min"},
+                     {"on_magnitude", check.requirement.magnitude},  // the bound applies to |value|
                      {"unit", check.requirement.unit},
                      {"value", optional_number(check.value)},
                      {"met", check.met},
@@ -236,6 +259,7 @@ json design_json(const Design& d) {
   json out = {{"status", status_name(d.status)},
               {"controller",
                {{"structure", structure_name(c.structure)},
+                {"action", action_name(c.action)},
                 {"numerator", numbers(c.transfer.numerator.coefficients)},
                 {"denominator", numbers(c.transfer.denominator.coefficients)},
                 {"derivative_filter", number_json(c.derivative_filter)},
@@ -300,7 +324,9 @@ json design_json(const Design& d) {
                       {"gain_crossover", optional_number(m.gain_crossover_rad_s)},
                       {"sensitivity_peak", number_json(m.sensitivity_peak)},
                       {"sensitivity_peak_frequency", number_json(m.sensitivity_peak_rad_s)},
-                      {"delay_margin", m.delay_margin_s ? number_json(*m.delay_margin_s) : json("infinite")}};
+                      {"delay_margin", m.delay_margin_s ? number_json(*m.delay_margin_s) : json("infinite")},
+                      {"lower_gain_margin_db", optional_number(m.lower_gain_margin_db)},
+                      {"lower_phase_crossover", optional_number(m.lower_phase_crossover_rad_s)}};
   } else {
     out["margins"] = nullptr;
   }
@@ -340,6 +366,8 @@ json result_json(const DesignRun& run) {
                 {"denominator", numbers(run.problem.plant.denominator.coefficients)},
                 {"delay_approximant_order", run.problem.spec.plant.delay_s > 0.0 ? json(kDelayApproximantOrder) : json(nullptr)}}},
               {"reference_peak_time", optional_number(run.problem.reference_peak_time_s)},
+              {"action", {{"name", action_name(run.problem.action)}, {"sign", number_json(run.problem.action)},
+                          {"reason", action_reason(run.problem.plant)}}},
               {"designs", designs},
               {"search", search_json(run.search)},
               {"met", run.met},
@@ -350,7 +378,7 @@ json result_json(const DesignRun& run) {
   if (run.target)
     out["target_pole"] = {{"pole", complex_json(run.target->pole)}, {"derivation", run.target->derivation}};
   if (run.ultimate)
-    out["ultimate"] = {{"gain", number_json(run.ultimate->gain)}, {"period", number_json(run.ultimate->period_s)},
+    out["ultimate"] = {{"gain", number_json(run.problem.action * run.ultimate->gain)}, {"period", number_json(run.ultimate->period_s)},
                        {"frequency", number_json(run.ultimate->frequency_rad_s)}};
   if (run.infeasibility) {
     json misses = json::array();

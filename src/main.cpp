@@ -64,7 +64,10 @@ void print_analysis(const Spec& spec, const Characterization& ch) {
   const double limit = *spec.requirements.overshoot_max_pct;
   const std::string& tu = spec.units.time;
   fmt::print("{}\n", spec.title.empty() ? spec.name : spec.title);
-  fmt::print("P-only loop K·G against overshoot ≤ {:.4g} %  →  ζ = {:.4f}\n\n", limit, ch.damping_ratio);
+  const double a = ch.action;  // gains are shown as the controller gain on the plant as given
+  fmt::print("P-only loop K·G against overshoot ≤ {:.4g} %  →  ζ = {:.4f}{}\n", limit, ch.damping_ratio,
+             a < 0.0 ? "  (reverse action: K < 0)" : "");
+  fmt::print("P-gain stability: {}\n\n", ch.p_stability.text(a));
   if (ch.crossings.empty()) {
     fmt::print("ζ-line crossings: none. {}\n", ch.dominant_reason);
   } else {
@@ -72,7 +75,7 @@ void print_analysis(const Spec& spec, const Characterization& ch) {
     fmt::print("  {:>3}  {:>12}  {:>22}  {:>7}  {:>9}\n", "#", "gain K", "crossing point", "stable", "σ ratio");
     for (std::size_t i = 0; i < ch.crossings.size(); ++i) {
       const auto& c = ch.crossings[i];
-      fmt::print("  {:>3}  {:>12.5g}  {:>22}  {:>7}  {:>9}{}\n", i + 1, c.gain,
+      fmt::print("  {:>3}  {:>12.5g}  {:>22}  {:>7}  {:>9}{}\n", i + 1, a * c.gain,
                  fmt::format("{:.4g} ± j{:.4g}", c.pair_pole.real(), c.pair_pole.imag()), c.stable ? "yes" : "no",
                  std::isinf(c.decay_ratio) ? "—" : fmt::format("{:.2f}", c.decay_ratio),
                  ch.dominant_index && *ch.dominant_index == i ? "  ← dominant" : "");
@@ -83,7 +86,7 @@ void print_analysis(const Spec& spec, const Characterization& ch) {
   if (ch.dominant && ch.second_order) {
     const auto& s = ch.dominant->simulated;
     const auto& p = *ch.second_order;
-    fmt::print("At the dominant crossing, K = {:.5g}; closed-loop poles {}\n", ch.dominant->gain,
+    fmt::print("At the dominant crossing, K = {:.5g}; closed-loop poles {}\n", a * ch.dominant->gain,
                poles_text(ch.dominant->poles));
     fmt::print("  {:<18} {:>14} {:>14} {:>10}\n", "", "second-order", "simulated", "error");
     fmt::print("  {:<18} {:>12.3f} % {:>12.3f} % {:>9.0f} %\n", "overshoot", p.overshoot_pct, s.overshoot_pct,
@@ -99,7 +102,7 @@ void print_analysis(const Spec& spec, const Characterization& ch) {
   const auto& d = ch.dominant;
   const auto& r = ch.reference;
   auto row = [&](const char* name, auto f) { fmt::print("  {:<28} {:>14} {:>14}\n", name, cell(d, f), cell(r, f)); };
-  row("gain", [](const GainPoint& g) { return fmt::format("{:.5g}", g.gain); });
+  row("gain", [a](const GainPoint& g) { return fmt::format("{:.5g}", a * g.gain); });
   row("overshoot", [](const GainPoint& g) { return fmt::format("{:.3f} %", g.simulated.overshoot_pct); });
   row("peak time", [&](const GainPoint& g) { return opt_time(g.simulated.peak_time_s, tu); });
   row("settling time", [&](const GainPoint& g) { return opt_time(g.simulated.settling_time_s, tu); });
@@ -121,9 +124,7 @@ void print_analysis(const Spec& spec, const Characterization& ch) {
 
 std::string check_cell(const RequirementCheck& c) {
   if (!c.value) return fmt::format("{:>10} ✗", "—");
-  const double v = *c.value;
-  const std::string text = std::isinf(v) ? "∞" : fmt::format("{:.4g}", v);
-  return fmt::format("{:>10} {}", text, c.met ? "✓" : "✗");
+  return fmt::format("{:>10} {}", shown_value(c), c.met ? "✓" : "✗");
 }
 
 void print_design(const DesignRun& run, const ReportOutcome& outcome) {
@@ -136,8 +137,10 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   fmt::print("\n");
   for (std::size_t i = 0; i < run.problem.requirements.size(); ++i) {
     const Requirement& r = run.problem.requirements[i];
+    // The limit in its shortest round-trip form, so a value shown beside it compares exactly.
     const std::string unit = requirement_unit(r, spec.units);
-    fmt::print("  {:<24} {:>12}", r.key, fmt::format("{} {:.4g}{}", r.upper ? "≤" : "≥", r.limit, unit.empty() ? "" : " " + unit));
+    fmt::print("  {:<24} {:>12}", r.key, fmt::format("{}{} {}{}", r.magnitude ? "|e| " : "", r.upper ? "≤" : "≥",
+                                                     r.limit, unit.empty() ? "" : " " + unit));
     for (const Design& d : run.designs) fmt::print(" {:>14}", check_cell(d.checks[i]));
     fmt::print("\n");
   }
@@ -154,6 +157,16 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
     fmt::print("\n");
   };
   margin_row("gain margin (dB)", [](const Margins& m) { return m.gain_margin_db; });
+  if (std::any_of(run.designs.begin(), run.designs.end(),
+                  [](const Design& d) { return d.margins && d.margins->lower_gain_margin_db; })) {
+    // Conditionally stable loops: unstable if the gain drops by this much.
+    fmt::print("  {:<24} {:>12}", "lower gain margin (dB)", "");
+    for (const Design& d : run.designs)
+      fmt::print(" {:>14}", !d.margins ? "—"
+                            : d.margins->lower_gain_margin_db ? fmt::format("{:.3g}", *d.margins->lower_gain_margin_db)
+                                                              : "none");
+    fmt::print("\n");
+  }
   margin_row("phase margin (deg)", [](const Margins& m) { return m.phase_margin_deg; });
   margin_row("sensitivity peak Ms", [](const Margins& m) { return std::optional<double>(m.sensitivity_peak); });
   margin_row(fmt::format("delay margin ({})", spec.units.time), [](const Margins& m) { return m.delay_margin_s; });
@@ -167,9 +180,11 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   const Design* best = run.find("optimized");
   if (best) {
     const Controller& c = best->controller;
-    fmt::print("Optimized controller ({}):", structure_name(c.structure));
+    if (c.action < 0.0) fmt::print("Action: {}\n", action_reason(run.problem.plant));
+    fmt::print("Optimized controller ({}, {} action):", structure_name(c.structure), action_name(c.action));
     const auto& info = structure_parameters(c.structure);
-    for (std::size_t i = 0; i < info.size(); ++i) fmt::print(" {} = {:.5g}", info[i].name, c.series[i]);
+    const std::vector<double> shown = signed_series(c);
+    for (std::size_t i = 0; i < info.size(); ++i) fmt::print(" {} = {:.5g}", info[i].name, shown[i]);
     fmt::print("\n");
     if (c.parallel)
       fmt::print("  parallel: Kp = {:.5g}, Ki = {:.5g}, Kd = {:.5g}, Tf = {:.4g} {}\n", c.parallel->kp, c.parallel->ki,
@@ -296,6 +311,8 @@ int run_sweep_command(const std::string& spec_path, const std::vector<std::strin
   SweepOptions options;
   if (!shard_text.empty()) options.shard = parse_shard(shard_text);
   options.store_path = store.empty() ? default_store_path(spec.name(), options.shard) : store;
+  check_output_file(options.store_path, "--store");
+  if (!point_reports.empty()) check_output_folder(point_reports, "--point-reports");
   options.jobs = jobs;
   options.point_reports = point_reports;
   options.stop = &g_stop;
@@ -420,8 +437,9 @@ int main(int argc, char** argv) {
     }
     if (*design) {
       const Spec spec = load_spec(spec_path);
-      const DesignRun run = run_design(spec);
       const std::filesystem::path dir = out_dir.empty() ? std::filesystem::path("results") / spec.name : std::filesystem::path(out_dir);
+      check_output_folder(dir, "--out");  // before the work, not after it
+      const DesignRun run = run_design(spec);
       const ReportOutcome outcome = write_design_outputs(run, dir);
       print_design(run, outcome);
       return run.met ? 0 : 1;
@@ -449,6 +467,7 @@ int main(int argc, char** argv) {
       options.front_loop = front_loop;
       options.approximation_threshold_pct = threshold_pct;
       const std::filesystem::path dir = report_out.empty() ? default_sweep_report_dir(report_store) : std::filesystem::path(report_out);
+      check_output_folder(dir, "--out");
       const SweepReportOutcome outcome = write_sweep_report(contents, dir, options);
       fmt::print("sweep-report: {} of {} point(s) finished, {} met, {} on the Pareto front\n", outcome.finished,
                  contents.points.size(), outcome.met, outcome.front_size);
@@ -457,11 +476,15 @@ int main(int argc, char** argv) {
       return 0;
     }
     if (*merge) {
+      check_output_file(merge_out, "OUT");
       const std::size_t n = merge_stores(merge_out, merge_in);
       fmt::print("merge: {} finished point(s) from {} store(s) in {}\n", n, merge_in.size(), merge_out);
       return 0;
     }
   } catch (const SweepError& e) {
+    std::cerr << e.what() << "\n";
+    return 2;
+  } catch (const OutputError& e) {
     std::cerr << e.what() << "\n";
     return 2;
   } catch (const SpecError& e) {

@@ -655,9 +655,11 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
       } else {
         // Default tracking time (Åström & Hägglund, Advanced PID Control, 2006, anti-windup
         // section; recalled from memory): Tt = √(Ti·Td) with derivative action, else Ti.
-        if (!(g.kp > 0.0 && g.ki > 0.0)) fail("tracking_time_s: no default without Kp > 0 and Ki > 0; give it explicitly");
+        // Ti = Kp/Ki and Td = Kd/Kp are positive for either action (reverse: all gains negative).
+        if (!(g.kp * g.ki > 0.0))
+          fail("tracking_time_s: no default without Kp and Ki of one sign; give it explicitly");
         const double ti = g.kp / g.ki;
-        model.tt = g.kd > 0.0 ? std::sqrt(ti * g.kd / g.kp) : ti;
+        model.tt = g.kd * g.kp > 0.0 ? std::sqrt(ti * g.kd / g.kp) : ti;
       }
       result.notes.push_back("back-calculation tracking time Tt = " + to_string(model.tt) + " s");
     }
@@ -691,8 +693,15 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   double y_inf = std::numeric_limits<double>::quiet_NaN();
   double horizon = options.horizon_s;
   {
-    Eigen::FullPivLU<Eigen::MatrixXd> lu(linear.A);
-    if (lu.isInvertible()) y_inf = amplitude * (linear.D(0) - linear.C.row(0).dot(lu.solve(linear.B)));
+    // A loop whose poles are all in the left half plane has an invertible A; FullPivLU's rank
+    // threshold (relative to the largest pivot) misjudged loops with large controller gains as
+    // singular, so solve with partial pivoting and let a non-finite result say "none".
+    if (linear.states() > 0) {
+      const Eigen::PartialPivLU<Eigen::MatrixXd> lu(linear.A);
+      y_inf = amplitude * (linear.D(0) - linear.C.row(0).dot(lu.solve(linear.B)));
+    } else {
+      y_inf = amplitude * linear.D(0);
+    }
     if (!(horizon > 0.0)) {
       if (!options.sample_times_s.empty()) {
         horizon = options.sample_times_s.back();

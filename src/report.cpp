@@ -37,7 +37,7 @@ std::string requirement_unit(const Requirement& r, const UnitsSpec& units) {
   return shown_unit(r.unit, units);
 }
 
-std::string controller_action(const DesignRun&) { return "direct"; }
+std::string controller_action(const DesignRun& run) { return run.problem.action < 0.0 ? "reverse" : "direct"; }
 
 const Design* recommended_design(const DesignRun& run) {
   for (const char* name : {"optimized", "classical"}) {
@@ -80,6 +80,28 @@ std::pair<double, double> frequency_range(const TransferFunction& loop, const st
   return {lo / 100.0, hi * 100.0};
 }
 
+bool all_finite(const std::vector<double>& v) {
+  return std::all_of(v.begin(), v.end(), [](double x) { return std::isfinite(x); });
+}
+
+// A figure's series never carries a NaN or an infinity: a trace with one is left out whole (the
+// figure is drawn without it), a frequency or locus point with one is left out alone.
+bool trace_is_finite(const ResponseTrace& t) {
+  return !t.time_s.empty() && all_finite(t.time_s) && all_finite(t.output) && all_finite(t.control) &&
+         all_finite(t.command);
+}
+
+FrequencySeries finite_rows(const FrequencySeries& f) {
+  FrequencySeries out;
+  for (std::size_t i = 0; i < f.omega_rad_s.size(); ++i)
+    if (std::isfinite(f.omega_rad_s[i]) && std::isfinite(f.magnitude_db[i]) && std::isfinite(f.phase_deg[i])) {
+      out.omega_rad_s.push_back(f.omega_rad_s[i]);
+      out.magnitude_db.push_back(f.magnitude_db[i]);
+      out.phase_deg.push_back(f.phase_deg[i]);
+    }
+  return out;
+}
+
 }  // namespace
 
 namespace {
@@ -111,6 +133,7 @@ ReportData report_data(const DesignRun& run) {
                      spec.reference.amplitude, problem.band_fraction, m, &trace) != StepStatus::ok)
       continue;
     ResponseTrace t{d.name, false, std::move(trace.time_s), std::move(trace.output), std::move(trace.effort), {}};
+    if (!trace_is_finite(t)) continue;
     if (plotted(t)) want(d.simulated.settling_time_s, t.time_s.back());
     data.traces.push_back(std::move(t));
   }
@@ -125,9 +148,15 @@ ReportData report_data(const DesignRun& run) {
         best->nonlinear && best->nonlinear->status == NonlinearStatus::ok ? best->nonlinear->simulated.settling_time_s : std::nullopt;
     if (reported && kRoomAfterSettling * *reported > nonlinear_horizon) nonlinear_horizon = kRoomAfterSettling * *reported;
     const NonlinearSetup setup = nonlinear_setup(problem, nonlinear_horizon, kReportNonlinearSamples);
-    const NonlinearResult r = simulate_on_nonlinear_loop(problem, best->controller, setup);
-    if (r.status == NonlinearStatus::ok && !r.time_s.empty()) {
-      data.traces.push_back({best->name, true, r.time_s, r.output, r.control, r.command});
+    NonlinearResult r;
+    try {
+      r = simulate_on_nonlinear_loop(problem, best->controller, setup);
+    } catch (const std::invalid_argument&) {
+      r.status = NonlinearStatus::non_finite;  // the confirmation said why; the figure goes without this trace
+    }
+    ResponseTrace nonlinear_trace{best->name, true, r.time_s, r.output, r.control, r.command};
+    if (r.status == NonlinearStatus::ok && !r.time_s.empty() && trace_is_finite(nonlinear_trace)) {
+      data.traces.push_back(std::move(nonlinear_trace));
       want(reported, r.time_s.back());
       if (spec.disturbance.size != 0.0) want(std::nullopt, std::min(r.time_s.back(), 2.0 * spec.disturbance.time_s));
     }
@@ -140,7 +169,8 @@ ReportData report_data(const DesignRun& run) {
     if (!d || d->status != StepStatus::ok) continue;
     const TransferFunction loop = d->controller.transfer * problem.plant;
     const auto [lo, hi] = frequency_range(loop, d->margins);
-    data.frequency.emplace_back(name, loop_frequency_response(loop, lo, hi, 300));
+    FrequencySeries f = finite_rows(loop_frequency_response(loop, lo, hi, 300));
+    if (!f.omega_rad_s.empty()) data.frequency.emplace_back(name, std::move(f));
   }
   double horizon = 0.0;
   for (const auto& [until, end] : wanted) horizon = std::max(horizon, until);
@@ -155,7 +185,7 @@ ReportData report_data(const DesignRun& run) {
   for (const auto& limit : {spec.requirements.settling_time_max_s, tp_limit})
     if (limit) horizon = std::max(horizon, std::min(data_end, 1.1 * *limit));
   data.peak_time_limit_s = tp_limit;
-  data.plot_horizon_s = horizon > 0.0 ? horizon : 1.0;
+  data.plot_horizon_s = horizon > 0.0 && std::isfinite(horizon) ? horizon : 1.0;
   return data;
 }
 
@@ -255,7 +285,7 @@ std::string step_script(const DesignRun& run, const ReportData& data, bool effor
                                 std::max<std::size_t>(1, rows / 700), effort ? 3 : 2, colour_of(t.design, t.nonlinear), t.design == "reference" ? "1.2" : "2",
                                 t.nonlinear ? "dt (8,4)" : "", quoted(label_of(t.design, t.nonlinear))));
   }
-  s += fmt::format("  plot {}\n", fmt::join(plots, ", \\\n       "));
+  s += plot_command(plots, "no stable design to show");
   return script_frame(effort ? "effort" : "step", s);
 }
 
@@ -269,7 +299,9 @@ std::string splane_script(const DesignRun& run, const ReportData& data, double z
   const UnitsSpec& units = run.problem.spec.units;
   std::string s;
   s += fmt::format("  set title {} font ',13'\n",
-                   quoted(fmt::format("s-plane: root locus of the {} loop as its gain varies", data.locus_design)));
+                   quoted(data.locus_design.empty()
+                              ? std::string("s-plane: the plant's poles and zeros (no stable design to vary)")
+                              : fmt::format("s-plane: root locus of the {} loop as its gain varies", data.locus_design)));
   s += fmt::format("  set xlabel {}\n  set ylabel {}\n", quoted(fmt::format("real (1/{})", units.time)),
                    quoted(fmt::format("imaginary (rad/{})", units.time)));
   s += fmt::format("  set xrange [{}:{}]\n  set yrange [{}:{}]\n", csv_number(-view.left), csv_number(view.right),
@@ -314,13 +346,20 @@ std::string splane_script(const DesignRun& run, const ReportData& data, double z
                   "lc rgb '#1f5f99' title 'dominant pair (recommended design)'");
   plots.push_back("'../series/splane_points.csv' using ((strcol(1) eq 'breaks_approximation') ? $3 : NaN):4 with points pt 3 ps "
                   "2.2 lw 2 lc rgb '#c62828' title 'modes that break the approximation'");
-  s += fmt::format("  plot {}\n", fmt::join(plots, ", \\\n       "));
+  s += plot_command(plots, "nothing to show");
   return script_frame("splane", s);
 }
 
 std::string frequency_script(const DesignRun& run, const ReportData& data) {
   const std::string time = run.problem.spec.units.time;
   std::string s;
+  if (data.frequency.empty()) {
+    // Neither loop is stable (or has a finite response): an empty frame that says so.
+    s += "  set title 'Loop frequency response L(jω) = C(jω)·G(jω)' font ',13'\n";
+    s += "  set xrange [0:1]\n  set yrange [0:1]\n  unset xtics\n  unset ytics\n";
+    s += plot_command({}, "no stable classical or optimized loop to show");
+    return script_frame("frequency", s);
+  }
   s += "  set multiplot layout 2,1 title 'Loop frequency response L(jω) = C(jω)·G(jω)' font ',13'\n";
   s += fmt::format("  set logscale x\n  set format x '10^{{%L}}'\n  set xlabel {}\n", quoted(fmt::format("ω (rad/{})", time)));
   // Both panels carry a legend of the same width right of the plot, so their ω axes line up and
@@ -381,6 +420,8 @@ SplaneView write_series(const DesignRun& run, const ReportData& data, const fs::
     std::vector<double> gain, branch, re, im;
     for (std::size_t b = 0; !data.locus.poles.empty() && b < data.locus.poles.front().size(); ++b)
       for (std::size_t i = 0; i < data.locus.gains.size(); ++i) {
+        const Complex p = data.locus.poles[i][b];
+        if (!std::isfinite(data.locus.gains[i]) || !std::isfinite(p.real()) || !std::isfinite(p.imag())) continue;
         gain.push_back(data.locus.gains[i]);
         branch.push_back(static_cast<double>(b));
         re.push_back(data.locus.poles[i][b].real());
@@ -392,6 +433,7 @@ SplaneView write_series(const DesignRun& run, const ReportData& data, const fs::
   double extent_re = 0.0, extent_im = 0.0, rightmost = 0.0;
   std::string points = "kind,design,real_per_s,imag_rad_per_s\n";
   auto point = [&](const std::string& kind, const std::string& design, Complex z) {
+    if (!std::isfinite(z.real()) || !std::isfinite(z.imag())) return;  // drawn without it
     points += fmt::format("{},{},{},{}\n", kind, design, csv_number(z.real()), csv_number(z.imag()));
     extent_re = std::max(extent_re, std::abs(z.real()));
     extent_im = std::max(extent_im, std::abs(z.imag()));
@@ -411,6 +453,11 @@ SplaneView write_series(const DesignRun& run, const ReportData& data, const fs::
     if (!data.locus_loop.numerator.is_zero())
       for (const Complex& z : data.locus_loop.zeros())
         point(from_pade(z, pade_zeros) ? "delay_approximant_zero" : "open_loop_zero", data.locus_design, z);
+  } else {
+    // No stable design, so no locus: the plant's own poles and zeros at least.
+    for (const Complex& p : run.problem.plant.poles()) point("open_loop_pole", "plant", p);
+    if (!run.problem.plant.numerator.is_zero())
+      for (const Complex& z : run.problem.plant.zeros()) point("open_loop_zero", "plant", z);
   }
   for (const Design& d : run.designs)
     if (d.status == StepStatus::ok && d.name != "ultimate_gain")
@@ -446,7 +493,7 @@ SplaneView write_series(const DesignRun& run, const ReportData& data, const fs::
     write_csv(dir / fmt::format("frequency_{}.csv", name), {"omega_rad_per_s", "magnitude_db", "phase_deg"},
               {&f.omega_rad_s, &f.magnitude_db, &f.phase_deg});
   SplaneView view;
-  view.left = std::max(extent_re * 1.3, 1e-6);
+  view.left = extent_re > 0.0 ? std::max(extent_re * 1.3, 1e-6) : 1.0;  // every point at the origin: a unit view
   view.right = std::max(0.25 * view.left, 1.3 * rightmost);  // right-half-plane zeros (a delay's Padé zeros) in view
   view.im = std::max(extent_im * 1.3, 0.6 * view.left);
   return view;
@@ -461,13 +508,15 @@ Table requirement_table(const DesignRun& run) {
   for (const Design& d : run.designs) t.header.push_back(d.name);
   for (std::size_t i = 0; i < run.problem.requirements.size(); ++i) {
     const Requirement& r = run.problem.requirements[i];
+    // The limit in its shortest round-trip form; a missed value gets the digits to tell it apart.
     const std::string unit = requirement_unit(r, run.problem.spec.units);
     std::vector<Cell> row{{r.key, fmt::format("data-key=\"{}\"", r.key)},
-                          {fmt::format("{} {}", r.upper ? "≤" : "≥", with_unit(r.limit, unit)),
+                          {fmt::format("{}{} {}{}", r.magnitude ? "|e| " : "", r.upper ? "≤" : "≥", r.limit,
+                                       unit.empty() ? "" : " " + unit),
                            fmt::format("data-value=\"{:.17g}\"", r.limit)}};
     for (const Design& d : run.designs) {
       const RequirementCheck& c = d.checks[i];
-      const std::string shown = c.value ? with_unit(*c.value, unit) : "none";
+      const std::string shown = c.value ? shown_value(c) + (unit.empty() ? "" : " " + unit) : "none";
       row.push_back({fmt::format("{} {}", shown, c.met ? "✓" : "✗"),
                      fmt::format("{} data-design=\"{}\" data-met=\"{}\" class=\"{}\"", value_attribute(c.value), d.name,
                                  c.met ? "true" : "false", c.met ? "met" : "missed")});
@@ -477,6 +526,18 @@ Table requirement_table(const DesignRun& run) {
   std::vector<Cell> all{{"meets all", ""}, {"", ""}};
   for (const Design& d : run.designs) all.push_back({d.meets_all ? "yes" : "no", d.meets_all ? "class=\"met\"" : "class=\"missed\""});
   t.rows.push_back(std::move(all));
+  // A conditionally stable loop turns unstable when its gain drops: say by how much.
+  if (std::any_of(run.designs.begin(), run.designs.end(),
+                  [](const Design& d) { return d.margins && d.margins->lower_gain_margin_db; })) {
+    std::vector<Cell> lower{{"lower gain margin (dB)", ""}, {"", ""}};
+    for (const Design& d : run.designs)
+      lower.push_back({!d.margins                        ? "—"
+                       : d.margins->lower_gain_margin_db ? fmt::format("{:.3g} (unstable if the gain drops this much)",
+                                                                       *d.margins->lower_gain_margin_db)
+                                                         : "none",
+                       ""});
+    t.rows.push_back(std::move(lower));
+  }
   std::vector<Cell> confirmed{{"nonlinear loop", ""}, {"", ""}};
   for (const Design& d : run.designs)
     confirmed.push_back({!d.nonlinear ? "—" : d.nonlinear->confirmed ? "confirmed" : "NOT confirmed",
@@ -513,9 +574,10 @@ std::string controller_lines(const Design& d, const UnitsSpec& units) {
   std::string s;
   const auto& info = structure_parameters(c.structure);
   std::vector<std::string> series;
+  const std::vector<double> shown = signed_series(c);
   for (std::size_t i = 0; i < info.size(); ++i)
-    series.push_back(info[i].unit.empty() ? fmt::format("{} = {:.5g}", info[i].name, c.series[i])
-                                          : fmt::format("{} = {:.5g} {}", info[i].name, c.series[i], shown_unit(info[i].unit, units)));
+    series.push_back(info[i].unit.empty() ? fmt::format("{} = {:.5g}", info[i].name, shown[i])
+                                          : fmt::format("{} = {:.5g} {}", info[i].name, shown[i], shown_unit(info[i].unit, units)));
   s += fmt::format("series ({}): {}\n", structure_name(c.structure), fmt::join(series, ", "));
   if (c.parallel)
     s += fmt::format("parallel: Kp = {:.5g}, Ki = {:.5g} 1/{}, Kd = {:.5g} {}, Tf = {:.4g} {}\n", c.parallel->kp, c.parallel->ki, t,
@@ -575,7 +637,9 @@ Table controller_box(const DesignRun& run, const Design& d) {
     row("setpoint_weight", "set-point weight", "— (this structure acts on the error r − y)", "none");
   const std::string action = controller_action(run);
   row("action", "action",
-      action == "direct" ? "direct (u rises while y is below r)" : action + " (u falls while y is below r)",
+      action == "direct" ? "direct (u rises while y is below r; every gain is positive)"
+                         : "reverse (u falls while y is below r; every gain is negative, as the plant's sign requires: its "
+                           "lowest-order numerator coefficient over its leading denominator coefficient is negative)",
       action);
   if (cs.sample_time_s > 0.0)
     row("sample_time", "sample time",

@@ -890,9 +890,16 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     m.overshoot_pct = (peak_n - 1.0) * 100.0;
     m.peak_time_s = t_peak;
   }
-  const auto [y_low, t_low] = refine_extremum(y, interval_y, k_min, -sign);
-  (void)t_low;
-  m.undershoot_pct = std::max(0.0, -y_low * inv) * 100.0;
+  // Undershoot only where the response really goes the wrong way: a sample beyond zero, or an
+  // exact initial slope pointing away from y∞. Otherwise it is exactly 0: between samples that
+  // never cross zero, the cubic interpolant of a response starting flat (y = y' = 0 at t = 0)
+  // can dip by rounding-sized amounts that are not in the response.
+  m.undershoot_pct = 0.0;
+  if (y[k_min] * inv < 0.0 || (y[0] * inv <= 0.0 && dy(0) * inv < 0.0)) {
+    const auto [y_low, t_low] = refine_extremum(y, interval_y, k_min, -sign);
+    (void)t_low;
+    m.undershoot_pct = std::max(0.0, -y_low * inv) * 100.0;
+  }
 
   const auto [u_peak, t_u] = refine_extremum(u, interval_u, k_effort, u[k_effort] >= 0.0 ? 1.0 : -1.0);
   (void)t_u;

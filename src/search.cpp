@@ -44,13 +44,13 @@ class CostFunction {
   // Evaluates natural-unit parameters.
   Outcome evaluate(const double* params) {
     Outcome out;
-    controller_polynomials(structure_, params, n_, num_, den_);
+    controller_polynomials(structure_, params, n_, problem_.action, num_, den_);
     const TransferFunction c{Polynomial(num_), Polynomial(den_)};
     const ControllerSpec& cs = problem_.spec.controller;
     const bool weighted = cs.setpoint_weight != 1.0 || cs.derivative_on_measurement;
     const StateSpace loop =
         weighted ? close_loop(problem_.plant_realization, c,
-                              reference_path(make_controller(structure_, std::vector<double>(params, params + problem_.parameters.size()), n_),
+                              reference_path(make_controller(structure_, std::vector<double>(params, params + problem_.parameters.size()), n_, problem_.action),
                                              cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0))
                  : close_loop(problem_.plant_realization, realize(c));
     const StepStatus status = sim_.simulate(loop, problem_.spec.reference.amplitude, problem_.band_fraction, metrics_);
@@ -84,7 +84,9 @@ class CostFunction {
       const auto v = requirement_value(*options_.objective_requirement, m, margins, problem_.reference_peak_time_s,
                                        problem_.band_fraction * 100.0);
       const double big = 1e3 * std::max(1.0, std::abs(options_.objective_requirement->limit));
-      return !v ? big : options_.objective_requirement->upper ? *v : 1.0 / std::max(*v, 1e-12);
+      if (!v) return big;
+      const double read = options_.objective_requirement->magnitude ? std::abs(*v) : *v;
+      return options_.objective_requirement->upper ? read : 1.0 / std::max(read, 1e-12);
     }
     switch (options_.objective) {
       case Objective::itae: return m.itae;
@@ -103,7 +105,7 @@ class CostFunction {
     Outcome out;
     Controller c;
     try {
-      c = make_controller(structure_, std::vector<double>(params, params + problem_.parameters.size()), n_);
+      c = make_controller(structure_, std::vector<double>(params, params + problem_.parameters.size()), n_, problem_.action);
     } catch (const std::invalid_argument&) {
       out.objective = kUnstableCost;
       return out;
@@ -152,7 +154,9 @@ class CostFunction {
     ++evaluations;
     if (!o.stable) ++unstable;
     else if (o.violation > 0.0) ++infeasible;
-    const double c = cost(o);
+    // A NaN would stall NLopt and never become the best point: rank it with the worst.
+    double c = cost(o);
+    if (!std::isfinite(c)) c = 2.0 * kUnstableCost;
     if (c < best_cost) {
       best_cost = c;
       best_x = x;
@@ -302,9 +306,10 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
     summary.stop_reason = fmt::format("global stage: {}; local stage: {}; best point {}",
                                       result_text(global_result, options, global_budget),
                                       result_text(local_result, options, local_budget),
-                                      summary.feasible ? "feasible"
-                                                       : fmt::format("infeasible (Σ normalized violation {:.3g})",
-                                                                     summary.best_violation));
+                                      summary.feasible     ? std::string("feasible")
+                                      : !cost.best.stable ? std::string("unstable (no stable candidate was found)")
+                                                           : fmt::format("infeasible (Σ normalized violation {:.3g})",
+                                                                         summary.best_violation));
 
   std::vector<double> best_x = cost.best_x.empty() ? x : cost.best_x;
   if (options.nonlinear_refinement) {
@@ -356,7 +361,7 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
   }
   std::vector<double> best(dim);
   for (std::size_t i = 0; i < dim; ++i) best[i] = std::exp(best_x[i]);
-  SearchResult result{make_controller(problem.spec.controller.structure, best, problem.spec.controller.derivative_filter),
+  SearchResult result{make_controller(problem.spec.controller.structure, best, problem.spec.controller.derivative_filter, problem.action),
                       summary};
   return result;
 }

@@ -5,6 +5,7 @@
 #include "specloop/spec.hpp"
 #include "specloop/sweep.hpp"
 
+#include "specloop/characterize.hpp"
 #include "specloop/compensator.hpp"
 #include "specloop/expression_plant.hpp"
 #include "specloop/lti.hpp"
@@ -22,6 +23,7 @@
 #include <filesystem>
 #include <fstream>
 #include <iterator>
+#include <limits>
 #include <span>
 #include <sstream>
 #include <unsupported/Eigen/Polynomials>
@@ -270,7 +272,30 @@ struct Number {
 struct RootEntry {
   double re = 0.0;
   std::optional<double> im;
+  std::string key;                 // "plant.poles[2]", for messages
+  toml::source_position at{};      // where it was written
 };
+
+/// A plant pole or zero and where the file gave it (for messages about it).
+struct LocatedRoot {
+  std::complex<double> value;
+  std::string key;
+  toml::source_position at{};
+};
+
+/// A range end as the README writes it: "1e-5", "1e5", "1000", "0.5".
+std::string limit_text(double v) {
+  const double e = std::log10(std::abs(v));
+  if (std::abs(v) >= 1e4 || std::abs(v) < 1e-3) {
+    if (e == std::round(e)) return fmt::format("{}1e{}", v < 0 ? "-" : "", static_cast<int>(e));
+  }
+  return fmt::format("{:g}", v);
+}
+
+std::string root_text(std::complex<double> r) {
+  if (r.imag() == 0.0) return fmt::format("{:.6g}", r.real());
+  return fmt::format("{:.6g} {} j{:.6g}", r.real(), r.imag() > 0.0 ? '+' : '-', std::abs(r.imag()));
+}
 
 /// Multiplies two polynomials given with the highest power first.
 std::vector<double> multiply(const std::vector<double>& a, const std::vector<double>& b) {
@@ -350,6 +375,8 @@ std::optional<std::string> likely_name(std::string_view unknown, const std::vect
 
 namespace {
 
+constexpr double kInf = std::numeric_limits<double>::infinity();
+
 // ---------------------------------------------------------------------------------------------
 // The reader: one parsed document and the file path for messages
 // ---------------------------------------------------------------------------------------------
@@ -360,6 +387,10 @@ class SpecReader {
       : document_(document), path_(std::move(path)) {}
 
   Spec read() {
+    if (document_.empty())
+      throw SpecError(fmt::format("{}:1:1: the file is empty (no keys: only blank lines or comments); a spec needs at "
+                                  "least a [plant] section, e.g. [plant] with poles = [-1.0, -4.0]",
+                                  path_));
     check_names_and_shapes();
     Spec spec;
     spec.path = path_;
@@ -519,9 +550,9 @@ class SpecReader {
           fail_expected(at, element_key, "a pair [re, im] with im > 0 (it stands for re ± j·im)",
                         fmt::format("[{}, {}]", re.shown, im.shown));
         }
-        roots.push_back({re.value, im.value});
+        roots.push_back({re.value, im.value, element_key, at});
       } else if (element.is_number()) {
-        roots.push_back({number_from(element, at, element_key).value, std::nullopt});
+        roots.push_back({number_from(element, at, element_key).value, std::nullopt, element_key, at});
       } else {
         fail_expected(at, element_key, "a number or a pair [re, im]", describe(element));
       }
@@ -618,7 +649,111 @@ class SpecReader {
     if (const auto delay = ranged_number(
             table, "plant", "delay", [](double v) { return v >= 0.0; }, "a number >= 0")) {
       plant.delay_s = *delay;
+      delay_at_ = find_entry(*table, "delay")->at;
     }
+    check_plant_numerics(plant);
+  }
+
+  /// A plant pole in the closed right half plane (Re p ≥ 0, the imaginary axis included) that a
+  /// zero cancels is a mode the output never shows and no controller can act on; a plant outside
+  /// the ranges below is one the numerics cannot honour. Both are refused here (README, "Spec
+  /// file reference"); a cancelled stable pair is only noted by `analyze`.
+  void check_plant_numerics(const PlantSpec& plant) const {
+    for (const LocatedRoot& p : poles_where_) {
+      if (p.value.real() < -kCancellationTolerance * std::abs(p.value)) continue;
+      for (const LocatedRoot& z : zeros_where_) {
+        if (std::abs(p.value - z.value) > kCancellationTolerance * std::max(std::abs(p.value), std::abs(z.value))) continue;
+        const bool on_axis = p.value.real() <= kCancellationTolerance * std::abs(p.value);
+        if (plant.nonlinear)
+          fail(z.at, z.key,
+               fmt::format("the linearization at this operating point has a mode at {} {} that u cannot move or the "
+                           "output cannot see (its pole is cancelled by a zero in G(s)): {}, and no controller can "
+                           "reach it; expected every state that does not decay on its own to be driven by u and seen "
+                           "in the output",
+                           root_text(p.value), on_axis ? "on the imaginary axis" : "in the right half plane",
+                           on_axis ? "it never decays" : "it grows unseen"));
+        fail(z.at, z.key,
+             fmt::format("zero {} cancels the pole {} ({}) {}: the plant has a hidden mode that the output never shows "
+                         "and that no controller can reach, so the loop can never be internally stable{}; expected no "
+                         "zero within a relative {} of a pole with Re ≥ 0. If that mode truly does not exist, remove "
+                         "both the pole and the zero",
+                         root_text(z.value), root_text(p.value), p.key,
+                         on_axis ? "on the imaginary axis" : "in the right half plane",
+                         on_axis ? " (the mode never decays: an integrator holds any offset, an undamped pair rings "
+                                   "forever)"
+                                 : " (the mode grows without bound)",
+                         limit_text(kCancellationTolerance)));
+      }
+    }
+    // Every nonzero pole and zero magnitude within [kMinRate, kMaxRate], at most kMaxSpread
+    // apart; the delay's approximant (every linear computation uses it) counts as plant poles.
+    std::vector<LocatedRoot> roots = poles_where_;
+    roots.insert(roots.end(), zeros_where_.begin(), zeros_where_.end());
+    if (plant.delay_s > 0.0)
+      for (const Complex& p : delay_approximant(plant.delay_s, kDelayApproximantOrder).poles())
+        roots.push_back({p, "plant.delay", delay_at_});
+    const LocatedRoot* slowest = nullptr;
+    const LocatedRoot* fastest = nullptr;
+    double log_sum = 0.0;
+    int counted = 0;
+    // The approximant's pole magnitudes for a 1 s delay scale as 1/delay.
+    double unit_delay_fastest = 0.0, unit_delay_slowest = kInf;
+    for (const Complex& p : delay_approximant(1.0, kDelayApproximantOrder).poles()) {
+      unit_delay_fastest = std::max(unit_delay_fastest, std::abs(p));
+      unit_delay_slowest = std::min(unit_delay_slowest, std::abs(p));
+    }
+    for (const LocatedRoot& r : roots) {
+      const double m = std::abs(r.value);
+      if (m == 0.0) continue;
+      if (!(m >= kMinRate && m <= kMaxRate)) {
+        if (r.key == "plant.delay")
+          fail(r.at, r.key,
+               fmt::format("{:g} s puts the poles of its order-{} Padé approximant (which every linear computation uses) "
+                           "at {:.3g} rad/s; expected every pole and zero magnitude within [{}, {}] rad/s, i.e. a "
+                           "delay between about {:.2g} s and {:.2g} s{}",
+                           plant.delay_s, kDelayApproximantOrder, m, limit_text(kMinRate), limit_text(kMaxRate), unit_delay_fastest / kMaxRate,
+                           unit_delay_slowest / kMinRate, m > kMaxRate ? " (a delay this short is negligible: leave it out)" : ""));
+        fail(r.at, r.key,
+             fmt::format("{} {} has magnitude {:.3g} rad/s; expected every nonzero pole and zero magnitude within "
+                         "[{}, {}] rad/s (time constants from 10 µs to about 28 h), where the step simulation and "
+                         "the search keep their accuracy; for a plant this {} express time in {} throughout the spec",
+                         r.key.find("zero") != std::string::npos || r.key == "plant.numerator" ? "zero" : "pole",
+                         root_text(r.value), m, limit_text(kMinRate), limit_text(kMaxRate), m > kMaxRate ? "fast" : "slow",
+                         m > kMaxRate ? "milliseconds or microseconds" : "minutes or hours"));
+      }
+      if (r.key != "plant.delay") fastest_rate_ = std::max(fastest_rate_, m);
+      if (!slowest || m < std::abs(slowest->value)) slowest = &r;
+      if (!fastest || m > std::abs(fastest->value)) fastest = &r;
+      if (r.key != "plant.delay") {
+        log_sum += std::log(m);
+        ++counted;
+      }
+    }
+    if (slowest && std::abs(fastest->value) > kMaxSpread * std::abs(slowest->value)) {
+      const LocatedRoot& blamed = fastest->key == "plant.delay" || slowest->key != "plant.delay" ? *fastest : *slowest;
+      fail(blamed.at, blamed.key,
+           fmt::format("the plant's pole and zero magnitudes span a factor {:.3g}, from {:.3g} rad/s ({}) to {:.3g} "
+                       "rad/s ({}){}; expected at most {} between the fastest and the slowest: a mode that much "
+                       "faster than the slowest acts as a plain gain at the loop's speed, so leave it out of the model",
+                       std::abs(fastest->value) / std::abs(slowest->value), std::abs(slowest->value), slowest->key,
+                       std::abs(fastest->value), fastest->key,
+                       fastest->key == "plant.delay" || slowest->key == "plant.delay"
+                           ? " (the delay counts through its Padé approximant's poles)"
+                           : "",
+                       limit_text(kMaxSpread)));
+    }
+    // The gain scale: |G| at the geometric mean of the pole and zero magnitudes. The controller's
+    // gains come out near its inverse.
+    const double w = counted > 0 ? std::exp(log_sum / counted) : 1.0;
+    const TransferFunction g(Polynomial(plant.numerator), Polynomial(plant.denominator));
+    const double magnitude = std::abs(g(Complex(0.0, w)));
+    if (!(magnitude >= kMinGainScale && magnitude <= kMaxGainScale))
+      fail(gain_where_.second, gain_where_.first,
+           fmt::format("the plant's gain |G(jω)| at ω = {:.4g} rad/s (the geometric mean of its pole and zero magnitudes) "
+                       "is {:.3g}; expected within [{}, {}]: the controller's gains come out near its inverse, and "
+                       "beyond this range the step simulation and the search lose accuracy; express the input or the "
+                       "output in other units (e.g. % of span, kV instead of V)",
+                       w, magnitude, limit_text(kMinGainScale), limit_text(kMaxGainScale)));
   }
 
   void read_root_form(PlantSpec& plant, const std::optional<Entry>& zeros, const Entry& poles,
@@ -635,10 +770,20 @@ class SpecReader {
     if (plant.zeros.size() > plant.poles.size()) {
       fail(zeros->at, "plant.zeros",
            fmt::format("improper plant: numerator degree {} ({} zeros) exceeds denominator "
-                       "degree {} ({} poles); a plant needs at least as many poles as zeros",
+                       "degree {} ({} poles); a plant needs more poles than zeros",
                        plant.zeros.size(), plant.zeros.size(), plant.poles.size(),
                        plant.poles.size()));
     }
+    if (plant.zeros.size() == plant.poles.size())
+      fail(zeros->at, "plant.zeros", "as many zeros as poles: " + biproper_refusal());
+    for (const auto* entries : {&zero_entries, &pole_entries}) {
+      auto& located = entries == &zero_entries ? zeros_where_ : poles_where_;
+      for (const RootEntry& root : *entries) {
+        located.push_back({{root.re, root.im.value_or(0.0)}, root.key, root.at});
+        if (root.im) located.push_back({{root.re, -*root.im}, root.key, root.at});
+      }
+    }
+    gain_where_ = {"plant.gain", gain ? gain->at : poles.at};
     if (gain) {
       const Number k = number_from(*gain->value, gain->at, "plant.gain");
       require(k.value != 0.0, k, "plant.gain", "a nonzero number");
@@ -669,12 +814,18 @@ class SpecReader {
            fmt::format("improper plant: numerator degree {} exceeds denominator degree {}",
                        num.size() - 1, den.size() - 1));
     }
+    if (num.size() == den.size())
+      fail(numerator.at, "plant.numerator",
+           fmt::format("numerator degree {0} equals denominator degree {0}: {1}", num.size() - 1, biproper_refusal()));
     plant.given_as_zeros_poles = false;
     plant.numerator = num;
     plant.denominator = den;
     plant.zeros = polynomial_roots(num);
     plant.poles = polynomial_roots(den);
     plant.gain = num.front() / den.front();
+    for (const auto& z : plant.zeros) zeros_where_.push_back({z, "plant.numerator", numerator.at});
+    for (const auto& p : plant.poles) poles_where_.push_back({p, "plant.denominator", denominator.at});
+    gain_where_ = {"plant.numerator", numerator.at};
   }
 
   // --- [plant.nonlinear] -------------------------------------------------------------------
@@ -869,6 +1020,9 @@ class SpecReader {
     plant.poles = polynomial_roots(plant.denominator);
     plant.gain = plant.numerator.front() / plant.denominator.front();
     plant.nonlinear = std::move(nl);
+    for (const auto& z : plant.zeros) zeros_where_.push_back({z, "plant.nonlinear.operating_point", point_header});
+    for (const auto& p : plant.poles) poles_where_.push_back({p, "plant.nonlinear.operating_point", point_header});
+    gain_where_ = {"plant.nonlinear.operating_point", point_header};
   }
 
   // --- other sections ----------------------------------------------------------------------
@@ -936,17 +1090,19 @@ class SpecReader {
                                            parse_structure))
       controller.structure = *structure;
     if (const auto filter = ranged_number(
-            table, "controller", "derivative_filter", [](double v) { return v > 0.0; },
-            "a number > 0")) {
+            table, "controller", "derivative_filter", [](double v) { return v > 0.0 && v <= kMaxDerivativeFilter; },
+            fmt::format("a number in (0, {}] (common practice is 2 to 20; beyond that the filter pole is a mode "
+                        "the numerics cannot keep apart from the plant's)", limit_text(kMaxDerivativeFilter)))) {
       controller.derivative_filter = *filter;
     }
     if (const auto scheme = read_choice(*table, "controller", "anti_windup", "scheme", anti_windup_names(),
                                         parse_anti_windup))
       controller.anti_windup = *scheme;
-    controller.tracking_time_s = ranged_number(table, "controller", "tracking_time", [](double v) { return v > 0.0; },
-                                               "a time in s > 0");
-    if (const auto ts = ranged_number(table, "controller", "sample_time", [](double v) { return v > 0.0; },
-                                      "a sample period in s > 0 (leave it out for a continuous controller)"))
+    controller.tracking_time_s = ranged_number(table, "controller", "tracking_time", [&](double v) { return time_in_range(v); },
+                                               time_expected("a time in s", ""));
+    if (const auto ts = ranged_number(table, "controller", "sample_time", [&](double v) { return time_in_range(v); },
+                                      time_expected("a sample period in s", " (a controller that fast is continuous: leave "
+                                                                            "sample_time out)")))
       controller.sample_time_s = *ts;
     if (const auto b = ranged_number(table, "controller", "setpoint_weight", [](double v) { return v >= 0.0 && v <= 1.0; },
                                      "a weight in [0, 1]"))
@@ -1020,8 +1176,8 @@ class SpecReader {
     if (const auto rms = ranged_number(table, "disturbance", "noise_rms", [](double v) { return v >= 0.0; },
                                        "a standard deviation in output units >= 0"))
       disturbance.noise_rms = *rms;
-    if (const auto period = ranged_number(table, "disturbance", "noise_period", [](double v) { return v > 0.0; },
-                                          "a time in s > 0"))
+    if (const auto period = ranged_number(table, "disturbance", "noise_period", [&](double v) { return time_in_range(v); },
+                                          time_expected("a time in s", "")))
       disturbance.noise_period_s = *period;
     if (const auto seed = ranged_number(
             table, "disturbance", "seed",
@@ -1087,8 +1243,10 @@ class SpecReader {
 
   void read_reference(ReferenceSpec& reference) const {
     if (const auto amplitude = ranged_number(
-            section("reference"), "reference", "amplitude", [](double v) { return v != 0.0; },
-            "a nonzero number")) {
+            section("reference"), "reference", "amplitude",
+            [](double v) { return std::abs(v) >= kMinAmplitude && std::abs(v) <= kMaxAmplitude; },
+            fmt::format("a nonzero number of magnitude in [{}, {}] (express the output in other units otherwise)",
+                        limit_text(kMinAmplitude), limit_text(kMaxAmplitude)))) {
       reference.amplitude = *amplitude;
     }
   }
@@ -1173,8 +1331,31 @@ class SpecReader {
             structure_name(spec.controller.structure)));
   }
 
+  /// A controller or noise time: positive and at least kMinTimeFraction of the plant's fastest
+  /// time constant (when the plant has a nonzero pole or zero).
+  bool time_in_range(double v) const { return v > 0.0 && v * fastest_rate_ >= kMinTimeFraction; }
+  std::string time_expected(std::string_view what, std::string_view otherwise) const {
+    if (fastest_rate_ == 0.0) return fmt::format("{} > 0", what);
+    return fmt::format("{} >= {:.3g} ({} of the plant's fastest time constant, 1/{:.4g} rad/s){}", what,
+                       kMinTimeFraction / fastest_rate_, limit_text(kMinTimeFraction), fastest_rate_, otherwise);
+  }
+
+  /// See check_plant_numerics; the returned text follows "as many zeros as poles: " and the like.
+  static std::string biproper_refusal() {
+    return "a biproper plant, whose output follows the input instantly (a direct feedthrough), is not supported; "
+           "expected fewer zeros than poles (degree(numerator) < degree(denominator)): with a feedthrough the "
+           "controller's proportional and derivative action close an algebraic loop with the plant through the "
+           "actuator's saturation, which the nonlinear confirmation does not solve. Every path from actuator to sensor "
+           "has some lag: add it as a pole (e.g. the sensor's filter)";
+  }
+
   const toml::table& document_;
   std::string path_;
+  // Where the plant's poles, zeros, gain and delay were written (filled by read_plant).
+  mutable std::vector<LocatedRoot> poles_where_, zeros_where_;
+  mutable std::pair<std::string, toml::source_position> gain_where_{"plant", {1, 1}};
+  mutable toml::source_position delay_at_{};
+  mutable double fastest_rate_ = 0.0;  // the largest nonzero plant pole or zero magnitude, rad/s (0: none)
   mutable toml::source_position operating_input_at_{};  // where plant.nonlinear.operating_point.u was written
   mutable std::string operating_input_shown_;
 };

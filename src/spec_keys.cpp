@@ -11,15 +11,24 @@ const std::vector<SpecKey>& spec_keys() {
   static const std::vector<SpecKey> keys{
       {"title", "—", "file name", "free text for tables and reports"},
       {"plant.zeros", "rad/s", "`[]`",
-       "zeros of k·Π(s − z)/Π(s − p); a number is a real zero, `[re, im]` (im > 0) the pair re ± j·im"},
-      {"plant.poles", "rad/s", "required with `zeros`/`gain`", "poles, same notation; at least one"},
-      {"plant.gain", "output/input units", "1", "k, nonzero"},
+       "zeros of k·Π(s − z)/Π(s − p); a number is a real zero, `[re, im]` (im > 0) the pair re ± j·im; fewer zeros "
+       "than poles; each nonzero magnitude in [1e-5, 1e5] (see \"What the numerics honour\" below)"},
+      {"plant.poles", "rad/s", "required with `zeros`/`gain`",
+       "poles, same notation; at least one; each nonzero magnitude in [1e-5, 1e5], the fastest at most 1e6 times the "
+       "slowest; no pole with Re ≥ 0 cancelled by a zero (below)"},
+      {"plant.gain", "output/input units", "1",
+       "k, nonzero; negative is fine (reverse action, see `design`); the plant's gain scale |G(jω_m)| in [1e-6, 1e6] "
+       "(below)"},
       {"plant.numerator", "—", "—",
-       "instead of zeros/poles/gain: coefficients, highest power of s first, leading one nonzero"},
-      {"plant.denominator", "—", "—", "as above; degree ≥ numerator degree (proper plant)"},
+       "instead of zeros/poles/gain: coefficients, highest power of s first, leading one nonzero; its roots obey "
+       "`plant.zeros`' rules"},
+      {"plant.denominator", "—", "—",
+       "as above; degree > numerator degree (strictly proper: a biproper plant, whose output follows the input "
+       "instantly, is refused — see below); its roots obey `plant.poles`' rules"},
       {"plant.delay", "s", "0",
-       "transport delay, ≥ 0: an order-3 Padé approximant in every linear computation (analyze, design, search; said "
-       "in the output), the exact delay in the nonlinear confirmation"},
+       "transport delay, 0 or about 5.1e-5 … 4.6e5 s: an order-3 Padé approximant in every linear computation "
+       "(analyze, design, search; said in the output), the exact delay in the nonlinear confirmation; the "
+       "approximant's poles (≈ 3.7/delay … 5.1/delay rad/s) obey `plant.poles`' magnitude and spread rules"},
       {"plant.nonlinear.states", "—", "—",
        "instead of the two forms above: state names, in state order (at least one)"},
       {"plant.nonlinear.derivatives", "state units/s", "—",
@@ -37,13 +46,16 @@ const std::vector<SpecKey>& spec_keys() {
       {"actuator.rate_max", "input units/s", "unlimited", "slew limit of the applied u, > 0"},
       {"controller.structure", "—", "`pid`", "`p`, `pi`, `pd`, `pid`, `lead`, `lag`, `lead-lag`"},
       {"controller.derivative_filter", "—", "10",
-       "N: the derivative's filter pole sits N times beyond the derivative zero; > 0"},
+       "N: the derivative's filter pole sits N times beyond the derivative zero; in (0, 1000] (common practice 2–20)"},
       {"controller.anti_windup", "—", "`conditional-integration`",
        "`none`, `conditional-integration` (stop integrating while saturated and the error drives further in), "
        "`back-calculation` (nonlinear confirmation)"},
-      {"controller.tracking_time", "s", "√(Ti·Td), or Ti without D", "back-calculation tracking time Tt, > 0"},
+      {"controller.tracking_time", "s", "√(Ti·Td), or Ti without D",
+       "back-calculation tracking time Tt, ≥ 1e-4 of the plant's fastest time constant (as `sample_time`)"},
       {"controller.sample_time", "s", "continuous",
-       "> 0: the controller runs digitally at this period in the nonlinear confirmation (Tustin integral, "
+       "≥ 1e-4 of the plant's fastest time constant (1/ its largest pole or zero magnitude; any value > 0 for a plant "
+       "whose poles and zeros are all at s = 0): the controller runs digitally at this period in the nonlinear "
+       "confirmation (Tustin integral, "
        "backward-difference filtered derivative, zero-order hold); its difference equation is in result.json"},
       {"controller.setpoint_weight", "—", "1",
        "b: the proportional term acts on b·r − y, in [0, 1] (PID-type structures)"},
@@ -64,7 +76,8 @@ const std::vector<SpecKey>& spec_keys() {
       {"requirements.gain_margin_min_db", "dB", "—", "in (0, 60)"},
       {"requirements.sensitivity_peak_max", "—", "—", "Ms = max |1/(1 + L(jω))|, > 1"},
       {"reference.amplitude", "output units", "1",
-       "step size, nonzero (for `[plant.nonlinear]`: measured from the operating output y0)"},
+       "step size, magnitude in [1e-6, 1e6], either sign (for `[plant.nonlinear]`: measured from the operating output "
+       "y0)"},
       {"search.objective", "—", "`itae`",
        "minimized among feasible designs: `itae`, `iae`, `ise`, `effort`, `settling_time`, `sensitivity_peak`"},
       {"search.seed", "—", "1", "NLopt's random seed: runs repeat exactly"},
@@ -74,7 +87,8 @@ const std::vector<SpecKey>& spec_keys() {
        "`nonlinear`: after the linear search, a refinement stage (Subplex, 300 evaluations) ranks candidates on the "
        "nonlinear loop, and the design is judged there (for loops that must saturate)"},
       {"search.bounds.<parameter>", "parameter's unit", "from the plant",
-       "`[low, high]`, 0 < low < high; parameter names per structure in the `design` section"},
+       "`[low, high]`, 0 < low < high; parameter names per structure in the `design` section; the gain's bounds are on "
+       "its magnitude (reverse action makes it negative)"},
       {"disturbance.time", "s", "0", "when a load step arrives at the plant input, ≥ 0"},
       {"disturbance.size", "input units", "0", "size of that step (0: none)"},
       {"disturbance.noise_rms", "output units", "0",
@@ -82,7 +96,7 @@ const std::vector<SpecKey>& spec_keys() {
        "confirmation)"},
       {"disturbance.noise_period", "s", "`controller.sample_time`, else horizon/2000",
        "each noise value is held this long (a staircase of independent Gaussian values; bandwidth ≈ 1/(2·period) Hz), "
-       "> 0"},
+       "≥ 1e-4 of the plant's fastest time constant (as `sample_time`)"},
       {"disturbance.seed", "—", "1",
        "seed of the noise sequence (whole number in [0, 2^53]); the same seed gives the same noise on every machine"},
       {"sweep.vary", "—", "none",

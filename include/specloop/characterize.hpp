@@ -8,6 +8,7 @@
 #include <vector>
 
 #include "specloop/lti.hpp"
+#include "specloop/margins.hpp"
 #include "specloop/response.hpp"
 #include "specloop/second_order.hpp"
 #include "specloop/spec.hpp"
@@ -105,6 +106,11 @@ struct GainPoint {
 };
 
 struct Characterization {
+  /// +1 direct, −1 reverse action (loop_action of the linear plant). Every gain below (crossings,
+  /// dominant, reference, the stable set) is computed on the plant with direct action, action·G, and
+  /// is a magnitude; the controller gain on the plant as given is action × gain (what analyze prints).
+  double action = 1.0;
+  StableGainSet p_stability;         // the P gains K > 0 for which K·(action·G) in unity feedback is stable
   double damping_ratio = 0.0;        // from overshoot_max_pct
   double band_fraction = 0.02;
   std::vector<LocusCrossing> crossings;

@@ -20,6 +20,7 @@ struct Requirement {
   std::string unit;     // for tables: "%", "s", "dB", "deg", ""
   bool upper = true;    // value <= limit (true) or value >= limit (false)
   double limit = 0.0;   // in the key's unit (peak_time_ratio: the ratio)
+  bool magnitude = false;  // the bound applies to |value| (steady-state error: the value stays signed)
 };
 
 /// The requirements of a spec as a list, in a fixed order. `reference_peak_time` converts
@@ -30,6 +31,9 @@ std::vector<Requirement> requirement_list(const Requirements& r);
 struct Problem {
   Spec spec;
   TransferFunction plant;                 // the linear model: G(s), times the delay approximant
+  double action = 1.0;                    // loop_action(plant): +1 direct, −1 reverse; every controller carries it
+  TransferFunction normalized_plant;      // action·plant: what the design rules (reference gain, root locus,
+                                          // ultimate gain) work on, with positive gains
   StateSpace plant_realization;           // of `plant`
   StateSpace delay_free_realization;      // of G(s) alone, for the nonlinear loop (exact delay)
   std::optional<double> reference_peak_time_s;  // from the characterization (P gain at the limit)
@@ -120,6 +124,10 @@ std::optional<double> requirement_value(const Requirement& r, const StepMetrics&
                                         const std::optional<Margins>& margins,
                                         const std::optional<double>& reference_peak_time_s, double band_pct);
 
+/// A checked value as tables show it: 4 significant digits, more when a miss would otherwise
+/// print equal to the limit ("10.0002 ✗" against "≤ 10", never "10 ✗").
+std::string shown_value(const RequirementCheck& c);
+
 /// Normalized violation of a requirement by a value: (value − limit)/|limit| for an upper bound
 /// (the reverse for a lower one; a zero limit is scaled by 0.01), 0 when met; a missing value
 /// counts as a 100 % miss, an infinite miss as 1000.
@@ -145,7 +153,8 @@ struct DesiredPole {
 /// settling_time_max; else the P-only dominant crossing's pole.
 std::optional<DesiredPole> desired_pole(const Problem& problem, const Characterization& ch);
 
-/// The root-locus design of `structure` placing a closed-loop pole at `target` where the
+/// The root-locus design (direct action: give it Problem::normalized_plant, then apply the action
+/// with make_controller) of `structure` placing a closed-loop pole at `target` where the
 /// structure can (pd, pid, lead, lead-lag: angle condition; lead pole by the bisector rule;
 /// PI/lag zero at a tenth of σ), or at the dominant ζ-line crossing of the compensated locus
 /// where it cannot (p, pi, lag). Gain from the magnitude condition. `notes` says what was done.
@@ -156,7 +165,8 @@ std::optional<Controller> classical_controller(const TransferFunction& plant, St
 
 // ---- ultimate-gain baseline ---------------------------------------------------------------------
 
-/// Ultimate gain Ku and period Tu: the P gain at which K·G reaches the imaginary axis.
+/// Ultimate gain Ku and period Tu: the P gain at which K·G reaches the imaginary axis (direct
+/// action: give it Problem::normalized_plant).
 struct UltimatePoint {
   double gain = 0.0;
   double period_s = 0.0;

@@ -188,6 +188,26 @@ struct SpecKey {
 /// names, did-you-mean) iterate this table, so a key is accepted exactly when it is listed here.
 const std::vector<SpecKey>& spec_keys();
 
+/// What the numerics honour (README, "Spec file reference"; measured in DEVELOPERS.md). Every
+/// nonzero plant pole and zero magnitude (the delay's approximant poles included), rad/s:
+inline constexpr double kMinRate = 1e-5;
+inline constexpr double kMaxRate = 1e5;
+/// … at most this far apart (fastest ÷ slowest).
+inline constexpr double kMaxSpread = 1e6;
+/// |G(jω)| at the geometric mean ω of those magnitudes (the controller's gains come out near its inverse).
+inline constexpr double kMinGainScale = 1e-6;
+inline constexpr double kMaxGainScale = 1e6;
+/// |reference.amplitude|.
+inline constexpr double kMinAmplitude = 1e-6;
+inline constexpr double kMaxAmplitude = 1e6;
+/// controller.derivative_filter N: at most this (its pole sits N times beyond the derivative zero).
+inline constexpr double kMaxDerivativeFilter = 1e3;
+/// controller.sample_time, controller.tracking_time, disturbance.noise_period: at least this
+/// fraction of the plant's fastest time constant (1 / the largest pole or zero magnitude).
+inline constexpr double kMinTimeFraction = 1e-4;
+/// A plant pole with Re ≥ −tol·|p| and a zero within tol·max(|p|, |z|) of it cancel (refused).
+inline constexpr double kCancellationTolerance = 1e-6;
+
 /// Reads and validates a spec file. Throws SpecError (message as above) on any problem:
 /// unreadable file, TOML syntax, unknown key (with a did-you-mean), wrong type, out-of-range,
 /// NaN/inf, improper plant, zero leading coefficient, empty or duplicate section, contradiction.

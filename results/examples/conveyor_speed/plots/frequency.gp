@@ -14,7 +14,7 @@ do for [term in 'svg png'] {
   unset arrow; unset label
   set ylabel 'magnitude (dB)'
   set arrow from 32.32637206,-30.32119285 to 32.32637206,0 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
-  set arrow from 29.73124501,-23.92963433 to 29.73124501,0 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
+  set arrow from 29.73272437,-23.93100215 to 29.73272437,0 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
   plot 0 with lines lc rgb '#999999' dt 2 notitle, \
        '../series/frequency_classical.csv' using 1:2 with lines lc rgb '#c26a1b' lw 2 title 'classical', \
        '../series/frequency_optimized.csv' using 1:2 with lines lc rgb '#1f5f99' lw 2 title 'optimized', \
@@ -22,7 +22,7 @@ do for [term in 'svg png'] {
   unset arrow; unset label
   set ylabel 'phase (deg)'
   set arrow from 3.270972834,-180 to 3.270972834,-97.6968567 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
-  set arrow from 5.075499161,-180 to 5.075499161,-117.0533428 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
+  set arrow from 5.075251891,-180 to 5.075251891,-117.0547963 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
   plot -180 with lines lc rgb '#999999' dt 2 notitle, \
        '../series/frequency_classical.csv' using 1:3 with lines lc rgb '#c26a1b' lw 2 title 'classical', \
        '../series/frequency_optimized.csv' using 1:3 with lines lc rgb '#1f5f99' lw 2 title 'optimized', \
