@@ -659,6 +659,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
         const double ti = g.kp / g.ki;
         model.tt = g.kd > 0.0 ? std::sqrt(ti * g.kd / g.kp) : ti;
       }
+      result.tracking_time_s = model.tt;
       result.notes.push_back("back-calculation tracking time Tt = " + to_string(model.tt) + " s");
     }
     if (g.ki == 0.0 && options.anti_windup != AntiWindup::none)
@@ -752,6 +753,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   double noise_period = 0.0;
   if (options.noise_rms > 0.0) {
     noise_period = options.noise_period_s > 0.0 ? options.noise_period_s : (period > 0.0 ? period : horizon / 2000.0);
+    result.noise_period_s = noise_period;
     if (horizon / noise_period > 1e6) fail("noise_period_s: more than 1e6 noise values per horizon");
     noise = gaussian_sequence(options.noise_rms, options.noise_seed,
                               static_cast<std::size_t>(std::floor(horizon / noise_period)) + 2);
