@@ -687,8 +687,13 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   }
   model.size = size;
 
-  // ---- y∞ of the linear loop (final-value theorem) and the default horizon.
-  const StateSpace linear = close_loop(plant, realize(controller.transfer));
+  // ---- y∞ of the linear loop (final-value theorem) and the default horizon. The loop runs
+  // u = C_r·r − C·y with the set-point weights (parallel form): a P or PD controller with b ≠ 1
+  // settles elsewhere than C(s) on the error would.
+  const TransferFunction reference = controller.parallel
+                                         ? reference_path(controller, options.setpoint_weight, options.derivative_weight)
+                                         : controller.transfer;
+  const StateSpace linear = close_loop(plant, controller.transfer, reference);
   double y_inf = std::numeric_limits<double>::quiet_NaN();
   double horizon = options.horizon_s;
   {
