@@ -105,7 +105,6 @@ import heapq
 import fnmatch
 import json
 import math
-import os
 import pathlib
 import re
 import subprocess
@@ -578,7 +577,6 @@ def measure(pieces, y_inf, r, band_frac, t_int):
     band = band_frac * abs(y_inf)
     levels = [y_inf - band, y_inf + band, 0.1 * y_inf, 0.9 * y_inf]
     ymax, ymin = np.max(y), np.min(y)
-    umax_abs = np.max(np.abs(u))
     extra = []  # (t, y, yd, u, ud, piece)
     same = pid[:-1] == pid[1:]
     h = np.diff(t)
@@ -1203,7 +1201,6 @@ class ContinuousHybrid:
             n_prev = n
             guards = self.guards(mode, ctx, excluded)
             stop = min(nxt, t + 1e-9 * H) if excluded else nxt
-            m_ = mode
 
             fun, jac = self.rhs(mode, ctx, z, t)
             kw = {"jac": jac} if (method == "Radau" and jac is not None) else {}
@@ -1856,7 +1853,7 @@ class SpecOracle:
 
     # -- the described loop ------------------------------------------------------------------------------------
     def described(self, design, plant=None):
-        spec, R = self.spec, self.R
+        spec = self.spec
         ctl, act, dist = spec["controller"], spec["actuator"], spec["disturbance"]
         c = design["controller"]
         nl = design.get("nonlinear") or {}
@@ -2298,8 +2295,11 @@ class SpecOracle:
             for k, pattern, gn, gd in self.perturbed_plants(2):
                 Ap, Bp, Cp, _ = realize(gn, gd)
                 loop2 = loop_d.with_plant(("linear", Ap, Bp, Cp))
-                lin = self.linear_loop(d, *((np.polymul(gn, pade_delay(self.delay, 3)[0]), np.polymul(gd, pade_delay(self.delay, 3)[1]))
-                                            if self.delay else (gn, gd)))
+                if self.delay:
+                    pn, pd = pade_delay(self.delay, int(self.R["linear_model"]["delay_approximant_order"]))
+                    lin = self.linear_loop(d, np.polymul(gn, pn), np.polymul(gd, pd))
+                else:
+                    lin = self.linear_loop(d, gn, gd)
                 pieces, _, how = self.simulate_described(loop2, lin, EXTEND * loop_d.horizon)
                 y_inf, _ = lin.final(self.r)
                 m = measure(pieces, y_inf, self.r, self.band, loop_d.horizon)
