@@ -266,6 +266,7 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
   const Spec& spec = problem.spec;
   NonlinearConfirmation nc;
   const NonlinearSetup setup = nonlinear_setup(problem, linear_horizon_s, kConfirmationSamples);
+  nc.horizon_s = setup.options.horizon_s;
   NonlinearResult r;
   try {
     r = simulate_on_nonlinear_loop(problem, d.controller, setup);
@@ -275,6 +276,9 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
     return nc;
   }
   nc.status = r.status;
+  if (!r.time_s.empty()) nc.horizon_s = r.time_s.back();
+  if (r.noise_period_s > 0.0) nc.noise_period_s = r.noise_period_s;
+  nc.tracking_time_s = r.tracking_time_s;
   nc.notes = r.notes;
   nc.difference_equation = r.difference_equation;
   nc.saturated_fraction = r.saturated_fraction;

@@ -194,6 +194,24 @@ json spec_json(const Spec& spec) {
   json actuator = spec.actuator.limited
                       ? json{{"min", number_json(spec.actuator.min)}, {"max", number_json(spec.actuator.max)}}
                       : json{{"min", nullptr}, {"max", nullptr}};
+  actuator["rate_max"] = optional_number(spec.actuator.rate_max);
+  const ControllerSpec& c = spec.controller;
+  // Every key that changes a number is written, so that result.json rebuilds the loop alone;
+  // null stands for "none" (rate_max, sample_time: continuous) or for the documented default rule
+  // (tracking_time, noise_period: the value used is in each design's "nonlinear" block).
+  const json controller = {{"structure", structure_name(c.structure)},
+                           {"derivative_filter", number_json(c.derivative_filter)},
+                           {"setpoint_weight", number_json(c.setpoint_weight)},
+                           {"derivative_on", c.derivative_on_measurement ? "measurement" : "error"},
+                           {"sample_time", c.sample_time_s > 0.0 ? number_json(c.sample_time_s) : json(nullptr)},
+                           {"anti_windup", anti_windup_name(c.anti_windup)},
+                           {"tracking_time", optional_number(c.tracking_time_s)}};
+  const DisturbanceSpec& dist = spec.disturbance;
+  const json disturbance = {{"time", number_json(dist.time_s)},
+                            {"size", number_json(dist.size)},
+                            {"noise_rms", number_json(dist.noise_rms)},
+                            {"noise_period", dist.noise_period_s > 0.0 ? number_json(dist.noise_period_s) : json(nullptr)},
+                            {"seed", dist.noise_seed}};
   const Requirements& r = spec.requirements;
   json requirements = {{"overshoot_max_pct", optional_number(r.overshoot_max_pct)},
                        {"undershoot_max_pct", optional_number(r.undershoot_max_pct)},
@@ -214,17 +232,19 @@ json spec_json(const Spec& spec) {
           {"title", spec.title},
           {"plant", plant},
           {"actuator", actuator},
-          {"controller",
-           {{"structure", structure_name(spec.controller.structure)},
-            {"derivative_filter", number_json(spec.controller.derivative_filter)}}},
+          {"controller", controller},
           {"requirements", requirements},
           {"reference", {{"amplitude", number_json(spec.reference.amplitude)}}},
+          {"disturbance", disturbance},
           {"search",
            {{"objective", objective_name(spec.search.objective)},
             {"seed", spec.search.seed},
             {"max_evaluations", spec.search.max_evaluations},
             {"max_time", number_json(spec.search.max_time_s)},
-            {"bounds", bounds}}}};
+            {"simulate", spec.search.simulate_nonlinear ? "nonlinear" : "linear"},
+            {"bounds", bounds}}},
+          {"sweep", {{"vary", spec.sweep_vary}}},
+          {"units", units_json(spec.units)}};
 }
 
 json design_json(const Design& d) {
@@ -289,6 +309,9 @@ json design_json(const Design& d) {
                         {"rate_limited_fraction", number_json(n.rate_limited_fraction)},
                         {"command_excess_max", number_json(n.command_excess_max)},
                         {"stepper", stepper_name(n.stepper)},
+                        {"horizon", number_json(n.horizon_s)},
+                        {"noise_period", optional_number(n.noise_period_s)},
+                        {"tracking_time", optional_number(n.tracking_time_s)},
                         {"checks", checks_json(n.checks)},
                         {"meets_all", n.meets_all},
                         {"confirmed", n.confirmed},
@@ -357,9 +380,11 @@ json result_json(const DesignRun& run) {
   json out = {{"schema", "specloop-result-1"},
               {"version", SPECLOOP_VERSION},
               {"spec", spec_json(run.problem.spec)},
+              // The plant as specified (a delayed plant without its Padé approximant, which
+              // belongs to linear_model): G(s)·e^(−s·delay) rebuilds it.
               {"plant",
-               {{"numerator", numbers(run.problem.plant.numerator.coefficients)},
-                {"denominator", numbers(run.problem.plant.denominator.coefficients)},
+               {{"numerator", numbers(run.problem.spec.plant.numerator)},
+                {"denominator", numbers(run.problem.spec.plant.denominator)},
                 {"delay", number_json(run.problem.spec.plant.delay_s)}}},
               {"linear_model",
                {{"numerator", numbers(run.problem.plant.numerator.coefficients)},

@@ -661,6 +661,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
         const double ti = g.kp / g.ki;
         model.tt = g.kd * g.kp > 0.0 ? std::sqrt(ti * g.kd / g.kp) : ti;
       }
+      result.tracking_time_s = model.tt;
       result.notes.push_back("back-calculation tracking time Tt = " + to_string(model.tt) + " s");
     }
     if (g.ki == 0.0 && options.anti_windup != AntiWindup::none)
@@ -688,8 +689,13 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   }
   model.size = size;
 
-  // ---- y∞ of the linear loop (final-value theorem) and the default horizon.
-  const StateSpace linear = close_loop(plant, realize(controller.transfer));
+  // ---- y∞ of the linear loop (final-value theorem) and the default horizon. The loop runs
+  // u = C_r·r − C·y with the set-point weights (parallel form): a P or PD controller with b ≠ 1
+  // settles elsewhere than C(s) on the error would.
+  const TransferFunction reference = controller.parallel
+                                         ? reference_path(controller, options.setpoint_weight, options.derivative_weight)
+                                         : controller.transfer;
+  const StateSpace linear = close_loop(plant, controller.transfer, reference);
   double y_inf = std::numeric_limits<double>::quiet_NaN();
   double horizon = options.horizon_s;
   {
@@ -761,6 +767,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   double noise_period = 0.0;
   if (options.noise_rms > 0.0) {
     noise_period = options.noise_period_s > 0.0 ? options.noise_period_s : (period > 0.0 ? period : horizon / 2000.0);
+    result.noise_period_s = noise_period;
     if (horizon / noise_period > 1e6) fail("noise_period_s: more than 1e6 noise values per horizon");
     noise = gaussian_sequence(options.noise_rms, options.noise_seed,
                               static_cast<std::size_t>(std::floor(horizon / noise_period)) + 2);

@@ -504,7 +504,9 @@ METRIC_KEYS = ["final_value", "steady_state_error", "overshoot_pct", "peak_time"
 
 def loop_of(result, design):
     ctrl = design["controller"]
-    return Loop(result["plant"]["numerator"], result["plant"]["denominator"], ctrl["numerator"],
+    # The linear loop: the plant times its delay approximant (result.json's linear_model; "plant"
+    # is the plant as specified, without the approximant).
+    return Loop(result["linear_model"]["numerator"], result["linear_model"]["denominator"], ctrl["numerator"],
                 ctrl["denominator"], result["spec"]["reference"]["amplitude"])
 
 

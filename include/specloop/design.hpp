@@ -80,6 +80,9 @@ struct NonlinearConfirmation {
   bool confirmed = false;             // every requirement met on the linear loop is met here too
   std::string verdict;                // one sentence, with the numbers
   std::optional<DifferenceEquation> difference_equation;  // when the controller is sampled
+  double horizon_s = 0.0;                    // simulated time, s (what rebuilds the run from result.json)
+  std::optional<double> noise_period_s;      // the noise period used, when there is noise
+  std::optional<double> tracking_time_s;     // the back-calculation tracking time used, when it applies
   std::vector<std::string> notes;
 };
 

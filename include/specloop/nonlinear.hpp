@@ -139,6 +139,8 @@ struct NonlinearResult {
   std::vector<std::string> notes;   // what was simplified or not applied, in words
   /// For a sampled controller: its difference equations at sample_time_s (empty when continuous).
   std::optional<DifferenceEquation> difference_equation;
+  double noise_period_s = 0.0;             // the noise period used (options' or the default); 0: no noise
+  std::optional<double> tracking_time_s;   // the back-calculation Tt used (given or by the default rule)
 };
 
 /// Simulates a step of `amplitude` in the reference at t = 0 (zero initial state; the
