@@ -196,6 +196,7 @@ json spec_json(const Spec& spec) {
             {"seed", spec.search.seed},
             {"max_evaluations", spec.search.max_evaluations},
             {"max_time", number_json(spec.search.max_time_s)},
+            {"simulate", simulate_mode_name(spec.search.simulate)},
             {"bounds", bounds}}}};
 }
 
@@ -240,6 +241,8 @@ json design_json(const Design& d) {
               {"closed_loop_poles", poles_json(d.closed_loop_poles)},
               {"checks", checks},
               {"meets_all", d.meets_all},
+              {"simulated_loop", d.sampled ? "sampled" : "continuous"},
+              {"warnings", d.warnings},
               {"notes", d.notes}};
   out["second_order"] = d.second_order
                             ? json{{"overshoot_pct", number_json(d.second_order->overshoot_pct)},
@@ -257,6 +260,10 @@ json design_json(const Design& d) {
                         {"saturated_fraction", number_json(n.saturated_fraction)},
                         {"rate_limited_fraction", number_json(n.rate_limited_fraction)},
                         {"command_excess_max", number_json(n.command_excess_max)},
+                        {"integrator_held_fraction", number_json(n.integrator_held_fraction)},
+                        {"active_effects", n.active_effects},
+                        {"horizon", number_json(n.horizon_s)},
+                        {"horizon_bound_hit", n.horizon_bound_hit},
                         {"stepper", stepper_name(n.stepper)},
                         {"checks", checks_json(n.checks)},
                         {"meets_all", n.meets_all},
@@ -266,6 +273,7 @@ json design_json(const Design& d) {
     json attribution = json::array();
     for (const CauseTrial& t : n.attribution)
       attribution.push_back({{"factor", t.factor},
+                             {"factors", t.factors},
                              {"removed", t.removed},
                              {"status", status_name(t.status)},
                              {"checks", checks_json(t.checks)},
@@ -308,6 +316,9 @@ json search_json(const SearchSummary& s) {
           {"local_evaluations", s.local_evaluations},
           {"nonlinear_evaluations", s.nonlinear_evaluations},
           {"nonlinear_stage", s.nonlinear_stage},
+          {"simulate", s.simulate},
+          {"linear_loop", s.linear_loop},
+          {"active_effects", s.active_effects},
           {"unstable_candidates", s.unstable},
           {"infeasible_candidates", s.infeasible},
           {"wall_time_s", number_json(s.wall_time_s)},
@@ -337,6 +348,7 @@ json result_json(const DesignRun& run) {
               {"search", search_json(run.search)},
               {"met", run.met},
               {"judged_on", run.judged_on_nonlinear ? "nonlinear" : "linear"},
+              {"met_on_linear", run.met_on_linear},
               {"safety", kSafetyCaution}};
   out["linear_model"]["linearization"] = linearization_json(run.problem.spec);
   if (run.target)

@@ -1,6 +1,7 @@
 // The design report (report.hpp): data for the figures, CSV series, gnuplot scripts, and the HTML
 // and Markdown pages built from one list of sections.
 #include "specloop/report.hpp"
+#include "specloop/sampled_loop.hpp"
 
 #include <algorithm>
 #include <cmath>
@@ -75,11 +76,20 @@ ReportData report_data(const DesignRun& run) {
   for (const Design& d : run.designs) {
     if (d.status != StepStatus::ok) continue;
     StepSimulator sim;
+    SampledStepSimulator sampled;
     StepMetrics m;
     StepTrace trace;
-    if (sim.simulate(close_loop(problem.plant_realization, d.controller.transfer, d.reference_path),
-                     spec.reference.amplitude, problem.band_fraction, m, &trace) != StepStatus::ok)
-      continue;
+    StepStatus status = StepStatus::numerical_failure;
+    if (d.sampled) {  // the sampled loop, as the design was measured
+      const ControllerSpec& cs = spec.controller;
+      const DifferenceEquation eq = controller_difference_equation(d.controller, cs.sample_time_s, cs.setpoint_weight,
+                                                                   cs.derivative_on_measurement ? 0.0 : 1.0);
+      status = sampled.simulate(problem.plant_realization, eq, spec.reference.amplitude, problem.band_fraction, m, &trace);
+    } else {
+      status = sim.simulate(close_loop(problem.plant_realization, d.controller.transfer, d.reference_path),
+                            spec.reference.amplitude, problem.band_fraction, m, &trace);
+    }
+    if (status != StepStatus::ok) continue;
     ResponseTrace t{d.name, false, std::move(trace.time_s), std::move(trace.output), std::move(trace.effort), {}};
     // The time axis: until the slowest plotted design has settled, with room after it.
     const double settled = m.settling_time_s ? *m.settling_time_s : t.time_s.back();
@@ -91,7 +101,11 @@ ReportData report_data(const DesignRun& run) {
     const auto linear = std::find_if(data.traces.begin(), data.traces.end(),
                                      [&](const ResponseTrace& t) { return t.design == best->name; });
     const double linear_horizon = linear != data.traces.end() ? linear->time_s.back() : horizon;
-    const NonlinearSetup setup = nonlinear_setup(problem, linear_horizon, kReportNonlinearSamples);
+    NonlinearSetup setup = nonlinear_setup(problem, linear_horizon, kReportNonlinearSamples);
+    if (best->nonlinear && best->nonlinear->horizon_s > 0.0) {  // the confirmation's (possibly extended) horizon
+      setup.options.horizon_s = best->nonlinear->horizon_s;
+      setup.options.output_step_s = setup.options.horizon_s / kReportNonlinearSamples;
+    }
     const NonlinearResult r = simulate_on_nonlinear_loop(problem, best->controller, setup);
     if (r.status == NonlinearStatus::ok) {
       data.traces.push_back({best->name, true, r.time_s, r.output, r.control, r.command});
@@ -456,12 +470,12 @@ std::string controller_lines(const Design& d) {
 std::string verdict_line(const DesignRun& run) {
   const Design* best = recommended_design(run);
   std::string line;
+  const char* loop = run.judged_on_nonlinear ? "nonlinear loop (the loop the spec describes)" : "linear loop";
   if (run.infeasibility) {
-    line = fmt::format("NOT MET: no design meets every requirement on the {} loop; binding: {}.",
-                       run.judged_on_nonlinear ? "nonlinear" : "linear", run.infeasibility->binding);
+    line = fmt::format("NOT MET: no design meets every requirement on the {}; binding: {}.", loop, run.infeasibility->binding);
+    if (run.judged_on_nonlinear && run.met_on_linear) line += " (The linear loop alone passes: a linear-only pass.)";
   } else {
-    line = fmt::format("MET: the optimized design meets every requirement on the {} loop.",
-                       run.judged_on_nonlinear ? "nonlinear" : "linear");
+    line = fmt::format("MET: the optimized design meets every requirement on the {}.", loop);
   }
   if (best && best->nonlinear)
     line += best->nonlinear->confirmed ? " Confirmed on the nonlinear loop." : " NOT confirmed on the nonlinear loop.";
@@ -480,6 +494,10 @@ std::vector<Section> sections(const DesignRun& run, const ReportOutcome& outcome
       const std::string lines = controller_lines(*best);
       s.html = paragraph_html(fmt::format("The {} design.", best->name)) + "<pre>" + escape_html(lines) + "</pre>\n";
       s.markdown = fmt::format("The {} design.\n\n```\n{}```\n", best->name, lines);
+      for (const std::string& w : best->warnings) {
+        s.html += paragraph_html("Warning: " + w);
+        s.markdown += "\nWarning: " + escape_md(w) + "\n";
+      }
     } else {
       s.html = paragraph_html("No design to recommend: neither the optimized nor the classical loop is stable.");
       s.markdown = "No design to recommend: neither the optimized nor the classical loop is stable.\n";
@@ -566,11 +584,15 @@ std::vector<Section> sections(const DesignRun& run, const ReportOutcome& outcome
   }
   {  // Search.
     const SearchSummary& q = run.search;
+    std::vector<std::string> effects;
+    for (const std::string& e : q.active_effects) effects.push_back(effect_description(e));
     const std::string text = fmt::format(
-        "NLopt {} then {}: {} evaluations ({} global, {} local{}), {} unstable and {} infeasible candidates, {:.3f} s; {}",
+        "NLopt {} then {}: {} evaluations ({} global, {} local{}), {} unstable and {} infeasible candidates, {:.3f} s; {}. "
+        "Linear stages on the {} loop. search.simulate = {}; active for the linear optimum: {}; {}",
         q.global_given, q.local_given, q.evaluations, q.global_evaluations, q.local_evaluations,
         q.nonlinear_evaluations ? fmt::format(", {} on the nonlinear loop", q.nonlinear_evaluations) : std::string(), q.unstable,
-        q.infeasible, q.wall_time_s, q.stop_reason);
+        q.infeasible, q.wall_time_s, q.stop_reason, q.linear_loop, q.simulate,
+        effects.empty() ? std::string("none") : fmt::format("{}", fmt::join(effects, ", ")), q.nonlinear_stage);
     Section s{"search", "Search", paragraph_html(text), escape_md(text) + "\n"};
     if (run.infeasibility) {
       const std::string more = run.infeasibility->nearest_text;
