@@ -19,6 +19,8 @@ SearchOptions search_options(const Spec& spec) {
   o.seed = spec.search.seed;
   o.max_evaluations = spec.search.max_evaluations;
   o.max_time_s = spec.search.max_time_s;
+  // The nonlinear stage gets a tenth of the linear budget, between 40 and 400 evaluations.
+  o.nonlinear_evaluations = std::clamp(spec.search.max_evaluations / 10, 40, 400);
   return o;
 }
 
@@ -180,7 +182,7 @@ DesignRun run_design(const Spec& spec) {
           "judged on the nonlinear loop ({}){}; the best reachable value is not searched there",
           active.empty() ? std::string("search.simulate = \"nonlinear\"")
                          : fmt::format("active: {}", fmt::join(active, ", ")),
-          best.meets_all ? "; the linear loop meets every requirement — a linear-only pass, which does not count" : "");
+          best.meets_all ? "; the linear loop alone meets every requirement (a linear-only pass, which does not count)" : "");
       run.infeasibility = info;
     }
   } else {

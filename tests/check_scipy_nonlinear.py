@@ -260,6 +260,7 @@ def sampled_reference(plant, gains, ts, m, steps, b=1.0, c=1.0, limits=(-np.inf,
     a_d = tf / (tf + ts) if kd else 0.0
     ys, us = [], []
     clamped = 0
+    beyond = []  # per sample: the command beyond a limit, as first computed or as returned
     for _ in range(steps):
         y = C @ x
         r = 1.0
@@ -268,10 +269,13 @@ def sampled_reference(plant, gains, ts, m, steps, b=1.0, c=1.0, limits=(-np.inf,
         di = ki * ts / 2 * (e + e_prev)
         dn = a_d * deriv + (kd / (tf + ts) * (v - v_prev) if kd else 0.0)
         uc = p + integral + di + dn
-        if (uc > umax and di > 0) or (uc < umin and di < 0):
+        tentative = uc
+        held = (uc > umax and di > 0) or (uc < umin and di < 0)
+        if held:
             di = 0.0
             uc = p + integral + dn
             clamped += 1
+        beyond.append(max(tentative, uc) > umax or min(tentative, uc) < umin)
         integral += di
         deriv, e_prev, v_prev = dn, e, v
         u = min(max(uc, umin), umax)
@@ -279,6 +283,7 @@ def sampled_reference(plant, gains, ts, m, steps, b=1.0, c=1.0, limits=(-np.inf,
         us.append(uc)
         queue.append(u)
         x = Ad @ x + Bd * queue.pop(0)
+    sampled_reference.beyond = beyond
     return np.array(ys), np.array(us), clamped
 
 
@@ -369,6 +374,14 @@ def check_delay_and_sampling(tally, nlprobe):
                         inside and active and clamped > 0,
                         f"plant input in [{np.min(pin):.4f}, {np.max(pin):.4f}], command in "
                         f"[{np.min(u_ref):.4f}, {np.max(u_ref):.4f}], {clamped} clamped samples")
+            # Saturation of a sampled controller (README, confirmation): every period whose command,
+            # as first computed with the integral increment, lies beyond a limit counts, also when
+            # the conditional integration then held the integrator and so brought it back inside.
+            horizon = (steps - 1) * ts
+            periods = sum(sampled_reference.beyond[:-1])  # the sample at the horizon has no period
+            tally.check(sc["name"], "saturated fraction = periods with the command beyond a limit",
+                        abs(res["saturated_fraction"] * horizon / ts - periods) <= 1e-6,
+                        f"{res['saturated_fraction'] * horizon / ts:.6f} vs {periods} periods")
 
     # --- Continuous PI with delay against Padé-approximated linear loops of rising order.
     delay_cases = [

@@ -251,7 +251,8 @@ struct SearchOptions {
   double max_time_s = 20.0;           // wall-time cap for the whole search, s
   double global_share = 0.6;          // fraction of the evaluation budget for the global stage
   double local_relative_tolerance = 1e-6;  // local stage stops when |Δcost|/cost falls below this
-  /// Budget of the nonlinear stage (refine_on_nonlinear_loop), evaluations on the nonlinear loop.
+  /// Budget of the nonlinear stage (refine_on_nonlinear_loop), evaluations on the nonlinear loop
+  /// (search_options: a tenth of max_evaluations, between 40 and 400).
   int nonlinear_evaluations = 400;
   std::string global_algorithm = "GN_DIRECT_L";  // NLopt algorithm names (nlopt_algorithm_from_string)
   std::string local_algorithm = "LN_SBPLX";
