@@ -166,6 +166,7 @@ json spec_json(const Spec& spec) {
   json actuator = spec.actuator.limited
                       ? json{{"min", number_json(spec.actuator.min)}, {"max", number_json(spec.actuator.max)}}
                       : json{{"min", nullptr}, {"max", nullptr}};
+  actuator["rate_max"] = spec.actuator.rate_max ? number_json(*spec.actuator.rate_max) : json(nullptr);
   const Requirements& r = spec.requirements;
   json requirements = {{"overshoot_max_pct", optional_number(r.overshoot_max_pct)},
                        {"undershoot_max_pct", optional_number(r.undershoot_max_pct)},
@@ -188,7 +189,11 @@ json spec_json(const Spec& spec) {
           {"actuator", actuator},
           {"controller",
            {{"structure", structure_name(spec.controller.structure)},
-            {"derivative_filter", number_json(spec.controller.derivative_filter)}}},
+            {"derivative_filter", number_json(spec.controller.derivative_filter)},
+            {"sample_time", spec.controller.sample_time_s > 0.0 ? number_json(spec.controller.sample_time_s) : json(nullptr)},
+            {"setpoint_weight", number_json(spec.controller.setpoint_weight)},
+            {"derivative_on", spec.controller.derivative_on_measurement ? "measurement" : "error"},
+            {"anti_windup", anti_windup_name(spec.controller.anti_windup)}}},
           {"requirements", requirements},
           {"reference", {{"amplitude", number_json(spec.reference.amplitude)}}},
           {"search",

@@ -29,6 +29,7 @@ namespace {
 constexpr double kDecay = 1e-4;        // horizon: the slowest mode decayed to this fraction
 constexpr int kSegmentSamples = 1000;  // about this many samples in each of the two segments
 constexpr int kMaxSubsteps = 64;       // sub-steps per period, at most
+constexpr double kResolve = 0.1;       // h·ρ between recorded samples, at most (within the caps)
 
 // The cubic Hermite interpolant on one interval, in s ∈ [0, 1]: p(s) = a0 + a1·s + a2·s² + a3·s³.
 struct Cubic {
@@ -224,27 +225,32 @@ StepStatus SampledStepSimulator::simulate(const StateSpace& plant, const Differe
   const long fine_periods = std::min(periods, static_cast<long>(std::ceil(fast_until / ts)));
   Eigen::EigenSolver<Eigen::MatrixXd> ep(plant.A, false);
   const double plant_speed = ep.info() == Eigen::Success ? ep.eigenvalues().cwiseAbs().maxCoeff() : 0.0;
-  // Sub-steps resolve the plant between samples when a period is long against its modes or when
-  // the first segment has few periods; otherwise the first segment jumps q₁ periods per sample.
-  int substeps = 1;
+  // Resolution: between recorded samples h·ρ ≤ kResolve for the modes alive there (the cubic
+  // Hermite interpolant's error is O((h·ρ)⁴)). Sub-steps resolve the plant between samples when a
+  // period is long against its modes (or the first segment has few periods); otherwise a segment
+  // jumps q periods per sample.
+  const double fine_speed = std::max(plant_speed, fast_speed);
+  int substeps = 1, coarse_substeps = 1;
   long q1 = 1;
-  if (ts * std::max(plant_speed, fast_speed) >= 1.0 || fine_periods <= kSegmentSamples) {
-    substeps = static_cast<int>(std::ceil(std::max(ts * plant_speed, static_cast<double>(kSegmentSamples) /
-                                                                         static_cast<double>(std::max(1L, fine_periods)))));
+  if (ts * fine_speed > kResolve || fine_periods <= kSegmentSamples) {
+    substeps = static_cast<int>(std::ceil(std::max(ts * plant_speed / kResolve, static_cast<double>(kSegmentSamples) /
+                                                                                    static_cast<double>(std::max(1L, fine_periods)))));
     substeps = std::clamp(substeps, 1, kMaxSubsteps);
   } else {
-    q1 = std::max(1L, std::min(static_cast<long>(std::floor(1.0 / (ts * std::max(plant_speed, fast_speed)))),
-                               fine_periods / kSegmentSamples));
+    q1 = std::max(1L, std::min(static_cast<long>(std::floor(kResolve / (ts * fine_speed))), fine_periods / kSegmentSamples));
   }
   const long coarse_periods = periods - fine_periods;
   long q2 = 1;
-  if (coarse_periods > kSegmentSamples)
-    q2 = std::max(1L, std::min(slow_speed > 0.0 ? static_cast<long>(std::floor(1.0 / (ts * slow_speed))) : coarse_periods,
-                               coarse_periods / kSegmentSamples));
-  const double h = ts / substeps;
-  Eigen::MatrixXd phi_h;
-  Eigen::VectorXd gamma_h;
-  zero_order_hold(plant.A, plant.B, h, phi_h, gamma_h);
+  if (coarse_periods > kSegmentSamples && slow_speed > 0.0)
+    q2 = std::max(1L, std::min(static_cast<long>(std::floor(kResolve / (ts * slow_speed))), coarse_periods / kSegmentSamples));
+  if (q2 == 1 && coarse_periods > 0) {
+    coarse_substeps = static_cast<int>(std::ceil(ts * plant_speed / kResolve));
+    coarse_substeps = std::clamp(coarse_substeps, 1, std::max(1, static_cast<int>(std::min<long>(kMaxSubsteps, 8L * kSegmentSamples / coarse_periods))));
+  }
+  Eigen::MatrixXd phi_h, phi_h2;
+  Eigen::VectorXd gamma_h, gamma_h2;
+  zero_order_hold(plant.A, plant.B, ts / substeps, phi_h, gamma_h);
+  zero_order_hold(plant.A, plant.B, ts / coarse_substeps, phi_h2, gamma_h2);
   const Eigen::RowVectorXd ca = c * plant.A;
   const double cb = c.dot(plant.B);
 
@@ -271,14 +277,15 @@ StepStatus SampledStepSimulator::simulate(const StateSpace& plant, const Differe
     }
     return std::make_pair(flat(power), Eigen::VectorXd(sum * nn * amplitude));
   };
-  const std::vector<double> mv = flat(mm), ph = flat(phi_h);
-  std::vector<double> nv(ud), gh(un), cv(un), cav(un), kuv(ud), z(ud, 0.0), zn(ud), xs(un), xn(un);
+  const std::vector<double> mv = flat(mm), ph1 = flat(phi_h), ph2 = flat(phi_h2);
+  std::vector<double> nv(ud), gh1(un), gh2(un), cv(un), cav(un), kuv(ud), z(ud, 0.0), zn(ud), xs(un), xn(un);
   for (std::size_t i = 0; i < ud; ++i) {
     nv[i] = nn(static_cast<Eigen::Index>(i)) * amplitude;
     kuv[i] = ku_row(static_cast<Eigen::Index>(i));
   }
   for (std::size_t i = 0; i < un; ++i) {
-    gh[i] = gamma_h(static_cast<Eigen::Index>(i));
+    gh1[i] = gamma_h(static_cast<Eigen::Index>(i));
+    gh2[i] = gamma_h2(static_cast<Eigen::Index>(i));
     cv[i] = c(static_cast<Eigen::Index>(i));
     cav[i] = ca(static_cast<Eigen::Index>(i));
   }
@@ -299,7 +306,8 @@ StepStatus SampledStepSimulator::simulate(const StateSpace& plant, const Differe
   const double u_r = ku * amplitude;
   auto control = [&] { return dot(kuv, z, ud) + u_r; };
 
-  const std::size_t expected = static_cast<std::size_t>(fine_periods / q1 * substeps + coarse_periods / q2 + 4);
+  const std::size_t expected =
+      static_cast<std::size_t>(fine_periods / q1 * substeps + coarse_periods / q2 * coarse_substeps + 4);
   for (auto* v : {&t_, &y_, &u_, &slope_right_, &slope_left_}) {
     v->clear();
     v->reserve(expected);
@@ -316,7 +324,8 @@ StepStatus SampledStepSimulator::simulate(const StateSpace& plant, const Differe
   };
   // One segment [from, to) in periods, a sample every q periods (q = 1: every period, with the
   // sub-steps between samples).
-  auto segment = [&](long from, long to, long q, int subs) {
+  auto segment = [&](long from, long to, long q, int subs, const std::vector<double>& ph, const std::vector<double>& gh) {
+    const double h = ts / subs;
     const auto jump = q > 1 ? jump_for(q) : std::make_pair(std::vector<double>{}, Eigen::VectorXd{});
     std::vector<double> jump_add(ud, 0.0);
     for (std::size_t i = 0; q > 1 && i < ud; ++i) jump_add[i] = jump.second(static_cast<Eigen::Index>(i));
@@ -360,8 +369,8 @@ StepStatus SampledStepSimulator::simulate(const StateSpace& plant, const Differe
   };
   fine_step_ = static_cast<double>(q1) * ts / substeps;
   fine_until_ = static_cast<double>(fine_periods) * ts;
-  segment(0, fine_periods, q1, substeps);
-  segment(fine_periods, periods, q2, 1);
+  segment(0, fine_periods, q1, substeps, ph1, gh1);
+  segment(fine_periods, periods, q2, coarse_substeps, ph2, gh2);
   {  // the last sample, at the horizon (left limits: the next control is not applied)
     const double u_last = u_prev;
     record(horizon_, u_last);
