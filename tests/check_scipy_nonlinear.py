@@ -330,6 +330,11 @@ def check_delay_and_sampling(tally, nlprobe):
         {"name": "sampled PID b 0.5 c 0, clamping, Ts 0.05, delay 2 Ts, third-order plant", "plant": PLANT_3,
          "structure": "pid", "series": [4.0, 1.5, 0.8], "ts": 0.05, "m": 2, "steps": 301,
          "limits": (-0.5, 1.2), "options": {"setpoint_weight": 0.5, "derivative_weight": 0.0, "anti_windup": "conditional-integration"}},
+        # The command with its first integral increment, 1.2 + 0.84·0.05 = 1.242, lies beyond 1.22;
+        # clamping skips the increment and returns 1.2, inside: that sample is still saturated.
+        {"name": "sampled PI, clamping brings the first command back inside, Ts 0.1, lag plant", "plant": PLANT_LAG,
+         "structure": "pi", "series": [1.2, 0.7], "gains": (1.2, 1.2 * 0.7, 0.0, 0.0), "ts": 0.1, "m": 0, "steps": 121,
+         "limits": (-1.22, 1.22), "options": {"anti_windup": "conditional-integration"}},
     ]
     for sc in sampled_cases:
         ts, m, steps = sc["ts"], sc["m"], sc["steps"]
@@ -369,7 +374,7 @@ def check_delay_and_sampling(tally, nlprobe):
             lo, hi = sc["limits"]
             pin = np.array(res["plant_input"])
             inside = np.min(pin) >= lo and np.max(pin) <= hi
-            active = bool(np.any((u_ref > hi) | (u_ref < lo)))
+            active = bool(np.any(sampled_reference.beyond))
             tally.check(sc["name"], "plant input within the limits, saturation and clamping active",
                         inside and active and clamped > 0,
                         f"plant input in [{np.min(pin):.4f}, {np.max(pin):.4f}], command in "
