@@ -172,6 +172,20 @@ DesignRun run_design(const Spec& spec) {
 
   run.judged_on_nonlinear = stage || !active.empty();
   run.met_on_linear = best.meets_all;
+  if (run.judged_on_nonlinear && best.nonlinear && best.nonlinear->meets_all && !best.meets_all) {
+    // Met for the spec's step on the loop it describes, but not for steps small enough that
+    // nothing saturates: true, and worth saying.
+    std::vector<std::string> misses;
+    for (const RequirementCheck& c : best.checks)
+      if (!c.met)
+        misses.push_back(fmt::format("{} {}", c.requirement.key,
+                                     c.value ? fmt::format("{:.4g}{}", *c.value, c.requirement.unit.empty() ? "" : " " + c.requirement.unit)
+                                             : std::string("none")));
+    best.warnings.push_back(fmt::format(
+        "on the linear loop — a step small enough that nothing saturates — this design misses {}: it meets the "
+        "requirements for the spec's step of {:.4g} only with the effects of the loop it describes (limits, …) acting",
+        fmt::join(misses, ", "), spec.reference.amplitude));
+  }
   if (run.judged_on_nonlinear) {
     // Judged on the loop the spec describes. Misses are that loop's; no second search.
     run.met = best.nonlinear && best.nonlinear->status == NonlinearStatus::ok && best.nonlinear->meets_all;
