@@ -350,11 +350,13 @@ bool limits_reached(const Spec& spec, const NonlinearResult& r) {
   return r.command_excess_max > 1e-9 * scale;
 }
 
-// The effects the continuous linear loop leaves out that acted in the run `r` (ids).
-std::vector<std::string> active_effects_of(const Spec& spec, const NonlinearResult& r, double horizon) {
+// The effects the continuous linear loop leaves out that acted in the run `r` (ids); with
+// `unfinished`, every one the spec has (the run cannot say which acted).
+std::vector<std::string> active_effects_of(const Spec& spec, const NonlinearResult& r, double horizon,
+                                           bool unfinished = false) {
   std::vector<std::string> out;
-  if (limits_reached(spec, r)) out.emplace_back("actuator_limits");
-  if (spec.actuator.rate_max && r.rate_limited_fraction > 0.0) out.emplace_back("rate_limit");
+  if (unfinished ? spec.actuator.limited : limits_reached(spec, r)) out.emplace_back("actuator_limits");
+  if (spec.actuator.rate_max && (unfinished || r.rate_limited_fraction > 0.0)) out.emplace_back("rate_limit");
   if (spec.controller.sample_time_s > 0.0) out.emplace_back("sampling");
   if (spec.plant.delay_s > 0.0) out.emplace_back("delay");
   if (spec.plant.nonlinear) out.emplace_back("plant_nonlinearity");
@@ -446,6 +448,7 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
     run = simulate_until_settled(problem, d.controller, start, kMaxHorizonFactor);
   } catch (const std::invalid_argument& e) {
     nc.status = NonlinearStatus::non_finite;
+    nc.active_effects = active_effects_of(spec, NonlinearResult{}, start.options.horizon_s, true);
     nc.verdict = std::string("not confirmed: the nonlinear loop cannot be simulated (") + e.what() + ")";
     return nc;
   }
@@ -468,6 +471,9 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d,
     nc.notes.push_back(fmt::format("the response had not settled by {:.4g} s ({:.0f}× the linear loop's horizon, the "
                                    "bound): metrics read on that horizon", nc.horizon_s, kMaxHorizonFactor));
   if (r.status != NonlinearStatus::ok) {
+    // The run did not finish, so nothing it measured can be trusted: every effect the spec has
+    // counts as active (the verdict is then read on this loop, where it failed).
+    nc.active_effects = active_effects_of(spec, r, nc.horizon_s, true);
     nc.verdict = fmt::format("not confirmed: the nonlinear simulation stopped ({}{})", status_name(r.status),
                              r.notes.empty() ? std::string() : ": " + r.notes.back());
     return nc;

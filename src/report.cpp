@@ -507,7 +507,12 @@ std::vector<Section> sections(const DesignRun& run, const ReportOutcome& outcome
   {  // Requirement table.
     const Table t = requirement_table(run);
     Section s{"requirement-table", "Requirements × designs", "", ""};
-    const std::string note = "Values on the linear loop (✓ met, ✗ missed); the last row is the confirmation on the nonlinear loop.";
+    const std::string note =
+        run.problem.sampled
+            ? fmt::format("Values on the linear loop — the sampled one, the controller at Ts = {:.4g} s (✓ met, ✗ missed); "
+                          "the last row is the confirmation on the nonlinear loop.",
+                          run.problem.spec.controller.sample_time_s)
+            : std::string("Values on the linear loop (✓ met, ✗ missed); the last row is the confirmation on the nonlinear loop.");
     s.html = paragraph_html(note) + html_table(t);
     s.markdown = note + "\n\n" + md_table(t);
     out.push_back(std::move(s));

@@ -326,3 +326,19 @@ TEST_CASE("a short sample period converges to the continuous loop", "[verdict][s
   }
   CHECK(previous < 0.1);
 }
+
+TEST_CASE("a nonlinear loop that cannot be run counts every effect the spec has as active", "[verdict]") {
+  // A biproper plant (2s + 3)/(s + 5): the nonlinear loop refuses its direct feedthrough (an
+  // algebraic loop through the saturation), so nothing about the limits can be measured there.
+  const std::string plant = "[plant]\nnumerator = [2.0, 3.0]\ndenominator = [1.0, 5.0]\n";
+  const std::string rest = "[controller]\nstructure = \"pi\"\n[requirements]\novershoot_max_pct = 10.0\n"
+                           "[search]\nmax_evaluations = 400\n";
+  const DesignRun limited = run_design(parse_spec(plant + "[actuator]\nmin = -5.0\nmax = 5.0\n" + rest, "<test>"));
+  CHECK(limited.search.active_effects == Effects{"actuator_limits"});
+  CHECK(limited.judged_on_nonlinear);
+  CHECK_FALSE(limited.met);  // it cannot be confirmed on the loop the spec describes
+  const DesignRun plain = run_design(parse_spec(plant + rest, "<test>"));
+  CHECK(plain.search.active_effects.empty());
+  CHECK_FALSE(plain.judged_on_nonlinear);
+  CHECK(plain.met == plain.find("optimized")->meets_all);
+}
