@@ -168,8 +168,6 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
     for (const auto& m : run.infeasibility->misses)
       fmt::print("  - {} misses by {:.1f} %\n", m.requirement.key, m.violation * 100.0);
     fmt::print("  {}\n", run.infeasibility->nearest_text);
-    if (run.judged_on_nonlinear && run.met_on_linear)
-      fmt::print("  (a linear-only pass: the optimized design meets every requirement on the linear loop only)\n");
   } else {
     fmt::print("\nMET: the optimized design meets every requirement on the {}.\n", loop);
   }
