@@ -390,6 +390,8 @@ SearchResult refine_on_nonlinear_loop(const Problem& problem, const SearchResult
   const auto start = std::chrono::steady_clock::now();
   auto elapsed = [&] { return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count(); };
   const std::size_t dim = problem.parameters.size();
+  // search.max_time bounds the whole search: the stage gets what the linear stages left (at least 1 s).
+  const double time_cap = std::max(1.0, options.max_time_s - linear.summary.wall_time_s);
   CostFunction cost(problem, options);
   cost.resize(dim);
   cost.set_objective_scale(linear.summary.best_objective);
@@ -440,7 +442,7 @@ SearchResult refine_on_nonlinear_loop(const Problem& problem, const SearchResult
   std::vector<std::pair<double, std::vector<double>>> ranked;
   CostFunction::Outcome linear_outcome;  // the linear optimum measured on the nonlinear loop
   for (const auto& lx : screen) {
-    if (stage.evaluations >= stage.budget || elapsed() > options.max_time_s) break;
+    if (stage.evaluations >= stage.budget || elapsed() > time_cap) break;
     if (std::any_of(ranked.begin(), ranked.end(), [&](const auto& r) { return r.second == lx; })) continue;
     ranked.emplace_back(evaluate(lx, unused, &stage), lx);
     if (ranked.size() == 1) linear_outcome = stage.best_outcome;
@@ -459,7 +461,7 @@ SearchResult refine_on_nonlinear_loop(const Problem& problem, const SearchResult
   const int per_run = std::max(1, (stage.budget - screened) / std::max(1, runs));
   double value = 0.0;
   for (int run = 0; run < runs && stage.evaluations < stage.budget; ++run) {
-    const double left = options.max_time_s - elapsed();
+    const double left = time_cap - elapsed();
     if (left <= 0.0) break;
     local.set_maxtime(left);
     local.set_maxeval(std::min(per_run, stage.budget - stage.evaluations));
