@@ -1,4 +1,5 @@
 // The `design` pipeline: every design of a spec, measured the same way.
+#include <algorithm>
 #include <cmath>
 #include <fmt/format.h>
 #include <optional>
@@ -19,7 +20,8 @@ SearchOptions search_options(const Spec& spec) {
   o.seed = spec.search.seed;
   o.max_evaluations = spec.search.max_evaluations;
   o.max_time_s = spec.search.max_time_s;
-  o.nonlinear_refinement = spec.search.simulate_nonlinear;
+  // The nonlinear stage gets a tenth of the linear budget, between 40 and 400 evaluations.
+  o.nonlinear_evaluations = std::clamp(spec.search.max_evaluations / 10, 40, 400);
   return o;
 }
 
@@ -168,20 +170,65 @@ DesignRun run_design(const Spec& spec) {
   // Seed: the classical design, else the ultimate-gain baseline, else the middle of the bounds.
   std::vector<double> seed = classical ? classical->series : baseline ? baseline->series : middle_of_bounds(problem);
   const SearchOptions options = search_options(spec);
-  const SearchResult result = optimize(problem, seed, options);
-  run.search = result.summary;
+  SearchResult result = optimize(problem, seed, options);
   Design best = measure_design(problem, "optimized", result.controller);
+
+  // Which loop the search ends on, and which loop judges: the effects the linear loop leaves out
+  // that act for the linear optimum, measured on its confirmation run.
+  const SimulateMode mode = spec.search.simulate;
+  const std::vector<std::string> active = best.nonlinear ? best.nonlinear->active_effects : std::vector<std::string>{};
+  result.summary.active_effects = active;
+  const bool stage = mode == SimulateMode::nonlinear || (mode == SimulateMode::automatic && !active.empty());
+  if (stage) {
+    std::vector<std::vector<double>> hand;
+    if (classical) hand.push_back(classical->series);
+    if (baseline) hand.push_back(baseline->series);
+    const SearchResult refined = refine_on_nonlinear_loop(problem, result, hand, options);
+    if (refined.controller.series != result.controller.series) best = measure_design(problem, "optimized", refined.controller);
+    result = refined;
+    result.summary.active_effects = active;
+  } else if (!active.empty()) {
+    result.summary.nonlinear_stage = "no nonlinear stage: search.simulate = \"linear\" (the verdict is still read on the "
+                                     "loop the spec describes)";
+  } else {
+    result.summary.nonlinear_stage = mode == SimulateMode::automatic
+                                         ? "no nonlinear stage: no effect the linear loop leaves out acts for the linear "
+                                           "optimum (the nonlinear loop is the linear one)"
+                                         : "no nonlinear stage: search.simulate = \"linear\"";
+  }
+  run.search = result.summary;
   best.notes.push_back(fmt::format("seeded by the {} design", classical ? "classical" : baseline ? "ultimate-gain" : "mid-bounds"));
-  run.judged_on_nonlinear = spec.search.simulate_nonlinear;
+  if (stage) best.notes.push_back(result.summary.nonlinear_stage);
+  for (std::string& w : fragility_warnings(problem, best, true))
+    if (std::find(best.warnings.begin(), best.warnings.end(), w) == best.warnings.end()) best.warnings.push_back(std::move(w));
+
+  run.judged_on_nonlinear = stage || !active.empty();
+  run.met_on_linear = best.meets_all;
+  if (run.judged_on_nonlinear && best.nonlinear && best.nonlinear->meets_all && !best.meets_all) {
+    // Met for the spec's step on the loop it describes, but not for steps small enough that
+    // nothing saturates: true, and worth saying.
+    std::vector<std::string> misses;
+    for (const RequirementCheck& c : best.checks)
+      if (!c.met)
+        misses.push_back(fmt::format("{} {}", c.requirement.key,
+                                     c.value ? fmt::format("{:.4g}{}", *c.value, c.requirement.unit.empty() ? "" : " " + c.requirement.unit)
+                                             : std::string("none")));
+    best.warnings.push_back(fmt::format(
+        "on the linear loop — a step small enough that nothing saturates — this design misses {}: it meets the "
+        "requirements for the spec's step of {:.4g} only with the effects of the loop it describes (limits, …) acting",
+        fmt::join(misses, ", "), spec.reference.amplitude));
+  }
   if (run.judged_on_nonlinear) {
-    // Tuned for the nonlinear loop: judged there. Misses are that loop's; no second search.
-    best.notes.push_back(result.summary.nonlinear_stage);
+    // Judged on the loop the spec describes. Misses are that loop's; no second search.
     run.met = best.nonlinear && best.nonlinear->status == NonlinearStatus::ok && best.nonlinear->meets_all;
     if (!run.met) {
       Infeasibility info = collect_misses(best.nonlinear ? best.nonlinear->checks : std::vector<RequirementCheck>{});
       if (info.binding.empty()) info.binding = "the nonlinear simulation";
-      info.nearest_text = "judged on the nonlinear loop (search.simulate = \"nonlinear\"); the best reachable value is not "
-                          "searched in this mode";
+      info.nearest_text = fmt::format(
+          "judged on the nonlinear loop ({}){}; the best reachable value is not searched there",
+          active.empty() ? std::string("search.simulate = \"nonlinear\"")
+                         : fmt::format("active: {}", fmt::join(active, ", ")),
+          best.meets_all ? "; the linear loop alone meets every requirement (a linear-only pass, which does not count)" : "");
       run.infeasibility = info;
     }
   } else {

@@ -241,7 +241,7 @@ json spec_json(const Spec& spec) {
             {"seed", spec.search.seed},
             {"max_evaluations", spec.search.max_evaluations},
             {"max_time", number_json(spec.search.max_time_s)},
-            {"simulate", spec.search.simulate_nonlinear ? "nonlinear" : "linear"},
+            {"simulate", simulate_mode_name(spec.search.simulate)},
             {"bounds", bounds}}},
           {"sweep", {{"vary", spec.sweep_vary}}},
           {"units", units_json(spec.units)}};
@@ -291,6 +291,8 @@ json design_json(const Design& d) {
               {"closed_loop_poles", poles_json(d.closed_loop_poles)},
               {"checks", checks},
               {"meets_all", d.meets_all},
+              {"simulated_loop", d.sampled ? "sampled" : "continuous"},
+              {"warnings", d.warnings},
               {"notes", d.notes}};
   out["second_order"] = d.second_order
                             ? json{{"overshoot_pct", number_json(d.second_order->overshoot_pct)},
@@ -308,8 +310,11 @@ json design_json(const Design& d) {
                         {"saturated_fraction", number_json(n.saturated_fraction)},
                         {"rate_limited_fraction", number_json(n.rate_limited_fraction)},
                         {"command_excess_max", number_json(n.command_excess_max)},
-                        {"stepper", stepper_name(n.stepper)},
+                        {"integrator_held_fraction", number_json(n.integrator_held_fraction)},
+                        {"active_effects", n.active_effects},
                         {"horizon", number_json(n.horizon_s)},
+                        {"horizon_bound_hit", n.horizon_bound_hit},
+                        {"stepper", stepper_name(n.stepper)},
                         {"noise_period", optional_number(n.noise_period_s)},
                         {"tracking_time", optional_number(n.tracking_time_s)},
                         {"checks", checks_json(n.checks)},
@@ -320,6 +325,7 @@ json design_json(const Design& d) {
     json attribution = json::array();
     for (const CauseTrial& t : n.attribution)
       attribution.push_back({{"factor", t.factor},
+                             {"factors", t.factors},
                              {"removed", t.removed},
                              {"status", status_name(t.status)},
                              {"checks", checks_json(t.checks)},
@@ -364,6 +370,9 @@ json search_json(const SearchSummary& s) {
           {"local_evaluations", s.local_evaluations},
           {"nonlinear_evaluations", s.nonlinear_evaluations},
           {"nonlinear_stage", s.nonlinear_stage},
+          {"simulate", s.simulate},
+          {"linear_loop", s.linear_loop},
+          {"active_effects", s.active_effects},
           {"unstable_candidates", s.unstable},
           {"infeasible_candidates", s.infeasible},
           {"wall_time_s", number_json(s.wall_time_s)},
@@ -398,6 +407,7 @@ json result_json(const DesignRun& run) {
               {"met", run.met},
               {"judged_on", run.judged_on_nonlinear ? "nonlinear" : "linear"},
               {"units", units_json(run.problem.spec.units)},
+              {"met_on_linear", run.met_on_linear},
               {"safety", kSafetyCaution}};
   out["linear_model"]["linearization"] = linearization_json(run.problem.spec);
   if (run.target)

@@ -191,19 +191,26 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
                  c.parallel->kd, c.parallel->filter_time, spec.units.time);
   }
   const SearchSummary& s = run.search;
-  fmt::print("Search: NLopt {} then {}, {} evaluations ({} unstable, {} infeasible) in {:.3f} s;\n  {}\n",
-             s.global_given, s.local_given, s.evaluations, s.unstable, s.infeasible, s.wall_time_s, s.stop_reason);
+  fmt::print("Search: NLopt {} then {}, {} evaluations ({} unstable, {} infeasible{}) in {:.3f} s;\n  {}\n",
+             s.global_given, s.local_given, s.evaluations, s.unstable, s.infeasible,
+             s.linear_loop == "sampled" ? "; linear stages on the sampled loop" : "", s.wall_time_s, s.stop_reason);
+  std::vector<std::string> effects;
+  for (const std::string& e : s.active_effects) effects.push_back(effect_description(e));
+  fmt::print("  search.simulate = {}; active for the linear optimum: {}; {} evaluations on the nonlinear loop\n  {}\n",
+             s.simulate, effects.empty() ? std::string("none") : fmt::format("{}", fmt::join(effects, ", ")),
+             s.nonlinear_evaluations, s.nonlinear_stage);
+  const char* loop = run.judged_on_nonlinear ? "nonlinear loop (the loop the spec describes)" : "linear loop";
   if (run.infeasibility) {
-    fmt::print("\nNOT MET: no design meets every requirement on the {} loop. Binding: {}.\n",
-               run.judged_on_nonlinear ? "nonlinear" : "linear", run.infeasibility->binding);
+    fmt::print("\nNOT MET: no design meets every requirement on the {}. Binding: {}.\n", loop, run.infeasibility->binding);
     for (const auto& m : run.infeasibility->misses)
       fmt::print("  - {} misses by {:.1f} %\n", m.requirement.key, m.violation * 100.0);
     fmt::print("  {}\n", run.infeasibility->nearest_text);
   } else {
-    fmt::print("\nMET: the optimized design meets every requirement on the {} loop.\n",
-               run.judged_on_nonlinear ? "nonlinear" : "linear");
+    fmt::print("\nMET: the optimized design meets every requirement on the {}.\n", loop);
   }
   if (best && best->nonlinear) fmt::print("Nonlinear loop: {}\n", best->nonlinear->verdict);
+  if (best)
+    for (const std::string& w : best->warnings) fmt::print("Warning: {}\n", w);
   fmt::print("Report: {} (also {}; data in {})\n", outcome.html.string(), outcome.markdown.string(),
              outcome.result.string());
   if (!outcome.figures_rendered) fmt::print("{}\n", outcome.figures_note);

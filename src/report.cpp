@@ -1,6 +1,7 @@
 // The design report (report.hpp): data for the figures, CSV series, gnuplot scripts, and the HTML
 // and Markdown pages built from one list of sections.
 #include "specloop/report.hpp"
+#include "specloop/sampled_loop.hpp"
 
 #include <algorithm>
 #include <cmath>
@@ -127,11 +128,20 @@ ReportData report_data(const DesignRun& run) {
   for (const Design& d : run.designs) {
     if (d.status != StepStatus::ok) continue;
     StepSimulator sim;
+    SampledStepSimulator sampled;
     StepMetrics m;
     StepTrace trace;
-    if (sim.simulate(close_loop(problem.plant_realization, d.controller.transfer, d.reference_path),
-                     spec.reference.amplitude, problem.band_fraction, m, &trace) != StepStatus::ok)
-      continue;
+    StepStatus status = StepStatus::numerical_failure;
+    if (d.sampled) {  // the sampled loop, as the design was measured
+      const ControllerSpec& cs = spec.controller;
+      const DifferenceEquation eq = controller_difference_equation(d.controller, cs.sample_time_s, cs.setpoint_weight,
+                                                                   cs.derivative_on_measurement ? 0.0 : 1.0);
+      status = sampled.simulate(problem.plant_realization, eq, spec.reference.amplitude, problem.band_fraction, m, &trace);
+    } else {
+      status = sim.simulate(close_loop(problem.plant_realization, d.controller.transfer, d.reference_path),
+                            spec.reference.amplitude, problem.band_fraction, m, &trace);
+    }
+    if (status != StepStatus::ok) continue;
     ResponseTrace t{d.name, false, std::move(trace.time_s), std::move(trace.output), std::move(trace.effort), {}};
     if (!trace_is_finite(t)) continue;
     if (plotted(t)) want(d.simulated.settling_time_s, t.time_s.back());
@@ -141,13 +151,15 @@ ReportData report_data(const DesignRun& run) {
   if (best) {
     const auto linear = std::find_if(data.traces.begin(), data.traces.end(),
                                      [&](const ResponseTrace& t) { return t.design == best->name; });
-    double nonlinear_horizon = linear != data.traces.end() ? linear->time_s.back() : 1.0;
-    // The confirmation ran on the linear horizon; a response it reports settling later than 80 %
-    // of that horizon is simulated far enough to show it settle.
+    NonlinearSetup setup = nonlinear_setup(problem, linear != data.traces.end() ? linear->time_s.back() : 1.0,
+                                           kReportNonlinearSamples);
+    // The confirmation's (possibly extended) horizon, so the trace shows what the verdict read.
+    if (best->nonlinear && best->nonlinear->horizon_s > 0.0) {
+      setup.options.horizon_s = best->nonlinear->horizon_s;
+      setup.options.output_step_s = setup.options.horizon_s / kReportNonlinearSamples;
+    }
     const std::optional<double> reported =
         best->nonlinear && best->nonlinear->status == NonlinearStatus::ok ? best->nonlinear->simulated.settling_time_s : std::nullopt;
-    if (reported && kRoomAfterSettling * *reported > nonlinear_horizon) nonlinear_horizon = kRoomAfterSettling * *reported;
-    const NonlinearSetup setup = nonlinear_setup(problem, nonlinear_horizon, kReportNonlinearSamples);
     NonlinearResult r;
     try {
       r = simulate_on_nonlinear_loop(problem, best->controller, setup);
@@ -703,12 +715,12 @@ std::vector<std::string> mode_sentences(const DominanceDiagnosis& dom) {
 std::string verdict_line(const DesignRun& run) {
   const Design* best = recommended_design(run);
   std::string line;
+  const char* loop = run.judged_on_nonlinear ? "nonlinear loop (the loop the spec describes)" : "linear loop";
   if (run.infeasibility) {
-    line = fmt::format("NOT MET: no design meets every requirement on the {} loop; binding: {}.",
-                       run.judged_on_nonlinear ? "nonlinear" : "linear", run.infeasibility->binding);
+    line = fmt::format("NOT MET: no design meets every requirement on the {}; binding: {}.", loop, run.infeasibility->binding);
+    if (run.judged_on_nonlinear && run.met_on_linear) line += " (The linear loop alone passes: a linear-only pass.)";
   } else {
-    line = fmt::format("MET: the optimized design meets every requirement on the {} loop.",
-                       run.judged_on_nonlinear ? "nonlinear" : "linear");
+    line = fmt::format("MET: the optimized design meets every requirement on the {}.", loop);
   }
   if (best && best->nonlinear)
     line += best->nonlinear->confirmed ? " Confirmed on the nonlinear loop." : " NOT confirmed on the nonlinear loop.";
@@ -728,6 +740,10 @@ std::vector<Section> sections(const DesignRun& run, const ReportData& data, cons
       const Table box = controller_box(run, *best);
       s.html = paragraph_html(fmt::format("The {} design.", best->name)) + "<pre>" + escape_html(lines) + "</pre>\n" + html_table(box);
       s.markdown = fmt::format("The {} design.\n\n```\n{}```\n\n{}", best->name, lines, md_table(box));
+      for (const std::string& w : best->warnings) {
+        s.html += paragraph_html("Warning: " + w);
+        s.markdown += "\nWarning: " + escape_md(w) + "\n";
+      }
     } else {
       s.html = paragraph_html("No design to recommend: neither the optimized nor the classical loop is stable.");
       s.markdown = "No design to recommend: neither the optimized nor the classical loop is stable.\n";
@@ -737,7 +753,12 @@ std::vector<Section> sections(const DesignRun& run, const ReportData& data, cons
   {  // Requirement table.
     const Table t = requirement_table(run);
     Section s{"requirement-table", "Requirements × designs", "", ""};
-    const std::string note = "Values on the linear loop (✓ met, ✗ missed); the last row is the confirmation on the nonlinear loop.";
+    const std::string note =
+        run.problem.sampled
+            ? fmt::format("Values on the linear loop — the sampled one, the controller at Ts = {:.4g} s (✓ met, ✗ missed); "
+                          "the last row is the confirmation on the nonlinear loop.",
+                          run.problem.spec.controller.sample_time_s)
+            : std::string("Values on the linear loop (✓ met, ✗ missed); the last row is the confirmation on the nonlinear loop.");
     s.html = paragraph_html(note) + html_table(t);
     s.markdown = note + "\n\n" + md_table(t);
     out.push_back(std::move(s));
@@ -824,11 +845,15 @@ std::vector<Section> sections(const DesignRun& run, const ReportData& data, cons
   }
   {  // Search.
     const SearchSummary& q = run.search;
+    std::vector<std::string> effects;
+    for (const std::string& e : q.active_effects) effects.push_back(effect_description(e));
     const std::string text = fmt::format(
-        "NLopt {} then {}: {} evaluations ({} global, {} local{}), {} unstable and {} infeasible candidates, {:.3f} s; {}",
+        "NLopt {} then {}: {} evaluations ({} global, {} local{}), {} unstable and {} infeasible candidates, {:.3f} s; {}. "
+        "Linear stages on the {} loop. search.simulate = {}; active for the linear optimum: {}; {}",
         q.global_given, q.local_given, q.evaluations, q.global_evaluations, q.local_evaluations,
         q.nonlinear_evaluations ? fmt::format(", {} on the nonlinear loop", q.nonlinear_evaluations) : std::string(), q.unstable,
-        q.infeasible, q.wall_time_s, q.stop_reason);
+        q.infeasible, q.wall_time_s, q.stop_reason, q.linear_loop, q.simulate,
+        effects.empty() ? std::string("none") : fmt::format("{}", fmt::join(effects, ", ")), q.nonlinear_stage);
     Section s{"search", "Search", paragraph_html(text), escape_md(text) + "\n"};
     if (run.infeasibility) {
       const std::string more = run.infeasibility->nearest_text;

@@ -86,6 +86,15 @@ std::string_view objective_name(Objective o) {
   return "?";
 }
 
+std::string_view simulate_mode_name(SimulateMode m) {
+  switch (m) {
+    case SimulateMode::automatic: return "auto";
+    case SimulateMode::linear: return "linear";
+    case SimulateMode::nonlinear: return "nonlinear";
+  }
+  return "?";
+}
+
 const std::vector<std::string>& objective_names() {
   static const std::vector<std::string> names{"itae", "iae", "ise", "effort", "settling_time", "sensitivity_peak"};
   return names;
@@ -1193,14 +1202,15 @@ class SpecReader {
     if (const auto objective = read_choice(*table, "search", "objective", "objective", objective_names(),
                                            parse_objective))
       search.objective = *objective;
-    static const std::vector<std::string> kSimulate{"linear", "nonlinear"};
+    static const std::vector<std::string> kSimulate{"auto", "linear", "nonlinear"};
     if (const auto mode = read_choice(*table, "search", "simulate", "mode", kSimulate,
-                                      [](std::string_view v) -> std::optional<bool> {
-                                        if (v == "linear") return false;
-                                        if (v == "nonlinear") return true;
+                                      [](std::string_view v) -> std::optional<SimulateMode> {
+                                        for (SimulateMode m : {SimulateMode::automatic, SimulateMode::linear,
+                                                               SimulateMode::nonlinear})
+                                          if (simulate_mode_name(m) == v) return m;
                                         return std::nullopt;
                                       }))
-      search.simulate_nonlinear = *mode;
+      search.simulate = *mode;
     const auto whole = [](double v) { return v == std::floor(v); };
     if (const auto seed = ranged_number(
             table, kSection, "seed", [&](double v) { return v >= 0.0 && v <= 4294967295.0 && whole(v); },

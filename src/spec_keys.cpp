@@ -54,9 +54,9 @@ const std::vector<SpecKey>& spec_keys() {
        "back-calculation tracking time Tt, ≥ 1e-4 of the plant's fastest time constant (as `sample_time`)"},
       {"controller.sample_time", "s", "continuous",
        "≥ 1e-4 of the plant's fastest time constant (1/ its largest pole or zero magnitude; any value > 0 for a plant "
-       "whose poles and zeros are all at s = 0): the controller runs digitally at this period in the nonlinear "
-       "confirmation (Tustin integral, "
-       "backward-difference filtered derivative, zero-order hold); its difference equation is in result.json"},
+       "whose poles and zeros are all at s = 0): the controller runs digitally at this period (Tustin integral, "
+       "backward-difference filtered derivative, zero-order hold) — in the search and every design's measurement "
+       "(the sampled loop, exactly) and in the nonlinear confirmation; its difference equation is in result.json"},
       {"controller.setpoint_weight", "—", "1",
        "b: the proportional term acts on b·r − y, in [0, 1] (PID-type structures)"},
       {"controller.derivative_on", "—", "`error`", "`error` (c = 1) or `measurement` (c = 0: no derivative kick)"},
@@ -81,11 +81,15 @@ const std::vector<SpecKey>& spec_keys() {
       {"search.objective", "—", "`itae`",
        "minimized among feasible designs: `itae`, `iae`, `ise`, `effort`, `settling_time`, `sensitivity_peak`"},
       {"search.seed", "—", "1", "NLopt's random seed: runs repeat exactly"},
-      {"search.max_evaluations", "—", "6000", "cost evaluations (global + local), at least 20"},
+      {"search.max_evaluations", "—", "6000",
+       "cost evaluations of the linear stages (global + local), at least 20; the nonlinear stage adds a tenth of it (40 "
+       "to 400)"},
       {"search.max_time", "s (wall clock)", "20", "wall-time cap of one search, in (0, 86400]"},
-      {"search.simulate", "—", "`linear`",
-       "`nonlinear`: after the linear search, a refinement stage (Subplex, 300 evaluations) ranks candidates on the "
-       "nonlinear loop, and the design is judged there (for loops that must saturate)"},
+      {"search.simulate", "—", "`auto`",
+       "`auto`: the search ends on the nonlinear loop when an effect the linear loop leaves out acts for the linear "
+       "optimum (measured: limits the command goes beyond, a binding rate limit, sampling, delay, expression plant, "
+       "noise, load step), and the verdict and exit code come from that loop; `nonlinear`: that stage always; "
+       "`linear`: never (the verdict is still read on the loop the spec describes). See \"Which loop judges\""},
       {"search.bounds.<parameter>", "parameter's unit", "from the plant",
        "`[low, high]`, 0 < low < high; parameter names per structure in the `design` section; the gain's bounds are on "
        "its magnitude (reverse action makes it negative)"},

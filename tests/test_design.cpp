@@ -218,25 +218,35 @@ TEST_CASE("set-point weights: the linear and nonlinear loops agree, and the deri
                              "specs/unit.toml"), SpecError);
 }
 
-TEST_CASE("search.simulate = nonlinear refines a design that fails only on the nonlinear loop", "[search]") {
+TEST_CASE("the search ends on the loop the spec describes when an effect acts; the verdict is read there", "[search]") {
   // An invented winch drive whose ±0.9 actuator saturates and whose PI has no anti-windup: the
-  // linear optimum winds up on the real loop; the refinement on the nonlinear loop repairs it.
+  // linear optimum winds up on the real loop.
   const std::string base =
       "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[actuator]\nmin = -0.9\nmax = 0.9\n"
       "[controller]\nstructure = \"pi\"\nanti_windup = \"none\"\n"
       "[requirements]\novershoot_max_pct = 5.0\nsettling_time_max = 6.0\nsteady_state_error_max = 0.0\n";
-  const DesignRun linear = run_design(parse_spec(base, "specs/unit.toml"));
-  REQUIRE(linear.met);
-  REQUIRE_FALSE(linear.judged_on_nonlinear);
+  // search.simulate = "linear": no nonlinear stage, but the limits act, so the verdict is read on
+  // the nonlinear loop, where the linear optimum fails: a linear-only pass is not "met".
+  const DesignRun linear = run_design(parse_spec(base + "[search]\nsimulate = \"linear\"\n", "specs/unit.toml"));
+  CHECK(linear.search.nonlinear_evaluations == 0);
+  CHECK(linear.search.active_effects == std::vector<std::string>{"actuator_limits"});
+  CHECK(linear.judged_on_nonlinear);
+  CHECK(linear.met_on_linear);
+  CHECK_FALSE(linear.met);
+  REQUIRE(linear.infeasibility);
+  CHECK_THAT(linear.infeasibility->nearest_text, Catch::Contains("linear-only pass"));
   const Design* l = linear.find("optimized");
   REQUIRE(l->nonlinear);
   CHECK_FALSE(l->nonlinear->confirmed);  // the linear optimum winds up
 
-  const DesignRun refined = run_design(parse_spec(base + "[search]\nsimulate = \"nonlinear\"\n", "specs/unit.toml"));
-  CHECK(refined.judged_on_nonlinear);
-  CHECK(refined.search.nonlinear_evaluations > 0);
-  const Design* r = refined.find("optimized");
-  REQUIRE(r->nonlinear);
-  CHECK(r->nonlinear->meets_all);
-  CHECK(refined.met);
+  // The default (auto) and "nonlinear" both end on the nonlinear loop and repair it there.
+  for (const char* mode : {"", "[search]\nsimulate = \"nonlinear\"\n"}) {
+    const DesignRun refined = run_design(parse_spec(base + mode, "specs/unit.toml"));
+    CHECK(refined.judged_on_nonlinear);
+    CHECK(refined.search.nonlinear_evaluations > 0);
+    const Design* r = refined.find("optimized");
+    REQUIRE(r->nonlinear);
+    CHECK(r->nonlinear->meets_all);
+    CHECK(refined.met);
+  }
 }

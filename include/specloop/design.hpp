@@ -42,6 +42,9 @@ struct Problem {
   bool needs_margins = false;                   // a margin requirement or the Ms objective
   std::vector<ParameterInfo> parameters;        // of the spec's structure
   std::vector<std::pair<double, double>> bounds;  // per parameter, natural units, lo < hi
+  /// controller.sample_time is set and the plant is strictly proper: the linear loop of every
+  /// measurement and of the search is the sampled one (sampled_loop.hpp), not the continuous one.
+  bool sampled = false;
 };
 
 /// Builds the Problem: default search bounds from the plant's pole/zero scale and the reference
@@ -56,11 +59,13 @@ struct RequirementCheck {
   double violation = 0.0;       // normalized: (value − limit)/|limit| for upper bounds, > 0 when missed
 };
 
-/// One effect of the nonlinear loop taken out (the others kept), to see what it cost: the
-/// requirements that degraded, re-read on that loop.
+/// Effects of the nonlinear loop taken out (the others kept), to see what they cost: the
+/// requirements that degraded, re-read on that loop. One effect or several together.
 struct CauseTrial {
-  std::string factor;                 // "saturation", "rate limit", "sampling", "load step", "measurement noise"
-  std::string removed;                // how it was taken out, in words
+  std::string factor;                 // the factors joined by " + ", e.g. "saturation", "saturation + sampling"
+  std::vector<std::string> factors;   // each: "saturation", "anti-windup", "rate limit", "sampling", "delay",
+                                      // "load step", "measurement noise", "plant nonlinearity"
+  std::string removed;                // how they were taken out, in words
   NonlinearStatus status = NonlinearStatus::ok;
   std::vector<RequirementCheck> checks;  // the degraded requirements, re-checked without the factor
   bool restores = false;              // without it, every degraded requirement is met again
@@ -73,14 +78,23 @@ struct NonlinearConfirmation {
   double saturated_fraction = 0.0;    // time with the command beyond a limit ÷ horizon
   double rate_limited_fraction = 0.0; // time the applied u slews at the rate limit ÷ horizon
   double command_excess_max = 0.0;    // largest distance of the command beyond a limit (windup)
-  std::vector<CauseTrial> attribution;  // when not confirmed: each active effect taken out in turn
+  double integrator_held_fraction = 0.0;  // time the conditional integration held the integrator ÷ horizon
+  /// The effects of this loop that the continuous linear loop leaves out and that acted in this run
+  /// (ids: see `effect_description`): actuator_limits (the command went beyond a limit),
+  /// rate_limit (the actuator slewed at it), sampling, delay, plant_nonlinearity,
+  /// measurement_noise, load_step.
+  std::vector<std::string> active_effects;
+  double horizon_s = 0.0;             // simulated time (extended until the response settled)
+  bool horizon_bound_hit = false;     // not settled by kMaxHorizonFactor × the linear horizon
+  /// When not confirmed: the active effects taken out one at a time, then in combinations, up to
+  /// the smallest sets whose removal restores every degraded requirement (`restores`).
+  std::vector<CauseTrial> attribution;
   NonlinearStepper stepper = NonlinearStepper::dopri5;  // the integrator the stiffness estimate chose
   std::vector<RequirementCheck> checks;
   bool meets_all = false;
   bool confirmed = false;             // every requirement met on the linear loop is met here too
   std::string verdict;                // one sentence, with the numbers
   std::optional<DifferenceEquation> difference_equation;  // when the controller is sampled
-  double horizon_s = 0.0;                    // simulated time, s (what rebuilds the run from result.json)
   std::optional<double> noise_period_s;      // the noise period used, when there is noise
   std::optional<double> tracking_time_s;     // the back-calculation tracking time used, when it applies
   std::vector<std::string> notes;
@@ -100,7 +114,12 @@ struct Design {
   std::vector<RequirementCheck> checks;
   bool meets_all = false;
   std::optional<NonlinearConfirmation> nonlinear;  // empty when the linear loop is unstable
+  bool sampled = false;             // `simulated` is the sampled loop's (Problem::sampled)
   std::vector<std::string> notes;   // how it was made, what was left out
+  /// Facts about the design an engineer would want flagged (fragility): a delay margin too short
+  /// for any digital implementation, a command far beyond its final value with nothing bounding
+  /// it, a parameter on its search bound (design.cpp, `fragility_warnings`).
+  std::vector<std::string> warnings;
 };
 
 /// The spec's nonlinear loop: actuator, anti-windup, weights, disturbance, delay, sampling; the
@@ -108,17 +127,66 @@ struct Design {
 struct NonlinearSetup {
   ActuatorModel actuator;
   LoopOptions options;
+  bool delay_approximant = false;  // the delay as the linear loop has it (Padé), not exact (attribution)
+  double fine_step_s = 0.0;        // > 0: also sample at this step on [0, fine_until_s] (see LinearGrid)
+  double fine_until_s = 0.0;
 };
 NonlinearSetup nonlinear_setup(const Problem& problem, double linear_horizon_s, int samples);
+
+/// What the linear loop's time grid knew about the response's time scales: its horizon and, when
+/// its first segment is much finer than the rest (fast modes alive at the start, e.g. a stiff
+/// loop), that segment's step and extent.
+struct LinearGrid {
+  double horizon_s = 0.0;
+  double fine_step_s = 0.0;   // 0: one uniform resolution is enough
+  double fine_until_s = 0.0;
+};
+/// The linear grid of the last call of either simulator.
+LinearGrid linear_grid_of(const TimeGrid& grid);
+/// nonlinear_setup on that grid: the output samples are the uniform ones plus, when the grid's
+/// first segment is more than 4× finer than them, that segment's (so that a fast start is
+/// measured, not stepped over), and the integrator's first step is at most the fine step.
+NonlinearSetup nonlinear_setup(const Problem& problem, const LinearGrid& grid, int samples);
+/// Fills setup.options.sample_times_s for its horizon and output step (and fine segment).
+void set_output_times(NonlinearSetup& setup);
 /// The step of the spec's reference through that loop with `controller` (the spec's plant).
 NonlinearResult simulate_on_nonlinear_loop(const Problem& problem, const Controller& controller, const NonlinearSetup& setup);
 /// Output samples of the confirmation run (and of the report's nonlinear traces).
 inline constexpr int kConfirmationSamples = 20000;
+/// How far the nonlinear run's horizon may be extended (a multiple of the starting horizon).
+inline constexpr double kMaxHorizonFactor = 16.0;
 
-/// Measures a controller on the problem's linear loop and checks every requirement, then
-/// confirms it on the nonlinear loop (the spec's actuator limits, rate limit, anti-windup and
-/// disturbance) and checks every requirement again there.
+/// A nonlinear run long enough to see the response settle.
+struct SettledRun {
+  NonlinearResult result;
+  NonlinearSetup setup;     // as finally run (its horizon)
+  int extensions = 0;       // horizon doublings
+  bool bound_hit = false;   // still not settled at max_factor × the starting horizon
+};
+/// Runs `setup`; while the response is not settled — it must stay within the band for the last
+/// fifth of the time since the last excitation (the step, or the load step) — doubles the horizon
+/// (the output step kept, up to 4× the samples) and runs again, up to `max_factor` × the starting
+/// horizon. A run that stops (status) or cannot be measured is returned as it is. `wall_cap_s`
+/// bounds the wall time of all runs together (the last one's status says when it was reached).
+SettledRun simulate_until_settled(const Problem& problem, const Controller& controller, const NonlinearSetup& setup,
+                                  double max_factor, double wall_cap_s = 60.0);
+
+/// Human description of an active-effect id (NonlinearConfirmation::active_effects).
+std::string effect_description(std::string_view id);
+
+/// Measures a controller on the problem's linear loop (the sampled one when Problem::sampled) and
+/// checks every requirement, then confirms it on the nonlinear loop (the spec's actuator limits,
+/// rate limit, anti-windup, disturbance, exact delay, sampling, plant model) and checks every
+/// requirement again there.
 Design measure_design(const Problem& problem, std::string name, const Controller& controller);
+
+/// The fragility warnings of a measured design (Design::warnings): its delay margin below
+/// kDelayMarginFloor (no digital controller is that fast) or below two sample periods of a sampled
+/// controller; with neither actuator limits nor effort_max, a peak command over
+/// kEffortAmplification × its final value; a search parameter within 0.1 % (log scale) of a bound.
+std::vector<std::string> fragility_warnings(const Problem& problem, const Design& d, bool searched);
+inline constexpr double kDelayMarginFloor = 1e-4;     // s
+inline constexpr double kEffortAmplification = 1e3;
 
 /// The value a requirement reads from a measured response (std::nullopt: not defined).
 /// Peak-time requirements read the time of the peak when the overshoot exceeds the settling band
@@ -195,10 +263,9 @@ struct SearchOptions {
   double max_time_s = 20.0;           // wall-time cap for the whole search, s
   double global_share = 0.6;          // fraction of the evaluation budget for the global stage
   double local_relative_tolerance = 1e-6;  // local stage stops when |Δcost|/cost falls below this
-  /// When true, a final local stage minimizes the same ranking measured on the nonlinear loop
-  /// (for loops that must saturate), from the linear optimum, with `nonlinear_evaluations`.
-  bool nonlinear_refinement = false;
-  int nonlinear_evaluations = 300;
+  /// Budget of the nonlinear stage (refine_on_nonlinear_loop), evaluations on the nonlinear loop
+  /// (search_options: a tenth of max_evaluations, between 40 and 400).
+  int nonlinear_evaluations = 400;
   std::string global_algorithm = "GN_DIRECT_L";  // NLopt algorithm names (nlopt_algorithm_from_string)
   std::string local_algorithm = "LN_SBPLX";
 };
@@ -210,8 +277,11 @@ struct SearchSummary {
   int evaluations = 0;
   int global_evaluations = 0;
   int local_evaluations = 0;
-  int nonlinear_evaluations = 0;      // of the nonlinear refinement stage (0: none)
-  std::string nonlinear_stage;        // what it did, in words
+  int nonlinear_evaluations = 0;      // of the nonlinear stage (0: none)
+  std::string nonlinear_stage;        // what it did, or why it did not run, in words
+  std::string simulate;               // search.simulate as given: "auto", "linear", "nonlinear"
+  std::string linear_loop = "continuous";  // the loop of the linear stages: "continuous" or "sampled"
+  std::vector<std::string> active_effects;  // of the linear optimum (ids), which decided the stage
   int unstable = 0;                   // candidates rejected by the stability barrier
   int infeasible = 0;                 // stable candidates missing at least one requirement
   double wall_time_s = 0.0;
@@ -221,16 +291,35 @@ struct SearchSummary {
   std::string stop_reason;            // in words, with numbers
 };
 
+/// A feasible point the linear stages visited, kept as a start for the nonlinear stage.
+struct SearchCandidate {
+  std::vector<double> series;   // natural units
+  double objective = 0.0;
+  double effort_peak = 0.0;
+};
+
 struct SearchResult {
   Controller controller;
   SearchSummary summary;
+  /// The best feasible point in each band of peak effort (a tenth of a decade wide): designs from
+  /// gentle to aggressive, for the nonlinear stage to screen.
+  std::vector<SearchCandidate> archive;
 };
 
 /// Searches the structure's parameters (log scale, within the problem's bounds) minimizing the
-/// objective subject to the requirements, from `seed_parameters` (series values). Deterministic
-/// for a given seed.
+/// objective subject to the requirements, from `seed_parameters` (series values), on the linear
+/// loop (the sampled one when Problem::sampled). Deterministic for a given seed.
 SearchResult optimize(const Problem& problem, const std::vector<double>& seed_parameters,
                       const SearchOptions& options);
+
+/// The nonlinear stage: the same feasibility-first ranking measured on the loop the spec describes
+/// (each candidate run as the confirmation runs it, simulate_until_settled, so that the final
+/// verdict reads exactly what the stage ranked). Screens the archive of `linear` (at most 16
+/// points across the effort bands), the linear optimum and `extra_starts`, then runs Subplex
+/// from the best three, with `options.nonlinear_evaluations` in all. Returns `linear` with the
+/// controller moved (or not) and the summary's nonlinear fields filled.
+SearchResult refine_on_nonlinear_loop(const Problem& problem, const SearchResult& linear,
+                                      const std::vector<std::vector<double>>& extra_starts, const SearchOptions& options);
 
 /// SearchOptions from the spec's [search] table.
 SearchOptions search_options(const Spec& spec);
@@ -254,7 +343,8 @@ struct DesignRun {
   SearchSummary search;
   std::optional<Infeasibility> infeasibility;
   bool met = false;                         // the optimized design meets every requirement …
-  bool judged_on_nonlinear = false;         // … on the nonlinear loop (search.simulate = "nonlinear") or the linear one
+  bool judged_on_nonlinear = false;         // … on the nonlinear loop (an effect active, or search.simulate = "nonlinear") or the linear one
+  bool met_on_linear = false;               // it meets every requirement on the linear loop (a linear-only pass when !met)
   const Design* find(std::string_view name) const;
 };
 

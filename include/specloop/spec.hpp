@@ -136,12 +136,20 @@ std::string_view objective_name(Objective o);
 std::optional<Objective> parse_objective(std::string_view name);
 const std::vector<std::string>& objective_names();
 
+/// Which loop the search ends on (`search.simulate`).
+///   automatic: the nonlinear loop when an effect the linear loop leaves out is active for the
+///              linear optimum (measured), else the linear loop;
+///   linear:    never the nonlinear loop (the verdict is still read on the loop the spec describes);
+///   nonlinear: always a final stage on the nonlinear loop.
+enum class SimulateMode { automatic, linear, nonlinear };
+std::string_view simulate_mode_name(SimulateMode m);  // "auto", "linear", "nonlinear"
+
 struct SearchSpec {
   Objective objective = Objective::itae;
   unsigned seed = 1;                          // NLopt's random seed
   int max_evaluations = 6000;                 // cost evaluations, global + local
   double max_time_s = 20.0;                   // wall-time cap, s
-  bool simulate_nonlinear = false;            // search.simulate = "nonlinear": a final refinement on the nonlinear loop
+  SimulateMode simulate = SimulateMode::automatic;  // search.simulate (see SimulateMode)
   /// [search.bounds]: parameter name → [lo, hi], natural units, 0 < lo < hi.
   std::vector<std::pair<std::string, std::pair<double, double>>> bounds;
 };
