@@ -120,7 +120,7 @@ const std::vector<SectionSchema>& section_schemas() {
         "rise_time_max", "settling_band_pct", "steady_state_error_max", "effort_max",
         "undershoot_max_pct", "phase_margin_min_deg", "gain_margin_min_db", "sensitivity_peak_max"}},
       {"reference", {"amplitude"}},
-      {"search", {"objective", "seed", "max_evaluations", "max_time", "simulate", "bounds"}},
+      {"search", {"objective", "seed", "max_evaluations", "max_time", "simulate", "margin_pct", "bounds"}},
       {"disturbance", {"time", "size", "noise_rms", "noise_period", "seed"}},
       {"sweep", {"vary"}},
   };
@@ -1045,6 +1045,9 @@ class SpecReader {
             table, kSection, "max_time", [](double v) { return v > 0.0 && v <= 86400.0; },
             "a time in s in (0, 86400]"))
       search.max_time_s = *cap;
+    if (const auto margin = ranged_number(
+            table, kSection, "margin_pct", [](double v) { return v >= 0.0 && v < 50.0; }, "a percentage in [0, 50)"))
+      search.margin_pct = *margin;
     const auto entry = find_entry(*table, "bounds");
     if (!entry) return;
     const auto* bounds = entry->value->as_table();
