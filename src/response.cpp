@@ -271,17 +271,16 @@ struct Hermite {
   }
 };
 
-// One pass over the samples: the extremes of y and u, and four bit masks (64 samples a word, bit j
-// of word w is sample 64w + j): `below`, e = y∞ − y < 0 (the sign bit of e); `outside`,
-// |y/y∞ − 1| > band; `near`, |y/y∞ − 1| > band/2 (within reach of the band edge between
-// samples); `falling`, y[k+1] < y[k] (the caller keeps y[count] readable; bit count − 1 is
-// meaningless). Sign changes of e, band exits and the samples where y turns (sample extrema) are
-// then found a word at a time.
+// One pass over the samples: the extremes of y and u, and three bit masks (64 samples a word, bit
+// j of word w is sample 64w + j): `below`, e = y∞ − y < 0 (the sign bit of e); `outside`,
+// |y/y∞ − 1| > band; `falling`, y[k+1] < y[k] (the caller keeps y[count] readable; bit count − 1
+// is meaningless). Sign changes of e, band exits and the samples where y turns (sample extrema)
+// are then found a word at a time.
 struct SampleExtremes {
   double y_hi, y_lo, u_hi, u_lo;
 };
 struct ScanBits {
-  std::uint64_t *below, *outside, *near, *falling;
+  std::uint64_t *below, *outside, *falling;
 };
 
 #if defined(SPECLOOP_AVX_KERNELS)
@@ -291,20 +290,19 @@ __attribute__((target("avx"))) int scan_samples_avx(const double* y, const doubl
                                                     double inv, double band, const ScanBits& bits,
                                                     SampleExtremes& ex) {
   const __m256d v_inf = _mm256_set1_pd(y_inf), v_inv = _mm256_set1_pd(inv), v_one = _mm256_set1_pd(1.0),
-                v_band = _mm256_set1_pd(band), v_half = _mm256_set1_pd(0.5 * band),
+                v_band = _mm256_set1_pd(band),
                 v_abs = _mm256_castsi256_pd(_mm256_set1_epi64x(0x7fffffffffffffffLL));
   __m256d vyh = _mm256_set1_pd(ex.y_hi), vyl = _mm256_set1_pd(ex.y_lo), vuh = _mm256_set1_pd(ex.u_hi),
           vul = _mm256_set1_pd(ex.u_lo);
   int k = 0;
   for (; k + 64 <= count; k += 64) {
-    std::uint64_t b = 0, o = 0, n = 0, f = 0;
+    std::uint64_t b = 0, o = 0, f = 0;
     for (int j = 0; j < 64; j += 4) {
       const __m256d yv = _mm256_loadu_pd(y + k + j), uv = _mm256_loadu_pd(u + k + j),
                     yn = _mm256_loadu_pd(y + k + j + 1);
       b |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_sub_pd(v_inf, yv))) << j;
       const __m256d dev = _mm256_and_pd(_mm256_sub_pd(_mm256_mul_pd(yv, v_inv), v_one), v_abs);
       o |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_cmp_pd(dev, v_band, _CMP_GT_OS))) << j;
-      n |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_cmp_pd(dev, v_half, _CMP_GT_OS))) << j;
       f |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_cmp_pd(yn, yv, _CMP_LT_OS))) << j;
       vyh = _mm256_max_pd(yv, vyh);
       vyl = _mm256_min_pd(yv, vyl);
@@ -313,7 +311,6 @@ __attribute__((target("avx"))) int scan_samples_avx(const double* y, const doubl
     }
     bits.below[k / 64] = b;
     bits.outside[k / 64] = o;
-    bits.near[k / 64] = n;
     bits.falling[k / 64] = f;
   }
   double lanes[4];
@@ -347,17 +344,15 @@ SampleExtremes scan_samples(const double* y, const double* u, int count, double 
   // Two samples a step; max/min keep the comparison order of the scalar tail (no NaN reaches
   // here unnoticed: the caller checks the last sample, which a NaN would have spread to).
   const __m128d v_inf = _mm_set1_pd(y_inf), v_inv = _mm_set1_pd(inv), v_one = _mm_set1_pd(1.0),
-                v_band = _mm_set1_pd(band), v_half = _mm_set1_pd(0.5 * band),
-                v_abs = _mm_castsi128_pd(_mm_set1_epi64x(0x7fffffffffffffffLL));
+                v_band = _mm_set1_pd(band), v_abs = _mm_castsi128_pd(_mm_set1_epi64x(0x7fffffffffffffffLL));
   __m128d vyh = _mm_set1_pd(yh), vyl = _mm_set1_pd(yl), vuh = _mm_set1_pd(uh), vul = _mm_set1_pd(ul);
   for (; k + 64 <= count; k += 64) {
-    std::uint64_t b = 0, o = 0, n = 0, f = 0;
+    std::uint64_t b = 0, o = 0, f = 0;
     for (int j = 0; j < 64; j += 2) {
       const __m128d yv = _mm_loadu_pd(y + k + j), uv = _mm_loadu_pd(u + k + j), yn = _mm_loadu_pd(y + k + j + 1);
       b |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_sub_pd(v_inf, yv))) << j;
       const __m128d dev = _mm_and_pd(_mm_sub_pd(_mm_mul_pd(yv, v_inv), v_one), v_abs);
       o |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmpgt_pd(dev, v_band))) << j;
-      n |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmpgt_pd(dev, v_half))) << j;
       f |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmplt_pd(yn, yv))) << j;
       vyh = _mm_max_pd(yv, vyh);
       vyl = _mm_min_pd(yv, vyl);
@@ -366,7 +361,6 @@ SampleExtremes scan_samples(const double* y, const double* u, int count, double 
     }
     bits.below[k / 64] = b;
     bits.outside[k / 64] = o;
-    bits.near[k / 64] = n;
     bits.falling[k / 64] = f;
   }
   double lanes[2];
@@ -380,12 +374,11 @@ SampleExtremes scan_samples(const double* y, const double* u, int count, double 
   ul = std::min(lanes[0], lanes[1]);
 #endif
   for (; k < count; k += 64) {  // the rest (everything without SSE2)
-    std::uint64_t b = 0, o = 0, n = 0, f = 0;
+    std::uint64_t b = 0, o = 0, f = 0;
     for (int j = 0; j < 64 && k + j < count; ++j) {
       const double yk = y[k + j], uk = u[k + j], dev = std::abs(yk * inv - 1.0);
       b |= static_cast<std::uint64_t>(std::signbit(y_inf - yk)) << j;
       o |= static_cast<std::uint64_t>(dev > band) << j;
-      n |= static_cast<std::uint64_t>(dev > 0.5 * band) << j;
       f |= static_cast<std::uint64_t>(y[k + j + 1] < yk) << j;
       yh = yk > yh ? yk : yh;
       yl = yk < yl ? yk : yl;
@@ -394,7 +387,6 @@ SampleExtremes scan_samples(const double* y, const double* u, int count, double 
     }
     bits.below[k / 64] = b;
     bits.outside[k / 64] = o;
-    bits.near[k / 64] = n;
     bits.falling[k / 64] = f;
   }
   return {yh, yl, uh, ul};
@@ -465,7 +457,7 @@ SegmentSums segment_sums(const double* y, int first, int last, double y_inf, dou
 class SampleBits {
  public:
   SampleBits(const ScanBits& bits, int count)
-      : below_(bits.below), outside_(bits.outside), near_(bits.near), falling_(bits.falling), count_(count),
+      : below_(bits.below), outside_(bits.outside), falling_(bits.falling), count_(count),
         words_((count + 63) / 64) {}
   int words() const { return words_; }
   // Word w of the samples where f = y/y∞ − 1 turns, 1 ≤ k ≤ count − 2: `maxima` (f rose into k
@@ -484,7 +476,6 @@ class SampleBits {
   std::uint64_t beyond(int w, bool f_follows_y) const {
     return (f_follows_y ? below_[w] : ~below_[w]) & valid(w);
   }
-  std::uint64_t near(int w) const { return near_[w] & valid(w); }
 
   // Smallest k in [from, count) where e changes sign between samples k − 1 and k; count if none.
   int next_sign_change(int from) const {
@@ -521,7 +512,7 @@ class SampleBits {
     const int n = count_ - 1 - 64 * w;
     return n >= 64 ? ~std::uint64_t{0} : n <= 0 ? 0 : (std::uint64_t{1} << n) - 1;
   }
-  const std::uint64_t *below_, *outside_, *near_, *falling_;
+  const std::uint64_t *below_, *outside_, *falling_;
   int count_, words_;
 };
 
@@ -775,7 +766,7 @@ void StepSimulator::prepare(int n, int samples) {
   }
   const std::size_t words = static_cast<std::size_t>(samples + 63) / 64;
   if (below_bits_.size() < words) {
-    for (auto* v : {&below_bits_, &outside_bits_, &near_bits_, &falling_bits_}) v->resize(words);
+    for (auto* v : {&below_bits_, &outside_bits_, &falling_bits_}) v->resize(words);
   }
   // Room for the fixed-size kernels' blocks: each segment starts on a whole block and its last,
   // partial block is stored whole.
@@ -960,10 +951,10 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   const double inv = 1.0 / y_inf;
   const auto [y_hi, y_lo, u_hi, u_lo] =
       scan_samples(y, u, K, y_inf, inv, band_fraction,
-                   ScanBits{below_bits_.data(), outside_bits_.data(), near_bits_.data(), falling_bits_.data()});
+                   ScanBits{below_bits_.data(), outside_bits_.data(), falling_bits_.data()});
   if (!std::isfinite(y_hi) || !std::isfinite(y_lo) || !std::isfinite(u_hi) || !std::isfinite(u_lo))
     return StepStatus::numerical_failure;
-  const SampleBits bits(ScanBits{below_bits_.data(), outside_bits_.data(), near_bits_.data(), falling_bits_.data()}, K);
+  const SampleBits bits(ScanBits{below_bits_.data(), outside_bits_.data(), falling_bits_.data()}, K);
   auto first_equal = [&](const double* f, double v) {
     int k = 0;
     while (f[k] != v) ++k;
@@ -1106,8 +1097,11 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   // location, the exact value there (never worse than the samples either side).
   auto polish = [&](Found f, int row, double sgn) {
     const double* samples = row == 0 ? y : u;
-    // Only an extremum strictly between the samples, beyond both, needs it.
-    if (!(f.s > 0.0 && f.s < 1.0) || !(sgn * f.v > sgn * samples[f.j] && sgn * f.v > sgn * samples[f.j + 1])) return f;
+    // Only an extremum strictly between the samples and beyond both by more than rounding (a
+    // response that starts flat has a Hermite "extremum" 1e-20 below its first sample) needs it.
+    const double rounding = 1e-12 * (row == 0 ? std::abs(y_hi) + std::abs(y_lo) : std::abs(u_hi) + std::abs(u_lo));
+    const double beyond = sgn * f.v - std::max(sgn * samples[f.j], sgn * samples[f.j + 1]);
+    if (!(f.s > 0.0 && f.s < 1.0) || !(beyond > rounding)) return f;
     ExactSeries e;
     if (!exact_on(f.j, row, f.s, 0.5, e)) return f;
     const double sp = e.stationary_near(f.s);
@@ -1181,9 +1175,10 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
 
   // Settling: the last time y is outside the band. After the last sample outside it, y can still
   // leave the band between two samples inside it (a slow hump peaking just beyond the edge): that
-  // needs an extremum of f between those samples, next to a sample extremum of f beyond band/2
-  // (the `near` mask; the grid resolves every mode, h·|p| ≤ 1, so an extremum between samples
-  // shows as a turn of the samples), so only those intervals are examined, from the last one back.
+  // needs an extremum of f between those samples, next to a sample extremum of f (the grid
+  // resolves every mode, h·|p| ≤ 1/2, so an extremum between samples shows as a turn of the
+  // samples) beyond band/2 whose samples could reach the edge; only those intervals are examined,
+  // from the last one back.
   const double band_lo = y_inf > 0.0 ? (1.0 - band_fraction) * y_inf : (1.0 + band_fraction) * y_inf;
   const double band_hi = y_inf > 0.0 ? (1.0 + band_fraction) * y_inf : (1.0 - band_fraction) * y_inf;
   // The last time in interval j outside the band, or −1. Where the interpolant's extremum comes
@@ -1213,12 +1208,13 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   double last_exit = -1.0;
   if (k_outside + 1 < K) {
     for (int w = bits.words() - 1; w >= 0 && last_exit < 0.0 && 64 * w + 63 > k_outside; --w) {
-      const std::uint64_t cand = bits.near(w) & ((bits.turns(w, f_follows_y, true) & bits.beyond(w, f_follows_y)) |
-                                                 (bits.turns(w, f_follows_y, false) & ~bits.beyond(w, f_follows_y)));
+      const std::uint64_t cand = (bits.turns(w, f_follows_y, true) & bits.beyond(w, f_follows_y)) |
+                                 (bits.turns(w, f_follows_y, false) & ~bits.beyond(w, f_follows_y));
       for (std::uint64_t c = cand; c && last_exit < 0.0; c &= ~(std::uint64_t{1} << (63 - std::countl_zero(c)))) {
         const int k = 64 * w + 63 - std::countl_zero(c);
         if (k <= k_outside) break;
-        if (std::abs(fn(k)) + reach(k) <= band_fraction) continue;
+        const double dev = std::abs(fn(k));
+        if (dev <= 0.5 * band_fraction || dev + reach(k) <= band_fraction) continue;
         for (int j : {k, k - 1})
           if (j > k_outside && last_exit < 0.0) last_exit = exit_in(j);
       }

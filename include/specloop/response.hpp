@@ -112,9 +112,8 @@ class StepSimulator {
   Eigen::VectorXd gamma_, out_const_, x_, x_next_, solve_;
   std::vector<double> y_, u_;  // sampled output and effort (times follow from grid_)
   std::vector<double> states_store_;  // x at every sample, for slopes on demand
-  // One bit per sample, 64 to a word: e = y∞ − y < 0; |y/y∞ − 1| > band; |y/y∞ − 1| > band/2;
-  // y[k+1] < y[k].
-  std::vector<std::uint64_t> below_bits_, outside_bits_, near_bits_, falling_bits_;
+  // One bit per sample, 64 to a word: e = y∞ − y < 0; |y/y∞ − 1| > band; y[k+1] < y[k].
+  std::vector<std::uint64_t> below_bits_, outside_bits_, falling_bits_;
 };
 
 namespace detail {
