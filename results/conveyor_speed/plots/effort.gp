@@ -9,7 +9,7 @@ do for [term in 'svg png'] {
   set title 'Control effort u(t)' font ',13'
   set xlabel 'time (s)'
   set ylabel 'u (actuator units)'
-  set xrange [0:14.64261761]
+  set xrange [0:14.64267687]
   unset object; unset arrow; unset label
   plot 24 with lines lc rgb '#c62828' dt 2 lw 1.5 title 'actuator limits', \
        -24 with lines lc rgb '#c62828' dt 2 lw 1.5 notitle, \

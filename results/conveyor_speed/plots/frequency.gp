@@ -12,19 +12,19 @@ do for [term in 'svg png'] {
   set xlabel 'ω (rad/s)'
   unset arrow; unset label
   set ylabel 'magnitude (dB)'
-  set arrow from 32.32637206,-30.32119285 to 32.32637206,0 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
-  set label 'GM 30.3 dB at 32.3 rad/s' at 32.32637206,-15.16059642 left offset 0.6,0 font ',9' textcolor rgb '#c26a1b'
-  set arrow from 29.73124501,-23.92963433 to 29.73124501,0 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
-  set label 'GM 23.9 dB at 29.7 rad/s' at 29.73124501,-11.96481716 left offset 0.6,0 font ',9' textcolor rgb '#1f5f99'
+  set arrow from 32.32643123,-30.32127333 to 32.32643123,0 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
+  set label 'GM 30.3 dB at 32.3 rad/s' at 32.32643123,-15.16063666 left offset 0.6,0 font ',9' textcolor rgb '#c26a1b'
+  set arrow from 29.7219943,-24.0083957 to 29.7219943,0 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
+  set label 'GM 24 dB at 29.7 rad/s' at 29.7219943,-12.00419785 left offset 0.6,0 font ',9' textcolor rgb '#1f5f99'
   plot 0 with lines lc rgb '#999999' dt 2 notitle, \
        '../series/frequency_classical.csv' using 1:2 with lines lc rgb '#c26a1b' lw 2 title 'classical', \
        '../series/frequency_optimized.csv' using 1:2 with lines lc rgb '#1f5f99' lw 2 title 'optimized'
   unset arrow; unset label
   set ylabel 'phase (deg)'
-  set arrow from 3.270972834,-180 to 3.270972834,-97.6968567 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
-  set label 'PM 82.3° at 3.27 rad/s' at 3.270972834,-138.8484283 left offset 0.6,0 font ',9' textcolor rgb '#c26a1b'
-  set arrow from 5.075499161,-180 to 5.075499161,-117.0533428 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
-  set label 'PM 62.9° at 5.08 rad/s' at 5.075499161,-148.5266714 left offset 0.6,0 font ',9' textcolor rgb '#1f5f99'
+  set arrow from 3.270959499,-180 to 3.270959499,-97.69678157 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
+  set label 'PM 82.3° at 3.27 rad/s' at 3.270959499,-138.8483908 left offset 0.6,0 font ',9' textcolor rgb '#c26a1b'
+  set arrow from 5.03493583,-180 to 5.03493583,-116.7525872 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
+  set label 'PM 63.2° at 5.03 rad/s' at 5.03493583,-148.3762936 left offset 0.6,0 font ',9' textcolor rgb '#1f5f99'
   plot -180 with lines lc rgb '#999999' dt 2 notitle, \
        '../series/frequency_classical.csv' using 1:3 with lines lc rgb '#c26a1b' lw 2 title 'classical', \
        '../series/frequency_optimized.csv' using 1:3 with lines lc rgb '#1f5f99' lw 2 title 'optimized'
