@@ -100,6 +100,7 @@ DesignRun run_design(const Spec& spec) {
   if (run.characterization.reference) {
     Design ref = measure_design(problem, "reference", make_controller(Structure::p, {run.characterization.reference->gain}, n));
     ref.notes.push_back("P gain whose simulated overshoot equals the limit (from analyze)");
+    if (!run.characterization.reference_note.empty()) ref.notes.push_back(run.characterization.reference_note);
     run.designs.push_back(std::move(ref));
   }
 
