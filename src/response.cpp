@@ -1104,7 +1104,11 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     if (!(f.s > 0.0 && f.s < 1.0) || !(beyond > rounding)) return f;
     ExactSeries e;
     if (!exact_on(f.j, row, f.s, 0.5, e)) return f;
-    const double sp = e.stationary_near(f.s);
+    // One Newton step on the exact slope from the Hermite's location (off by O(h⁴)): the value
+    // there is the exact maximum to rounding (its error is quadratic in the location's).
+    const double c = e.curvature(f.s);
+    double sp = c != 0.0 ? f.s - e.slope(f.s) / c : f.s;
+    if (!(sp > 0.0 && sp < 1.0)) sp = f.s;
     Found best{e.value(sp), f.j, sp};
     for (int k : {f.j, f.j + 1})
       if (sgn * samples[k] > sgn * best.v) best = {samples[k], f.j, static_cast<double>(k - f.j)};
