@@ -309,8 +309,15 @@ DominanceDiagnosis diagnose_dominance(const TransferFunction& t, Complex pair_po
 
 namespace {
 
-// The smallest P gain whose simulated overshoot equals the limit, searched within the stable
-// gains (ch.p_stability); gains are magnitudes on the plant with direct action.
+// How close the reference's simulated overshoot must come to the limit, percentage points; and
+// how far below the limit it is aimed, so that its own overshoot check still holds when the
+// nonlinear confirmation re-simulates it (its integrator and samples read a few 1e-7 points off).
+constexpr double kReferenceTolerancePct = 0.01;
+constexpr double kReferenceBelowPct = 1e-4;
+
+// The smallest P gain whose simulated overshoot equals the limit (within kReferenceTolerancePct,
+// else `note` says why not; aimed kReferenceBelowPct below it), searched within the stable gains
+// (ch.p_stability); gains are magnitudes on the plant with direct action.
 std::optional<GainPoint> find_reference(const TransferFunction& plant, const Characterization& ch, double limit,
                                         double amplitude, StepSimulator& sim, std::string& note) {
   const double action = ch.action;
@@ -336,46 +343,88 @@ std::optional<GainPoint> find_reference(const TransferFunction& plant, const Cha
     return m.overshoot_pct;
   };
   // Geometric scan upward through each stable range of gains (from well below the anchor when
-  // the range starts at 0; up to well above it when it has no end) until the overshoot passes
-  // the limit.
+  // the range starts at 0; up to well above it when it has no end). The first scan interval where
+  // the overshoot passes the aim brackets the reference; the rest of the scan says whether the
+  // overshoot is monotonic in K (a lag with a lightly damped pair can peak on different
+  // oscillations at different gains).
   const int points = 120;
-  std::optional<double> largest_seen;
+  const double aim = limit - kReferenceBelowPct;
+  std::vector<std::pair<double, double>> scan;  // (K, overshoot) over every stable range, increasing K
   for (const StableGainSet::Range& range : ch.p_stability.ranges) {
     if (range.state != StableGainSet::State::stable) continue;
     // Stay a hair inside the range: at its ends a pole sits on the imaginary axis.
     const double lo = range.low > 0.0 ? range.low * (1.0 + 1e-6) : anchor * 1e-4;
     const double hi = std::isinf(range.high) ? std::max(anchor, lo) * 1e4 : range.high * (1.0 - 1e-6);
     if (!(hi > lo)) continue;
-    double prev_k = 0.0;
-    std::optional<double> prev_os;
     for (int i = 0; i <= points; ++i) {
       const double k = lo * std::pow(hi / lo, static_cast<double>(i) / points);
-      const auto os = overshoot(k);
-      if (!os) continue;  // at the edge of the range: rounding
-      largest_seen = std::max(largest_seen.value_or(0.0), *os);
-      if (*os < limit) {
-        prev_k = k;
-        prev_os = os;
-        continue;
-      }
-      if (!prev_os) {
-        note = fmt::format("the closed loop is {}, and even K = {} already overshoots {:.4g} %",
-                           ch.p_stability.text(action), signed_gain(k), *os);
-        return std::nullopt;
-      }
-      boost::uintmax_t iterations = 100;
-      const auto f = [&](double kk) { return overshoot(kk).value_or(1e9) - limit; };
-      const auto [a, b] = boost::math::tools::toms748_solve(
-          f, prev_k, k, *prev_os - limit, *os - limit, boost::math::tools::eps_tolerance<double>(40), iterations);
-      const double k_ref = 0.5 * (a + b);
-      auto point = measure_gain(plant, k_ref, amplitude, ch.band_fraction, sim);
-      if (!point) note = "the reference gain could not be simulated";
-      return point;
+      if (const auto os = overshoot(k)) scan.emplace_back(k, *os);  // none at the edge of the range: rounding
     }
   }
-  note = fmt::format("the closed loop is {}, and no stable P gain reaches {:.4g} % overshoot (largest seen {:.3g} %)",
-                     ch.p_stability.text(action), limit, largest_seen.value_or(0.0));
-  return std::nullopt;
+  std::size_t first = scan.size();
+  for (std::size_t i = 0; i < scan.size(); ++i)
+    if (scan[i].second >= aim) {
+      first = i;
+      break;
+    }
+  if (first == scan.size()) {
+    double largest = 0.0;
+    for (const auto& [k, os] : scan) largest = std::max(largest, os);
+    note = fmt::format("the closed loop is {}, and no stable P gain reaches {:.4g} % overshoot (largest seen {:.3g} %)",
+                       ch.p_stability.text(action), limit, largest);
+    return std::nullopt;
+  }
+  // The bracket must lie within one stable range: the scan point before `first` must be its
+  // neighbour in the same range (no unstable gains between them).
+  const auto same_range = [&](double a, double b) {
+    for (const StableGainSet::Range& range : ch.p_stability.ranges)
+      if (range.state == StableGainSet::State::stable && a >= range.low && b <= range.high) return true;
+    return false;
+  };
+  if (first == 0 || !same_range(scan[first - 1].first, scan[first].first)) {
+    note = fmt::format("the closed loop is {}, and even K = {} already overshoots {:.4g} %", ch.p_stability.text(action),
+                       signed_gain(scan[first].first), scan[first].second);
+    return std::nullopt;
+  }
+  // Crossings of the limit over the whole scan: more than one means the overshoot is not
+  // monotonic in K; the reference is then the lowest-gain branch, and a note says so.
+  int crossings = 0;
+  std::vector<std::string> later;
+  for (std::size_t i = 1; i < scan.size(); ++i)
+    if ((scan[i - 1].second >= aim) != (scan[i].second >= aim)) {
+      ++crossings;
+      if (i > first) later.push_back(signed_gain(std::sqrt(scan[i - 1].first * scan[i].first)));
+    }
+  boost::uintmax_t iterations = 100;
+  const auto f = [&](double kk) { return overshoot(kk).value_or(1e9) - aim; };
+  const auto [a, b] = boost::math::tools::toms748_solve(f, scan[first - 1].first, scan[first].first,
+                                                       scan[first - 1].second - aim, scan[first].second - aim,
+                                                       boost::math::tools::eps_tolerance<double>(40), iterations);
+  // The bracket's end at or below the limit (the reference's own check must hold), unless the
+  // other end is closer to it.
+  const double fa = f(a), fb = f(b);
+  const double k_ref = fa <= 0.0 ? a : (fb <= 0.0 ? b : (std::abs(fa) <= std::abs(fb) ? a : b));
+  auto point = measure_gain(plant, k_ref, amplitude, ch.band_fraction, sim);
+  if (!point) {
+    note = "the reference gain could not be simulated";
+    return point;
+  }
+  const double miss = point->simulated.overshoot_pct - limit;
+  if (std::abs(miss) > kReferenceTolerancePct) {
+    // The overshoot jumps across the limit at this gain (the peak moves to another oscillation).
+    note = fmt::format("the overshoot jumps across the {:.4g} % limit at K = {} (from {:.4g} % just below that gain to "
+                       "{:.4g} % above it: the highest peak moves to another oscillation); no P gain has exactly the "
+                       "limit, and the reference is the gain at the jump, with {:.4g} % overshoot",
+                       limit, signed_gain(k_ref), std::min(fa, fb) + aim, std::max(fa, fb) + aim,
+                       point->simulated.overshoot_pct);
+  }
+  if (crossings > 1) {
+    note += std::string(note.empty() ? "" : "; ") +
+            fmt::format("the overshoot is not monotonic in K: it crosses the {:.4g} % limit {} times up to K = {} "
+                        "(again near K ≈ {}); the reference is the lowest-gain branch",
+                        limit, crossings, signed_gain(scan.back().first), fmt::join(later, ", "));
+  }
+  return point;
 }
 
 }  // namespace

@@ -132,11 +132,12 @@ DesignRun run_design(const Spec& spec) {
     Design ref = measure_design(problem, "reference",
                                 make_controller(Structure::p, {run.characterization.reference->gain}, n, problem.action));
     ref.notes.push_back("P gain whose simulated overshoot equals the limit (from analyze)");
+    if (!run.characterization.reference_note.empty()) ref.notes.push_back(run.characterization.reference_note);
     run.designs.push_back(std::move(ref));
   }
 
   std::optional<Controller> classical;
-  std::vector<std::string> classical_notes;
+  std::vector<std::string>& classical_notes = run.classical.notes;
   run.target = desired_pole(problem, run.characterization);
   if (run.target) {
     classical_notes.push_back(fmt::format("target dominant pole {:.4g} ± j{:.4g} ({})", run.target->pole.real(),
@@ -144,13 +145,22 @@ DesignRun run_design(const Spec& spec) {
     const double zeta = -run.target->pole.real() / std::abs(run.target->pole);
     // The hand rules work on the plant with direct action; the controller then takes the action.
     classical = classical_controller(problem.normalized_plant, structure, n, run.target->pole, zeta,
-                                     spec.requirements.steady_state_error_max, classical_notes);
+                                     spec.requirements.steady_state_error_max, classical_notes,
+                                     &run.classical.failed_step);
     if (classical) {
       classical = make_controller(structure, classical->series, n, problem.action);
       Design d = measure_design(problem, "classical", *classical);
       d.notes = classical_notes;
       run.designs.push_back(std::move(d));
+      run.classical.designed = true;
+    } else {
+      run.classical.reason = classical_notes.back();
     }
+  } else {
+    run.classical.failed_step = "target pole";
+    run.classical.reason = "no time requirement to set its speed and no usable ζ-line crossing of the P-only locus (" +
+                           run.characterization.dominant_reason + ")";
+    classical_notes.push_back(run.classical.reason);
   }
 
   std::optional<Controller> baseline;
@@ -249,6 +259,18 @@ DesignRun run_design(const Spec& spec) {
     } else if (!best.meets_all) {
       run.infeasibility = analyze_misses(problem, best, result, options);
     }
+  }
+  // A final value far from r with no requirement saying how far it may be: say so.
+  if (best.status == StepStatus::ok && !spec.requirements.steady_state_error_max &&
+      std::abs(best.simulated.steady_state_error) > problem.band_fraction) {
+    const std::string w = fmt::format(
+        "the optimized design's final value {:.4g} is {:.3g} % away from the reference {:.4g} (outside the ±{:.3g} % "
+        "settling band around it), and no requirement limits the steady-state error: add steady_state_error_max, or a "
+        "structure with integral action, if the output must follow the reference",
+        best.simulated.final_value, 100.0 * std::abs(best.simulated.steady_state_error), spec.reference.amplitude,
+        100.0 * problem.band_fraction);
+    best.notes.push_back("warning: " + w);
+    run.warnings.push_back(w);
   }
   run.designs.push_back(std::move(best));
   return run;

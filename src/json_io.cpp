@@ -64,6 +64,7 @@ json metrics_json(const StepMetrics& m) {
           {"settling_time", optional_json(m.settling_time_s)},
           {"rise_time", optional_json(m.rise_time_s)},
           {"band_entry_time", optional_json(m.band_entry_time_s)},
+          {"post_peak_dip_pct", number_json(m.post_peak_dip_pct)},
           {"steady_state_error", number_json(m.steady_state_error)},
           {"effort_peak", number_json(m.effort_peak)},
           {"iae", number_json(m.iae)},
@@ -121,6 +122,7 @@ json characterization_json(const Spec& spec, const Characterization& ch) {
   }
   if (ch.reference) {
     out["reference"] = gain_point_json(*ch.reference, ch.action);
+    if (!ch.reference_note.empty()) out["reference_note"] = ch.reference_note;  // e.g. a jump or a non-monotonic overshoot
   } else {
     out["reference"] = nullptr;
     out["reference_note"] = ch.reference_note;
@@ -242,6 +244,7 @@ json spec_json(const Spec& spec) {
             {"max_evaluations", spec.search.max_evaluations},
             {"max_time", number_json(spec.search.max_time_s)},
             {"simulate", simulate_mode_name(spec.search.simulate)},
+            {"margin_pct", number_json(spec.search.margin_pct)},
             {"bounds", bounds}}},
           {"sweep", {{"vary", spec.sweep_vary}}},
           {"units", units_json(spec.units)}};
@@ -272,7 +275,8 @@ json design_json(const Design& d) {
                      {"unit", check.requirement.unit},
                      {"value", optional_number(check.value)},
                      {"met", check.met},
-                     {"violation", number_json(check.violation)}});
+                     {"violation", number_json(check.violation)},
+                     {"slack", number_json(check.slack)}});
     return out;
   };
   const json checks = checks_json(d.checks);
@@ -412,6 +416,14 @@ json result_json(const DesignRun& run) {
   out["linear_model"]["linearization"] = linearization_json(run.problem.spec);
   if (run.target)
     out["target_pole"] = {{"pole", complex_json(run.target->pole)}, {"derivation", run.target->derivation}};
+  out["classical_outcome"] = {{"designed", run.classical.designed},
+                              {"failed_step", run.classical.designed ? json(nullptr) : json(run.classical.failed_step)},
+                              {"reason", run.classical.designed ? json(nullptr) : json(run.classical.reason)},
+                              {"notes", run.classical.notes}};
+  out["objective"] = {{"name", objective_name(run.problem.spec.search.objective)},
+                      {"tracking_window", number_json(run.problem.tracking_window_s)},
+                      {"search_margin_pct", number_json(run.problem.search_margin * 100.0)}};
+  out["warnings"] = run.warnings;
   if (run.ultimate)
     out["ultimate"] = {{"gain", number_json(run.problem.action * run.ultimate->gain)}, {"period", number_json(run.ultimate->period_s)},
                        {"frequency", number_json(run.ultimate->frequency_rad_s)}};

@@ -114,6 +114,7 @@ void print_analysis(const Spec& spec, const Characterization& ch) {
   row("ITAE", [](const GainPoint& g) { return fmt::format("{:.4g}", g.simulated.itae); });
   if (r) fmt::print("  reference peak time (what peak_time_ratio multiplies): {}\n", opt_time(r->simulated.peak_time_s, tu));
   else fmt::print("  no reference gain: {}\n", ch.reference_note);
+  if (r && !ch.reference_note.empty()) fmt::print("  reference: {}\n", ch.reference_note);
   fmt::print("\nDominance: {}\n", ch.dominance ? ch.dominance->verdict : "no dominant crossing to judge");
   if (ch.dominance) {
     for (const auto& reason : ch.dominance->reasons) fmt::print("  - {}\n", reason);
@@ -127,13 +128,22 @@ std::string check_cell(const RequirementCheck& c) {
   return fmt::format("{:>10} {}", shown_value(c), c.met ? "✓" : "✗");
 }
 
+// A check's slack as a signed percentage of the limit ("+1.2 %"; "∞" for unbounded room).
+std::string slack_text(const RequirementCheck& c) {
+  if (c.slack >= 1e3) return "∞";
+  return fmt::format("{:+.3g} %", 100.0 * c.slack);
+}
+
 void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   const Spec& spec = run.problem.spec;
   fmt::print("{}  —  structure {}\n\n", spec.title.empty() ? spec.name : spec.title,
              structure_name(spec.controller.structure));
   // Requirements × designs.
+  // The last column: the optimized design's slack (normalized room, % of the limit).
+  const Design* optimized = run.find("optimized");
   fmt::print("  {:<24} {:>12}", "requirement", "limit");
   for (const Design& d : run.designs) fmt::print(" {:>14}", d.name);
+  if (optimized) fmt::print(" {:>10}", "slack");
   fmt::print("\n");
   for (std::size_t i = 0; i < run.problem.requirements.size(); ++i) {
     const Requirement& r = run.problem.requirements[i];
@@ -142,6 +152,7 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
     fmt::print("  {:<24} {:>12}", r.key, fmt::format("{}{} {}{}", r.magnitude ? "|e| " : "", r.upper ? "≤" : "≥",
                                                      r.limit, unit.empty() ? "" : " " + unit));
     for (const Design& d : run.designs) fmt::print(" {:>14}", check_cell(d.checks[i]));
+    if (optimized) fmt::print(" {:>10}", slack_text(optimized->checks[i]));
     fmt::print("\n");
   }
   fmt::print("  {:<24} {:>12}", "meets all", "");
@@ -209,6 +220,10 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
     fmt::print("\nMET: the optimized design meets every requirement on the {}.\n", loop);
   }
   if (best && best->nonlinear) fmt::print("Nonlinear loop: {}\n", best->nonlinear->verdict);
+  if (!run.classical.designed)
+    fmt::print("Classical design: none — the hand method stops at its {} step: {}\n", run.classical.failed_step,
+               run.classical.reason);
+  for (const std::string& w : run.warnings) fmt::print("Warning: {}\n", w);
   if (best)
     for (const std::string& w : best->warnings) fmt::print("Warning: {}\n", w);
   fmt::print("Report: {} (also {}; data in {})\n", outcome.html.string(), outcome.markdown.string(),

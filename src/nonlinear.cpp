@@ -401,7 +401,33 @@ double crossing(const std::vector<double>& t, const std::vector<double>& f, int 
   return t[k - 1] + (level - f0) / (f1 - f0) * (t[k] - t[k - 1]);
 }
 
-// StepMetrics from samples (definitions in README.md, "Metric definitions"); y∞ given.
+// The parabola through three samples (k − 1, k, k + 1) of f: its vertex {time, value} when the
+// vertex lies within [t_{k−1}, t_{k+1}], else the sample itself. The local interpolant that puts
+// an extremum between samples back where it is (error O(h³) on a smooth response).
+struct Vertex {
+  double t, v;
+  double a, b, c;  // f ≈ a·(τ − t_k)² + b·(τ − t_k) + c near t_k
+};
+Vertex parabola_vertex(const std::vector<double>& t, const std::vector<double>& f, int k) {
+  const double h0 = t[k] - t[k - 1], h1 = t[k + 1] - t[k];
+  const double d0 = (f[k] - f[k - 1]) / h0, d1 = (f[k + 1] - f[k]) / h1;
+  const double a = (d1 - d0) / (h0 + h1);
+  const double b = d0 + a * h0;  // slope at t_k
+  Vertex v{t[k], f[k], a, b, f[k]};
+  if (a != 0.0) {
+    const double tau = -b / (2.0 * a);
+    if (tau >= -h0 && tau <= h1) {
+      v.t = t[k] + tau;
+      v.v = f[k] + b * tau + a * tau * tau;
+    }
+  }
+  return v;
+}
+
+// StepMetrics from samples (definitions in README.md, "Metric definitions"); y∞ given. Extrema
+// between samples (the peak, the dip after it, a hump that leaves the band between two samples
+// inside it) come from the parabola through the three samples around each sample extremum that
+// could matter, not from the samples alone.
 StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, const std::vector<double>& u,
                     double y_inf, double amplitude, double band) {
   StepMetrics m;
@@ -410,12 +436,37 @@ StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, 
   const int K = static_cast<int>(t.size());
   std::vector<double> yn(t.size());
   for (int k = 0; k < K; ++k) yn[k] = y[k] / y_inf;
-  const auto hi = std::max_element(yn.begin(), yn.end());
-  if (*hi > 1.0 + 1e-9) {
-    m.overshoot_pct = (*hi - 1.0) * 100.0;
-    m.peak_time_s = t[hi - yn.begin()];
+  // Sample extrema of yn (interior samples only) that can carry an extremum between samples; the
+  // parabola's excess over the sample is at most a quarter of the second difference, so
+  // `reach` (half of it) is generous.
+  auto reach = [&](int k) { return 0.5 * std::abs(2.0 * yn[k] - yn[k - 1] - yn[k + 1]); };
+  auto is_max = [&](int k) { return yn[k] >= yn[k - 1] && yn[k] >= yn[k + 1]; };
+  auto is_min = [&](int k) { return yn[k] <= yn[k - 1] && yn[k] <= yn[k + 1]; };
+  const int k_hi = static_cast<int>(std::max_element(yn.begin(), yn.end()) - yn.begin());
+  double peak = yn[k_hi], t_peak = t[k_hi];
+  for (int k = 1; k + 1 < K; ++k) {
+    if (!is_max(k) || yn[k] + reach(k) < peak) continue;
+    const Vertex v = parabola_vertex(t, yn, k);
+    if (v.v > peak) {
+      peak = v.v;
+      t_peak = v.t;
+    }
   }
-  m.undershoot_pct = std::max(0.0, -*std::min_element(yn.begin(), yn.end())) * 100.0;
+  if (peak > 1.0 + 1e-9) {
+    m.overshoot_pct = (peak - 1.0) * 100.0;
+    m.peak_time_s = t_peak;
+    double dip = 1.0;  // lowest yn after the peak
+    for (int k = 1; k + 1 < K; ++k) {
+      if (t[k + 1] <= t_peak || !is_min(k) || yn[k] - reach(k) > dip) continue;
+      const Vertex v = parabola_vertex(t, yn, k);
+      if (v.t > t_peak) dip = std::min(dip, std::min(v.v, yn[k]));
+    }
+    m.post_peak_dip_pct = (1.0 - dip) * 100.0;
+  }
+  double low = *std::min_element(yn.begin(), yn.end());
+  for (int k = 1; k + 1 < K; ++k)
+    if (yn[k] < 0.0 && is_min(k) && yn[k] - reach(k) < low) low = std::min(low, parabola_vertex(t, yn, k).v);
+  m.undershoot_pct = std::max(0.0, -low) * 100.0;
   int k10 = -1, k90 = -1;
   for (int k = 0; k < K && k90 < 0; ++k) {
     if (k10 < 0 && yn[k] >= 0.1) k10 = k;
@@ -437,8 +488,23 @@ StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, 
   int k_out = -1;
   for (int k = K - 1; k >= 0; --k)
     if (std::abs(yn[k] - 1.0) > band) { k_out = k; break; }
-  if (k_out < 0) m.settling_time_s = t[0];
-  else if (k_out < K - 1) m.settling_time_s = crossing(t, yn, k_out + 1, yn[k_out] > 1.0 ? 1.0 + band : 1.0 - band);
+  if (k_out < K - 1) {
+    double last = k_out < 0 ? t[0] : crossing(t, yn, k_out + 1, yn[k_out] > 1.0 ? 1.0 + band : 1.0 - band);
+    // A hump beyond the band between samples inside it: the last one found from the end.
+    for (int k = K - 2; k > std::max(k_out, 0); --k) {
+      const double dev = yn[k] - 1.0;
+      if (std::abs(dev) + reach(k) <= band || !(dev > 0.0 ? is_max(k) : is_min(k))) continue;
+      const Vertex v = parabola_vertex(t, yn, k);
+      const double edge = dev > 0.0 ? 1.0 + band : 1.0 - band;
+      if (!(dev > 0.0 ? v.v > edge : v.v < edge)) continue;
+      // The later root of a·τ² + b·τ + (c − edge) = 0 (τ from t_k): where the hump re-enters.
+      const double disc = v.b * v.b - 4.0 * v.a * (v.c - edge);
+      const double tau = (-v.b + std::copysign(std::sqrt(std::max(0.0, disc)), v.a)) / (2.0 * v.a);
+      last = std::max(last, std::min(t[k + 1], t[k] + std::max(tau, v.t - t[k])));
+      break;
+    }
+    m.settling_time_s = last;
+  }
   for (int k = 0; k < K; ++k) m.effort_peak = std::max(m.effort_peak, std::abs(u[k]));
   for (int k = 1; k < K; ++k) {
     const double h = t[k] - t[k - 1];

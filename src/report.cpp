@@ -518,6 +518,8 @@ std::string value_attribute(const std::optional<double>& v) {
 Table requirement_table(const DesignRun& run) {
   Table t{"requirements", {"requirement", "limit"}, {}};
   for (const Design& d : run.designs) t.header.push_back(d.name);
+  const Design* optimized = run.find("optimized");
+  if (optimized) t.header.push_back("slack (optimized)");
   for (std::size_t i = 0; i < run.problem.requirements.size(); ++i) {
     const Requirement& r = run.problem.requirements[i];
     // The limit in its shortest round-trip form; a missed value gets the digits to tell it apart.
@@ -533,10 +535,16 @@ Table requirement_table(const DesignRun& run) {
                      fmt::format("{} data-design=\"{}\" data-met=\"{}\" class=\"{}\"", value_attribute(c.value), d.name,
                                  c.met ? "true" : "false", c.met ? "met" : "missed")});
     }
+    if (optimized) {  // normalized room: (limit − value)/|limit| for an upper bound, negative when missed
+      const RequirementCheck& c = optimized->checks[i];
+      row.push_back({c.slack >= 1e3 ? std::string("∞") : fmt::format("{:+.3g} %", 100.0 * c.slack),
+                     fmt::format("data-slack=\"{:.17g}\"", c.slack)});
+    }
     t.rows.push_back(std::move(row));
   }
   std::vector<Cell> all{{"meets all", ""}, {"", ""}};
   for (const Design& d : run.designs) all.push_back({d.meets_all ? "yes" : "no", d.meets_all ? "class=\"met\"" : "class=\"missed\""});
+  if (optimized) all.push_back({"", ""});
   t.rows.push_back(std::move(all));
   // A conditionally stable loop turns unstable when its gain drops: say by how much.
   if (std::any_of(run.designs.begin(), run.designs.end(),
@@ -554,6 +562,7 @@ Table requirement_table(const DesignRun& run) {
   for (const Design& d : run.designs)
     confirmed.push_back({!d.nonlinear ? "—" : d.nonlinear->confirmed ? "confirmed" : "NOT confirmed",
                          !d.nonlinear ? "" : d.nonlinear->confirmed ? "class=\"met\"" : "class=\"missed\""});
+  if (optimized) confirmed.push_back({"", ""});
   t.rows.push_back(std::move(confirmed));
   return t;
 }
@@ -750,15 +759,24 @@ std::vector<Section> sections(const DesignRun& run, const ReportData& data, cons
     }
     out.push_back(std::move(s));
   }
+  if (!run.warnings.empty()) {  // Warnings about the result, before anything else is read.
+    Section s{"warnings", "Warnings", "", ""};
+    for (const std::string& w : run.warnings) {
+      s.html += paragraph_html("Warning: " + w);
+      s.markdown += "**Warning:** " + escape_md(w) + "\n\n";
+    }
+    out.push_back(std::move(s));
+  }
   {  // Requirement table.
     const Table t = requirement_table(run);
     Section s{"requirement-table", "Requirements × designs", "", ""};
-    const std::string note =
-        run.problem.sampled
-            ? fmt::format("Values on the linear loop — the sampled one, the controller at Ts = {:.4g} s (✓ met, ✗ missed); "
-                          "the last row is the confirmation on the nonlinear loop.",
-                          run.problem.spec.controller.sample_time_s)
-            : std::string("Values on the linear loop (✓ met, ✗ missed); the last row is the confirmation on the nonlinear loop.");
+    const std::string note = fmt::format(
+        "Values on the linear loop{} (✓ met, ✗ missed); the last row is the confirmation on the nonlinear loop. Slack: the "
+        "optimized design's room on each requirement as a fraction of its limit (negative when missed); the search kept "
+        "{:.3g} % (search.margin_pct) on every limit and narrowed the settling band by as much.",
+        run.problem.sampled ? fmt::format(" — the sampled one, the controller at Ts = {:.4g} s", run.problem.spec.controller.sample_time_s)
+                            : std::string(),
+        run.problem.search_margin * 100.0);
     s.html = paragraph_html(note) + html_table(t);
     s.markdown = note + "\n\n" + md_table(t);
     out.push_back(std::move(s));
@@ -805,7 +823,9 @@ std::vector<Section> sections(const DesignRun& run, const ReportData& data, cons
       words += fmt::format("The uncompensated loop has no usable crossing of the ζ = {:.3f} line: {}. ", ch.damping_ratio,
                            ch.dominant_reason);
     }
-    if (!run.find("classical")) words += "No classical design: the hand method has no target pole to design for. ";
+    if (!run.classical.designed)
+      words += fmt::format("No classical design: the hand method stops at its {} step: {}. ", run.classical.failed_step,
+                           run.classical.reason);
     s.html = words.empty() ? "" : paragraph_html(words);
     s.markdown = words.empty() ? "" : words + "\n\n";
     s.html += html_table(t);

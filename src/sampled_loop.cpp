@@ -445,6 +445,17 @@ StepStatus SampledStepSimulator::simulate(const StateSpace& plant, const Differe
   if (vmax > 1.0 + 1e-9) {
     m.overshoot_pct = (vmax - 1.0) * 100.0;
     m.peak_time_s = tmax;
+    // The deepest fall below y∞ after the peak (StepMetrics::post_peak_dip_pct).
+    double after_min = vmax;
+    for (std::size_t j = 0; j + 1 < count; ++j) {
+      if (t_[j + 1] <= tmax) continue;
+      const Cubic p = cubic(j);
+      std::array<double, 4> b{};
+      const int nb = p.pieces(b);
+      for (int i = 0; i < nb; ++i)
+        if (p.time(b[static_cast<std::size_t>(i)]) > tmax) after_min = std::min(after_min, p.at(b[static_cast<std::size_t>(i)]));
+    }
+    m.post_peak_dip_pct = std::max(0.0, 1.0 - after_min) * 100.0;
   }
   m.undershoot_pct = std::max(0.0, -vmin) * 100.0;
   if (t10 && t90) m.rise_time_s = *t90 - *t10;

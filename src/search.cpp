@@ -8,7 +8,9 @@
 // unstable one 1e9·(1 + how far right its rightmost pole is), so the search is steered back to
 // stability, then to feasibility, then down the objective. (An additive penalty was measured
 // too: it stalled on constraint boundaries, e.g. 45 % worse ITAE on the oven demo; see
-// DEVELOPERS.md.)
+// DEVELOPERS.md.) Feasibility is judged against the requirements tightened by the search's
+// margin (design.hpp, `tightened`), with the settling band narrowed by it, so that the design
+// returned keeps room on every limit.
 #include <nlopt.hpp>
 
 #include <algorithm>
@@ -35,7 +37,11 @@ class CostFunction {
  public:
   CostFunction(const Problem& problem, const SearchOptions& options)
       : problem_(problem), options_(options), structure_(problem.spec.controller.structure),
-        n_(problem.spec.controller.derivative_filter) {}
+        n_(problem.spec.controller.derivative_filter), margin_(problem.search_margin),
+        band_(problem.band_fraction * (1.0 - problem.search_margin)) {
+    // The search's margin (design.hpp, `tightened`): limits tightened, the band narrowed.
+    for (const Requirement& r : problem.requirements) requirements_.push_back(tightened(r, margin_));
+  }
 
   struct Outcome {
     bool stable = false;
@@ -59,7 +65,7 @@ class CostFunction {
                               reference_path(make_controller(structure_, std::vector<double>(params, params + problem_.parameters.size()), n_, problem_.action),
                                              cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0))
                  : close_loop(problem_.plant_realization, realize(c));
-    const StepStatus status = sim_.simulate(loop, problem_.spec.reference.amplitude, problem_.band_fraction, metrics_);
+    const StepStatus status = sim_.simulate(loop, problem_.spec.reference.amplitude, band_, metrics_);
     if (status != StepStatus::ok) {
       double rightmost = 0.0;
       for (const Complex& p : sim_.poles()) rightmost = std::max(rightmost, p.real() / std::max(1.0, std::abs(p)));
@@ -85,7 +91,7 @@ class CostFunction {
       const DifferenceEquation eq =
           controller_difference_equation(ctl, cs.sample_time_s, cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0);
       status = sampled_sim_.simulate(problem_.plant_realization, eq, problem_.spec.reference.amplitude,
-                                     problem_.band_fraction, metrics_);
+                                     band_, metrics_);
     } catch (const std::invalid_argument&) {
       status = StepStatus::numerical_failure;
     }
@@ -109,11 +115,12 @@ class CostFunction {
   }
 
   // Σ normalized violations of the problem's requirements (a missing value counts as 1).
+  // Σ normalized violations of the tightened requirements (a missing value counts as 1).
   double total_violation(const StepMetrics& m, const std::optional<Margins>& margins) const {
     double total = 0.0;
-    for (const Requirement& r : problem_.requirements)
+    for (const Requirement& r : requirements_)
       total += requirement_violation(
-          r, requirement_value(r, m, margins, problem_.reference_peak_time_s, problem_.band_fraction * 100.0));
+          r, requirement_value(r, m, margins, problem_.reference_peak_time_s, problem_.band_fraction * 100.0, margin_));
     return total;
   }
 
@@ -129,9 +136,10 @@ class CostFunction {
       return options_.objective_requirement->upper ? read : 1.0 / std::max(read, 1e-12);
     }
     switch (options_.objective) {
-      case Objective::itae: return m.itae;
-      case Objective::iae: return m.iae;
-      case Objective::ise: return m.ise;
+      case Objective::itae:
+      case Objective::iae:
+      case Objective::ise:
+        return tracking_objective(options_.objective, m, problem_.spec.reference.amplitude, problem_.tracking_window_s);
       case Objective::effort: return m.effort_peak;
       case Objective::settling_time: return m.settling_time_s.value_or(1e3 * horizon_s);
       case Objective::sensitivity_peak:
@@ -245,6 +253,9 @@ class CostFunction {
   const SearchOptions& options_;
   Structure structure_;
   double n_;
+  double margin_;                      // the search's margin (fraction)
+  double band_;                        // the settling band narrowed by it
+  std::vector<Requirement> requirements_;  // the problem's, tightened by it
   double objective_scale_ = 1.0;
   StepSimulator sim_;
   SampledStepSimulator sampled_sim_;

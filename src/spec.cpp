@@ -1224,6 +1224,9 @@ class SpecReader {
             table, kSection, "max_time", [](double v) { return v > 0.0 && v <= 86400.0; },
             "a time in s in (0, 86400]"))
       search.max_time_s = *cap;
+    if (const auto margin = ranged_number(
+            table, kSection, "margin_pct", [](double v) { return v >= 0.0 && v < 50.0; }, "a percentage in [0, 50)"))
+      search.margin_pct = *margin;
     const auto entry = find_entry(*table, "bounds");
     if (!entry) return;
     const auto* bounds = entry->value->as_table();

@@ -90,6 +90,13 @@ const std::vector<SpecKey>& spec_keys() {
        "optimum (measured: limits the command goes beyond, a binding rate limit, sampling, delay, expression plant, "
        "noise, load step), and the verdict and exit code come from that loop; `nonlinear`: that stage always; "
        "`linear`: never (the verdict is still read on the loop the spec describes). See \"Which loop judges\""},
+      {"search.margin_pct", "%", "1",
+       "the search's design margin, in [0, 50): in the search every limit is tightened by this percentage of itself "
+       "(≤ L becomes ≤ L − m·|L|, ≥ L becomes ≥ L + m·|L|; a zero limit stays zero), the settling band is narrowed by "
+       "the same percentage, and a peak counts as visible only with this much to spare (overshoot above band·(1 + m), "
+       "dip below overshoot·(1 − m)); so a design it returns keeps room on every limit and still meets them all when "
+       "the plant's gain and poles move by 1e-6 (checked by `tests/test_margin_robustness.cpp`). The checks use the "
+       "spec's own limits. `0`: no margin (designs may sit exactly on a limit)"},
       {"search.bounds.<parameter>", "parameter's unit", "from the plant",
        "`[low, high]`, 0 < low < high; parameter names per structure in the `design` section; the gain's bounds are on "
        "its magnitude (reverse action makes it negative)"},

@@ -17,7 +17,7 @@ result.json, series/*.csv and plots/{step,effort,splane,frequency}.{gp,svg,png}.
                detector is broken and the check fails.
   table        every cell of the requirement table (parsed from the HTML with html.parser) carries
                the value of result.json exactly (data-value, 17 significant digits) and shows it
-               to 4 significant digits.
+               to 4 significant digits; the slack column carries the optimized design's `slack`.
   series       the CSV step responses re-measured with SciPy (cubic spline through the samples,
                scipy.interpolate.CubicSpline; crossings by scipy.optimize.brentq) reproduce
                result.json's overshoot, peak, rise and settling times. For the linear loop the samples are those of the exact simulation:
@@ -329,7 +329,7 @@ def check_page_content(tally, name, out, result, page, spec_toml, expect_delay=F
     for row in parser.tables.get("requirements", []):
         key = row[0][0].get("data-key") if row else None
         if key in unit_of:
-            bad += [c[1] for c in row[1:] if c[1] != "none" and f" {unit_of[key]}" not in c[1]]
+            bad += [c[1] for c in row[1:] if "data-slack" not in c[0] and c[1] != "none" and f" {unit_of[key]}" not in c[1]]
     tally.check(name, "units: the requirement table's time and effort cells carry them", not bad, str(bad[:3]))
     # Signed mode contributions: on the page as in result.json, adding up to 100 %.
     worst, sums, seen = 0.0, [], 0
@@ -500,6 +500,14 @@ def check_table(tally, name, parser, result):
             rows.append(row)
         elif row is not None and "data-design" in attrs:
             row["cells"].append((attrs, text))
+        elif row is not None and "data-slack" in attrs:
+            row["slack"] = float(attrs["data-slack"])
+    # The slack column: the optimized design's `slack` from result.json, exactly.
+    if "optimized" in designs:
+        want = {c["requirement"]: c["slack"] for c in designs["optimized"]["checks"]}
+        got = {r["key"]: r.get("slack") for r in rows}
+        tally.check(name, "table: slack column = the optimized design's slack in result.json", got == want,
+                    f"{got} vs {want}")
     ok_exact = ok_shown = True
     detail = ""
     count = 0

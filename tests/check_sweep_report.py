@@ -118,8 +118,10 @@ def front_metric(r, metric, nonlinear, band_pct):
         m = d["nonlinear"]["metrics"]
     else:
         m = d["linear"]
-    if metric == "peak_time":
-        return m["peak_time"] if m["overshoot_pct"] > band_pct else m["band_entry_time"]
+    if metric == "peak_time":  # README, "Metric definitions": the visible peak, else the final band entry
+        visible = (m["peak_time"] is not None and m["overshoot_pct"] > band_pct
+                   and m.get("post_peak_dip_pct", 0.0) <= m["overshoot_pct"])
+        return m["peak_time"] if visible else m["settling_time"]
     return m[metric]
 
 

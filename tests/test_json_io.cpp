@@ -143,6 +143,7 @@ const std::vector<Mutation>& mutations() {
       {"search.max_evaluations", 0, {{"search", "max_evaluations", "100"}}, "/search/max_evaluations"},
       {"search.max_time", 0, {{"search", "max_time", "5.0"}}, "/search/max_time"},
       {"search.simulate", 0, {{"search", "simulate", "\"nonlinear\""}}, "/search/simulate"},
+      {"search.margin_pct", 0, {{"search", "margin_pct", "3.0"}}, "/search/margin_pct"},
       {"search.bounds.<parameter>", 0, {{"search.bounds", "gain", "[0.1, 10.0]"}}, "/search/bounds/gain"},
       {"sweep.vary", 0, {{"sweep", "vary", "[\"plant.gain=100:200:3\"]"}}, "/sweep/vary"},
       {"units.output", 0, {{"units", "output", "\"m/s\""}}, "/units/output"},

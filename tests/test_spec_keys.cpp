@@ -91,6 +91,7 @@ const std::map<std::string, std::pair<std::string, std::string>>& examples() {
       {"search.max_evaluations", {kPlant + "[search]\nmax_evaluations = @\n", "500"}},
       {"search.max_time", {kPlant + "[search]\nmax_time = @\n", "5.0"}},
       {"search.simulate", {kPlant + "[search]\nsimulate = @\n", "\"nonlinear\""}},
+      {"search.margin_pct", {kPlant + "[search]\nmargin_pct = @\n", "3.0"}},
       {"search.bounds.<parameter>", {kPlant + "[search.bounds]\ngain = @\n", "[0.1, 10.0]"}},
       {"disturbance.time", {kPlant + "[disturbance]\ntime = @\nsize = 1.0\n", "3.0"}},
       {"disturbance.size", {kPlant + "[disturbance]\nsize = @\n", "1.0"}},

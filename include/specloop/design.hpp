@@ -39,6 +39,8 @@ struct Problem {
   std::optional<double> reference_peak_time_s;  // from the characterization (P gain at the limit)
   std::vector<Requirement> requirements;
   double band_fraction = 0.02;
+  double search_margin = 0.01;                  // search.margin_pct/100: see SearchMargin below
+  double tracking_window_s = 1.0;               // W of the tracking objectives (see tracking_objective)
   bool needs_margins = false;                   // a margin requirement or the Ms objective
   std::vector<ParameterInfo> parameters;        // of the spec's structure
   std::vector<std::pair<double, double>> bounds;  // per parameter, natural units, lo < hi
@@ -57,6 +59,7 @@ struct RequirementCheck {
   std::optional<double> value;  // empty when the response has no such value (see README)
   bool met = false;
   double violation = 0.0;       // normalized: (value − limit)/|limit| for upper bounds, > 0 when missed
+  double slack = 0.0;           // requirement_slack: normalized room, negative when missed
 };
 
 /// Effects of the nonlinear loop taken out (the others kept), to see what they cost: the
@@ -187,13 +190,37 @@ Design measure_design(const Problem& problem, std::string name, const Controller
 std::vector<std::string> fragility_warnings(const Problem& problem, const Design& d, bool searched);
 inline constexpr double kDelayMarginFloor = 1e-4;     // s
 inline constexpr double kEffortAmplification = 1e3;
+/// The time a peak-time requirement reads (README, "Metric definitions"): the time of the peak
+/// when the peak is visible — the overshoot exceeds the settling band (`band_pct`) and the
+/// response never falls further below y∞ after the peak than the peak rose above it (a decaying
+/// oscillation) — else the final entry into the band (the settling time), so that no response
+/// is credited with a time after which it still leaves the band. `margin` (a fraction, the
+/// search's) makes both tests stricter: the overshoot must exceed band_pct·(1 + margin) and the
+/// dip stay below overshoot·(1 − margin). Used by the requirement checks, the search and
+/// sweep-report, so all three read the same time.
+std::optional<double> effective_peak_time(const StepMetrics& m, double band_pct, double margin = 0.0);
 
 /// The value a requirement reads from a measured response (std::nullopt: not defined).
-/// Peak-time requirements read the time of the peak when the overshoot exceeds the settling band
-/// (`band_pct`), else the first entry into the band (README, "Requirements").
+/// Peak-time requirements read effective_peak_time (`band_pct`, `margin` as there).
 std::optional<double> requirement_value(const Requirement& r, const StepMetrics& m,
                                         const std::optional<Margins>& margins,
-                                        const std::optional<double>& reference_peak_time_s, double band_pct);
+                                        const std::optional<double>& reference_peak_time_s, double band_pct,
+                                        double margin = 0.0);
+
+/// The search's margin (README, `search.margin_pct`): in the search every limit is tightened by
+/// the fraction `margin` of itself (an upper bound L becomes L − margin·|L|, a lower one
+/// L + margin·|L|; a zero limit stays zero) and the settling band is narrowed by the same
+/// fraction, so that the design it returns meets the real limits with room, not on the edge.
+/// The checks of a design always use the spec's own limits.
+Requirement tightened(const Requirement& r, double margin);
+
+/// The tracking objectives itae, iae and ise as the search minimizes them (README, "Objectives"):
+/// the integral about y∞ plus the integral that the offset r − y∞ alone accumulates over the
+/// problem's tracking window W — ITAE + |r − y∞|·W²/2, IAE + |r − y∞|·W, ISE + (r − y∞)²·W — so
+/// that following the reference r (`amplitude`) is rewarded and a gain driven to zero, which
+/// shrinks the integrals about y∞ with y∞ itself, is not optimal. Throws std::logic_error for
+/// the other objectives.
+double tracking_objective(Objective objective, const StepMetrics& m, double amplitude, double window_s);
 
 /// A checked value as tables show it: 4 significant digits, more when a miss would otherwise
 /// print equal to the limit ("10.0002 ✗" against "≤ 10", never "10 ✗").
@@ -228,11 +255,13 @@ std::optional<DesiredPole> desired_pole(const Problem& problem, const Characteri
 /// with make_controller) of `structure` placing a closed-loop pole at `target` where the
 /// structure can (pd, pid, lead, lead-lag: angle condition; lead pole by the bisector rule;
 /// PI/lag zero at a tenth of σ), or at the dominant ζ-line crossing of the compensated locus
-/// where it cannot (p, pi, lag). Gain from the magnitude condition. `notes` says what was done.
+/// where it cannot (p, pi, lag). Gain from the magnitude condition. `notes` says what was done;
+/// when a step cannot be done the result is empty, the last note says why, and `failed_step`
+/// (when given) receives the step's name ("angle condition", "lead angle", ...).
 std::optional<Controller> classical_controller(const TransferFunction& plant, Structure structure,
                                                double derivative_filter, Complex target, double zeta,
                                                std::optional<double> steady_state_error_max,
-                                               std::vector<std::string>& notes);
+                                               std::vector<std::string>& notes, std::string* failed_step = nullptr);
 
 // ---- ultimate-gain baseline ---------------------------------------------------------------------
 
@@ -334,10 +363,20 @@ struct Infeasibility {
   std::string nearest_text;                 // that, in words (or why it was not found)
 };
 
+/// What became of the hand (root-locus) method: designed, or which step could not be done and why.
+struct ClassicalOutcome {
+  bool designed = false;
+  std::string failed_step;                  // empty when designed, e.g. "target pole", "angle condition"
+  std::string reason;                       // why that step could not be done, in words
+  std::vector<std::string> notes;           // every step taken, as in the design's notes
+};
+
 struct DesignRun {
   Characterization characterization;
   Problem problem;
   std::optional<DesiredPole> target;
+  ClassicalOutcome classical;
+  std::vector<std::string> warnings;        // about the recommended result (e.g. a final value far from r)
   std::optional<UltimatePoint> ultimate;
   std::vector<Design> designs;              // reference, classical, ultimate_gain, optimized (those that exist)
   SearchSummary search;

@@ -166,10 +166,14 @@ DifferenceEquation controller_difference_equation(const Controller& controller, 
 ///
 /// Metrics use the linear definitions of StepMetrics measured on the samples: y∞ is the linear
 /// loop's r·T(0) (final-value theorem), also when a limit or disturbance changes the true final
-/// value; the steady-state error is the linear one. Extremes are sample maxima, crossings are
-/// linearly interpolated, integrals use the trapezoid rule; with the default 4000 samples per
-/// horizon that is accurate to about 1e-5 relative on smooth responses (the samples themselves
-/// carry the integrator's error, ~1e-7 relative at the default tolerances).
+/// value; the steady-state error is the linear one. Extrema of y between samples (the peak, the
+/// deepest dip after it, the undershoot, and a hump that leaves the settling band between two
+/// samples inside it, which moves the settling time) come from the parabola through the three
+/// samples around each sample extremum that could matter; the effort peak is the sample
+/// maximum (the applied u is clamped flat at a limit, where a parabola would overshoot it);
+/// crossings are linearly interpolated, integrals use the trapezoid rule; with the default 4000
+/// samples per horizon that is accurate to about 1e-5 relative on smooth responses (the samples
+/// themselves carry the integrator's error, ~1e-7 relative at the default tolerances).
 ///
 /// Transport delay (delay_s = L > 0), exact: the plant input at t is the applied u at t − L (0
 /// before L); the disturbance acts at the plant input undelayed. With a continuous controller

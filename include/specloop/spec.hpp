@@ -150,6 +150,7 @@ struct SearchSpec {
   int max_evaluations = 6000;                 // cost evaluations, global + local
   double max_time_s = 20.0;                   // wall-time cap, s
   SimulateMode simulate = SimulateMode::automatic;  // search.simulate (see SimulateMode)
+  double margin_pct = 1.0;                    // limits tightened by this % of themselves in the search, band narrowed too; [0, 50)
   /// [search.bounds]: parameter name → [lo, hi], natural units, 0 < lo < hi.
   std::vector<std::pair<std::string, std::pair<double, double>>> bounds;
 };

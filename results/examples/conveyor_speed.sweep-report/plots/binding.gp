@@ -17,9 +17,9 @@ do for [term in 'svg png'] {
   set ylabel 'plant.zeros[0]'
   set ytics ('-1' 0, '-2' 1, '-4' 2, '-9' 3, '-20' 4, '-60' 5)
   plot '../series/map.csv' using 1:($4 < 0 ? $2 : NaN):(0.5):(0.5) with boxxyerror fs solid 1.0 border lc rgb 'white' fc rgb '#e3e3e3' title 'none (not run, failed, or no requirement)', \
-       '../series/map.csv' using 1:($4 == 0 ? $2 : NaN):(0.5):(0.5) with boxxyerror fs solid 1.0 border lc rgb 'white' fc rgb '#1f5f99' title 'effort\_max (u)', \
-       '../series/map.csv' using 1:($4 == 1 ? $2 : NaN):(0.5):(0.5) with boxxyerror fs solid 1.0 border lc rgb 'white' fc rgb '#c26a1b' title 'overshoot\_max\_pct (OS)', \
-       '../series/map.csv' using 1:($4 == 2 ? $2 : NaN):(0.5):(0.5) with boxxyerror fs solid 1.0 border lc rgb 'white' fc rgb '#7b5ea7' title 'peak\_time\_ratio (tp)', \
+       '../series/map.csv' using 1:($4 == 0 ? $2 : NaN):(0.5):(0.5) with boxxyerror fs solid 1.0 border lc rgb 'white' fc rgb '#1f5f99' title 'peak\_time\_ratio (tp)', \
+       '../series/map.csv' using 1:($4 == 1 ? $2 : NaN):(0.5):(0.5) with boxxyerror fs solid 1.0 border lc rgb 'white' fc rgb '#c26a1b' title 'effort\_max (u)', \
+       '../series/map.csv' using 1:($4 == 2 ? $2 : NaN):(0.5):(0.5) with boxxyerror fs solid 1.0 border lc rgb 'white' fc rgb '#7b5ea7' title 'overshoot\_max\_pct (OS)', \
        '../series/map.csv' using 1:($3 == 2 ? $2 : NaN) with points pt 2 ps 1.2 lc rgb '#222222' title 'missed (binding = missed by the most)', \
        '../series/map.csv' using 1:($4 >= 0 ? $2 : NaN):5 with labels offset 0,1.0 font ',9' tc rgb '#111111' notitle
   unset output

@@ -13,16 +13,16 @@ do for [term in 'svg png'] {
   set key outside right top vertical Left reverse box opaque font ',9' samplen 2 width 2
   unset arrow; unset label
   set ylabel 'magnitude (dB)'
-  set arrow from 32.32637206,-30.32119285 to 32.32637206,0 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
-  set arrow from 29.73272437,-23.93100215 to 29.73272437,0 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
+  set arrow from 32.32643123,-30.32127333 to 32.32643123,0 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
+  set arrow from 29.7219943,-24.0083957 to 29.7219943,0 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
   plot 0 with lines lc rgb '#999999' dt 2 notitle, \
        '../series/frequency_classical.csv' using 1:2 with lines lc rgb '#c26a1b' lw 2 title 'classical', \
        '../series/frequency_optimized.csv' using 1:2 with lines lc rgb '#1f5f99' lw 2 title 'optimized', \
        NaN with lines lc rgb '#555555' lw 1.5 title 'bars: gain margin at the phase crossover'
   unset arrow; unset label
   set ylabel 'phase (deg)'
-  set arrow from 3.270972834,-180 to 3.270972834,-97.6968567 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
-  set arrow from 5.075251891,-180 to 5.075251891,-117.0547963 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
+  set arrow from 3.270959499,-180 to 3.270959499,-97.69678157 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
+  set arrow from 5.03493583,-180 to 5.03493583,-116.7525872 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
   plot -180 with lines lc rgb '#999999' dt 2 notitle, \
        '../series/frequency_classical.csv' using 1:3 with lines lc rgb '#c26a1b' lw 2 title 'classical', \
        '../series/frequency_optimized.csv' using 1:3 with lines lc rgb '#1f5f99' lw 2 title 'optimized', \
