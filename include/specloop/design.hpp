@@ -189,7 +189,7 @@ Design measure_design(const Problem& problem, std::string name, const Controller
 /// kEffortAmplification × its final value; a search parameter within 0.1 % (log scale) of a bound.
 std::vector<std::string> fragility_warnings(const Problem& problem, const Design& d, bool searched);
 inline constexpr double kDelayMarginFloor = 1e-4;     // s
-inline constexpr double kEffortAmplification = 1e3;
+inline constexpr double kEffortAmplification = 100.0;
 /// The time a peak-time requirement reads (README, "Metric definitions"): the time of the peak
 /// when the peak is visible — the overshoot exceeds the settling band (`band_pct`) and the
 /// response never falls further below y∞ after the peak than the peak rose above it (a decaying
