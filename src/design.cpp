@@ -46,7 +46,14 @@ std::vector<Requirement> requirement_list(const Requirements& r) {
 std::optional<double> effective_peak_time(const StepMetrics& m, double band_pct, double margin) {
   const bool visible = m.peak_time_s && m.overshoot_pct > band_pct * (1.0 + margin) &&
                        m.post_peak_dip_pct <= m.overshoot_pct * (1.0 - margin);
-  return visible ? m.peak_time_s : m.settling_time_s;
+  if (!visible) return m.settling_time_s;
+  // With a margin, a later hump within the margin's fraction of the overshoot (beyond the tie
+  // tolerance) counts as the peak too: the search keeps away from the knife edge where two humps
+  // trade places under a tiny change of the plant.
+  if (margin > 0.0 && m.next_peak_time_s &&
+      m.next_peak_gap_pct <= kPeakTieFraction * 100.0 + margin * m.overshoot_pct)
+    return m.next_peak_time_s;
+  return m.peak_time_s;
 }
 
 std::optional<double> requirement_value(const Requirement& r, const StepMetrics& m,
