@@ -148,7 +148,6 @@ DESIGNS = ("reference", "classical", "ultimate_gain", "optimized")
 KNOWN_FAILING = {
     # verdict branch (issue 11 §1): met / exit 0 must come from the loop the spec describes
     "specs/oven_heater/described/peak_time_ratio": "verdict: linear-only verdict; the 0–6 kW heater saturates (4.57 vs 0.8)",
-    "specs/pump_pressure/described/peak_time_ratio": "verdict + metrics: linear-only verdict; speed read at the first band entry",
     "claims/dryer_delay/described/settling_time_max": "verdict: with the exact 2 s delay the loop settles at 41.2 s > 40 s",
     "claims/fan_saturating/described/settling_time_max": "verdict: with the ±25 V drive the P loop never settles (linear: 0.12 s)",
     "claims/gimbal_resonance/described/settling_time_max": "verdict + metrics: the band exit at 6.82 s is missed",
