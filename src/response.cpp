@@ -1143,7 +1143,30 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   const double peak_n = peak.v * inv;
   if (peak_n > 1.0 + 1e-9) {
     m.overshoot_pct = (peak_n - 1.0) * 100.0;
+    // The peak time: the latest hump within kPeakTieFraction of the highest (two humps of nearly
+    // equal height are one knife edge apart; the later one is the conservative reading), then
+    // the highest hump after it (StepMetrics::next_peak_*, what the search's margin reads).
+    const Found top = peak;
+    for (int w = std::max(0, top.j) / 64; w < bits.words(); ++w)
+      for (std::uint64_t c = bits.turns(w, f_follows_y, true) & bits.beyond(w, f_follows_y); c; c &= c - 1) {
+        const int k = 64 * w + std::countr_zero(c);
+        if (k <= peak.j + 1 || fn(k) + reach(k) < peak_n - 1.0 - kPeakTieFraction) continue;
+        const Found f = polish(refine_extremum(y, interval_y, k, sign), 0, sign);
+        if (f.v * inv >= peak_n - kPeakTieFraction && time_of(f) > time_of(peak)) peak = f;
+      }
     m.peak_time_s = time_of(peak);
+    std::optional<Found> next;
+    for (int w = std::max(0, peak.j) / 64; w < bits.words(); ++w)
+      for (std::uint64_t c = bits.turns(w, f_follows_y, true) & bits.beyond(w, f_follows_y); c; c &= c - 1) {
+        const int k = 64 * w + std::countr_zero(c);
+        if (k <= peak.j + 1 || (next && fn(k) + reach(k) < next->v * inv - 1.0)) continue;
+        const Found f = refine_extremum(y, interval_y, k, sign);
+        if (time_of(f) > *m.peak_time_s && (!next || sign * f.v > sign * next->v)) next = f;
+      }
+    if (next) {
+      m.next_peak_time_s = time_of(*next);
+      m.next_peak_gap_pct = std::max(0.0, (peak_n - next->v * inv) * 100.0);
+    }
     // The deepest fall below y∞ after the peak: sample minima of f below y∞, refined likewise.
     Found dip{y_inf, -1, 0.0};
     for (int w = std::max(0, peak.j) / 64; w < bits.words(); ++w)

@@ -196,7 +196,9 @@ inline constexpr double kEffortAmplification = 100.0;
 /// oscillation) — else the final entry into the band (the settling time), so that no response
 /// is credited with a time after which it still leaves the band. `margin` (a fraction, the
 /// search's) makes both tests stricter: the overshoot must exceed band_pct·(1 + margin) and the
-/// dip stay below overshoot·(1 − margin). Used by the requirement checks, the search and
+/// dip stay below overshoot·(1 − margin), and a later hump (StepMetrics::next_peak_time_s) whose
+/// height is within kPeakTieFraction + margin·overshoot of the peak is read instead of the peak
+/// (two humps near a tie: the later one). Used by the requirement checks, the search and
 /// sweep-report, so all three read the same time.
 std::optional<double> effective_peak_time(const StepMetrics& m, double band_pct, double margin = 0.0);
 
