@@ -1641,6 +1641,45 @@ class SampledHybrid:
         return x
 
 
+def discrete_loop(Ap, Bp, Cp, ts, drn, dyn, dden, md=0):
+    """The loop at the samples: scipy.signal.cont2discrete(method="zoh") of the plant, closed with
+    the difference equation U = (drn·R − dyn·Y)/dden (z⁻¹ coefficients, ascending) and md whole
+    periods of delay on u. Returns A, B (r column), C (y row) of x[k+1] = A·x[k] + B·r."""
+    Ad, Bd, Cd, _, _ = signal.cont2discrete((Ap, Bp.reshape(-1, 1), Cp.reshape(1, -1), np.zeros((1, 1))), ts, method="zoh")
+    size = max(len(drn), len(dyn), len(dden))
+    pad = lambda p: np.pad(np.asarray(p, float), (0, size - len(p)))
+    drn, dyn, dden = pad(drn), pad(dyn), pad(dden)
+    # observable form of U = (drn·R − dyn·Y)/dden in z (the z⁻¹ coefficients are z's, highest first)
+    Ac, Bc, Cc, Dc = realize(dyn, dden)
+    _, _, Ccr, Dcr = realize(drn, dden)
+    Ao, Co, By, Br = Ac.T, Bc, Cc, Ccr
+    npl, nc = Ad.shape[0], len(Co)
+    n = npl + nc + md
+    A = np.zeros((n, n))
+    B = np.zeros((n, 1))
+    # u = Co·xc + Dcr·r − Dc·y, y = Cd·xp
+    A[:npl, :npl] = Ad
+    ucol = np.zeros(n)
+    ucol[:npl] = -Dc * Cd[0]
+    ucol[npl:npl + nc] = Co
+    if md == 0:
+        A[:npl, :] += np.outer(Bd[:, 0], ucol)
+        B[:npl, 0] += Bd[:, 0] * Dcr
+    else:
+        A[:npl, npl + nc + md - 1] += Bd[:, 0]
+        A[npl + nc, :] += ucol
+        B[npl + nc, 0] += Dcr
+        for j in range(1, md):
+            A[npl + nc + j, npl + nc + j - 1] = 1.0
+    if nc:
+        A[npl:npl + nc, :npl] -= np.outer(By, Cd[0])
+        A[npl:npl + nc, npl:npl + nc] += Ao
+        B[npl:npl + nc, 0] += Br
+    C = np.zeros((1, n))
+    C[0, :npl] = Cd[0]
+    return A, B, C
+
+
 def sample_pieces(pieces, times):
     """y and u at `times` from pieces (left limit at a boundary), exact evaluators."""
     ends = np.array([p.t[-1] for p in pieces])
@@ -1839,6 +1878,53 @@ class SpecOracle:
     def measure_linear(self, loop):
         T = loop.horizon()
         pieces, y_inf = linear_trace(loop, self.r, EXTEND * T, self.h_rho, self.max_pts)
+        m = measure(pieces, y_inf, self.r, self.band, T)
+        m["_horizon"] = T
+        return m, pieces
+
+    def is_sampled(self, design):
+        """The design's linear metrics are of the sampled loop (README, "Sampled controllers in the
+        design": controller.sample_time set, a strictly proper plant; result.json simulated_loop)."""
+        return design.get("simulated_loop") == "sampled"
+
+    def measure_sampled(self, design, ln=None, ld=None):
+        """The linear loop of a sampled controller, rebuilt independently: the linear model (plant ×
+        Padé, as the tool's linear loop) through a zero-order hold, driven at k·Ts by the documented
+        digital law (parallel_difference_equation, or Tustin of C(s)), no limits; the plant integrated
+        exactly between samples (SampledHybrid: matrix exponential), so the output between samples is
+        seen. y∞ and the horizon T (slowest discrete mode decayed to 1e-4) from the discrete loop
+        (cont2discrete(zoh) closed with the same law). Returns (metrics, pieces)."""
+        ln = self.ln if ln is None else ln
+        ld = self.ld if ld is None else ld
+        c = design["controller"]
+        ctl = self.spec["controller"]
+        ts = float(ctl["sample_time"])
+        b = float(ctl["setpoint_weight"])
+        cw = 0.0 if ctl["derivative_on"] == "measurement" else 1.0
+        par = c.get("parallel")
+        parallel = (float(par["kp"]), float(par["ki"]), float(par["kd"]), float(par["filter_time"])) if par else None
+        if parallel is not None:
+            rn, yn, den = parallel_difference_equation(*parallel, b, cw, ts)
+        else:
+            rn, yn, den = tustin_difference_equation(strip(c["numerator"]), strip(c["denominator"]), ts)
+        Ap, Bp, Cp, Dp = realize(ln, ld)
+        if Dp != 0.0:
+            raise NotImplementedError("biproper plant: the tool keeps the continuous loop")
+        A, B, C = discrete_loop(Ap, Bp, Cp, ts, rn, yn, den)
+        lam = np.abs(np.linalg.eigvals(A))
+        if np.max(lam) >= 1.0 - 1e-12:
+            return None, None
+        y_inf = float((C @ np.linalg.solve(np.eye(len(A)) - A, B))[0, 0]) * self.r
+        rates = -np.log(lam[lam > 0]) / ts
+        T = math.log(1.0 / HORIZON_DECAY) / float(np.min(rates)) if len(rates) else ts
+        if EXTEND * T / ts > (2_000_000 if self.long else 200_000):
+            raise NotImplementedError(f"{EXTEND * T / ts:.0f} controller periods")
+        loop = DescribedLoop(plant=("linear", Ap, Bp, Cp), parallel=parallel, ctrl_tf=(strip(c["numerator"]), strip(c["denominator"])),
+                             b=b, c=cw, umin=-math.inf, umax=math.inf, rate=None, anti_windup="none", tt=None, r=self.r,
+                             td=0.0, dsize=0.0, noise_rms=0.0, noise_period=ts, seed=0, delay=0.0, horizon=T, ts=ts,
+                             de=(rn, yn, den), structure=c["structure"])
+        rho = float(np.max(np.abs(np.linalg.eigvals(Ap)))) if len(Bp) else 1.0
+        pieces, _ = SampledHybrid(loop, max(rho, 1.0 / (EXTEND * T))).run(EXTEND * T)
         m = measure(pieces, y_inf, self.r, self.band, T)
         m["_horizon"] = T
         return m, pieces
@@ -2094,9 +2180,18 @@ class SpecOracle:
             np.min(np.abs(loop.poles - p)) <= 1e-6 * max(1.0, abs(p)) for p in poles)
         F.check(f"{name}/linear/poles", matched, "closed-loop poles = eig(A) of the rebuilt loop",
                 f"{len(poles)} reported, {len(loop.poles)} rebuilt")
-        if not F.check(f"{name}/linear/stable", loop.stable(), "the rebuilt linear loop is stable (status ok)"):
-            return None
-        m, pieces = self.measure_linear(loop)
+        if self.is_sampled(d):
+            try:
+                m, pieces = self.measure_sampled(d)
+            except NotImplementedError as exc:
+                F.note(f"{name}: sampled loop not rebuilt ({exc})")
+                return None
+            if not F.check(f"{name}/linear/stable", m is not None, "the rebuilt sampled loop is stable (status ok)"):
+                return None
+        else:
+            if not F.check(f"{name}/linear/stable", loop.stable(), "the rebuilt linear loop is stable (status ok)"):
+                return None
+            m, pieces = self.measure_linear(loop)
         T = m["_horizon"]
         self._u_range = (m["_umin"], m["_umax"])
         self.compare_metrics(f"{name}/linear/metric", d["simulated"], m, T, nonlinear=False,
@@ -2192,38 +2287,8 @@ class SpecOracle:
             return
         md = int(round(m_delay))
         _, Ap, Bp, Cp = loop_d.plant
-        Ad, Bd, Cd, _, _ = signal.cont2discrete((Ap, Bp.reshape(-1, 1), Cp.reshape(1, -1), np.zeros((1, 1))), ts, method="zoh")
         drn, dyn, dden = (np.asarray(de[k], float) for k in ("reference_numerator", "measurement_numerator", "denominator"))
-        size = max(len(drn), len(dyn), len(dden))
-        pad = lambda p: np.pad(p, (0, size - len(p)))
-        drn, dyn, dden = pad(drn), pad(dyn), pad(dden)
-        # observable form of U = (drn·R − dyn·Y)/dden in z (the z⁻¹ coefficients are z's, highest first)
-        Ac, Bc, Cc, Dc = realize(dyn, dden)
-        _, _, Ccr, Dcr = realize(drn, dden)
-        Ao, Co, By, Br = Ac.T, Bc, Cc, Ccr
-        npl, nc = Ad.shape[0], len(Co)
-        n = npl + nc + md
-        A = np.zeros((n, n))
-        B = np.zeros((n, 1))
-        # u = Co·xc + Dcr·r − Dc·y, y = Cd·xp
-        A[:npl, :npl] = Ad
-        ucol = np.zeros(n)
-        ucol[:npl] = -Dc * Cd[0]
-        ucol[npl:npl + nc] = Co
-        if md == 0:
-            A[:npl, :] += np.outer(Bd[:, 0], ucol)
-            B[:npl, 0] += Bd[:, 0] * Dcr
-        else:
-            A[:npl, npl + nc + md - 1] += Bd[:, 0]
-            A[npl + nc, :] += ucol
-            B[npl + nc, 0] += Dcr
-            for j in range(1, md):
-                A[npl + nc + j, npl + nc + j - 1] = 1.0
-        A[npl:npl + nc, :npl] -= np.outer(By, Cd[0])
-        A[npl:npl + nc, npl:npl + nc] += Ao
-        B[npl:npl + nc, 0] += Br
-        C = np.zeros((1, n))
-        C[0, :npl] = Cd[0]
+        A, B, C = discrete_loop(Ap, Bp, Cp, ts, drn, dyn, dden, md)
         steps = len(eng.samples_t)
         _, yd_, _ = signal.dlsim((A, B, C, np.zeros((1, 1)), ts), np.full(steps, self.r), t=np.arange(steps) * ts)
         diff = float(np.max(np.abs(yd_[:, 0] - np.array(eng.samples_y)))) / max(abs(self.r), 1e-300)
@@ -2280,11 +2345,17 @@ class SpecOracle:
                     ln, ld = np.polymul(gn, pn), np.polymul(gd, pd)
                 else:
                     ln, ld = gn, gd
-                loop = self.linear_loop(d, ln, ld)
-                if not loop.stable():
-                    F.check(f"{name}/perturb/{k}/stable", False, f"perturbed plant ({pattern}): loop stable")
-                    continue
-                m, _ = self.measure_linear(loop)
+                if self.is_sampled(d):
+                    m, _ = self.measure_sampled(d, ln, ld)
+                    if m is None:
+                        F.check(f"{name}/perturb/{k}/stable", False, f"perturbed plant ({pattern}): sampled loop stable")
+                        continue
+                else:
+                    loop = self.linear_loop(d, ln, ld)
+                    if not loop.stable():
+                        F.check(f"{name}/perturb/{k}/stable", False, f"perturbed plant ({pattern}): loop stable")
+                        continue
+                    m, _ = self.measure_linear(loop)
                 mg = self.margins_of(d, gn=ln, gd=ld) if d.get("margins") is not None else None
                 self._perturb_checks(name, k, pattern, d["checks"], m, mg, tref, CLAIM_LINEAR)
         else:
