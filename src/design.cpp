@@ -657,8 +657,9 @@ Design measure_design(const Problem& problem, std::string name, const Controller
       d.notes.push_back(std::string("sampled loop: ") + e.what());
     }
     d.notes.push_back(fmt::format("linear metrics on the sampled loop (controller at Ts = {:.4g} s, zero-order hold, the "
-                                  "plant's output between samples included); closed-loop poles, margins and the "
-                                  "second-order prediction are those of the continuous C(s)·G(s)",
+                                  "plant's output between samples included); closed-loop poles, margins, the "
+                                  "second-order prediction and the dominance diagnosis (its simulated response too) "
+                                  "are those of the continuous C(s)·G(s)",
                                   cs.sample_time_s));
   }
   const ClosedLoopTF cl = close_loop(problem.plant, controller.transfer);

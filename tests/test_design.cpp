@@ -309,3 +309,24 @@ TEST_CASE("the search ends on the loop the spec describes when an effect acts; t
     CHECK(refined.met);
   }
 }
+
+TEST_CASE("a sampled spec's reference P gain is aimed on the sampled loop it is measured on", "[reference]") {
+  // An invented linear stage (two lags) with a 100 Hz digital P: the hold's lag adds overshoot, so
+  // analyze's gain (continuous loop at the limit) overshoots the limit on the sampled loop.
+  const Spec spec = parse_spec(
+      "[plant]\npoles = [-3.0, -20.0]\ngain = 120.0\n[controller]\nstructure = \"p\"\nsample_time = 0.01\n"
+      "[requirements]\novershoot_max_pct = 10.0\n[search]\nmax_evaluations = 60\n",
+      "specs/unit.toml");
+  const DesignRun run = run_design(spec);
+  const Design* ref = run.find("reference");
+  REQUIRE(ref);
+  REQUIRE(ref->sampled);
+  REQUIRE(ref->status == StepStatus::ok);
+  REQUIRE(run.characterization.reference);
+  CHECK_THAT(ref->simulated.overshoot_pct, WithinAbs(10.0, 0.01));
+  CHECK(ref->simulated.overshoot_pct <= 10.0);
+  const double k_ref = ref->controller.transfer.numerator.constant();
+  CHECK(k_ref < 0.95 * run.characterization.reference->gain);  // the continuous gain overshoots here
+  REQUIRE(run.problem.reference_peak_time_s);
+  CHECK(*run.problem.reference_peak_time_s == *ref->simulated.peak_time_s);
+}
