@@ -65,7 +65,9 @@ std::optional<double> requirement_value(const Requirement& r, const StepMetrics&
   if (k == "settling_time_max") return m.settling_time_s;
   if (k == "rise_time_max") return m.rise_time_s;
   if (k == "steady_state_error_max") return m.steady_state_error;  // signed; the bound is on |e∞|
-  if (k == "effort_max") return m.effort_peak;
+  // the controller's output: on the nonlinear loop before the actuator's limits (a design that
+  // rides the saturation does not meet effort_max by clipping), on the linear loop u itself
+  if (k == "effort_max") return m.command_peak.value_or(m.effort_peak);
   if (!margins) return std::nullopt;
   if (k == "phase_margin_min_deg") return margins->phase_margin_deg.value_or(kInf);
   if (k == "gain_margin_min_db") return margins->gain_margin_db.value_or(kInf);

@@ -913,6 +913,10 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     return result;
   };
   std::size_t next_sample = 0;
+  // Peaks of the applied u and of the command, exact where they sit: at 0+ (the proportional and
+  // derivative kick), at every switch and restart (both sides) and at every accepted step's end,
+  // besides the output samples (a kick or a corner of the rate limit lies between samples).
+  double peak_applied = 0.0, peak_command = 0.0;
 
   if (period > 0.0) {
     // ---- Sampled controller: zero-order hold (with slew), plant integrated between switches.
@@ -979,6 +983,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
             const double uc = ctl.update(amplitude, y);
             if (!std::isfinite(uc)) return halt(NonlinearStatus::non_finite, "the controller output became non-finite at t = " + to_string(tk) + " s");
             commands.push_back(uc);
+            peak_command = std::max(peak_command, std::abs(uc));
             // Saturated: the command beyond a limit at this sample, as first computed (before the
             // conditional integration held the integrator) or as returned.
             const double highest = std::max(ctl.tentative, uc), low = std::min(ctl.tentative, uc);
@@ -1001,6 +1006,9 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
               knots.push_back({tk, tk + delay, target, 0.0});
             }
             ctl.ua_prev = end_value;
+            // the applied u is piecewise linear between knots: its peak is at one (or at the horizon)
+            for (std::size_t i = knots.size() - (knots.back().t > tk ? 2 : 1); i < knots.size(); ++i)
+              if (knots[i].t < horizon) peak_applied = std::max(peak_applied, std::abs(knots[i].value));
             for (std::size_t i = knots.size() - (knots.back().t > tk ? 2 : 1); i < knots.size(); ++i)
               if (knots[i].plant_t < horizon) breaks.insert(knots[i].plant_t);
             ++k;
@@ -1106,6 +1114,10 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
         line.segments.push_back(seg);
       };
 
+      auto note_peaks = [&](const double* xs, const Modes& m) {
+        peak_command = std::max(peak_command, std::abs(model.command(xs)));
+        peak_applied = std::max(peak_applied, std::abs(model.applied(xs, m)));
+      };
       double dt = std::min(horizon / 4000.0, max_dt);
       if (options.first_step_s > 0.0) dt = std::min(dt, options.first_step_s);
       Modes modes;
@@ -1138,6 +1150,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
             modes = model.choose(x.data(), modes, disturbance, scratch.data(), i < 2, t);
             if (model.consistent(x.data(), modes, disturbance, scratch.data(), t)) break;
           }
+          note_peaks(x.data(), modes);  // right limit at the restart (0+: the kick)
           record_until(t, true, modes, [&](double) { return x.data(); });
           const HeldModeSystem system{&model, modes, disturbance};
           dense.initialize(x, t, std::min(dt, t_end - t));
@@ -1171,10 +1184,12 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
               if (modes.rate != RateMode::tracking) slewing_time += hi - ta;
               if (model.clamps() && (!modes.integrating || modes.sliding)) held_time += hi - ta;
               dense.calc_state(hi, x);
+              note_peaks(x.data(), modes);  // left limit at the switch
               t = hi;
               ++result.switches;
               break;
             }
+            note_peaks(xe.data(), modes);
             store(ta, tc, modes);
             record_until(tc, inclusive || tb < t_end, modes, dense_at);
             if (modes.sat != 0) saturated_time += tc - ta;
@@ -1225,6 +1240,10 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     result.command_excess_max = std::max(result.command_excess_max, std::max(uc - model.umax, model.umin - uc));
   if (std::isfinite(y_inf) && std::abs(y_inf) > 1e-12 * std::abs(amplitude)) {
     result.metrics = measure(result.time_s, result.output, result.control, y_inf, amplitude, band_fraction);
+    result.metrics.effort_peak = std::max(result.metrics.effort_peak, peak_applied);
+    double command_peak = peak_command;
+    for (double uc : result.command) command_peak = std::max(command_peak, std::abs(uc));
+    result.metrics.command_peak = command_peak;
     result.measured = true;
     result.notes.push_back("metrics relative to the linear loop's final value y_inf = " + to_string(y_inf));
   } else {
