@@ -25,6 +25,7 @@
 #include <string>
 
 #include <Eigen/Dense>
+#include <boost/math/tools/roots.hpp>
 #include <boost/numeric/odeint.hpp>
 
 #include "implicit_stepper.hpp"
@@ -429,7 +430,7 @@ Vertex parabola_vertex(const std::vector<double>& t, const std::vector<double>& 
 // inside it) come from the parabola through the three samples around each sample extremum that
 // could matter, not from the samples alone.
 StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, const std::vector<double>& u,
-                    double y_inf, double amplitude, double band) {
+                    double y_inf, double amplitude, double band, const std::vector<std::pair<double, double>>& exact) {
   StepMetrics m;
   m.final_value = y_inf;
   m.steady_state_error = (amplitude - y_inf) / amplitude;
@@ -444,7 +445,13 @@ StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, 
   auto is_min = [&](int k) { return yn[k] <= yn[k - 1] && yn[k] <= yn[k + 1]; };
   const int k_hi = static_cast<int>(std::max_element(yn.begin(), yn.end()) - yn.begin());
   double peak = yn[k_hi], t_peak = t[k_hi];
-  for (int k = 1; k + 1 < K; ++k) {
+  // `exact`: the integration's own extrema (y' = 0 located on the dense output) and y at every
+  // step end, switch and restart — the values there are the integrator's, so with them no
+  // parabola is needed (its vertex misses a sharp or skewed extremum by up to 1e-3 of y∞).
+  const bool located = !exact.empty();
+  for (const auto& [te, ye] : exact)
+    if (ye / y_inf > peak) peak = ye / y_inf, t_peak = te;
+  for (int k = 1; k + 1 < K && !located; ++k) {
     if (!is_max(k) || yn[k] + reach(k) < peak) continue;
     const Vertex v = parabola_vertex(t, yn, k);
     if (v.v > peak) {
@@ -458,13 +465,20 @@ StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, 
     double dip = 1.0;  // lowest yn after the peak
     for (int k = 1; k + 1 < K; ++k) {
       if (t[k + 1] <= t_peak || !is_min(k) || yn[k] - reach(k) > dip) continue;
+      if (located) {
+        if (t[k] > t_peak) dip = std::min(dip, yn[k]);
+        continue;
+      }
       const Vertex v = parabola_vertex(t, yn, k);
       if (v.t > t_peak) dip = std::min(dip, std::min(v.v, yn[k]));
     }
+    for (const auto& [te, ye] : exact)
+      if (te > t_peak) dip = std::min(dip, ye / y_inf);
     m.post_peak_dip_pct = (1.0 - dip) * 100.0;
   }
   double low = *std::min_element(yn.begin(), yn.end());
-  for (int k = 1; k + 1 < K; ++k)
+  for (const auto& [te, ye] : exact) low = std::min(low, ye / y_inf);
+  for (int k = 1; k + 1 < K && !located; ++k)
     if (yn[k] < 0.0 && is_min(k) && yn[k] - reach(k) < low) low = std::min(low, parabola_vertex(t, yn, k).v);
   m.undershoot_pct = std::max(0.0, -low) * 100.0;
   int k10 = -1, k90 = -1;
@@ -917,6 +931,46 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   // derivative kick), at every switch and restart (both sides) and at every accepted step's end,
   // besides the output samples (a kick or a corner of the rate limit lies between samples).
   double peak_applied = 0.0, peak_command = 0.0;
+  // y at every step end, switch and restart, and at every y' = 0 inside a step (located on the
+  // dense output by TOMS 748): the extrema the metrics read, exact to the integrator's tolerance.
+  std::vector<std::pair<double, double>> exact_y;
+  // One accepted step [ta, tb] of a dense stepper with state rate `rate(x, dx, t)`: y at tb, and
+  // the interior extremum when y' changes sign (its value at ta kept in `rates_prev`, NaN:
+  // unknown). `command_extremum` (continuous controller; null: sampled, u held) is called at each
+  // interior extremum of the command, where u_c' changes sign, located the same way.
+  State ext_x, ext_dx;
+  auto note_step = [&](auto& dense, double ta, double tb, const State& xb, std::array<double, 2>& rates_prev, auto&& rate,
+                       auto&& command_extremum, bool continuous_command) {
+    ext_x.resize(xb.size());
+    ext_dx.resize(xb.size());
+    auto rates = [&](const double* xs, double time) -> std::array<double, 2> {
+      rate(xs, ext_dx.data(), time);
+      return {model.pm ? model.pm->output_rate(xs, ext_dx.data()) : model.output(ext_dx.data()),
+              continuous_command ? model.command_rate(xs, ext_dx.data()) : 0.0};
+    };
+    if (std::isnan(rates_prev[0])) {
+      dense.calc_state(ta, ext_x);
+      rates_prev = rates(ext_x.data(), ta);
+    }
+    const std::array<double, 2> rates_b = rates(xb.data(), tb);
+    for (std::size_t which = 0; which < 2; ++which) {
+      if (!(tb > ta) || !(rates_prev[which] * rates_b[which] < 0.0)) continue;
+      auto f = [&](double time) {
+        dense.calc_state(time, ext_x);
+        return rates(ext_x.data(), time)[which];
+      };
+      boost::uintmax_t iterations = 60;
+      const auto [lo, hi] = boost::math::tools::toms748_solve(f, ta, tb, rates_prev[which], rates_b[which],
+                                                             boost::math::tools::eps_tolerance<double>(50), iterations);
+      for (double te : {lo, hi}) {
+        dense.calc_state(te, ext_x);
+        if (which == 0) exact_y.emplace_back(te, model.output(ext_x.data()));
+        else command_extremum(ext_x.data());
+      }
+    }
+    exact_y.emplace_back(tb, model.output(xb.data()));
+    rates_prev = rates_b;
+  };
 
   if (period > 0.0) {
     // ---- Sampled controller: zero-order hold (with slew), plant integrated between switches.
@@ -1025,18 +1079,22 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
             PlantSystem system{&model, kn.slope == 0.0 ? kn.value : kn.value + kn.slope * (t - kn.plant_t), kn.slope, t,
                                disturbance_at(t)};
             dense.initialize(x, t, std::min(dt, t_end - t));
+            std::array<double, 2> rates_prev{std::numeric_limits<double>::quiet_NaN(), 0.0};  // y' jumps with the hold
+            auto plant_rate = [&](const double* xs, double* dx, double time) { system.evaluate(xs, dx, time); };
+            exact_y.emplace_back(t, model.output(x.data()));
             while (true) {
               if (++work > options.max_steps)
                 return halt(NonlinearStatus::step_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_steps = " + to_string(options.max_steps) + " reached");
               if (wall() > options.max_wall_time_s)
                 return halt(NonlinearStatus::time_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_wall_time_s = " + to_string(options.max_wall_time_s) + " reached");
-              const double tb = step_within_domain(dense, system, work, domain_retries).second;
+              const auto [ta, tb] = step_within_domain(dense, system, work, domain_retries);
               ++result.steps;
               dt = dense.current_time_step();
               const double tc = std::min(tb, t_end);
               if (tb <= t_end) xe = dense.current_state();
               else dense.calc_state(tc, xe);
               if (!all_finite(xe)) return halt(NonlinearStatus::non_finite, "the state became non-finite near t = " + to_string(tc) + " s");
+              note_step(dense, ta, tc, xe, rates_prev, plant_rate, [](const double*) {}, false);
               while (next_sample < samples.size() && samples[next_sample] < tc) {
                 dense.calc_state(samples[next_sample], scratch);
                 record(samples[next_sample++], scratch);
@@ -1153,6 +1211,12 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
           note_peaks(x.data(), modes);  // right limit at the restart (0+: the kick)
           record_until(t, true, modes, [&](double) { return x.data(); });
           const HeldModeSystem system{&model, modes, disturbance};
+          std::array<double, 2> rates_prev{std::numeric_limits<double>::quiet_NaN(), 0.0};  // y', u_c' jump at a restart
+          auto command_extremum = [&](const double* xs) { note_peaks(xs, modes); };
+          auto loop_rate = [&](const double* xs, double* dx, double time) {
+            model.derivative(xs, dx, modes, disturbance, time);
+          };
+          exact_y.emplace_back(t, model.output(x.data()));
           dense.initialize(x, t, std::min(dt, t_end - t));
           while (true) {
             if (++work > options.max_steps)
@@ -1185,11 +1249,13 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
               if (model.clamps() && (!modes.integrating || modes.sliding)) held_time += hi - ta;
               dense.calc_state(hi, x);
               note_peaks(x.data(), modes);  // left limit at the switch
+              note_step(dense, ta, hi, x, rates_prev, loop_rate, command_extremum, true);
               t = hi;
               ++result.switches;
               break;
             }
             note_peaks(xe.data(), modes);
+            note_step(dense, ta, tc, xe, rates_prev, loop_rate, command_extremum, true);
             store(ta, tc, modes);
             record_until(tc, inclusive || tb < t_end, modes, dense_at);
             if (modes.sat != 0) saturated_time += tc - ta;
@@ -1239,7 +1305,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   for (double uc : result.command)
     result.command_excess_max = std::max(result.command_excess_max, std::max(uc - model.umax, model.umin - uc));
   if (std::isfinite(y_inf) && std::abs(y_inf) > 1e-12 * std::abs(amplitude)) {
-    result.metrics = measure(result.time_s, result.output, result.control, y_inf, amplitude, band_fraction);
+    result.metrics = measure(result.time_s, result.output, result.control, y_inf, amplitude, band_fraction, exact_y);
     result.metrics.effort_peak = std::max(result.metrics.effort_peak, peak_applied);
     double command_peak = peak_command;
     for (double uc : result.command) command_peak = std::max(command_peak, std::abs(uc));
