@@ -443,44 +443,94 @@ StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, 
   auto reach = [&](int k) { return 0.5 * std::abs(2.0 * yn[k] - yn[k - 1] - yn[k + 1]); };
   auto is_max = [&](int k) { return yn[k] >= yn[k - 1] && yn[k] >= yn[k + 1]; };
   auto is_min = [&](int k) { return yn[k] <= yn[k - 1] && yn[k] <= yn[k + 1]; };
-  const int k_hi = static_cast<int>(std::max_element(yn.begin(), yn.end()) - yn.begin());
-  double peak = yn[k_hi], t_peak = t[k_hi];
-  // `exact`: the integration's own extrema (y' = 0 located on the dense output) and y at every
-  // step end, switch and restart — the values there are the integrator's, so with them no
-  // parabola is needed (its vertex misses a sharp or skewed extremum by up to 1e-3 of y∞).
-  const bool located = !exact.empty();
-  for (const auto& [te, ye] : exact)
-    if (ye / y_inf > peak) peak = ye / y_inf, t_peak = te;
-  for (int k = 1; k + 1 < K && !located; ++k) {
-    if (!is_max(k) || yn[k] + reach(k) < peak) continue;
-    const Vertex v = parabola_vertex(t, yn, k);
-    if (v.v > peak) {
-      peak = v.v;
-      t_peak = v.t;
-    }
-  }
-  if (peak > 1.0 + 1e-9) {
-    m.overshoot_pct = (peak - 1.0) * 100.0;
-    m.peak_time_s = t_peak;
-    double dip = 1.0;  // lowest yn after the peak
-    for (int k = 1; k + 1 < K; ++k) {
-      if (t[k + 1] <= t_peak || !is_min(k) || yn[k] - reach(k) > dip) continue;
-      if (located) {
-        if (t[k] > t_peak) dip = std::min(dip, yn[k]);
-        continue;
+  if (!exact.empty()) {
+    // `exact`: y at every step end, switch and restart and at every y' = 0 located inside a step
+    // on the dense output — the integrator's own values, so no parabola is needed (its vertex
+    // misses a sharp or skewed extremum by up to 1e-3 of y∞). Merged with the samples into one
+    // time series; its local maxima and minima are the humps and dips.
+    std::vector<std::pair<double, double>> series;
+    series.reserve(t.size() + exact.size());
+    for (int k = 0; k < K; ++k) series.emplace_back(t[k], yn[k]);
+    const auto mid = series.size();
+    for (const auto& [te, ye] : exact) series.emplace_back(te, ye / y_inf);
+    std::inplace_merge(series.begin(), series.begin() + static_cast<std::ptrdiff_t>(mid), series.end(),
+                       [](const auto& p, const auto& q) { return p.first < q.first; });
+    const std::size_t n = series.size();
+    auto local_max = [&](std::size_t i) {
+      return i > 0 && i + 1 < n && series[i].second >= series[i - 1].second && series[i].second >= series[i + 1].second;
+    };
+    std::size_t i_hi = 0;
+    for (std::size_t i = 1; i < n; ++i)
+      if (series[i].second > series[i_hi].second) i_hi = i;
+    const double peak = series[i_hi].second;
+    if (peak > 1.0 + 1e-9) {
+      m.overshoot_pct = (peak - 1.0) * 100.0;
+      // The latest hump within kPeakTieFraction of the highest is the peak time's (StepMetrics),
+      // then the highest hump after it.
+      std::size_t i_peak = i_hi;
+      for (std::size_t i = i_hi + 1; i < n; ++i)
+        if (local_max(i) && series[i].second >= peak - kPeakTieFraction) i_peak = i;
+      const double t_peak = series[i_peak].first;
+      m.peak_time_s = t_peak;
+      double next = -std::numeric_limits<double>::infinity(), dip = 1.0;
+      for (std::size_t i = i_peak + 1; i < n; ++i) {
+        if (series[i].first <= t_peak) continue;
+        dip = std::min(dip, series[i].second);
+        if (local_max(i) && series[i].second > 1.0 && series[i].second > next) {
+          next = series[i].second;
+          m.next_peak_time_s = series[i].first;
+        }
       }
-      const Vertex v = parabola_vertex(t, yn, k);
-      if (v.t > t_peak) dip = std::min(dip, std::min(v.v, yn[k]));
+      if (m.next_peak_time_s) m.next_peak_gap_pct = std::max(0.0, (peak - next) * 100.0);
+      m.post_peak_dip_pct = (1.0 - dip) * 100.0;
     }
-    for (const auto& [te, ye] : exact)
-      if (te > t_peak) dip = std::min(dip, ye / y_inf);
-    m.post_peak_dip_pct = (1.0 - dip) * 100.0;
+    double low = 0.0;
+    for (const auto& [ts, v] : series) low = std::min(low, v);
+    m.undershoot_pct = -low * 100.0;
+  } else {
+    const int k_hi = static_cast<int>(std::max_element(yn.begin(), yn.end()) - yn.begin());
+    double peak = yn[k_hi], t_peak = t[k_hi];
+    for (int k = 1; k + 1 < K; ++k) {
+      if (!is_max(k) || yn[k] + reach(k) < peak) continue;
+      const Vertex v = parabola_vertex(t, yn, k);
+      if (v.v > peak) {
+        peak = v.v;
+        t_peak = v.t;
+      }
+    }
+    if (peak > 1.0 + 1e-9) {
+      m.overshoot_pct = (peak - 1.0) * 100.0;
+      // The latest hump within kPeakTieFraction of the highest is the peak time's (StepMetrics),
+      // then the highest hump after it.
+      for (int k = 1; k + 1 < K; ++k) {
+        if (t[k] <= t_peak || !is_max(k) || yn[k] + reach(k) < peak - kPeakTieFraction) continue;
+        const Vertex v = parabola_vertex(t, yn, k);
+        if (v.v >= peak - kPeakTieFraction && v.t > t_peak) t_peak = v.t;
+      }
+      m.peak_time_s = t_peak;
+      double next = -std::numeric_limits<double>::infinity();
+      for (int k = 1; k + 1 < K; ++k) {
+        if (t[k] <= t_peak || !is_max(k) || yn[k] <= 1.0 || yn[k] + reach(k) < next) continue;
+        const Vertex v = parabola_vertex(t, yn, k);
+        if (v.t > t_peak && v.v > next) {
+          next = v.v;
+          m.next_peak_time_s = v.t;
+        }
+      }
+      if (m.next_peak_time_s) m.next_peak_gap_pct = std::max(0.0, (peak - next) * 100.0);
+      double dip = 1.0;  // lowest yn after the peak
+      for (int k = 1; k + 1 < K; ++k) {
+        if (t[k + 1] <= t_peak || !is_min(k) || yn[k] - reach(k) > dip) continue;
+        const Vertex v = parabola_vertex(t, yn, k);
+        if (v.t > t_peak) dip = std::min(dip, std::min(v.v, yn[k]));
+      }
+      m.post_peak_dip_pct = (1.0 - dip) * 100.0;
+    }
+    double low = *std::min_element(yn.begin(), yn.end());
+    for (int k = 1; k + 1 < K; ++k)
+      if (yn[k] < 0.0 && is_min(k) && yn[k] - reach(k) < low) low = std::min(low, parabola_vertex(t, yn, k).v);
+    m.undershoot_pct = std::max(0.0, -low) * 100.0;
   }
-  double low = *std::min_element(yn.begin(), yn.end());
-  for (const auto& [te, ye] : exact) low = std::min(low, ye / y_inf);
-  for (int k = 1; k + 1 < K && !located; ++k)
-    if (yn[k] < 0.0 && is_min(k) && yn[k] - reach(k) < low) low = std::min(low, parabola_vertex(t, yn, k).v);
-  m.undershoot_pct = std::max(0.0, -low) * 100.0;
   int k10 = -1, k90 = -1;
   for (int k = 0; k < K && k90 < 0; ++k) {
     if (k10 < 0 && yn[k] >= 0.1) k10 = k;
