@@ -455,6 +455,10 @@ StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, 
     for (const auto& [te, ye] : exact) series.emplace_back(te, ye / y_inf);
     std::inplace_merge(series.begin(), series.begin() + static_cast<std::ptrdiff_t>(mid), series.end(),
                        [](const auto& p, const auto& q) { return p.first < q.first; });
+    // One point per time: a step end that is also a restart or a sample is listed twice, and two
+    // equal neighbours on a falling slope would read as a hump (the tied-peak rule would take it).
+    series.erase(std::unique(series.begin(), series.end(), [](const auto& p, const auto& q) { return p.first == q.first; }),
+                 series.end());
     const std::size_t n = series.size();
     auto local_max = [&](std::size_t i) {
       return i > 0 && i + 1 < n && series[i].second >= series[i - 1].second && series[i].second >= series[i + 1].second;
