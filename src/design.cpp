@@ -72,7 +72,9 @@ std::optional<double> requirement_value(const Requirement& r, const StepMetrics&
   if (k == "settling_time_max") return m.settling_time_s;
   if (k == "rise_time_max") return m.rise_time_s;
   if (k == "steady_state_error_max") return m.steady_state_error;  // signed; the bound is on |e∞|
-  if (k == "effort_max") return m.effort_peak;
+  // the controller's output: on the nonlinear loop before the actuator's limits (a design that
+  // rides the saturation does not meet effort_max by clipping), on the linear loop u itself
+  if (k == "effort_max") return m.command_peak.value_or(m.effort_peak);
   if (!margins) return std::nullopt;
   if (k == "phase_margin_min_deg") return margins->phase_margin_deg.value_or(kInf);
   if (k == "gain_margin_min_db") {
@@ -669,8 +671,9 @@ Design measure_design(const Problem& problem, std::string name, const Controller
       d.notes.push_back(std::string("sampled loop: ") + e.what());
     }
     d.notes.push_back(fmt::format("linear metrics on the sampled loop (controller at Ts = {:.4g} s, zero-order hold, the "
-                                  "plant's output between samples included); closed-loop poles, margins and the "
-                                  "second-order prediction are those of the continuous C(s)·G(s)",
+                                  "plant's output between samples included); closed-loop poles, margins, the "
+                                  "second-order prediction and the dominance diagnosis (its simulated response too) "
+                                  "are those of the continuous C(s)·G(s)",
                                   cs.sample_time_s));
   }
   const ClosedLoopTF cl = close_loop(problem.plant, controller.transfer);

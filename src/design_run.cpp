@@ -5,6 +5,9 @@
 #include <optional>
 
 #include "specloop/design.hpp"
+#include "specloop/sampled_loop.hpp"
+
+#include <boost/math/tools/roots.hpp>
 
 namespace specloop {
 
@@ -112,6 +115,55 @@ Infeasibility analyze_misses(const Problem& problem, const Design& best, const S
   return info;
 }
 
+// The reference P gain of a sampled controller. analyze's gain puts the continuous loop's overshoot
+// at the limit, but every design of a sampled spec is measured (and judged) on the sampled loop,
+// where the hold's lag adds overshoot; so the reference is aimed again there: the gain is stepped
+// geometrically from analyze's (down while the sampled overshoot is above the aim, up while below)
+// until the aim is bracketed, then TOMS 748 (Boost). The aim is `aim_pct` (the limit a hair
+// below, as analyze aims). nullopt when no bracket is found within a factor of 1e3 (the
+// continuous gain is then kept, and a note says so).
+std::optional<double> sampled_reference_gain(const Problem& problem, double k0, double n, double aim_pct) {
+  const ControllerSpec& cs = problem.spec.controller;
+  SampledStepSimulator sim;
+  auto excess = [&](double k) -> std::optional<double> {
+    const Controller c = make_controller(Structure::p, {k}, n, problem.action);
+    const DifferenceEquation eq =
+        controller_difference_equation(c, cs.sample_time_s, cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0);
+    StepMetrics m;
+    if (sim.simulate(problem.plant_realization, eq, problem.spec.reference.amplitude, problem.band_fraction, m) !=
+        StepStatus::ok)
+      return std::nullopt;  // unstable: beyond every gain of interest
+    return m.overshoot_pct - aim_pct;
+  };
+  constexpr int kSteps = 140;  // 1.05^140 ≈ 930
+  double k = k0;
+  std::optional<double> fk = excess(k);
+  for (int i = 0; i < kSteps && !fk; ++i) fk = excess(k /= 1.05);  // unstable there: come down first
+  if (!fk) return std::nullopt;
+  double lo = k, hi = k, flo = *fk, fhi = *fk;
+  const double step = *fk >= 0.0 ? 1.0 / 1.05 : 1.05;
+  bool bracketed = false;
+  for (int i = 0; i < kSteps && !bracketed; ++i) {
+    const double k2 = k * step;
+    const auto f2 = excess(k2);
+    if (!f2) return std::nullopt;  // unstable before the aim is reached
+    if (step > 1.0) {
+      lo = k, flo = *fk, hi = k2, fhi = *f2;
+      bracketed = *f2 >= 0.0;
+    } else {
+      hi = k, fhi = *fk, lo = k2, flo = *f2;
+      bracketed = *f2 < 0.0;
+    }
+    k = k2, fk = f2;
+  }
+  if (!bracketed) return std::nullopt;
+  boost::uintmax_t iterations = 100;
+  const auto f = [&](double kk) { return excess(kk).value_or(1e9); };
+  const auto [a, b] = boost::math::tools::toms748_solve(f, lo, hi, flo, fhi, boost::math::tools::eps_tolerance<double>(40),
+                                                       iterations);
+  return f(a) <= 0.0 ? a : b;  // the end at or below the aim: the reference's own check holds
+}
+
 }  // namespace
 
 DesignRun run_design(const Spec& spec) {
@@ -129,9 +181,22 @@ DesignRun run_design(const Spec& spec) {
   const double n = spec.controller.derivative_filter;
 
   if (run.characterization.reference) {
-    Design ref = measure_design(problem, "reference",
-                                make_controller(Structure::p, {run.characterization.reference->gain}, n, problem.action));
-    ref.notes.push_back("P gain whose simulated overshoot equals the limit (from analyze)");
+    double k_ref = run.characterization.reference->gain;
+    std::string aimed = "P gain whose simulated overshoot equals the limit (from analyze)";
+    if (problem.sampled) {
+      // Aimed on the loop it is measured on: the sampled one (analyze knows only the continuous).
+      if (const auto k = sampled_reference_gain(problem, k_ref, n, *spec.requirements.overshoot_max_pct - 1e-4)) {
+        aimed = fmt::format("P gain whose overshoot on the sampled loop equals the limit (analyze's {:.4g} puts the "
+                            "continuous loop's there)", problem.action * k_ref);
+        k_ref = *k;
+      } else {
+        aimed += "; no gain near it puts the sampled loop's overshoot at the limit: analyze's gain is kept";
+      }
+    }
+    Design ref = measure_design(problem, "reference", make_controller(Structure::p, {k_ref}, n, problem.action));
+    ref.notes.push_back(aimed);
+    // peak_time_ratio reads the reference's peak time on the loop every design is measured on
+    if (problem.sampled && ref.status == StepStatus::ok) run.problem.reference_peak_time_s = ref.simulated.peak_time_s;
     if (!run.characterization.reference_note.empty()) ref.notes.push_back(run.characterization.reference_note);
     run.designs.push_back(std::move(ref));
   }

@@ -57,7 +57,7 @@ json stable_gain_set_json(const StableGainSet& set, double action) {
 }
 
 json metrics_json(const StepMetrics& m) {
-  return {{"final_value", number_json(m.final_value)},
+  json out = {{"final_value", number_json(m.final_value)},
           {"overshoot_pct", number_json(m.overshoot_pct)},
           {"peak_time", optional_json(m.peak_time_s)},
           {"undershoot_pct", number_json(m.undershoot_pct)},
@@ -70,6 +70,8 @@ json metrics_json(const StepMetrics& m) {
           {"iae", number_json(m.iae)},
           {"ise", number_json(m.ise)},
           {"itae", number_json(m.itae)}};
+  if (m.command_peak) out["command_peak"] = number_json(*m.command_peak);  // the nonlinear loop's
+  return out;
 }
 
 json units_json(const UnitsSpec& u) { return {{"output", u.output}, {"input", u.input}, {"time", u.time}}; }

@@ -25,6 +25,7 @@
 #include <string>
 
 #include <Eigen/Dense>
+#include <boost/math/tools/roots.hpp>
 #include <boost/numeric/odeint.hpp>
 
 #include "implicit_stepper.hpp"
@@ -429,7 +430,7 @@ Vertex parabola_vertex(const std::vector<double>& t, const std::vector<double>& 
 // inside it) come from the parabola through the three samples around each sample extremum that
 // could matter, not from the samples alone.
 StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, const std::vector<double>& u,
-                    double y_inf, double amplitude, double band) {
+                    double y_inf, double amplitude, double band, const std::vector<std::pair<double, double>>& exact) {
   StepMetrics m;
   m.final_value = y_inf;
   m.steady_state_error = (amplitude - y_inf) / amplitude;
@@ -442,48 +443,98 @@ StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, 
   auto reach = [&](int k) { return 0.5 * std::abs(2.0 * yn[k] - yn[k - 1] - yn[k + 1]); };
   auto is_max = [&](int k) { return yn[k] >= yn[k - 1] && yn[k] >= yn[k + 1]; };
   auto is_min = [&](int k) { return yn[k] <= yn[k - 1] && yn[k] <= yn[k + 1]; };
-  const int k_hi = static_cast<int>(std::max_element(yn.begin(), yn.end()) - yn.begin());
-  double peak = yn[k_hi], t_peak = t[k_hi];
-  for (int k = 1; k + 1 < K; ++k) {
-    if (!is_max(k) || yn[k] + reach(k) < peak) continue;
-    const Vertex v = parabola_vertex(t, yn, k);
-    if (v.v > peak) {
-      peak = v.v;
-      t_peak = v.t;
+  if (!exact.empty()) {
+    // `exact`: y at every step end, switch and restart and at every y' = 0 located inside a step
+    // on the dense output — the integrator's own values, so no parabola is needed (its vertex
+    // misses a sharp or skewed extremum by up to 1e-3 of y∞). Merged with the samples into one
+    // time series; its local maxima and minima are the humps and dips.
+    std::vector<std::pair<double, double>> series;
+    series.reserve(t.size() + exact.size());
+    for (int k = 0; k < K; ++k) series.emplace_back(t[k], yn[k]);
+    const auto mid = series.size();
+    for (const auto& [te, ye] : exact) series.emplace_back(te, ye / y_inf);
+    std::inplace_merge(series.begin(), series.begin() + static_cast<std::ptrdiff_t>(mid), series.end(),
+                       [](const auto& p, const auto& q) { return p.first < q.first; });
+    // One point per time: a step end that is also a restart or a sample is listed twice, and two
+    // equal neighbours on a falling slope would read as a hump (the tied-peak rule would take it).
+    series.erase(std::unique(series.begin(), series.end(), [](const auto& p, const auto& q) { return p.first == q.first; }),
+                 series.end());
+    const std::size_t n = series.size();
+    auto local_max = [&](std::size_t i) {
+      return i > 0 && i + 1 < n && series[i].second >= series[i - 1].second && series[i].second >= series[i + 1].second;
+    };
+    std::size_t i_hi = 0;
+    for (std::size_t i = 1; i < n; ++i)
+      if (series[i].second > series[i_hi].second) i_hi = i;
+    const double peak = series[i_hi].second;
+    if (peak > 1.0 + 1e-9) {
+      m.overshoot_pct = (peak - 1.0) * 100.0;
+      // The latest hump within kPeakTieFraction of the highest is the peak time's (StepMetrics),
+      // then the highest hump after it.
+      std::size_t i_peak = i_hi;
+      for (std::size_t i = i_hi + 1; i < n; ++i)
+        if (local_max(i) && series[i].second >= peak - kPeakTieFraction) i_peak = i;
+      const double t_peak = series[i_peak].first;
+      m.peak_time_s = t_peak;
+      double next = -std::numeric_limits<double>::infinity(), dip = 1.0;
+      for (std::size_t i = i_peak + 1; i < n; ++i) {
+        if (series[i].first <= t_peak) continue;
+        dip = std::min(dip, series[i].second);
+        if (local_max(i) && series[i].second > 1.0 && series[i].second > next) {
+          next = series[i].second;
+          m.next_peak_time_s = series[i].first;
+        }
+      }
+      if (m.next_peak_time_s) m.next_peak_gap_pct = std::max(0.0, (peak - next) * 100.0);
+      m.post_peak_dip_pct = (1.0 - dip) * 100.0;
     }
-  }
-  if (peak > 1.0 + 1e-9) {
-    m.overshoot_pct = (peak - 1.0) * 100.0;
-    // The latest hump within kPeakTieFraction of the highest is the peak time's (StepMetrics),
-    // then the highest hump after it.
+    double low = 0.0;
+    for (const auto& [ts, v] : series) low = std::min(low, v);
+    m.undershoot_pct = -low * 100.0;
+  } else {
+    const int k_hi = static_cast<int>(std::max_element(yn.begin(), yn.end()) - yn.begin());
+    double peak = yn[k_hi], t_peak = t[k_hi];
     for (int k = 1; k + 1 < K; ++k) {
-      if (t[k] <= t_peak || !is_max(k) || yn[k] + reach(k) < peak - kPeakTieFraction) continue;
+      if (!is_max(k) || yn[k] + reach(k) < peak) continue;
       const Vertex v = parabola_vertex(t, yn, k);
-      if (v.v >= peak - kPeakTieFraction && v.t > t_peak) t_peak = v.t;
-    }
-    m.peak_time_s = t_peak;
-    double next = -std::numeric_limits<double>::infinity();
-    for (int k = 1; k + 1 < K; ++k) {
-      if (t[k] <= t_peak || !is_max(k) || yn[k] <= 1.0 || yn[k] + reach(k) < next) continue;
-      const Vertex v = parabola_vertex(t, yn, k);
-      if (v.t > t_peak && v.v > next) {
-        next = v.v;
-        m.next_peak_time_s = v.t;
+      if (v.v > peak) {
+        peak = v.v;
+        t_peak = v.t;
       }
     }
-    if (m.next_peak_time_s) m.next_peak_gap_pct = std::max(0.0, (peak - next) * 100.0);
-    double dip = 1.0;  // lowest yn after the peak
-    for (int k = 1; k + 1 < K; ++k) {
-      if (t[k + 1] <= t_peak || !is_min(k) || yn[k] - reach(k) > dip) continue;
-      const Vertex v = parabola_vertex(t, yn, k);
-      if (v.t > t_peak) dip = std::min(dip, std::min(v.v, yn[k]));
+    if (peak > 1.0 + 1e-9) {
+      m.overshoot_pct = (peak - 1.0) * 100.0;
+      // The latest hump within kPeakTieFraction of the highest is the peak time's (StepMetrics),
+      // then the highest hump after it.
+      for (int k = 1; k + 1 < K; ++k) {
+        if (t[k] <= t_peak || !is_max(k) || yn[k] + reach(k) < peak - kPeakTieFraction) continue;
+        const Vertex v = parabola_vertex(t, yn, k);
+        if (v.v >= peak - kPeakTieFraction && v.t > t_peak) t_peak = v.t;
+      }
+      m.peak_time_s = t_peak;
+      double next = -std::numeric_limits<double>::infinity();
+      for (int k = 1; k + 1 < K; ++k) {
+        if (t[k] <= t_peak || !is_max(k) || yn[k] <= 1.0 || yn[k] + reach(k) < next) continue;
+        const Vertex v = parabola_vertex(t, yn, k);
+        if (v.t > t_peak && v.v > next) {
+          next = v.v;
+          m.next_peak_time_s = v.t;
+        }
+      }
+      if (m.next_peak_time_s) m.next_peak_gap_pct = std::max(0.0, (peak - next) * 100.0);
+      double dip = 1.0;  // lowest yn after the peak
+      for (int k = 1; k + 1 < K; ++k) {
+        if (t[k + 1] <= t_peak || !is_min(k) || yn[k] - reach(k) > dip) continue;
+        const Vertex v = parabola_vertex(t, yn, k);
+        if (v.t > t_peak) dip = std::min(dip, std::min(v.v, yn[k]));
+      }
+      m.post_peak_dip_pct = (1.0 - dip) * 100.0;
     }
-    m.post_peak_dip_pct = (1.0 - dip) * 100.0;
+    double low = *std::min_element(yn.begin(), yn.end());
+    for (int k = 1; k + 1 < K; ++k)
+      if (yn[k] < 0.0 && is_min(k) && yn[k] - reach(k) < low) low = std::min(low, parabola_vertex(t, yn, k).v);
+    m.undershoot_pct = std::max(0.0, -low) * 100.0;
   }
-  double low = *std::min_element(yn.begin(), yn.end());
-  for (int k = 1; k + 1 < K; ++k)
-    if (yn[k] < 0.0 && is_min(k) && yn[k] - reach(k) < low) low = std::min(low, parabola_vertex(t, yn, k).v);
-  m.undershoot_pct = std::max(0.0, -low) * 100.0;
   int k10 = -1, k90 = -1;
   for (int k = 0; k < K && k90 < 0; ++k) {
     if (k10 < 0 && yn[k] >= 0.1) k10 = k;
@@ -930,6 +981,50 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
     return result;
   };
   std::size_t next_sample = 0;
+  // Peaks of the applied u and of the command, exact where they sit: at 0+ (the proportional and
+  // derivative kick), at every switch and restart (both sides) and at every accepted step's end,
+  // besides the output samples (a kick or a corner of the rate limit lies between samples).
+  double peak_applied = 0.0, peak_command = 0.0;
+  // y at every step end, switch and restart, and at every y' = 0 inside a step (located on the
+  // dense output by TOMS 748): the extrema the metrics read, exact to the integrator's tolerance.
+  std::vector<std::pair<double, double>> exact_y;
+  // One accepted step [ta, tb] of a dense stepper with state rate `rate(x, dx, t)`: y at tb, and
+  // the interior extremum when y' changes sign (its value at ta kept in `rates_prev`, NaN:
+  // unknown). `command_extremum` (continuous controller; null: sampled, u held) is called at each
+  // interior extremum of the command, where u_c' changes sign, located the same way.
+  State ext_x, ext_dx;
+  auto note_step = [&](auto& dense, double ta, double tb, const State& xb, std::array<double, 2>& rates_prev, auto&& rate,
+                       auto&& command_extremum, bool continuous_command) {
+    ext_x.resize(xb.size());
+    ext_dx.resize(xb.size());
+    auto rates = [&](const double* xs, double time) -> std::array<double, 2> {
+      rate(xs, ext_dx.data(), time);
+      return {model.pm ? model.pm->output_rate(xs, ext_dx.data()) : model.output(ext_dx.data()),
+              continuous_command ? model.command_rate(xs, ext_dx.data()) : 0.0};
+    };
+    if (std::isnan(rates_prev[0])) {
+      dense.calc_state(ta, ext_x);
+      rates_prev = rates(ext_x.data(), ta);
+    }
+    const std::array<double, 2> rates_b = rates(xb.data(), tb);
+    for (std::size_t which = 0; which < 2; ++which) {
+      if (!(tb > ta) || !(rates_prev[which] * rates_b[which] < 0.0)) continue;
+      auto f = [&](double time) {
+        dense.calc_state(time, ext_x);
+        return rates(ext_x.data(), time)[which];
+      };
+      boost::uintmax_t iterations = 60;
+      const auto [lo, hi] = boost::math::tools::toms748_solve(f, ta, tb, rates_prev[which], rates_b[which],
+                                                             boost::math::tools::eps_tolerance<double>(50), iterations);
+      for (double te : {lo, hi}) {
+        dense.calc_state(te, ext_x);
+        if (which == 0) exact_y.emplace_back(te, model.output(ext_x.data()));
+        else command_extremum(ext_x.data());
+      }
+    }
+    exact_y.emplace_back(tb, model.output(xb.data()));
+    rates_prev = rates_b;
+  };
 
   if (period > 0.0) {
     // ---- Sampled controller: zero-order hold (with slew), plant integrated between switches.
@@ -996,6 +1091,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
             const double uc = ctl.update(amplitude, y);
             if (!std::isfinite(uc)) return halt(NonlinearStatus::non_finite, "the controller output became non-finite at t = " + to_string(tk) + " s");
             commands.push_back(uc);
+            peak_command = std::max(peak_command, std::abs(uc));
             // Saturated: the command beyond a limit at this sample, as first computed (before the
             // conditional integration held the integrator) or as returned.
             const double highest = std::max(ctl.tentative, uc), low = std::min(ctl.tentative, uc);
@@ -1018,6 +1114,9 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
               knots.push_back({tk, tk + delay, target, 0.0});
             }
             ctl.ua_prev = end_value;
+            // the applied u is piecewise linear between knots: its peak is at one (or at the horizon)
+            for (std::size_t i = knots.size() - (knots.back().t > tk ? 2 : 1); i < knots.size(); ++i)
+              if (knots[i].t < horizon) peak_applied = std::max(peak_applied, std::abs(knots[i].value));
             for (std::size_t i = knots.size() - (knots.back().t > tk ? 2 : 1); i < knots.size(); ++i)
               if (knots[i].plant_t < horizon) breaks.insert(knots[i].plant_t);
             ++k;
@@ -1034,18 +1133,22 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
             PlantSystem system{&model, kn.slope == 0.0 ? kn.value : kn.value + kn.slope * (t - kn.plant_t), kn.slope, t,
                                disturbance_at(t)};
             dense.initialize(x, t, std::min(dt, t_end - t));
+            std::array<double, 2> rates_prev{std::numeric_limits<double>::quiet_NaN(), 0.0};  // y' jumps with the hold
+            auto plant_rate = [&](const double* xs, double* dx, double time) { system.evaluate(xs, dx, time); };
+            exact_y.emplace_back(t, model.output(x.data()));
             while (true) {
               if (++work > options.max_steps)
                 return halt(NonlinearStatus::step_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_steps = " + to_string(options.max_steps) + " reached");
               if (wall() > options.max_wall_time_s)
                 return halt(NonlinearStatus::time_limit, "stopped at t = " + to_string(dense.current_time()) + " s: max_wall_time_s = " + to_string(options.max_wall_time_s) + " reached");
-              const double tb = step_within_domain(dense, system, work, domain_retries).second;
+              const auto [ta, tb] = step_within_domain(dense, system, work, domain_retries);
               ++result.steps;
               dt = dense.current_time_step();
               const double tc = std::min(tb, t_end);
               if (tb <= t_end) xe = dense.current_state();
               else dense.calc_state(tc, xe);
               if (!all_finite(xe)) return halt(NonlinearStatus::non_finite, "the state became non-finite near t = " + to_string(tc) + " s");
+              note_step(dense, ta, tc, xe, rates_prev, plant_rate, [](const double*) {}, false);
               while (next_sample < samples.size() && samples[next_sample] < tc) {
                 dense.calc_state(samples[next_sample], scratch);
                 record(samples[next_sample++], scratch);
@@ -1123,6 +1226,10 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
         line.segments.push_back(seg);
       };
 
+      auto note_peaks = [&](const double* xs, const Modes& m) {
+        peak_command = std::max(peak_command, std::abs(model.command(xs)));
+        peak_applied = std::max(peak_applied, std::abs(model.applied(xs, m)));
+      };
       double dt = std::min(horizon / 4000.0, max_dt);
       if (options.first_step_s > 0.0) dt = std::min(dt, options.first_step_s);
       Modes modes;
@@ -1155,8 +1262,15 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
             modes = model.choose(x.data(), modes, disturbance, scratch.data(), i < 2, t);
             if (model.consistent(x.data(), modes, disturbance, scratch.data(), t)) break;
           }
+          note_peaks(x.data(), modes);  // right limit at the restart (0+: the kick)
           record_until(t, true, modes, [&](double) { return x.data(); });
           const HeldModeSystem system{&model, modes, disturbance};
+          std::array<double, 2> rates_prev{std::numeric_limits<double>::quiet_NaN(), 0.0};  // y', u_c' jump at a restart
+          auto command_extremum = [&](const double* xs) { note_peaks(xs, modes); };
+          auto loop_rate = [&](const double* xs, double* dx, double time) {
+            model.derivative(xs, dx, modes, disturbance, time);
+          };
+          exact_y.emplace_back(t, model.output(x.data()));
           dense.initialize(x, t, std::min(dt, t_end - t));
           while (true) {
             if (++work > options.max_steps)
@@ -1188,10 +1302,14 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
               if (modes.rate != RateMode::tracking) slewing_time += hi - ta;
               if (model.clamps() && (!modes.integrating || modes.sliding)) held_time += hi - ta;
               dense.calc_state(hi, x);
+              note_peaks(x.data(), modes);  // left limit at the switch
+              note_step(dense, ta, hi, x, rates_prev, loop_rate, command_extremum, true);
               t = hi;
               ++result.switches;
               break;
             }
+            note_peaks(xe.data(), modes);
+            note_step(dense, ta, tc, xe, rates_prev, loop_rate, command_extremum, true);
             store(ta, tc, modes);
             record_until(tc, inclusive || tb < t_end, modes, dense_at);
             if (modes.sat != 0) saturated_time += tc - ta;
@@ -1241,7 +1359,11 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   for (double uc : result.command)
     result.command_excess_max = std::max(result.command_excess_max, std::max(uc - model.umax, model.umin - uc));
   if (std::isfinite(y_inf) && std::abs(y_inf) > 1e-12 * std::abs(amplitude)) {
-    result.metrics = measure(result.time_s, result.output, result.control, y_inf, amplitude, band_fraction);
+    result.metrics = measure(result.time_s, result.output, result.control, y_inf, amplitude, band_fraction, exact_y);
+    result.metrics.effort_peak = std::max(result.metrics.effort_peak, peak_applied);
+    double command_peak = peak_command;
+    for (double uc : result.command) command_peak = std::max(command_peak, std::abs(uc));
+    result.metrics.command_peak = command_peak;
     result.measured = true;
     result.notes.push_back("metrics relative to the linear loop's final value y_inf = " + to_string(y_inf));
   } else {

@@ -70,7 +70,8 @@ const std::vector<SpecKey>& spec_keys() {
        "relative steady-state error to the reference step, ≥ 0; `0` needs an integrator in the loop (a type-0 plant "
        "with a structure without one is refused)"},
       {"requirements.effort_max", "input units", "—",
-       "peak |u| for the reference step, > 0 (for `[plant.nonlinear]`: peak |u − u0|)"},
+       "peak |u| for the reference step, > 0 (for `[plant.nonlinear]`: peak |u − u0|); on the nonlinear loop the "
+       "controller's output before the actuator's limits (`command_peak`), so clipping does not meet it"},
       {"requirements.undershoot_max_pct", "%", "—", "initial wrong-way excursion, in [0, 100)"},
       {"requirements.phase_margin_min_deg", "deg", "—", "in (0, 90)"},
       {"requirements.gain_margin_min_db", "dB", "—", "in (0, 60)"},

@@ -309,3 +309,52 @@ TEST_CASE("the search ends on the loop the spec describes when an effect acts; t
     CHECK(refined.met);
   }
 }
+
+TEST_CASE("a sampled spec's reference P gain is aimed on the sampled loop it is measured on", "[reference]") {
+  // An invented linear stage (two lags) with a 100 Hz digital P: the hold's lag adds overshoot, so
+  // analyze's gain (continuous loop at the limit) overshoots the limit on the sampled loop.
+  const Spec spec = parse_spec(
+      "[plant]\npoles = [-3.0, -20.0]\ngain = 120.0\n[controller]\nstructure = \"p\"\nsample_time = 0.01\n"
+      "[requirements]\novershoot_max_pct = 10.0\n[search]\nmax_evaluations = 60\n",
+      "specs/unit.toml");
+  const DesignRun run = run_design(spec);
+  const Design* ref = run.find("reference");
+  REQUIRE(ref);
+  REQUIRE(ref->sampled);
+  REQUIRE(ref->status == StepStatus::ok);
+  REQUIRE(run.characterization.reference);
+  CHECK_THAT(ref->simulated.overshoot_pct, WithinAbs(10.0, 0.01));
+  CHECK(ref->simulated.overshoot_pct <= 10.0);
+  const double k_ref = ref->controller.transfer.numerator.constant();
+  CHECK(k_ref < 0.95 * run.characterization.reference->gain);  // the continuous gain overshoots here
+  REQUIRE(run.problem.reference_peak_time_s);
+  CHECK(*run.problem.reference_peak_time_s == *ref->simulated.peak_time_s);
+}
+
+TEST_CASE("effort_max reads the command on the nonlinear loop, not the clipped u", "[confirmation]") {
+  // The winch drive with a ±0.9 actuator and effort_max at the same 0.9: the PI commands 2.06 at
+  // its peak (linear loop), which the actuator clips to 0.9. Read off the applied u the limit would
+  // be met by clipping; it must not be (README: effort_max reads command_peak there).
+  const Problem p = problem_from(
+      "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[actuator]\nmin = -0.9\nmax = 0.9\n"
+      "[controller]\nstructure = \"pi\"\n"
+      "[requirements]\novershoot_max_pct = 10.0\neffort_max = 0.9\n");
+  const Design d = measure_design(p, "test", make_controller(Structure::pi, {2.0, 0.8}, 10.0));
+  REQUIRE(d.nonlinear);
+  REQUIRE(d.nonlinear->status == NonlinearStatus::ok);
+  const StepMetrics& m = d.nonlinear->simulated;
+  REQUIRE(m.command_peak);
+  CHECK(m.effort_peak <= 0.9 + 1e-12);  // the actuator delivers at most its limit
+  CHECK(*m.command_peak > 1.5);          // the controller asks for far more
+  // the linear loop has no separate command: one signal
+  CHECK_FALSE(d.simulated.command_peak);
+  bool found = false;
+  for (const RequirementCheck& c : d.nonlinear->checks) {
+    if (c.requirement.key != "effort_max") continue;
+    found = true;
+    REQUIRE(c.value);
+    CHECK(*c.value == *m.command_peak);
+    CHECK_FALSE(c.met);
+  }
+  CHECK(found);
+}

@@ -166,14 +166,16 @@ DifferenceEquation controller_difference_equation(const Controller& controller, 
 ///
 /// Metrics use the linear definitions of StepMetrics measured on the samples: y∞ is the linear
 /// loop's r·T(0) (final-value theorem), also when a limit or disturbance changes the true final
-/// value; the steady-state error is the linear one. Extrema of y between samples (the peak, the
-/// deepest dip after it, the undershoot, and a hump that leaves the settling band between two
-/// samples inside it, which moves the settling time) come from the parabola through the three
-/// samples around each sample extremum that could matter; the effort peak is the sample
-/// maximum (the applied u is clamped flat at a limit, where a parabola would overshoot it);
-/// crossings are linearly interpolated, integrals use the trapezoid rule; with the default 4000
-/// samples per horizon that is accurate to about 1e-5 relative on smooth responses (the samples
-/// themselves carry the integrator's error, ~1e-7 relative at the default tolerances).
+/// value; the steady-state error is the linear one. The extrema of y (the peak, the deepest dip
+/// after it, the undershoot) and the peaks of the applied u (`effort_peak`) and of the command
+/// (`command_peak`, before the actuator's limits) are taken where the integrator puts them: at
+/// every accepted step's end, every switch (both sides) and restart (0+: the kick), and at each
+/// point inside a step where y′ or u_c′ changes sign, located by TOMS 748 on the dense output; a
+/// sampled controller's applied u at its hold's knots. A hump that leaves the settling band
+/// between two samples inside it (it moves the settling time) comes from the parabola through
+/// the three samples around it; crossings are linearly interpolated, integrals use the trapezoid
+/// rule (about 1e-5 relative with the default samples; the samples themselves carry the
+/// integrator's error, ~1e-7 relative at the default tolerances).
 ///
 /// Transport delay (delay_s = L > 0), exact: the plant input at t is the applied u at t − L (0
 /// before L); the disturbance acts at the plant input undelayed. With a continuous controller

@@ -40,6 +40,9 @@ struct StepMetrics {
                                          // 0 when there is no peak or no such fall
   double steady_state_error = 0.0;       // (r − y∞)/r, exact (final-value theorem)
   double effort_peak = 0.0;              // max |u(t)| over the horizon, including t = 0+
+  std::optional<double> command_peak;    // nonlinear loop: max |u_c(t)|, the controller's output before
+                                         // the actuator's limits (the applied u is effort_peak); empty
+                                         // on the linear loop, where the two are one signal
   double iae = 0.0;                      // ∫|e| dt, e = y∞ − y (see README)
   double ise = 0.0;                      // ∫e² dt
   double itae = 0.0;                     // ∫t·|e| dt
