@@ -140,7 +140,7 @@ class CostFunction {
       case Objective::iae:
       case Objective::ise:
         return tracking_objective(options_.objective, m, problem_.spec.reference.amplitude, problem_.tracking_window_s);
-      case Objective::effort: return m.effort_peak;
+      case Objective::effort: return m.command_peak.value_or(m.effort_peak);  // what effort_max reads
       case Objective::settling_time: return m.settling_time_s.value_or(1e3 * horizon_s);
       case Objective::sensitivity_peak:
         return margins ? margins->sensitivity_peak : loop_margins(c * problem_.plant).sensitivity_peak;

@@ -151,11 +151,6 @@ DESIGNS = ("reference", "classical", "ultimate_gain", "optimized")
 # run; an entry that matches no failure any more is printed as such (remove it; --strict-known
 # fails the run on it). The lead removes entries as the merges that fix them land.
 KNOWN_FAILING = {
-    # The linear loop's ISE quadrature (response.cpp, main's 41da817 "ISE takes the Euler–Maclaurin
-    # h^4 and h^6 end terms"): both reproduce with main's own binary; not the sampled or nonlinear
-    # loop's. For the metrics owner.
-    "claims/stiff_lag/classical/linear/metric/ise": "metrics (41da817): ISE 6.0287 vs SciPy 5.9943 (5.7e-3 relative) on the stiff loop",
-    "unusual_plants/fast_edge/classical/linear/metric/ise": "metrics (41da817): ISE 1.07323 vs SciPy 1.07534 (2.0e-3 relative)",
 }
 
 
