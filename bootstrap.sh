@@ -4,6 +4,10 @@
 #   ./bootstrap.sh demo   install, build, analyze and design a demo spec
 #   ./bootstrap.sh test   install, build, run every test (what CI runs)
 #   ./bootstrap.sh build  install and build only
+# With SPECLOOP_CHECK_SANITIZERS=1 (CI sets it), `test` then also builds the library and the Catch2
+# suite with AddressSanitizer + UndefinedBehaviorSanitizer (clang, in build-sanitize/), runs that
+# suite, and runs each libFuzzer harness for SPECLOOP_FUZZ_SECONDS (default 20) through
+# tests/fuzz/run.sh.
 set -euo pipefail
 cd "$(dirname "$0")"
 mode="${1:-demo}"
@@ -14,6 +18,8 @@ packages=(g++ cmake make pkg-config libnlopt-cxx-dev libeigen3-dev libboost-dev 
 # The report test drives a real browser and reads its screenshot; the sweep test runs shards
 # through GNU parallel.
 if [ "$mode" = test ]; then packages+=(chromium fonts-liberation python3-pil parallel); fi
+check_sanitizers="${SPECLOOP_CHECK_SANITIZERS:-0}"
+if [ "$mode" = test ] && [ "$check_sanitizers" = 1 ]; then packages+=(clang libclang-rt-14-dev); fi
 
 missing=()
 for p in "${packages[@]}"; do
@@ -42,6 +48,17 @@ case "$mode" in
     ;;
   test)
     ctest --test-dir "$build_dir" --output-on-failure -j "$jobs"
+    if [ "$check_sanitizers" = 1 ]; then
+      # One instrumented build serves both: -O1 with assertions on (Eigen's index checks).
+      sanitize_dir="${SPECLOOP_SANITIZE_BUILD_DIR:-build-sanitize}"
+      cmake -S . -B "$sanitize_dir" -DCMAKE_BUILD_TYPE=RelWithDebInfo -DCMAKE_CXX_FLAGS_RELWITHDEBINFO="-O1 -g" \
+            -DCMAKE_CXX_COMPILER=clang++ -DSPECLOOP_SANITIZE=ON -DSPECLOOP_FUZZ=ON -DSPECLOOP_BUILD_BENCH=OFF
+      cmake --build "$sanitize_dir" -j "$jobs" --target specloop_tests fuzz_harnesses
+      echo "bootstrap: the Catch2 suite under ASan + UBSan"
+      ASAN_OPTIONS=detect_leaks=1 UBSAN_OPTIONS=print_stacktrace=1:halt_on_error=1 \
+        "$sanitize_dir/tests/specloop_tests"
+      tests/fuzz/run.sh "${SPECLOOP_FUZZ_SECONDS:-20}" "$sanitize_dir" --no-build
+    fi
     ;;
   build) ;;
   *) echo "bootstrap: unknown mode '$mode' (demo, test, build)" >&2; exit 2 ;;

@@ -104,6 +104,16 @@ ExpressionPlant::ExpressionPlant(ExpressionDefinition definition)
     if (is_reserved_name(name))
       throw ExpressionError(part, index, -1,
                             fmt::format("\"{}\" is a built-in function or constant of the expression language", name));
+    // The expression parser's own rules for a variable name (it refuses names over 100 characters).
+    try {
+      mu::Parser probe;
+      double slot = 0.0;
+      probe.DefineVar(name, &slot);
+    } catch (const mu::Parser::exception_type& e) {
+      throw ExpressionError(part, index, -1,
+                            fmt::format("\"{}\" is not a name the expression parser takes ({} characters): {}",
+                                        name.size() > 40 ? name.substr(0, 40) + "..." : name, name.size(), e.GetMsg()));
+    }
     if (std::find(names.begin(), names.end(), name) != names.end())
       throw ExpressionError(part, index, -1, fmt::format("\"{}\" is already a state or parameter name", name));
     names.push_back(name);
@@ -124,14 +134,15 @@ ExpressionPlant::ExpressionPlant(ExpressionDefinition definition)
   known.push_back(kInputName);
   const auto compile = [&](const std::string& text, Part part, std::size_t index, bool allow_input) {
     auto parser = std::make_unique<mu::Parser>();
-    for (std::size_t i = 0; i < n; ++i) parser->DefineVar(d.states[i], &c.buffer[i]);
-    for (std::size_t i = 0; i < p; ++i) parser->DefineVar(d.parameters[i].first, &c.buffer[n + i]);
-    if (allow_input) parser->DefineVar(kInputName, &c.buffer[c.input_slot]);
     if (text.find_first_not_of(" \t") == std::string::npos) throw ExpressionError(part, index, -1, "the expression is empty");
     if (const int at = assignment_position(text); at >= 0)
       throw ExpressionError(part, index, at, fmt::format("'=' at character {} assigns; use '==' to compare", at + 1));
     bool uses_state = false;
     try {
+      // Inside the try: no muparser error may leave here as anything but an ExpressionError.
+      for (std::size_t i = 0; i < n; ++i) parser->DefineVar(d.states[i], &c.buffer[i]);
+      for (std::size_t i = 0; i < p; ++i) parser->DefineVar(d.parameters[i].first, &c.buffer[n + i]);
+      if (allow_input) parser->DefineVar(kInputName, &c.buffer[c.input_slot]);
       parser->SetExpr(text);
       for (const auto& [name, pointer] : parser->GetUsedVar()) {
         if (std::find(d.states.begin(), d.states.end(), name) != d.states.end()) uses_state = true;

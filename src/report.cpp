@@ -511,7 +511,7 @@ std::vector<Section> sections(const DesignRun& run, const ReportOutcome& outcome
       s.markdown += outcome.figures_note + "\n\n";
     }
     for (const auto& [id, caption] : captions) {
-      const auto svg = std::find_if(figures.begin(), figures.end(), [&](const auto& f) { return f.first == id; });
+      const auto svg = std::find_if(figures.begin(), figures.end(), [&id = id](const auto& f) { return f.first == id; });
       s.html += fmt::format("<figure id=\"fig-{}\">\n{}<figcaption>{}</figcaption>\n</figure>\n", id,
                             svg != figures.end() && !svg->second.empty() ? svg->second + "\n" : std::string(),
                             escape_html(caption) + fmt::format(" (data: series/, script: plots/{}.gp)", id));
