@@ -245,6 +245,15 @@ Linearization ExpressionPlant::jacobians_at(const std::vector<double>& x, double
                             fmt::format("is {} at {} ({} of the numerical Jacobian)", hint_for(value),
                                         describe_point(at.data(), u), where));
   };
+  // Finite values whose difference quotient overflows (a jump of 1e308 across the step, a slope
+  // beyond the double range) would make an infinite Jacobian and a NaN plant downstream.
+  const auto require_finite_slope = [&](double slope, Part part, std::size_t i, const std::string& over) {
+    if (!std::isfinite(slope))
+      throw ExpressionError(part, i, -1,
+                            fmt::format("changes too steeply with {} at {} for a numerical Jacobian (the central "
+                                        "difference is {}: a jump or a slope beyond the floating-point range there)",
+                                        over, describe_point(x.data(), u), slope));
+  };
   for (std::size_t j = 0; j < un; ++j) {
     const double h = step_for(x[j]);
     lin.state_steps.push_back(h);
@@ -254,12 +263,17 @@ Linearization ExpressionPlant::jacobians_at(const std::vector<double>& x, double
     require_finite(fp.data(), xp, u, "a forward step");
     rates_at(xm.data(), u, fm.data());
     require_finite(fm.data(), xm, u, "a backward step");
-    for (std::size_t i = 0; i < un; ++i)
-      m.A(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(j)) = (fp[i] - fm[i]) / (2.0 * h);
+    for (std::size_t i = 0; i < un; ++i) {
+      const double slope = (fp[i] - fm[i]) / (2.0 * h);
+      require_finite_slope(slope, Part::derivative, i, definition_.states[j]);
+      m.A(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(j)) = slope;
+    }
     const double yp = output_at(xp.data()), ym = output_at(xm.data());
     require_finite_output(yp, xp, "a forward step");
     require_finite_output(ym, xm, "a backward step");
-    m.C(0, static_cast<Eigen::Index>(j)) = (yp - ym) / (2.0 * h);
+    const double output_slope = (yp - ym) / (2.0 * h);
+    require_finite_slope(output_slope, Part::output, 0, definition_.states[j]);
+    m.C(0, static_cast<Eigen::Index>(j)) = output_slope;
     xp[j] = xm[j] = x[j];
   }
   const double hu = step_for(u);
@@ -268,7 +282,11 @@ Linearization ExpressionPlant::jacobians_at(const std::vector<double>& x, double
   require_finite(fp.data(), x, u + hu, "a forward step in u");
   rates_at(x.data(), u - hu, fm.data());
   require_finite(fm.data(), x, u - hu, "a backward step in u");
-  for (std::size_t i = 0; i < un; ++i) m.B(static_cast<Eigen::Index>(i)) = (fp[i] - fm[i]) / (2.0 * hu);
+  for (std::size_t i = 0; i < un; ++i) {
+    const double slope = (fp[i] - fm[i]) / (2.0 * hu);
+    require_finite_slope(slope, Part::derivative, i, kInputName);
+    m.B(static_cast<Eigen::Index>(i)) = slope;
+  }
   return lin;  // D = 0: the output does not use u (checked when compiling)
 }
 

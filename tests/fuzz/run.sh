@@ -12,7 +12,8 @@
 #   SPECLOOP_FUZZ_TIMEOUT=10              seconds one input may take before it counts as a hang
 # What the fuzzers find that is new coverage goes to BUILD_DIR/fuzz-corpus/<harness> (kept between
 # runs, so a long campaign resumes); a failing input to BUILD_DIR/fuzz-artifacts/; logs to
-# BUILD_DIR/fuzz-logs/. The seed corpus tests/fuzz/corpus/<harness> is only read.
+# BUILD_DIR/fuzz-logs/. The seed corpus tests/fuzz/corpus/<harness> (for the spec harness also
+# specs/ and tests/bad_specs/) is only read.
 set -euo pipefail
 here="$(cd "$(dirname "$0")" && pwd)"
 source_dir="$(cd "$here/../.." && pwd)"
@@ -66,9 +67,12 @@ for h in "${harnesses[@]}"; do
   options=(-max_total_time="$seconds" -timeout="$hang_limit" -rss_limit_mb=2048 -malloc_limit_mb=1024
            -print_final_stats=1 -artifact_prefix="$build_dir/fuzz-artifacts/$h-")
   [ -f "$here/dict/$h.dict" ] && options+=(-dict="$here/dict/$h.dict")
+  seeds=("$here/corpus/$h")
+  # The spec reader's seeds also include every demo spec and every bad spec of the test suite.
+  [ "$h" = spec ] && seeds+=("$source_dir/specs" "$source_dir/tests/bad_specs")
   echo "fuzz: $h for ${seconds} s ..."
   status=0
-  TMPDIR="$scratch" "$binary" "${options[@]}" "$work" "$here/corpus/$h" >"$log" 2>&1 || status=$?
+  TMPDIR="$scratch" "$binary" "${options[@]}" "$work" "${seeds[@]}" >"$log" 2>&1 || status=$?
   rm -rf "$scratch"
   runs="$(sed -n 's/^stat::number_of_executed_units: *//p' "$log" | tail -n 1)"
   corpus_size="$(find "$work" -type f | wc -l)"
