@@ -47,8 +47,8 @@ double number(const std::string& text) {
 
 void check_linearization(const specloop::Linearization& lin, std::size_t n) {
   const auto& m = lin.model;
-  CHECK(m.A.rows() == static_cast<long>(n) && m.A.cols() == static_cast<long>(n) && m.B.size() == static_cast<long>(n) &&
-              m.C.cols() == static_cast<long>(n),
+  const auto rows = static_cast<long>(n);
+  CHECK(m.A.rows() == rows && m.A.cols() == rows && m.B.size() == rows && m.C.cols() == rows,
           "Jacobian sizes do not match the state count");
   CHECK(m.A.allFinite() && m.B.allFinite() && m.C.allFinite() && m.D.allFinite(),
           "jacobians_at returned a non-finite Jacobian instead of throwing ExpressionError");
@@ -76,7 +76,8 @@ void exercise(specloop::ExpressionPlant& plant, const std::vector<double>& guess
     return;
   } catch (const std::runtime_error& e) {
     const std::string_view message = e.what();
-    CHECK(message.rfind("no equilibrium found", 0) == 0,"find_equilibrium threw an unexpected runtime_error: {}", message);
+    CHECK(message.rfind("no equilibrium found", 0) == 0, "find_equilibrium threw an unexpected runtime_error: {}",
+          message);
     return;
   }
   CHECK(eq.states.size() == n, "equilibrium has the wrong size");

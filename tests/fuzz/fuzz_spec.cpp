@@ -12,6 +12,7 @@
 #include <string_view>
 
 #include <fmt/format.h>
+#include <toml++/toml.h>
 
 #include "fuzz_common.hpp"
 #include "specloop/compensator.hpp"
@@ -28,20 +29,24 @@ const std::string kPath = "fuzz.toml";
 #define CHECK(condition, ...) SPECLOOP_FUZZ_CHECK(kHarness, condition, __VA_ARGS__)
 
 void require_optional(const std::optional<double>& v, bool in_range, const char* key) {
-  if (v) CHECK(finite(*v) && in_range,"{} = {} out of its documented range", key, *v);
+  if (v) CHECK(finite(*v) && in_range, "{} = {} out of its documented range", key, *v);
 }
 
-void check_polynomial(const std::vector<double>& p, const char* name) {
-  CHECK(!p.empty(),"plant.{} is empty", name);
-  CHECK(p.front() != 0.0,"plant.{} has a zero leading coefficient", name);
-  for (double c : p) CHECK(finite(c),"plant.{} has a non-finite coefficient {}", name, c);
+// `values_too` false: the known gap below (values not checked); the structure is checked either way.
+void check_polynomial(const std::vector<double>& p, const char* name, bool values_too) {
+  CHECK(!p.empty(), "plant.{} is empty", name);
+  CHECK(p.front() != 0.0, "plant.{} has a zero leading coefficient", name);
+  if (values_too)
+    for (double c : p) CHECK(finite(c), "plant.{} has a non-finite coefficient {}", name, c);
 }
 
-void check_roots(const std::vector<std::complex<double>>& roots, std::size_t degree, const char* name) {
-  CHECK(roots.size() == degree,"plant.{}: {} roots for a polynomial of degree {}", name, roots.size(), degree);
-  for (const auto& r : roots)
-    CHECK(finite(r.real()) && finite(r.imag()),"plant.{} has a non-finite root ({}, {})", name,
-                                                              r.real(), r.imag());
+void check_roots(const std::vector<std::complex<double>>& roots, std::size_t degree, const char* name,
+                 bool values_too) {
+  CHECK(roots.size() == degree, "plant.{}: {} roots for a polynomial of degree {}", name, roots.size(), degree);
+  if (values_too)
+    for (const auto& r : roots)
+      CHECK(finite(r.real()) && finite(r.imag()), "plant.{} has a non-finite root ({}, {})", name, r.real(),
+            r.imag());
 }
 
 // A known gap, not counted as a failure here: numbers near the ends of the double range (poles of
@@ -51,7 +56,9 @@ void check_roots(const std::vector<std::complex<double>>& roots, std::size_t deg
 // a coefficient derived from it) lies outside [1e-30, 1e30] or the roots' product could overflow,
 // so a NaN from ordinary numbers is still a failure.
 bool absurd_magnitudes(const specloop::PlantSpec& plant) {
-  const auto absurd = [](double v) { return !finite(v) || (v != 0.0 && (std::abs(v) > 1e30 || std::abs(v) < 1e-30)); };
+  const auto absurd = [](double v) {
+    return !finite(v) || (v != 0.0 && (std::abs(v) > 1e30 || std::abs(v) < 1e-30));
+  };
   double log_product = 0.0;
   for (const auto* roots : {&plant.zeros, &plant.poles})
     for (const auto& r : *roots) {
@@ -66,31 +73,33 @@ bool absurd_magnitudes(const specloop::PlantSpec& plant) {
 }
 
 void check_plant(const specloop::PlantSpec& plant) {
-  if (!plant.nonlinear && absurd_magnitudes(plant)) {
+  const bool values_too = plant.nonlinear || !absurd_magnitudes(plant);
+  if (!values_too) {
     static bool told = false;
-    if (!told) std::fprintf(stderr, "fuzz_spec: known gap seen (absurd plant magnitudes, issue 12 §1), not a failure\n");
+    if (!told)
+      std::fprintf(stderr, "fuzz_spec: known gap seen (absurd plant magnitudes, issue 12 §1); not a failure\n");
     told = true;
-    return;
   }
-  check_polynomial(plant.numerator, "numerator");
-  check_polynomial(plant.denominator, "denominator");
-  CHECK(plant.numerator.size() <= plant.denominator.size(),"improper plant accepted: numerator degree {} > denominator degree {}",
-                      plant.numerator.size() - 1, plant.denominator.size() - 1);
-  check_roots(plant.zeros, plant.numerator.size() - 1, "zeros");
-  check_roots(plant.poles, plant.denominator.size() - 1, "poles");
-  CHECK(finite(plant.gain) && plant.gain != 0.0,"plant.gain = {}", plant.gain);
-  CHECK(finite(plant.delay_s) && plant.delay_s >= 0.0,"plant.delay = {}", plant.delay_s);
+  check_polynomial(plant.numerator, "numerator", values_too);
+  check_polynomial(plant.denominator, "denominator", values_too);
+  CHECK(plant.numerator.size() <= plant.denominator.size(),
+        "improper plant accepted: numerator degree {} > denominator degree {}", plant.numerator.size() - 1,
+        plant.denominator.size() - 1);
+  check_roots(plant.zeros, plant.numerator.size() - 1, "zeros", values_too);
+  check_roots(plant.poles, plant.denominator.size() - 1, "poles", values_too);
+  if (values_too) CHECK(finite(plant.gain) && plant.gain != 0.0, "plant.gain = {}", plant.gain);
+  CHECK(finite(plant.delay_s) && plant.delay_s >= 0.0, "plant.delay = {}", plant.delay_s);
   if (!plant.nonlinear) return;
   const auto& nl = *plant.nonlinear;
   const std::size_t n = nl.states.size();
   CHECK(n > 0 && nl.derivatives.size() == n && nl.state_guess.size() == n && nl.equilibrium.size() == n,
-          "nonlinear plant: sizes of states, derivatives, guess and equilibrium differ");
+        "nonlinear plant: sizes of states, derivatives, guess and equilibrium differ");
   CHECK(nl.a.size() == n && nl.b.size() == n && nl.c.size() == n, "nonlinear plant: Jacobian sizes differ");
   CHECK(finite(nl.input) && finite(nl.output_value) && finite(nl.residual) && finite(nl.d),
-          "nonlinear plant: non-finite u0, y0, residual or D");
+        "nonlinear plant: non-finite u0, y0, residual or D");
   for (std::size_t i = 0; i < n; ++i) {
     CHECK(finite(nl.equilibrium[i]) && finite(nl.b[i]) && finite(nl.c[i]),
-            "nonlinear plant: non-finite equilibrium or Jacobian entry");
+          "nonlinear plant: non-finite equilibrium or Jacobian entry");
     CHECK(nl.a[i].size() == n, "nonlinear plant: A is not square");
     for (double v : nl.a[i]) CHECK(finite(v), "nonlinear plant: non-finite entry of A");
   }
@@ -105,7 +114,7 @@ void check_spec(const specloop::Spec& spec, std::string_view text) {
 
   const auto& a = spec.actuator;
   if (a.limited) {
-    CHECK(finite(a.min) && finite(a.max) && a.min < a.max,"actuator limits [{}, {}] not an interval", a.min, a.max);
+    CHECK(finite(a.min) && finite(a.max) && a.min < a.max, "actuator limits [{}, {}] not an interval", a.min, a.max);
     if (!spec.plant.nonlinear)
       CHECK(a.min <= 0.0 && a.max >= 0.0, "actuator range excludes u = 0 for a linear plant");
     else
@@ -150,8 +159,10 @@ void check_spec(const specloop::Spec& spec, std::string_view text) {
   std::vector<std::string> names;
   for (const auto& info : specloop::structure_parameters(c.structure)) names.emplace_back(info.name);
   for (const auto& [name, range] : s.bounds) {
-    CHECK(std::find(names.begin(), names.end(), name) != names.end(),"search.bounds.{} is not a parameter of the structure", name);
-    CHECK(finite(range.first) && finite(range.second) && range.first > 0.0 && range.second > range.first,"search.bounds.{} = [{}, {}] not 0 < low < high", name, range.first, range.second);
+    CHECK(std::find(names.begin(), names.end(), name) != names.end(),
+          "search.bounds.{} is not a parameter of the structure", name);
+    CHECK(finite(range.first) && finite(range.second) && range.first > 0.0 && range.second > range.first,
+          "search.bounds.{} = [{}, {}] not 0 < low < high", name, range.first, range.second);
   }
 
   const auto& d = spec.disturbance;
@@ -169,10 +180,35 @@ void check_spec(const specloop::Spec& spec, std::string_view text) {
   }
 }
 
+// Plants of hundreds of poles are skipped: the roots come from an O(n³) eigenvalue solve, and
+// under ASan with Eigen's assertions a denominator of 434 coefficients took over 40 s (0.8 s in
+// the release build), which is not a hang but stalls the fuzzer. A limit on the plant order belongs to
+// the load-time ranges (issue 12 §1). Every array of the schema is far shorter than 64 entries.
+bool has_long_array(const toml::node& node) {
+  if (const auto* table = node.as_table()) {
+    for (const auto& [key, value] : *table)
+      if (has_long_array(value)) return true;
+  } else if (const auto* array = node.as_array()) {
+    if (array->size() > 64) return true;
+    for (const auto& element : *array)
+      if (has_long_array(element)) return true;
+  }
+  return false;
+}
+
+bool has_long_array(std::string_view text) {
+  try {
+    return has_long_array(toml::parse(text));
+  } catch (const toml::parse_error&) {
+    return false;  // parse_spec reports it
+  }
+}
+
 }  // namespace
 
 extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size) {
   const std::string_view text(reinterpret_cast<const char*>(data), size);
+  if (has_long_array(text)) return 0;
   try {
     const specloop::Spec spec = specloop::parse_spec(text, kPath);
     check_spec(spec, text);

@@ -69,7 +69,8 @@ bool allowed_pragma(std::string_view name) {
                                                       "application_id",  "page_size",      "auto_vacuum",
                                                       "journal_mode",    "foreign_keys",   "cell_size_check"};
   std::string lower(name);
-  std::transform(lower.begin(), lower.end(), lower.begin(), [](unsigned char c) { return static_cast<char>(std::tolower(c)); });
+  std::transform(lower.begin(), lower.end(), lower.begin(),
+                 [](unsigned char c) { return static_cast<char>(std::tolower(c)); });
   return std::find(kAllowed.begin(), kAllowed.end(), lower) != kAllowed.end();
 }
 

@@ -9,10 +9,12 @@
 // a SweepError, never a wrapped number; a point's values come from its axes.
 #include <unistd.h>
 
+#include <algorithm>
 #include <cstddef>
 #include <cstdint>
 #include <cstdio>
 #include <memory>
+#include <optional>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -116,22 +118,23 @@ std::vector<std::string_view> split_lines(std::string_view text) {
 }
 
 void check_axis(const specloop::SweepAxis& axis, std::string_view text) {
-  CHECK(!axis.key.empty() && !axis.values.empty(),"axis '{}': empty key or no values", text);
-  CHECK(axis.values.size() <= 1000000,"axis '{}': more than 1000000 values", text);
-  for (double v : axis.values) CHECK(finite(v),"axis '{}': non-finite value {}", text, v);
+  CHECK(!axis.key.empty() && !axis.values.empty(), "axis '{}': empty key or no values", text);
+  CHECK(axis.values.size() <= 1000000, "axis '{}': more than 1000000 values", text);
+  for (double v : axis.values) CHECK(finite(v), "axis '{}': non-finite value {}", text, v);
   const std::string& def = axis.definition;
   if (def.find(':') != std::string::npos) {
     const bool geometric = def.size() > 3 && def.compare(def.size() - 3, 3, "log") == 0;
     if (geometric)
-      for (double v : axis.values) CHECK(v > 0.0,"axis '{}': log range value {} <= 0", text, v);
+      for (double v : axis.values) CHECK(v > 0.0, "axis '{}': log range value {} <= 0", text, v);
     const double first = axis.values.front(), last = axis.values.back();
     const double lo = std::min(first, last), hi = std::max(first, last);
     for (double v : axis.values)
-      CHECK(v >= lo && v <= hi,"axis '{}': value {} outside [FROM, TO]", text, v);
+      CHECK(v >= lo && v <= hi, "axis '{}': value {} outside [FROM, TO]", text, v);
   }
   // Round trip through the shortest spelling: what the store's canonical grid is made of.
   std::string listed = axis.key + "=";
-  for (std::size_t j = 0; j < axis.values.size() && j < 64; ++j) listed += fmt::format("{}{}", j ? "," : "", axis.values[j]);
+  for (std::size_t j = 0; j < axis.values.size() && j < 64; ++j)
+    listed += fmt::format("{}{}", j ? "," : "", axis.values[j]);
   specloop::SweepAxis again;
   try {
     again = specloop::parse_sweep_axis(listed);
@@ -139,7 +142,7 @@ void check_axis(const specloop::SweepAxis& axis, std::string_view text) {
     specloop_fuzz::fail(kHarness, fmt::format("axis '{}': its values listed do not parse: {}", text, e.what()));
   }
   for (std::size_t j = 0; j < again.values.size(); ++j)
-    CHECK(again.values[j] == axis.values[j],"axis '{}': value {} does not round-trip", text, j);
+    CHECK(again.values[j] == axis.values[j], "axis '{}': value {} does not round-trip", text, j);
 }
 
 void check_grid(const specloop::SweepGrid& grid) {
@@ -157,7 +160,8 @@ void check_grid(const specloop::SweepGrid& grid) {
   } catch (const specloop::SweepError&) {
     return;  // refused as too large: fine
   }
-  CHECK(!huge && static_cast<unsigned __int128>(size) == product,"grid size {} is not the product of the axis lengths", size);
+  CHECK(!huge && static_cast<unsigned __int128>(size) == product, "grid size {} is not the product of the axis lengths",
+        size);
   for (std::size_t index : {std::size_t{0}, size / 2, size - 1}) {
     const auto values = grid.point(index);
     CHECK(values.size() == grid.axes.size(), "point has the wrong number of values");

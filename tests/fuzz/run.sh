@@ -36,10 +36,11 @@ hang_limit="${SPECLOOP_FUZZ_TIMEOUT:-10}"
 
 if [ "$build" = 1 ]; then
   if [ ! -f "$build_dir/CMakeCache.txt" ]; then
-    # -O1 with assertions on (no NDEBUG): Eigen's index checks stay active.
+    # -O1 with assertions on (no NDEBUG): Eigen's index checks stay active; line tables are enough
+    # for the sanitizers' stack traces and compile faster than full debug information.
     launcher=()
     command -v ccache >/dev/null && launcher=(-DCMAKE_CXX_COMPILER_LAUNCHER=ccache)
-    cmake -S "$source_dir" -B "$build_dir" -DCMAKE_BUILD_TYPE=RelWithDebInfo -DCMAKE_CXX_FLAGS_RELWITHDEBINFO="-O1 -g" \
+    cmake -S "$source_dir" -B "$build_dir" -DCMAKE_BUILD_TYPE=RelWithDebInfo -DCMAKE_CXX_FLAGS_RELWITHDEBINFO="-O1 -gline-tables-only" \
           -DCMAKE_CXX_COMPILER=clang++ "${launcher[@]}" -DSPECLOOP_SANITIZE=ON -DSPECLOOP_FUZZ=ON \
           -DSPECLOOP_BUILD_TESTS=OFF -DSPECLOOP_BUILD_BENCH=OFF >/dev/null
   else
