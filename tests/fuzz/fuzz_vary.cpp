@@ -3,10 +3,11 @@
 // input is text, one item per line: "KEY=DEFINITION" lines are axes; a line "#K/N" is a shard; a
 // first line "nonlinear" picks the expression-plant spec instead of the linear one.
 // Allowed outcomes: SweepError (axis, shard, key) and SpecError (a point that is not a valid spec).
-// Invariants: every value is finite; a range has COUNT values, starts at FROM and ends at TO, and a
-// log range stays > 0; the values survive the round trip through their shortest spelling (the
-// store's canonical grid relies on it); the grid size is the exact product of the axis lengths or
-// a SweepError, never a wrapped number; a point's values come from its axes.
+// Invariants: every value is finite; a range's values lie between its first and last, a log
+// range's above 0; the values survive the round trip through their shortest spelling (the
+// store's canonical grid relies on it); the grid size is the exact product of the axis lengths up
+// to kMaxGridPoints and a SweepError above, never a wrapped number; a point's values come from its
+// axes.
 #include <unistd.h>
 
 #include <algorithm>
@@ -146,28 +147,26 @@ void check_axis(const specloop::SweepAxis& axis, std::string_view text) {
 }
 
 void check_grid(const specloop::SweepGrid& grid) {
-  // The exact product, or "too large" when it overflows 64 bits.
+  // The exact product (saturated above 2^64): size() returns it up to kMaxGridPoints, refuses more.
+  const auto limit = static_cast<unsigned __int128>(1) << 64;
   unsigned __int128 product = 1;
-  bool huge = false;
-  for (const auto& a : grid.axes) {
-    product *= a.values.size();
-    if (product > (static_cast<unsigned __int128>(1) << 64)) huge = true;
-    if (huge) product = static_cast<unsigned __int128>(1) << 64;
-  }
+  for (const auto& a : grid.axes) product = std::min(product * a.values.size(), limit);
   std::size_t size = 0;
   try {
     size = grid.size();
-  } catch (const specloop::SweepError&) {
-    return;  // refused as too large: fine
+  } catch (const specloop::SweepError& e) {
+    CHECK(product > specloop::kMaxGridPoints, "a grid of {} points refused: {}", static_cast<std::size_t>(product),
+          e.what());
+    return;
   }
-  CHECK(!huge && static_cast<unsigned __int128>(size) == product, "grid size {} is not the product of the axis lengths",
-        size);
+  CHECK(product <= specloop::kMaxGridPoints && static_cast<unsigned __int128>(size) == product,
+        "grid size {} is not the product of the axis lengths, or above the limit", size);
   for (std::size_t index : {std::size_t{0}, size / 2, size - 1}) {
     const auto values = grid.point(index);
     CHECK(values.size() == grid.axes.size(), "point has the wrong number of values");
     for (std::size_t a = 0; a < values.size(); ++a)
       CHECK(std::find(grid.axes[a].values.begin(), grid.axes[a].values.end(), values[a]) != grid.axes[a].values.end(),
-              "point value not on its axis");
+            "point value not on its axis");
   }
 }
 
