@@ -1,9 +1,11 @@
 #!/usr/bin/env bash
 # specloop set-up on a Debian 12 machine: installs what is missing (apt-get; as root, or with
 # sudo), configures and builds, then either runs the demo or the whole test suite.
-#   ./bootstrap.sh demo   install, build, analyze and design a demo spec
-#   ./bootstrap.sh test   install, build, run every test (what CI runs)
-#   ./bootstrap.sh build  install and build only
+#   ./bootstrap.sh demo   install, build the specloop executable only, analyze and design a demo
+#                         spec (the report goes to results/conveyor_speed/, which git ignores)
+#   ./bootstrap.sh test   install, build everything (tests, probes, benchmarks), run every test
+#                         (what CI runs)
+#   ./bootstrap.sh build  install and build everything
 # With SPECLOOP_CHECK_SANITIZERS=1 (CI sets it), `test` then also builds the library and the Catch2
 # suite with AddressSanitizer + UndefinedBehaviorSanitizer (clang, in build-sanitize/), runs that
 # suite, and runs each libFuzzer harness for SPECLOOP_FUZZ_SECONDS (default 20) through
@@ -38,7 +40,12 @@ fi
 
 jobs="$(nproc 2>/dev/null || echo 2)"
 cmake -S . -B "$build_dir" -DCMAKE_BUILD_TYPE=Release
-cmake --build "$build_dir" -j "$jobs"
+# The demo needs the executable alone; tests, probes and benchmarks are built for `test`/`build`.
+if [ "$mode" = demo ]; then
+  cmake --build "$build_dir" -j "$jobs" --target specloop
+else
+  cmake --build "$build_dir" -j "$jobs"
+fi
 
 case "$mode" in
   demo)

@@ -18,6 +18,9 @@ constexpr double kInf = std::numeric_limits<double>::infinity();
 constexpr double kFarRatio = 5.0;
 constexpr double kNegligibleShare = 0.05;
 constexpr double kAgreementPct = 10.0;
+// Contributions whose sizes add up to more than this multiple of their sum cancel one another
+// (more of them is cancelled than remains).
+constexpr double kCancellingSize = 2.0;
 
 // Coefficients of p(r·w) as a polynomial in r (highest power first), complex.
 std::vector<Complex> scaled_argument(const Polynomial& p, Complex w) {
@@ -138,10 +141,14 @@ std::vector<LocusCrossing> damping_line_crossings(const TransferFunction& g, dou
 }
 
 std::vector<ModeShare> mode_shares(const TransferFunction& t) {
-  // Step response Y(s) = T(s)/s; residue at a simple pole p: N(p)/(p·D'(p)).
+  // Step response Y(s) = T(s)/s; residue at a simple pole p: N(p)/(p·D'(p)). Its term of
+  // y(t) − y∞ at t = 0⁺ is the residue (2·Re for a pair); negated and divided by y∞, that is the
+  // mode's signed contribution.
   std::vector<ModeShare> out;
   const double y_inf = t.dc_gain();
   const Polynomial d_slope = t.denominator.derivative();
+  std::size_t without = 0;
+  double known = 0.0;
   for (const Complex& p : t.poles()) {
     if (p.imag() < 0.0) continue;  // the upper member stands for the pair
     ModeShare m;
@@ -152,10 +159,37 @@ std::vector<ModeShare> mode_shares(const TransferFunction& t) {
         std::abs(p) > 0.0 && std::isfinite(y_inf) && y_inf != 0.0) {
       const Complex residue = t.numerator(p) / (p * dd);
       m.share = std::abs(residue) * (p.imag() > 0.0 ? 2.0 : 1.0) / std::abs(y_inf);
+      m.contribution = -residue.real() * (p.imag() > 0.0 ? 2.0 : 1.0) / y_inf;
+      known += *m.contribution;
+    } else {
+      ++without;
     }
     out.push_back(m);
   }
+  // One mode without a simple residue (a repeated real pole counted once, or a pair): it holds
+  // the rest of the sum, exactly.
+  if (without == 1 && std::isfinite(y_inf) && y_inf != 0.0)
+    for (ModeShare& m : out)
+      if (!m.contribution) m.contribution = contribution_total(t) - known;
   return out;
+}
+
+double contribution_total(const TransferFunction& t) {
+  // y(0⁺) = lim s·T(s)/s = T(∞): the ratio of leading coefficients when T is biproper, else 0.
+  const double y_inf = t.dc_gain();
+  const double y0 = t.numerator.degree() == t.denominator.degree() ? t.numerator.leading() / t.denominator.leading() : 0.0;
+  return 1.0 - y0 / y_inf;
+}
+
+std::optional<std::string> cancellation_note(const std::vector<ModeShare>& modes, double total) {
+  double size = 0.0;
+  for (const ModeShare& m : modes)
+    if (m.contribution) size += std::abs(*m.contribution);
+  if (!(size > kCancellingSize * std::max(std::abs(total), 1e-12))) return std::nullopt;
+  return fmt::format("the contributions' sizes add up to {:.0f} % but their sum is {:.0f} %: terms of opposite sign "
+                     "largely cancel one another (poles close to a zero or to each other), so no single mode's size "
+                     "says how much of the response it shapes",
+                     size * 100.0, total * 100.0);
 }
 
 std::optional<GainPoint> measure_gain(const TransferFunction& plant, double gain, double amplitude,
@@ -204,10 +238,20 @@ std::optional<std::size_t> dominant_crossing(const TransferFunction& plant,
   return std::nullopt;
 }
 
+std::string contribution_words(const ModeShare& m) {
+  if (!m.contribution) return "carries an unknown part of the response (repeated pole)";
+  std::string words = fmt::format("contributes {:+.0f} % of the step's final value", *m.contribution * 100.0);
+  // A pair's term oscillates: its size at t = 0 can be far below its amplitude.
+  if (m.pole.imag() != 0.0 && m.share) words += fmt::format(" (amplitude {:.0f} %)", *m.share * 100.0);
+  return words;
+}
+
 DominanceDiagnosis diagnose_dominance(const TransferFunction& t, Complex pair_pole, const SecondOrderPrediction& pred,
                                       const StepMetrics& sim) {
   DominanceDiagnosis d;
   d.modes = mode_shares(t);
+  d.contribution_sum = contribution_total(t);
+  d.cancellation = cancellation_note(d.modes, d.contribution_sum);
   const double sigma = -pair_pole.real();
   const auto cl_poles = t.poles();
   for (const auto& m : d.modes) {
@@ -217,9 +261,8 @@ DominanceDiagnosis diagnose_dominance(const TransferFunction& t, Complex pair_po
     if (ratio < kFarRatio && significant) {
       d.slow_poles.push_back(m.pole);
       d.reasons.push_back(fmt::format(
-          "closed-loop pole {} decays at {:.2f}× the dominant pair's rate (needs ≥ {:.0f}×) and carries {} of the "
-          "response", fmt_pole(m.pole), ratio, kFarRatio,
-          m.share ? fmt::format("{:.0f} %", *m.share * 100.0) : std::string("an unknown share (repeated pole)")));
+          "closed-loop pole {} decays at {:.2f}× the dominant pair's rate (needs ≥ {:.0f}×) and {}", fmt_pole(m.pole),
+          ratio, kFarRatio, contribution_words(m)));
     }
   }
   if (!t.numerator.is_zero()) {
@@ -266,9 +309,23 @@ DominanceDiagnosis diagnose_dominance(const TransferFunction& t, Complex pair_po
 
 namespace {
 
-// The smallest P gain whose simulated overshoot equals the limit.
+// How close the reference's simulated overshoot must come to the limit, percentage points; and
+// how far below the limit it is aimed, so that its own overshoot check still holds when the
+// nonlinear confirmation re-simulates it (its integrator and samples read a few 1e-7 points off).
+constexpr double kReferenceTolerancePct = 0.01;
+constexpr double kReferenceBelowPct = 1e-4;
+
+// The smallest P gain whose simulated overshoot equals the limit (within kReferenceTolerancePct,
+// else `note` says why not; aimed kReferenceBelowPct below it), searched within the stable gains
+// (ch.p_stability); gains are magnitudes on the plant with direct action.
 std::optional<GainPoint> find_reference(const TransferFunction& plant, const Characterization& ch, double limit,
                                         double amplitude, StepSimulator& sim, std::string& note) {
+  const double action = ch.action;
+  auto signed_gain = [&](double k) { return fmt::format("{:.4g}", action * k); };
+  if (ch.p_stability.never_stable()) {
+    note = fmt::format("no P gain gives a stable loop: the closed loop is {}", ch.p_stability.text(action));
+    return std::nullopt;
+  }
   double anchor = 0.0;
   if (ch.dominant) anchor = ch.dominant->gain;
   else if (!ch.crossings.empty()) anchor = ch.crossings.front().gain;
@@ -285,38 +342,89 @@ std::optional<GainPoint> find_reference(const TransferFunction& plant, const Cha
       return std::nullopt;
     return m.overshoot_pct;
   };
-  // Geometric scan upward from well below the anchor until the overshoot passes the limit.
+  // Geometric scan upward through each stable range of gains (from well below the anchor when
+  // the range starts at 0; up to well above it when it has no end). The first scan interval where
+  // the overshoot passes the aim brackets the reference; the rest of the scan says whether the
+  // overshoot is monotonic in K (a lag with a lightly damped pair can peak on different
+  // oscillations at different gains).
   const int points = 120;
-  const double lo = anchor * 1e-4, hi = anchor * 1e4;
-  double prev_k = 0.0;
-  std::optional<double> prev_os;
-  for (int i = 0; i <= points; ++i) {
-    const double k = lo * std::pow(hi / lo, static_cast<double>(i) / points);
-    const auto os = overshoot(k);
-    if (!os) {
-      note = fmt::format("the loop turns unstable at K ≈ {:.4g} before any stable gain reaches {:.4g} % overshoot", k, limit);
-      return std::nullopt;
+  const double aim = limit - kReferenceBelowPct;
+  std::vector<std::pair<double, double>> scan;  // (K, overshoot) over every stable range, increasing K
+  for (const StableGainSet::Range& range : ch.p_stability.ranges) {
+    if (range.state != StableGainSet::State::stable) continue;
+    // Stay a hair inside the range: at its ends a pole sits on the imaginary axis.
+    const double lo = range.low > 0.0 ? range.low * (1.0 + 1e-6) : anchor * 1e-4;
+    const double hi = std::isinf(range.high) ? std::max(anchor, lo) * 1e4 : range.high * (1.0 - 1e-6);
+    if (!(hi > lo)) continue;
+    for (int i = 0; i <= points; ++i) {
+      const double k = lo * std::pow(hi / lo, static_cast<double>(i) / points);
+      if (const auto os = overshoot(k)) scan.emplace_back(k, *os);  // none at the edge of the range: rounding
     }
-    if (*os >= limit) {
-      if (!prev_os) {
-        note = fmt::format("even K = {:.4g} already overshoots {:.4g} %", k, *os);
-        return std::nullopt;
-      }
-      boost::uintmax_t iterations = 100;
-      const auto f = [&](double kk) { return overshoot(kk).value_or(1e9) - limit; };
-      const auto [a, b] = boost::math::tools::toms748_solve(
-          f, prev_k, k, *prev_os - limit, *os - limit, boost::math::tools::eps_tolerance<double>(40), iterations);
-      const double k_ref = 0.5 * (a + b);
-      auto point = measure_gain(plant, k_ref, amplitude, ch.band_fraction, sim);
-      if (!point) note = "the reference gain could not be simulated";
-      return point;
-    }
-    prev_k = k;
-    prev_os = os;
   }
-  note = fmt::format("no P gain up to {:.4g} reaches {:.4g} % overshoot (largest seen {:.3g} %)", hi, limit,
-                     prev_os.value_or(0.0));
-  return std::nullopt;
+  std::size_t first = scan.size();
+  for (std::size_t i = 0; i < scan.size(); ++i)
+    if (scan[i].second >= aim) {
+      first = i;
+      break;
+    }
+  if (first == scan.size()) {
+    double largest = 0.0;
+    for (const auto& [k, os] : scan) largest = std::max(largest, os);
+    note = fmt::format("the closed loop is {}, and no stable P gain reaches {:.4g} % overshoot (largest seen {:.3g} %)",
+                       ch.p_stability.text(action), limit, largest);
+    return std::nullopt;
+  }
+  // The bracket must lie within one stable range: the scan point before `first` must be its
+  // neighbour in the same range (no unstable gains between them).
+  const auto same_range = [&](double a, double b) {
+    for (const StableGainSet::Range& range : ch.p_stability.ranges)
+      if (range.state == StableGainSet::State::stable && a >= range.low && b <= range.high) return true;
+    return false;
+  };
+  if (first == 0 || !same_range(scan[first - 1].first, scan[first].first)) {
+    note = fmt::format("the closed loop is {}, and even K = {} already overshoots {:.4g} %", ch.p_stability.text(action),
+                       signed_gain(scan[first].first), scan[first].second);
+    return std::nullopt;
+  }
+  // Crossings of the limit over the whole scan: more than one means the overshoot is not
+  // monotonic in K; the reference is then the lowest-gain branch, and a note says so.
+  int crossings = 0;
+  std::vector<std::string> later;
+  for (std::size_t i = 1; i < scan.size(); ++i)
+    if ((scan[i - 1].second >= aim) != (scan[i].second >= aim)) {
+      ++crossings;
+      if (i > first) later.push_back(signed_gain(std::sqrt(scan[i - 1].first * scan[i].first)));
+    }
+  boost::uintmax_t iterations = 100;
+  const auto f = [&](double kk) { return overshoot(kk).value_or(1e9) - aim; };
+  const auto [a, b] = boost::math::tools::toms748_solve(f, scan[first - 1].first, scan[first].first,
+                                                       scan[first - 1].second - aim, scan[first].second - aim,
+                                                       boost::math::tools::eps_tolerance<double>(40), iterations);
+  // The bracket's end at or below the limit (the reference's own check must hold), unless the
+  // other end is closer to it.
+  const double fa = f(a), fb = f(b);
+  const double k_ref = fa <= 0.0 ? a : (fb <= 0.0 ? b : (std::abs(fa) <= std::abs(fb) ? a : b));
+  auto point = measure_gain(plant, k_ref, amplitude, ch.band_fraction, sim);
+  if (!point) {
+    note = "the reference gain could not be simulated";
+    return point;
+  }
+  const double miss = point->simulated.overshoot_pct - limit;
+  if (std::abs(miss) > kReferenceTolerancePct) {
+    // The overshoot jumps across the limit at this gain (the peak moves to another oscillation).
+    note = fmt::format("the overshoot jumps across the {:.4g} % limit at K = {} (from {:.4g} % just below that gain to "
+                       "{:.4g} % above it: the highest peak moves to another oscillation); no P gain has exactly the "
+                       "limit, and the reference is the gain at the jump, with {:.4g} % overshoot",
+                       limit, signed_gain(k_ref), std::min(fa, fb) + aim, std::max(fa, fb) + aim,
+                       point->simulated.overshoot_pct);
+  }
+  if (crossings > 1) {
+    note += std::string(note.empty() ? "" : "; ") +
+            fmt::format("the overshoot is not monotonic in K: it crosses the {:.4g} % limit {} times up to K = {} "
+                        "(again near K ≈ {}); the reference is the lowest-gain branch",
+                        limit, crossings, signed_gain(scan.back().first), fmt::join(later, ", "));
+  }
+  return point;
 }
 
 }  // namespace
@@ -335,7 +443,20 @@ Characterization characterize(const Spec& spec) {
   const double amplitude = spec.reference.amplitude;
   ch.band_fraction = spec.requirements.settling_band_pct / 100.0;
   ch.damping_ratio = damping_from_overshoot(limit);
-  const TransferFunction plant = linear_plant(spec);
+  // Every gain here is for the plant with direct action (action·G, positive gains); analyze and
+  // result.json show action × gain, the gain on the plant as given.
+  const TransferFunction given = linear_plant(spec);
+  ch.action = loop_action(given);
+  const TransferFunction plant(ch.action * given.numerator, given.denominator);
+  ch.p_stability = stable_gain_set(plant);
+  if (ch.action < 0.0)
+    ch.notes.push_back(action_reason(given) + "; every gain here is shown with that sign");
+  for (const Complex& p : spec.plant.poles)
+    for (const Complex& z : spec.plant.zeros)
+      if (p.imag() >= 0.0 && std::abs(p - z) <= kCancellationTolerance * std::max(std::abs(p), std::abs(z)))
+        ch.notes.push_back(fmt::format("the plant's pole {} is cancelled by its zero {}: a stable mode the output never "
+                                       "shows; it decays on its own, but a load at the plant input excites it unseen",
+                                       fmt_pole(p), fmt_pole(z)));
   if (spec.plant.nonlinear) {
     const NonlinearPlantSpec& nl = *spec.plant.nonlinear;
     std::string point;

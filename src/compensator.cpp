@@ -55,10 +55,22 @@ double pid_filter_time(double w0, double zc, double n) {
 
 void set(std::vector<double>& v, std::initializer_list<double> values) { v.assign(values); }
 
+void direct_action_polynomials(Structure s, const double* x, double n, std::vector<double>& num,
+                               std::vector<double>& den);
+
 }  // namespace
 
-void controller_polynomials(Structure s, const double* x, double n, std::vector<double>& num,
+void controller_polynomials(Structure s, const double* x, double n, double action, std::vector<double>& num,
                             std::vector<double>& den) {
+  direct_action_polynomials(s, x, n, num, den);
+  if (action < 0.0)
+    for (double& c : num) c = -c;
+}
+
+namespace {
+
+void direct_action_polynomials(Structure s, const double* x, double n, std::vector<double>& num,
+                               std::vector<double>& den) {
   switch (s) {
     case Structure::p:
       set(num, {x[0]});
@@ -103,7 +115,10 @@ void controller_polynomials(Structure s, const double* x, double n, std::vector<
   throw std::logic_error("controller_polynomials: unknown structure");
 }
 
-Controller make_controller(Structure s, const std::vector<double>& series, double n) {
+}  // namespace
+
+Controller make_controller(Structure s, const std::vector<double>& series, double n, double action) {
+  if (action != 1.0 && action != -1.0) throw std::invalid_argument("the controller's action must be +1 or -1");
   const auto& info = structure_parameters(s);
   if (series.size() != info.size())
     throw std::invalid_argument("structure '" + std::string(structure_name(s)) + "' takes " +
@@ -123,11 +138,13 @@ Controller make_controller(Structure s, const std::vector<double>& series, doubl
   c.structure = s;
   c.series = series;
   c.derivative_filter = n;
+  c.action = action;
   std::vector<double> num, den;
-  controller_polynomials(s, series.data(), n, num, den);
+  controller_polynomials(s, series.data(), n, action, num, den);
   c.transfer = TransferFunction(Polynomial(num), Polynomial(den));
 
-  const double k = series[0];
+  // Every gain carries the action; time constants and ratios do not.
+  const double k = action * series[0];
   const double inf = std::numeric_limits<double>::infinity();
   switch (s) {
     case Structure::p:
@@ -167,6 +184,12 @@ Controller make_controller(Structure s, const std::vector<double>& series, doubl
 }  // namespace specloop
 
 namespace specloop {
+
+std::vector<double> signed_series(const Controller& c) {
+  std::vector<double> out = c.series;
+  if (!out.empty()) out.front() *= c.action;
+  return out;
+}
 
 TransferFunction reference_path(const Controller& c, double b, double cw) {
   if (b == 1.0 && cw == 1.0) return c.transfer;

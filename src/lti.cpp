@@ -3,6 +3,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <fmt/format.h>
 #include <limits>
 #include <stdexcept>
 
@@ -40,6 +41,30 @@ double TransferFunction::dc_gain() const {
   if (type < 0) return 0.0;
   const double ratio = lowest_nonzero_coefficient(numerator) / lowest_nonzero_coefficient(denominator);
   return type > 0 ? std::copysign(std::numeric_limits<double>::infinity(), ratio) : ratio;
+}
+
+double loop_action(const TransferFunction& plant) {
+  if (plant.numerator.is_zero()) return 1.0;
+  return lowest_nonzero_coefficient(plant.numerator) / plant.denominator.leading() < 0.0 ? -1.0 : 1.0;
+}
+
+const char* action_name(double action) { return action < 0.0 ? "reverse" : "direct"; }
+
+std::string action_reason(const TransferFunction& plant) {
+  const bool reverse = loop_action(plant) < 0.0;
+  const int type = plant.system_type();
+  const std::string which =
+      type > 0 ? "its velocity gain lim s·G(s), s → 0" : type == 0 ? "its DC gain G(0)" : "its lowest-order gain";
+  const bool flipped = !plant.numerator.is_zero() &&
+                       (lowest_nonzero_coefficient(plant.numerator) / lowest_nonzero_coefficient(plant.denominator) < 0.0) !=
+                           reverse;
+  return fmt::format("{} action: every controller gain is {}, because b_low/a_n {} 0 for this plant (its lowest-order "
+                     "numerator coefficient over its leading denominator coefficient; {}); the other sign can never give "
+                     "a stable loop that settles on the reference",
+                     reverse ? "reverse" : "direct", reverse ? "negative" : "positive", reverse ? "<" : ">",
+                     flipped ? "the opposite of the sign of " + which +
+                                   ", because an odd number of real poles lie in the right half plane"
+                             : "here the sign of " + which);
 }
 
 TransferFunction operator*(const TransferFunction& a, const TransferFunction& b) {

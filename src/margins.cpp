@@ -7,7 +7,10 @@
 // stationary points and the ends x = 0 and x → ∞.
 #include "specloop/margins.hpp"
 
+#include <algorithm>
 #include <cmath>
+#include <fmt/format.h>
+#include <fmt/ranges.h>
 #include <limits>
 #include <numbers>
 
@@ -75,6 +78,8 @@ Margins loop_margins(const TransferFunction& loop) {
     if (!(e(x) < 0.0)) continue;
     const double w = std::sqrt(x);
     const double magnitude = std::abs(at(w));
+    // |L| > 1 at a phase crossover bounds the gain from below (lower_gain_margin), not above.
+    if (magnitude > 1.0) continue;
     const double gm_db = -20.0 * std::log10(magnitude);
     if (!m.gain_margin_db || gm_db < *m.gain_margin_db) {
       m.gain_margin_db = gm_db;
@@ -120,7 +125,124 @@ Margins loop_margins(const TransferFunction& loop) {
       m.sensitivity_peak_rad_s = std::numeric_limits<double>::infinity();
     }
   }
+  if (const auto lower = lower_gain_margin(loop)) {
+    m.lower_gain_margin_db = lower->db;
+    m.lower_phase_crossover_rad_s = lower->frequency_rad_s;
+  }
   return m;
+}
+
+namespace {
+
+// Where the roots of D + K·N lie: all strictly left, none right (some on the axis), or some right.
+// A root counts as on the axis within 1e-7 of its magnitude (an exactly undamped pair of a loop
+// with L(s) = L(−s) comes out of the companion matrix with a real part of rounding size).
+StableGainSet::State closed_loop_state(const TransferFunction& loop, double k) {
+  const Polynomial p = loop.denominator + k * loop.numerator;
+  if (p.degree() == 0) return StableGainSet::State::stable;
+  bool on_axis = false;
+  for (const Complex& r : p.roots()) {
+    const double tol = 1e-7 * std::abs(r);
+    if (r.real() > tol) return StableGainSet::State::unstable;
+    if (r.real() >= -tol) on_axis = true;
+  }
+  return on_axis ? StableGainSet::State::undamped : StableGainSet::State::stable;
+}
+
+}  // namespace
+
+StableGainSet stable_gain_set(const TransferFunction& loop) {
+  const Polynomial& n = loop.numerator;
+  const Polynomial& d = loop.denominator;
+  // Boundary gains with the frequency of the crossing.
+  std::vector<std::pair<double, double>> cuts;
+  auto add = [&](double k, double w) {
+    if (k > 0.0 && std::isfinite(k)) cuts.emplace_back(k, w);
+  };
+  if (!n.is_zero()) {
+    if (n(0.0) != 0.0) add(-d(0.0) / n(0.0), 0.0);
+    const auto [e, o] = even_odd_in_minus_x(d * reflected(n));
+    const Polynomial n2 = squared_magnitude_in_w2(n);
+    for (double x : positive_real_roots(o)) {
+      const double magnitude = n2(x);
+      if (magnitude > 0.0) add(-e(x) / magnitude, std::sqrt(x));
+    }
+    if (n.degree() == d.degree()) add(-d.leading() / n.leading(), std::numeric_limits<double>::infinity());
+  }
+  std::sort(cuts.begin(), cuts.end());
+  // Cuts closer than 1e-9 (relative) are one.
+  std::vector<std::pair<double, double>> unique;
+  for (const auto& c : cuts)
+    if (unique.empty() || c.first > unique.back().first * (1.0 + 1e-9)) unique.push_back(c);
+  StableGainSet set;
+  const double inf = std::numeric_limits<double>::infinity();
+  double low = 0.0, low_w = 0.0;
+  for (std::size_t i = 0; i <= unique.size(); ++i) {
+    const double high = i < unique.size() ? unique[i].first : inf;
+    const double high_w = i < unique.size() ? unique[i].second : 0.0;
+    const double probe = low == 0.0 ? (high == inf ? 1.0 : high / 2.0) : high == inf ? 2.0 * low : std::sqrt(low * high);
+    const auto state = closed_loop_state(loop, probe);
+    if (!set.ranges.empty() && set.ranges.back().state == state) {
+      set.ranges.back().high = high;
+      set.ranges.back().high_frequency = high_w;
+    } else {
+      set.ranges.push_back({low, high, low_w, high_w, state});
+    }
+    low = high;
+    low_w = high_w;
+  }
+  return set;
+}
+
+const StableGainSet::Range* StableGainSet::stable_at(double k) const {
+  for (const Range& r : ranges)
+    if (r.state == State::stable && k > r.low && k < r.high) return &r;
+  return nullptr;
+}
+
+bool StableGainSet::never_stable() const {
+  return std::none_of(ranges.begin(), ranges.end(), [](const Range& r) { return r.state == State::stable; });
+}
+
+std::string StableGainSet::text(double action, const std::string& symbol) const {
+  const bool reverse = action < 0.0;
+  const std::string every = fmt::format("every {} {} 0", symbol, reverse ? "<" : ">");
+  auto interval = [&](const Range& r) {
+    auto shown = [&](double k) { return fmt::format("{:.4g}", reverse && k != 0.0 ? -k : k); };
+    const std::string lo = shown(r.low);
+    const std::string hi = std::isinf(r.high) ? (reverse ? "-∞" : "∞") : shown(r.high);
+    return reverse ? fmt::format("({}, {})", hi, lo) : fmt::format("({}, {})", lo, hi);
+  };
+  auto list = [&](State state) {
+    std::vector<std::string> parts;
+    for (const Range& r : ranges)
+      if (r.state == state) parts.push_back(interval(r));
+    return fmt::format("{}", fmt::join(parts, " and "));
+  };
+  if (ranges.size() == 1) {
+    switch (ranges.front().state) {
+      case State::stable: return "stable for " + every;
+      case State::unstable: return "unstable for " + every;
+      case State::undamped:
+        return "undamped for " + every + ": closed-loop poles stay on the imaginary axis (marginally stable, it "
+                                         "never settles)";
+    }
+  }
+  std::vector<std::string> parts;
+  if (!never_stable()) parts.push_back(fmt::format("stable only for {} in {}", symbol, list(State::stable)));
+  else parts.push_back("never stable");
+  const bool any_undamped =
+      std::any_of(ranges.begin(), ranges.end(), [](const Range& r) { return r.state == State::undamped; });
+  if (any_undamped) parts.push_back(fmt::format("undamped (poles on the imaginary axis) for {} in {}", symbol, list(State::undamped)));
+  parts.push_back(fmt::format("unstable for {} in {}", symbol, list(State::unstable)));
+  return fmt::format("{}", fmt::join(parts, "; "));
+}
+
+std::optional<LowerGainMargin> lower_gain_margin(const TransferFunction& loop) {
+  const StableGainSet set = stable_gain_set(loop);
+  const StableGainSet::Range* r = set.stable_at(1.0);
+  if (!r || !(r->low > 0.0)) return std::nullopt;
+  return LowerGainMargin{-20.0 * std::log10(r->low), r->low_frequency};
 }
 
 }  // namespace specloop

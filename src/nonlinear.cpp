@@ -401,7 +401,33 @@ double crossing(const std::vector<double>& t, const std::vector<double>& f, int 
   return t[k - 1] + (level - f0) / (f1 - f0) * (t[k] - t[k - 1]);
 }
 
-// StepMetrics from samples (definitions in README.md, "Metric definitions"); y∞ given.
+// The parabola through three samples (k − 1, k, k + 1) of f: its vertex {time, value} when the
+// vertex lies within [t_{k−1}, t_{k+1}], else the sample itself. The local interpolant that puts
+// an extremum between samples back where it is (error O(h³) on a smooth response).
+struct Vertex {
+  double t, v;
+  double a, b, c;  // f ≈ a·(τ − t_k)² + b·(τ − t_k) + c near t_k
+};
+Vertex parabola_vertex(const std::vector<double>& t, const std::vector<double>& f, int k) {
+  const double h0 = t[k] - t[k - 1], h1 = t[k + 1] - t[k];
+  const double d0 = (f[k] - f[k - 1]) / h0, d1 = (f[k + 1] - f[k]) / h1;
+  const double a = (d1 - d0) / (h0 + h1);
+  const double b = d0 + a * h0;  // slope at t_k
+  Vertex v{t[k], f[k], a, b, f[k]};
+  if (a != 0.0) {
+    const double tau = -b / (2.0 * a);
+    if (tau >= -h0 && tau <= h1) {
+      v.t = t[k] + tau;
+      v.v = f[k] + b * tau + a * tau * tau;
+    }
+  }
+  return v;
+}
+
+// StepMetrics from samples (definitions in README.md, "Metric definitions"); y∞ given. Extrema
+// between samples (the peak, the dip after it, a hump that leaves the band between two samples
+// inside it) come from the parabola through the three samples around each sample extremum that
+// could matter, not from the samples alone.
 StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, const std::vector<double>& u,
                     double y_inf, double amplitude, double band) {
   StepMetrics m;
@@ -410,12 +436,37 @@ StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, 
   const int K = static_cast<int>(t.size());
   std::vector<double> yn(t.size());
   for (int k = 0; k < K; ++k) yn[k] = y[k] / y_inf;
-  const auto hi = std::max_element(yn.begin(), yn.end());
-  if (*hi > 1.0 + 1e-9) {
-    m.overshoot_pct = (*hi - 1.0) * 100.0;
-    m.peak_time_s = t[hi - yn.begin()];
+  // Sample extrema of yn (interior samples only) that can carry an extremum between samples; the
+  // parabola's excess over the sample is at most a quarter of the second difference, so
+  // `reach` (half of it) is generous.
+  auto reach = [&](int k) { return 0.5 * std::abs(2.0 * yn[k] - yn[k - 1] - yn[k + 1]); };
+  auto is_max = [&](int k) { return yn[k] >= yn[k - 1] && yn[k] >= yn[k + 1]; };
+  auto is_min = [&](int k) { return yn[k] <= yn[k - 1] && yn[k] <= yn[k + 1]; };
+  const int k_hi = static_cast<int>(std::max_element(yn.begin(), yn.end()) - yn.begin());
+  double peak = yn[k_hi], t_peak = t[k_hi];
+  for (int k = 1; k + 1 < K; ++k) {
+    if (!is_max(k) || yn[k] + reach(k) < peak) continue;
+    const Vertex v = parabola_vertex(t, yn, k);
+    if (v.v > peak) {
+      peak = v.v;
+      t_peak = v.t;
+    }
   }
-  m.undershoot_pct = std::max(0.0, -*std::min_element(yn.begin(), yn.end())) * 100.0;
+  if (peak > 1.0 + 1e-9) {
+    m.overshoot_pct = (peak - 1.0) * 100.0;
+    m.peak_time_s = t_peak;
+    double dip = 1.0;  // lowest yn after the peak
+    for (int k = 1; k + 1 < K; ++k) {
+      if (t[k + 1] <= t_peak || !is_min(k) || yn[k] - reach(k) > dip) continue;
+      const Vertex v = parabola_vertex(t, yn, k);
+      if (v.t > t_peak) dip = std::min(dip, std::min(v.v, yn[k]));
+    }
+    m.post_peak_dip_pct = (1.0 - dip) * 100.0;
+  }
+  double low = *std::min_element(yn.begin(), yn.end());
+  for (int k = 1; k + 1 < K; ++k)
+    if (yn[k] < 0.0 && is_min(k) && yn[k] - reach(k) < low) low = std::min(low, parabola_vertex(t, yn, k).v);
+  m.undershoot_pct = std::max(0.0, -low) * 100.0;
   int k10 = -1, k90 = -1;
   for (int k = 0; k < K && k90 < 0; ++k) {
     if (k10 < 0 && yn[k] >= 0.1) k10 = k;
@@ -437,8 +488,23 @@ StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, 
   int k_out = -1;
   for (int k = K - 1; k >= 0; --k)
     if (std::abs(yn[k] - 1.0) > band) { k_out = k; break; }
-  if (k_out < 0) m.settling_time_s = t[0];
-  else if (k_out < K - 1) m.settling_time_s = crossing(t, yn, k_out + 1, yn[k_out] > 1.0 ? 1.0 + band : 1.0 - band);
+  if (k_out < K - 1) {
+    double last = k_out < 0 ? t[0] : crossing(t, yn, k_out + 1, yn[k_out] > 1.0 ? 1.0 + band : 1.0 - band);
+    // A hump beyond the band between samples inside it: the last one found from the end.
+    for (int k = K - 2; k > std::max(k_out, 0); --k) {
+      const double dev = yn[k] - 1.0;
+      if (std::abs(dev) + reach(k) <= band || !(dev > 0.0 ? is_max(k) : is_min(k))) continue;
+      const Vertex v = parabola_vertex(t, yn, k);
+      const double edge = dev > 0.0 ? 1.0 + band : 1.0 - band;
+      if (!(dev > 0.0 ? v.v > edge : v.v < edge)) continue;
+      // The later root of a·τ² + b·τ + (c − edge) = 0 (τ from t_k): where the hump re-enters.
+      const double disc = v.b * v.b - 4.0 * v.a * (v.c - edge);
+      const double tau = (-v.b + std::copysign(std::sqrt(std::max(0.0, disc)), v.a)) / (2.0 * v.a);
+      last = std::max(last, std::min(t[k + 1], t[k] + std::max(tau, v.t - t[k])));
+      break;
+    }
+    m.settling_time_s = last;
+  }
   for (int k = 0; k < K; ++k) m.effort_peak = std::max(m.effort_peak, std::abs(u[k]));
   for (int k = 1; k < K; ++k) {
     const double h = t[k] - t[k - 1];
@@ -502,7 +568,14 @@ struct SampledController : PidLaw {
   std::vector<double> num, den, e_hist, u_hist;
   DifferenceEquation equation;
 
+  // The last update: the command as first computed (with the integral increment) and whether
+  // the conditional integration then held the integrator. A command beyond a limit at a sample is
+  // saturation even when holding the integrator brings the returned command back within it.
+  double tentative = 0.0;
+  bool held = false;
+
   double update(double r, double y) {
+    held = false;
     if (parallel) {
       const double e = r - y, v = c * r - y;
       const double p = kp * (b * r - y);
@@ -510,9 +583,11 @@ struct SampledController : PidLaw {
       if (ki != 0.0 && anti_windup == AntiWindup::back_calculation) di += ts / tt * (ua_prev - uc_prev);
       const double dn = kd != 0.0 ? a_d * deriv + kd / (tf + ts) * (v - v_prev) : 0.0;
       double uc = p + integral + di + dn;
+      tentative = uc;
       if (ki != 0.0 && anti_windup == AntiWindup::conditional_integration && ((uc > umax && di > 0.0) || (uc < umin && di < 0.0))) {
         di = 0.0;  // conditional integration: the increment would push further into the limit
         uc = p + integral + dn;
+        held = true;
       }
       integral += di;
       deriv = dn;
@@ -526,6 +601,7 @@ struct SampledController : PidLaw {
     double uc = 0.0;
     for (std::size_t j = 0; j < num.size(); ++j) uc += num[j] * e_hist[j];
     for (std::size_t j = 1; j < den.size(); ++j) uc -= den[j] * u_hist[j - 1];
+    tentative = uc;
     std::rotate(u_hist.rbegin(), u_hist.rbegin() + 1, u_hist.rend());
     if (!u_hist.empty()) u_hist[0] = uc;
     uc_prev = uc;
@@ -533,43 +609,53 @@ struct SampledController : PidLaw {
   }
 };
 
+// r → y at DC of the linear loop u = C_r·r − C·y, y = G·u, from the plant's and the controller's
+// own DC values (not from the closed loop's state matrix: with a stiff plant and a large gain its
+// entries span so many decades that a rank-revealing factorization calls it singular, and y∞
+// came out NaN). `weight` = C_r(0)/C(0). NaN when the limit is 0/0 (a plant zero at the origin
+// against an integrating controller).
+double loop_dc_gain(const StateSpace& plant, const TransferFunction& c, double weight) {
+  const double nc0 = c.numerator.coefficients.back(), dc0 = c.denominator.coefficients.back();
+  const Eigen::Index n = plant.A.rows();
+  Eigen::EigenSolver<Eigen::MatrixXd> es(plant.A, false);
+  double rho = 0.0, smallest = std::numeric_limits<double>::infinity();
+  for (Eigen::Index i = 0; i < n; ++i) {
+    rho = std::max(rho, std::abs(es.eigenvalues()(i)));
+    smallest = std::min(smallest, std::abs(es.eigenvalues()(i)));
+  }
+  const bool plant_integrates = es.info() != Eigen::Success || smallest <= 1e-13 * std::max(1.0, rho);
+  const double g0 = plant_integrates ? std::numeric_limits<double>::infinity()
+                                     : plant.D(0) - plant.C.row(0).dot(plant.A.partialPivLu().solve(plant.B));
+  if (dc0 == 0.0) {  // an integrating controller: T(0) = C_r/C at s → 0 = 1
+    if (nc0 == 0.0 || g0 == 0.0) return std::numeric_limits<double>::quiet_NaN();
+    return 1.0;
+  }
+  const double c0 = nc0 / dc0;
+  if (plant_integrates) return c0 != 0.0 ? weight : std::numeric_limits<double>::quiet_NaN();
+  return weight * c0 * g0 / (1.0 + c0 * g0);
+}
+
+// Whether the sampled controller runs the parallel law (PID family) or Tustin of the whole C(s).
+bool samples_parallel_law(const Controller& controller) {
+  const Structure st = controller.structure;
+  return controller.parallel && st != Structure::lead && st != Structure::lag && st != Structure::lead_lag;
+}
+
 SampledController make_sampled(const Controller& controller, const LoopModel& model, double ts) {
   SampledController sc;
   sc.ts = ts;
   sc.umin = model.umin;
   sc.umax = model.umax;
-  sc.equation.sample_time_s = ts;
-  const Structure st = controller.structure;
-  const bool tustin_whole = !controller.parallel || st == Structure::lead || st == Structure::lag || st == Structure::lead_lag;
-  if (!tustin_whole) {
+  sc.equation = controller_difference_equation(controller, ts, model.b, model.c);
+  if (samples_parallel_law(controller)) {
     sc.parallel = true;
     static_cast<PidLaw&>(sc) = model;
     sc.a_d = sc.kd != 0.0 ? sc.tf / (sc.tf + ts) : 0.0;
-    const std::vector<double> den_i = sc.ki != 0.0 ? std::vector<double>{1.0, -1.0} : std::vector<double>{1.0};
-    const std::vector<double> den_d = sc.kd != 0.0 ? std::vector<double>{1.0, -sc.a_d} : std::vector<double>{1.0};
-    const std::vector<double> den = poly_mul(den_i, den_d);
-    auto numerator = [&](double pw, double dw) {
-      std::vector<double> n = poly_add({}, den, sc.kp * pw);
-      if (sc.ki != 0.0) n = poly_add(n, poly_mul({1.0, 1.0}, den_d), sc.ki * ts / 2.0);
-      if (sc.kd != 0.0) n = poly_add(n, poly_mul({1.0, -1.0}, den_i), sc.kd / (sc.tf + ts) * dw);
-      return n;
-    };
-    sc.equation.reference_numerator = numerator(sc.b, sc.c);
-    sc.equation.measurement_numerator = numerator(1.0, 1.0);
-    sc.equation.denominator = den;
-    sc.equation.method = "proportional: direct; integral: Tustin (bilinear); derivative: backward difference on the filtered term Kd*s/(Tf*s + 1)";
   } else {
-    const TransferFunction& tf = controller.transfer;
-    if (!tf.is_proper()) fail("controller: C(s) must be proper for a sampled controller");
-    auto [nz, dz] = tustin_of(tf.numerator, tf.denominator, ts);
-    sc.num = nz;
-    sc.den = dz;
-    sc.e_hist.assign(nz.size(), 0.0);
-    sc.u_hist.assign(dz.size() > 1 ? dz.size() - 1 : 0, 0.0);
-    sc.equation.reference_numerator = nz;
-    sc.equation.measurement_numerator = nz;
-    sc.equation.denominator = dz;
-    sc.equation.method = "Tustin (bilinear) transform of C(s), acting on e = r - y";
+    sc.num = sc.equation.measurement_numerator;
+    sc.den = sc.equation.denominator;
+    sc.e_hist.assign(sc.num.size(), 0.0);
+    sc.u_hist.assign(sc.den.size() > 1 ? sc.den.size() - 1 : 0, 0.0);
   }
   return sc;
 }
@@ -581,6 +667,39 @@ struct Knot {
 };
 
 }  // namespace
+
+DifferenceEquation controller_difference_equation(const Controller& controller, double ts, double setpoint_weight,
+                                                  double derivative_weight) {
+  if (!(std::isfinite(ts) && ts > 0.0)) fail("sample_time_s: expected a finite number > 0");
+  DifferenceEquation eq;
+  eq.sample_time_s = ts;
+  if (samples_parallel_law(controller)) {
+    const ParallelGains& g = *controller.parallel;
+    const double a_d = g.kd != 0.0 ? g.filter_time / (g.filter_time + ts) : 0.0;
+    const std::vector<double> den_i = g.ki != 0.0 ? std::vector<double>{1.0, -1.0} : std::vector<double>{1.0};
+    const std::vector<double> den_d = g.kd != 0.0 ? std::vector<double>{1.0, -a_d} : std::vector<double>{1.0};
+    const std::vector<double> den = poly_mul(den_i, den_d);
+    auto numerator = [&](double pw, double dw) {
+      std::vector<double> n = poly_add({}, den, g.kp * pw);
+      if (g.ki != 0.0) n = poly_add(n, poly_mul({1.0, 1.0}, den_d), g.ki * ts / 2.0);
+      if (g.kd != 0.0) n = poly_add(n, poly_mul({1.0, -1.0}, den_i), g.kd / (g.filter_time + ts) * dw);
+      return n;
+    };
+    eq.reference_numerator = numerator(setpoint_weight, derivative_weight);
+    eq.measurement_numerator = numerator(1.0, 1.0);
+    eq.denominator = den;
+    eq.method = "proportional: direct; integral: Tustin (bilinear); derivative: backward difference on the filtered term Kd*s/(Tf*s + 1)";
+  } else {
+    const TransferFunction& tf = controller.transfer;
+    if (!tf.is_proper()) fail("controller: C(s) must be proper for a sampled controller");
+    auto [nz, dz] = tustin_of(tf.numerator, tf.denominator, ts);
+    eq.reference_numerator = nz;
+    eq.measurement_numerator = nz;
+    eq.denominator = dz;
+    eq.method = "Tustin (bilinear) transform of C(s), acting on e = r - y";
+  }
+  return eq;
+}
 
 NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& controller, const ActuatorModel& actuator,
                                    const LoopOptions& options, double amplitude, double band_fraction) {
@@ -655,10 +774,13 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
       } else {
         // Default tracking time (Åström & Hägglund, Advanced PID Control, 2006, anti-windup
         // section; recalled from memory): Tt = √(Ti·Td) with derivative action, else Ti.
-        if (!(g.kp > 0.0 && g.ki > 0.0)) fail("tracking_time_s: no default without Kp > 0 and Ki > 0; give it explicitly");
+        // Ti = Kp/Ki and Td = Kd/Kp are positive for either action (reverse: all gains negative).
+        if (!(g.kp * g.ki > 0.0))
+          fail("tracking_time_s: no default without Kp and Ki of one sign; give it explicitly");
         const double ti = g.kp / g.ki;
-        model.tt = g.kd > 0.0 ? std::sqrt(ti * g.kd / g.kp) : ti;
+        model.tt = g.kd * g.kp > 0.0 ? std::sqrt(ti * g.kd / g.kp) : ti;
       }
+      result.tracking_time_s = model.tt;
       result.notes.push_back("back-calculation tracking time Tt = " + to_string(model.tt) + " s");
     }
     if (g.ki == 0.0 && options.anti_windup != AntiWindup::none)
@@ -688,11 +810,13 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
 
   // ---- y∞ of the linear loop (final-value theorem) and the default horizon.
   const StateSpace linear = close_loop(plant, realize(controller.transfer));
-  double y_inf = std::numeric_limits<double>::quiet_NaN();
+  // C_r(0)/C(0): the set-point weight b acts at DC only without integral action (the integral
+  // term acts on r − y), and only where the weights are applied at all.
+  const bool weights_applied = model.parallel && (!(period > 0.0) || samples_parallel_law(controller));
+  const double reference_weight_dc = weights_applied && model.ki == 0.0 ? model.b : 1.0;
+  const double y_inf = amplitude * loop_dc_gain(plant, controller.transfer, reference_weight_dc);
   double horizon = options.horizon_s;
   {
-    Eigen::FullPivLU<Eigen::MatrixXd> lu(linear.A);
-    if (lu.isInvertible()) y_inf = amplitude * (linear.D(0) - linear.C.row(0).dot(lu.solve(linear.B)));
     if (!(horizon > 0.0)) {
       if (!options.sample_times_s.empty()) {
         horizon = options.sample_times_s.back();
@@ -752,6 +876,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   double noise_period = 0.0;
   if (options.noise_rms > 0.0) {
     noise_period = options.noise_period_s > 0.0 ? options.noise_period_s : (period > 0.0 ? period : horizon / 2000.0);
+    result.noise_period_s = noise_period;
     if (horizon / noise_period > 1e6) fail("noise_period_s: more than 1e6 noise values per horizon");
     noise = gaussian_sequence(options.noise_rms, options.noise_seed,
                               static_cast<std::size_t>(std::floor(horizon / noise_period)) + 2);
@@ -780,6 +905,8 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   int work = 0;  // accepted steps + restarts, against max_steps
   int domain_retries = 0;  // smaller-step retries after a plant model left its domain
   double saturated_time = 0.0, slewing_time = 0.0;
+  double held_time = 0.0;          // the integrator held by conditional integration
+  double tentative_excess = 0.0;   // sampled controller: command excess before the integrator was held
   auto stop = [&](NonlinearStatus s, const std::string& why) {
     result.status = s;
     result.notes.push_back(why);
@@ -840,6 +967,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
         return false;
       };
       double dt = std::min(horizon / 4000.0, period);
+      if (options.first_step_s > 0.0) dt = std::min(dt, options.first_step_s);
       long k = 0;
       double t = 0.0;
       try {
@@ -851,7 +979,14 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
             const double uc = ctl.update(amplitude, y);
             if (!std::isfinite(uc)) return halt(NonlinearStatus::non_finite, "the controller output became non-finite at t = " + to_string(tk) + " s");
             commands.push_back(uc);
-            if (uc > model.umax || uc < model.umin) saturated_time += std::min(period, horizon - tk);
+            // Saturated: the command beyond a limit at this sample, as first computed (before the
+            // conditional integration held the integrator) or as returned.
+            const double highest = std::max(ctl.tentative, uc), low = std::min(ctl.tentative, uc);
+            if (highest > model.umax || low < model.umin) {
+              saturated_time += std::min(period, horizon - tk);
+              tentative_excess = std::max({tentative_excess, highest - model.umax, model.umin - low});
+            }
+            if (ctl.held) held_time += std::min(period, horizon - tk);
             const double target = std::clamp(uc, model.umin, model.umax);
             const double now = applied_at(tk);
             double end_value = target;
@@ -972,6 +1107,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
       };
 
       double dt = std::min(horizon / 4000.0, max_dt);
+      if (options.first_step_s > 0.0) dt = std::min(dt, options.first_step_s);
       Modes modes;
       if (model.rate) {  // the actuator starts at rest at u = 0 and must slew to the command at 0+
         const double us = std::clamp(model.command(x.data()), model.umin, model.umax);
@@ -1033,6 +1169,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
               record_until(hi, true, modes, dense_at);
               if (modes.sat != 0) saturated_time += hi - ta;
               if (modes.rate != RateMode::tracking) slewing_time += hi - ta;
+              if (model.clamps() && (!modes.integrating || modes.sliding)) held_time += hi - ta;
               dense.calc_state(hi, x);
               t = hi;
               ++result.switches;
@@ -1042,6 +1179,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
             record_until(tc, inclusive || tb < t_end, modes, dense_at);
             if (modes.sat != 0) saturated_time += tc - ta;
             if (modes.rate != RateMode::tracking) slewing_time += tc - ta;
+            if (model.clamps() && (!modes.integrating || modes.sliding)) held_time += tc - ta;
             if (tb >= t_end) {
               x = xe;
               t = t_end;
@@ -1081,10 +1219,13 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
                            "plant model's domain");
   result.saturated_fraction = saturated_time / horizon;
   result.rate_limited_fraction = slewing_time / horizon;
+  result.integrator_held_fraction = held_time / horizon;
+  result.command_excess_max = tentative_excess;
   for (double uc : result.command)
     result.command_excess_max = std::max(result.command_excess_max, std::max(uc - model.umax, model.umin - uc));
   if (std::isfinite(y_inf) && std::abs(y_inf) > 1e-12 * std::abs(amplitude)) {
     result.metrics = measure(result.time_s, result.output, result.control, y_inf, amplitude, band_fraction);
+    result.measured = true;
     result.notes.push_back("metrics relative to the linear loop's final value y_inf = " + to_string(y_inf));
   } else {
     result.notes.push_back("metrics not measured: the linear loop has no finite nonzero final value");

@@ -74,6 +74,16 @@ std::string script_frame(const std::string& name, const std::string& body, int w
       name, body, width, height, width * 4 / 3, height * 4 / 3);
 }
 
+std::string plot_command(const std::vector<std::string>& clauses, const std::string& empty_note) {
+  if (!clauses.empty()) return fmt::format("  plot {}\n", fmt::join(clauses, ", \\\n       "));
+  // gnuplot needs something to plot; NaN draws nothing, and fixed ranges keep it from failing on
+  // an empty autoscale.
+  return fmt::format("  set label {} at graph 0.5,0.5 center font ',12' textcolor rgb '#555555'\n"
+                     "  set yrange [-1:1]\n"
+                     "  plot NaN notitle\n",
+                     quoted(empty_note));
+}
+
 bool gnuplot_available() { return std::system("command -v gnuplot >/dev/null 2>&1") == 0; }
 
 std::string shell_quoted(const std::string& s) {
@@ -212,14 +222,25 @@ figcaption{font-size:.9em;color:#444}.caution{border:1px solid #c62828;padding:.
 void write_staged(const fs::path& target_in, const std::vector<std::string>& entries,
                   const std::function<void(const fs::path& staging)>& write) {
   const fs::path target = target_in.empty() ? fs::path(".") : target_in;
-  fs::create_directories(target.parent_path().empty() ? fs::path(".") : target.parent_path());
   const fs::path staging = target.parent_path() / fmt::format(".{}.partial-{}", target.filename().string(), ::getpid());
-  fs::remove_all(staging);
-  fs::create_directories(staging);
+  try {
+    // Where the output goes is the user's choice: a failure here is bad input, not a bug.
+    if (fs::exists(target) && !fs::is_directory(target))
+      throw OutputError(fmt::format("{}: exists and is not a folder; choose another output folder", target.string()));
+    fs::create_directories(target.parent_path().empty() ? fs::path(".") : target.parent_path());
+    fs::remove_all(staging);
+    fs::create_directories(staging);
+  } catch (const fs::filesystem_error& e) {
+    throw OutputError(fmt::format("{}: cannot create the output folder: {}", target.string(), e.code().message()));
+  }
   try {
     write(staging);
     // Move everything in: files replace their old versions, folders are swapped whole.
-    fs::create_directories(target);
+    try {
+      fs::create_directories(target);
+    } catch (const fs::filesystem_error& e) {
+      throw OutputError(fmt::format("{}: cannot create the output folder: {}", target.string(), e.code().message()));
+    }
     for (const std::string& entry : entries) {
       if (fs::is_directory(staging / entry)) fs::remove_all(target / entry);
       fs::rename(staging / entry, target / entry);
@@ -233,3 +254,46 @@ void write_staged(const fs::path& target_in, const std::vector<std::string>& ent
 }
 
 }  // namespace specloop::page
+
+namespace specloop {
+
+namespace {
+namespace fs = std::filesystem;
+
+// The nearest existing folder on the way to `path` must be a writable folder.
+void check_creatable(const fs::path& path, std::string_view option, const fs::path& shown) {
+  fs::path probe = fs::absolute(path).lexically_normal();
+  std::error_code error;
+  while (!probe.empty() && !fs::exists(probe, error)) {
+    if (probe == probe.parent_path()) break;
+    probe = probe.parent_path();
+  }
+  if (!fs::is_directory(probe, error))
+    throw OutputError(fmt::format("{} {}: cannot be created: {} is a file, not a folder", option, shown.string(),
+                                  probe.string()));
+  if (::access(probe.c_str(), W_OK | X_OK) != 0)
+    throw OutputError(fmt::format("{} {}: cannot be written: no permission to write in {}", option, shown.string(),
+                                  probe.string()));
+}
+}  // namespace
+
+void check_output_folder(const fs::path& dir_in, std::string_view option) {
+  const fs::path dir = dir_in.empty() ? fs::path(".") : dir_in;
+  std::error_code error;
+  if (fs::exists(dir, error) && !fs::is_directory(dir, error))
+    throw OutputError(fmt::format("{} {}: exists and is a file, not a folder; choose a folder for the outputs", option,
+                                  dir.string()));
+  // The staging folder goes beside `dir`, so its parent must be writable too.
+  check_creatable(fs::absolute(dir).lexically_normal().parent_path(), option, dir);
+  if (fs::is_directory(dir, error) && ::access(dir.c_str(), W_OK | X_OK) != 0)
+    throw OutputError(fmt::format("{} {}: cannot be written: no permission", option, dir.string()));
+}
+
+void check_output_file(const fs::path& file, std::string_view option) {
+  std::error_code error;
+  if (fs::is_directory(file, error))
+    throw OutputError(fmt::format("{} {}: is a folder; give a file name", option, file.string()));
+  check_creatable(fs::absolute(file).lexically_normal().parent_path(), option, file);
+}
+
+}  // namespace specloop

@@ -27,6 +27,11 @@ std::string quoted(const std::string& s);
 /// One gnuplot script drawing NAME.svg and NAME.png from `body` (indented plot commands).
 std::string script_frame(const std::string& name, const std::string& body, int width = 900, int height = 520);
 
+/// "  plot a, b, …\n" from the clauses of a figure; with no clause left (every series empty or
+/// left out for a non-finite value) an empty frame with `empty_note` across it instead, so that a
+/// figure is always drawn and never fails the run. Give empty frames fixed axis ranges.
+std::string plot_command(const std::vector<std::string>& clauses, const std::string& empty_note);
+
 bool gnuplot_available();
 std::string shell_quoted(const std::string& s);
 

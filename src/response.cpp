@@ -63,10 +63,15 @@ TimeGrid choose_time_grid(const std::vector<Complex>& poles, const TimeGridRules
   } else {
     const double fine = rules.max_step_pole_product / fastest;
     const double t1 = std::min(fast_alive, horizon);
-    int fine_n = static_cast<int>(std::ceil(t1 / fine));
-    int coarse_n = t1 < horizon ? static_cast<int>(std::ceil((horizon - t1) / coarse)) : 0;
-    if (fine_n + coarse_n > max_intervals) {  // the cap: loosen the fine step
+    // Counted in double and capped before the conversion: a barely damped fast pair (σ tiny,
+    // |p| large) asks for more intervals than an int holds.
+    const double fine_wanted = std::ceil(t1 / fine);
+    const int coarse_n = t1 < horizon ? static_cast<int>(std::ceil((horizon - t1) / coarse)) : 0;
+    int fine_n = 0;
+    if (!(fine_wanted + coarse_n <= max_intervals)) {  // the cap: loosen the fine step
       fine_n = std::max(1, max_intervals - coarse_n);
+    } else {
+      fine_n = std::max(1, static_cast<int>(fine_wanted));
     }
     grid.step_s = t1 / fine_n;
     grid.fine_intervals = fine_n;
@@ -109,6 +114,100 @@ bool has_avx() {
 }
 #endif
 
+// s in [a, b] where f.value(s) equals `level`, given g_a = f(a) − level and g_b = f(b) − level on
+// opposite sides (or on it). TOMS 748 (Alefeld, Potra & Shi; Boost) brackets the root to a few
+// ulps in about ten evaluations, where bisection needed fifty; not bracketed (rounding at the
+// band edge): plain bisection.
+template <class F>
+double level_crossing(const F& f, double level, double a, double b, double g_a, double g_b) {
+  if (g_a == 0.0) return a;
+  if (g_b == 0.0) return b;
+  if ((g_a > 0.0) == (g_b > 0.0)) {
+    double lo = a, hi = b;
+    for (int i = 0; i < 50; ++i) {
+      const double mid = 0.5 * (lo + hi);
+      if ((f.value(mid) - level > 0.0) == (g_a > 0.0)) lo = mid; else hi = mid;
+    }
+    return 0.5 * (lo + hi);
+  }
+  std::uintmax_t iterations = 100;
+  const auto [lo, hi] = boost::math::tools::toms748_solve([&](double x) { return f.value(x) - level; }, a, b, g_a, g_b,
+                                                          boost::math::tools::eps_tolerance<double>(), iterations);
+  return 0.5 * (lo + hi);
+}
+
+// The last s in [0, 1] at which f lies outside [lo, hi] (strictly), i.e. where it leaves that
+// band for the last time within the interval; −1 when it stays inside throughout. f is monotone
+// between its stationary points `st` (ascending, inside (0, 1)), so each piece, taken from the
+// end, has at most one crossing of the edge its start violates.
+template <class F>
+double last_outside_of(const F& f, const double* st, int n, double f0, double f1, double lo, double hi) {
+  double cuts[4] = {0.0, 0.0, 0.0, 1.0};
+  for (int i = 0; i < n; ++i) cuts[1 + i] = st[i];
+  cuts[1 + n] = 1.0;
+  auto outside = [&](double v) { return v > hi || v < lo; };
+  double v_end = f1;
+  for (int piece = n; piece >= 0; --piece) {
+    const double a = cuts[piece], b = cuts[piece + 1];
+    if (outside(v_end)) return b;
+    const double v_start = a == 0.0 ? f0 : f.value(a);
+    if (outside(v_start)) {
+      const double level = v_start > hi ? hi : lo;
+      return level_crossing(f, level, a, b, v_start - level, v_end - level);
+    }
+    v_end = v_start;
+  }
+  return -1.0;
+}
+
+// The exact response on one sample interval [t_k, t_k + h], expanded about one of its ends
+// t_b = t_k + s_b·h (s_b = 0 or 1). With the step input constant, x' = A·x + B·r gives
+// x^(i+1) = A^i·x'(t_b), so y(t_k + s·h) = y_b + Σ_{i≥0} c_i ((s − s_b)·h)^{i+1}/(i+1)! with
+// c_i = C·A^i·x'(t_b): the Taylor series of the exponential, which converges for every s and, on
+// this grid (h·|p| ≤ 1), within a few dozen terms at most. Kept as a_i = c_i·h^{i+1}/(i+1)! so
+// that value(s) = y_b + Σ a_i (s − s_b)^{i+1}. Used where a value between samples decides
+// something (the peak, a hump at the band edge), instead of the cubic Hermite.
+struct ExactSeries {
+  static constexpr int kMaxTerms = 48;
+  double base = 0.0;  // s_b
+  double fb = 0.0;    // y_b
+  double a[kMaxTerms] = {};
+  int terms = 0;
+  double value(double s) const {
+    const double d = s - base;
+    double v = 0.0;
+    for (int j = terms - 1; j >= 0; --j) v = v * d + a[j];
+    return fb + v * d;
+  }
+  double slope(double s) const {  // d/ds
+    const double d = s - base;
+    double v = 0.0;
+    for (int j = terms - 1; j >= 0; --j) v = v * d + (j + 1) * a[j];
+    return v;
+  }
+  double curvature(double s) const {  // d²/ds²
+    const double d = s - base;
+    double v = 0.0;
+    for (int j = terms - 1; j >= 1; --j) v = v * d + (j + 1) * j * a[j];
+    return v;
+  }
+  // The stationary point near s0 (Newton on the slope), kept within [0, 1]; s0 when Newton
+  // does not settle there. From the Hermite's location (off by O(h⁴)) two steps reach 1e-12 of
+  // the interval, where the value is exact to rounding (its error is quadratic in the location's).
+  double stationary_near(double s0) const {
+    double x = s0;
+    for (int i = 0; i < 8; ++i) {
+      const double c = curvature(x);
+      if (c == 0.0) return s0;
+      const double step = slope(x) / c;
+      x -= step;
+      if (!(x >= 0.0 && x <= 1.0)) return s0;
+      if (std::abs(step) <= 1e-12) break;
+    }
+    return x;
+  }
+};
+
 // Cubic Hermite interpolant on one interval of length h: values f0, f1 and slopes d0, d1.
 struct Hermite {
   double f0, f1, d0, d1, h;
@@ -142,41 +241,59 @@ struct Hermite {
     }
     return best;
   }
-  // s in [0, 1] where the interpolant equals `level`; f0 and f1 lie on opposite sides (or on it).
-  // TOMS 748 (Alefeld, Potra & Shi; Boost) brackets the root to a few ulps in about ten
-  // evaluations, where bisection needed fifty.
-  double crossing(double level) const {
-    const double g0 = f0 - level, g1 = f1 - level;
-    if (g0 == 0.0) return 0.0;
-    if (g1 == 0.0) return 1.0;
-    if ((g0 > 0.0) == (g1 > 0.0)) {  // not bracketed (rounding at the band edge): plain bisection
-      double lo = 0.0, hi = 1.0;
-      for (int i = 0; i < 50; ++i) {
-        const double mid = 0.5 * (lo + hi);
-        if ((value(mid) - level > 0.0) == (g0 > 0.0)) lo = mid; else hi = mid;
+  // s in [a, b] where the interpolant equals `level`; its values at a and b lie on opposite sides
+  // (or on it).
+  double crossing(double level, double a = 0.0, double b = 1.0) const {
+    return level_crossing(*this, level, a, b, (a == 0.0 ? f0 : value(a)) - level, (b == 1.0 ? f1 : value(b)) - level);
+  }
+  // The stationary points of the interpolant inside (0, 1), ascending; returns how many (0–2).
+  int stationary(double (&s)[2]) const {
+    const double a = 6 * f0 + 3 * h * d0 - 6 * f1 + 3 * h * d1;
+    const double b = -6 * f0 - 4 * h * d0 + 6 * f1 - 2 * h * d1;
+    const double c = h * d0;
+    int n = 0;
+    auto keep = [&](double r) {
+      if (r > 0.0 && r < 1.0) s[n++] = r;
+    };
+    if (std::abs(a) > 1e-300) {
+      const double disc = b * b - 4 * a * c;
+      if (disc >= 0.0) {
+        const double q = -0.5 * (b + std::copysign(std::sqrt(disc), b));
+        if (q != 0.0) keep(c / q);
+        keep(q / a);
       }
-      return 0.5 * (lo + hi);
+    } else if (std::abs(b) > 1e-300) {
+      keep(-c / b);
     }
-    std::uintmax_t iterations = 100;
-    const auto [lo, hi] = boost::math::tools::toms748_solve([&](double s) { return value(s) - level; }, 0.0, 1.0, g0, g1,
-                                                            boost::math::tools::eps_tolerance<double>(), iterations);
-    return 0.5 * (lo + hi);
+    if (n == 2 && s[0] > s[1]) std::swap(s[0], s[1]);
+    return n;
+  }
+  // The last s in [0, 1] at which the interpolant lies outside [lo, hi]; −1 if never (last_outside_of).
+  double last_outside(double lo, double hi) const {
+    double st[2];
+    const int n = stationary(st);
+    return last_outside_of(*this, st, n, f0, f1, lo, hi);
   }
 };
 
-// One pass over the samples: the extremes of y and u, and two bit masks (64 samples a word, bit j
-// of word w is sample 64w + j): `below`, e = y∞ − y < 0 (the sign bit of e), and `outside`,
-// |y/y∞ − 1| > band. Sign changes of e and band exits are then found a word at a time.
+// One pass over the samples: the extremes of y and u, and three bit masks (64 samples a word, bit
+// j of word w is sample 64w + j): `below`, e = y∞ − y < 0 (the sign bit of e); `outside`,
+// |y/y∞ − 1| > band; `falling`, y[k+1] < y[k] (the caller keeps y[count] readable; bit count − 1
+// is meaningless). Sign changes of e, band exits and the samples where y turns (sample extrema)
+// are then found a word at a time.
 struct SampleExtremes {
   double y_hi, y_lo, u_hi, u_lo;
+};
+struct ScanBits {
+  std::uint64_t *below, *outside, *falling;
 };
 
 #if defined(SPECLOOP_AVX_KERNELS)
 // scan_samples' vector part four samples a step (AVX); max, min and comparisons are exact, so
 // this finds the same extremes and bits. Returns the first sample left for the scalar tail.
 __attribute__((target("avx"))) int scan_samples_avx(const double* y, const double* u, int count, double y_inf,
-                                                    double inv, double band, std::uint64_t* below,
-                                                    std::uint64_t* outside, SampleExtremes& ex) {
+                                                    double inv, double band, const ScanBits& bits,
+                                                    SampleExtremes& ex) {
   const __m256d v_inf = _mm256_set1_pd(y_inf), v_inv = _mm256_set1_pd(inv), v_one = _mm256_set1_pd(1.0),
                 v_band = _mm256_set1_pd(band),
                 v_abs = _mm256_castsi256_pd(_mm256_set1_epi64x(0x7fffffffffffffffLL));
@@ -184,19 +301,22 @@ __attribute__((target("avx"))) int scan_samples_avx(const double* y, const doubl
           vul = _mm256_set1_pd(ex.u_lo);
   int k = 0;
   for (; k + 64 <= count; k += 64) {
-    std::uint64_t b = 0, o = 0;
+    std::uint64_t b = 0, o = 0, f = 0;
     for (int j = 0; j < 64; j += 4) {
-      const __m256d yv = _mm256_loadu_pd(y + k + j), uv = _mm256_loadu_pd(u + k + j);
+      const __m256d yv = _mm256_loadu_pd(y + k + j), uv = _mm256_loadu_pd(u + k + j),
+                    yn = _mm256_loadu_pd(y + k + j + 1);
       b |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_sub_pd(v_inf, yv))) << j;
       const __m256d dev = _mm256_and_pd(_mm256_sub_pd(_mm256_mul_pd(yv, v_inv), v_one), v_abs);
       o |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_cmp_pd(dev, v_band, _CMP_GT_OS))) << j;
+      f |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_cmp_pd(yn, yv, _CMP_LT_OS))) << j;
       vyh = _mm256_max_pd(yv, vyh);
       vyl = _mm256_min_pd(yv, vyl);
       vuh = _mm256_max_pd(uv, vuh);
       vul = _mm256_min_pd(uv, vul);
     }
-    below[k / 64] = b;
-    outside[k / 64] = o;
+    bits.below[k / 64] = b;
+    bits.outside[k / 64] = o;
+    bits.falling[k / 64] = f;
   }
   double lanes[4];
   _mm256_storeu_pd(lanes, vyh);
@@ -212,13 +332,13 @@ __attribute__((target("avx"))) int scan_samples_avx(const double* y, const doubl
 #endif
 
 SampleExtremes scan_samples(const double* y, const double* u, int count, double y_inf, double inv, double band,
-                            std::uint64_t* below, std::uint64_t* outside) {
+                            const ScanBits& bits) {
   double yh = y[0], yl = y[0], uh = u[0], ul = u[0];
   int k = 0;
 #if defined(SPECLOOP_AVX_KERNELS)
   if (has_avx()) {
     SampleExtremes ex{yh, yl, uh, ul};
-    k = scan_samples_avx(y, u, count, y_inf, inv, band, below, outside, ex);
+    k = scan_samples_avx(y, u, count, y_inf, inv, band, bits, ex);
     yh = ex.y_hi;
     yl = ex.y_lo;
     uh = ex.u_hi;
@@ -232,19 +352,21 @@ SampleExtremes scan_samples(const double* y, const double* u, int count, double 
                 v_band = _mm_set1_pd(band), v_abs = _mm_castsi128_pd(_mm_set1_epi64x(0x7fffffffffffffffLL));
   __m128d vyh = _mm_set1_pd(yh), vyl = _mm_set1_pd(yl), vuh = _mm_set1_pd(uh), vul = _mm_set1_pd(ul);
   for (; k + 64 <= count; k += 64) {
-    std::uint64_t b = 0, o = 0;
+    std::uint64_t b = 0, o = 0, f = 0;
     for (int j = 0; j < 64; j += 2) {
-      const __m128d yv = _mm_loadu_pd(y + k + j), uv = _mm_loadu_pd(u + k + j);
+      const __m128d yv = _mm_loadu_pd(y + k + j), uv = _mm_loadu_pd(u + k + j), yn = _mm_loadu_pd(y + k + j + 1);
       b |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_sub_pd(v_inf, yv))) << j;
       const __m128d dev = _mm_and_pd(_mm_sub_pd(_mm_mul_pd(yv, v_inv), v_one), v_abs);
       o |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmpgt_pd(dev, v_band))) << j;
+      f |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmplt_pd(yn, yv))) << j;
       vyh = _mm_max_pd(yv, vyh);
       vyl = _mm_min_pd(yv, vyl);
       vuh = _mm_max_pd(uv, vuh);
       vul = _mm_min_pd(uv, vul);
     }
-    below[k / 64] = b;
-    outside[k / 64] = o;
+    bits.below[k / 64] = b;
+    bits.outside[k / 64] = o;
+    bits.falling[k / 64] = f;
   }
   double lanes[2];
   _mm_storeu_pd(lanes, vyh);
@@ -257,18 +379,20 @@ SampleExtremes scan_samples(const double* y, const double* u, int count, double 
   ul = std::min(lanes[0], lanes[1]);
 #endif
   for (; k < count; k += 64) {  // the rest (everything without SSE2)
-    std::uint64_t b = 0, o = 0;
+    std::uint64_t b = 0, o = 0, f = 0;
     for (int j = 0; j < 64 && k + j < count; ++j) {
-      const double yk = y[k + j], uk = u[k + j];
+      const double yk = y[k + j], uk = u[k + j], dev = std::abs(yk * inv - 1.0);
       b |= static_cast<std::uint64_t>(std::signbit(y_inf - yk)) << j;
-      o |= static_cast<std::uint64_t>(std::abs(yk * inv - 1.0) > band) << j;
+      o |= static_cast<std::uint64_t>(dev > band) << j;
+      f |= static_cast<std::uint64_t>(y[k + j + 1] < yk) << j;
       yh = yk > yh ? yk : yh;
       yl = yk < yl ? yk : yl;
       uh = uk > uh ? uk : uh;
       ul = uk < ul ? uk : ul;
     }
-    below[k / 64] = b;
-    outside[k / 64] = o;
+    bits.below[k / 64] = b;
+    bits.outside[k / 64] = o;
+    bits.falling[k / 64] = f;
   }
   return {yh, yl, uh, ul};
 }
@@ -337,8 +461,26 @@ SegmentSums segment_sums(const double* y, int first, int last, double y_inf, dou
 // Queries on the bit masks of scan_samples for `count` samples.
 class SampleBits {
  public:
-  SampleBits(const std::uint64_t* below, const std::uint64_t* outside, int count)
-      : below_(below), outside_(outside), count_(count), words_((count + 63) / 64) {}
+  SampleBits(const ScanBits& bits, int count)
+      : below_(bits.below), outside_(bits.outside), falling_(bits.falling), count_(count),
+        words_((count + 63) / 64) {}
+  int words() const { return words_; }
+  // Word w of the samples where f = y/y∞ − 1 turns, 1 ≤ k ≤ count − 2: `maxima` (f rose into k
+  // and falls after it) or minima. `f_follows_y` is true when y∞ > 0, else f mirrors y.
+  // Plateaus count once, at one of their ends.
+  std::uint64_t turns(int w, bool f_follows_y, bool maxima) const {
+    const std::uint64_t flip = f_follows_y ? 0 : ~std::uint64_t{0};
+    const std::uint64_t fall = falling_[w] ^ flip;  // f[k+1] < f[k] (up to ties)
+    const std::uint64_t carry = w > 0 ? ((falling_[w - 1] ^ flip) >> 63) : 0;
+    const std::uint64_t fell = (fall << 1) | carry;  // f[k] < f[k−1]
+    std::uint64_t t = maxima ? (fall & ~fell) : (~fall & fell);
+    if (w == 0) t &= ~std::uint64_t{1};  // k = 0 has no left neighbour
+    return t & interior(w);
+  }
+  // Word w of the samples where f > 0: y beyond y∞ in its direction (f = 0 may count either way).
+  std::uint64_t beyond(int w, bool f_follows_y) const {
+    return (f_follows_y ? below_[w] : ~below_[w]) & valid(w);
+  }
 
   // Smallest k in [from, count) where e changes sign between samples k − 1 and k; count if none.
   int next_sign_change(int from) const {
@@ -370,7 +512,12 @@ class SampleBits {
     const int n = count_ - 64 * w;
     return n >= 64 ? ~std::uint64_t{0} : (std::uint64_t{1} << n) - 1;
   }
-  const std::uint64_t *below_, *outside_;
+  // Samples 0 .. count − 2 (the falling bit of the last sample is meaningless).
+  std::uint64_t interior(int w) const {
+    const int n = count_ - 1 - 64 * w;
+    return n >= 64 ? ~std::uint64_t{0} : n <= 0 ? 0 : (std::uint64_t{1} << n) - 1;
+  }
+  const std::uint64_t *below_, *outside_, *falling_;
   int count_, words_;
 };
 
@@ -618,13 +765,13 @@ void StepSimulator::prepare(int n, int samples) {
     poles_.reserve(static_cast<std::size_t>(n));
     states_ = n;
   }
-  if (static_cast<int>(y_.size()) < samples) {
-    for (auto* v : {&y_, &u_}) v->resize(static_cast<std::size_t>(samples));
+  // One sample more than used: the scan reads y[k + 1] beside y[k] (see scan_samples).
+  if (static_cast<int>(y_.size()) < samples + 1) {
+    for (auto* v : {&y_, &u_}) v->resize(static_cast<std::size_t>(samples) + 1);
   }
   const std::size_t words = static_cast<std::size_t>(samples + 63) / 64;
   if (below_bits_.size() < words) {
-    below_bits_.resize(words);
-    outside_bits_.resize(words);
+    for (auto* v : {&below_bits_, &outside_bits_, &falling_bits_}) v->resize(words);
   }
   // Room for the fixed-size kernels' blocks: each segment starts on a whole block and its last,
   // partial block is stored whole.
@@ -703,11 +850,10 @@ bool StepSimulator::eigenvalues(const Eigen::MatrixXd& a) {
   return true;
 }
 
-double StepSimulator::slope(int row, int k) const {
+const double* StepSimulator::stored_state(int k, std::ptrdiff_t& stride) const {
   const int n = states_;
-  if (n == 0) return 0.0;
   const double* x = states_store_.data();
-  std::ptrdiff_t stride = 1;
+  stride = 1;
   if (n <= 8) {  // blocks of kChains samples, component-major, per segment (see recur)
     int local = k, base = 0;
     if (grid_.coarse_intervals > 0 && k >= grid_.fine_intervals) {
@@ -719,6 +865,14 @@ double StepSimulator::slope(int row, int k) const {
   } else {
     x += static_cast<std::ptrdiff_t>(k) * n;
   }
+  return x;
+}
+
+double StepSimulator::slope(int row, int k) const {
+  const int n = states_;
+  if (n == 0) return 0.0;
+  std::ptrdiff_t stride = 1;
+  const double* x = stored_state(k, stride);
   double v = out_const_(row);
   for (int i = 0; i < n; ++i) v += outputs_(row, i) * x[i * stride];
   return v;
@@ -801,10 +955,11 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
 
   const double inv = 1.0 / y_inf;
   const auto [y_hi, y_lo, u_hi, u_lo] =
-      scan_samples(y, u, K, y_inf, inv, band_fraction, below_bits_.data(), outside_bits_.data());
+      scan_samples(y, u, K, y_inf, inv, band_fraction,
+                   ScanBits{below_bits_.data(), outside_bits_.data(), falling_bits_.data()});
   if (!std::isfinite(y_hi) || !std::isfinite(y_lo) || !std::isfinite(u_hi) || !std::isfinite(u_lo))
     return StepStatus::numerical_failure;
-  const SampleBits bits(below_bits_.data(), outside_bits_.data(), K);
+  const SampleBits bits(ScanBits{below_bits_.data(), outside_bits_.data(), falling_bits_.data()}, K);
   auto first_equal = [&](const double* f, double v) {
     int k = 0;
     while (f[k] != v) ++k;
@@ -872,31 +1027,152 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
 
   auto interval_y = [&](int k) { return Hermite{y[k], y[k + 1], dy(k), dy(k + 1), t(k + 1) - t(k)}; };
   auto interval_u = [&](int k) { return Hermite{u[k], u[k + 1], du(k), du(k + 1), t(k + 1) - t(k)}; };
-  // Refined extremum around sample k (intervals k−1..k and k..k+1). Returns {value, time}.
-  auto refine_extremum = [&](const double* f, auto interval, int k, double sign) {
-    std::pair<double, double> best{f[k], t(k)};
+
+  // The exact series of output row `row` (0: y, 1: u) on interval (j, j + 1) (ExactSeries),
+  // expanded about the interval's end nearer to `s_near` from the state stored there, with terms
+  // until they vanish at a distance `cover` (in intervals) from it; false when it does not
+  // converge (then the Hermite value stands).
+  const OutputCoordinates oc = n >= 1 && n <= 8 ? output_coordinates(outputs_) : OutputCoordinates{};
+  auto exact_on = [&](int j, int row, double s_near, double cover, ExactSeries& e) -> bool {
+    if (n == 0) return false;
+    const int kb = s_near <= 0.5 ? j : j + 1;
+    std::ptrdiff_t stride = 1;
+    const double* z = stored_state(kb, stride);
+    double* v = x_next_.data();
+    double* w = solve_.data();
+    for (int i = 0; i < n; ++i) w[i] = z[i * stride];
+    if (oc.active) {  // back from z = T·x (see output_coordinates) to the loop's x
+      double zp = w[oc.p];
+      for (int i = 0; i < n; ++i)
+        if (i != oc.p) zp -= outputs_(0, i) * w[i];
+      w[oc.p] = zp / outputs_(0, oc.p);
+    }
+    // x'(t_b), then A^i·x'(t_b), by plain loops (a few dozen products; Eigen's dynamic
+    // matrix-vector product costs more in its call than in its arithmetic at this size).
+    const double* a = loop.A.data();  // column-major
+    for (int r = 0; r < n; ++r) {
+      double acc = amplitude * loop.B(r);
+      for (int col = 0; col < n; ++col) acc += a[col * n + r] * w[col];
+      v[r] = acc;
+    }
+    const double h = t(j + 1) - t(j);
+    e.base = kb - j;
+    e.fb = row == 0 ? y[kb] : u[kb];
+    const double scale = row == 0 ? std::abs(y_hi) + std::abs(y_lo) : std::abs(u_hi) + std::abs(u_lo);
+    double power = h, reach_power = cover;  // h^{i+1}/(i+1)!, cover^{i+1}
+    int negligible = 0;
+    for (int i = 0; i < ExactSeries::kMaxTerms; ++i) {
+      double ci = 0.0;
+      for (int col = 0; col < n; ++col) ci += loop.C(row, col) * v[col];
+      e.a[i] = ci * power;
+      e.terms = i + 1;
+      negligible = std::abs(e.a[i]) * reach_power <= 1e-17 * scale ? negligible + 1 : 0;
+      if (negligible == 2) return true;
+      for (int r = 0; r < n; ++r) {
+        double acc = 0.0;
+        for (int col = 0; col < n; ++col) acc += a[col * n + r] * v[col];
+        w[r] = acc;
+      }
+      std::swap(v, w);
+      power *= h / (i + 2);
+      reach_power *= cover;
+    }
+    return false;
+  };
+
+  // An extremum found: its value, and where: interval (j, j + 1) at fraction s.
+  struct Found {
+    double v;
+    int j;
+    double s;
+  };
+  auto time_of = [&](const Found& f) { return t(f.j) + f.s * (t(f.j + 1) - t(f.j)); };
+  auto at_sample = [&](const double* f, int k) { return k + 1 < K ? Found{f[k], k, 0.0} : Found{f[k], k - 1, 1.0}; };
+  // The cubic Hermite's extremum over the intervals either side of sample k.
+  auto refine_extremum = [&](const double* f, auto interval, int k, double sgn) {
+    Found best = at_sample(f, k);
     for (int j : {k - 1, k}) {
       if (j < 0 || j + 1 >= K) continue;
-      const auto [v, s] = interval(j).extremum(sign);
-      if (sign * v > sign * best.first) best = {v, t(j) + s * (t(j + 1) - t(j))};
+      const auto [v, sp] = interval(j).extremum(sgn);
+      if (sgn * v > sgn * best.v) best = {v, j, sp};
     }
+    return best;
+  };
+  // The same extremum on the exact response: Newton on the exact slope from the Hermite's
+  // location, the exact value there (never worse than the samples either side).
+  auto polish = [&](Found f, int row, double sgn) {
+    const double* samples = row == 0 ? y : u;
+    // Only an extremum strictly between the samples and beyond both by more than rounding (a
+    // response that starts flat has a Hermite "extremum" 1e-20 below its first sample) needs it.
+    const double rounding = 1e-12 * (row == 0 ? std::abs(y_hi) + std::abs(y_lo) : std::abs(u_hi) + std::abs(u_lo));
+    const double beyond = sgn * f.v - std::max(sgn * samples[f.j], sgn * samples[f.j + 1]);
+    if (!(f.s > 0.0 && f.s < 1.0) || !(beyond > rounding)) return f;
+    ExactSeries e;
+    if (!exact_on(f.j, row, f.s, 0.5, e)) return f;
+    // One Newton step on the exact slope from the Hermite's location (off by O(h⁴)): the value
+    // there is the exact maximum to rounding (its error is quadratic in the location's).
+    const double c = e.curvature(f.s);
+    double sp = c != 0.0 ? f.s - e.slope(f.s) / c : f.s;
+    if (!(sp > 0.0 && sp < 1.0)) sp = f.s;
+    Found best{e.value(sp), f.j, sp};
+    for (int k : {f.j, f.j + 1})
+      if (sgn * samples[k] > sgn * best.v) best = {samples[k], f.j, static_cast<double>(k - f.j)};
     return best;
   };
 
   const double sign = y_inf > 0.0 ? 1.0 : -1.0;  // extremes of y/y∞ are extremes of sign·y
-  const auto [y_peak, t_peak] = refine_extremum(y, interval_y, k_max, sign);
-  const double peak_n = y_peak * inv;
+  const bool f_follows_y = y_inf > 0.0;
+  auto fn = [&](int k) { return y[k] * inv - 1.0; };  // f = y/y∞ − 1 at a sample
+  // Between samples, f can pass a sample extremum by about h²|f''|/8, and the three samples
+  // around it give h²|f''| as their second difference; an extremum whose samples are farther
+  // than half that second difference (four times the excess) from what it must beat cannot
+  // beat it, so only the others are refined.
+  auto reach = [&](int k) { return 0.5 * std::abs(2.0 * fn(k) - fn(k - 1) - fn(k + 1)); };
+  // The peak: the sample maximum refined, then every other sample maximum of f beyond y∞ that
+  // could beat it between samples (two nearly equal peaks of a lightly damped loop); the winner
+  // on the exact response.
+  Found peak = refine_extremum(y, interval_y, k_max, sign);
+  for (int w = 0; w < bits.words(); ++w)
+    for (std::uint64_t c = bits.turns(w, f_follows_y, true) & bits.beyond(w, f_follows_y); c; c &= c - 1) {
+      const int k = 64 * w + std::countr_zero(c);
+      if (k == k_max || fn(k) + reach(k) < peak.v * inv - 1.0) continue;
+      const Found f = refine_extremum(y, interval_y, k, sign);
+      if (sign * f.v > sign * peak.v) peak = f;
+    }
+  peak = polish(peak, 0, sign);
+  const double peak_n = peak.v * inv;
   if (peak_n > 1.0 + 1e-9) {
     m.overshoot_pct = (peak_n - 1.0) * 100.0;
-    m.peak_time_s = t_peak;
+    m.peak_time_s = time_of(peak);
+    // The deepest fall below y∞ after the peak: sample minima of f below y∞, refined likewise.
+    Found dip{y_inf, -1, 0.0};
+    for (int w = std::max(0, peak.j) / 64; w < bits.words(); ++w)
+      for (std::uint64_t c = bits.turns(w, f_follows_y, false) & ~bits.beyond(w, f_follows_y); c; c &= c - 1) {
+        const int k = 64 * w + std::countr_zero(c);
+        if (k <= peak.j || fn(k) - reach(k) > dip.v * inv - 1.0) continue;
+        const Found f = refine_extremum(y, interval_y, k, -sign);
+        if (-sign * f.v > -sign * dip.v && time_of(f) > *m.peak_time_s) dip = f;
+      }
+    if (dip.j >= 0) {
+      // The dip decides whether the peak counts (design.hpp, effective_peak_time): on the exact
+      // response when it comes within 1 % of the overshoot, else the Hermite's value stands.
+      const double hermite = -(dip.v * inv - 1.0) * 100.0;
+      const bool close = std::abs(hermite - m.overshoot_pct) <= 0.01 * m.overshoot_pct;
+      m.post_peak_dip_pct = std::max(0.0, close ? -(polish(dip, 0, -sign).v * inv - 1.0) * 100.0 : hermite);
+    }
   }
-  const auto [y_low, t_low] = refine_extremum(y, interval_y, k_min, -sign);
-  (void)t_low;
-  m.undershoot_pct = std::max(0.0, -y_low * inv) * 100.0;
+  // Undershoot only where the response really goes the wrong way: a sample beyond zero, or an
+  // exact initial slope pointing away from y∞. Otherwise it is exactly 0: between samples that
+  // never cross zero, the cubic interpolant of a response starting flat (y = y' = 0 at t = 0)
+  // can dip by rounding-sized amounts that are not in the response.
+  m.undershoot_pct = 0.0;
+  if (y[k_min] * inv < 0.0 || (y[0] * inv <= 0.0 && dy(0) * inv < 0.0)) {
+    const Found low = polish(refine_extremum(y, interval_y, k_min, -sign), 0, -sign);
+    m.undershoot_pct = std::max(0.0, -low.v * inv) * 100.0;
+  }
 
-  const auto [u_peak, t_u] = refine_extremum(u, interval_u, k_effort, u[k_effort] >= 0.0 ? 1.0 : -1.0);
-  (void)t_u;
-  m.effort_peak = std::abs(u_peak);
+  const double u_sign = u[k_effort] >= 0.0 ? 1.0 : -1.0;
+  m.effort_peak = std::abs(polish(refine_extremum(u, interval_u, k_effort, u_sign), 1, u_sign).v);
 
   auto crossing_time = [&](int k_after, double level_n) {
     // First sample at/above the level is k_after; the crossing is in (k_after − 1, k_after).
@@ -913,12 +1189,54 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     m.band_entry_time_s = t(k_entry - 1) + s * (t(k_entry) - t(k_entry - 1));
   }
 
-  if (k_outside < 0) {
-    m.settling_time_s = 0.0;
-  } else if (k_outside + 1 < K) {
-    const double side = (y[k_outside] * inv > 1.0) ? 1.0 : -1.0;
-    const double s = interval_y(k_outside).crossing((1.0 + side * band_fraction) * y_inf);
-    m.settling_time_s = t(k_outside) + s * (t(k_outside + 1) - t(k_outside));
+  // Settling: the last time y is outside the band. After the last sample outside it, y can still
+  // leave the band between two samples inside it (a slow hump peaking just beyond the edge): that
+  // needs an extremum of f between those samples, next to a sample extremum of f (the grid
+  // resolves every mode, h·|p| ≤ 1/2, so an extremum between samples shows as a turn of the
+  // samples) beyond band/2 whose samples could reach the edge; only those intervals are examined,
+  // from the last one back.
+  const double band_lo = y_inf > 0.0 ? (1.0 - band_fraction) * y_inf : (1.0 + band_fraction) * y_inf;
+  const double band_hi = y_inf > 0.0 ? (1.0 + band_fraction) * y_inf : (1.0 - band_fraction) * y_inf;
+  // The last time in interval j outside the band, or −1. Where the interpolant's extremum comes
+  // within 1 % of the band's half-width of an edge, the exact response decides (its stationary
+  // points by Newton from the Hermite's).
+  auto exit_in = [&](int j) {
+    const Hermite hm = interval_y(j);
+    double st[2];
+    const int ns = hm.stationary(st);
+    double closest = std::numeric_limits<double>::infinity();
+    for (int i = 0; i < ns; ++i) {
+      const double v = hm.value(st[i]);
+      closest = std::min({closest, std::abs(v - band_hi), std::abs(v - band_lo)});
+    }
+    double sp = -1.0;
+    ExactSeries e;
+    if (closest < 0.01 * band_fraction * std::abs(y_inf) && exact_on(j, 0, 0.0, 1.0, e)) {
+      double se[2];
+      for (int i = 0; i < ns; ++i) se[i] = e.stationary_near(st[i]);
+      if (ns == 2 && se[0] > se[1]) std::swap(se[0], se[1]);
+      sp = last_outside_of(e, se, ns, y[j], y[j + 1], band_lo, band_hi);
+    } else {
+      sp = hm.last_outside(band_lo, band_hi);
+    }
+    return sp < 0.0 ? -1.0 : t(j) + sp * (t(j + 1) - t(j));
+  };
+  double last_exit = -1.0;
+  if (k_outside + 1 < K) {
+    for (int w = bits.words() - 1; w >= 0 && last_exit < 0.0 && 64 * w + 63 > k_outside; --w) {
+      const std::uint64_t cand = (bits.turns(w, f_follows_y, true) & bits.beyond(w, f_follows_y)) |
+                                 (bits.turns(w, f_follows_y, false) & ~bits.beyond(w, f_follows_y));
+      for (std::uint64_t c = cand; c && last_exit < 0.0; c &= ~(std::uint64_t{1} << (63 - std::countl_zero(c)))) {
+        const int k = 64 * w + 63 - std::countl_zero(c);
+        if (k <= k_outside) break;
+        const double dev = std::abs(fn(k));
+        if (dev <= 0.5 * band_fraction || dev + reach(k) <= band_fraction) continue;
+        for (int j : {k, k - 1})
+          if (j > k_outside && last_exit < 0.0) last_exit = exit_in(j);
+      }
+    }
+    if (last_exit < 0.0 && k_outside >= 0) last_exit = exit_in(k_outside);
+    m.settling_time_s = std::max(0.0, last_exit);
   }
 
   if (!std::isfinite(m.overshoot_pct) || !std::isfinite(m.effort_peak) || !std::isfinite(m.itae))

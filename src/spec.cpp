@@ -5,6 +5,7 @@
 #include "specloop/spec.hpp"
 #include "specloop/sweep.hpp"
 
+#include "specloop/characterize.hpp"
 #include "specloop/compensator.hpp"
 #include "specloop/expression_plant.hpp"
 #include "specloop/lti.hpp"
@@ -22,6 +23,7 @@
 #include <filesystem>
 #include <fstream>
 #include <iterator>
+#include <limits>
 #include <span>
 #include <sstream>
 #include <unsupported/Eigen/Polynomials>
@@ -84,6 +86,15 @@ std::string_view objective_name(Objective o) {
   return "?";
 }
 
+std::string_view simulate_mode_name(SimulateMode m) {
+  switch (m) {
+    case SimulateMode::automatic: return "auto";
+    case SimulateMode::linear: return "linear";
+    case SimulateMode::nonlinear: return "nonlinear";
+  }
+  return "?";
+}
+
 const std::vector<std::string>& objective_names() {
   static const std::vector<std::string> names{"itae", "iae", "ise", "effort", "settling_time", "sensitivity_peak"};
   return names;
@@ -108,22 +119,34 @@ struct SectionSchema {
   std::vector<std::string_view> keys;
 };
 
+/// The keys of table `section` ("plant", "plant.nonlinear", ...) in spec_keys() order: the first
+/// component after "section." of every dotted key under it (spec_keys is the one list).
+std::vector<std::string_view> keys_of_section(std::string_view section) {
+  std::vector<std::string_view> keys;
+  for (const SpecKey& row : spec_keys()) {
+    const std::string_view key = row.key;
+    if (key.size() <= section.size() + 1 || !key.starts_with(section) || key[section.size()] != '.') continue;
+    std::string_view rest = key.substr(section.size() + 1);
+    rest = rest.substr(0, rest.find('.'));
+    if (std::find(keys.begin(), keys.end(), rest) == keys.end()) keys.push_back(rest);
+  }
+  return keys;
+}
+
+/// The top-level sections with their keys, derived from spec_keys() (first-appearance order).
 const std::vector<SectionSchema>& section_schemas() {
-  static const std::vector<SectionSchema> schemas{
-      {"plant", {"zeros", "poles", "gain", "numerator", "denominator", "delay", "nonlinear"}},
-      {"actuator", {"min", "max", "rate_max"}},
-      {"controller",
-       {"structure", "derivative_filter", "anti_windup", "tracking_time", "sample_time", "setpoint_weight",
-        "derivative_on"}},
-      {"requirements",
-       {"overshoot_max_pct", "peak_time_ratio", "settling_time_max", "peak_time_max",
-        "rise_time_max", "settling_band_pct", "steady_state_error_max", "effort_max",
-        "undershoot_max_pct", "phase_margin_min_deg", "gain_margin_min_db", "sensitivity_peak_max"}},
-      {"reference", {"amplitude"}},
-      {"search", {"objective", "seed", "max_evaluations", "max_time", "simulate", "bounds"}},
-      {"disturbance", {"time", "size", "noise_rms", "noise_period", "seed"}},
-      {"sweep", {"vary"}},
-  };
+  static const std::vector<SectionSchema> schemas = [] {
+    std::vector<SectionSchema> out;
+    for (const SpecKey& row : spec_keys()) {
+      const std::string_view key = row.key;
+      const auto dot = key.find('.');
+      if (dot == std::string_view::npos) continue;  // a top-level key (title)
+      const std::string_view section = key.substr(0, dot);
+      if (std::none_of(out.begin(), out.end(), [&](const SectionSchema& s) { return s.name == section; }))
+        out.push_back({section, keys_of_section(section)});
+    }
+    return out;
+  }();
   return schemas;
 }
 
@@ -258,7 +281,30 @@ struct Number {
 struct RootEntry {
   double re = 0.0;
   std::optional<double> im;
+  std::string key;                 // "plant.poles[2]", for messages
+  toml::source_position at{};      // where it was written
 };
+
+/// A plant pole or zero and where the file gave it (for messages about it).
+struct LocatedRoot {
+  std::complex<double> value;
+  std::string key;
+  toml::source_position at{};
+};
+
+/// A range end as the README writes it: "1e-5", "1e5", "1000", "0.5".
+std::string limit_text(double v) {
+  const double e = std::log10(std::abs(v));
+  if (std::abs(v) >= 1e4 || std::abs(v) < 1e-3) {
+    if (e == std::round(e)) return fmt::format("{}1e{}", v < 0 ? "-" : "", static_cast<int>(e));
+  }
+  return fmt::format("{:g}", v);
+}
+
+std::string root_text(std::complex<double> r) {
+  if (r.imag() == 0.0) return fmt::format("{:.6g}", r.real());
+  return fmt::format("{:.6g} {} j{:.6g}", r.real(), r.imag() > 0.0 ? '+' : '-', std::abs(r.imag()));
+}
 
 /// Multiplies two polynomials given with the highest power first.
 std::vector<double> multiply(const std::vector<double>& a, const std::vector<double>& b) {
@@ -338,6 +384,8 @@ std::optional<std::string> likely_name(std::string_view unknown, const std::vect
 
 namespace {
 
+constexpr double kInf = std::numeric_limits<double>::infinity();
+
 // ---------------------------------------------------------------------------------------------
 // The reader: one parsed document and the file path for messages
 // ---------------------------------------------------------------------------------------------
@@ -348,6 +396,10 @@ class SpecReader {
       : document_(document), path_(std::move(path)) {}
 
   Spec read() {
+    if (document_.empty())
+      throw SpecError(fmt::format("{}:1:1: the file is empty (no keys: only blank lines or comments); a spec needs at "
+                                  "least a [plant] section, e.g. [plant] with poles = [-1.0, -4.0]",
+                                  path_));
     check_names_and_shapes();
     Spec spec;
     spec.path = path_;
@@ -363,6 +415,7 @@ class SpecReader {
     read_search(spec.search, spec.controller.structure);
     read_disturbance(spec.disturbance);
     read_sweep(spec.sweep_vary);
+    read_units(spec.units);
     check_consistency(spec);
     return spec;
   }
@@ -506,9 +559,9 @@ class SpecReader {
           fail_expected(at, element_key, "a pair [re, im] with im > 0 (it stands for re ± j·im)",
                         fmt::format("[{}, {}]", re.shown, im.shown));
         }
-        roots.push_back({re.value, im.value});
+        roots.push_back({re.value, im.value, element_key, at});
       } else if (element.is_number()) {
-        roots.push_back({number_from(element, at, element_key).value, std::nullopt});
+        roots.push_back({number_from(element, at, element_key).value, std::nullopt, element_key, at});
       } else {
         fail_expected(at, element_key, "a number or a pair [re, im]", describe(element));
       }
@@ -605,7 +658,111 @@ class SpecReader {
     if (const auto delay = ranged_number(
             table, "plant", "delay", [](double v) { return v >= 0.0; }, "a number >= 0")) {
       plant.delay_s = *delay;
+      delay_at_ = find_entry(*table, "delay")->at;
     }
+    check_plant_numerics(plant);
+  }
+
+  /// A plant pole in the closed right half plane (Re p ≥ 0, the imaginary axis included) that a
+  /// zero cancels is a mode the output never shows and no controller can act on; a plant outside
+  /// the ranges below is one the numerics cannot honour. Both are refused here (README, "Spec
+  /// file reference"); a cancelled stable pair is only noted by `analyze`.
+  void check_plant_numerics(const PlantSpec& plant) const {
+    for (const LocatedRoot& p : poles_where_) {
+      if (p.value.real() < -kCancellationTolerance * std::abs(p.value)) continue;
+      for (const LocatedRoot& z : zeros_where_) {
+        if (std::abs(p.value - z.value) > kCancellationTolerance * std::max(std::abs(p.value), std::abs(z.value))) continue;
+        const bool on_axis = p.value.real() <= kCancellationTolerance * std::abs(p.value);
+        if (plant.nonlinear)
+          fail(z.at, z.key,
+               fmt::format("the linearization at this operating point has a mode at {} {} that u cannot move or the "
+                           "output cannot see (its pole is cancelled by a zero in G(s)): {}, and no controller can "
+                           "reach it; expected every state that does not decay on its own to be driven by u and seen "
+                           "in the output",
+                           root_text(p.value), on_axis ? "on the imaginary axis" : "in the right half plane",
+                           on_axis ? "it never decays" : "it grows unseen"));
+        fail(z.at, z.key,
+             fmt::format("zero {} cancels the pole {} ({}) {}: the plant has a hidden mode that the output never shows "
+                         "and that no controller can reach, so the loop can never be internally stable{}; expected no "
+                         "zero within a relative {} of a pole with Re ≥ 0. If that mode truly does not exist, remove "
+                         "both the pole and the zero",
+                         root_text(z.value), root_text(p.value), p.key,
+                         on_axis ? "on the imaginary axis" : "in the right half plane",
+                         on_axis ? " (the mode never decays: an integrator holds any offset, an undamped pair rings "
+                                   "forever)"
+                                 : " (the mode grows without bound)",
+                         limit_text(kCancellationTolerance)));
+      }
+    }
+    // Every nonzero pole and zero magnitude within [kMinRate, kMaxRate], at most kMaxSpread
+    // apart; the delay's approximant (every linear computation uses it) counts as plant poles.
+    std::vector<LocatedRoot> roots = poles_where_;
+    roots.insert(roots.end(), zeros_where_.begin(), zeros_where_.end());
+    if (plant.delay_s > 0.0)
+      for (const Complex& p : delay_approximant(plant.delay_s, kDelayApproximantOrder).poles())
+        roots.push_back({p, "plant.delay", delay_at_});
+    const LocatedRoot* slowest = nullptr;
+    const LocatedRoot* fastest = nullptr;
+    double log_sum = 0.0;
+    int counted = 0;
+    // The approximant's pole magnitudes for a 1 s delay scale as 1/delay.
+    double unit_delay_fastest = 0.0, unit_delay_slowest = kInf;
+    for (const Complex& p : delay_approximant(1.0, kDelayApproximantOrder).poles()) {
+      unit_delay_fastest = std::max(unit_delay_fastest, std::abs(p));
+      unit_delay_slowest = std::min(unit_delay_slowest, std::abs(p));
+    }
+    for (const LocatedRoot& r : roots) {
+      const double m = std::abs(r.value);
+      if (m == 0.0) continue;
+      if (!(m >= kMinRate && m <= kMaxRate)) {
+        if (r.key == "plant.delay")
+          fail(r.at, r.key,
+               fmt::format("{:g} s puts the poles of its order-{} Padé approximant (which every linear computation uses) "
+                           "at {:.3g} rad/s; expected every pole and zero magnitude within [{}, {}] rad/s, i.e. a "
+                           "delay between about {:.2g} s and {:.2g} s{}",
+                           plant.delay_s, kDelayApproximantOrder, m, limit_text(kMinRate), limit_text(kMaxRate), unit_delay_fastest / kMaxRate,
+                           unit_delay_slowest / kMinRate, m > kMaxRate ? " (a delay this short is negligible: leave it out)" : ""));
+        fail(r.at, r.key,
+             fmt::format("{} {} has magnitude {:.3g} rad/s; expected every nonzero pole and zero magnitude within "
+                         "[{}, {}] rad/s (time constants from 10 µs to about 28 h), where the step simulation and "
+                         "the search keep their accuracy; for a plant this {} express time in {} throughout the spec",
+                         r.key.find("zero") != std::string::npos || r.key == "plant.numerator" ? "zero" : "pole",
+                         root_text(r.value), m, limit_text(kMinRate), limit_text(kMaxRate), m > kMaxRate ? "fast" : "slow",
+                         m > kMaxRate ? "milliseconds or microseconds" : "minutes or hours"));
+      }
+      if (r.key != "plant.delay") fastest_rate_ = std::max(fastest_rate_, m);
+      if (!slowest || m < std::abs(slowest->value)) slowest = &r;
+      if (!fastest || m > std::abs(fastest->value)) fastest = &r;
+      if (r.key != "plant.delay") {
+        log_sum += std::log(m);
+        ++counted;
+      }
+    }
+    if (slowest && std::abs(fastest->value) > kMaxSpread * std::abs(slowest->value)) {
+      const LocatedRoot& blamed = fastest->key == "plant.delay" || slowest->key != "plant.delay" ? *fastest : *slowest;
+      fail(blamed.at, blamed.key,
+           fmt::format("the plant's pole and zero magnitudes span a factor {:.3g}, from {:.3g} rad/s ({}) to {:.3g} "
+                       "rad/s ({}){}; expected at most {} between the fastest and the slowest: a mode that much "
+                       "faster than the slowest acts as a plain gain at the loop's speed, so leave it out of the model",
+                       std::abs(fastest->value) / std::abs(slowest->value), std::abs(slowest->value), slowest->key,
+                       std::abs(fastest->value), fastest->key,
+                       fastest->key == "plant.delay" || slowest->key == "plant.delay"
+                           ? " (the delay counts through its Padé approximant's poles)"
+                           : "",
+                       limit_text(kMaxSpread)));
+    }
+    // The gain scale: |G| at the geometric mean of the pole and zero magnitudes. The controller's
+    // gains come out near its inverse.
+    const double w = counted > 0 ? std::exp(log_sum / counted) : 1.0;
+    const TransferFunction g(Polynomial(plant.numerator), Polynomial(plant.denominator));
+    const double magnitude = std::abs(g(Complex(0.0, w)));
+    if (!(magnitude >= kMinGainScale && magnitude <= kMaxGainScale))
+      fail(gain_where_.second, gain_where_.first,
+           fmt::format("the plant's gain |G(jω)| at ω = {:.4g} rad/s (the geometric mean of its pole and zero magnitudes) "
+                       "is {:.3g}; expected within [{}, {}]: the controller's gains come out near its inverse, and "
+                       "beyond this range the step simulation and the search lose accuracy; express the input or the "
+                       "output in other units (e.g. % of span, kV instead of V)",
+                       w, magnitude, limit_text(kMinGainScale), limit_text(kMaxGainScale)));
   }
 
   void read_root_form(PlantSpec& plant, const std::optional<Entry>& zeros, const Entry& poles,
@@ -622,10 +779,20 @@ class SpecReader {
     if (plant.zeros.size() > plant.poles.size()) {
       fail(zeros->at, "plant.zeros",
            fmt::format("improper plant: numerator degree {} ({} zeros) exceeds denominator "
-                       "degree {} ({} poles); a plant needs at least as many poles as zeros",
+                       "degree {} ({} poles); a plant needs more poles than zeros",
                        plant.zeros.size(), plant.zeros.size(), plant.poles.size(),
                        plant.poles.size()));
     }
+    if (plant.zeros.size() == plant.poles.size())
+      fail(zeros->at, "plant.zeros", "as many zeros as poles: " + biproper_refusal());
+    for (const auto* entries : {&zero_entries, &pole_entries}) {
+      auto& located = entries == &zero_entries ? zeros_where_ : poles_where_;
+      for (const RootEntry& root : *entries) {
+        located.push_back({{root.re, root.im.value_or(0.0)}, root.key, root.at});
+        if (root.im) located.push_back({{root.re, -*root.im}, root.key, root.at});
+      }
+    }
+    gain_where_ = {"plant.gain", gain ? gain->at : poles.at};
     if (gain) {
       const Number k = number_from(*gain->value, gain->at, "plant.gain");
       require(k.value != 0.0, k, "plant.gain", "a nonzero number");
@@ -656,12 +823,18 @@ class SpecReader {
            fmt::format("improper plant: numerator degree {} exceeds denominator degree {}",
                        num.size() - 1, den.size() - 1));
     }
+    if (num.size() == den.size())
+      fail(numerator.at, "plant.numerator",
+           fmt::format("numerator degree {0} equals denominator degree {0}: {1}", num.size() - 1, biproper_refusal()));
     plant.given_as_zeros_poles = false;
     plant.numerator = num;
     plant.denominator = den;
     plant.zeros = polynomial_roots(num);
     plant.poles = polynomial_roots(den);
     plant.gain = num.front() / den.front();
+    for (const auto& z : plant.zeros) zeros_where_.push_back({z, "plant.numerator", numerator.at});
+    for (const auto& p : plant.poles) poles_where_.push_back({p, "plant.denominator", denominator.at});
+    gain_where_ = {"plant.numerator", numerator.at};
   }
 
   // --- [plant.nonlinear] -------------------------------------------------------------------
@@ -688,7 +861,7 @@ class SpecReader {
     const auto* table = entry.value->as_table();
     if (table == nullptr)
       fail_expected(entry.at, kSection, "a table (a [plant.nonlinear] section)", describe(*entry.value));
-    static const std::vector<std::string_view> kKeys{"states", "derivatives", "output", "parameters", "operating_point"};
+    static const std::vector<std::string_view> kKeys = keys_of_section(kSection);
     for (const auto& key_entry : entries_in_file_order(*table)) {
       if (std::find(kKeys.begin(), kKeys.end(), key_entry.key) != kKeys.end()) continue;
       const std::string key = dotted(kSection, key_entry.key);
@@ -856,6 +1029,9 @@ class SpecReader {
     plant.poles = polynomial_roots(plant.denominator);
     plant.gain = plant.numerator.front() / plant.denominator.front();
     plant.nonlinear = std::move(nl);
+    for (const auto& z : plant.zeros) zeros_where_.push_back({z, "plant.nonlinear.operating_point", point_header});
+    for (const auto& p : plant.poles) poles_where_.push_back({p, "plant.nonlinear.operating_point", point_header});
+    gain_where_ = {"plant.nonlinear.operating_point", point_header};
   }
 
   // --- other sections ----------------------------------------------------------------------
@@ -923,17 +1099,19 @@ class SpecReader {
                                            parse_structure))
       controller.structure = *structure;
     if (const auto filter = ranged_number(
-            table, "controller", "derivative_filter", [](double v) { return v > 0.0; },
-            "a number > 0")) {
+            table, "controller", "derivative_filter", [](double v) { return v > 0.0 && v <= kMaxDerivativeFilter; },
+            fmt::format("a number in (0, {}] (common practice is 2 to 20; beyond that the filter pole is a mode "
+                        "the numerics cannot keep apart from the plant's)", limit_text(kMaxDerivativeFilter)))) {
       controller.derivative_filter = *filter;
     }
     if (const auto scheme = read_choice(*table, "controller", "anti_windup", "scheme", anti_windup_names(),
                                         parse_anti_windup))
       controller.anti_windup = *scheme;
-    controller.tracking_time_s = ranged_number(table, "controller", "tracking_time", [](double v) { return v > 0.0; },
-                                               "a time in s > 0");
-    if (const auto ts = ranged_number(table, "controller", "sample_time", [](double v) { return v > 0.0; },
-                                      "a sample period in s > 0 (leave it out for a continuous controller)"))
+    controller.tracking_time_s = ranged_number(table, "controller", "tracking_time", [&](double v) { return time_in_range(v); },
+                                               time_expected("a time in s", ""));
+    if (const auto ts = ranged_number(table, "controller", "sample_time", [&](double v) { return time_in_range(v); },
+                                      time_expected("a sample period in s", " (a controller that fast is continuous: leave "
+                                                                            "sample_time out)")))
       controller.sample_time_s = *ts;
     if (const auto b = ranged_number(table, "controller", "setpoint_weight", [](double v) { return v >= 0.0 && v <= 1.0; },
                                      "a weight in [0, 1]"))
@@ -1007,8 +1185,8 @@ class SpecReader {
     if (const auto rms = ranged_number(table, "disturbance", "noise_rms", [](double v) { return v >= 0.0; },
                                        "a standard deviation in output units >= 0"))
       disturbance.noise_rms = *rms;
-    if (const auto period = ranged_number(table, "disturbance", "noise_period", [](double v) { return v > 0.0; },
-                                          "a time in s > 0"))
+    if (const auto period = ranged_number(table, "disturbance", "noise_period", [&](double v) { return time_in_range(v); },
+                                          time_expected("a time in s", "")))
       disturbance.noise_period_s = *period;
     if (const auto seed = ranged_number(
             table, "disturbance", "seed",
@@ -1024,14 +1202,15 @@ class SpecReader {
     if (const auto objective = read_choice(*table, "search", "objective", "objective", objective_names(),
                                            parse_objective))
       search.objective = *objective;
-    static const std::vector<std::string> kSimulate{"linear", "nonlinear"};
+    static const std::vector<std::string> kSimulate{"auto", "linear", "nonlinear"};
     if (const auto mode = read_choice(*table, "search", "simulate", "mode", kSimulate,
-                                      [](std::string_view v) -> std::optional<bool> {
-                                        if (v == "linear") return false;
-                                        if (v == "nonlinear") return true;
+                                      [](std::string_view v) -> std::optional<SimulateMode> {
+                                        for (SimulateMode m : {SimulateMode::automatic, SimulateMode::linear,
+                                                               SimulateMode::nonlinear})
+                                          if (simulate_mode_name(m) == v) return m;
                                         return std::nullopt;
                                       }))
-      search.simulate_nonlinear = *mode;
+      search.simulate = *mode;
     const auto whole = [](double v) { return v == std::floor(v); };
     if (const auto seed = ranged_number(
             table, kSection, "seed", [&](double v) { return v >= 0.0 && v <= 4294967295.0 && whole(v); },
@@ -1045,6 +1224,9 @@ class SpecReader {
             table, kSection, "max_time", [](double v) { return v > 0.0 && v <= 86400.0; },
             "a time in s in (0, 86400]"))
       search.max_time_s = *cap;
+    if (const auto margin = ranged_number(
+            table, kSection, "margin_pct", [](double v) { return v >= 0.0 && v < 50.0; }, "a percentage in [0, 50)"))
+      search.margin_pct = *margin;
     const auto entry = find_entry(*table, "bounds");
     if (!entry) return;
     const auto* bounds = entry->value->as_table();
@@ -1074,8 +1256,10 @@ class SpecReader {
 
   void read_reference(ReferenceSpec& reference) const {
     if (const auto amplitude = ranged_number(
-            section("reference"), "reference", "amplitude", [](double v) { return v != 0.0; },
-            "a nonzero number")) {
+            section("reference"), "reference", "amplitude",
+            [](double v) { return std::abs(v) >= kMinAmplitude && std::abs(v) <= kMaxAmplitude; },
+            fmt::format("a nonzero number of magnitude in [{}, {}] (express the output in other units otherwise)",
+                        limit_text(kMinAmplitude), limit_text(kMaxAmplitude)))) {
       reference.amplitude = *amplitude;
     }
   }
@@ -1106,6 +1290,41 @@ class SpecReader {
     }
   }
 
+  /// [units]: each a label of 1 to kMaxUnitLength characters (code points), no control characters
+  /// (labels go into gnuplot scripts, the pages and terminal tables).
+  void read_units(UnitsSpec& units) const {
+    const toml::table* table = section("units");
+    if (table == nullptr) return;
+    constexpr std::size_t kMaxUnitLength = 24;
+    const std::string expected =
+        fmt::format("a unit name such as \"m/s\": a non-empty string of at most {} characters without control characters",
+                    kMaxUnitLength);
+    for (auto [name, target] : {std::pair<std::string_view, std::string*>{"output", &units.output},
+                                {"input", &units.input},
+                                {"time", &units.time}}) {
+      const auto entry = find_entry(*table, name);
+      if (!entry) continue;
+      const std::string key = dotted("units", name);
+      const auto* text = entry->value->as_string();
+      if (text == nullptr) fail_expected(entry->at, key, expected, describe(*entry->value));
+      const std::string_view value = text->get();
+      std::size_t code_points = 0;
+      bool control = false, blank = true;
+      for (const char c : value) {
+        const auto byte = static_cast<unsigned char>(c);
+        if ((byte & 0xC0u) != 0x80u) ++code_points;
+        if (byte < 0x20u || byte == 0x7Fu) control = true;
+        if (byte != ' ') blank = false;
+      }
+      if (blank || control || code_points > kMaxUnitLength)
+        fail_expected(entry->at, key, expected,
+                      blank ? std::string("an empty name")
+                            : control ? std::string("a name with a control character")
+                                      : fmt::format("{} ({} characters)", in_quotes(value), code_points));
+      *target = std::string(value);
+    }
+  }
+
   // --- cross-section checks ----------------------------------------------------------------
 
   void check_consistency(const Spec& spec) const {
@@ -1125,8 +1344,31 @@ class SpecReader {
             structure_name(spec.controller.structure)));
   }
 
+  /// A controller or noise time: positive and at least kMinTimeFraction of the plant's fastest
+  /// time constant (when the plant has a nonzero pole or zero).
+  bool time_in_range(double v) const { return v > 0.0 && v * fastest_rate_ >= kMinTimeFraction; }
+  std::string time_expected(std::string_view what, std::string_view otherwise) const {
+    if (fastest_rate_ == 0.0) return fmt::format("{} > 0", what);
+    return fmt::format("{} >= {:.3g} ({} of the plant's fastest time constant, 1/{:.4g} rad/s){}", what,
+                       kMinTimeFraction / fastest_rate_, limit_text(kMinTimeFraction), fastest_rate_, otherwise);
+  }
+
+  /// See check_plant_numerics; the returned text follows "as many zeros as poles: " and the like.
+  static std::string biproper_refusal() {
+    return "a biproper plant, whose output follows the input instantly (a direct feedthrough), is not supported; "
+           "expected fewer zeros than poles (degree(numerator) < degree(denominator)): with a feedthrough the "
+           "controller's proportional and derivative action close an algebraic loop with the plant through the "
+           "actuator's saturation, which the nonlinear confirmation does not solve. Every path from actuator to sensor "
+           "has some lag: add it as a pole (e.g. the sensor's filter)";
+  }
+
   const toml::table& document_;
   std::string path_;
+  // Where the plant's poles, zeros, gain and delay were written (filled by read_plant).
+  mutable std::vector<LocatedRoot> poles_where_, zeros_where_;
+  mutable std::pair<std::string, toml::source_position> gain_where_{"plant", {1, 1}};
+  mutable toml::source_position delay_at_{};
+  mutable double fastest_rate_ = 0.0;  // the largest nonzero plant pole or zero magnitude, rad/s (0: none)
   mutable toml::source_position operating_input_at_{};  // where plant.nonlinear.operating_point.u was written
   mutable std::string operating_input_shown_;
 };

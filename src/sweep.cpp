@@ -395,7 +395,8 @@ std::string temp_beside(const std::string& path) {
 json controller_summary(const Controller& c) {
   json series = json::object();
   const auto& info = structure_parameters(c.structure);
-  for (std::size_t i = 0; i < info.size() && i < c.series.size(); ++i) series[info[i].name] = number_json(c.series[i]);
+  const std::vector<double> shown = signed_series(c);
+  for (std::size_t i = 0; i < info.size() && i < shown.size(); ++i) series[info[i].name] = number_json(shown[i]);
   json j{{"structure", std::string(structure_name(c.structure))}, {"series", series}};
   j["parallel"] = c.parallel ? json{{"kp", number_json(c.parallel->kp)}, {"ki", number_json(c.parallel->ki)},
                                     {"kd", number_json(c.parallel->kd)}, {"filter_time", number_json(c.parallel->filter_time)}}

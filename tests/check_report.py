@@ -17,7 +17,7 @@ result.json, series/*.csv and plots/{step,effort,splane,frequency}.{gp,svg,png}.
                detector is broken and the check fails.
   table        every cell of the requirement table (parsed from the HTML with html.parser) carries
                the value of result.json exactly (data-value, 17 significant digits) and shows it
-               to 4 significant digits.
+               to 4 significant digits; the slack column carries the optimized design's `slack`.
   series       the CSV step responses re-measured with SciPy (cubic spline through the samples,
                scipy.interpolate.CubicSpline; crossings by scipy.optimize.brentq) reproduce
                result.json's overshoot, peak, rise and settling times. For the linear loop the samples are those of the exact simulation:
@@ -30,21 +30,47 @@ result.json, series/*.csv and plots/{step,effort,splane,frequency}.{gp,svg,png}.
                plotted locus at k = 1 (within 1e-6 of the pole's magnitude).
   no crossing  a spec whose plant has no ζ-line crossing still gets every section, and the page
                says so.
+  time axis    the step figure's x range (step.gp) reaches every plotted response's last sample
+               (its CSV) and every settling time result.json reports for a plotted response
+               (linear, and the recommended design on the nonlinear loop).
+  legends      in each figure's SVG, every legend box (gnuplot's closed black rectangle) lies
+               outside every plot area (the closed border rectangle), and no plotted point, curve
+               vertex or point of a curve's segments (every 2 px) inside a plot area falls in a
+               legend box.
+  labels       no two texts of a figure overlap (boxes estimated from position, anchor, font size
+               and length: 0.55 em per character), and no plotted curve or point crosses a label
+               written inside a plot area; the margins table under the frequency figure
+               has one row per design drawn there, each equal to result.json's margins.
+  controller   the recommended-controller box states where the derivative acts, the set-point
+               weight, the action and the sample time, each equal to the spec (read with tomllib)
+               or its default.
+  units        the spec's [units] (or the defaults) name the figures' axes, the requirement
+               table's time and effort cells, and result.json's `units`.
+  modes        each design's signed mode contributions on the page equal result.json's, which
+               add up to 100 % (contribution_sum).
+  s-plane      the dominant pair is not drawn as open squares; for a delayed plant (a variant spec
+               with plant.delay, a sampled controller, derivative on the measurement and a
+               set-point weight) the points marked as Padé poles and zeros are the roots of the
+               [3/3] Padé approximant of e^(−sτ) from scipy.interpolate.pade, and the legend names
+               them.
 The last line is "N passed, M failed"; exit status 1 on any failure.
 """
 import argparse
 import csv
 import html.parser
 import json
+import math
 import pathlib
+import re
 import shutil
 import subprocess
 import sys
 import tempfile
+import tomllib
 
 import numpy as np
 from PIL import Image
-from scipy.interpolate import CubicSpline
+from scipy.interpolate import CubicSpline, pade
 from scipy.optimize import brentq
 
 from reference_common import Tally
@@ -91,6 +117,264 @@ class ReportParser(html.parser.HTMLParser):
     def handle_data(self, data):
         if self.cell is not None:
             self.cell[1] += data
+
+
+class PageParser(html.parser.HTMLParser):
+    """Every table by id as rows of (attrs, text) cells, and the <li class="modes"> lines by design."""
+
+    def __init__(self):
+        super().__init__()
+        self.tables = {}
+        self.table = None
+        self.row = None
+        self.cell = None
+        self.modes = {}
+        self.li = None
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if tag == "table":
+            self.table = a.get("id")
+            self.tables[self.table] = []
+        elif tag == "tr" and self.table is not None:
+            self.row = []
+            self.tables[self.table].append(self.row)
+        elif tag in ("td", "th") and self.row is not None:
+            self.cell = [a, ""]
+        elif tag == "li" and a.get("class") == "modes":
+            self.li = [a.get("data-design"), ""]
+
+    def handle_endtag(self, tag):
+        if tag == "table":
+            self.table = None
+        elif tag in ("td", "th") and self.cell is not None:
+            self.row.append(tuple(self.cell))
+            self.cell = None
+        elif tag == "li" and self.li is not None:
+            self.modes[self.li[0]] = self.li[1]
+            self.li = None
+
+    def handle_data(self, data):
+        if self.cell is not None:
+            self.cell[1] += data
+        if self.li is not None:
+            self.li[1] += data
+
+
+NUMBER = r"[-+]?\d+(?:\.\d+)?"
+
+
+def svg_rectangles(svg, stroke):
+    """Closed axis-parallel rectangles drawn with `stroke`: (x0, y0, x1, y1)."""
+    out = set()
+    for m in re.finditer(r"<path stroke='" + re.escape(stroke) + r"'\s+d='([^']*Z)\s*'", svg):
+        pts = [(float(x), float(y)) for x, y in re.findall(f"({NUMBER}),({NUMBER})", m.group(1))]
+        xs, ys = [p[0] for p in pts], [p[1] for p in pts]
+        if len(pts) == 5 and len(set(round(x, 2) for x in xs)) == 2 and len(set(round(y, 2) for y in ys)) == 2:
+            out.add((min(xs), min(ys), max(xs), max(ys)))
+    return sorted(out)
+
+
+def svg_plot_vertices(svg):
+    """Per plotted series (from one gnuplot_plot_N group to the next): a list of paths, each a list
+    of (x, y) vertices; points drawn as symbols are one-vertex paths."""
+    groups = []
+    for body in svg.split('<g id="gnuplot_plot_')[1:]:
+        paths = [[(float(x), float(y)) for x, y in re.findall(f"({NUMBER}),({NUMBER})", sub)]
+                 for d in re.findall(r"\sd='([^']*)'", body) for sub in d.split("M") if sub.strip()]
+        paths += [[(float(x), float(y))]
+                  for x, y in re.findall(rf"<use xlink:href='#gpPt\d+' transform='translate\(({NUMBER}),({NUMBER})\)", body)]
+        groups.append(paths)
+    return groups
+
+
+def svg_texts(svg):
+    """Estimated boxes (x0, y0, x1, y1, text) of every text: 0.55 em per character, one em high."""
+    boxes = set()
+    for m in re.finditer(r'<g transform="translate\(([-\d.]+),([-\d.]+)\)( rotate\(270\))?"[^>]*font-size="([\d.]+)"\s+'
+                         r'text-anchor="(\w+)">\s*<text>(.*?)</text>', svg, re.S):
+        x, y, rotated, size, anchor = float(m.group(1)), float(m.group(2)), bool(m.group(3)), float(m.group(4)), m.group(5)
+        text = html.unescape(re.sub(r"<[^>]+>", "", m.group(6))).strip()
+        if not text:
+            continue
+        width, height = 0.55 * size * len(text), size
+        start = {"start": 0.0, "middle": -width / 2, "end": -width}[anchor]
+        if rotated:
+            boxes.add((x - 0.8 * height, y - start - width, x + 0.2 * height, y - start, text))
+        else:
+            boxes.add((x + start, y - 0.8 * height, x + start + width, y + 0.2 * height, text))
+    return sorted(boxes)
+
+
+def overlap(a, b, slack=0.5):
+    return a[0] + slack < b[2] and b[0] + slack < a[2] and a[1] + slack < b[3] and b[1] + slack < a[3]
+
+
+def inside(p, r, slack=0.5):
+    return r[0] + slack < p[0] < r[2] - slack and r[1] + slack < p[1] < r[3] - slack
+
+
+def check_figures(tally, name, out):
+    """Legends outside the plot areas and off the curves; no two texts overlapping."""
+    for fig in FIGURES:
+        svg = (out / "plots" / f"{fig}.svg").read_text()
+        areas = svg_rectangles(svg, "rgb( 85,  85,  85)")
+        keys = svg_rectangles(svg, "black")
+        tally.check(name, f"{fig}: plot area(s) and legend box(es) found", areas and keys and len(keys) == len(areas),
+                    f"{len(areas)} areas, {len(keys)} legends")
+        clash = [(k, a) for k in keys for a in areas if overlap(k, a)]
+        tally.check(name, f"{fig}: every legend lies outside every plot area", not clash, str(clash[:2]))
+        texts = svg_texts(svg)
+        # Labels written inside a plot area (the limits' names), as boxes.
+        labels = [t for t in texts if any(inside((t[0], t[1]), a) and inside((t[2], t[3]), a) for a in areas)]
+        covered, under_label = [], []
+        for paths in svg_plot_vertices(svg):
+            for path in paths:
+                if any(all(inside(p, k, -1.0) for p in path) for k in keys):
+                    continue  # a legend's own sample line or symbol
+                # Every vertex, and points every 2 px along each segment (a line may cross a box).
+                along = list(path)
+                for (x0, y0), (x1, y1) in zip(path, path[1:]):
+                    n = int(math.hypot(x1 - x0, y1 - y0) / 2.0)
+                    along += [(x0 + (x1 - x0) * i / n, y0 + (y1 - y0) * i / n) for i in range(1, n)]
+                covered += [p for p in along for k in keys if inside(p, k) and any(inside(p, a, -1.0) for a in areas)]
+                under_label += [(t[4], p) for p in along for t in labels if inside(p, t, 1.0)]
+        tally.check(name, f"{fig}: no plotted point lies under a legend", not covered, str(covered[:3]))
+        tally.check(name, f"{fig}: no plotted curve or point crosses a label inside the plot ({len(labels)} labels)",
+                    not under_label, str(under_label[:3]))
+        clashes = [(a[4], b[4]) for i, a in enumerate(texts) for b in texts[i + 1:] if overlap(a, b) and a[4] != b[4]]
+        tally.check(name, f"{fig}: no two texts overlap ({len(texts)} texts)", texts and not clashes, str(clashes[:3]))
+
+
+def check_time_axis(tally, name, out, result):
+    """The step figure's x range covers every plotted response's last sample and reported settling time."""
+    script = (out / "plots" / "step.gp").read_text()
+    m = re.search(rf"set xrange \[0:({NUMBER}(?:e[-+]?\d+)?)\]", script)
+    if not tally.check(name, "step: a fixed x range", m is not None):
+        return
+    x_max = float(m.group(1))
+    plotted = sorted(set(re.findall(r"'\.\./series/(step_[a-z_]+\.csv)'", script)))
+    ends, settled = {}, {}
+    for f in plotted:
+        _, data = read_csv(out / "series" / f)
+        ends[f] = data[-1, 0]
+        design = f[len("step_"):-len(".csv")]
+        nonlinear = design.endswith("_nonlinear")
+        d = result["designs"][design.removesuffix("_nonlinear")]
+        metrics = (d["nonlinear"] or {}).get("simulated") if nonlinear else d["simulated"]
+        if metrics and metrics.get("settling_time") is not None:
+            settled[f] = metrics["settling_time"]
+    tally.check(name, "step: the figure plots the recommended design on both loops",
+                any(f.endswith("_nonlinear.csv") for f in plotted) and len(plotted) >= 3, str(plotted))
+    late = {f: t for f, t in ends.items() if t > x_max * (1 + 1e-9)}
+    tally.check(name, "step: the x range reaches every plotted response's last sample", not late, f"x ≤ {x_max}: {late}")
+    unseen = {f: t for f, t in settled.items() if t > x_max}
+    tally.check(name, "step: the x range covers every reported settling time of a plotted response", not unseen,
+                f"x ≤ {x_max}: {unseen}")
+    effort = (out / "plots" / "effort.gp").read_text()
+    tally.check(name, "effort: the same time axis", f"set xrange [0:{m.group(1)}]" in effort)
+
+
+def check_page_content(tally, name, out, result, page, spec_toml, expect_delay=False):
+    """The controller box, the margins table, units, the mode contributions, the s-plane marks."""
+    parser = PageParser()
+    parser.feed(page)
+    controller = spec_toml.get("controller", {})
+    units = {"output": "output units", "input": "input units", "time": "s"} | spec_toml.get("units", {})
+    # The recommended-controller box.
+    box = {c[0].get("data-field"): c[0].get("data-value") for row in parser.tables.get("controller-box", [])
+           for c in row if "data-value" in c[0]}
+    best = "optimized" if result["designs"].get("optimized") else "classical"
+    structure = result["designs"][best]["controller"]["structure"]
+    has_d = structure in ("pd", "pid", "lead") and (result["designs"][best]["controller"]["parallel"] or {}).get("kd", 0) != 0
+    want = {"design": best,
+            "derivative_on": controller.get("derivative_on", "error") if has_d else "none",
+            "setpoint_weight": repr(float(controller.get("setpoint_weight", 1.0)))
+            if result["designs"][best]["controller"]["parallel"] else "none",
+            "action": "direct",
+            "sample_time": repr(float(controller["sample_time"])) if "sample_time" in controller else "continuous"}
+    got = {k: box.get(k) for k in want}
+    if got.get("setpoint_weight") not in (None, "none"):
+        got["setpoint_weight"] = repr(float(got["setpoint_weight"]))
+    if got.get("sample_time") not in (None, "continuous"):
+        got["sample_time"] = repr(float(got["sample_time"]))
+    tally.check(name, "controller box: design, derivative, set-point weight, action, sample time as specified", got == want,
+                f"{got} vs {want}")
+    # Margins under the frequency figure: one row per design drawn there, equal to result.json.
+    rows = parser.tables.get("margins", [])[1:]
+    drawn = sorted(f.stem[len("frequency_"):] for f in (out / "series").glob("frequency_*.csv"))
+    ok, detail = [r[0][1] for r in rows] == [d for d in ("classical", "optimized") if d in drawn], ""
+    for r in rows:
+        m = result["designs"][r[0][1]]["margins"]
+        for attrs, text in r[1:]:
+            v, want_v = attrs["data-value"], m[attrs["data-field"]]
+            if want_v == "infinite" or want_v is None:
+                ok &= v == "none"
+            elif v == "none" or float(v) != want_v:
+                ok, detail = False, f"{r[0][1]} {attrs['data-field']}: {v} vs {want_v}"
+    tally.check(name, "margins table: one row per drawn design, values equal result.json", ok and rows, detail)
+    tally.check(name, "margins table: the designs' rows differ", len({tuple(c[1] for c in r[1:]) for r in rows}) == len(rows))
+    # Units: axes, table cells, result.json.
+    svg = {f: (out / "plots" / f"{f}.svg").read_text() for f in FIGURES}
+    labels = {"step": [f"y ({units['output']})", f"time ({units['time']})"],
+              "effort": [f"u ({units['input']})", f"time ({units['time']})"],
+              "splane": [f"real (1/{units['time']})", f"imaginary (rad/{units['time']})"],
+              "frequency": [f"ω (rad/{units['time']})"]}
+    missing = [(f, l) for f, ls in labels.items() for l in ls if f">{html.escape(l, quote=False)}<" not in svg[f]]
+    tally.check(name, "units: the figures' axes name the spec's units", not missing, str(missing))
+    tally.check(name, "units: result.json carries them", result.get("units") == units, f"{result.get('units')} vs {units}")
+    unit_of = {"peak_time_max": units["time"], "settling_time_max": units["time"], "rise_time_max": units["time"],
+               "effort_max": units["input"]}
+    bad = []
+    for row in parser.tables.get("requirements", []):
+        key = row[0][0].get("data-key") if row else None
+        if key in unit_of:
+            bad += [c[1] for c in row[1:] if "data-slack" not in c[0] and c[1] != "none" and f" {unit_of[key]}" not in c[1]]
+    tally.check(name, "units: the requirement table's time and effort cells carry them", not bad, str(bad[:3]))
+    # Signed mode contributions: on the page as in result.json, adding up to 100 %.
+    worst, sums, seen = 0.0, [], 0
+    for design, d in result["designs"].items():
+        dom = d.get("dominance")
+        if not dom:
+            continue
+        seen += 1
+        line = parser.modes.get(design, "")
+        shown = [float(v) for v in re.findall(r": ([-+]\d+\.\d) %", line)]
+        want_c = [round(100 * m["contribution"], 1) for m in dom["modes"] if m["contribution"] is not None]
+        worst = max([worst] + [abs(a - b) for a, b in zip(shown, want_c)] + ([99.0] if len(shown) != len(want_c) else []))
+        total = sum(m["contribution"] for m in dom["modes"] if m["contribution"] is not None)
+        sums.append(abs(total - dom["contribution_sum"]) + abs(dom["contribution_sum"] - 1.0))
+    tally.check(name, "modes: the page shows result.json's signed contributions", seen and worst <= 0.051, f"worst {worst}")
+    tally.check(name, "modes: the contributions add up to 100 %", sums and max(sums) <= 1e-6, f"worst {max(sums or [0])}")
+    # The s-plane: the dominant pair's mark, the Padé poles and zeros of a delayed plant.
+    script = (out / "plots" / "splane.gp").read_text()
+    dom_line = next((l for l in script.split(", \\") if "'dominant_pair'" in l), "")
+    ok = bool(dom_line) and " pt 4 " not in dom_line
+    tally.check(name, "s-plane: the dominant pair is not drawn as open squares", ok, "" if ok else dom_line)
+    points = list(csv.reader(open(out / "series" / "splane_points.csv")))
+    rx = re.search(rf"set xrange \[({NUMBER}(?:e[-+]?\d+)?):({NUMBER}(?:e[-+]?\d+)?)\]", script)
+    ry = re.search(rf"set yrange \[({NUMBER}(?:e[-+]?\d+)?):({NUMBER}(?:e[-+]?\d+)?)\]", script)
+    outside_view = [r for r in points[1:] if not r[0].startswith("damping_line")
+                    and not (float(rx.group(1)) <= float(r[2]) <= float(rx.group(2))
+                             and float(ry.group(1)) <= float(r[3]) <= float(ry.group(2)))]
+    tally.check(name, "s-plane: every marked pole and zero is in view", rx and ry and not outside_view, str(outside_view[:3]))
+    marked = {kind: [complex(float(r[2]), float(r[3])) for r in points[1:] if r[0] == kind]
+              for kind in ("delay_approximant_pole", "delay_approximant_zero")}
+    tau = float(spec_toml.get("plant", {}).get("delay", 0.0))
+    if not expect_delay:
+        tally.check(name, "s-plane: no Padé marks without a delay", not any(marked.values()) or tau > 0)
+        return
+    # e^{-x} ≈ p(x)/q(x), [3/3] from its Taylor coefficients (SciPy); s = x/τ.
+    p, q = pade([(-1) ** k / math.factorial(k) for k in range(7)], 3, 3)
+    for kind, poly in (("delay_approximant_pole", q), ("delay_approximant_zero", p)):
+        want_r = sorted(np.roots(poly.coeffs) / tau, key=lambda z: (z.real, z.imag))
+        got_r = sorted(marked[kind], key=lambda z: (z.real, z.imag))
+        err = max((abs(a - b) / abs(b) for a, b in zip(got_r, want_r)), default=1.0) if len(got_r) == len(want_r) else 1.0
+        tally.check(name, f"s-plane: the {kind.split('_')[-1]}s marked as Padé are the [3/3] Padé approximant's "
+                    "(scipy.interpolate.pade)", err <= 1e-6, f"{got_r} vs {want_r}")
+    tally.check(name, "s-plane: the legend names the Padé poles and zeros",
+                ">Padé poles (order-3 stand-in for the delay)<" in svg["splane"]
+                and ">Padé zeros (order-3 stand-in for the delay)<" in svg["splane"])
 
 
 def chromium_run(chromium, page, work, screenshot=None, dump_dom=False):
@@ -216,6 +500,14 @@ def check_table(tally, name, parser, result):
             rows.append(row)
         elif row is not None and "data-design" in attrs:
             row["cells"].append((attrs, text))
+        elif row is not None and "data-slack" in attrs:
+            row["slack"] = float(attrs["data-slack"])
+    # The slack column: the optimized design's `slack` from result.json, exactly.
+    if "optimized" in designs:
+        want = {c["requirement"]: c["slack"] for c in designs["optimized"]["checks"]}
+        got = {r["key"]: r.get("slack") for r in rows}
+        tally.check(name, "table: slack column = the optimized design's slack in result.json", got == want,
+                    f"{got} vs {want}")
     ok_exact = ok_shown = True
     detail = ""
     count = 0
@@ -251,6 +543,7 @@ def main():
     args, _ = ap.parse_known_args()
     tally = Tally()
     specs = sorted(pathlib.Path(args.source_dir, "specs").glob("*.toml"))
+    tally.check("setup", "the demo specs are there", len(specs) >= 5, str(len(specs)))
     have_chromium = pathlib.Path(args.chromium).exists()
     tally.check("setup", "chromium found (Debian package chromium)", have_chromium, args.chromium)
     with tempfile.TemporaryDirectory() as work:
@@ -261,7 +554,17 @@ def main():
             _, urls = chromium_run(args.chromium, sentinel, work, dump_dom=True)
             tally.check("setup", "the request detector flags an external image", len(urls) == 1, str(urls))
         crossing_seen = False
-        for spec in specs:
+        # A variant of the conveyor: a transport delay (Padé marks), a sampled controller, derivative
+        # on the measurement, a set-point weight, and units of its own (minutes as the time unit:
+        # labels only, so every time of the spec is read in minutes).
+        variant = work / "conveyor_variant.toml"
+        text = pathlib.Path(args.source_dir, "specs", "conveyor_speed.toml").read_text()
+        text = text.replace("delay = 0.0", "delay = 0.02").replace("[units]", "[units_old]")
+        text = text.replace("[controller]\n", "[controller]\nsample_time = 0.004\nderivative_on = \"measurement\"\n"
+                            "setpoint_weight = 0.6\n")
+        text = text[:text.index("[units_old]")] + '[units]\noutput = "belt m/min"\ninput = "% drive"\ntime = "min"\n'
+        variant.write_text(text)
+        for spec in specs + [variant]:
             name = spec.stem
             out = work / name
             run = subprocess.run([args.specloop, "design", str(spec), "--out", str(out)], capture_output=True, text=True,
@@ -288,6 +591,10 @@ def main():
             check_table(tally, name, parser, result)
             check_series(tally, name, out, result)
             check_locus(tally, name, out, result)
+            check_figures(tally, name, out)
+            check_time_axis(tally, name, out, result)
+            spec_toml = tomllib.loads(spec.read_text())
+            check_page_content(tally, name, out, result, page, spec_toml, expect_delay=spec == variant)
             if "no usable crossing" in page:
                 crossing_seen = True
                 tally.check(name, "no ζ-line crossing: every section still present",
@@ -311,12 +618,12 @@ def main():
                             dparser.figures_with_svg == {f"fig-{f}" for f in FIGURES}, str(sorted(dparser.figures_with_svg)))
         tally.check("specs", "a spec without a ζ-line crossing is among them", crossing_seen)
         # The committed example (README) has the files and keys a fresh run writes, so it cannot rot.
-        example = pathlib.Path(args.source_dir, "results", "conveyor_speed")
+        example = pathlib.Path(args.source_dir, "results", "examples", "conveyor_speed")
         fresh = work / "conveyor_speed"
         if fresh.exists():
             def listing(root):
                 return sorted(str(p.relative_to(root)) for p in root.rglob("*") if p.is_file())
-            tally.check("example", "results/conveyor_speed holds the files a fresh run writes",
+            tally.check("example", "results/examples/conveyor_speed holds the files a fresh run writes",
                         listing(example) == listing(fresh), f"{listing(example)} vs {listing(fresh)}")
 
             def keys(v, depth=3):
@@ -325,7 +632,7 @@ def main():
                 return None
             old = json.loads((example / "result.json").read_text())
             new = json.loads((fresh / "result.json").read_text())
-            tally.check("example", "results/conveyor_speed/result.json has the current keys", keys(old) == keys(new))
+            tally.check("example", "results/examples/conveyor_speed/result.json has the current keys", keys(old) == keys(new))
     print(f"{tally.passed} passed, {tally.failed} failed")
     return 1 if tally.failed else 0
 

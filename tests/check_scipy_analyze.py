@@ -23,7 +23,9 @@ each and checks, for the P-only loop K·G = K·N/D:
                     by SciPy (scipy.signal.lsim on a fine grid, as in check_scipy_step.py) at
                     that gain; second-order predictions: peak time π/ω_d, settling time
                     −ln(band)/σ, ζ = σ/|p|, ω_n = |p|, overshoot 100·exp(−ζπ/√(1 − ζ²)) (same
-                    text); mode shares = |residue of T(s)/s|/|y∞| from scipy.signal.residue.
+                    text); mode shares = |residue of T(s)/s|/|y∞| from scipy.signal.residue;
+                    signed contributions = −Re(residue)/y∞ (×2 for a pair), and they add up to
+                    1 − y(0+)/y∞ = 1 (contribution_sum) for these strictly proper loops.
   reference         its overshoot equals the limit within 1e-3 percentage points, both as
                     reported and re-measured by SciPy at the reported gain; all its metrics
                     re-measured by SciPy; SciPy finds a smaller overshoot at a few smaller gains.
@@ -329,6 +331,8 @@ def check_spec(tally, specloop, tmpdir, spec):
         res, poles, _ = signal.residue(num_y, np.polymul(den_cl, [1.0, 0.0]))
         y_inf = abs(np.polyval(num_y, 0.0) / np.polyval(den_cl, 0.0))
         worst, ok = 0.0, True
+        worst_c = 0.0
+        y_inf_signed = np.polyval(num_y, 0.0) / np.polyval(den_cl, 0.0)
         for mode in out["dominance"]["modes"]:
             p = cplx(mode["pole"])
             if mode["share"] is None:
@@ -337,8 +341,16 @@ def check_spec(tally, specloop, tmpdir, spec):
             want = abs(res[j]) * (2.0 if p.imag > 0 else 1.0) / y_inf
             ok = ok and abs(poles[j] - p) <= TOL_POLE * max(1.0, abs(p))
             worst = max(worst, abs(mode["share"] - want) / want)
+            want_c = -res[j].real * (2.0 if p.imag > 0 else 1.0) / y_inf_signed
+            worst_c = max(worst_c, abs(mode["contribution"] - want_c) / max(abs(want_c), 1e-3))
+        total = sum(m["contribution"] for m in out["dominance"]["modes"] if m["contribution"] is not None)
         tally.check(name, "dominance: mode shares vs scipy.signal.residue", ok and worst <= TOL_SHARE,
                     f"worst rel {worst:.2e}")
+        tally.check(name, "dominance: signed mode contributions vs scipy.signal.residue", ok and worst_c <= TOL_SHARE,
+                    f"worst rel {worst_c:.2e}")
+        tally.check(name, "dominance: the contributions add up to 100 % of the final value",
+                    abs(total - 1.0) <= 1e-6 and abs(out["dominance"]["contribution_sum"] - 1.0) <= 1e-12,
+                    f"{total!r}, contribution_sum {out['dominance']['contribution_sum']!r}")
 
     # Reference gain.
     ref_point = out["reference"]

@@ -22,7 +22,8 @@ Invoked by CTest as
                      integrals by the trapezoid rule on the fine grid.
       metrics        the README's definitions: y∞ = r·T(0) (final-value theorem); overshoot
                      (y_max − y∞)/|y∞|·100 (none when y never exceeds y∞); peak time; undershoot
-                     max(0, −min y/y∞)·100; settling time = last exit from the band; band entry =
+                     max(0, −min y/y∞)·100; dip after the peak max(0, 1 − min_{t > t_p} y/y∞)·100;
+                     settling time = last exit from the band; band entry =
                      first entry; rise time 10→90 % (first reach of each); steady-state error
                      (r − y∞)/r; effort peak max|u| including u(0+); IAE/ISE/ITAE of e = y∞ − y.
       margins        on a dense logarithmic frequency grid (20 000 points per decade over the
@@ -82,12 +83,14 @@ Tolerances (and why):
                        locates poorly), delay margin relative 1e-4, Ms relative 1e-3.
   requirement checks   a `met: true` value must lie within the same tolerance of its limit; for
                        peak_time_ratio the time tolerance divided by the reference peak time.
-                       The peak-time requirements switch from the band entry to the peak where
-                       the overshoot crosses the settling band (README); which side applies is
-                       decided by the re-measured overshoot, which is exact to ~1e-10 points
-                       (checked against scipy.signal.step on 3e6 points while writing this test).
-                       Only within 1e-7 points of the band (below this reference's resolution)
-                       is the branch of the reported overshoot accepted, and the line says so.
+                       The peak-time requirements switch from the final entry into the band
+                       (the settling time) to the peak where the overshoot crosses the settling
+                       band, and back where the dip after the peak exceeds the overshoot
+                       (README); which side applies is decided by the re-measured overshoot and
+                       dip, which are exact to ~1e-10 points (checked against scipy.signal.step
+                       on 3e6 points while writing this test). Only within 1e-7 points of a
+                       switch (below this reference's resolution) is the branch of the reported
+                       values accepted, and the line says so.
                        The search drives designs onto that switch, so a reported overshoot a hair
                        under the band while the true one is a hair over it is a failed claim.
   optimum              1e-3 relative on ITAE (the brief's 0.1 %); the search stops at
@@ -257,8 +260,15 @@ class Loop:
         m = {"final_value": yi, "steady_state_error": (self.r - yi) / self.r}
         i = int(np.argmax(yn))
         peak, t_peak = self.refine_max(lambda s: self.y_at(s) / yi, yn, i)
+        m["post_peak_dip_pct"] = 0.0
         if peak > 1.0 + 1e-9:
             m["overshoot_pct"], m["peak_time"] = (peak - 1.0) * 100.0, float(t_peak)
+            # The deepest fall below y∞ after the peak (README): the lowest sample after it, refined.
+            after = np.nonzero(t > t_peak)[0]
+            if after.size:
+                k = int(after[0] + np.argmin(yn[after]))
+                neg_low, _ = self.refine_max(lambda s: -self.y_at(s) / yi, -yn, k)  # −min(y/y∞)
+                m["post_peak_dip_pct"] = max(0.0, 1.0 + neg_low) * 100.0
         else:
             m["overshoot_pct"], m["peak_time"] = 0.0, None
         j = int(np.argmin(yn))
@@ -432,11 +442,15 @@ def check_controller(tally, case, name, ctrl):
 TIME_REQUIREMENTS = {"peak_time_max", "settling_time_max", "rise_time_max"}
 
 
-def requirement_value(key, m, mg, ref_tp, band_pct, branch_overshoot):
+def requirement_value(key, m, mg, ref_tp, band_pct, branch_overshoot, branch_dip=None):
     """The value a requirement reads from re-measured metrics `m` and margins `mg`.
-    `branch_overshoot` chooses peak vs band entry for the peak-time requirements."""
+    `branch_overshoot` and `branch_dip` choose the visible peak or the final entry into the band
+    for the peak-time requirements (README: the peak counts when the overshoot exceeds the band
+    and the response never falls further below y∞ after it than it rose above)."""
     def peak_time():
-        return m["peak_time"] if (m["peak_time"] is not None and branch_overshoot > band_pct) else m["band_entry_time"]
+        dip = m["post_peak_dip_pct"] if branch_dip is None else branch_dip
+        visible = m["peak_time"] is not None and branch_overshoot > band_pct and dip <= branch_overshoot
+        return m["peak_time"] if visible else m["settling_time"]
     if key == "overshoot_max_pct":
         return m["overshoot_pct"]
     if key == "undershoot_max_pct":
@@ -451,7 +465,7 @@ def requirement_value(key, m, mg, ref_tp, band_pct, branch_overshoot):
     if key == "rise_time_max":
         return m["rise_time"]
     if key == "steady_state_error_max":
-        return abs(m["steady_state_error"])
+        return m["steady_state_error"]  # signed; the bound applies to |e∞| (README, `on_magnitude`)
     if key == "effort_max":
         return m["effort_peak"]
     if key == "phase_margin_min_deg":
@@ -499,12 +513,15 @@ def normalized_violation(value, limit, upper):
 # ---- one design ------------------------------------------------------------------------------------
 
 METRIC_KEYS = ["final_value", "steady_state_error", "overshoot_pct", "peak_time", "band_entry_time",
-               "undershoot_pct", "settling_time", "rise_time", "effort_peak", "iae", "ise", "itae"]
+               "undershoot_pct", "post_peak_dip_pct", "settling_time", "rise_time", "effort_peak", "iae", "ise",
+               "itae"]
 
 
 def loop_of(result, design):
     ctrl = design["controller"]
-    return Loop(result["plant"]["numerator"], result["plant"]["denominator"], ctrl["numerator"],
+    # The linear loop: the plant times its delay approximant (result.json's linear_model; "plant"
+    # is the plant as specified, without the approximant).
+    return Loop(result["linear_model"]["numerator"], result["linear_model"]["denominator"], ctrl["numerator"],
                 ctrl["denominator"], result["spec"]["reference"]["amplitude"])
 
 
@@ -525,7 +542,7 @@ def compare_metric(tally, case, key, a, b, horizon, overshoot_ref):
         ok, tol = close(a, b, rel=TOL_FINAL_REL), f"rel {TOL_FINAL_REL:g}"
     elif key == "steady_state_error":
         ok, tol = close(a, b, abs_=TOL_SSE_ABS), f"abs {TOL_SSE_ABS:g}"
-    elif key in ("overshoot_pct", "undershoot_pct"):
+    elif key in ("overshoot_pct", "undershoot_pct", "post_peak_dip_pct"):
         ok, tol = close(a, b, abs_=TOL_PCT_ABS), f"abs {TOL_PCT_ABS:g} pct"
     elif key == "effort_peak":
         ok, tol = close(a, b, rel=TOL_EFFORT_REL), f"rel {TOL_EFFORT_REL:g}"
@@ -578,18 +595,21 @@ def verify_design(tally, case, result, name, ref_tp, requirement_keys):
     limits = result["spec"]["requirements"]
     ambiguous = abs(m["overshoot_pct"] - band_pct) <= BRANCH_RESOLUTION_PCT
     branch = sim["overshoot_pct"] if ambiguous else m["overshoot_pct"]
+    dip_ambiguous = abs(m["post_peak_dip_pct"] - m["overshoot_pct"]) <= BRANCH_RESOLUTION_PCT
+    branch_dip = sim.get("post_peak_dip_pct", 0.0) if dip_ambiguous else m["post_peak_dip_pct"]
     all_met = True
     for key, c in checks.items():
         limit, upper = c["limit"], c["bound"] == "max"
         value_rep = number(c["value"])
-        value = requirement_value(key, m, mg, ref_tp, band_pct, branch)
+        value = requirement_value(key, m, mg, ref_tp, band_pct, branch, branch_dip)
         tol = requirement_tolerance(key, limit, loop.horizon, ref_tp or 1.0)
         note = ""
         if key in ("peak_time_ratio", "peak_time_max"):
             note = (f" (overshoot within {BRANCH_RESOLUTION_PCT:g} pts of the {band_pct} % band: branch of the reported "
                     f"overshoot)") if ambiguous else \
                 (f" (re-measured overshoot {m['overshoot_pct']:.9g} % {'>' if m['overshoot_pct'] > band_pct else '<='} "
-                 f"band {band_pct} %: {'peak' if m['overshoot_pct'] > band_pct else 'band entry'}; reported "
+                 f"band {band_pct} %, dip after it {m['post_peak_dip_pct']:.6g} %: "
+                 f"{'peak' if m['overshoot_pct'] > band_pct and m['post_peak_dip_pct'] <= m['overshoot_pct'] else 'final band entry'}; reported "
                  f"{sim['overshoot_pct']:.9g} %)")
         tally.check(label, f"check {key}: limit {limit} ({c['bound']}) as in the spec",
                     limits.get(key) == limit and upper == (key not in ("phase_margin_min_deg", "gain_margin_min_db")))
@@ -597,12 +617,15 @@ def verify_design(tally, case, result, name, ref_tp, requirement_keys):
                     close(value_rep, value, abs_=tol) if value is not None and value_rep is not None
                     else value is None and value_rep is None,
                     f"specloop {value_rep}, SciPy {value}, tol {tol:.2g}")
+        tally.check(label, f"check {key}: on_magnitude only for the steady-state error",
+                    bool(c.get("on_magnitude")) == (key == "steady_state_error_max"))
+        read = abs if c.get("on_magnitude") else (lambda v: v)
         if value is None:
             really_met = False
             clearly_missed = True
         else:
-            really_met = (value <= limit + tol) if upper else (value >= limit - tol)
-            clearly_missed = (value > limit - tol) if upper else (value < limit + tol)  # not clearly inside
+            really_met = (read(value) <= limit + tol) if upper else (read(value) >= limit - tol)
+            clearly_missed = (read(value) > limit - tol) if upper else (read(value) < limit + tol)  # not clearly inside
         if c["met"]:
             tally.check(label, f"check {key}: met re-verified", really_met,
                         f"SciPy {value} vs limit {limit} ± {tol:.2g}")
@@ -610,7 +633,7 @@ def verify_design(tally, case, result, name, ref_tp, requirement_keys):
             tally.check(label, f"check {key}: miss re-verified", clearly_missed,
                         f"SciPy {value} vs limit {limit} ± {tol:.2g}")
         all_met = all_met and c["met"]
-        expected_violation = normalized_violation(value_rep, limit, upper)
+        expected_violation = normalized_violation(None if value_rep is None else read(value_rep), limit, upper)
         tally.check(label, f"check {key}: violation = normalized miss",
                     close(c["violation"], expected_violation, rel=1e-9, abs_=1e-12),
                     f"{c['violation']} vs {expected_violation}")
@@ -806,12 +829,23 @@ def verify_run(tally, case, rc, stderr, result):
     opt = designs.get("optimized")
     if not tally.check(case, "has an optimized design", opt is not None):
         return None
-    tally.check(case, "exit code 0 exactly when the optimized design meets all",
-                (rc == 0) == bool(opt["meets_all"]), f"exit {rc}, meets_all {opt['meets_all']}")
-    tally.check(case, "search.feasible = optimized.meets_all", result["search"]["feasible"] == opt["meets_all"])
+    # README, "Exit codes" and `judged_on`: the verdict is read on the nonlinear loop when an
+    # effect the linear loop leaves out acts (or search.simulate = "nonlinear"), else on the linear one.
+    judged_nonlinear = result.get("judged_on") == "nonlinear"
+    nonlinear_met = bool((opt.get("nonlinear") or {}).get("meets_all"))
+    judged_met = nonlinear_met if judged_nonlinear else bool(opt["meets_all"])
+    tally.check(case, "exit code 0 exactly when the optimized design meets all on the loop it is judged on",
+                (rc == 0) == judged_met and result["met"] == judged_met,
+                f"exit {rc}, judged_on {result.get('judged_on')}, met {result['met']}, meets_all {opt['meets_all']}, "
+                f"nonlinear meets_all {nonlinear_met}")
+    tally.check(case, "met_on_linear = optimized.meets_all", result.get("met_on_linear") == opt["meets_all"])
+    ended_nonlinear = result["search"]["nonlinear_evaluations"] > 0
+    tally.check(case, "search.feasible = optimized meets all on the loop the search ended on",
+                result["search"]["feasible"] == (nonlinear_met if ended_nonlinear else opt["meets_all"]))
     budget = result["spec"]["search"]["max_evaluations"]
-    tally.check(case, "search evaluations within the budget", 0 < result["search"]["evaluations"] <= budget,
-                f"{result['search']['evaluations']} <= {budget}")
+    linear_evaluations = result["search"]["evaluations"] - result["search"]["nonlinear_evaluations"]
+    tally.check(case, "linear search evaluations within the budget", 0 < linear_evaluations <= budget,
+                f"{linear_evaluations} <= {budget}")
     reqs = result["spec"]["requirements"]
     keys = [k for k, v in reqs.items() if v is not None and k != "settling_band_pct"]
     ref_tp = result.get("reference_peak_time")
@@ -836,10 +870,11 @@ def verify_run(tally, case, rc, stderr, result):
             out = verify_design(tally, case, result, name, ref_tp, keys)
             if out:
                 measured[name] = out
-    if opt["meets_all"] is False:
+    if not judged_met:
         inf = result.get("infeasibility")
         if tally.check(case, "infeasibility block present when not met", inf is not None):
-            missed = {c["requirement"]: c["violation"] for c in opt["checks"] if not c["met"]}
+            judged_checks = opt["nonlinear"]["checks"] if judged_nonlinear else opt["checks"]
+            missed = {c["requirement"]: c["violation"] for c in judged_checks if not c["met"]}
             tally.check(case, "infeasibility.misses = the optimized design's missed checks",
                         sorted(m["requirement"] for m in inf["misses"]) == sorted(missed), f"{sorted(missed)}")
             worst = max(missed, key=missed.get) if missed else "stability"

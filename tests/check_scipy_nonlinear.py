@@ -260,6 +260,7 @@ def sampled_reference(plant, gains, ts, m, steps, b=1.0, c=1.0, limits=(-np.inf,
     a_d = tf / (tf + ts) if kd else 0.0
     ys, us = [], []
     clamped = 0
+    beyond = []  # per sample: the command beyond a limit, as first computed or as returned
     for _ in range(steps):
         y = C @ x
         r = 1.0
@@ -268,10 +269,13 @@ def sampled_reference(plant, gains, ts, m, steps, b=1.0, c=1.0, limits=(-np.inf,
         di = ki * ts / 2 * (e + e_prev)
         dn = a_d * deriv + (kd / (tf + ts) * (v - v_prev) if kd else 0.0)
         uc = p + integral + di + dn
-        if (uc > umax and di > 0) or (uc < umin and di < 0):
+        tentative = uc
+        held = (uc > umax and di > 0) or (uc < umin and di < 0)
+        if held:
             di = 0.0
             uc = p + integral + dn
             clamped += 1
+        beyond.append(max(tentative, uc) > umax or min(tentative, uc) < umin)
         integral += di
         deriv, e_prev, v_prev = dn, e, v
         u = min(max(uc, umin), umax)
@@ -279,6 +283,7 @@ def sampled_reference(plant, gains, ts, m, steps, b=1.0, c=1.0, limits=(-np.inf,
         us.append(uc)
         queue.append(u)
         x = Ad @ x + Bd * queue.pop(0)
+    sampled_reference.beyond = beyond
     return np.array(ys), np.array(us), clamped
 
 
@@ -325,6 +330,11 @@ def check_delay_and_sampling(tally, nlprobe):
         {"name": "sampled PID b 0.5 c 0, clamping, Ts 0.05, delay 2 Ts, third-order plant", "plant": PLANT_3,
          "structure": "pid", "series": [4.0, 1.5, 0.8], "ts": 0.05, "m": 2, "steps": 301,
          "limits": (-0.5, 1.2), "options": {"setpoint_weight": 0.5, "derivative_weight": 0.0, "anti_windup": "conditional-integration"}},
+        # The command with its first integral increment, 1.2 + 0.84·0.05 = 1.242, lies beyond 1.22;
+        # clamping skips the increment and returns 1.2, inside: that sample is still saturated.
+        {"name": "sampled PI, clamping brings the first command back inside, Ts 0.1, lag plant", "plant": PLANT_LAG,
+         "structure": "pi", "series": [1.2, 0.7], "gains": (1.2, 1.2 * 0.7, 0.0, 0.0), "ts": 0.1, "m": 0, "steps": 121,
+         "limits": (-1.22, 1.22), "options": {"anti_windup": "conditional-integration"}},
     ]
     for sc in sampled_cases:
         ts, m, steps = sc["ts"], sc["m"], sc["steps"]
@@ -364,11 +374,19 @@ def check_delay_and_sampling(tally, nlprobe):
             lo, hi = sc["limits"]
             pin = np.array(res["plant_input"])
             inside = np.min(pin) >= lo and np.max(pin) <= hi
-            active = bool(np.any((u_ref > hi) | (u_ref < lo)))
+            active = bool(np.any(sampled_reference.beyond))
             tally.check(sc["name"], "plant input within the limits, saturation and clamping active",
                         inside and active and clamped > 0,
                         f"plant input in [{np.min(pin):.4f}, {np.max(pin):.4f}], command in "
                         f"[{np.min(u_ref):.4f}, {np.max(u_ref):.4f}], {clamped} clamped samples")
+            # Saturation of a sampled controller (README, confirmation): every period whose command,
+            # as first computed with the integral increment, lies beyond a limit counts, also when
+            # the conditional integration then held the integrator and so brought it back inside.
+            horizon = (steps - 1) * ts
+            periods = sum(sampled_reference.beyond[:-1])  # the sample at the horizon has no period
+            tally.check(sc["name"], "saturated fraction = periods with the command beyond a limit",
+                        abs(res["saturated_fraction"] * horizon / ts - periods) <= 1e-6,
+                        f"{res['saturated_fraction'] * horizon / ts:.6f} vs {periods} periods")
 
     # --- Continuous PI with delay against Padé-approximated linear loops of rising order.
     delay_cases = [

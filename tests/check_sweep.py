@@ -45,11 +45,13 @@ def fnv1a64(data: bytes) -> str:
 
 
 def tightest_ok(row):
-    """Recomputes a met row's binding requirement from its stored linear checks: the least
-    normalized room (limit − value)/|limit| for an upper bound, the reverse for a lower one, a
-    zero limit met exactly (|value| ≤ 1e-9) not counted. The oven spec is judged on the linear loop."""
+    """Recomputes a met row's binding requirement from its stored checks on the loop the row was
+    judged on (judged_on: the linear checks, or the nonlinear loop's): the least normalized room
+    (limit − value)/|limit| for an upper bound, the reverse for a lower one, a zero limit met
+    exactly (|value| ≤ 1e-9) not counted."""
     import json
-    checks = json.loads(row[10])["checks"]
+    summary = json.loads(row[10])
+    checks = summary["nonlinear"]["checks"] if row[4] == "nonlinear" else summary["checks"]
     best, name = None, None
     for c in checks:
         if not c["met"] or c["value"] is None or (c["limit"] == 0 and abs(c["value"]) <= 1e-9):
@@ -58,7 +60,7 @@ def tightest_ok(row):
         room = (c["limit"] - c["value"]) / scale if c["upper"] else (c["value"] - c["limit"]) / scale
         if best is None or room < best:
             best, name = room, c["requirement"]
-    return row[4] == "linear" and row[5] == name
+    return row[4] in ("linear", "nonlinear") and row[5] == name
 
 
 def rows(store):

@@ -102,21 +102,80 @@ TEST_CASE("requirements read their values from the response", "[requirements]") 
   REQUIRE(list.size() == 3);
   CHECK(list[0].key == "overshoot_max_pct");
   CHECK(list[2].upper == false);
+  // Peak-time requirements (README, "Metric definitions"): the visible peak's time, else the
+  // final entry into the band (the settling time), never the first entry.
   StepMetrics m;
-  m.overshoot_pct = 1.0;  // inside a 2 % band: peak-time requirements read the band entry
+  m.overshoot_pct = 1.0;  // inside a 2 % band: no visible peak, the final entry counts
   m.peak_time_s = 3.0;
   m.band_entry_time_s = 1.2;
-  CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 0.6);
+  m.settling_time_s = 4.0;
+  CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 2.0);
   m.overshoot_pct = 7.0;  // a visible peak: its time
   CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 1.5);
-  // At the band edge, where rounding could put the measured overshoot on either side, the later
-  // reading counts (regression: a search pushed onto the edge claimed the early band entry).
-  m.overshoot_pct = 2.0 - 1e-6;
+  // A response that touches the band early, falls back and creeps in late (seen: 0.9808 at
+  // 1.1 s, back to 0.72, in the band after 45 000 s) reads its final entry, not the touch.
+  StepMetrics creep;
+  creep.overshoot_pct = 0.0;
+  creep.band_entry_time_s = 1.1;
+  creep.settling_time_s = 45000.0;
+  CHECK(requirement_value(list[1], creep, std::nullopt, 2.0, 2.0) == 22500.0);
+  // A bump above the band that then falls further below y∞ than it rose is no decaying
+  // oscillation: its peak does not count either.
+  m.post_peak_dip_pct = 28.0;
+  CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 2.0);
+  m.post_peak_dip_pct = 6.9;  // an oscillation that decays: the peak counts
   CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 1.5);
-  m.overshoot_pct = 1.5;
-  CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 0.6);
+  // The search's margin makes both tests stricter: 1 % more overshoot than the band, 1 % less dip.
+  m.overshoot_pct = 2.01;
+  m.post_peak_dip_pct = 0.0;
+  CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 1.5);
+  CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0, 0.01) == 2.0);
+  m.overshoot_pct = 7.0;
+  m.post_peak_dip_pct = 6.95;
+  CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0) == 1.5);
+  CHECK(requirement_value(list[1], m, std::nullopt, 2.0, 2.0, 0.01) == 2.0);
+  // No settling within the horizon: no value (a full miss).
+  m.overshoot_pct = 1.0;
+  m.settling_time_s.reset();
+  CHECK(!requirement_value(list[1], m, std::nullopt, 2.0, 2.0));
   Margins margins;
   CHECK(std::isinf(*requirement_value(list[2], m, margins, 2.0, 2.0)));  // no gain crossover: infinite PM
+}
+
+TEST_CASE("the search's margin tightens every limit by its fraction", "[requirements]") {
+  // Common practice (a design margin): upper limits move down, lower ones up, a zero limit stays.
+  const Requirement os{"overshoot_max_pct", "%", true, 10.0};
+  const Requirement pm{"phase_margin_min_deg", "deg", false, 45.0};
+  const Requirement sse{"steady_state_error_max", "", true, 0.0};
+  CHECK_THAT(tightened(os, 0.01).limit, Catch::Matchers::WithinRel(9.9, 1e-14));
+  CHECK_THAT(tightened(pm, 0.01).limit, Catch::Matchers::WithinRel(45.45, 1e-12));
+  CHECK(tightened(sse, 0.01).limit == 0.0);
+  CHECK(tightened(os, 0.0).limit == 10.0);
+  // Slack: the normalized room, negative when missed (README, result.json `slack`).
+  CHECK_THAT(requirement_slack(os, 9.0), Catch::Matchers::WithinRel(0.1, 1e-12));
+  CHECK_THAT(requirement_slack(os, 11.0), Catch::Matchers::WithinRel(-0.1, 1e-12));
+  CHECK_THAT(requirement_slack(pm, 60.0), Catch::Matchers::WithinRel(1.0 / 3.0, 1e-12));
+}
+
+TEST_CASE("the tracking objectives reward following the reference", "[requirements]") {
+  // README, "Objectives": the integral about y∞ plus what the offset r − y∞ alone accumulates
+  // over the window W (elementary integrals of a constant: ∫₀^W t·c dt = c·W²/2, ∫₀^W c dt = c·W).
+  StepMetrics m;
+  m.final_value = 0.8;
+  m.itae = 0.5;
+  m.iae = 0.3;
+  m.ise = 0.2;
+  CHECK_THAT(tracking_objective(Objective::itae, m, 1.0, 4.0), Catch::Matchers::WithinRel(0.5 + 0.2 * 8.0, 1e-12));
+  CHECK_THAT(tracking_objective(Objective::iae, m, 1.0, 4.0), Catch::Matchers::WithinRel(0.3 + 0.2 * 4.0, 1e-12));
+  CHECK_THAT(tracking_objective(Objective::ise, m, 1.0, 4.0), Catch::Matchers::WithinRel(0.2 + 0.04 * 4.0, 1e-12));
+  m.final_value = 1.0;  // no offset: the plain integrals
+  CHECK(tracking_objective(Objective::itae, m, 1.0, 4.0) == 0.5);
+  // A gain driven to zero shrinks the integrals about y∞ but not the offset term.
+  StepMetrics idle;
+  idle.final_value = 0.0035;
+  idle.itae = 1e-4;
+  CHECK(tracking_objective(Objective::itae, idle, 1.0, 4.0) > tracking_objective(Objective::itae, m, 1.0, 4.0));
+  CHECK_THROWS_AS(tracking_objective(Objective::effort, m, 1.0, 4.0), std::logic_error);
 }
 
 namespace {
@@ -218,25 +277,35 @@ TEST_CASE("set-point weights: the linear and nonlinear loops agree, and the deri
                              "specs/unit.toml"), SpecError);
 }
 
-TEST_CASE("search.simulate = nonlinear refines a design that fails only on the nonlinear loop", "[search]") {
+TEST_CASE("the search ends on the loop the spec describes when an effect acts; the verdict is read there", "[search]") {
   // An invented winch drive whose ±0.9 actuator saturates and whose PI has no anti-windup: the
-  // linear optimum winds up on the real loop; the refinement on the nonlinear loop repairs it.
+  // linear optimum winds up on the real loop.
   const std::string base =
       "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[actuator]\nmin = -0.9\nmax = 0.9\n"
       "[controller]\nstructure = \"pi\"\nanti_windup = \"none\"\n"
       "[requirements]\novershoot_max_pct = 5.0\nsettling_time_max = 6.0\nsteady_state_error_max = 0.0\n";
-  const DesignRun linear = run_design(parse_spec(base, "specs/unit.toml"));
-  REQUIRE(linear.met);
-  REQUIRE_FALSE(linear.judged_on_nonlinear);
+  // search.simulate = "linear": no nonlinear stage, but the limits act, so the verdict is read on
+  // the nonlinear loop, where the linear optimum fails: a linear-only pass is not "met".
+  const DesignRun linear = run_design(parse_spec(base + "[search]\nsimulate = \"linear\"\n", "specs/unit.toml"));
+  CHECK(linear.search.nonlinear_evaluations == 0);
+  CHECK(linear.search.active_effects == std::vector<std::string>{"actuator_limits"});
+  CHECK(linear.judged_on_nonlinear);
+  CHECK(linear.met_on_linear);
+  CHECK_FALSE(linear.met);
+  REQUIRE(linear.infeasibility);
+  CHECK_THAT(linear.infeasibility->nearest_text, Catch::Contains("linear-only pass"));
   const Design* l = linear.find("optimized");
   REQUIRE(l->nonlinear);
   CHECK_FALSE(l->nonlinear->confirmed);  // the linear optimum winds up
 
-  const DesignRun refined = run_design(parse_spec(base + "[search]\nsimulate = \"nonlinear\"\n", "specs/unit.toml"));
-  CHECK(refined.judged_on_nonlinear);
-  CHECK(refined.search.nonlinear_evaluations > 0);
-  const Design* r = refined.find("optimized");
-  REQUIRE(r->nonlinear);
-  CHECK(r->nonlinear->meets_all);
-  CHECK(refined.met);
+  // The default (auto) and "nonlinear" both end on the nonlinear loop and repair it there.
+  for (const char* mode : {"", "[search]\nsimulate = \"nonlinear\"\n"}) {
+    const DesignRun refined = run_design(parse_spec(base + mode, "specs/unit.toml"));
+    CHECK(refined.judged_on_nonlinear);
+    CHECK(refined.search.nonlinear_evaluations > 0);
+    const Design* r = refined.find("optimized");
+    REQUIRE(r->nonlinear);
+    CHECK(r->nonlinear->meets_all);
+    CHECK(refined.met);
+  }
 }

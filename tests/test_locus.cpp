@@ -75,3 +75,55 @@ TEST_CASE("mode shares add up to the step response at t = 0", "[locus]") {
   }
   CHECK(total >= 1.0 - 1e-9);  // triangle inequality on Σ residues = −y∞
 }
+
+TEST_CASE("mode contributions are signed and add up to the final value", "[locus][modes]") {
+  // T(s) = 6/((s + 1)(s + 2)(s + 3)): by partial fractions (worked by hand, common practice)
+  // y(t) = 1 − 3e^{−t} + 3e^{−2t} − e^{−3t}, so the contributions −(term at t = 0)/y∞ are
+  // +300 %, −300 %, +100 %: sizes 700 %, sum 100 %.
+  const auto t = TransferFunction::from_zeros_poles({}, {{-1.0, 0.0}, {-2.0, 0.0}, {-3.0, 0.0}}, 6.0);
+  const auto modes = mode_shares(t);
+  REQUIRE(modes.size() == 3);
+  double sum = 0.0;
+  for (const auto& m : modes) {
+    REQUIRE(m.contribution);
+    REQUIRE(m.share);
+    CHECK_THAT(std::abs(*m.contribution), WithinRel(*m.share, 1e-12));  // a real pole: size = |contribution|
+    const double want = m.pole.real() == Approx(-1.0) ? 3.0 : m.pole.real() == Approx(-2.0) ? -3.0 : 1.0;
+    CHECK_THAT(*m.contribution, WithinAbs(want, 1e-9));
+    sum += *m.contribution;
+  }
+  CHECK_THAT(sum, WithinAbs(1.0, 1e-12));
+  CHECK_THAT(contribution_total(t), WithinAbs(1.0, 0.0));
+  const auto note = cancellation_note(modes, 1.0);
+  REQUIRE(note);
+  CHECK(note->find("700 %") != std::string::npos);
+  CHECK(note->find("100 %") != std::string::npos);
+}
+
+TEST_CASE("mode contributions of a pair: 2·Re of the residue, and the sum with a zero", "[locus][modes]") {
+  // T(s) = 5/(s² + 2s + 5) = 5/((s + 1)² + 4): y(t) = 1 − e^{−t}(cos 2t + ½ sin 2t) (standard
+  // second-order step response, common practice): the pair's term is −1 at t = 0 → +100 %,
+  // its amplitude √(1 + ¼) = 111.8 %.
+  const auto pair = TransferFunction(Polynomial({5.0}), Polynomial({1.0, 2.0, 5.0}));
+  const auto modes = mode_shares(pair);
+  REQUIRE(modes.size() == 1);
+  REQUIRE(modes[0].contribution);
+  CHECK_THAT(*modes[0].contribution, WithinAbs(1.0, 1e-12));
+  CHECK_THAT(*modes[0].share, WithinAbs(std::sqrt(1.25), 1e-12));
+  CHECK_FALSE(cancellation_note(modes, 1.0));
+  // A zero close to a pole, poles spread: whatever the sizes, the signed sum is 1 (y(0) = 0).
+  const auto t = TransferFunction::from_zeros_poles({{-1.05, 0.0}, {-20.0, 0.0}},
+                                                    {{-1.0, 0.0}, {-2.0, 3.0}, {-2.0, -3.0}, {-9.0, 0.0}, {-40.0, 0.0}}, 900.0);
+  double sum = 0.0;
+  for (const auto& m : mode_shares(t)) {
+    REQUIRE(m.contribution);
+    sum += *m.contribution;
+  }
+  CHECK_THAT(sum, WithinAbs(1.0, 1e-9));
+  // A loop with a direct feedthrough jumps at t = 0: the contributions add up to 1 − T(∞)/T(0).
+  const auto feedthrough = TransferFunction(Polynomial({1.0, 3.0}), Polynomial({2.0, 4.0}));  // (s + 3)/(2s + 4): T(∞) = ½, T(0) = ¾
+  double feedthrough_sum = 0.0;
+  for (const auto& m : mode_shares(feedthrough)) feedthrough_sum += m.contribution.value_or(0.0);
+  CHECK_THAT(contribution_total(feedthrough), WithinAbs(1.0 - 0.5 / 0.75, 1e-15));
+  CHECK_THAT(feedthrough_sum, WithinAbs(1.0 - 0.5 / 0.75, 1e-12));
+}

@@ -216,7 +216,7 @@ TEST_CASE("a failed confirmation names the effect that caused it", "[confirmatio
     CHECK(t.restores);
     REQUIRE(t.checks.size() == 1);
     CHECK(t.checks.front().requirement.key == "overshoot_max_pct");
-    CHECK(d.nonlinear->verdict.find("without saturation") != std::string::npos);
+    CHECK(d.nonlinear->verdict.find("restored by taking out saturation") != std::string::npos);
     CHECK(d.nonlinear->command_excess_max > 0.0);
   }
   SECTION("a large step on an expression plant: its nonlinearity, not its limits, costs the overshoot") {

@@ -131,6 +131,15 @@ TEST_CASE("time grid rules", "[response]") {
   // ... unless the cap binds: then the fine step loosens to fit max_samples.
   const auto capped = choose_time_grid({{-0.5, 0.0}, {-0.5, 5000.0}, {-0.5, -5000.0}}, rules);
   CHECK(capped.samples == rules.max_samples);
+  // A fast pair barely inside the stable half-plane (a gain scanned up to the stability edge)
+  // wants ~1e19 fine intervals: more than an int holds. The count is capped, never overflowed
+  // (it once wrapped negative and the simulator asked for an impossible allocation).
+  for (const double sigma : {1e-3, 1e-9, 1e-14}) {
+    const auto edge = choose_time_grid({{-1.0, 0.0}, {-sigma, 1e5}, {-sigma, -1e5}}, rules);
+    CHECK(edge.samples == rules.max_samples);
+    CHECK(edge.fine_intervals >= 1);
+    CHECK(edge.step_s > 0.0);
+  }
 }
 
 TEST_CASE("two-segment grid: samples stay exact across the switch", "[response]") {

@@ -272,7 +272,8 @@ overshoot_max_pct = -5
         "for re ± j·im), got [-2, -0.5]");
 
   CHECK(error_of("[plant]\npoles = [-1.0]\n[reference]\namplitude = 0.0\n") ==
-        "specs/unit.toml:4:1: reference.amplitude: expected a nonzero number, got 0");
+        "specs/unit.toml:4:1: reference.amplitude: expected a nonzero number of magnitude in [1e-6, 1e6] (express "
+        "the output in other units otherwise), got 0");
 
   CHECK(error_of("[plant]\npoles = [-1.0]\n[requirements]\npeak_time_ratio = 10.5\n") ==
         "specs/unit.toml:4:1: requirements.peak_time_ratio: expected a number in (0, 10], got "
@@ -307,7 +308,7 @@ TEST_CASE("unknown names get a did-you-mean or the list of valid names", "[spec]
         "specs/unit.toml:4:1: controler: unknown section; did you mean 'controller'?");
   CHECK(error_of("[plant]\npoles = [-1.0]\n[logging]\nlevel = 3\n") ==
         "specs/unit.toml:3:1: logging: unknown section; valid top-level names: title, plant, "
-        "actuator, controller, requirements, reference, search, disturbance, sweep");
+        "actuator, controller, requirements, reference, search, disturbance, sweep, units");
   CHECK(error_of("titel = \"Valve\"\n[plant]\npoles = [-1.0]\n") ==
         "specs/unit.toml:1:1: titel: unknown key; did you mean 'title'?");
   CHECK(error_of("[plant]\npoles = [-1.0]\n[controller]\nstructure = \"Lead\"\n") ==
@@ -340,7 +341,7 @@ TEST_CASE("plant form errors name the offending key", "[spec][errors]") {
         "denominator degree 1");
   CHECK(error_of("[plant]\nzeros = [-1.0, -2.0]\npoles = [-3.0]\n") ==
         "specs/unit.toml:2:1: plant.zeros: improper plant: numerator degree 2 (2 zeros) exceeds "
-        "denominator degree 1 (1 poles); a plant needs at least as many poles as zeros");
+        "denominator degree 1 (1 poles); a plant needs more poles than zeros");
   CHECK(error_of("[plant]\nnumerator = [1.0]\ndenominator = [0.0, 1.0, 2.0]\n") ==
         "specs/unit.toml:3:1: plant.denominator: leading coefficient must be nonzero; remove the "
         "leading zeros");
@@ -354,10 +355,14 @@ TEST_CASE("plant form errors name the offending key", "[spec][errors]") {
         "an array of 3 elements");
   CHECK(error_of("[plant]\npoles = [-1.0]\ngain = 0.0\n") ==
         "specs/unit.toml:3:1: plant.gain: expected a nonzero number, got 0");
-  // Equal degrees are proper.
-  CHECK_NOTHROW(parse_spec("[plant]\nzeros = [-1.0]\npoles = [-3.0]\n", "x.toml"));
-  CHECK_NOTHROW(
-      parse_spec("[plant]\nnumerator = [2.0, 1.0]\ndenominator = [1.0, 3.0]\n", "x.toml"));
+  // Equal degrees (biproper: a direct feedthrough) are refused, in both forms, with the rule.
+  CHECK_THAT(error_of("[plant]\nzeros = [-1.0]\npoles = [-3.0]\n"),
+             Catch::Matchers::StartsWith("specs/unit.toml:2:1: plant.zeros: as many zeros as poles: a biproper plant") &&
+                 Catch::Matchers::Contains("degree(numerator) < degree(denominator)"));
+  CHECK_THAT(error_of("[plant]\nnumerator = [2.0, 1.0]\ndenominator = [1.0, 3.0]\n"),
+             Catch::Matchers::StartsWith("specs/unit.toml:2:1: plant.numerator: numerator degree 1 equals denominator "
+                                         "degree 1: a biproper plant"));
+  CHECK_NOTHROW(parse_spec("[plant]\nnumerator = [2.0, 1.0]\ndenominator = [1.0, 3.0, 2.0]\n", "x.toml"));
 }
 
 TEST_CASE("section-level errors point at the section header", "[spec][errors]") {
@@ -387,7 +392,8 @@ steady_state_error_max = 0
                           "steady-state error to a step needs an integrator in the loop"));
   CHECK_THAT(message, Catch::Matchers::Contains("'lead'"));
   CHECK_THAT(message, Catch::Matchers::Contains("\"pi\" or \"pid\""));
-  // A zero at the origin cancels the plant's integrator.
+  // A zero at the origin cancelling the plant's integrator is refused before that (a hidden mode
+  // on the imaginary axis).
   CHECK_THAT(
       error_of(R"([plant]
 numerator = [1.0, 0.0]
@@ -397,7 +403,8 @@ structure = "pd"
 [requirements]
 steady_state_error_max = 0
 )"),
-      Catch::Matchers::StartsWith("specs/unit.toml:7:1: requirements.steady_state_error_max"));
+      Catch::Matchers::StartsWith("specs/unit.toml:2:1: plant.numerator: zero 0 cancels the pole 0 (plant.denominator) "
+                                  "on the imaginary axis"));
 }
 
 TEST_CASE("TOML syntax errors and duplicates keep their line and column", "[spec][errors]") {

@@ -8,6 +8,7 @@
 #include <vector>
 
 #include "specloop/lti.hpp"
+#include "specloop/margins.hpp"
 #include "specloop/response.hpp"
 #include "specloop/second_order.hpp"
 #include "specloop/spec.hpp"
@@ -47,14 +48,32 @@ std::vector<LocusCrossing> damping_line_crossings(const TransferFunction& g, dou
 std::optional<std::size_t> dominant_crossing(const TransferFunction& plant,
                                              const std::vector<LocusCrossing>& crossings, std::string& why);
 
-/// One closed-loop mode's share of the step response: |residue of T(s)·r/s at the pole| ÷ |y∞|
-/// (a conjugate pair counted once, both members together).
+/// One closed-loop mode of the step response y(t) = y∞ + Σ (term of each mode), a conjugate pair
+/// counted once (both members together).
+///  - share: the term's size, |residue of T(s)/s at the pole| ÷ |y∞| (×2 for a pair: its
+///    oscillation amplitude), what decides whether a mode is significant;
+///  - contribution: signed, −(the term at t = 0⁺) ÷ y∞ — the part of the final value the mode
+///    still has to supply at the start (positive: its term starts below y∞ and decays away). The
+///    contributions add up to contribution_total(T) (1 for a strictly proper loop); sizes far
+///    above their sum mean modes that cancel one another (cancellation_note).
 struct ModeShare {
   Complex pole;
-  std::optional<double> share;  // empty for a repeated pole (no simple residue)
+  std::optional<double> share;         // empty for a repeated pole (no simple residue)
+  std::optional<double> contribution;  // empty for a repeated pole, unless it is the only one
+                                       // without a residue (it then holds the rest of the sum)
 };
-/// Residue shares of the closed-loop modes of T(s) for a unit step.
+/// Residue shares and signed contributions of the closed-loop modes of T(s) for a step.
 std::vector<ModeShare> mode_shares(const TransferFunction& closed_loop);
+
+/// What the modes' contributions add up to: 1 − y(0⁺)/y∞ (1 unless T has a direct feedthrough).
+double contribution_total(const TransferFunction& closed_loop);
+
+/// When the contributions' sizes add up to more than 2× their sum (`total`), one sentence
+/// saying that the modes cancel one another; otherwise none.
+std::optional<std::string> cancellation_note(const std::vector<ModeShare>& modes, double total);
+
+/// "contributes +66 % of the step's final value" (with the amplitude for a pair), for sentences.
+std::string contribution_words(const ModeShare& mode);
 
 struct DominanceDiagnosis {
   bool holds = false;
@@ -63,6 +82,8 @@ struct DominanceDiagnosis {
   std::vector<Complex> slow_poles;   // the closed-loop poles named in `reasons` (upper members)
   std::vector<Complex> near_zeros;   // the closed-loop zeros named in `reasons` (upper members)
   std::vector<ModeShare> modes;
+  double contribution_sum = 1.0;            // what the modes' contributions add up to (contribution_total)
+  std::optional<std::string> cancellation;  // cancellation_note(modes, contribution_sum)
   double overshoot_error_pct = 0.0;  // (simulated − predicted)/predicted·100
   std::optional<double> peak_time_error_pct;
   std::optional<double> settling_time_error_pct;
@@ -85,6 +106,11 @@ struct GainPoint {
 };
 
 struct Characterization {
+  /// +1 direct, −1 reverse action (loop_action of the linear plant). Every gain below (crossings,
+  /// dominant, reference, the stable set) is computed on the plant with direct action, action·G, and
+  /// is a magnitude; the controller gain on the plant as given is action × gain (what analyze prints).
+  double action = 1.0;
+  StableGainSet p_stability;         // the P gains K > 0 for which K·(action·G) in unity feedback is stable
   double damping_ratio = 0.0;        // from overshoot_max_pct
   double band_fraction = 0.02;
   std::vector<LocusCrossing> crossings;

@@ -44,24 +44,33 @@ struct StandardForm {
 /// A concrete controller: its structure, series parameters, and what follows from them.
 struct Controller {
   Structure structure = Structure::p;
-  std::vector<double> series;             // values in structure_parameters order
+  std::vector<double> series;             // values in structure_parameters order (magnitudes, all positive)
+  double action = 1.0;                    // +1 direct, −1 reverse (loop_action of the plant): multiplies C(s)
+                                          // and every gain of the parallel and standard forms
   double derivative_filter = 10.0;        // N (pd, pid)
   TransferFunction transfer;              // C(s), continuous time
   std::optional<ParallelGains> parallel;  // empty for lag and lead-lag (no PID equivalent)
   std::optional<StandardForm> standard;
 };
 
-/// Builds the controller from series parameters. Throws std::invalid_argument when a value is
-/// not positive and finite or the count is wrong.
-Controller make_controller(Structure s, const std::vector<double>& series, double derivative_filter);
+/// Builds the controller from series parameters and the action (+1 direct, −1 reverse: the sign
+/// of C(s), Kp, Ki, Kd and the standard form's Kp; Ti, Td, Tf and N stay positive). Throws
+/// std::invalid_argument when a value is not positive and finite, the count is wrong or the
+/// action is not ±1.
+Controller make_controller(Structure s, const std::vector<double>& series, double derivative_filter, double action = 1.0);
+
+/// The series parameters as shown and written (result.json, the store, tables): the gain (always
+/// the first) carries the action, so C(s) reads off them directly; the others as they are.
+std::vector<double> signed_series(const Controller& c);
 
 /// The reference path of a two-degree-of-freedom controller u = C_r(s)·r − C(s)·y with
 /// C_r = Kp·b + Ki/s + Kd·c·s/(Tf·s + 1) (set-point weights b and c; Åström–Hägglund). It shares
 /// C's denominator. b = c = 1 gives C itself; lag and lead-lag (no parallel form) only allow that.
 TransferFunction reference_path(const Controller& c, double setpoint_weight, double derivative_weight);
 
-/// Writes C(s) for the series parameters into `num`/`den` without building the rest (hot path).
-void controller_polynomials(Structure s, const double* series, double derivative_filter,
+/// Writes C(s) for the series parameters and action (±1) into `num`/`den` without building the
+/// rest (hot path).
+void controller_polynomials(Structure s, const double* series, double derivative_filter, double action,
                             std::vector<double>& num, std::vector<double>& den);
 
 /// The lower bound on the PID zero damping ζc that keeps Tf real: 1/√(N + 1).

@@ -18,8 +18,14 @@ nlohmann::json number_json(double v);
 /// Step metrics with the keys overshoot_pct, peak_time, settling_time, rise_time,
 /// steady_state_error, effort_peak, undershoot_pct, final_value, iae, ise, itae (null = none).
 nlohmann::json metrics_json(const StepMetrics& m);
-/// Whether the second-order prediction holds: verdict, reasons, modes with their shares, errors.
+/// The spec's [units] names: {output, input, time} (the defaults when the spec has none).
+nlohmann::json units_json(const UnitsSpec& units);
+/// Whether the second-order prediction holds: verdict, reasons, modes with their shares and signed
+/// contributions, what the contributions add up to, the cancellation note (or null), errors.
 nlohmann::json dominance_json(const DominanceDiagnosis& d);
+/// The P gains for which the loop is stable, as action × gain (signed, the gain on the plant as
+/// given): {"text", "ranges": [{"low", "high", "state": "stable"|"undamped"|"unstable"}]}, ±∞ as strings.
+nlohmann::json stable_gain_set_json(const StableGainSet& set, double action);
 /// The whole `analyze --json` object.
 nlohmann::json characterization_json(const Spec& spec, const Characterization& ch);
 

@@ -3,6 +3,7 @@
 #pragma once
 
 #include <Eigen/Dense>
+#include <string>
 #include <vector>
 
 #include "specloop/polynomial.hpp"
@@ -36,6 +37,25 @@ struct TransferFunction {
 };
 
 TransferFunction operator*(const TransferFunction& a, const TransferFunction& b);
+
+/// The sign the controller's gains must take for this plant: +1 direct action, −1 reverse
+/// action. It is the sign of b_low/a_n, the numerator's lowest-order nonzero coefficient over the
+/// denominator's leading coefficient (for k·Π(s − z)/Π(s − p): the sign of k, flipped once per
+/// real zero in the right half plane). Why: every structure here has a numerator and denominator
+/// with positive coefficients, so the closed loop's characteristic polynomial has its leading
+/// coefficient of the sign of a_n and its lowest-order coefficient of the sign of the controller's
+/// gain times b_low (with an integrator in the loop), or that plus a term the final value needs of
+/// the same sign (without one); a Hurwitz polynomial has all coefficients of one sign (Stodola's
+/// necessary condition), so the other sign can never give a stable loop that settles on the
+/// reference. For an open-loop stable plant this is the sign of its DC gain; an odd number of
+/// real right-half-plane poles makes it the opposite of the DC gain's sign; for an integrating
+/// plant it is the sign of its velocity gain; a non-minimum-phase plant follows its DC gain, not
+/// its high-frequency gain.
+double loop_action(const TransferFunction& plant);
+/// "direct" (+1) or "reverse" (−1).
+const char* action_name(double action);
+/// Why the plant gets its action, in one clause for the terminal, the report and result.json.
+std::string action_reason(const TransferFunction& plant);
 
 /// Static error constants of an open loop L(s) (a standard controls text: position Kp = lim L,
 /// velocity Kv = lim s·L, acceleration Ka = lim s²·L as s → 0). Infinite values are +inf.

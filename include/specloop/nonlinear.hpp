@@ -83,6 +83,8 @@ struct LoopOptions {
   double horizon_s = 0.0;      // simulated time, s; <= 0: the linear step simulation's horizon
   double output_step_s = 0.0;  // observer sampling step, s; <= 0: horizon/4000
   std::vector<double> sample_times_s;  // if non-empty, sample exactly here instead (increasing, >= 0)
+  double first_step_s = 0.0;   // > 0: the integrator's first trial step at most this (a fast start the
+                               // error control must see, e.g. a stiff loop's fast transient); 0: default
   int max_steps = 1'000'000;           // accepted integrator steps + restarts, over the whole run
   double max_wall_time_s = 60.0;       // wall-clock cap on one simulation, s
   double relative_tolerance = 1e-8;    // dopri5 error control, per step
@@ -130,16 +132,28 @@ struct NonlinearResult {
   double saturated_fraction = 0.0;  // time with the command beyond a limit ÷ horizon
   double rate_limited_fraction = 0.0;  // time the applied u slews at ±rate_max ÷ horizon
   double command_excess_max = 0.0;  // largest |u_c − clamp(u_c)| at the samples: how far the
-                                    // command runs beyond the limits (integrator windup shows here)
+                                    // command runs beyond the limits (integrator windup shows here);
+                                    // a sampled controller's command as first computed counts too
+  double integrator_held_fraction = 0.0;  // time the conditional integration held the integrator
+                                         // (sampled: periods whose increment it skipped) ÷ horizon
   int steps = 0;                    // accepted integrator steps
   int switches = 0;                 // located mode switches (integration restarts)
   NonlinearStepper stepper = NonlinearStepper::dopri5;  // the one used
   double explicit_steps_estimate = 0.0;  // horizon·ρ/3.3: dopri5's steps for stability alone
-  StepMetrics metrics;              // measured on the samples; valid only when status is ok
+  StepMetrics metrics;              // measured on the samples; valid only when status is ok and `measured`
+  bool measured = false;            // false: the linear loop has no finite nonzero y∞ (a note says so)
   std::vector<std::string> notes;   // what was simplified or not applied, in words
   /// For a sampled controller: its difference equations at sample_time_s (empty when continuous).
   std::optional<DifferenceEquation> difference_equation;
+  double noise_period_s = 0.0;             // the noise period used (options' or the default); 0: no noise
+  std::optional<double> tracking_time_s;   // the back-calculation Tt used (given or by the default rule)
 };
+
+/// The difference equation a sampled controller runs at period `ts` (documented below under
+/// "Sampled controller"), with set-point weight b and derivative weight c (PID family only).
+/// Throws std::invalid_argument for ts <= 0 or an improper C(s).
+DifferenceEquation controller_difference_equation(const Controller& controller, double ts, double setpoint_weight,
+                                                  double derivative_weight);
 
 /// Simulates a step of `amplitude` in the reference at t = 0 (zero initial state; the
 /// proportional and derivative terms see it at 0+) through the loop r → controller → actuator →
@@ -152,10 +166,14 @@ struct NonlinearResult {
 ///
 /// Metrics use the linear definitions of StepMetrics measured on the samples: y∞ is the linear
 /// loop's r·T(0) (final-value theorem), also when a limit or disturbance changes the true final
-/// value; the steady-state error is the linear one. Extremes are sample maxima, crossings are
-/// linearly interpolated, integrals use the trapezoid rule; with the default 4000 samples per
-/// horizon that is accurate to about 1e-5 relative on smooth responses (the samples themselves
-/// carry the integrator's error, ~1e-7 relative at the default tolerances).
+/// value; the steady-state error is the linear one. Extrema of y between samples (the peak, the
+/// deepest dip after it, the undershoot, and a hump that leaves the settling band between two
+/// samples inside it, which moves the settling time) come from the parabola through the three
+/// samples around each sample extremum that could matter; the effort peak is the sample
+/// maximum (the applied u is clamped flat at a limit, where a parabola would overshoot it);
+/// crossings are linearly interpolated, integrals use the trapezoid rule; with the default 4000
+/// samples per horizon that is accurate to about 1e-5 relative on smooth responses (the samples
+/// themselves carry the integrator's error, ~1e-7 relative at the default tolerances).
 ///
 /// Transport delay (delay_s = L > 0), exact: the plant input at t is the applied u at t − L (0
 /// before L); the disturbance acts at the plant input undelayed. With a continuous controller
@@ -191,7 +209,10 @@ struct NonlinearResult {
 /// slew until the next sample). The applied u is thus piecewise linear and known in advance; the
 /// delay shifts its switching instants exactly; the plant is integrated with dopri5 piece by
 /// piece between those instants. `switches` counts the integration pieces; the saturated
-/// fraction counts the sample periods whose command lies beyond a limit.
+/// fraction counts the sample periods whose command lies beyond a limit — the command as first
+/// computed, with the integral increment, counts: a sample where clamping skipped the increment
+/// and so brought the command back within the limit is saturated (the limit acted through the
+/// anti-windup), and `integrator_held_fraction` counts those periods.
 ///
 /// Measurement noise (noise_rms > 0): values n_k = gaussian_sequence(noise_rms, noise_seed)[k],
 /// each held over [k·Tn, (k+1)·Tn), Tn = noise_period_s; the controller reads y + n (proportional,

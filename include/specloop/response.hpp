@@ -3,6 +3,7 @@
 #pragma once
 
 #include <Eigen/Dense>
+#include <cstddef>
 #include <cstdint>
 #include <optional>
 #include <string_view>
@@ -18,9 +19,12 @@ struct StepMetrics {
   double overshoot_pct = 0.0;            // (y_max − y∞)/|y∞|·100, 0 when y never exceeds y∞
   std::optional<double> peak_time_s;     // time of y_max; empty when there is no overshoot
   double undershoot_pct = 0.0;           // initial wrong-way excursion: max(0, −min y/y∞)·100
-  std::optional<double> settling_time_s; // last exit from the ±band around y∞; empty: not settled
+  std::optional<double> settling_time_s; // last exit from the ±band around y∞ (= the final entry
+                                         // into the band); empty: not settled
   std::optional<double> rise_time_s;     // first reach of 90 % minus first reach of 10 % of y∞
   std::optional<double> band_entry_time_s;  // first time y comes within the settling band
+  double post_peak_dip_pct = 0.0;        // deepest fall below y∞ after the peak, (y∞ − y)/|y∞|·100;
+                                         // 0 when there is no peak or no such fall
   double steady_state_error = 0.0;       // (r − y∞)/r, exact (final-value theorem)
   double effort_peak = 0.0;              // max |u(t)| over the horizon, including t = 0+
   double iae = 0.0;                      // ∫|e| dt, e = y∞ − y (see README)
@@ -41,7 +45,9 @@ struct TimeGridRules {
   double decay_fraction = 1e-4;   // horizon T = ln(1/decay_fraction)/σ_slow (slowest mode decayed)
   int min_samples = 2000;         // samples on [0, T] at least (t = 0 included)
   int max_samples = 20000;        // cap; with it the resolution rule below may loosen
-  double max_step_pole_product = 1.0;  // h·|p| <= this for every pole still alive, within the cap
+  double max_step_pole_product = 0.5;  // h·|p| <= this for every pole still alive, within the cap
+                                       // (0.5: the integrals' corrected trapezoid errs by about
+                                       // (2h|p|)⁴/720 for ISE, whose integrand rings at 2|p|)
 };
 
 /// Two uniform segments: a fine step while fast modes are alive, then a coarse one. A single
@@ -90,6 +96,8 @@ class StepSimulator {
   bool eigenvalues(const Eigen::MatrixXd& a);
   // Exact slope of output row 1 (y') or 3 (u') at sample k, from the stored state.
   double slope(int row, int k) const;
+  // The stored state of sample k (z = T·x for up to 8 states, see response.cpp) and its stride.
+  const double* stored_state(int k, std::ptrdiff_t& stride) const;
 
   TimeGridRules rules_;
   TimeGrid grid_;
@@ -104,8 +112,8 @@ class StepSimulator {
   Eigen::VectorXd gamma_, out_const_, x_, x_next_, solve_;
   std::vector<double> y_, u_;  // sampled output and effort (times follow from grid_)
   std::vector<double> states_store_;  // x at every sample, for slopes on demand
-  // One bit per sample, 64 to a word: e = y∞ − y < 0, and |y/y∞ − 1| > band.
-  std::vector<std::uint64_t> below_bits_, outside_bits_;
+  // One bit per sample, 64 to a word: e = y∞ − y < 0; |y/y∞ − 1| > band; y[k+1] < y[k].
+  std::vector<std::uint64_t> below_bits_, outside_bits_, falling_bits_;
 };
 
 namespace detail {

@@ -136,18 +136,35 @@ std::string_view objective_name(Objective o);
 std::optional<Objective> parse_objective(std::string_view name);
 const std::vector<std::string>& objective_names();
 
+/// Which loop the search ends on (`search.simulate`).
+///   automatic: the nonlinear loop when an effect the linear loop leaves out is active for the
+///              linear optimum (measured), else the linear loop;
+///   linear:    never the nonlinear loop (the verdict is still read on the loop the spec describes);
+///   nonlinear: always a final stage on the nonlinear loop.
+enum class SimulateMode { automatic, linear, nonlinear };
+std::string_view simulate_mode_name(SimulateMode m);  // "auto", "linear", "nonlinear"
+
 struct SearchSpec {
   Objective objective = Objective::itae;
   unsigned seed = 1;                          // NLopt's random seed
   int max_evaluations = 6000;                 // cost evaluations, global + local
   double max_time_s = 20.0;                   // wall-time cap, s
-  bool simulate_nonlinear = false;            // search.simulate = "nonlinear": a final refinement on the nonlinear loop
+  SimulateMode simulate = SimulateMode::automatic;  // search.simulate (see SimulateMode)
+  double margin_pct = 1.0;                    // limits tightened by this % of themselves in the search, band narrowed too; [0, 50)
   /// [search.bounds]: parameter name → [lo, hi], natural units, 0 < lo < hi.
   std::vector<std::pair<std::string, std::pair<double, double>>> bounds;
 };
 
 struct ReferenceSpec {
   double amplitude = 1.0;                     // step size, output units (!= 0)
+};
+
+/// [units]: the names of the units, shown in figure axes, tables, the terminal and result.json.
+/// Labels only: nothing is converted (with time = "min", poles are in rad/min).
+struct UnitsSpec {
+  std::string output = "output units";        // of y (and reference.amplitude, noise_rms)
+  std::string input = "input units";          // of u (actuator limits, effort_max, disturbance.size)
+  std::string time = "s";                     // of every time in the spec and the results
 };
 
 struct Spec {
@@ -162,10 +179,43 @@ struct Spec {
   ReferenceSpec reference;
   SearchSpec search;
   DisturbanceSpec disturbance;
+  UnitsSpec units;
   /// [sweep] vary: the axes of `specloop sweep`, each "KEY=FROM:TO:COUNT[log]" or "KEY=a,b,c"
   /// (syntax checked here; the keys are checked against the file by the sweep).
   std::vector<std::string> sweep_vary;
 };
+
+/// One key of the spec file, as `specloop keys` prints it and the README lists it. Free names
+/// are written in angle brackets ("plant.nonlinear.parameters.<name>").
+struct SpecKey {
+  std::string_view key;            // dotted, e.g. "controller.sample_time"; "title" at the top level
+  std::string_view unit;           // "—" for none
+  std::string_view default_value;  // as shown; "—" when there is none
+  std::string_view meaning;        // meaning and range (Markdown: `code`)
+};
+/// Every key the reader accepts, section by section. The reader's unknown-key checks (valid
+/// names, did-you-mean) iterate this table, so a key is accepted exactly when it is listed here.
+const std::vector<SpecKey>& spec_keys();
+
+/// What the numerics honour (README, "Spec file reference"; measured in DEVELOPERS.md). Every
+/// nonzero plant pole and zero magnitude (the delay's approximant poles included), rad/s:
+inline constexpr double kMinRate = 1e-5;
+inline constexpr double kMaxRate = 1e5;
+/// … at most this far apart (fastest ÷ slowest).
+inline constexpr double kMaxSpread = 1e6;
+/// |G(jω)| at the geometric mean ω of those magnitudes (the controller's gains come out near its inverse).
+inline constexpr double kMinGainScale = 1e-6;
+inline constexpr double kMaxGainScale = 1e6;
+/// |reference.amplitude|.
+inline constexpr double kMinAmplitude = 1e-6;
+inline constexpr double kMaxAmplitude = 1e6;
+/// controller.derivative_filter N: at most this (its pole sits N times beyond the derivative zero).
+inline constexpr double kMaxDerivativeFilter = 1e3;
+/// controller.sample_time, controller.tracking_time, disturbance.noise_period: at least this
+/// fraction of the plant's fastest time constant (1 / the largest pole or zero magnitude).
+inline constexpr double kMinTimeFraction = 1e-4;
+/// A plant pole with Re ≥ −tol·|p| and a zero within tol·max(|p|, |z|) of it cancel (refused).
+inline constexpr double kCancellationTolerance = 1e-6;
 
 /// Reads and validates a spec file. Throws SpecError (message as above) on any problem:
 /// unreadable file, TOML syntax, unknown key (with a did-you-mean), wrong type, out-of-range,

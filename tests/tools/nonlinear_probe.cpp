@@ -18,7 +18,7 @@
 //                   "noise_seed": 1, "stepper": "dopri5" | "rosenbrock4"},
 //    "amplitude":  1.0, "band_pct": 2.0}
 // and prints {"status", "notes", "steps", "switches", "saturated_fraction", "rate_limited_fraction",
-// "command_excess_max", "stepper", "noise", "time", "output", "control", "command", "plant_input",
+// "command_excess_max", "integrator_held_fraction", "measured", "stepper", "noise", "time", "output", "control", "command", "plant_input",
 // "metrics", "difference_equation", "operating_point"}
 // (operating_point: {"states": [...], "u", "y"} for a nonlinear plant, else null; metrics null unless
 // the status is "ok"; difference_equation null for a continuous controller, else
@@ -170,6 +170,8 @@ int run() {
   out["saturated_fraction"] = r.saturated_fraction;
   out["rate_limited_fraction"] = r.rate_limited_fraction;
   out["command_excess_max"] = r.command_excess_max;
+  out["integrator_held_fraction"] = r.integrator_held_fraction;
+  out["measured"] = r.measured;
   out["stepper"] = std::string(stepper_name(r.stepper));
   // The noise values the loop used, one per noise period over [0, horizon] (the sequence is a
   // prefix of any longer one with the same seed), when both are given explicitly.
