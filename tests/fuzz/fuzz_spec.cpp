@@ -32,62 +32,34 @@ void require_optional(const std::optional<double>& v, bool in_range, const char*
   if (v) CHECK(finite(*v) && in_range, "{} = {} out of its documented range", key, *v);
 }
 
-// `values_too` false: the known gap below (values not checked); the structure is checked either way.
-void check_polynomial(const std::vector<double>& p, const char* name, bool values_too) {
+void check_polynomial(const std::vector<double>& p, const char* name) {
   CHECK(!p.empty(), "plant.{} is empty", name);
   CHECK(p.front() != 0.0, "plant.{} has a zero leading coefficient", name);
-  if (values_too)
-    for (double c : p) CHECK(finite(c), "plant.{} has a non-finite coefficient {}", name, c);
+  for (double c : p) CHECK(finite(c), "plant.{} has a non-finite coefficient {}", name, c);
 }
 
-void check_roots(const std::vector<std::complex<double>>& roots, std::size_t degree, const char* name,
-                 bool values_too) {
+// The load-time ranges (spec.hpp, kMinRate …): every nonzero pole and zero magnitude of an
+// accepted plant lies in [kMinRate, kMaxRate] (1e-9 relative slack: the roots are recomputed
+// from the expanded polynomial), so no number near the ends of the double range gets through.
+void check_roots(const std::vector<std::complex<double>>& roots, std::size_t degree, const char* name) {
   CHECK(roots.size() == degree, "plant.{}: {} roots for a polynomial of degree {}", name, roots.size(), degree);
-  if (values_too)
-    for (const auto& r : roots)
-      CHECK(finite(r.real()) && finite(r.imag()), "plant.{} has a non-finite root ({}, {})", name, r.real(),
-            r.imag());
-}
-
-// A known gap, not counted as a failure here: numbers near the ends of the double range (poles of
-// 1e300, a 1e-300 zero, a gain of 1e300) make the expanded polynomial or its roots overflow.
-// Issue 12 §1 "absurd magnitudes" gives the load-time ranges to the plant validation work; once
-// they refuse such numbers, drop this exemption. It applies only when a number the file gave (or
-// a coefficient derived from it) lies outside [1e-30, 1e30] or the roots' product could overflow,
-// so a NaN from ordinary numbers is still a failure.
-bool absurd_magnitudes(const specloop::PlantSpec& plant) {
-  const auto absurd = [](double v) {
-    return !finite(v) || (v != 0.0 && (std::abs(v) > 1e30 || std::abs(v) < 1e-30));
-  };
-  double log_product = 0.0;
-  for (const auto* roots : {&plant.zeros, &plant.poles})
-    for (const auto& r : *roots) {
-      if (absurd(r.real()) || absurd(r.imag())) return true;
-      log_product += std::log10(std::max(1.0, std::abs(r)));
-    }
-  if (log_product > 200.0 || absurd(plant.gain)) return true;
-  for (const auto* p : {&plant.numerator, &plant.denominator})
-    for (double c : *p)
-      if (absurd(c)) return true;
-  return false;
+  for (const auto& r : roots) {
+    CHECK(finite(r.real()) && finite(r.imag()), "plant.{} has a non-finite root ({}, {})", name, r.real(), r.imag());
+    const double m = std::abs(r);
+    CHECK(m == 0.0 || (m >= specloop::kMinRate * (1 - 1e-9) && m <= specloop::kMaxRate * (1 + 1e-9)),
+          "plant.{} has a root of magnitude {} outside [kMinRate, kMaxRate]", name, m);
+  }
 }
 
 void check_plant(const specloop::PlantSpec& plant) {
-  const bool values_too = plant.nonlinear || !absurd_magnitudes(plant);
-  if (!values_too) {
-    static bool told = false;
-    if (!told)
-      std::fprintf(stderr, "fuzz_spec: known gap seen (absurd plant magnitudes, issue 12 §1); not a failure\n");
-    told = true;
-  }
-  check_polynomial(plant.numerator, "numerator", values_too);
-  check_polynomial(plant.denominator, "denominator", values_too);
+  check_polynomial(plant.numerator, "numerator");
+  check_polynomial(plant.denominator, "denominator");
   CHECK(plant.numerator.size() <= plant.denominator.size(),
         "improper plant accepted: numerator degree {} > denominator degree {}", plant.numerator.size() - 1,
         plant.denominator.size() - 1);
-  check_roots(plant.zeros, plant.numerator.size() - 1, "zeros", values_too);
-  check_roots(plant.poles, plant.denominator.size() - 1, "poles", values_too);
-  if (values_too) CHECK(finite(plant.gain) && plant.gain != 0.0, "plant.gain = {}", plant.gain);
+  check_roots(plant.zeros, plant.numerator.size() - 1, "zeros");
+  check_roots(plant.poles, plant.denominator.size() - 1, "poles");
+  CHECK(finite(plant.gain) && plant.gain != 0.0, "plant.gain = {}", plant.gain);
   CHECK(finite(plant.delay_s) && plant.delay_s >= 0.0, "plant.delay = {}", plant.delay_s);
   if (!plant.nonlinear) return;
   const auto& nl = *plant.nonlinear;
