@@ -62,10 +62,19 @@ case "$mode" in
       cmake -S . -B "$sanitize_dir" -DCMAKE_BUILD_TYPE=RelWithDebInfo -DCMAKE_CXX_FLAGS_RELWITHDEBINFO="-O0 -gline-tables-only" \
             -DCMAKE_CXX_COMPILER=clang++ -DSPECLOOP_SANITIZE=ON -DSPECLOOP_FUZZ=ON -DSPECLOOP_BUILD_BENCH=OFF
       cmake --build "$sanitize_dir" -j "$jobs" --target specloop_tests fuzz_harnesses
-      echo "bootstrap: the Catch2 suite under ASan + UBSan"
+      # Both are single-threaded: the fuzzers run beside the suite, one core each.
+      echo "bootstrap: the Catch2 suite under ASan + UBSan, beside a short run of every fuzzer"
+      tests/fuzz/run.sh "${SPECLOOP_FUZZ_SECONDS:-20}" "$sanitize_dir" --no-build &
+      fuzz_pid=$!
+      suite_status=0
       ASAN_OPTIONS=detect_leaks=1 UBSAN_OPTIONS=print_stacktrace=1:halt_on_error=1 \
-        "$sanitize_dir/tests/specloop_tests"
-      tests/fuzz/run.sh "${SPECLOOP_FUZZ_SECONDS:-20}" "$sanitize_dir" --no-build
+        "$sanitize_dir/tests/specloop_tests" || suite_status=$?
+      fuzz_status=0
+      wait "$fuzz_pid" || fuzz_status=$?
+      if [ "$suite_status" -ne 0 ] || [ "$fuzz_status" -ne 0 ]; then
+        echo "bootstrap: sanitizer checks failed (Catch2 suite exit $suite_status, fuzzers exit $fuzz_status)" >&2
+        exit 1
+      fi
     fi
     ;;
   build) ;;
