@@ -46,7 +46,14 @@ std::vector<Requirement> requirement_list(const Requirements& r) {
 std::optional<double> effective_peak_time(const StepMetrics& m, double band_pct, double margin) {
   const bool visible = m.peak_time_s && m.overshoot_pct > band_pct * (1.0 + margin) &&
                        m.post_peak_dip_pct <= m.overshoot_pct * (1.0 - margin);
-  return visible ? m.peak_time_s : m.settling_time_s;
+  if (!visible) return m.settling_time_s;
+  // With a margin, a later hump within the margin's fraction of the overshoot (beyond the tie
+  // tolerance) counts as the peak too: the search keeps away from the knife edge where two humps
+  // trade places under a tiny change of the plant.
+  if (margin > 0.0 && m.next_peak_time_s &&
+      m.next_peak_gap_pct <= kPeakTieFraction * 100.0 + margin * m.overshoot_pct)
+    return m.next_peak_time_s;
+  return m.peak_time_s;
 }
 
 std::optional<double> requirement_value(const Requirement& r, const StepMetrics& m,
@@ -68,7 +75,12 @@ std::optional<double> requirement_value(const Requirement& r, const StepMetrics&
   if (k == "effort_max") return m.effort_peak;
   if (!margins) return std::nullopt;
   if (k == "phase_margin_min_deg") return margins->phase_margin_deg.value_or(kInf);
-  if (k == "gain_margin_min_db") return margins->gain_margin_db.value_or(kInf);
+  if (k == "gain_margin_min_db") {
+    // The gain may move either way by the limit: the smaller of the upper margin and the
+    // magnitude of the lower one (a conditionally stable loop).
+    const double upper = margins->gain_margin_db.value_or(kInf);
+    return margins->lower_gain_margin_db ? std::min(upper, -*margins->lower_gain_margin_db) : upper;
+  }
   if (k == "sensitivity_peak_max") return margins->sensitivity_peak;
   throw std::logic_error("requirement_value: unknown requirement " + k);
 }
@@ -1015,15 +1027,19 @@ std::optional<Controller> classical_controller(const TransferFunction& plant, St
 // ---- ultimate gain ------------------------------------------------------------------------------
 
 std::optional<UltimatePoint> ultimate_point(const TransferFunction& plant) {
-  const Margins m = loop_margins(plant);
-  if (!m.gain_margin_db || !m.phase_crossover_rad_s) return std::nullopt;
-  UltimatePoint u;
-  u.gain = std::pow(10.0, *m.gain_margin_db / 20.0);
-  u.frequency_rad_s = *m.phase_crossover_rad_s;
-  u.period_s = 2.0 * std::numbers::pi / u.frequency_rad_s;
-  // The crossing must be where the P loop loses stability: stable just below Ku.
-  if (!all_stable((plant.denominator + 0.99 * u.gain * plant.numerator).roots())) return std::nullopt;
-  return u;
+  // The first range of stable P gains that ends where a pair of poles reaches the axis at
+  // ±jω (0 < ω < ∞): raised through it, the loop starts to oscillate at Ku.
+  const StableGainSet set = stable_gain_set(plant);
+  for (const StableGainSet::Range& r : set.ranges) {
+    if (r.state != StableGainSet::State::stable || !std::isfinite(r.high)) continue;
+    if (!(r.high_frequency > 0.0 && std::isfinite(r.high_frequency))) continue;
+    UltimatePoint u;
+    u.gain = r.high;
+    u.frequency_rad_s = r.high_frequency;
+    u.period_s = 2.0 * std::numbers::pi / u.frequency_rad_s;
+    return u;
+  }
+  return std::nullopt;
 }
 
 std::optional<StandardForm> ziegler_nichols(Structure s, const UltimatePoint& u, double n) {

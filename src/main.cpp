@@ -214,7 +214,10 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   if (run.infeasibility) {
     fmt::print("\nNOT MET: no design meets every requirement on the {}. Binding: {}.\n", loop, run.infeasibility->binding);
     for (const auto& m : run.infeasibility->misses)
-      fmt::print("  - {} misses by {:.1f} %\n", m.requirement.key, m.violation * 100.0);
+      fmt::print("  - {} misses by {} %\n", m.requirement.key,
+                 // one decimal, or two significant digits for a miss below 0.1 % (never "0.0 %")
+                 m.violation >= 1e-3 ? fmt::format("{:.1f}", m.violation * 100.0)
+                                     : fmt::format("{:.2g}", m.violation * 100.0));
     fmt::print("  {}\n", run.infeasibility->nearest_text);
   } else {
     fmt::print("\nMET: the optimized design meets every requirement on the {}.\n", loop);

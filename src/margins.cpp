@@ -1,8 +1,10 @@
 // Exact loop margins from polynomial roots.
 //
 // With s = jω: P(s)·Q(−s) = E(s²) + s·O(s²), so P(jω)·conj(Q(jω)) = E(−ω²) + jω·O(−ω²), a pair
-// of real polynomials in x = ω². Phase crossovers of L = N/D are the positive roots of O(−x)
-// (N·conj(D) real) where E(−x) < 0; gain crossovers are the positive roots of
+// of real polynomials in x = ω². The gains K where a root of D + K·N is on the imaginary axis
+// are −D(0)/N(0) and −E(−x)/|N|² at the positive roots x of O(−x) (D·conj(N) real: the phase
+// crossovers of L = N/D); the gain margins are the nearest of them above and below K = 1 that
+// end the stable range containing 1 (stable_gain_set); gain crossovers are the positive roots of
 // |N|² − |D|² (in x); the sensitivity peak is the largest value of |D|²/|D + N|² (in x) over its
 // stationary points and the ends x = 0 and x → ∞.
 #include "specloop/margins.hpp"
@@ -72,21 +74,6 @@ Margins loop_margins(const TransferFunction& loop) {
   const Polynomial& d = loop.denominator;
   auto at = [&](double w) { return loop(Complex(0.0, w)); };
 
-  // Phase crossovers.
-  const auto [e, o] = even_odd_in_minus_x(n * reflected(d));
-  for (double x : positive_real_roots(o)) {
-    if (!(e(x) < 0.0)) continue;
-    const double w = std::sqrt(x);
-    const double magnitude = std::abs(at(w));
-    // |L| > 1 at a phase crossover bounds the gain from below (lower_gain_margin), not above.
-    if (magnitude > 1.0) continue;
-    const double gm_db = -20.0 * std::log10(magnitude);
-    if (!m.gain_margin_db || gm_db < *m.gain_margin_db) {
-      m.gain_margin_db = gm_db;
-      m.phase_crossover_rad_s = w;
-    }
-  }
-
   // Gain crossovers.
   const Polynomial n2 = squared_magnitude_in_w2(n), d2 = squared_magnitude_in_w2(d);
   for (double x : positive_real_roots(n2 - d2)) {
@@ -125,9 +112,18 @@ Margins loop_margins(const TransferFunction& loop) {
       m.sensitivity_peak_rad_s = std::numeric_limits<double>::infinity();
     }
   }
-  if (const auto lower = lower_gain_margin(loop)) {
-    m.lower_gain_margin_db = lower->db;
-    m.lower_phase_crossover_rad_s = lower->frequency_rad_s;
+  // Gain margins: the ends of the stable range of gain multipliers that contains K = 1 (the
+  // nearest K above and below 1 where a closed-loop pole crosses the imaginary axis).
+  const StableGainSet set = stable_gain_set(loop);
+  if (const StableGainSet::Range* r = set.stable_at(1.0)) {
+    if (std::isfinite(r->high)) {
+      m.gain_margin_db = 20.0 * std::log10(r->high);
+      m.phase_crossover_rad_s = r->high_frequency;
+    }
+    if (r->low > 0.0) {
+      m.lower_gain_margin_db = 20.0 * std::log10(r->low);
+      m.lower_phase_crossover_rad_s = r->low_frequency;
+    }
   }
   return m;
 }
@@ -236,13 +232,6 @@ std::string StableGainSet::text(double action, const std::string& symbol) const 
   if (any_undamped) parts.push_back(fmt::format("undamped (poles on the imaginary axis) for {} in {}", symbol, list(State::undamped)));
   parts.push_back(fmt::format("unstable for {} in {}", symbol, list(State::unstable)));
   return fmt::format("{}", fmt::join(parts, "; "));
-}
-
-std::optional<LowerGainMargin> lower_gain_margin(const TransferFunction& loop) {
-  const StableGainSet set = stable_gain_set(loop);
-  const StableGainSet::Range* r = set.stable_at(1.0);
-  if (!r || !(r->low > 0.0)) return std::nullopt;
-  return LowerGainMargin{-20.0 * std::log10(r->low), r->low_frequency};
 }
 
 }  // namespace specloop

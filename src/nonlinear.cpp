@@ -454,7 +454,24 @@ StepMetrics measure(const std::vector<double>& t, const std::vector<double>& y, 
   }
   if (peak > 1.0 + 1e-9) {
     m.overshoot_pct = (peak - 1.0) * 100.0;
+    // The latest hump within kPeakTieFraction of the highest is the peak time's (StepMetrics),
+    // then the highest hump after it.
+    for (int k = 1; k + 1 < K; ++k) {
+      if (t[k] <= t_peak || !is_max(k) || yn[k] + reach(k) < peak - kPeakTieFraction) continue;
+      const Vertex v = parabola_vertex(t, yn, k);
+      if (v.v >= peak - kPeakTieFraction && v.t > t_peak) t_peak = v.t;
+    }
     m.peak_time_s = t_peak;
+    double next = -std::numeric_limits<double>::infinity();
+    for (int k = 1; k + 1 < K; ++k) {
+      if (t[k] <= t_peak || !is_max(k) || yn[k] <= 1.0 || yn[k] + reach(k) < next) continue;
+      const Vertex v = parabola_vertex(t, yn, k);
+      if (v.t > t_peak && v.v > next) {
+        next = v.v;
+        m.next_peak_time_s = v.t;
+      }
+    }
+    if (m.next_peak_time_s) m.next_peak_gap_pct = std::max(0.0, (peak - next) * 100.0);
     double dip = 1.0;  // lowest yn after the peak
     for (int k = 1; k + 1 < K; ++k) {
       if (t[k + 1] <= t_peak || !is_min(k) || yn[k] - reach(k) > dip) continue;

@@ -93,14 +93,25 @@ std::string shell_quoted(const std::string& s) {
 }
 
 std::vector<std::pair<std::string, std::string>> render_scripts(const fs::path& plots_dir, const std::vector<std::string>& names) {
+  // One shell, one gnuplot per figure, all at once (rendering the PNGs is most of a design's wall
+  // time, and the figures are independent); each leaves its exit status in NAME.rc.
+  std::string command = fmt::format("cd {} && {{", shell_quoted(plots_dir.string()));
+  for (const std::string& name : names)
+    command += fmt::format(" (gnuplot {0}.gp > {0}.log 2>&1; echo $? > {0}.rc) &", shell_quoted(name));
+  command += " wait; }";
+  const int shell_status = std::system(command.c_str());
   std::vector<std::pair<std::string, std::string>> figures;
   for (const std::string& name : names) {
-    const std::string command =
-        fmt::format("cd {} && gnuplot {}.gp > {}.log 2>&1", shell_quoted(plots_dir.string()), name, name);
-    const fs::path svg = plots_dir / (name + ".svg");
-    if (std::system(command.c_str()) != 0 || !fs::exists(svg) || !fs::exists(plots_dir / (name + ".png")))
-      throw std::runtime_error(fmt::format("gnuplot failed on plots/{}.gp: {}", name, read_text(plots_dir / (name + ".log"))));
+    const fs::path svg = plots_dir / (name + ".svg"), rc = plots_dir / (name + ".rc");
+    const bool ok = shell_status == 0 && fs::exists(rc) && read_text(rc).starts_with("0") && fs::exists(svg) &&
+                    fs::exists(plots_dir / (name + ".png"));
+    if (!ok) {
+      const fs::path log = plots_dir / (name + ".log");
+      throw std::runtime_error(
+          fmt::format("gnuplot failed on plots/{}.gp: {}", name, fs::exists(log) ? read_text(log) : "(no log)"));
+    }
     fs::remove(plots_dir / (name + ".log"));
+    fs::remove(rc);
     figures.emplace_back(name, inline_svg(read_text(svg), "fig-" + name + "-"));
   }
   return figures;

@@ -76,6 +76,7 @@ std::pair<double, double> frequency_range(const TransferFunction& loop, const st
   if (m) {
     if (m->gain_crossover_rad_s) take(*m->gain_crossover_rad_s);
     if (m->phase_crossover_rad_s) take(*m->phase_crossover_rad_s);
+    if (m->lower_phase_crossover_rad_s) take(*m->lower_phase_crossover_rad_s);
   }
   if (!(hi > 0.0)) return {0.01, 100.0};
   return {lo / 100.0, hi * 100.0};
@@ -389,10 +390,19 @@ std::string frequency_script(const DesignRun& run, const ReportData& data) {
                                   panel == 0 ? 2 : 3, colour_of(name, false), quoted(name)));
       if (!d || !d->margins) continue;
       const Margins& m = *d->margins;
-      if (panel == 0 && m.phase_crossover_rad_s && m.gain_margin_db) {
+      // Gain margins: a bar from |L| to 0 dB at the phase crossover where a pole would cross the
+      // axis (below 0 dB: the upper margin; above: the lower one). A crossing at s = 0 or through
+      // infinity has no place on the log axis and is in the table only.
+      auto on_axis = [](const std::optional<double>& w) { return w && *w > 0.0 && std::isfinite(*w); };
+      if (panel == 0 && on_axis(m.phase_crossover_rad_s) && m.gain_margin_db) {
         const double w = *m.phase_crossover_rad_s;
         s += fmt::format("  set arrow from {},{} to {},0 lc rgb '{}' lw 1.5 heads size screen 0.008,90\n", csv_number(w),
                          csv_number(-*m.gain_margin_db), csv_number(w), colour_of(name, false));
+      }
+      if (panel == 0 && on_axis(m.lower_phase_crossover_rad_s) && m.lower_gain_margin_db) {
+        const double w = *m.lower_phase_crossover_rad_s;
+        s += fmt::format("  set arrow from {},{} to {},0 lc rgb '{}' lw 1.5 heads size screen 0.008,90\n", csv_number(w),
+                         csv_number(-*m.lower_gain_margin_db), csv_number(w), colour_of(name, false));
       }
       if (panel == 1 && m.gain_crossover_rad_s && m.phase_margin_deg) {
         const double w = *m.gain_crossover_rad_s;
@@ -401,7 +411,7 @@ std::string frequency_script(const DesignRun& run, const ReportData& data) {
       }
     }
     plots.push_back(fmt::format("NaN with lines lc rgb '#555555' lw 1.5 title {}",
-                                quoted(panel == 0 ? "bars: gain margin at the phase crossover" : "bars: phase margin at the gain crossover")));
+                                quoted(panel == 0 ? "bars: gain margins at the phase crossovers" : "bars: phase margin at the gain crossover")));
     s += fmt::format("  plot {}\n", fmt::join(plots, ", \\\n       "));
   }
   s += "  unset multiplot\n  unset logscale x\n  set format x '% h'\n";
@@ -675,8 +685,8 @@ Table controller_box(const DesignRun& run, const Design& d) {
 Table margin_table(const DesignRun& run, const ReportData& data) {
   const std::string w_unit = fmt::format("rad/{}", run.problem.spec.units.time);
   Table t{"margins",
-          {"design", "gain margin", "at ω (phase crossover)", "phase margin", "at ω (gain crossover)", "delay margin",
-           "sensitivity peak Ms"},
+          {"design", "gain margin", "at ω (phase crossover)", "lower gain margin", "at ω", "phase margin",
+           "at ω (gain crossover)", "delay margin", "sensitivity peak Ms"},
           {}};
   for (const auto& [name, series] : data.frequency) {
     const Design* d = run.find(name);
@@ -690,8 +700,12 @@ Table margin_table(const DesignRun& run, const ReportData& data) {
       return v ? fmt::format("{:.3g}{}{}", *v, std::string_view(format_unit) == "°" ? "" : " ", format_unit) : std::string(none);
     };
     t.rows.push_back({{name, fmt::format("data-design=\"{}\"", name)},
-                      cell("gain_margin_db", m.gain_margin_db, or_none(m.gain_margin_db, "dB", "∞ (no phase crossover)")),
+                      cell("gain_margin_db", m.gain_margin_db, or_none(m.gain_margin_db, "dB", "∞ (no gain destabilizes)")),
                       cell("phase_crossover", m.phase_crossover_rad_s, or_none(m.phase_crossover_rad_s, w_unit.c_str(), "—")),
+                      cell("lower_gain_margin_db", m.lower_gain_margin_db,
+                           or_none(m.lower_gain_margin_db, "dB", "none (stable at any lower gain)")),
+                      cell("lower_phase_crossover", m.lower_phase_crossover_rad_s,
+                           or_none(m.lower_phase_crossover_rad_s, w_unit.c_str(), "—")),
                       cell("phase_margin_deg", m.phase_margin_deg, or_none(m.phase_margin_deg, "°", "∞ (no gain crossover)")),
                       cell("gain_crossover", m.gain_crossover_rad_s, or_none(m.gain_crossover_rad_s, w_unit.c_str(), "—")),
                       cell("delay_margin", m.delay_margin_s, or_none(m.delay_margin_s, run.problem.spec.units.time.c_str(), "∞")),

@@ -985,8 +985,65 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   if (k_entry >= K) k_entry = -1;
   const int k_outside = bits.last_outside();
 
+  // x'(t_k) = A·x(t_k) + B·r from the state stored at sample k, in x_next_ (solve_ is scratch).
+  const OutputCoordinates oc = n >= 1 && n <= 8 ? output_coordinates(outputs_) : OutputCoordinates{};
+  auto state_rate = [&](int k) -> double* {
+    std::ptrdiff_t stride = 1;
+    const double* z = stored_state(k, stride);
+    double* v = x_next_.data();
+    double* w = solve_.data();
+    for (int i = 0; i < n; ++i) w[i] = z[i * stride];
+    if (oc.active) {  // back from z = T·x (see output_coordinates) to the loop's x
+      double zp = w[oc.p];
+      for (int i = 0; i < n; ++i)
+        if (i != oc.p) zp -= outputs_(0, i) * w[i];
+      w[oc.p] = zp / outputs_(0, oc.p);
+    }
+    // Plain loops (a few dozen products; Eigen's dynamic matrix-vector product costs more in its
+    // call than in its arithmetic at this size).
+    const double* a = loop.A.data();  // column-major
+    for (int r = 0; r < n; ++r) {
+      double acc = amplitude * loop.B(r);
+      for (int col = 0; col < n; ++col) acc += a[col * n + r] * w[col];
+      v[r] = acc;
+    }
+    return v;
+  };
+  // y', …, y⁽⁵⁾ at sample k: y⁽ⁱ⁺¹⁾ = C_y·Aⁱ·x'(t_k) (the step input is constant).
+  auto y_derivatives = [&](int k, double (&d)[5]) {
+    for (double& v : d) v = 0.0;
+    if (n == 0) return;
+    double* v = state_rate(k);
+    double* w = solve_.data();
+    const double* a = loop.A.data();
+    for (int i = 0; i < 5; ++i) {
+      double ci = 0.0;
+      for (int col = 0; col < n; ++col) ci += loop.C(0, col) * v[col];
+      d[i] = ci;
+      for (int r = 0; r < n; ++r) {
+        double acc = 0.0;
+        for (int col = 0; col < n; ++col) acc += a[col * n + r] * v[col];
+        w[r] = acc;
+      }
+      std::swap(v, w);
+    }
+  };
+  // f = e² = (y − y∞)²: its third and fifth derivatives at sample k (Leibniz).
+  auto square_error_odd_derivatives = [&](int k) {
+    double d[5];
+    y_derivatives(k, d);
+    const double e = y[k] - y_inf;
+    const double f3 = 2.0 * e * d[2] + 6.0 * d[0] * d[1];
+    const double f5 = 2.0 * e * d[4] + 10.0 * d[0] * d[3] + 20.0 * d[1] * d[2];
+    return std::pair{f3, f5};
+  };
+
   // Integrals of e = y∞ − y, per uniform segment: the trapezoid rule with the Hermite end
-  // correction h²/12·(f'(a) − f'(b)) (exact for cubics). The corrections of neighbouring
+  // correction h²/12·(f'(a) − f'(b)) (exact for cubics). ISE, whose integrand is smooth, also
+  // takes the Euler–Maclaurin h⁴ and h⁶ terms, +h⁴/720·(f‴(b) − f‴(a)) and
+  // −h⁶/30240·(f⁽⁵⁾(b) − f⁽⁵⁾(a)), from exact derivatives at the segment's ends (they telescope
+  // like the h² term): on this grid (h·|p| ≤ 0.5, the integrand ringing at 2|p|) the h² rule
+  // alone errs by about (2h|p|)⁴/720 ≈ 1.4e-3 relative, with them by about (2h|p|)⁸/1.2e6. The corrections of neighbouring
   // intervals cancel, so only the ends of each run of constant sign need the slope; an interval
   // where e changes sign is split at its linear zero. The plain sums vectorize; the few
   // sign-change intervals are patched afterwards.
@@ -1000,6 +1057,12 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     auto ends = [&](double f_first, double f_last) { return 0.5 * (f_first + f_last); };
     const double e_a = e(first), e_b = e(last);
     ise += h * (sum_e2 - ends(e_a * e_a, e_b * e_b)) + c * (2.0 * e_a * de(first) - 2.0 * e_b * de(last));
+    {
+      const auto [f3_a, f5_a] = square_error_odd_derivatives(first);
+      const auto [f3_b, f5_b] = square_error_odd_derivatives(last);
+      const double h4 = h * h * h * h;
+      ise += h4 / 720.0 * (f3_b - f3_a) - h4 * h * h / 30240.0 * (f5_b - f5_a);
+    }
     iae += h * (sum_abs - ends(std::abs(e_a), std::abs(e_b)));
     itae += h * (sum_tabs - ends(t(first) * std::abs(e_a), t(last) * std::abs(e_b)));
     auto close_run = [&](int a, int b) {  // samples a..b share the sign of e(a)
@@ -1035,29 +1098,12 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   // expanded about the interval's end nearer to `s_near` from the state stored there, with terms
   // until they vanish at a distance `cover` (in intervals) from it; false when it does not
   // converge (then the Hermite value stands).
-  const OutputCoordinates oc = n >= 1 && n <= 8 ? output_coordinates(outputs_) : OutputCoordinates{};
   auto exact_on = [&](int j, int row, double s_near, double cover, ExactSeries& e) -> bool {
     if (n == 0) return false;
     const int kb = s_near <= 0.5 ? j : j + 1;
-    std::ptrdiff_t stride = 1;
-    const double* z = stored_state(kb, stride);
-    double* v = x_next_.data();
+    double* v = state_rate(kb);  // x'(t_b); then A^i·x'(t_b)
     double* w = solve_.data();
-    for (int i = 0; i < n; ++i) w[i] = z[i * stride];
-    if (oc.active) {  // back from z = T·x (see output_coordinates) to the loop's x
-      double zp = w[oc.p];
-      for (int i = 0; i < n; ++i)
-        if (i != oc.p) zp -= outputs_(0, i) * w[i];
-      w[oc.p] = zp / outputs_(0, oc.p);
-    }
-    // x'(t_b), then A^i·x'(t_b), by plain loops (a few dozen products; Eigen's dynamic
-    // matrix-vector product costs more in its call than in its arithmetic at this size).
     const double* a = loop.A.data();  // column-major
-    for (int r = 0; r < n; ++r) {
-      double acc = amplitude * loop.B(r);
-      for (int col = 0; col < n; ++col) acc += a[col * n + r] * w[col];
-      v[r] = acc;
-    }
     const double h = t(j + 1) - t(j);
     e.base = kb - j;
     e.fb = row == 0 ? y[kb] : u[kb];
@@ -1146,7 +1192,30 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   const double peak_n = peak.v * inv;
   if (peak_n > 1.0 + 1e-9) {
     m.overshoot_pct = (peak_n - 1.0) * 100.0;
+    // The peak time: the latest hump within kPeakTieFraction of the highest (two humps of nearly
+    // equal height are one knife edge apart; the later one is the conservative reading), then
+    // the highest hump after it (StepMetrics::next_peak_*, what the search's margin reads).
+    const Found top = peak;
+    for (int w = std::max(0, top.j) / 64; w < bits.words(); ++w)
+      for (std::uint64_t c = bits.turns(w, f_follows_y, true) & bits.beyond(w, f_follows_y); c; c &= c - 1) {
+        const int k = 64 * w + std::countr_zero(c);
+        if (k <= peak.j + 1 || fn(k) + reach(k) < peak_n - 1.0 - kPeakTieFraction) continue;
+        const Found f = polish(refine_extremum(y, interval_y, k, sign), 0, sign);
+        if (f.v * inv >= peak_n - kPeakTieFraction && time_of(f) > time_of(peak)) peak = f;
+      }
     m.peak_time_s = time_of(peak);
+    std::optional<Found> next;
+    for (int w = std::max(0, peak.j) / 64; w < bits.words(); ++w)
+      for (std::uint64_t c = bits.turns(w, f_follows_y, true) & bits.beyond(w, f_follows_y); c; c &= c - 1) {
+        const int k = 64 * w + std::countr_zero(c);
+        if (k <= peak.j + 1 || (next && fn(k) + reach(k) < next->v * inv - 1.0)) continue;
+        const Found f = refine_extremum(y, interval_y, k, sign);
+        if (time_of(f) > *m.peak_time_s && (!next || sign * f.v > sign * next->v)) next = f;
+      }
+    if (next) {
+      m.next_peak_time_s = time_of(*next);
+      m.next_peak_gap_pct = std::max(0.0, (peak_n - next->v * inv) * 100.0);
+    }
     // The deepest fall below y∞ after the peak: sample minima of f below y∞, refined likewise.
     Found dip{y_inf, -1, 0.0};
     for (int w = std::max(0, peak.j) / 64; w < bits.words(); ++w)

@@ -444,6 +444,35 @@ StepStatus SampledStepSimulator::simulate(const StateSpace& plant, const Differe
   }
   if (vmax > 1.0 + 1e-9) {
     m.overshoot_pct = (vmax - 1.0) * 100.0;
+    // The latest hump within kPeakTieFraction of the highest is the peak time's (StepMetrics),
+    // then the highest hump after it. The break points of the pieces (each sample once) form a
+    // piecewise monotone sequence; its local maxima beyond y∞ are the humps, in time order.
+    double next_v = -std::numeric_limits<double>::infinity();
+    double prev = next_v, cur_v = next_v, cur_t = 0.0;
+    auto on_max = [&](double v, double tt) {
+      if (v >= vmax - kPeakTieFraction && tt >= tmax) {
+        tmax = tt;
+        next_v = -std::numeric_limits<double>::infinity();
+        m.next_peak_time_s.reset();
+      } else if (tt > tmax && v > next_v) {
+        next_v = v;
+        m.next_peak_time_s = tt;
+      }
+    };
+    auto visit = [&](double v, double tt) {
+      if (cur_v > 1.0 && cur_v >= prev && cur_v >= v) on_max(cur_v, cur_t);
+      prev = cur_v;
+      cur_v = v;
+      cur_t = tt;
+    };
+    for (std::size_t j = 0; j + 1 < count; ++j) {
+      const Cubic p = cubic(j);
+      std::array<double, 4> b{};
+      const int nb = p.pieces(b);
+      for (int i = 0; i + 1 < nb; ++i) visit(p.at(b[static_cast<std::size_t>(i)]), p.time(b[static_cast<std::size_t>(i)]));
+    }
+    visit(y_[count - 1] * inv, t_[count - 1]);
+    if (m.next_peak_time_s) m.next_peak_gap_pct = std::max(0.0, (vmax - next_v) * 100.0);
     m.peak_time_s = tmax;
     // The deepest fall below y∞ after the peak (StepMetrics::post_peak_dip_pct).
     double after_min = vmax;

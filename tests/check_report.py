@@ -76,6 +76,7 @@ from scipy.optimize import brentq
 from reference_common import Tally
 
 FIGURES = ["step", "effort", "splane", "frequency"]
+PEAK_TIE = 1e-4  # README "Metric definitions": humps within this × |y∞| of the highest are one peak
 
 
 class ReportParser(html.parser.HTMLParser):
@@ -408,11 +409,24 @@ def measure(t, y, y_inf, band):
     s = CubicSpline(t, y)
     fine = np.linspace(t[0], t[-1], 40 * len(t))
     yf = s(fine)
-    k = int(np.argmax(yf))
-    lo, hi = max(k - 1, 0), min(k + 1, len(fine) - 1)
     d = s.derivative()
-    tp = brentq(d, fine[lo], fine[hi]) if d(fine[lo]) * d(fine[hi]) < 0 else fine[k]
-    overshoot = max(0.0, (s(tp) - y_inf) / abs(y_inf) * 100.0)
+
+    def refined(k):
+        lo, hi = max(k - 1, 0), min(k + 1, len(fine) - 1)
+        return brentq(d, fine[lo], fine[hi]) if d(fine[lo]) * d(fine[hi]) < 0 else fine[k]
+    k = int(np.argmax(yf))
+    top = refined(k)
+    overshoot = max(0.0, (s(top) - y_inf) / abs(y_inf) * 100.0)
+    # README "Metric definitions": the peak time is the LATEST hump within PEAK_TIE·|y∞| of the
+    # highest (two humps of nearly equal height read as the later one).
+    tp = top
+    inner = np.arange(1, len(yf) - 1)
+    humps = inner[(yf[inner] >= yf[inner - 1]) & (yf[inner] >= yf[inner + 1]) & (inner > k)
+                  & ((yf[inner] - s(top)) * np.sign(y_inf) >= -2 * PEAK_TIE * abs(y_inf))]
+    for j in humps:
+        tj = refined(int(j))
+        if (s(tj) - s(top)) * np.sign(y_inf) >= -PEAK_TIE * abs(y_inf) and tj > tp:
+            tp = tj
 
     def first_crossing(level):
         idx = np.nonzero((yf - level) * np.sign(y_inf) >= 0)[0]

@@ -24,9 +24,10 @@ result.json, report.html, report.md and the four figures. Then, from result.json
   wrong sign    for a reverse-acting plant the same controller with the opposite sign gives a loop
                 that is unstable or does not settle on the reference (final value of the wrong
                 sign): the action is not decoration.
-  lower margin  where margins.lower_gain_margin_db is given (a conditionally stable loop), the
-                controller scaled down by that many dB (×(1 ± 1e-4)) is stable just above and
-                unstable just below (numpy.roots).
+  lower margin  where margins.lower_gain_margin_db is given (a conditionally stable loop, in
+                negative dB), the controller scaled by that factor (×(1 ± 1e-4)) is stable
+                just above and unstable just below (numpy.roots); likewise the upper
+                gain_margin_db: stable just below, unstable just above.
   nonlinear     reverse_cooling_pi (PI, back-calculation with the default tracking time Ti, an
                 actuator 0..25 that saturates): the recommended design's nonlinear trace
                 (series/step_optimized_nonlinear.csv) equals scipy.integrate.solve_ivp on the
@@ -265,11 +266,18 @@ def check_plant(tally, specloop, spec_file):
                             not stable(d_w) or not wrong_final > 0, f"final {wrong_final}")
             lower = (d.get("margins") or {}).get("lower_gain_margin_db")
             if lower is not None:
-                k = 10 ** (-lower / 20.0)
+                k = 10 ** (lower / 20.0)  # README "Margins": negative dB, the factor K < 1
                 _, above = closed_loop(ctl["numerator"], ctl["denominator"], g_num, g_den, scale=k * (1 + 1e-4))
                 _, below = closed_loop(ctl["numerator"], ctl["denominator"], g_num, g_den, scale=k * (1 - 1e-4))
                 tally.check(label, f"lower gain margin {lower:.4g} dB: stable just above, unstable just below",
-                            stable(above) and not stable(below))
+                            lower < 0 and stable(above) and not stable(below))
+            upper = number((d.get("margins") or {}).get("gain_margin_db"))
+            if upper is not None and math.isfinite(upper):
+                k = 10 ** (upper / 20.0)
+                _, above = closed_loop(ctl["numerator"], ctl["denominator"], g_num, g_den, scale=k * (1 + 1e-4))
+                _, below = closed_loop(ctl["numerator"], ctl["denominator"], g_num, g_den, scale=k * (1 - 1e-4))
+                tally.check(label, f"gain margin {upper:.4g} dB: stable just below, unstable just above",
+                            upper > 0 and stable(below) and not stable(above))
         if case == "reverse_cooling_pi":
             check_nonlinear_trace(tally, case, result, out_dir)
         if case == "unstable_open_loop":

@@ -155,11 +155,42 @@ TEST_CASE("a conditionally stable loop reports how far its gain may drop", "[pla
   const TransferFunction loop = TransferFunction::from_zeros_poles({}, {{1.5, 0.0}, {-8.0, 0.0}}, 48.0);
   const Margins m = loop_margins(loop);
   REQUIRE(m.lower_gain_margin_db);
-  CHECK_THAT(*m.lower_gain_margin_db, WithinRel(20.0 * std::log10(4.0), 1e-9));
+  CHECK_THAT(*m.lower_gain_margin_db, WithinRel(-20.0 * std::log10(4.0), 1e-9));
   CHECK(*m.lower_phase_crossover_rad_s == 0.0);
   CHECK_FALSE(m.gain_margin_db);
   // The usual loop has none.
   CHECK_FALSE(loop_margins(tf({6.0}, {1.0, 6.0, 11.0, 6.0})).lower_gain_margin_db);
+}
+
+TEST_CASE("a conditionally stable loop: both gain margins and the requirement read the nearer", "[plants][margins]") {
+  // L(s) = K·(s + 1)²/(s³·(s + 10)²): 1 + L = 0 is s⁵ + 20s⁴ + 100s³ + K·s² + 2K·s + K = 0.
+  // Routh–Hurwitz worked by hand: rows s⁵ [1, 100, 2K], s⁴ [20, K, K], s³ [(2000 − K)/20, 1.95K],
+  // s² [K(1220 − K)/(2000 − K), K], s¹ [1.95K − (2000 − K)²/(20(1220 − K))], s⁰ [K]; every first
+  // column entry is positive iff K² − 1289.5K + 100000 < 0, i.e. K in (K₁, K₂) with
+  // K₁,₂ = (1289.5 ∓ √(1289.5² − 4·10⁵))/2 ≈ 82.87, 1206.6. At a root the s² row's auxiliary
+  // polynomial b₁s² + K has its roots on the axis: ω² = K/b₁ = (2000 − K)/(1220 − K).
+  const double k0 = 300.0;
+  const TransferFunction loop(Polynomial({k0, 2.0 * k0, k0}), Polynomial({1.0, 20.0, 100.0, 0.0, 0.0, 0.0}));
+  const double root = std::sqrt(1289.5 * 1289.5 - 4e5);
+  const double k1 = (1289.5 - root) / 2.0, k2 = (1289.5 + root) / 2.0;
+  const Margins m = loop_margins(loop);
+  REQUIRE(m.gain_margin_db);
+  REQUIRE(m.lower_gain_margin_db);
+  CHECK_THAT(*m.gain_margin_db, WithinAbs(20.0 * std::log10(k2 / k0), 1e-9));
+  CHECK_THAT(*m.lower_gain_margin_db, WithinAbs(20.0 * std::log10(k1 / k0), 1e-9));
+  CHECK_THAT(*m.phase_crossover_rad_s, WithinRel(std::sqrt((2000.0 - k2) / (1220.0 - k2)), 1e-9));
+  CHECK_THAT(*m.lower_phase_crossover_rad_s, WithinRel(std::sqrt((2000.0 - k1) / (1220.0 - k1)), 1e-9));
+  // The requirement reads the nearer of the two: the loop turns unstable when its gain falls by
+  // 11.2 dB before it does when the gain rises by 12.1 dB.
+  Requirement r{"gain_margin_min_db", "dB", false, 6.0};
+  const auto v = requirement_value(r, StepMetrics{}, m, std::nullopt, 2.0);
+  REQUIRE(v);
+  CHECK_THAT(*v, WithinAbs(-*m.lower_gain_margin_db, 1e-12));
+  CHECK(*v < *m.gain_margin_db);
+  // The same loop at a gain below K₁ is unstable: no margins at all.
+  const Margins unstable = loop_margins(TransferFunction(Polynomial({50.0, 100.0, 50.0}), loop.denominator));
+  CHECK_FALSE(unstable.gain_margin_db);
+  CHECK_FALSE(unstable.lower_gain_margin_db);
 }
 
 TEST_CASE("a response that never goes the wrong way has exactly zero undershoot", "[plants]") {

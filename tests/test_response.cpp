@@ -98,6 +98,51 @@ TEST_CASE("standard second-order system: samples and metrics match the closed fo
   }
 }
 
+TEST_CASE("ISE stays exact where the grid is as coarse as its rule allows", "[response]") {
+  // Grids of 100 samples put h·|p| near the rule's limit 0.5, where the trapezoid with only the
+  // h² end correction errs by about (2h|p|)⁴/720 (1e-3 relative here); the Euler–Maclaurin h⁴
+  // and h⁶ terms bring it below 1e-5. References: the closed form (1 + 4ζ²)/(4ζωn) per unit step²
+  // for ωn²/(s² + 2ζωn s + ωn²) (as in the test above), and for a loop with a third pole the
+  // Lyapunov form ∫₀^∞ (y − y∞)² dt = x̃₀ᵀ·P·x̃₀, Aᵀ·P + P·A + Cᵀ·C = 0 (any linear-systems text,
+  // e.g. Åström & Murray, "Feedback Systems"), solved by the Kronecker form (the tail beyond the
+  // horizon, e^{−2σT} = 1e-8 of it, neglected).
+  TimeGridRules rules;
+  rules.min_samples = rules.max_samples = 100;
+  StepSimulator sim(rules);
+  StepMetrics m;
+  for (const double zeta : {0.2, 0.45}) {
+    const double wn = 3.0;
+    const auto plant = TransferFunction(Polynomial({wn * wn}), Polynomial({1.0, 2 * zeta * wn, 0.0}));
+    REQUIRE(sim.simulate(close_loop(realize(plant), static_gain(1.0)), 1.0, 0.02, m) == StepStatus::ok);
+    REQUIRE(sim.grid().step_s * wn >= 0.2);  // as coarse as intended
+    CHECK_THAT(m.ise, WithinRel((1 + 4 * zeta * zeta) / (4 * zeta * wn), 1e-5));
+  }
+  const auto plant = TransferFunction(Polynomial({5.0}), Polynomial({1.0, 0.8, 9.0}) * Polynomial({1.0, 2.0}));
+  const StateSpace loop = close_loop(realize(plant), static_gain(1.0));
+  rules.min_samples = rules.max_samples = 300;
+  StepSimulator sim3(rules);
+  REQUIRE(sim3.simulate(loop, 1.0, 0.02, m) == StepStatus::ok);
+  double fastest = 0.0;
+  for (const Complex& pole : sim3.poles()) fastest = std::max(fastest, std::abs(pole));
+  REQUIRE(sim3.grid().step_s * fastest >= 0.3);  // near the rule's limit 0.5
+  REQUIRE(sim3.grid().step_s * fastest <= 0.5);
+  const int n = loop.states();
+  const Eigen::MatrixXd A = loop.A;
+  const Eigen::RowVectorXd C = loop.C.row(0);
+  const Eigen::VectorXd x_inf = -A.partialPivLu().solve(loop.B);  // r = 1
+  REQUIRE(std::abs(C.dot(x_inf) + loop.D(0) - m.final_value) < 1e-12);
+  Eigen::MatrixXd kron = Eigen::MatrixXd::Zero(n * n, n * n);  // (I ⊗ Aᵀ + Aᵀ ⊗ I)·vec(P)
+  for (int i = 0; i < n; ++i)
+    for (int j = 0; j < n; ++j) {
+      kron.block(i * n, j * n, n, n) += A(j, i) * Eigen::MatrixXd::Identity(n, n);
+      if (i == j) kron.block(i * n, j * n, n, n) += A.transpose();
+    }
+  const Eigen::MatrixXd Q = C.transpose() * C;
+  const Eigen::VectorXd p = kron.partialPivLu().solve(-Eigen::Map<const Eigen::VectorXd>(Q.data(), n * n));
+  const Eigen::MatrixXd P = Eigen::Map<const Eigen::MatrixXd>(p.data(), n, n);
+  CHECK_THAT(m.ise, WithinRel(x_inf.dot(P * x_inf), 1e-5));  // x(0) − x∞ = −x∞
+}
+
 TEST_CASE("unstable, zero-final-value and static loops are reported, not simulated", "[response]") {
   StepSimulator sim;
   StepMetrics m;

@@ -189,14 +189,16 @@ Design measure_design(const Problem& problem, std::string name, const Controller
 /// kEffortAmplification × its final value; a search parameter within 0.1 % (log scale) of a bound.
 std::vector<std::string> fragility_warnings(const Problem& problem, const Design& d, bool searched);
 inline constexpr double kDelayMarginFloor = 1e-4;     // s
-inline constexpr double kEffortAmplification = 1e3;
+inline constexpr double kEffortAmplification = 100.0;
 /// The time a peak-time requirement reads (README, "Metric definitions"): the time of the peak
 /// when the peak is visible — the overshoot exceeds the settling band (`band_pct`) and the
 /// response never falls further below y∞ after the peak than the peak rose above it (a decaying
 /// oscillation) — else the final entry into the band (the settling time), so that no response
 /// is credited with a time after which it still leaves the band. `margin` (a fraction, the
 /// search's) makes both tests stricter: the overshoot must exceed band_pct·(1 + margin) and the
-/// dip stay below overshoot·(1 − margin). Used by the requirement checks, the search and
+/// dip stay below overshoot·(1 − margin), and a later hump (StepMetrics::next_peak_time_s) whose
+/// height is within kPeakTieFraction + margin·overshoot of the peak is read instead of the peak
+/// (two humps near a tie: the later one). Used by the requirement checks, the search and
 /// sweep-report, so all three read the same time.
 std::optional<double> effective_peak_time(const StepMetrics& m, double band_pct, double margin = 0.0);
 

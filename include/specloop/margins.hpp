@@ -12,8 +12,11 @@
 namespace specloop {
 
 struct Margins {
-  /// 20·log10(1/|L(jω_pc)|) at the phase crossover (∠L = −180°) with the smallest margin;
-  /// empty when the phase never crosses −180° (infinite gain margin).
+  /// The gain margins, from the closed loop (README, "Margins"): with the loop gain multiplied by
+  /// K, the smallest K > 1 at which a closed-loop pole crosses the imaginary axis, 20·log10(K) dB
+  /// (> 0), and the frequency of the crossing (0: at s = 0; +∞: through infinity, a biproper
+  /// loop); empty when no K > 1 destabilizes (infinite gain margin). For the usual loop this is
+  /// 1/|L| at the phase crossover (∠L = −180°) nearest to instability.
   std::optional<double> gain_margin_db;
   std::optional<double> phase_crossover_rad_s;
   /// 180° + ∠L(jω_gc) at the gain crossover (|L| = 1) with the smallest margin; empty when |L|
@@ -26,15 +29,17 @@ struct Margins {
   /// Smallest extra loop delay that destabilizes: min over gain crossovers of PM/ω_gc (s);
   /// empty when there is no gain crossover.
   std::optional<double> delay_margin_s;
-  /// How far (dB) the gain may DROP before a conditionally stable loop turns unstable, and the
-  /// frequency where a pole then crosses the axis (0: at s = 0); empty for the usual loop that
-  /// stays stable at any lower gain (lower_gain_margin).
+  /// The largest K < 1 at which a closed-loop pole crosses the imaginary axis, 20·log10(K) dB
+  /// (< 0: how far the gain may DROP before a conditionally stable loop turns unstable), and the
+  /// frequency of the crossing (0: at s = 0); empty for the usual loop that stays stable at any
+  /// lower gain. Both margins are the ends of stable_gain_set's range that contains K = 1.
   std::optional<double> lower_gain_margin_db;
   std::optional<double> lower_phase_crossover_rad_s;
 };
 
 /// Margins of a loop whose closed loop is stable (the margins of an unstable loop are not
-/// meaningful and the caller should report the instability instead).
+/// meaningful and the caller should report the instability instead: both gain margins are then
+/// empty).
 Margins loop_margins(const TransferFunction& loop);
 
 /// The closed loop of K·L (unity negative feedback) for every gain multiplier K > 0: (0, ∞) cut
@@ -60,15 +65,6 @@ struct StableGainSet {
   std::string text(double action, const std::string& symbol = "K") const;
 };
 StableGainSet stable_gain_set(const TransferFunction& loop);
-
-/// The lower gain margin of a stable loop: how far (dB, > 0) the loop gain may drop before the
-/// closed loop turns unstable, and where a pole then crosses the axis; empty when any smaller
-/// gain keeps it stable (the usual case). A conditionally stable loop has one.
-struct LowerGainMargin {
-  double db = 0.0;
-  double frequency_rad_s = 0.0;
-};
-std::optional<LowerGainMargin> lower_gain_margin(const TransferFunction& loop);
 
 /// An angle in degrees wrapped to (−180, 180].
 double wrap_degrees(double degrees);

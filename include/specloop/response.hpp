@@ -13,11 +13,24 @@
 
 namespace specloop {
 
+/// Two humps of the step response whose heights differ by less than this fraction of |y∞| (0.01
+/// percentage points of overshoot) are one peak for the peak time, which reads the later of them
+/// (README, "Metric definitions"): an optimum that parks two humps at equal height must not move
+/// its peak time by the distance between them under a 1e-6 change of the plant, which moves the
+/// heights by about 1e-6 of |y∞| (times the loop's sensitivity), and 1e-4 leaves two orders of
+/// magnitude for that; it is far below anything a plot shows as a different peak.
+inline constexpr double kPeakTieFraction = 1e-4;
+
 /// Step-response metrics. Times in s; output and effort in the loop's own units.
 struct StepMetrics {
   double final_value = 0.0;              // y∞ from the closed loop's DC gain
   double overshoot_pct = 0.0;            // (y_max − y∞)/|y∞|·100, 0 when y never exceeds y∞
-  std::optional<double> peak_time_s;     // time of y_max; empty when there is no overshoot
+  std::optional<double> peak_time_s;     // time of the LATEST local maximum of y within
+                                         // kPeakTieFraction·|y∞| of y_max (README, "Metric
+                                         // definitions"); empty when there is no overshoot
+  std::optional<double> next_peak_time_s;  // the highest local maximum after peak_time_s (above
+  double next_peak_gap_pct = 0.0;          // y∞) and how far below y_max it is, in % of |y∞|:
+                                           // what the search's margin reads (effective_peak_time)
   double undershoot_pct = 0.0;           // initial wrong-way excursion: max(0, −min y/y∞)·100
   std::optional<double> settling_time_s; // last exit from the ±band around y∞ (= the final entry
                                          // into the band); empty: not settled
