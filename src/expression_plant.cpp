@@ -104,6 +104,16 @@ ExpressionPlant::ExpressionPlant(ExpressionDefinition definition)
     if (is_reserved_name(name))
       throw ExpressionError(part, index, -1,
                             fmt::format("\"{}\" is a built-in function or constant of the expression language", name));
+    // The expression parser's own rules for a variable name (it refuses names over 100 characters).
+    try {
+      mu::Parser probe;
+      double slot = 0.0;
+      probe.DefineVar(name, &slot);
+    } catch (const mu::Parser::exception_type& e) {
+      throw ExpressionError(part, index, -1,
+                            fmt::format("\"{}\" is not a name the expression parser takes ({} characters): {}",
+                                        name.size() > 40 ? name.substr(0, 40) + "..." : name, name.size(), e.GetMsg()));
+    }
     if (std::find(names.begin(), names.end(), name) != names.end())
       throw ExpressionError(part, index, -1, fmt::format("\"{}\" is already a state or parameter name", name));
     names.push_back(name);
@@ -124,14 +134,15 @@ ExpressionPlant::ExpressionPlant(ExpressionDefinition definition)
   known.push_back(kInputName);
   const auto compile = [&](const std::string& text, Part part, std::size_t index, bool allow_input) {
     auto parser = std::make_unique<mu::Parser>();
-    for (std::size_t i = 0; i < n; ++i) parser->DefineVar(d.states[i], &c.buffer[i]);
-    for (std::size_t i = 0; i < p; ++i) parser->DefineVar(d.parameters[i].first, &c.buffer[n + i]);
-    if (allow_input) parser->DefineVar(kInputName, &c.buffer[c.input_slot]);
     if (text.find_first_not_of(" \t") == std::string::npos) throw ExpressionError(part, index, -1, "the expression is empty");
     if (const int at = assignment_position(text); at >= 0)
       throw ExpressionError(part, index, at, fmt::format("'=' at character {} assigns; use '==' to compare", at + 1));
     bool uses_state = false;
     try {
+      // Inside the try: no muparser error may leave here as anything but an ExpressionError.
+      for (std::size_t i = 0; i < n; ++i) parser->DefineVar(d.states[i], &c.buffer[i]);
+      for (std::size_t i = 0; i < p; ++i) parser->DefineVar(d.parameters[i].first, &c.buffer[n + i]);
+      if (allow_input) parser->DefineVar(kInputName, &c.buffer[c.input_slot]);
       parser->SetExpr(text);
       for (const auto& [name, pointer] : parser->GetUsedVar()) {
         if (std::find(d.states.begin(), d.states.end(), name) != d.states.end()) uses_state = true;
@@ -234,6 +245,15 @@ Linearization ExpressionPlant::jacobians_at(const std::vector<double>& x, double
                             fmt::format("is {} at {} ({} of the numerical Jacobian)", hint_for(value),
                                         describe_point(at.data(), u), where));
   };
+  // Finite values whose difference quotient overflows (a jump of 1e308 across the step, a slope
+  // beyond the double range) would make an infinite Jacobian and a NaN plant downstream.
+  const auto require_finite_slope = [&](double slope, Part part, std::size_t i, const std::string& over) {
+    if (!std::isfinite(slope))
+      throw ExpressionError(part, i, -1,
+                            fmt::format("changes too steeply with {} at {} for a numerical Jacobian (the central "
+                                        "difference is {}: a jump or a slope beyond the floating-point range there)",
+                                        over, describe_point(x.data(), u), slope));
+  };
   for (std::size_t j = 0; j < un; ++j) {
     const double h = step_for(x[j]);
     lin.state_steps.push_back(h);
@@ -243,12 +263,17 @@ Linearization ExpressionPlant::jacobians_at(const std::vector<double>& x, double
     require_finite(fp.data(), xp, u, "a forward step");
     rates_at(xm.data(), u, fm.data());
     require_finite(fm.data(), xm, u, "a backward step");
-    for (std::size_t i = 0; i < un; ++i)
-      m.A(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(j)) = (fp[i] - fm[i]) / (2.0 * h);
+    for (std::size_t i = 0; i < un; ++i) {
+      const double slope = (fp[i] - fm[i]) / (2.0 * h);
+      require_finite_slope(slope, Part::derivative, i, definition_.states[j]);
+      m.A(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(j)) = slope;
+    }
     const double yp = output_at(xp.data()), ym = output_at(xm.data());
     require_finite_output(yp, xp, "a forward step");
     require_finite_output(ym, xm, "a backward step");
-    m.C(0, static_cast<Eigen::Index>(j)) = (yp - ym) / (2.0 * h);
+    const double output_slope = (yp - ym) / (2.0 * h);
+    require_finite_slope(output_slope, Part::output, 0, definition_.states[j]);
+    m.C(0, static_cast<Eigen::Index>(j)) = output_slope;
     xp[j] = xm[j] = x[j];
   }
   const double hu = step_for(u);
@@ -257,7 +282,11 @@ Linearization ExpressionPlant::jacobians_at(const std::vector<double>& x, double
   require_finite(fp.data(), x, u + hu, "a forward step in u");
   rates_at(x.data(), u - hu, fm.data());
   require_finite(fm.data(), x, u - hu, "a backward step in u");
-  for (std::size_t i = 0; i < un; ++i) m.B(static_cast<Eigen::Index>(i)) = (fp[i] - fm[i]) / (2.0 * hu);
+  for (std::size_t i = 0; i < un; ++i) {
+    const double slope = (fp[i] - fm[i]) / (2.0 * hu);
+    require_finite_slope(slope, Part::derivative, i, kInputName);
+    m.B(static_cast<Eigen::Index>(i)) = slope;
+  }
   return lin;  // D = 0: the output does not use u (checked when compiling)
 }
 

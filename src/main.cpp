@@ -518,6 +518,10 @@ int main(int argc, char** argv) {
   } catch (const std::exception& e) {
     std::cerr << "specloop: internal error: " << e.what() << "\n";
     return 3;
+  } catch (...) {
+    // A library's own exception type (muparser's was one) must not end the run in std::terminate.
+    std::cerr << "specloop: internal error: an exception of a type not derived from std::exception\n";
+    return 3;
   }
   return 0;
 }

@@ -692,8 +692,9 @@ Table margin_table(const DesignRun& run, const ReportData& data) {
     const Design* d = run.find(name);
     if (!d || !d->margins) continue;
     const Margins& m = *d->margins;
-    auto cell = [&](const char* field, const std::optional<double>& v, const std::string& text) {
-      return Cell{text, fmt::format("data-design=\"{}\" data-field=\"{}\" {}", name, field, value_attribute(v))};
+    // `name` in an init-capture: clang before 16 cannot capture a structured binding (C++20 P1091).
+    auto cell = [&, &design = name](const char* field, const std::optional<double>& v, const std::string& text) {
+      return Cell{text, fmt::format("data-design=\"{}\" data-field=\"{}\" {}", design, field, value_attribute(v))};
     };
     auto or_none = [&](const std::optional<double>& v, const char* format_unit, const char* none) {
       return v ? fmt::format("{:.3g}{}{}", *v, std::string_view(format_unit) == "°" ? "" : " ", format_unit) : std::string(none);
@@ -814,7 +815,7 @@ std::vector<Section> sections(const DesignRun& run, const ReportData& data, cons
       s.markdown += outcome.figures_note + "\n\n";
     }
     for (const auto& [id, caption] : captions) {
-      const auto svg = std::find_if(figures.begin(), figures.end(), [&](const auto& f) { return f.first == id; });
+      const auto svg = std::find_if(figures.begin(), figures.end(), [&id = id](const auto& f) { return f.first == id; });
       s.html += fmt::format("<figure id=\"fig-{}\">\n{}<figcaption>{}</figcaption>\n</figure>\n", id,
                             svg != figures.end() && !svg->second.empty() ? svg->second + "\n" : std::string(),
                             escape_html(caption) + fmt::format(" (data: series/, script: plots/{}.gp)", id));

@@ -959,6 +959,9 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
                    ScanBits{below_bits_.data(), outside_bits_.data(), falling_bits_.data()});
   if (!std::isfinite(y_hi) || !std::isfinite(y_lo) || !std::isfinite(u_hi) || !std::isfinite(u_lo))
     return StepStatus::numerical_failure;
+  // The lambdas below read these sums, not the bindings: clang before 16 cannot capture a
+  // structured binding (C++20 P1091), and the sanitizer and fuzz builds use clang 14.
+  const double y_scale = std::abs(y_hi) + std::abs(y_lo), u_scale = std::abs(u_hi) + std::abs(u_lo);
   const SampleBits bits(ScanBits{below_bits_.data(), outside_bits_.data(), falling_bits_.data()}, K);
   auto first_equal = [&](const double* f, double v) {
     int k = 0;
@@ -1109,7 +1112,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     const double h = t(j + 1) - t(j);
     e.base = kb - j;
     e.fb = row == 0 ? y[kb] : u[kb];
-    const double scale = row == 0 ? std::abs(y_hi) + std::abs(y_lo) : std::abs(u_hi) + std::abs(u_lo);
+    const double scale = row == 0 ? y_scale : u_scale;
     double power = h, reach_power = cover;  // h^{i+1}/(i+1)!, cover^{i+1}
     int negligible = 0;
     for (int i = 0; i < ExactSeries::kMaxTerms; ++i) {
@@ -1155,7 +1158,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
     const double* samples = row == 0 ? y : u;
     // Only an extremum strictly between the samples and beyond both by more than rounding (a
     // response that starts flat has a Hermite "extremum" 1e-20 below its first sample) needs it.
-    const double rounding = 1e-12 * (row == 0 ? std::abs(y_hi) + std::abs(y_lo) : std::abs(u_hi) + std::abs(u_lo));
+    const double rounding = 1e-12 * (row == 0 ? y_scale : u_scale);
     const double beyond = sgn * f.v - std::max(sgn * samples[f.j], sgn * samples[f.j + 1]);
     if (!(f.s > 0.0 && f.s < 1.0) || !(beyond > rounding)) return f;
     ExactSeries e;

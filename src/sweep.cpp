@@ -8,6 +8,7 @@
 
 #include <algorithm>
 #include <cerrno>
+#include <cmath>
 #include <cstring>
 
 #include <chrono>
@@ -780,12 +781,37 @@ SweepStoreContents read_sweep_store(const std::string& path) {
   out.spec_hash = h.spec_hash;
   out.shard = h.shard;
   {
+    // A damaged axis is the store's fault, not a --vary the user typed: say so, with the file.
     Stmt s(*db, "SELECT key, definition FROM sweep_axes ORDER BY axis");
-    while (s.step()) out.grid.axes.push_back(parse_sweep_axis(s.text(0) + "=" + s.text(1)));
+    while (s.step()) {
+      const std::string text = s.text(0) + "=" + s.text(1);
+      try {
+        out.grid.axes.push_back(parse_sweep_axis(text));
+      } catch (const SweepError& e) {
+        std::string why = e.what();
+        const std::string prefix = fmt::format("--vary '{}': ", text);
+        if (why.rfind(prefix, 0) == 0) why = why.substr(prefix.size());
+        throw SweepError(fmt::format("{}: axis {} of the store ('{}') is damaged: {}", path, out.grid.axes.size() + 1,
+                                     text, why));
+      }
+    }
   }
-  if (out.grid.canonical() != h.grid || static_cast<std::int64_t>(out.grid.size()) != h.point_count)
+  std::size_t grid_size = 0;
+  try {
+    grid_size = out.grid.size();
+  } catch (const SweepError& e) {
+    throw SweepError(fmt::format("{}: {} (damaged)", path, e.what()));
+  }
+  if (static_cast<std::int64_t>(grid_size) != h.point_count || out.grid.canonical() != h.grid)
     throw SweepError(fmt::format("{}: the store's axes do not reproduce its grid (damaged)", path));
-  out.points.resize(out.grid.size());
+  {
+    // Memory follows the rows actually stored, not a size the header claims.
+    Stmt s(*db, "SELECT count(*) FROM sweep_points");
+    const std::int64_t rows = s.step() ? s.integer(0) : 0;
+    if (rows != h.point_count)
+      throw SweepError(fmt::format("{}: {} grid point(s) stored for a grid of {} (damaged)", path, rows, grid_size));
+  }
+  out.points.resize(grid_size);
   {
     Stmt s(*db, "SELECT * FROM sweep_points ORDER BY idx");
     const int columns = sqlite3_column_count(s.get());
@@ -793,13 +819,19 @@ SweepStoreContents read_sweep_store(const std::string& path) {
       throw SweepError(fmt::format("{}: sweep_points has {} value column(s) for {} axes (damaged)", path, columns - 1,
                                    out.grid.axes.size()));
     std::size_t rows = 0;
+    std::vector<bool> seen(out.points.size(), false);
     while (s.step()) {
       const std::int64_t idx = s.integer(0);
       if (idx < 0 || static_cast<std::size_t>(idx) >= out.points.size())
         throw SweepError(fmt::format("{}: point index {} outside the grid of {} (damaged)", path, idx, out.points.size()));
-      StoredPoint& p = out.points[static_cast<std::size_t>(idx)];
-      p.index = static_cast<std::size_t>(idx);
+      const auto i = static_cast<std::size_t>(idx);
+      if (seen[i]) throw SweepError(fmt::format("{}: point {} is stored twice (damaged)", path, idx));
+      seen[i] = true;
+      StoredPoint& p = out.points[i];
+      p.index = i;
       for (int c = 1; c < columns; ++c) p.values.push_back(sqlite3_column_double(s.get(), c));
+      if (p.values != out.grid.point(i))
+        throw SweepError(fmt::format("{}: point {}'s values differ from the grid's (damaged)", path, idx));
       ++rows;
     }
     if (rows != out.points.size())
@@ -830,6 +862,11 @@ SweepStoreContents read_sweep_store(const std::string& path) {
       p.optimized = s.text(10);
       p.search_wall_time_s = sqlite3_column_double(s.get(), 11);
       p.point_wall_time_s = sqlite3_column_double(s.get(), 12);
+      // SQLite keeps ±inf in a REAL column; a time is finite and not negative.
+      if (!(p.search_wall_time_s >= 0.0 && p.point_wall_time_s >= 0.0 && std::isfinite(p.search_wall_time_s) &&
+            std::isfinite(p.point_wall_time_s)))
+        throw SweepError(fmt::format("{}: point {}'s wall times ({}, {}) are not finite times >= 0 (damaged)", path,
+                                     idx, p.search_wall_time_s, p.point_wall_time_s));
     }
   }
   return out;

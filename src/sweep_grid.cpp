@@ -79,12 +79,22 @@ SweepAxis parse_sweep_axis(std::string_view text) {
     if (geometric && (*from <= 0.0 || *to <= 0.0))
       return fail("a log range needs FROM > 0 and TO > 0");
     const long n = *count;
+    // TO − FROM and TO/FROM can leave the double range (−1e308:1e308, 1e-300:1e300log); then the
+    // values are weighted means of the ends (or of their logarithms), which cannot overflow. The
+    // usual formulas are kept otherwise, so the values of every other range stay bit for bit.
+    const double span = *to - *from, ratio = *to / *from;
+    const bool span_ok = std::isfinite(span), ratio_ok = std::isnormal(ratio);
     for (long j = 0; j < n; ++j) {
+      const double t = static_cast<double>(j) / static_cast<double>(n - 1);
       double v = 0.0;
       if (j == 0) v = *from;
       else if (j == n - 1) v = *to;
-      else if (geometric) v = *from * std::pow(*to / *from, static_cast<double>(j) / static_cast<double>(n - 1));
-      else v = *from + (*to - *from) * static_cast<double>(j) / static_cast<double>(n - 1);
+      else if (geometric && ratio_ok) v = *from * std::pow(ratio, t);
+      else if (geometric) v = std::exp(std::log(*from) * (1.0 - t) + std::log(*to) * t);
+      else if (span_ok) v = *from + span * t;
+      else v = *from * (1.0 - t) + *to * t;
+      if ((geometric && !ratio_ok) || (!geometric && !span_ok))
+        v = std::clamp(v, std::min(*from, *to), std::max(*from, *to));  // rounding stays inside the range
       axis.values.push_back(v);
     }
     return axis;
@@ -104,7 +114,17 @@ SweepAxis parse_sweep_axis(std::string_view text) {
 
 std::size_t SweepGrid::size() const {
   std::size_t n = 1;
-  for (const auto& a : axes) n *= a.values.size();
+  for (const auto& a : axes) {
+    const std::size_t m = a.values.size();
+    if (m != 0 && n > kMaxGridPoints / m) {
+      std::string lengths;
+      for (const auto& b : axes) lengths += fmt::format("{}{}", lengths.empty() ? "" : " × ", b.values.size());
+      throw SweepError(fmt::format("the grid of {} values has more than {} points, the most one sweep runs; "
+                                   "use fewer values (or split the sweep into several)",
+                                   lengths, kMaxGridPoints));
+    }
+    n *= m;
+  }
   return n;
 }
 

@@ -312,6 +312,74 @@ TEST_CASE("spec: expression mistakes name their key and line", "[expression][spe
   CHECK_NOTHROW(load("states = [\"h\"]\nderivatives = [\"u - h\"]\noutput = \"h\"\n"));
 }
 
+// Found by fuzzing (tests/fuzz/fuzz_expression.cpp): muparser refuses variable names over 100
+// characters by throwing its own exception type, which is not a std::exception; it escaped from
+// the constructor and ended `specloop analyze` in std::terminate. Every name is now checked with
+// the parser's own rules, and a refusal is an ExpressionError naming the state or parameter.
+TEST_CASE("names the expression parser refuses are ExpressionErrors, not its own exceptions", "[expression]") {
+  const std::string longest(100, 'h'), too_long(101, 'h');
+  ExpressionDefinition d;
+  d.states = {longest};
+  d.derivatives = {"u - " + longest};
+  d.output = longest;
+  CHECK_NOTHROW(ExpressionPlant(d));  // 100 characters: muparser's limit, accepted
+  d.states = {too_long};
+  d.derivatives = {"u - " + too_long};
+  d.output = too_long;
+  try {
+    ExpressionPlant plant(d);
+    FAIL("a 101-character state name was accepted");
+  } catch (const ExpressionError& e) {
+    CHECK(e.part == ExpressionError::Part::state);
+    CHECK(e.index == 0);
+    CHECK_THAT(e.what(), Contains("is not a name the expression parser takes (101 characters)"));
+  }
+  ExpressionDefinition p = tank_definition();
+  p.parameters.emplace_back(std::string(120, 'k'), 1.0);
+  try {
+    ExpressionPlant plant(p);
+    FAIL("a 120-character parameter name was accepted");
+  } catch (const ExpressionError& e) {
+    CHECK(e.part == ExpressionError::Part::parameter);
+    CHECK(e.index == 3);
+  }
+  // Through the spec reader: exit 2 material, with the key and line.
+  CHECK_THROWS_AS(parse_spec("[plant.nonlinear]\nstates = [\"" + too_long + "\"]\nderivatives = [\"u\"]\noutput = \"" +
+                                 too_long + "\"\n[plant.nonlinear.operating_point]\n" + too_long + " = 1.0\nu = 0.4\n",
+                             "x.toml"),
+                  SpecError);
+}
+
+// Found by fuzzing: values that are finite on both sides of the step but 2e308 apart made an
+// infinite Jacobian; its infinite scale then let Newton's convergence test pass at the guess with
+// the residual f = 2, and the spec reader reported "the linearization's transfer function is
+// zero". jacobians_at now refuses a difference quotient that overflows.
+TEST_CASE("a Jacobian whose difference quotient overflows is refused, never returned", "[expression]") {
+  ExpressionDefinition d;
+  d.states = {"x"};
+  d.derivatives = {"1e308*sign(x) + u - 1"};
+  d.output = "x";
+  ExpressionPlant jump(d);
+  CHECK_THROWS_WITH(jump.jacobians_at({0.0}, 3.0), Contains("changes too steeply with x"));
+  CHECK_THROWS_AS(jump.find_equilibrium({0.0}, 3.0), std::runtime_error);
+  d.derivatives = {"-x + u"};
+  d.output = "1e308*sign(x)";  // the output's slope overflows the same way
+  ExpressionPlant output_jump(d);
+  try {
+    (void)output_jump.jacobians_at({0.0}, 0.0);
+    FAIL("an infinite output slope was returned");
+  } catch (const ExpressionError& e) {
+    CHECK(e.part == ExpressionError::Part::output);
+  }
+  d.derivatives = {"-x + 1e308*sign(u)"};  // and ∂f/∂u
+  d.output = "x";
+  CHECK_THROWS_WITH(ExpressionPlant(d).jacobians_at({0.0}, 0.0), Contains("changes too steeply with u"));
+  CHECK_THROWS_WITH(parse_spec("[plant.nonlinear]\nstates = [\"x\"]\nderivatives = [\"1e308*sign(x) + u - 1\"]\n"
+                               "output = \"x\"\n[plant.nonlinear.operating_point]\nx = 0\nu = 3\n",
+                               "x.toml"),
+                    Contains("plant.nonlinear.operating_point") && Contains("changes too steeply"));
+}
+
 TEST_CASE("free integrator: Newton stops on the line of equilibria nearest the guess", "[expression]") {
   // A drive: angle' = rate, rate' = (gain·u − rate)/lag. With u = 0 every (angle, 0) is an
   // equilibrium (A is singular); the minimum-norm Newton step changes only the rate. The linearized

@@ -94,6 +94,47 @@ TEST_CASE("bad axes are refused with the reason", "[sweep]") {
   CHECK_THAT(message("x=1:2:1"), Catch::Contains("COUNT 1 needs FROM equal to TO"));
 }
 
+// Found by fuzzing (tests/fuzz/fuzz_vary.cpp): TO − FROM and TO/FROM overflowed, so a range
+// between two finite numbers produced inf (−1e308:1e308:3 had a middle value of inf) or 0 in a
+// log range. The values are weighted means of the ends there (of their logarithms for log).
+TEST_CASE("ranges whose span or ratio leave the double range keep finite values inside", "[sweep]") {
+  const auto inside = [](const SweepAxis& a, double lo, double hi) {
+    for (double v : a.values)
+      if (!std::isfinite(v) || v < lo || v > hi) return false;
+    return true;
+  };
+  const SweepAxis wide = parse_sweep_axis("k=-1e308:1e308:5");
+  REQUIRE(wide.values.size() == 5);
+  CHECK(inside(wide, -1e308, 1e308));
+  CHECK(wide.values[2] == 0.0);  // −1e308·½ + 1e308·½
+  CHECK(wide.values[1] == Approx(-0.5e308).epsilon(1e-15));
+  const SweepAxis down = parse_sweep_axis("k=1.7e308:-1.7e308:3");
+  CHECK(inside(down, -1.7e308, 1.7e308));
+  CHECK(down.values[1] == 0.0);
+  const SweepAxis up = parse_sweep_axis("k=1e-300:1e300:3log");  // ratio 1e600 overflows
+  CHECK(inside(up, 1e-300, 1e300));
+  CHECK(up.values[1] == Approx(1.0).epsilon(1e-12));  // the geometric mean
+  const SweepAxis fall = parse_sweep_axis("k=1e300:1e-300:5log");  // ratio 1e-600 underflows to 0
+  CHECK(inside(fall, 1e-300, 1e300));
+  CHECK(fall.values[2] == Approx(1.0).epsilon(1e-12));
+  CHECK(fall.values[1] == Approx(1e150).epsilon(1e-12));
+}
+
+// Found by fuzzing: the grid size was a product that wrapped around in 64 bits (four axes of a
+// million values made a "grid" of a few points, or a sweep that never started).
+TEST_CASE("a grid of more than kMaxGridPoints points is refused, never wrapped", "[sweep]") {
+  SweepGrid g;
+  g.axes.push_back(parse_sweep_axis("a=1:2:1000000"));
+  g.axes.push_back(parse_sweep_axis("b=1:2:10"));
+  CHECK(g.size() == kMaxGridPoints);  // 10 000 000 exactly is allowed
+  g.axes.push_back(parse_sweep_axis("c=1,2"));
+  CHECK_THROWS_WITH(g.size(), Catch::Contains("more than 10000000 points") && Catch::Contains("1000000 × 10 × 2"));
+  SweepGrid wrap;  // 2^16 values on four axes: 2^64 points, 0 modulo 2^64
+  for (const char* key : {"a", "b", "c", "d"})
+    wrap.axes.push_back(parse_sweep_axis(std::string(key) + "=1:2:65536"));
+  CHECK_THROWS_AS(wrap.size(), SweepError);
+}
+
 TEST_CASE("grid numbering: the first axis varies slowest", "[sweep]") {
   SweepGrid g;
   g.axes.push_back(parse_sweep_axis("a=1,2"));

@@ -75,7 +75,9 @@ class ExpressionPlant final : public PlantModel {
   /// Jacobians by central differences, step h_j = ε^(1/3)·max(|x_j|, 1) per variable
   /// (ε = 2.2e-16; truncation O(h²) and rounding O(ε/h) balance at a relative error of about
   /// ε^(2/3) ≈ 4e-11 for smooth right-hand sides of unit scale). Throws ExpressionError when an
-  /// expression is not finite at x or at a perturbed point (too close to its domain's edge).
+  /// expression is not finite at x or at a perturbed point (too close to its domain's edge), or
+  /// when a difference quotient overflows (a jump or a slope beyond the double range): every
+  /// Jacobian returned is finite.
   Linearization jacobians_at(const std::vector<double>& x, double u) const;
 
   /// Newton's method on f(x, u) = 0 with u fixed, from `guess`: minimum-norm steps (so a plant

@@ -30,11 +30,16 @@ struct SweepAxis {
 /// range with both bounds > 0, finite numbers, a key before '=').
 SweepAxis parse_sweep_axis(std::string_view text);
 
+/// The most points one grid may have (its size() refuses more).
+constexpr std::size_t kMaxGridPoints = 10000000;
+
 /// The grid: axes in the order given; the first axis varies slowest (row-major, like nested loops
 /// with the first axis outermost). Point i's value on axis a is values[digit_a(i)].
 struct SweepGrid {
   std::vector<SweepAxis> axes;
-  std::size_t size() const;                            // product of the axis lengths (1 for no axes)
+  /// The product of the axis lengths (1 for no axes); throws SweepError when it exceeds
+  /// kMaxGridPoints (so it never wraps around, and no sweep starts on an endless grid).
+  std::size_t size() const;
   std::vector<double> point(std::size_t index) const;  // the values of point `index`, one per axis
   std::string canonical() const;                       // "key=def;key=def" with values listed exactly
 };

@@ -1,0 +1,1 @@
+UPDATE sweep_axes SET definition = 'banana' WHERE axis = 2;

@@ -1,0 +1,1 @@
+UPDATE sweep_axes SET key = NULL;

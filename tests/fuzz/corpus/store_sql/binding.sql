@@ -1,0 +1,1 @@
+UPDATE sweep_results SET binding = 'requirements.nothing', evaluations = 99999999999;

@@ -1,0 +1,1 @@
+UPDATE sweep_header SET format = 'specloop-sweep-1';

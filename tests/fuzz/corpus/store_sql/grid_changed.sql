@@ -1,0 +1,1 @@
+UPDATE sweep_header SET grid = 'plant.gain=2,5';

@@ -1,0 +1,1 @@
+ALTER TABLE sweep_header RENAME COLUMN grid TO grid2;

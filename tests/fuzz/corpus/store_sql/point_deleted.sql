@@ -1,0 +1,1 @@
+DELETE FROM sweep_points WHERE idx = 1;

@@ -1,0 +1,1 @@
+UPDATE sweep_points SET v1 = 'text', v2 = NULL;

@@ -1,0 +1,1 @@
+UPDATE sweep_results SET status = 'error', error = NULL;

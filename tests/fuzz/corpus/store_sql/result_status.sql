@@ -1,0 +1,1 @@
+UPDATE sweep_results SET status = 'banana';

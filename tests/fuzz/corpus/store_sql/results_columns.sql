@@ -1,0 +1,1 @@
+ALTER TABLE sweep_results DROP COLUMN optimized;

@@ -1,0 +1,1 @@
+INSERT INTO sweep_header SELECT * FROM sweep_header;
