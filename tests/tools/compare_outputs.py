@@ -1,0 +1,155 @@
+#!/usr/bin/env python3
+"""Behaviour-unchanged check for a refactoring: runs two specloop binaries on the same inputs and
+compares what they write, field by field, apart from the fields that are allowed to differ (the tool
+version and wall-clock figures).
+
+Inputs: every spec in specs/, tests/claims/ and tests/unusual_plants/ (`design`, result.json), the
+committed example sweep (re-run with the axes of tests/tools/refresh_examples.py; every point's
+stored design summaries and checks), and `sweep-report`'s points.csv and front.csv of both stores.
+
+Usage: tests/tools/compare_outputs.py --before OLD/specloop --after build/specloop [--jobs 2]
+Exit 0 when everything matches; 1 with the differences listed.
+"""
+import argparse
+import concurrent.futures
+import csv
+import json
+import pathlib
+import sqlite3
+import subprocess
+import sys
+import tempfile
+
+ROOT = pathlib.Path(__file__).resolve().parents[2]
+# Fields that may differ between two runs of the same binary (wall clock) or two versions.
+VOLATILE = {"version", "tool_version", "wall_time_s", "evaluations_per_s", "search_wall_time_s",
+            "point_wall_time_s", "nonlinear_wall_time_s"}
+VOLATILE_CSV_SUFFIXES = ("wall_time_s", "_per_s")
+
+
+def strip(value):
+    if isinstance(value, dict):
+        return {k: strip(v) for k, v in value.items() if k not in VOLATILE and not k.endswith("wall_time_s")}
+    if isinstance(value, list):
+        return [strip(v) for v in value]
+    return value
+
+
+def diff(a, b, path="", out=None, limit=20):
+    out = [] if out is None else out
+    if len(out) >= limit:
+        return out
+    if isinstance(a, dict) and isinstance(b, dict):
+        for k in sorted(set(a) | set(b)):
+            if k not in a or k not in b:
+                out.append(f"{path}.{k}: only in {'after' if k in b else 'before'}")
+            else:
+                diff(a[k], b[k], f"{path}.{k}", out, limit)
+    elif isinstance(a, list) and isinstance(b, list):
+        if len(a) != len(b):
+            out.append(f"{path}: {len(a)} vs {len(b)} entries")
+        for i, (x, y) in enumerate(zip(a, b)):
+            diff(x, y, f"{path}[{i}]", out, limit)
+    elif a != b:
+        out.append(f"{path}: {a!r} vs {b!r}")
+    return out
+
+
+def design(exe, spec, out):
+    run = subprocess.run([exe, "design", str(spec), "--out", str(out)], capture_output=True, text=True,
+                         cwd=ROOT)
+    result = out / "result.json"
+    return run.returncode, run.stdout, (json.loads(result.read_text()) if result.exists() else None)
+
+
+def compare_spec(before, after, spec, work):
+    rb, ob, jb = design(before, spec, work / "before")
+    ra, oa, ja = design(after, spec, work / "after")
+    problems = []
+    if rb != ra:
+        problems.append(f"exit code {rb} vs {ra}")
+    if (jb is None) != (ja is None):
+        problems.append("result.json written by only one of them")
+    elif jb is not None:
+        problems += diff(strip(jb), strip(ja))
+    return problems
+
+
+def store_rows(path):
+    con = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
+    con.row_factory = sqlite3.Row
+    rows = {}
+    for r in con.execute("SELECT * FROM sweep_results ORDER BY idx"):
+        d = {k: r[k] for k in r.keys() if not k.endswith("wall_time_s")}
+        for k in ("classical", "optimized"):
+            if d.get(k):
+                d[k] = strip(json.loads(d[k]))
+        rows[d["idx"]] = d
+    con.close()
+    return rows
+
+
+def read_csv(path):
+    with open(path, newline="") as f:
+        rows = list(csv.DictReader(f))
+    return [{k: v for k, v in r.items() if not k.endswith(VOLATILE_CSV_SUFFIXES)} for r in rows]
+
+
+def compare_sweep(before, after, work):
+    axes = ["--vary", "requirements.overshoot_max_pct=4:20:5", "--vary", "plant.zeros[0]=-1,-2,-4,-9,-20,-60"]
+    problems = []
+    data = {}
+    for name, exe in (("before", before), ("after", after)):
+        store = work / f"{name}.sqlite"
+        subprocess.run([exe, "sweep", "specs/conveyor_speed.toml", *axes, "--store", str(store), "--jobs", "2"],
+                       cwd=ROOT, check=True, capture_output=True)
+        report = work / f"{name}-report"
+        subprocess.run([exe, "sweep-report", str(store), "--out", str(report)], cwd=ROOT, check=True,
+                       capture_output=True)
+        data[name] = (store_rows(store), read_csv(report / "points.csv"), read_csv(report / "front.csv"))
+    for part, a, b in zip(("store", "points.csv", "front.csv"), data["before"], data["after"]):
+        problems += [f"{part}{p}" for p in diff(a, b, limit=10)]
+    return problems
+
+
+def main():
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--before", required=True)
+    ap.add_argument("--after", default=str(ROOT / "build" / "specloop"))
+    ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--no-sweep", action="store_true")
+    args = ap.parse_args()
+    before = str(pathlib.Path(args.before).resolve())
+    after = str(pathlib.Path(args.after).resolve())
+    specs = sorted((ROOT / "specs").glob("*.toml")) + sorted((ROOT / "tests" / "claims").glob("*.toml")) + \
+        sorted((ROOT / "tests" / "unusual_plants").glob("*.toml"))
+    failures = 0
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = pathlib.Path(tmp)
+
+        def one(i_spec):
+            i, spec = i_spec
+            work = tmp / f"s{i}"
+            work.mkdir()
+            return spec, compare_spec(before, after, spec, work)
+
+        with concurrent.futures.ThreadPoolExecutor(args.jobs) as pool:
+            for spec, problems in pool.map(one, enumerate(specs)):
+                name = spec.relative_to(ROOT)
+                print(f"{'same' if not problems else 'DIFFERS'}  {name}")
+                for p in problems:
+                    print(f"    {p}")
+                failures += bool(problems)
+        if not args.no_sweep:
+            (tmp / "sweep").mkdir()
+            problems = compare_sweep(before, after, tmp / "sweep")
+            print(f"{'same' if not problems else 'DIFFERS'}  example sweep (store, points.csv, front.csv)")
+            for p in problems:
+                print(f"    {p}")
+            failures += bool(problems)
+    print(f"{len(specs) + (0 if args.no_sweep else 1) - failures} same, {failures} differ")
+    return 1 if failures else 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
