@@ -18,9 +18,9 @@
 #include <string>
 #include <vector>
 
-#include "specloop/design.hpp"
-#include "specloop/lti.hpp"
-#include "specloop/response.hpp"
+#include "specloop/design/design.hpp"
+#include "specloop/core/lti.hpp"
+#include "specloop/sim/response.hpp"
 
 using namespace specloop;
 

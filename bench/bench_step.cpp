@@ -19,8 +19,8 @@
 #include <string>
 #include <vector>
 
-#include "specloop/lti.hpp"
-#include "specloop/response.hpp"
+#include "specloop/core/lti.hpp"
+#include "specloop/sim/response.hpp"
 
 // Allocation counter: on glibc, interpose malloc (forwarding to the real allocator) so that
 // allocations by Eigen (which calls malloc directly) and by operator new are both seen.

@@ -4,8 +4,8 @@
 #include <cmath>
 #include <numbers>
 
-#include "specloop/compensator.hpp"
-#include "specloop/margins.hpp"
+#include "specloop/core/compensator.hpp"
+#include "specloop/core/margins.hpp"
 
 using namespace specloop;
 using Catch::Matchers::WithinAbs;

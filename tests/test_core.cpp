@@ -3,7 +3,7 @@
 #include <catch2/catch.hpp>
 #include <cmath>
 
-#include "specloop/lti.hpp"
+#include "specloop/core/lti.hpp"
 
 using namespace specloop;
 using Catch::Matchers::WithinAbs;

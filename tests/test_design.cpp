@@ -4,7 +4,7 @@
 #include <cmath>
 #include <numbers>
 
-#include "specloop/design.hpp"
+#include "specloop/design/design.hpp"
 
 using namespace specloop;
 using Catch::Matchers::WithinAbs;

@@ -12,12 +12,12 @@
 #include <string>
 #include <vector>
 
-#include "specloop/characterize.hpp"
-#include "specloop/compensator.hpp"
-#include "specloop/design.hpp"
-#include "specloop/expression_plant.hpp"
-#include "specloop/nonlinear.hpp"
-#include "specloop/spec.hpp"
+#include "specloop/design/characterize.hpp"
+#include "specloop/core/compensator.hpp"
+#include "specloop/design/design.hpp"
+#include "specloop/sim/expression_plant.hpp"
+#include "specloop/sim/nonlinear.hpp"
+#include "specloop/spec/spec.hpp"
 
 using namespace specloop;
 using Catch::Matchers::Contains;

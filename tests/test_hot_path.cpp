@@ -6,7 +6,7 @@
 #include <cstdlib>
 #include <new>
 
-#include "specloop/response.hpp"
+#include "specloop/sim/response.hpp"
 
 namespace {
 std::atomic<bool> counting{false};

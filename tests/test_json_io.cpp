@@ -11,9 +11,9 @@
 #include <string>
 #include <vector>
 
-#include "specloop/design.hpp"
-#include "specloop/json_io.hpp"
-#include "specloop/spec.hpp"
+#include "specloop/design/design.hpp"
+#include "specloop/output/json_io.hpp"
+#include "specloop/spec/spec.hpp"
 
 using namespace specloop;
 using nlohmann::json;

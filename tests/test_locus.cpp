@@ -2,7 +2,7 @@
 #include <catch2/catch.hpp>
 #include <cmath>
 
-#include "specloop/characterize.hpp"
+#include "specloop/design/characterize.hpp"
 
 using namespace specloop;
 using Catch::Matchers::WithinAbs;

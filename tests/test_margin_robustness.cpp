@@ -13,7 +13,7 @@
 #include <string>
 #include <vector>
 
-#include "specloop/design.hpp"
+#include "specloop/design/design.hpp"
 
 using namespace specloop;
 

@@ -9,7 +9,7 @@
 #include <string>
 #include <vector>
 
-#include "specloop/nonlinear.hpp"
+#include "specloop/sim/nonlinear.hpp"
 
 using namespace specloop;
 using Catch::Matchers::Contains;

@@ -7,8 +7,8 @@
 #include <string>
 #include <vector>
 
-#include "specloop/design.hpp"
-#include "specloop/nonlinear.hpp"
+#include "specloop/design/design.hpp"
+#include "specloop/sim/nonlinear.hpp"
 
 using namespace specloop;
 using Catch::Matchers::WithinAbs;

@@ -6,9 +6,9 @@
 #include <catch2/catch.hpp>
 #include <cmath>
 
-#include "specloop/design.hpp"
-#include "specloop/margins.hpp"
-#include "specloop/response.hpp"
+#include "specloop/design/design.hpp"
+#include "specloop/core/margins.hpp"
+#include "specloop/sim/response.hpp"
 
 using namespace specloop;
 using Catch::Matchers::WithinAbs;

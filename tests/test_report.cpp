@@ -10,7 +10,7 @@
 
 #include <fmt/format.h>
 
-#include "specloop/report.hpp"
+#include "specloop/output/report.hpp"
 
 using namespace specloop;
 using Catch::Matchers::Contains;

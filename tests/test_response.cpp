@@ -5,8 +5,8 @@
 #include <numbers>
 #include <random>
 
-#include "specloop/response.hpp"
-#include "specloop/second_order.hpp"
+#include "specloop/sim/response.hpp"
+#include "specloop/core/second_order.hpp"
 
 using namespace specloop;
 using Catch::Matchers::WithinAbs;

@@ -11,7 +11,7 @@
 #include <string>
 #include <vector>
 
-#include "specloop/spec.hpp"
+#include "specloop/spec/spec.hpp"
 
 using specloop::parse_spec;
 using specloop::SpecError;

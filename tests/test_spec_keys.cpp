@@ -7,7 +7,7 @@
 #include <set>
 #include <string>
 
-#include "specloop/spec.hpp"
+#include "specloop/spec/spec.hpp"
 
 using specloop::parse_spec;
 using specloop::SpecError;

@@ -13,9 +13,9 @@
 #include <string>
 #include <vector>
 
-#include "specloop/spec.hpp"
-#include "specloop/sweep.hpp"
-#include "specloop/sweep_report.hpp"
+#include "specloop/spec/spec.hpp"
+#include "specloop/sweep/sweep.hpp"
+#include "specloop/sweep/sweep_report.hpp"
 
 using namespace specloop;
 

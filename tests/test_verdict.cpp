@@ -10,9 +10,9 @@
 #include <string>
 #include <vector>
 
-#include "specloop/design.hpp"
-#include "specloop/nonlinear.hpp"
-#include "specloop/sampled_loop.hpp"
+#include "specloop/design/design.hpp"
+#include "specloop/sim/nonlinear.hpp"
+#include "specloop/sim/sampled_loop.hpp"
 
 using namespace specloop;
 using Catch::Matchers::Contains;

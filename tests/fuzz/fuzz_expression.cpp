@@ -18,7 +18,7 @@
 #include <fmt/format.h>
 
 #include "fuzz_common.hpp"
-#include "specloop/expression_plant.hpp"
+#include "specloop/sim/expression_plant.hpp"
 
 namespace {
 

@@ -15,10 +15,10 @@
 #include <toml++/toml.h>
 
 #include "fuzz_common.hpp"
-#include "specloop/compensator.hpp"
-#include "specloop/expression_plant.hpp"
-#include "specloop/spec.hpp"
-#include "specloop/sweep.hpp"
+#include "specloop/core/compensator.hpp"
+#include "specloop/sim/expression_plant.hpp"
+#include "specloop/spec/spec.hpp"
+#include "specloop/sweep/sweep.hpp"
 
 namespace {
 

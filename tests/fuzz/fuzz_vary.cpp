@@ -23,8 +23,8 @@
 #include <fmt/format.h>
 
 #include "fuzz_common.hpp"
-#include "specloop/spec.hpp"
-#include "specloop/sweep.hpp"
+#include "specloop/spec/spec.hpp"
+#include "specloop/sweep/sweep.hpp"
 
 namespace {
 

@@ -14,8 +14,8 @@
 #include <fmt/format.h>
 
 #include "fuzz_common.hpp"
-#include "specloop/sweep.hpp"
-#include "specloop/sweep_report.hpp"
+#include "specloop/sweep/sweep.hpp"
+#include "specloop/sweep/sweep_report.hpp"
 
 namespace specloop_fuzz {
 

@@ -34,10 +34,10 @@
 
 #include <nlohmann/json.hpp>
 
-#include "specloop/expression_plant.hpp"
-#include "specloop/json_io.hpp"
+#include "specloop/sim/expression_plant.hpp"
+#include "specloop/output/json_io.hpp"
 #include "probe_io.hpp"
-#include "specloop/nonlinear.hpp"
+#include "specloop/sim/nonlinear.hpp"
 
 namespace {
 

@@ -22,10 +22,10 @@
 
 #include <nlohmann/json.hpp>
 
-#include "specloop/json_io.hpp"
+#include "specloop/output/json_io.hpp"
 #include "probe_io.hpp"
-#include "specloop/lti.hpp"
-#include "specloop/response.hpp"
+#include "specloop/core/lti.hpp"
+#include "specloop/sim/response.hpp"
 
 namespace {
 

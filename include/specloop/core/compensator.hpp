@@ -1,0 +1,79 @@
+// Compensator structures: the series parameterization the optimizer searches (a gain and
+// zero/pole locations, all positive, searched on log scales), and its conversions to a
+// transfer function, to parallel gains (Kp, Ki, Kd, Tf) and to the standard form (Kp, Ti, Td, N).
+#pragma once
+
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "specloop/core/lti.hpp"
+#include "specloop/core/vocabulary.hpp"
+
+namespace specloop {
+
+/// One named series parameter of a structure.
+struct ParameterInfo {
+  std::string name;   // as in [search.bounds] and result.json ("gain", "zero", ...)
+  std::string unit;   // "rad/s", "" (ratio), or "controller units"
+  std::string meaning;
+};
+
+/// The series parameters of a structure, in vector order:
+///   p        C = K
+///   pi       C = K·(s + z)/s                                   [gain, integral_zero]
+///   pd       C = K·(s/z + 1)/(s/((N+1)·z) + 1)                 [gain, zero]
+///   pid      C = Kp·(1 + Ti⁻¹/s + Td·s/(Td/N·s + 1)) written as
+///            Kc·(s² + 2ζc·ω0·s + ω0²)/(s·(Tf·s + 1))          [gain (Kp), zero_frequency ω0, zero_damping ζc]
+///   lead     C = K·(s/z + 1)/(s/(α·z) + 1), α > 1              [gain, zero, ratio]
+///   lag      C = K·(s + z)/(s + z/β), β > 1                     [gain, zero, ratio]
+///   lead-lag lead·lag with one gain                              [gain, zero, ratio, lag_zero, lag_ratio]
+const std::vector<ParameterInfo>& structure_parameters(Structure s);
+
+/// Parallel gains: C = Kp + Ki/s + Kd·s/(Tf·s + 1).
+struct ParallelGains {
+  double kp = 0.0, ki = 0.0, kd = 0.0, filter_time = 0.0;
+};
+/// Standard (ideal, filtered) form: C = Kp·(1 + 1/(Ti·s) + Td·s/(Td/N·s + 1)); Ti = ∞ without I.
+struct StandardForm {
+  double kp = 0.0, ti = 0.0, td = 0.0, n = 0.0;
+  bool has_integral = false;
+  bool has_derivative = false;
+};
+
+/// A concrete controller: its structure, series parameters, and what follows from them.
+struct Controller {
+  Structure structure = Structure::p;
+  std::vector<double> series;             // values in structure_parameters order (magnitudes, all positive)
+  double action = 1.0;                    // +1 direct, −1 reverse (loop_action of the plant): multiplies C(s)
+                                          // and every gain of the parallel and standard forms
+  double derivative_filter = 10.0;        // N (pd, pid)
+  TransferFunction transfer;              // C(s), continuous time
+  std::optional<ParallelGains> parallel;  // empty for lag and lead-lag (no PID equivalent)
+  std::optional<StandardForm> standard;
+};
+
+/// Builds the controller from series parameters and the action (+1 direct, −1 reverse: the sign
+/// of C(s), Kp, Ki, Kd and the standard form's Kp; Ti, Td, Tf and N stay positive). Throws
+/// std::invalid_argument when a value is not positive and finite, the count is wrong or the
+/// action is not ±1.
+Controller make_controller(Structure s, const std::vector<double>& series, double derivative_filter, double action = 1.0);
+
+/// The series parameters as shown and written (result.json, the store, tables): the gain (always
+/// the first) carries the action, so C(s) reads off them directly; the others as they are.
+std::vector<double> signed_series(const Controller& c);
+
+/// The reference path of a two-degree-of-freedom controller u = C_r(s)·r − C(s)·y with
+/// C_r = Kp·b + Ki/s + Kd·c·s/(Tf·s + 1) (set-point weights b and c; Åström–Hägglund). It shares
+/// C's denominator. b = c = 1 gives C itself; lag and lead-lag (no parallel form) only allow that.
+TransferFunction reference_path(const Controller& c, double setpoint_weight, double derivative_weight);
+
+/// Writes C(s) for the series parameters and action (±1) into `num`/`den` without building the
+/// rest (hot path).
+void controller_polynomials(Structure s, const double* series, double derivative_filter, double action,
+                            std::vector<double>& num, std::vector<double>& den);
+
+/// The lower bound on the PID zero damping ζc that keeps Tf real: 1/√(N + 1).
+double pid_min_zero_damping(double derivative_filter);
+
+}  // namespace specloop

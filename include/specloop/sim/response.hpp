@@ -1,0 +1,143 @@
+// Exact step simulation of a stable linear loop by zero-order-hold discretization, and the
+// step-response metrics (definitions in README.md, "Metric definitions").
+#pragma once
+
+#include <Eigen/Dense>
+#include <cstddef>
+#include <cstdint>
+#include <optional>
+#include <string_view>
+#include <vector>
+
+#include "specloop/core/lti.hpp"
+
+namespace specloop {
+
+/// Two humps of the step response whose heights differ by less than this fraction of |y∞| (0.01
+/// percentage points of overshoot) are one peak for the peak time, which reads the later of them
+/// (README, "Metric definitions"): an optimum that parks two humps at equal height must not move
+/// its peak time by the distance between them under a 1e-6 change of the plant, which moves the
+/// heights by about 1e-6 of |y∞| (times the loop's sensitivity), and 1e-4 leaves two orders of
+/// magnitude for that; it is far below anything a plot shows as a different peak.
+inline constexpr double kPeakTieFraction = 1e-4;
+
+/// Step-response metrics. Times in s; output and effort in the loop's own units.
+struct StepMetrics {
+  double final_value = 0.0;              // y∞ from the closed loop's DC gain
+  double overshoot_pct = 0.0;            // (y_max − y∞)/|y∞|·100, 0 when y never exceeds y∞
+  std::optional<double> peak_time_s;     // time of the LATEST local maximum of y within
+                                         // kPeakTieFraction·|y∞| of y_max (README, "Metric
+                                         // definitions"); empty when there is no overshoot
+  std::optional<double> next_peak_time_s;  // the highest local maximum after peak_time_s (above
+  double next_peak_gap_pct = 0.0;          // y∞) and how far below y_max it is, in % of |y∞|:
+                                           // what the search's margin reads (effective_peak_time)
+  double undershoot_pct = 0.0;           // initial wrong-way excursion: max(0, −min y/y∞)·100
+  std::optional<double> settling_time_s; // last exit from the ±band around y∞ (= the final entry
+                                         // into the band); empty: not settled
+  std::optional<double> rise_time_s;     // first reach of 90 % minus first reach of 10 % of y∞
+  std::optional<double> band_entry_time_s;  // first time y comes within the settling band
+  double post_peak_dip_pct = 0.0;        // deepest fall below y∞ after the peak, (y∞ − y)/|y∞|·100;
+                                         // 0 when there is no peak or no such fall
+  double steady_state_error = 0.0;       // (r − y∞)/r, exact (final-value theorem)
+  double effort_peak = 0.0;              // max |u(t)| over the horizon, including t = 0+
+  std::optional<double> command_peak;    // nonlinear loop: max |u_c(t)|, the controller's output before
+                                         // the actuator's limits (the applied u is effort_peak); empty
+                                         // on the linear loop, where the two are one signal
+  double iae = 0.0;                      // ∫|e| dt, e = y∞ − y (see README)
+  double ise = 0.0;                      // ∫e² dt
+  double itae = 0.0;                     // ∫t·|e| dt
+};
+
+enum class StepStatus {
+  ok,
+  unstable,           // a closed-loop pole on or right of the imaginary axis
+  zero_final_value,   // y∞ = 0: relative metrics are undefined
+  numerical_failure,  // a non-finite number appeared (reported, never written as NaN)
+};
+std::string_view status_name(StepStatus s);
+
+/// How the time grid is chosen from the closed-loop poles (README, "Time grid").
+struct TimeGridRules {
+  double decay_fraction = 1e-4;   // horizon T = ln(1/decay_fraction)/σ_slow (slowest mode decayed)
+  int min_samples = 2000;         // samples on [0, T] at least (t = 0 included)
+  int max_samples = 20000;        // cap; with it the resolution rule below may loosen
+  double max_step_pole_product = 0.5;  // h·|p| <= this for every pole still alive, within the cap
+                                       // (0.5: the integrals' corrected trapezoid errs by about
+                                       // (2h|p|)⁴/720 for ISE, whose integrand rings at 2|p|)
+};
+
+/// Two uniform segments: a fine step while fast modes are alive, then a coarse one. A single
+/// segment has coarse_intervals = 0.
+struct TimeGrid {
+  double step_s = 0.0;          // fine step h₁
+  int fine_intervals = 0;       // [0, T₁], T₁ = h₁·fine_intervals
+  double coarse_step_s = 0.0;   // h₂
+  int coarse_intervals = 0;     // [T₁, T]
+  int samples = 0;              // fine_intervals + coarse_intervals + 1 (t = 0 included)
+  double horizon_s() const { return step_s * fine_intervals + coarse_step_s * coarse_intervals; }
+};
+
+/// Chooses h and the number of samples from stable closed-loop poles.
+TimeGrid choose_time_grid(const std::vector<Complex>& poles, const TimeGridRules& rules);
+
+/// Sampled responses kept only when asked for (plots, tests).
+struct StepTrace {
+  std::vector<double> time_s, output, effort;
+};
+
+/// Exact step simulation with a reusable workspace: after the first call for a given state
+/// count and sample count, `simulate` allocates nothing (the optimizer's hot path).
+class StepSimulator {
+ public:
+  explicit StepSimulator(TimeGridRules rules = {});
+
+  /// Simulates the closed loop `loop` (outputs: row 0 = y, row 1 = u, as from close_loop)
+  /// for a step of `amplitude`, measuring with a settling band of `band_fraction` (0.02 = 2 %).
+  /// `trace`, when given, receives the sampled y and u.
+  StepStatus simulate(const StateSpace& loop, double amplitude, double band_fraction,
+                      StepMetrics& metrics, StepTrace* trace = nullptr);
+
+  /// The closed-loop poles (eigenvalues of A) found by the last call.
+  const std::vector<Complex>& poles() const { return poles_; }
+  /// The grid used by the last successful call.
+  const TimeGrid& grid() const { return grid_; }
+
+ private:
+  void prepare(int states, int samples);
+  void discretize(const StateSpace& loop, double amplitude, double step, Eigen::MatrixXd& phi, Eigen::VectorXd& gamma);
+  // Fills outputs_ and out_const_: the rows giving y, y', u, u' from the state.
+  void output_rows(const StateSpace& loop, double amplitude);
+  void recur(int states, int first, int count);
+  // Fills poles_ with the eigenvalues of a; false when the solver fails.
+  bool eigenvalues(const Eigen::MatrixXd& a);
+  // Exact slope of output row 1 (y') or 3 (u') at sample k, from the stored state.
+  double slope(int row, int k) const;
+  // The stored state of sample k (z = T·x for up to 8 states, see response.cpp) and its stride.
+  const double* stored_state(int k, std::ptrdiff_t& stride) const;
+
+  TimeGridRules rules_;
+  TimeGrid grid_;
+  std::vector<Complex> poles_;
+  // Workspace (sized on demand, then reused).
+  int states_ = -1;
+  Eigen::EigenSolver<Eigen::MatrixXd> eigen_;
+  Eigen::PartialPivLU<Eigen::MatrixXd> lu_state_;
+  Eigen::PartialPivLU<Eigen::MatrixXd> lu_pade_;
+  Eigen::MatrixXd augmented_, power2_, power4_, power6_, even_, odd_, numer_, denom_;
+  Eigen::MatrixXd phi_, outputs_;  // Φ and [C_y; C_y·A; C_u; C_u·A]
+  Eigen::VectorXd gamma_, out_const_, x_, x_next_, solve_;
+  std::vector<double> y_, u_;  // sampled output and effort (times follow from grid_)
+  std::vector<double> states_store_;  // x at every sample, for slopes on demand
+  // One bit per sample, 64 to a word: e = y∞ − y < 0; |y/y∞ − 1| > band; y[k+1] < y[k].
+  std::vector<std::uint64_t> below_bits_, outside_bits_, falling_bits_;
+};
+
+namespace detail {
+/// The simulator's inner loops have wider (AVX) variants chosen at run time when the processor has
+/// AVX; they give the same bits as the portable (SSE2) ones. Tests force the portable ones to
+/// compare both on this machine. Not thread-safe to change while simulations run.
+void use_portable_kernels(bool portable);
+bool wide_kernels_available();  // compiled in and supported by this processor
+}  // namespace detail
+
+}  // namespace specloop

@@ -1,0 +1,211 @@
+// Compensator structures and their conversions between parameterizations.
+#include "specloop/core/compensator.hpp"
+
+#include <cmath>
+#include <stdexcept>
+
+namespace specloop {
+
+const std::vector<ParameterInfo>& structure_parameters(Structure s) {
+  static const std::vector<ParameterInfo> p{{"gain", "controller units", "proportional gain K"}};
+  static const std::vector<ParameterInfo> pi{{"gain", "controller units", "proportional gain K"},
+                                             {"integral_zero", "rad/s", "PI zero z = Ki/Kp = 1/Ti"}};
+  static const std::vector<ParameterInfo> pd{{"gain", "controller units", "proportional gain K"},
+                                             {"zero", "rad/s", "PD zero; the filter pole sits at (N+1)·z"}};
+  static const std::vector<ParameterInfo> pid{
+      {"gain", "controller units", "proportional gain Kp"},
+      {"zero_frequency", "rad/s", "ω0: the PID zeros are the roots of s² + 2ζc·ω0·s + ω0²"},
+      {"zero_damping", "", "ζc: ≥ 1 two real zeros, below 1 a complex pair"}};
+  static const std::vector<ParameterInfo> lead{{"gain", "controller units", "DC gain K"},
+                                               {"zero", "rad/s", "lead zero z"},
+                                               {"ratio", "", "α = pole/zero > 1"}};
+  static const std::vector<ParameterInfo> lag{{"gain", "controller units", "high-frequency gain K"},
+                                              {"zero", "rad/s", "lag zero z"},
+                                              {"ratio", "", "β = zero/pole > 1 (DC gain boost)"}};
+  static const std::vector<ParameterInfo> lead_lag{{"gain", "controller units", "lead DC gain × lag high-frequency gain"},
+                                                   {"zero", "rad/s", "lead zero"},
+                                                   {"ratio", "", "lead pole/zero > 1"},
+                                                   {"lag_zero", "rad/s", "lag zero"},
+                                                   {"lag_ratio", "", "lag zero/pole > 1"}};
+  switch (s) {
+    case Structure::p: return p;
+    case Structure::pi: return pi;
+    case Structure::pd: return pd;
+    case Structure::pid: return pid;
+    case Structure::lead: return lead;
+    case Structure::lag: return lag;
+    case Structure::lead_lag: return lead_lag;
+  }
+  throw std::logic_error("structure_parameters: unknown structure");
+}
+
+double pid_min_zero_damping(double derivative_filter) { return 1.0 / std::sqrt(derivative_filter + 1.0); }
+
+namespace {
+
+// PID filter time constant from ω0, ζc and N: the smaller root of
+// (N+1)·ω0²·Tf² − 2(N+1)·ζc·ω0·Tf + 1 = 0 (matching Kc·(s² + 2ζcω0 s + ω0²)/(s(Tf s + 1)) with
+// Kp + Ki/s + Kd·s/(Tf s + 1) under Tf = Kd/(N·Kp)).
+double pid_filter_time(double w0, double zc, double n) {
+  const double a = (n + 1.0) * w0 * w0;
+  const double b = 2.0 * (n + 1.0) * zc * w0;
+  const double disc = std::max(0.0, b * b - 4.0 * a);
+  return 2.0 / (b + std::sqrt(disc));  // = (b − √disc)/(2a), computed without cancellation
+}
+
+void set(std::vector<double>& v, std::initializer_list<double> values) { v.assign(values); }
+
+void direct_action_polynomials(Structure s, const double* x, double n, std::vector<double>& num,
+                               std::vector<double>& den);
+
+}  // namespace
+
+void controller_polynomials(Structure s, const double* x, double n, double action, std::vector<double>& num,
+                            std::vector<double>& den) {
+  direct_action_polynomials(s, x, n, num, den);
+  if (action < 0.0)
+    for (double& c : num) c = -c;
+}
+
+namespace {
+
+void direct_action_polynomials(Structure s, const double* x, double n, std::vector<double>& num,
+                               std::vector<double>& den) {
+  switch (s) {
+    case Structure::p:
+      set(num, {x[0]});
+      set(den, {1.0});
+      return;
+    case Structure::pi:  // K(s + z)/s
+      set(num, {x[0], x[0] * x[1]});
+      set(den, {1.0, 0.0});
+      return;
+    case Structure::pd: {  // K(s/z + 1)/(s/((N+1)z) + 1)
+      const double z = x[1], p = (n + 1.0) * z;
+      set(num, {x[0] / z, x[0]});
+      set(den, {1.0 / p, 1.0});
+      return;
+    }
+    case Structure::pid: {
+      const double kp = x[0], w0 = x[1], zc = x[2];
+      const double tf = pid_filter_time(w0, zc, n);
+      const double kc = kp * (n + 1.0) * tf;
+      set(num, {kc, kc * 2.0 * zc * w0, kc * w0 * w0});
+      set(den, {tf, 1.0, 0.0});
+      return;
+    }
+    case Structure::lead: {  // K(s/z + 1)/(s/(αz) + 1)
+      const double z = x[1], p = x[2] * z;
+      set(num, {x[0] / z, x[0]});
+      set(den, {1.0 / p, 1.0});
+      return;
+    }
+    case Structure::lag:  // K(s + z)/(s + z/β)
+      set(num, {x[0], x[0] * x[1]});
+      set(den, {1.0, x[1] / x[2]});
+      return;
+    case Structure::lead_lag: {
+      const double z = x[1], p = x[2] * z, zg = x[3], pg = x[3] / x[4];
+      // K·(s/z + 1)(s + zg) / ((s/p + 1)(s + pg))
+      set(num, {x[0] / z, x[0] * (1.0 + zg / z), x[0] * zg});
+      set(den, {1.0 / p, 1.0 + pg / p, pg});
+      return;
+    }
+  }
+  throw std::logic_error("controller_polynomials: unknown structure");
+}
+
+}  // namespace
+
+Controller make_controller(Structure s, const std::vector<double>& series, double n, double action) {
+  if (action != 1.0 && action != -1.0) throw std::invalid_argument("the controller's action must be +1 or -1");
+  const auto& info = structure_parameters(s);
+  if (series.size() != info.size())
+    throw std::invalid_argument("structure '" + std::string(structure_name(s)) + "' takes " +
+                                std::to_string(info.size()) + " parameters, got " + std::to_string(series.size()));
+  for (std::size_t i = 0; i < series.size(); ++i)
+    if (!(series[i] > 0.0) || !std::isfinite(series[i]))
+      throw std::invalid_argument("controller parameter '" + info[i].name + "' must be positive and finite");
+  if ((s == Structure::pd || s == Structure::pid) && !(n > 0.0))
+    throw std::invalid_argument("derivative filter N must be positive");
+  if ((s == Structure::lead || s == Structure::lag || s == Structure::lead_lag) && !(series[2] > 1.0))
+    throw std::invalid_argument("the ratio of a lead or lag must exceed 1");
+  if (s == Structure::lead_lag && !(series[4] > 1.0)) throw std::invalid_argument("lag_ratio must exceed 1");
+  if (s == Structure::pid && series[2] < pid_min_zero_damping(n) * (1.0 - 1e-12))
+    throw std::invalid_argument("zero_damping below 1/√(N+1) has no real derivative filter");
+
+  Controller c;
+  c.structure = s;
+  c.series = series;
+  c.derivative_filter = n;
+  c.action = action;
+  std::vector<double> num, den;
+  controller_polynomials(s, series.data(), n, action, num, den);
+  c.transfer = TransferFunction(Polynomial(num), Polynomial(den));
+
+  // Every gain carries the action; time constants and ratios do not.
+  const double k = action * series[0];
+  const double inf = std::numeric_limits<double>::infinity();
+  switch (s) {
+    case Structure::p:
+      c.parallel = ParallelGains{k, 0.0, 0.0, 0.0};
+      c.standard = StandardForm{k, inf, 0.0, 0.0, false, false};
+      break;
+    case Structure::pi:
+      c.parallel = ParallelGains{k, k * series[1], 0.0, 0.0};
+      c.standard = StandardForm{k, 1.0 / series[1], 0.0, 0.0, true, false};
+      break;
+    case Structure::pd:
+    case Structure::lead: {
+      // K(s/z + 1)/(s/p + 1) = Kp + Kd·s/(Tf s + 1) with Kp = K, Tf = 1/p, Kd = K(1/z − 1/p).
+      const double z = series[1];
+      const double p = s == Structure::pd ? (n + 1.0) * z : series[2] * z;
+      const double tf = 1.0 / p, kd = k * (1.0 / z - 1.0 / p);
+      c.parallel = ParallelGains{k, 0.0, kd, tf};
+      c.standard = StandardForm{k, inf, kd / k, (kd / k) / tf, false, true};
+      break;
+    }
+    case Structure::pid: {
+      const double w0 = series[1], zc = series[2];
+      const double tf = pid_filter_time(w0, zc, n);
+      const double kc = k * (n + 1.0) * tf;
+      const double ki = kc * w0 * w0, kd = n * k * tf;
+      c.parallel = ParallelGains{k, ki, kd, tf};
+      c.standard = StandardForm{k, k / ki, kd / k, n, true, true};
+      break;
+    }
+    case Structure::lag:
+    case Structure::lead_lag:
+      break;  // a pole away from the origin: no PID equivalent
+  }
+  return c;
+}
+
+}  // namespace specloop
+
+namespace specloop {
+
+std::vector<double> signed_series(const Controller& c) {
+  std::vector<double> out = c.series;
+  if (!out.empty()) out.front() *= c.action;
+  return out;
+}
+
+TransferFunction reference_path(const Controller& c, double b, double cw) {
+  if (b == 1.0 && cw == 1.0) return c.transfer;
+  if (!c.parallel) throw std::invalid_argument("set-point weights need a parallel form; this structure has none");
+  const ParallelGains& g = *c.parallel;
+  // Over the common denominator s^i·(Tf·s + 1)^d (i: integral present, d: derivative present).
+  const bool integral = g.ki != 0.0, derivative = g.kd != 0.0;
+  Polynomial den({1.0});
+  if (integral) den = den * Polynomial({1.0, 0.0});
+  if (derivative) den = den * Polynomial({g.filter_time, 1.0});
+  Polynomial num = (g.kp * b) * den;
+  if (integral) num = num + g.ki * (derivative ? Polynomial({g.filter_time, 1.0}) : Polynomial({1.0}));
+  if (derivative) num = num + (g.kd * cw) * (integral ? Polynomial({1.0, 0.0, 0.0}) : Polynomial({1.0, 0.0}));
+  // Express over C's own denominator (same roots, possibly another scaling).
+  const double scale = c.transfer.denominator.leading() / den.leading();
+  return {scale * num, scale * den};
+}
+
+}  // namespace specloop

@@ -1,0 +1,344 @@
+// The `design` pipeline: every design of a spec, measured the same way.
+#include <algorithm>
+#include <cmath>
+#include <fmt/format.h>
+#include <optional>
+
+#include "specloop/design/design.hpp"
+#include "specloop/sim/sampled_loop.hpp"
+
+#include <boost/math/tools/roots.hpp>
+
+namespace specloop {
+
+const Design* DesignRun::find(std::string_view name) const {
+  for (const Design& d : designs)
+    if (d.name == name) return &d;
+  return nullptr;
+}
+
+SearchOptions search_options(const Spec& spec) {
+  SearchOptions o;
+  o.objective = spec.search.objective;
+  o.seed = spec.search.seed;
+  o.max_evaluations = spec.search.max_evaluations;
+  o.max_time_s = spec.search.max_time_s;
+  // The nonlinear stage gets a tenth of the linear budget, between 40 and 400 evaluations.
+  o.nonlinear_evaluations = std::clamp(spec.search.max_evaluations / 10, 40, 400);
+  return o;
+}
+
+namespace {
+
+// Geometric middle of the bounds: the seed when no hand design exists.
+std::vector<double> middle_of_bounds(const Problem& p) {
+  std::vector<double> x;
+  for (const auto& [lo, hi] : p.bounds) x.push_back(std::sqrt(lo * hi));
+  return x;
+}
+
+// The power of s that the closed loop's characteristic polynomial Dc·D + Nc·N lacks for every
+// choice of the structure's parameters, if any. Dc and Nc have positive coefficients wherever
+// they are nonzero, so a term is missing for all parameters exactly when it is missing at one
+// generic point (the geometric middle of the bounds, nudged off round numbers).
+std::optional<int> structurally_missing_power(const Problem& problem) {
+  std::vector<double> x;
+  for (const auto& [lo, hi] : problem.bounds) x.push_back(std::sqrt(lo * hi) * 1.0123456789);
+  Controller c;
+  try {
+    c = make_controller(problem.spec.controller.structure, x, problem.spec.controller.derivative_filter, 1.0);
+  } catch (const std::invalid_argument&) {
+    return std::nullopt;
+  }
+  const TransferFunction& g = problem.normalized_plant;
+  const Polynomial p = c.transfer.denominator * g.denominator + c.transfer.numerator * g.numerator;
+  const int n = p.degree();
+  for (int i = 0; i <= n; ++i)
+    if (p.coefficients[static_cast<std::size_t>(i)] == 0.0) return n - i;
+  return std::nullopt;
+}
+
+// Every missed check, and the one missed by the most (normalized) as the binding requirement.
+Infeasibility collect_misses(const std::vector<RequirementCheck>& checks) {
+  Infeasibility info;
+  double worst = -1.0;
+  for (const RequirementCheck& c : checks) {
+    if (c.met) continue;
+    info.misses.push_back(c);
+    if (c.violation > worst) {
+      worst = c.violation;
+      info.binding = c.requirement.key;
+    }
+  }
+  return info;
+}
+
+Infeasibility analyze_misses(const Problem& problem, const Design& best, const SearchResult& first,
+                             const SearchOptions& options) {
+  Infeasibility info = collect_misses(best.checks);
+  if (info.binding.empty() || best.status != StepStatus::ok) {
+    // Unstable: every requirement "missed" says nothing; stability is what binds.
+    info.binding = "stability";
+    const auto missing = structurally_missing_power(problem);
+    info.nearest_text =
+        missing ? fmt::format("no {} controller can stabilize this plant: the closed loop's characteristic polynomial "
+                              "has no s^{} term whatever the gains, and a polynomial with a missing term is never "
+                              "Hurwitz (Stodola's necessary condition); another structure is needed",
+                              structure_name(problem.spec.controller.structure), *missing)
+                : "no stable design was found within the search bounds";
+    return info;
+  }
+  // How far can the binding requirement go with the others met? Search again on it alone.
+  Problem relaxed = problem;
+  std::optional<Requirement> binding;
+  relaxed.requirements.clear();
+  for (const Requirement& r : problem.requirements) {
+    if (r.key == info.binding) binding = r;
+    else relaxed.requirements.push_back(r);
+  }
+  SearchOptions o = options;
+  o.objective_requirement = binding;
+  const SearchResult nearest = optimize(relaxed, first.controller.series, o);
+  const Design d = measure_design(relaxed, "nearest", nearest.controller);
+  const auto value = d.status == StepStatus::ok
+                         ? requirement_value(*binding, d.simulated, d.margins, problem.reference_peak_time_s,
+                                             problem.band_fraction * 100.0)
+                         : std::nullopt;
+  if (d.meets_all && value) {
+    info.nearest_value = *value;
+    info.nearest_text = fmt::format("with every other requirement met, the best {} reachable is {:.4g}{} (limit {:.4g}{})",
+                                    binding->key, *value, binding->unit.empty() ? "" : " " + binding->unit,
+                                    binding->limit, binding->unit.empty() ? "" : " " + binding->unit);
+  } else {
+    info.nearest_text = "the other requirements cannot be met together either, even with " + info.binding + " dropped";
+  }
+  return info;
+}
+
+// The reference P gain of a sampled controller. analyze's gain puts the continuous loop's overshoot
+// at the limit, but every design of a sampled spec is measured (and judged) on the sampled loop,
+// where the hold's lag adds overshoot; so the reference is aimed again there: the gain is stepped
+// geometrically from analyze's (down while the sampled overshoot is above the aim, up while below)
+// until the aim is bracketed, then TOMS 748 (Boost). The aim is `aim_pct` (the limit a hair
+// below, as analyze aims). nullopt when no bracket is found within a factor of 1e3 (the
+// continuous gain is then kept, and a note says so).
+std::optional<double> sampled_reference_gain(const Problem& problem, double k0, double n, double aim_pct) {
+  const ControllerSpec& cs = problem.spec.controller;
+  SampledStepSimulator sim;
+  auto excess = [&](double k) -> std::optional<double> {
+    const Controller c = make_controller(Structure::p, {k}, n, problem.action);
+    const DifferenceEquation eq =
+        controller_difference_equation(c, cs.sample_time_s, cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0);
+    StepMetrics m;
+    if (sim.simulate(problem.plant_realization, eq, problem.spec.reference.amplitude, problem.band_fraction, m) !=
+        StepStatus::ok)
+      return std::nullopt;  // unstable: beyond every gain of interest
+    return m.overshoot_pct - aim_pct;
+  };
+  constexpr int kSteps = 140;  // 1.05^140 ≈ 930
+  double k = k0;
+  std::optional<double> fk = excess(k);
+  for (int i = 0; i < kSteps && !fk; ++i) fk = excess(k /= 1.05);  // unstable there: come down first
+  if (!fk) return std::nullopt;
+  double lo = k, hi = k, flo = *fk, fhi = *fk;
+  const double step = *fk >= 0.0 ? 1.0 / 1.05 : 1.05;
+  bool bracketed = false;
+  for (int i = 0; i < kSteps && !bracketed; ++i) {
+    const double k2 = k * step;
+    const auto f2 = excess(k2);
+    if (!f2) return std::nullopt;  // unstable before the aim is reached
+    if (step > 1.0) {
+      lo = k, flo = *fk, hi = k2, fhi = *f2;
+      bracketed = *f2 >= 0.0;
+    } else {
+      hi = k, fhi = *fk, lo = k2, flo = *f2;
+      bracketed = *f2 < 0.0;
+    }
+    k = k2, fk = f2;
+  }
+  if (!bracketed) return std::nullopt;
+  boost::uintmax_t iterations = 100;
+  const auto f = [&](double kk) { return excess(kk).value_or(1e9); };
+  const auto [a, b] = boost::math::tools::toms748_solve(f, lo, hi, flo, fhi, boost::math::tools::eps_tolerance<double>(40),
+                                                       iterations);
+  return f(a) <= 0.0 ? a : b;  // the end at or below the aim: the reference's own check holds
+}
+
+}  // namespace
+
+DesignRun run_design(const Spec& spec) {
+  if (!spec.requirements.overshoot_max_pct)
+    throw SpecError(spec.path + ": requirements.overshoot_max_pct: required by 'design' (the reference gain and the "
+                                "classical design's ζ come from it)");
+  DesignRun run;
+  run.characterization = characterize(spec);
+  run.problem = make_problem(spec, run.characterization);
+  const Problem& problem = run.problem;
+  if (spec.requirements.peak_time_ratio && !problem.reference_peak_time_s)
+    throw SpecError(spec.path + ": requirements.peak_time_ratio: no reference peak time exists for this plant (" +
+                    run.characterization.reference_note + "); use peak_time_max instead");
+  const Structure structure = spec.controller.structure;
+  const double n = spec.controller.derivative_filter;
+
+  if (run.characterization.reference) {
+    double k_ref = run.characterization.reference->gain;
+    std::string aimed = "P gain whose simulated overshoot equals the limit (from analyze)";
+    if (problem.sampled) {
+      // Aimed on the loop it is measured on: the sampled one (analyze knows only the continuous).
+      if (const auto k = sampled_reference_gain(problem, k_ref, n, *spec.requirements.overshoot_max_pct - 1e-4)) {
+        aimed = fmt::format("P gain whose overshoot on the sampled loop equals the limit (analyze's {:.4g} puts the "
+                            "continuous loop's there)", problem.action * k_ref);
+        k_ref = *k;
+      } else {
+        aimed += "; no gain near it puts the sampled loop's overshoot at the limit: analyze's gain is kept";
+      }
+    }
+    Design ref = measure_design(problem, "reference", make_controller(Structure::p, {k_ref}, n, problem.action));
+    ref.notes.push_back(aimed);
+    // peak_time_ratio reads the reference's peak time on the loop every design is measured on
+    if (problem.sampled && ref.status == StepStatus::ok) run.problem.reference_peak_time_s = ref.simulated.peak_time_s;
+    if (!run.characterization.reference_note.empty()) ref.notes.push_back(run.characterization.reference_note);
+    run.designs.push_back(std::move(ref));
+  }
+
+  std::optional<Controller> classical;
+  std::vector<std::string>& classical_notes = run.classical.notes;
+  run.target = desired_pole(problem, run.characterization);
+  if (run.target) {
+    classical_notes.push_back(fmt::format("target dominant pole {:.4g} ± j{:.4g} ({})", run.target->pole.real(),
+                                          run.target->pole.imag(), run.target->derivation));
+    const double zeta = -run.target->pole.real() / std::abs(run.target->pole);
+    // The hand rules work on the plant with direct action; the controller then takes the action.
+    classical = classical_controller(problem.normalized_plant, structure, n, run.target->pole, zeta,
+                                     spec.requirements.steady_state_error_max, classical_notes,
+                                     &run.classical.failed_step);
+    if (classical) {
+      classical = make_controller(structure, classical->series, n, problem.action);
+      Design d = measure_design(problem, "classical", *classical);
+      d.notes = classical_notes;
+      run.designs.push_back(std::move(d));
+      run.classical.designed = true;
+    } else {
+      run.classical.reason = classical_notes.back();
+    }
+  } else {
+    run.classical.failed_step = "target pole";
+    run.classical.reason = "no time requirement to set its speed and no usable ζ-line crossing of the P-only locus (" +
+                           run.characterization.dominant_reason + ")";
+    classical_notes.push_back(run.classical.reason);
+  }
+
+  std::optional<Controller> baseline;
+  run.ultimate = ultimate_point(problem.normalized_plant);
+  if (run.ultimate) {
+    if (const auto form = ziegler_nichols(structure, *run.ultimate, n)) {
+      if (const auto series = series_from_standard(structure, *form)) {
+        baseline = make_controller(structure, *series, n, problem.action);
+        Design d = measure_design(problem, "ultimate_gain", *baseline);
+        d.notes.push_back(fmt::format("Ziegler–Nichols closed-loop rules from Ku = {:.4g}, Tu = {:.4g} s",
+                                      problem.action * run.ultimate->gain, run.ultimate->period_s));
+        run.designs.push_back(std::move(d));
+      }
+    }
+  }
+
+  // Seed: the classical design, else the ultimate-gain baseline, else the middle of the bounds.
+  std::vector<double> seed = classical ? classical->series : baseline ? baseline->series : middle_of_bounds(problem);
+  const SearchOptions options = search_options(spec);
+  SearchResult result = optimize(problem, seed, options);
+  Design best = measure_design(problem, "optimized", result.controller);
+
+  // Which loop the search ends on, and which loop judges: the effects the linear loop leaves out
+  // that act for the linear optimum, measured on its confirmation run.
+  const SimulateMode mode = spec.search.simulate;
+  const std::vector<std::string> active = best.nonlinear ? best.nonlinear->active_effects : std::vector<std::string>{};
+  result.summary.active_effects = active;
+  const bool stage = mode == SimulateMode::nonlinear || (mode == SimulateMode::automatic && !active.empty());
+  if (stage) {
+    std::vector<std::vector<double>> hand;
+    if (classical) hand.push_back(classical->series);
+    if (baseline) hand.push_back(baseline->series);
+    const SearchResult refined = refine_on_nonlinear_loop(problem, result, hand, options);
+    if (refined.controller.series != result.controller.series) best = measure_design(problem, "optimized", refined.controller);
+    result = refined;
+    result.summary.active_effects = active;
+  } else if (!active.empty()) {
+    result.summary.nonlinear_stage = "no nonlinear stage: search.simulate = \"linear\" (the verdict is still read on the "
+                                     "loop the spec describes)";
+  } else {
+    result.summary.nonlinear_stage = mode == SimulateMode::automatic
+                                         ? "no nonlinear stage: no effect the linear loop leaves out acts for the linear "
+                                           "optimum (the nonlinear loop is the linear one)"
+                                         : "no nonlinear stage: search.simulate = \"linear\"";
+  }
+  run.search = result.summary;
+  best.notes.push_back(fmt::format("seeded by the {} design", classical ? "classical" : baseline ? "ultimate-gain" : "mid-bounds"));
+  if (stage) best.notes.push_back(result.summary.nonlinear_stage);
+  for (std::string& w : fragility_warnings(problem, best, true))
+    if (std::find(best.warnings.begin(), best.warnings.end(), w) == best.warnings.end()) best.warnings.push_back(std::move(w));
+
+  run.judged_on_nonlinear = stage || !active.empty();
+  run.met_on_linear = best.meets_all;
+  if (run.judged_on_nonlinear && best.nonlinear && best.nonlinear->meets_all && !best.meets_all) {
+    // Met for the spec's step on the loop it describes, but not for steps small enough that
+    // nothing saturates: true, and worth saying.
+    std::vector<std::string> misses;
+    for (const RequirementCheck& c : best.checks)
+      if (!c.met)
+        misses.push_back(fmt::format("{} {}", c.requirement.key,
+                                     c.value ? fmt::format("{:.4g}{}", *c.value, c.requirement.unit.empty() ? "" : " " + c.requirement.unit)
+                                             : std::string("none")));
+    best.warnings.push_back(fmt::format(
+        "on the linear loop — a step small enough that nothing saturates — this design misses {}: it meets the "
+        "requirements for the spec's step of {:.4g} only with the effects of the loop it describes (limits, …) acting",
+        fmt::join(misses, ", "), spec.reference.amplitude));
+  }
+  if (run.judged_on_nonlinear) {
+    // Judged on the loop the spec describes. Misses are that loop's; no second search.
+    run.met = best.nonlinear && best.nonlinear->status == NonlinearStatus::ok && best.nonlinear->meets_all;
+    if (!run.met) {
+      Infeasibility info = collect_misses(best.nonlinear ? best.nonlinear->checks : std::vector<RequirementCheck>{});
+      if (info.binding.empty()) info.binding = "the nonlinear simulation";
+      info.nearest_text = fmt::format(
+          "judged on the nonlinear loop ({}){}; the best reachable value is not searched there",
+          active.empty() ? std::string("search.simulate = \"nonlinear\"")
+                         : fmt::format("active: {}", fmt::join(active, ", ")),
+          best.meets_all ? "; the linear loop alone meets every requirement (a linear-only pass, which does not count)" : "");
+      run.infeasibility = info;
+    }
+  } else {
+    // "Met" needs the search's own evaluation of its best point and the re-measurement of the
+    // controller to agree: a best point the search rated unstable or infeasible is never met, even
+    // if the re-measurement (another realization of the same loop) passes.
+    run.met = best.meets_all && result.summary.feasible;
+    if (best.meets_all && !result.summary.feasible) {
+      Infeasibility info;
+      info.binding = "search";
+      info.nearest_text = fmt::format(
+          "the search rated its best point {}, but the re-measured controller meets every requirement: the two "
+          "evaluations of one loop disagree, which happens only at the edge of what the numerics resolve, so the "
+          "design is not claimed as met",
+          result.summary.best_violation > 0.0 ? "infeasible" : "unstable");
+      best.notes.push_back(info.nearest_text);
+      run.infeasibility = info;
+    } else if (!best.meets_all) {
+      run.infeasibility = analyze_misses(problem, best, result, options);
+    }
+  }
+  // A final value far from r with no requirement saying how far it may be: say so.
+  if (best.status == StepStatus::ok && !spec.requirements.steady_state_error_max &&
+      std::abs(best.simulated.steady_state_error) > problem.band_fraction) {
+    const std::string w = fmt::format(
+        "the optimized design's final value {:.4g} is {:.3g} % away from the reference {:.4g} (outside the ±{:.3g} % "
+        "settling band around it), and no requirement limits the steady-state error: add steady_state_error_max, or a "
+        "structure with integral action, if the output must follow the reference",
+        best.simulated.final_value, 100.0 * std::abs(best.simulated.steady_state_error), spec.reference.amplitude,
+        100.0 * problem.band_fraction);
+    best.notes.push_back("warning: " + w);
+    run.warnings.push_back(w);
+  }
+  run.designs.push_back(std::move(best));
+  return run;
+}
+
+}  // namespace specloop
