@@ -7,6 +7,11 @@ Inputs: every spec in specs/, tests/claims/ and tests/unusual_plants/ (`design`,
 committed example sweep (re-run with the axes of tests/tools/refresh_examples.py; every point's
 stored design summaries and checks), and `sweep-report`'s points.csv and front.csv of both stores.
 
+The search's wall-time cap (`search.max_time`, 20 s by default) binds on a loaded machine and then
+ends two runs of the same binary at different evaluation counts; so each spec is run from a copy with
+`search.max_time = 86400` (both binaries read the same copy). --keep-time-limit runs the files as
+they are.
+
 Usage: tests/tools/compare_outputs.py --before OLD/specloop --after build/specloop [--jobs 2]
 Exit 0 when everything matches; 1 with the differences listed.
 """
@@ -53,6 +58,24 @@ def diff(a, b, path="", out=None, limit=20):
     elif a != b:
         out.append(f"{path}: {a!r} vs {b!r}")
     return out
+
+
+def without_time_limit(spec, folder):
+    """A copy of `spec` in `folder` whose search has no practical wall-time cap."""
+    import re
+    import tomllib
+    text = spec.read_text()
+    search = tomllib.loads(text).get("search", {})
+    line = "max_time = 86400.0"
+    if "max_time" in search:
+        text = re.sub(r"(?m)^\s*max_time\s*=.*$", line, text, count=1)
+    elif re.search(r"(?m)^\[search\]\s*(#.*)?$", text):
+        text = re.sub(r"(?m)^\[search\]\s*(#.*)?$", lambda m: m.group(0) + "\n" + line, text, count=1)
+    else:
+        text += f"\n[search]\n{line}\n"
+    copy = folder / spec.name
+    copy.write_text(text)
+    return copy
 
 
 def design(exe, spec, out):
@@ -118,6 +141,7 @@ def main():
     ap.add_argument("--after", default=str(ROOT / "build" / "specloop"))
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--no-sweep", action="store_true")
+    ap.add_argument("--keep-time-limit", action="store_true", help="run the spec files as they are")
     args = ap.parse_args()
     before = str(pathlib.Path(args.before).resolve())
     after = str(pathlib.Path(args.after).resolve())
@@ -131,7 +155,8 @@ def main():
             i, spec = i_spec
             work = tmp / f"s{i}"
             work.mkdir()
-            return spec, compare_spec(before, after, spec, work)
+            run = spec if args.keep_time_limit else without_time_limit(spec, work)
+            return spec, compare_spec(before, after, run, work)
 
         with concurrent.futures.ThreadPoolExecutor(args.jobs) as pool:
             for spec, problems in pool.map(one, enumerate(specs)):
