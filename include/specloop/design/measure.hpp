@@ -22,7 +22,7 @@ namespace specloop {
 
 /// A design measured on the linear loop, and confirmed on the nonlinear one.
 struct Design {
-  DesignRole role = DesignRole::optimized;  // which rule made it (role_name: its name in every output)
+  DesignRole role = DesignRole::optimized;  // which rule made it (role_name: its name in every output); set by measure_design
   Controller controller;
   TransferFunction reference_path;  // C_r: u = C_r·r − C·y (equals C without set-point weights)
   StepStatus status = StepStatus::ok;

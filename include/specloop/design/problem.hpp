@@ -27,7 +27,7 @@ struct Problem {
   std::optional<double> reference_peak_time_s;  // from the characterization (P gain at the limit)
   std::vector<Requirement> requirements;
   double band_fraction = 0.02;
-  double search_margin = 0.01;                  // search.margin_pct/100: see SearchMargin below
+  double search_margin = 0.01;                  // search.margin_pct/100: see `tightened` (requirements.hpp)
   double tracking_window_s = 1.0;               // W of the tracking objectives (see tracking_objective)
   bool needs_margins = false;                   // a margin requirement or the Ms objective
   std::vector<ParameterInfo> parameters;        // of the spec's structure

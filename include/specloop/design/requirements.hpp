@@ -22,8 +22,8 @@ struct Requirement {
   bool magnitude = false;  // the bound applies to |value| (steady-state error: the value stays signed)
 };
 
-/// The requirements of a spec as a list, in a fixed order. `reference_peak_time` converts
-/// peak_time_ratio into seconds (it is required when the spec has peak_time_ratio).
+/// The requirements of a spec as a list, in a fixed order (peak_time_ratio stays a ratio:
+/// requirement_value divides by the reference peak time).
 std::vector<Requirement> requirement_list(const Requirements& r);
 
 /// A requirement checked on one design.
