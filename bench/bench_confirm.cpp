@@ -91,8 +91,8 @@ int main(int argc, char** argv) {
   if (sweep) return stepper_sweep(std::min(repeats, 20));
   const Spec spec = load_spec(spec_path);
   const DesignRun run = run_design(spec);
-  const Design* d = run.find("optimized");
-  if (!d) d = run.find("classical");
+  const Design* d = run.find(DesignRole::optimized);
+  if (!d) d = run.find(DesignRole::classical);
   if (!d) {
     fmt::print("confirm {} : no optimized or classical design\n", spec.name);
     return 1;
@@ -129,7 +129,7 @@ int main(int argc, char** argv) {
   fmt::print(
       "confirm {} design {} status {} median_ms {:.3f} p10_ms {:.3f} p90_ms {:.3f} repeats {} steps {} switches {} "
       "samples {} saturated_fraction {:.4f} horizon_s {:.6g} stepper {} explicit_steps_estimate {:.0f}{}\n",
-      spec.name, d->name, status_name(r.status), percentile(ms, 0.5), percentile(ms, 0.1), percentile(ms, 0.9), repeats,
+      spec.name, role_name(d->role), status_name(r.status), percentile(ms, 0.5), percentile(ms, 0.1), percentile(ms, 0.9), repeats,
       r.steps, r.switches, r.output.size(), r.saturated_fraction, options.horizon_s, stepper_name(r.stepper),
       r.explicit_steps_estimate, sink == 0.12345 ? " " : "");
 
@@ -140,7 +140,7 @@ int main(int argc, char** argv) {
   } else if (!dump.empty()) {
     nlohmann::json j;
     j["spec"] = spec.name;
-    j["design"] = d->name;
+    j["design"] = std::string(role_name(d->role));
     j["timed_call"] = "simulate_nonlinear as confirm_nonlinear calls it (linear part not timed)";
     j["plant"] = {{"numerator", problem.plant.numerator.coefficients},
                   {"denominator", problem.plant.denominator.coefficients},

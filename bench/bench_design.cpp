@@ -37,7 +37,7 @@ int main(int argc, char** argv) {
                s.feasible ? "yes" : "no");
     if (!compare) continue;
     const Problem& problem = run.problem;
-    const Design* classical = run.find("classical");
+    const Design* classical = run.find(DesignRole::classical);
     std::vector<double> seed;
     if (classical) seed = classical->controller.series;
     else for (const auto& [lo, hi] : problem.bounds) seed.push_back(std::sqrt(lo * hi));

@@ -22,10 +22,6 @@ MAX_FILE_LINES = 600
 MAX_FUNCTION_LINES = 150
 # path (relative to the source dir) or "path:function" → why it may be longer.
 SIZE_EXCEPTIONS = {
-    "src/design/design.cpp": "being split (issue 13)",
-    "src/design/design_run.cpp:run_design": "being split (issue 13)",
-    "src/output/report.cpp": "being split (issue 13)",
-    "src/output/report.cpp:sections": "being split (issue 13)",
     "src/sim/nonlinear.cpp": "being split (issue 13)",
     "src/sim/nonlinear.cpp:measure": "being split (issue 13)",
     "src/sim/nonlinear.cpp:simulate_nonlinear": "being split (issue 13)",

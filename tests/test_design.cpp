@@ -190,7 +190,7 @@ TEST_CASE("nonlinear confirmation: wide limits reproduce the linear loop", "[con
   const Problem p = problem_from(
       "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[actuator]\nmin = -1e6\nmax = 1e6\n"
       "[controller]\nstructure = \"pi\"\n[requirements]\novershoot_max_pct = 10.0\nsettling_time_max = 30.0\n");
-  const Design d = measure_design(p, "test", make_controller(Structure::pi, {1.2, 0.6}, 10.0));
+  const Design d = measure_and_confirm(p, DesignRole::optimized, make_controller(Structure::pi, {1.2, 0.6}, 10.0));
   REQUIRE(d.nonlinear);
   REQUIRE(d.nonlinear->status == NonlinearStatus::ok);
   CHECK(d.nonlinear->confirmed);
@@ -209,7 +209,7 @@ TEST_CASE("nonlinear confirmation: a saturating actuator with no anti-windup is 
       "[controller]\nstructure = \"pi\"\nanti_windup = \"none\"\n"
       "[requirements]\novershoot_max_pct = 10.0\n[reference]\namplitude = 1.0\n");
   // Linear: 3.8 % overshoot with a peak effort of 2.06, so the ±0.9 actuator saturates.
-  const Design d = measure_design(p, "test", make_controller(Structure::pi, {2.0, 0.8}, 10.0));
+  const Design d = measure_and_confirm(p, DesignRole::optimized, make_controller(Structure::pi, {2.0, 0.8}, 10.0));
   REQUIRE(d.checks.front().met);  // linear overshoot within the limit
   REQUIRE(d.nonlinear);
   CHECK(d.nonlinear->saturated_fraction > 0.0);
@@ -227,7 +227,7 @@ TEST_CASE("nonlinear confirmation carries the exact delay and the sampled contro
       "[requirements]\novershoot_max_pct = 10.0\nsettling_time_max = 30.0\n";
   const Problem delayed = problem_from(base + "[controller]\nstructure = \"pi\"\n");
   CHECK(delayed.plant.denominator.degree() == 2 + kDelayApproximantOrder);
-  const Design d = measure_design(delayed, "test", make_controller(Structure::pi, {1.2, 0.6}, 10.0));
+  const Design d = measure_and_confirm(delayed, DesignRole::optimized, make_controller(Structure::pi, {1.2, 0.6}, 10.0));
   REQUIRE(d.nonlinear);
   REQUIRE(d.nonlinear->status == NonlinearStatus::ok);
   CHECK_THAT(d.nonlinear->simulated.itae, WithinRel(d.simulated.itae, 1e-3));
@@ -236,7 +236,7 @@ TEST_CASE("nonlinear confirmation carries the exact delay and the sampled contro
   // The same with a digital controller at 20 ms: its difference equation is reported and the
   // loop stays close to the continuous one.
   const Problem sampled = problem_from(base + "[controller]\nstructure = \"pi\"\nsample_time = 0.02\n");
-  const Design s = measure_design(sampled, "test", make_controller(Structure::pi, {1.2, 0.6}, 10.0));
+  const Design s = measure_and_confirm(sampled, DesignRole::optimized, make_controller(Structure::pi, {1.2, 0.6}, 10.0));
   REQUIRE(s.nonlinear);
   REQUIRE(s.nonlinear->difference_equation);
   CHECK(s.nonlinear->difference_equation->sample_time_s == 0.02);
@@ -250,7 +250,7 @@ TEST_CASE("set-point weights: the linear and nonlinear loops agree, and the deri
       "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[controller]\nstructure = \"pid\"\nsetpoint_weight = 0.5\n"
       "derivative_on = \"measurement\"\n[requirements]\novershoot_max_pct = 10.0\n");
   const Controller c = make_controller(Structure::pid, {1.5, 1.2, 1.1}, 10.0);
-  const Design d = measure_design(p, "test", c);
+  const Design d = measure_and_confirm(p, DesignRole::optimized, c);
   REQUIRE(d.status == StepStatus::ok);
   {
     StepSimulator sim;
@@ -271,7 +271,7 @@ TEST_CASE("set-point weights: the linear and nonlinear loops agree, and the deri
   const Problem plain = problem_from(
       "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[controller]\nstructure = \"pid\"\n[requirements]\n"
       "overshoot_max_pct = 10.0\n");
-  const Design k = measure_design(plain, "test", c);
+  const Design k = measure_and_confirm(plain, DesignRole::optimized, c);
   CHECK_THAT(k.simulated.effort_peak, WithinRel(1.5 * 11.0, 1e-9));
   CHECK_THROWS_AS(parse_spec("[plant]\npoles = [-1.0]\n[controller]\nstructure = \"lag\"\nsetpoint_weight = 0.5\n",
                              "specs/unit.toml"), SpecError);
@@ -294,7 +294,7 @@ TEST_CASE("the search ends on the loop the spec describes when an effect acts; t
   CHECK_FALSE(linear.met);
   REQUIRE(linear.infeasibility);
   CHECK_THAT(linear.infeasibility->nearest_text, Catch::Contains("linear-only pass"));
-  const Design* l = linear.find("optimized");
+  const Design* l = linear.find(DesignRole::optimized);
   REQUIRE(l->nonlinear);
   CHECK_FALSE(l->nonlinear->confirmed);  // the linear optimum winds up
 
@@ -303,7 +303,7 @@ TEST_CASE("the search ends on the loop the spec describes when an effect acts; t
     const DesignRun refined = run_design(parse_spec(base + mode, "specs/unit.toml"));
     CHECK(refined.judged_on_nonlinear);
     CHECK(refined.search.nonlinear_evaluations > 0);
-    const Design* r = refined.find("optimized");
+    const Design* r = refined.find(DesignRole::optimized);
     REQUIRE(r->nonlinear);
     CHECK(r->nonlinear->meets_all);
     CHECK(refined.met);
@@ -318,7 +318,7 @@ TEST_CASE("a sampled spec's reference P gain is aimed on the sampled loop it is 
       "[requirements]\novershoot_max_pct = 10.0\n[search]\nmax_evaluations = 60\n",
       "specs/unit.toml");
   const DesignRun run = run_design(spec);
-  const Design* ref = run.find("reference");
+  const Design* ref = run.find(DesignRole::reference);
   REQUIRE(ref);
   REQUIRE(ref->sampled);
   REQUIRE(ref->status == StepStatus::ok);
@@ -339,7 +339,7 @@ TEST_CASE("effort_max reads the command on the nonlinear loop, not the clipped u
       "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[actuator]\nmin = -0.9\nmax = 0.9\n"
       "[controller]\nstructure = \"pi\"\n"
       "[requirements]\novershoot_max_pct = 10.0\neffort_max = 0.9\n");
-  const Design d = measure_design(p, "test", make_controller(Structure::pi, {2.0, 0.8}, 10.0));
+  const Design d = measure_and_confirm(p, DesignRole::optimized, make_controller(Structure::pi, {2.0, 0.8}, 10.0));
   REQUIRE(d.nonlinear);
   REQUIRE(d.nonlinear->status == NonlinearStatus::ok);
   const StepMetrics& m = d.nonlinear->simulated;

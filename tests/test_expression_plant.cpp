@@ -448,7 +448,7 @@ TEST_CASE("design: limits become deviations and the confirmation runs the expres
     Spec scaled = spec;
     scaled.reference.amplitude = amplitude;
     const Problem p = make_problem(scaled, characterize(scaled));
-    const Design d = measure_design(p, "probe", pi);
+    const Design d = measure_and_confirm(p, DesignRole::optimized, pi);
     REQUIRE(d.nonlinear);
     REQUIRE(d.nonlinear->status == NonlinearStatus::ok);
     return std::abs(d.nonlinear->simulated.overshoot_pct - d.simulated.overshoot_pct);
@@ -483,7 +483,7 @@ overshoot_max_pct = 10.0
 amplitude = -2.0
 )", "seeping_tank.toml");
   const Problem problem = make_problem(spec, characterize(spec));
-  const Design d = measure_design(problem, "probe", make_controller(Structure::pi, {2.5, 0.012}, 10.0));
+  const Design d = measure_and_confirm(problem, DesignRole::optimized, make_controller(Structure::pi, {2.5, 0.012}, 10.0));
   REQUIRE(d.nonlinear);
   CHECK(d.nonlinear->status == NonlinearStatus::non_finite);
   CHECK_FALSE(d.nonlinear->confirmed);

@@ -50,7 +50,7 @@ TEST_CASE("claimed designs survive a 1e-6 relative perturbation of the plant's g
     const Spec spec = load_spec(path.string());
     const DesignRun run = run_design(spec);
     if (!run.met || run.judged_on_nonlinear) continue;  // only linear claims are re-measured here
-    const Design* best = run.find("optimized");
+    const Design* best = run.find(DesignRole::optimized);
     REQUIRE(best);
     ++claims;
     const Problem& problem = run.problem;

@@ -207,7 +207,7 @@ TEST_CASE("a failed confirmation names the effect that caused it", "[confirmatio
         "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[actuator]\nmin = -0.9\nmax = 0.9\n"
         "[controller]\nstructure = \"pi\"\nanti_windup = \"none\"\n"
         "[requirements]\novershoot_max_pct = 10.0\n");
-    const Design d = measure_design(p, "test", make_controller(Structure::pi, {2.0, 0.8}, 10.0));
+    const Design d = measure_and_confirm(p, DesignRole::optimized, make_controller(Structure::pi, {2.0, 0.8}, 10.0));
     REQUIRE(d.nonlinear);
     REQUIRE_FALSE(d.nonlinear->confirmed);
     REQUIRE(d.nonlinear->attribution.size() == 1);  // saturation is the only effect in the loop
@@ -229,7 +229,7 @@ TEST_CASE("a failed confirmation names the effect that caused it", "[confirmatio
         "[plant.nonlinear.operating_point]\nlevel = 0.8\nflow = 0.005\nu = 0.5\n"
         "[actuator]\nmin = -20.0\nmax = 20.0\n[controller]\nstructure = \"pi\"\n"
         "[requirements]\novershoot_max_pct = 10.5\n[reference]\namplitude = 0.9\n");
-    const Design d = measure_design(p, "test", make_controller(Structure::pi, {2.484, 0.012}, 10.0));
+    const Design d = measure_and_confirm(p, DesignRole::optimized, make_controller(Structure::pi, {2.484, 0.012}, 10.0));
     REQUIRE(d.checks.front().met);  // about 10.0 % on the linearization
     REQUIRE(d.nonlinear);
     REQUIRE_FALSE(d.nonlinear->confirmed);  // about 11.8 % on the expressions
@@ -242,7 +242,7 @@ TEST_CASE("a failed confirmation names the effect that caused it", "[confirmatio
         "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\n[actuator]\nmin = -50.0\nmax = 50.0\n"
         "[controller]\nstructure = \"pi\"\n[requirements]\novershoot_max_pct = 10.0\nsettling_time_max = 20.0\n"
         "[disturbance]\ntime = 15.0\nsize = 0.5\nnoise_rms = 0.0005\nseed = 4\n");
-    const Design d = measure_design(p, "test", make_controller(Structure::pi, {1.2, 0.6}, 10.0));
+    const Design d = measure_and_confirm(p, DesignRole::optimized, make_controller(Structure::pi, {1.2, 0.6}, 10.0));
     REQUIRE(d.checks.back().met);  // the linear loop settles in time
     REQUIRE(d.nonlinear);
     REQUIRE_FALSE(d.nonlinear->confirmed);  // the load step at 15 s upsets the band after it

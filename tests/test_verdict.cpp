@@ -38,7 +38,7 @@ std::string winch(const std::string& actuator, const std::string& controller_key
 
 std::vector<std::string> active_for(const std::string& text, std::vector<double> series = {2.0, 0.8}) {
   const Problem p = problem_from(text);
-  const Design d = measure_design(p, "test", make_controller(Structure::pi, std::move(series), 10.0));
+  const Design d = measure_and_confirm(p, DesignRole::optimized, make_controller(Structure::pi, std::move(series), 10.0));
   REQUIRE(d.nonlinear);
   REQUIRE(d.nonlinear->status == NonlinearStatus::ok);
   return d.nonlinear->active_effects;
@@ -81,7 +81,7 @@ TEST_CASE("auto runs the nonlinear stage exactly when an effect acts; the verdic
     CHECK(run.search.active_effects.empty());
     CHECK(run.search.nonlinear_evaluations == 0);
     CHECK_FALSE(run.judged_on_nonlinear);
-    CHECK(run.met == run.find("optimized")->meets_all);
+    CHECK(run.met == run.find(DesignRole::optimized)->meets_all);
   }
   SECTION("the limits act: the stage runs, judged on the nonlinear loop") {
     const DesignRun run = run_design(parse_spec(winch("[actuator]\nmin = -0.9\nmax = 0.9\n", "", budget), "<test>"));
@@ -89,7 +89,7 @@ TEST_CASE("auto runs the nonlinear stage exactly when an effect acts; the verdic
     CHECK(run.search.nonlinear_evaluations > 0);
     CHECK(run.search.nonlinear_evaluations <= 60);
     CHECK(run.judged_on_nonlinear);
-    const Design* o = run.find("optimized");
+    const Design* o = run.find(DesignRole::optimized);
     REQUIRE(o->nonlinear);
     CHECK(run.met == (o->nonlinear->status == NonlinearStatus::ok && o->nonlinear->meets_all));
   }
@@ -107,7 +107,7 @@ TEST_CASE("auto runs the nonlinear stage exactly when an effect acts; the verdic
         "<test>"));
     CHECK(run.search.nonlinear_evaluations == 0);
     CHECK(run.judged_on_nonlinear);
-    const Design* o = run.find("optimized");
+    const Design* o = run.find(DesignRole::optimized);
     CHECK(run.met_on_linear == o->meets_all);
     CHECK(run.met == (o->nonlinear->status == NonlinearStatus::ok && o->nonlinear->meets_all));
   }
@@ -137,7 +137,7 @@ TEST_CASE("the horizon is extended until the nonlinear response has settled, wit
   REQUIRE(run.result.metrics.settling_time_s);
   CHECK_THAT(*run.result.metrics.settling_time_s, WithinAbs(0.333, 0.002));
   // The design's confirmation uses it, says so, and the requirement is met there.
-  const Design d = measure_design(p, "test", c);
+  const Design d = measure_and_confirm(p, DesignRole::optimized, c);
   REQUIRE(d.nonlinear);
   CHECK(d.nonlinear->confirmed);
   CHECK(d.nonlinear->meets_all);
@@ -154,7 +154,7 @@ TEST_CASE("a stiff loop is measured truthfully on the nonlinear loop and its fra
   const Problem p = problem_from(text);
   SECTION("a slow PI zero: closed-loop time scales from 0.003/s to 1e5/s, integrated implicitly and measured") {
     const Controller c = make_controller(Structure::pi, {10.0, 0.01}, 10.0);
-    const Design d = measure_design(p, "test", c);
+    const Design d = measure_and_confirm(p, DesignRole::optimized, c);
     REQUIRE(d.status == StepStatus::ok);
     REQUIRE(d.nonlinear);
     REQUIRE(d.nonlinear->status == NonlinearStatus::ok);
@@ -172,7 +172,7 @@ TEST_CASE("a stiff loop is measured truthfully on the nonlinear loop and its fra
   SECTION("the gains an unbounded search reaches: a delay margin of tens of microseconds, said") {
     // The optimum `design` finds for this spec with no actuator limits and no effort_max.
     const Controller c = make_controller(Structure::pi, {4576009.234177442, 3183.9764968630957}, 10.0);
-    const Design d = measure_design(p, "test", c);
+    const Design d = measure_and_confirm(p, DesignRole::optimized, c);
     REQUIRE(d.nonlinear);
     REQUIRE(d.nonlinear->status == NonlinearStatus::ok);
     CHECK_THAT(d.nonlinear->simulated.final_value, WithinRel(1.0, 1e-12));
@@ -192,7 +192,7 @@ TEST_CASE("a stiff loop is measured truthfully on the nonlinear loop and its fra
 
 TEST_CASE("the fragility warnings fire only on their conditions", "[verdict][stiff]") {
   const Problem p = problem_from(winch("[actuator]\nmin = -10.0\nmax = 10.0\n", "", ""));
-  const Design d = measure_design(p, "test", make_controller(Structure::pi, {2.0, 0.8}, 10.0));
+  const Design d = measure_and_confirm(p, DesignRole::optimized, make_controller(Structure::pi, {2.0, 0.8}, 10.0));
   CHECK(d.warnings.empty());
   Design at_bound = d;
   at_bound.controller = make_controller(Structure::pi, {p.bounds[0].second, 0.8}, 10.0);
@@ -209,7 +209,7 @@ TEST_CASE("attribution takes effects out one at a time and in combination", "[ve
         "[plant]\npoles = [-2.0, -10.0]\ngain = 40.0\n[actuator]\nmin = -2.5\nmax = 2.5\nrate_max = 40.0\n"
         "[controller]\nstructure = \"pi\"\nanti_windup = \"none\"\n[requirements]\novershoot_max_pct = 8.0\n"
         "[reference]\namplitude = 2.0\n");
-    const Design d = measure_design(p, "test", make_controller(Structure::pi, {1.5, 2.0}, 10.0));
+    const Design d = measure_and_confirm(p, DesignRole::optimized, make_controller(Structure::pi, {1.5, 2.0}, 10.0));
     REQUIRE(d.checks.front().met);
     REQUIRE(d.nonlinear);
     REQUIRE_FALSE(d.nonlinear->confirmed);
@@ -234,7 +234,7 @@ TEST_CASE("attribution takes effects out one at a time and in combination", "[ve
         "[plant]\npoles = [-2.0, -10.0]\ngain = 40.0\n[actuator]\nmin = -48.0\nmax = 48.0\n"
         "[controller]\nstructure = \"pi\"\n[requirements]\novershoot_max_pct = 10.0\nsettling_time_max = 5.5\n"
         "[reference]\namplitude = 60.0\n");
-    const Design d = measure_design(p, "test", make_controller(Structure::pi, {2.0, 0.5}, 10.0));
+    const Design d = measure_and_confirm(p, DesignRole::optimized, make_controller(Structure::pi, {2.0, 0.5}, 10.0));
     REQUIRE(d.checks.back().met);
     REQUIRE(d.nonlinear);
     REQUIRE_FALSE(d.nonlinear->confirmed);
@@ -350,7 +350,7 @@ TEST_CASE("a nonlinear loop that cannot be run to its end counts every effect th
       "[controller]\nstructure = \"pi\"\n[requirements]\novershoot_max_pct = 10.0\n[reference]\namplitude = 2.0\n"
       "[search]\nmax_evaluations = 200\n";
   const DesignRun run = run_design(parse_spec(escape, "<test>"));
-  const Design* best = run.find("optimized");
+  const Design* best = run.find(DesignRole::optimized);
   REQUIRE(best);
   REQUIRE(best->nonlinear);
   CHECK(best->nonlinear->status != NonlinearStatus::ok);
@@ -369,7 +369,7 @@ TEST_CASE("a response that never settles on the described loop is said, even wit
       "[controller]\nstructure = \"pi\"\n[requirements]\novershoot_max_pct = 10.0\n[reference]\namplitude = -1.5\n"
       "[search]\nmax_evaluations = 200\n";
   const DesignRun run = run_design(parse_spec(drain, "<test>"));
-  const Design* best = run.find("optimized");
+  const Design* best = run.find(DesignRole::optimized);
   REQUIRE(best);
   REQUIRE(best->nonlinear);
   REQUIRE(best->nonlinear->status == NonlinearStatus::ok);

@@ -14,6 +14,7 @@
 
 #include "specloop/design/characterize.hpp"
 #include "specloop/output/json_io.hpp"
+#include "specloop/output/caution.hpp"
 #include "specloop/output/report.hpp"
 #include "specloop/spec/spec.hpp"
 #include "specloop/sweep/sweep.hpp"
@@ -140,9 +141,9 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
              structure_name(spec.controller.structure));
   // Requirements × designs.
   // The last column: the optimized design's slack (normalized room, % of the limit).
-  const Design* optimized = run.find("optimized");
+  const Design* optimized = run.find(DesignRole::optimized);
   fmt::print("  {:<24} {:>12}", "requirement", "limit");
-  for (const Design& d : run.designs) fmt::print(" {:>14}", d.name);
+  for (const Design& d : run.designs) fmt::print(" {:>14}", role_name(d.role));
   if (optimized) fmt::print(" {:>10}", "slack");
   fmt::print("\n");
   for (std::size_t i = 0; i < run.problem.requirements.size(); ++i) {
@@ -188,7 +189,7 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   for (const Design& d : run.designs)
     fmt::print(" {:>14}", d.nonlinear ? fmt::format("{:.1f}", 100.0 * d.nonlinear->saturated_fraction) : "—");
   fmt::print("\n\n");
-  const Design* best = run.find("optimized");
+  const Design* best = run.find(DesignRole::optimized);
   if (best) {
     const Controller& c = best->controller;
     if (c.action < 0.0) fmt::print("Action: {}\n", action_reason(run.problem.plant));

@@ -1,31 +1,38 @@
-// The `design` pipeline: every design of a spec, measured the same way.
+// The `design` pipeline (design_run.hpp): every design of a spec, measured on the linear loop and
+// confirmed on the nonlinear one the same way, then the search and the verdict. run_design reads
+// as its list of stages; each stage is a function below.
+#include "specloop/design/design_run.hpp"
+
 #include <algorithm>
 #include <cmath>
 #include <fmt/format.h>
 #include <optional>
 
-#include "specloop/design/design.hpp"
 #include "specloop/sim/sampled_loop.hpp"
 
 #include <boost/math/tools/roots.hpp>
 
 namespace specloop {
 
-const Design* DesignRun::find(std::string_view name) const {
+const Design* DesignRun::find(DesignRole role) const {
   for (const Design& d : designs)
-    if (d.name == name) return &d;
+    if (d.role == role) return &d;
   return nullptr;
 }
 
-SearchOptions search_options(const Spec& spec) {
-  SearchOptions o;
-  o.objective = spec.search.objective;
-  o.seed = spec.search.seed;
-  o.max_evaluations = spec.search.max_evaluations;
-  o.max_time_s = spec.search.max_time_s;
-  // The nonlinear stage gets a tenth of the linear budget, between 40 and 400 evaluations.
-  o.nonlinear_evaluations = std::clamp(spec.search.max_evaluations / 10, 40, 400);
-  return o;
+const Design* recommended_design(const DesignRun& run) {
+  for (const DesignRole role : {DesignRole::optimized, DesignRole::classical}) {
+    const Design* d = run.find(role);
+    if (d && d->status == StepStatus::ok) return d;
+  }
+  return nullptr;
+}
+
+Design measure_and_confirm(const Problem& problem, DesignRole role, const Controller& controller) {
+  Design d = measure_design(problem, role, controller);
+  confirm_design(problem, d);
+  if (d.status == StepStatus::ok) d.warnings = fragility_warnings(problem, d, false);
+  return d;
 }
 
 namespace {
@@ -99,7 +106,8 @@ Infeasibility analyze_misses(const Problem& problem, const Design& best, const S
   SearchOptions o = options;
   o.objective_requirement = binding;
   const SearchResult nearest = optimize(relaxed, first.controller.series, o);
-  const Design d = measure_design(relaxed, "nearest", nearest.controller);
+  // Measured on the linear loop only: the nearest value is read there (no confirmation needed).
+  const Design d = measure_design(relaxed, DesignRole::optimized, nearest.controller);
   const auto value = d.status == StepStatus::ok
                          ? requirement_value(*binding, d.simulated, d.margins, problem.reference_peak_time_s,
                                              problem.band_fraction * 100.0)
@@ -164,105 +172,140 @@ std::optional<double> sampled_reference_gain(const Problem& problem, double k0, 
   return f(a) <= 0.0 ? a : b;  // the end at or below the aim: the reference's own check holds
 }
 
-}  // namespace
+// ---- the stages ---------------------------------------------------------------------------------
 
-DesignRun run_design(const Spec& spec) {
+// The run's base: the spec's checks that 'design' needs, the characterization and the problem.
+DesignRun prepare_run(const Spec& spec) {
   if (!spec.requirements.overshoot_max_pct)
     throw SpecError(spec.path + ": requirements.overshoot_max_pct: required by 'design' (the reference gain and the "
                                 "classical design's ζ come from it)");
   DesignRun run;
   run.characterization = characterize(spec);
   run.problem = make_problem(spec, run.characterization);
-  const Problem& problem = run.problem;
-  if (spec.requirements.peak_time_ratio && !problem.reference_peak_time_s)
+  if (spec.requirements.peak_time_ratio && !run.problem.reference_peak_time_s)
     throw SpecError(spec.path + ": requirements.peak_time_ratio: no reference peak time exists for this plant (" +
                     run.characterization.reference_note + "); use peak_time_max instead");
+  return run;
+}
+
+// The reference P design (when the characterization found its gain): aimed again on the sampled
+// loop for a sampled controller, whose reference peak time then becomes the problem's.
+void add_reference_design(DesignRun& run) {
+  if (!run.characterization.reference) return;
+  const Problem& problem = run.problem;
+  const Spec& spec = problem.spec;
+  const double n = spec.controller.derivative_filter;
+  double k_ref = run.characterization.reference->gain;
+  std::string aimed = "P gain whose simulated overshoot equals the limit (from analyze)";
+  if (problem.sampled) {
+    // Aimed on the loop it is measured on: the sampled one (analyze knows only the continuous).
+    if (const auto k = sampled_reference_gain(problem, k_ref, n, *spec.requirements.overshoot_max_pct - 1e-4)) {
+      aimed = fmt::format("P gain whose overshoot on the sampled loop equals the limit (analyze's {:.4g} puts the "
+                          "continuous loop's there)", problem.action * k_ref);
+      k_ref = *k;
+    } else {
+      aimed += "; no gain near it puts the sampled loop's overshoot at the limit: analyze's gain is kept";
+    }
+  }
+  Design ref = measure_and_confirm(problem, DesignRole::reference, make_controller(Structure::p, {k_ref}, n, problem.action));
+  ref.notes.push_back(aimed);
+  // peak_time_ratio reads the reference's peak time on the loop every design is measured on
+  if (problem.sampled && ref.status == StepStatus::ok) run.problem.reference_peak_time_s = ref.simulated.peak_time_s;
+  if (!run.characterization.reference_note.empty()) ref.notes.push_back(run.characterization.reference_note);
+  run.designs.push_back(std::move(ref));
+}
+
+// The classical (root-locus) design at the target pole from the requirements; run.classical says
+// what became of the hand method. Returns the controller (the search's first seed) when designed.
+std::optional<Controller> add_classical_design(DesignRun& run) {
+  const Problem& problem = run.problem;
+  const Spec& spec = problem.spec;
   const Structure structure = spec.controller.structure;
   const double n = spec.controller.derivative_filter;
-
-  if (run.characterization.reference) {
-    double k_ref = run.characterization.reference->gain;
-    std::string aimed = "P gain whose simulated overshoot equals the limit (from analyze)";
-    if (problem.sampled) {
-      // Aimed on the loop it is measured on: the sampled one (analyze knows only the continuous).
-      if (const auto k = sampled_reference_gain(problem, k_ref, n, *spec.requirements.overshoot_max_pct - 1e-4)) {
-        aimed = fmt::format("P gain whose overshoot on the sampled loop equals the limit (analyze's {:.4g} puts the "
-                            "continuous loop's there)", problem.action * k_ref);
-        k_ref = *k;
-      } else {
-        aimed += "; no gain near it puts the sampled loop's overshoot at the limit: analyze's gain is kept";
-      }
-    }
-    Design ref = measure_design(problem, "reference", make_controller(Structure::p, {k_ref}, n, problem.action));
-    ref.notes.push_back(aimed);
-    // peak_time_ratio reads the reference's peak time on the loop every design is measured on
-    if (problem.sampled && ref.status == StepStatus::ok) run.problem.reference_peak_time_s = ref.simulated.peak_time_s;
-    if (!run.characterization.reference_note.empty()) ref.notes.push_back(run.characterization.reference_note);
-    run.designs.push_back(std::move(ref));
-  }
-
   std::optional<Controller> classical;
   std::vector<std::string>& classical_notes = run.classical.notes;
   run.target = desired_pole(problem, run.characterization);
-  if (run.target) {
-    classical_notes.push_back(fmt::format("target dominant pole {:.4g} ± j{:.4g} ({})", run.target->pole.real(),
-                                          run.target->pole.imag(), run.target->derivation));
-    const double zeta = -run.target->pole.real() / std::abs(run.target->pole);
-    // The hand rules work on the plant with direct action; the controller then takes the action.
-    classical = classical_controller(problem.normalized_plant, structure, n, run.target->pole, zeta,
-                                     spec.requirements.steady_state_error_max, classical_notes,
-                                     &run.classical.failed_step);
-    if (classical) {
-      classical = make_controller(structure, classical->series, n, problem.action);
-      Design d = measure_design(problem, "classical", *classical);
-      d.notes = classical_notes;
-      run.designs.push_back(std::move(d));
-      run.classical.designed = true;
-    } else {
-      run.classical.reason = classical_notes.back();
-    }
-  } else {
+  if (!run.target) {
     run.classical.failed_step = "target pole";
     run.classical.reason = "no time requirement to set its speed and no usable ζ-line crossing of the P-only locus (" +
                            run.characterization.dominant_reason + ")";
     classical_notes.push_back(run.classical.reason);
+    return classical;
   }
+  classical_notes.push_back(fmt::format("target dominant pole {:.4g} ± j{:.4g} ({})", run.target->pole.real(),
+                                        run.target->pole.imag(), run.target->derivation));
+  const double zeta = -run.target->pole.real() / std::abs(run.target->pole);
+  // The hand rules work on the plant with direct action; the controller then takes the action.
+  classical = classical_controller(problem.normalized_plant, structure, n, run.target->pole, zeta,
+                                   spec.requirements.steady_state_error_max, classical_notes, &run.classical.failed_step);
+  if (!classical) {
+    run.classical.reason = classical_notes.back();
+    return classical;
+  }
+  classical = make_controller(structure, classical->series, n, problem.action);
+  Design d = measure_and_confirm(problem, DesignRole::classical, *classical);
+  d.notes = classical_notes;
+  run.designs.push_back(std::move(d));
+  run.classical.designed = true;
+  return classical;
+}
 
-  std::optional<Controller> baseline;
+// The ultimate-gain baseline by the Ziegler–Nichols rules (when the plant has an ultimate point and
+// the rules cover the structure). Returns its controller (the search's second seed).
+std::optional<Controller> add_ultimate_gain_design(DesignRun& run) {
+  const Problem& problem = run.problem;
+  const Structure structure = problem.spec.controller.structure;
+  const double n = problem.spec.controller.derivative_filter;
   run.ultimate = ultimate_point(problem.normalized_plant);
-  if (run.ultimate) {
-    if (const auto form = ziegler_nichols(structure, *run.ultimate, n)) {
-      if (const auto series = series_from_standard(structure, *form)) {
-        baseline = make_controller(structure, *series, n, problem.action);
-        Design d = measure_design(problem, "ultimate_gain", *baseline);
-        d.notes.push_back(fmt::format("Ziegler–Nichols closed-loop rules from Ku = {:.4g}, Tu = {:.4g} s",
-                                      problem.action * run.ultimate->gain, run.ultimate->period_s));
-        run.designs.push_back(std::move(d));
-      }
-    }
-  }
+  if (!run.ultimate) return std::nullopt;
+  const auto form = ziegler_nichols(structure, *run.ultimate, n);
+  if (!form) return std::nullopt;
+  const auto series = series_from_standard(structure, *form);
+  if (!series) return std::nullopt;
+  Controller baseline = make_controller(structure, *series, n, problem.action);
+  Design d = measure_and_confirm(problem, DesignRole::ultimate_gain, baseline);
+  d.notes.push_back(fmt::format("Ziegler–Nichols closed-loop rules from Ku = {:.4g}, Tu = {:.4g} s",
+                                problem.action * run.ultimate->gain, run.ultimate->period_s));
+  run.designs.push_back(std::move(d));
+  return baseline;
+}
 
+// What the search stage hands on: its result, the optimized design measured and confirmed, whether
+// the nonlinear stage ran, and the effects active for the linear optimum that decided it.
+struct SearchOutcome {
+  SearchResult result;
+  Design best;
+  bool nonlinear_stage = false;
+  std::vector<std::string> active;
+};
+
+// The search on the linear loop from the hand designs' seed, the optimum measured and confirmed;
+// then, when an effect the linear loop leaves out acts for it (or search.simulate says so), the
+// nonlinear stage, and the moved optimum measured and confirmed again.
+SearchOutcome search_stage(const Problem& problem, const std::optional<Controller>& classical,
+                           const std::optional<Controller>& baseline, const SearchOptions& options) {
   // Seed: the classical design, else the ultimate-gain baseline, else the middle of the bounds.
   std::vector<double> seed = classical ? classical->series : baseline ? baseline->series : middle_of_bounds(problem);
-  const SearchOptions options = search_options(spec);
-  SearchResult result = optimize(problem, seed, options);
-  Design best = measure_design(problem, "optimized", result.controller);
-
+  SearchOutcome out;
+  out.result = optimize(problem, seed, options);
+  out.best = measure_and_confirm(problem, DesignRole::optimized, out.result.controller);
   // Which loop the search ends on, and which loop judges: the effects the linear loop leaves out
   // that act for the linear optimum, measured on its confirmation run.
-  const SimulateMode mode = spec.search.simulate;
-  const std::vector<std::string> active = best.nonlinear ? best.nonlinear->active_effects : std::vector<std::string>{};
-  result.summary.active_effects = active;
-  const bool stage = mode == SimulateMode::nonlinear || (mode == SimulateMode::automatic && !active.empty());
-  if (stage) {
+  const SimulateMode mode = problem.spec.search.simulate;
+  out.active = out.best.nonlinear ? out.best.nonlinear->active_effects : std::vector<std::string>{};
+  SearchResult& result = out.result;
+  result.summary.active_effects = out.active;
+  out.nonlinear_stage = mode == SimulateMode::nonlinear || (mode == SimulateMode::automatic && !out.active.empty());
+  if (out.nonlinear_stage) {
     std::vector<std::vector<double>> hand;
     if (classical) hand.push_back(classical->series);
     if (baseline) hand.push_back(baseline->series);
     const SearchResult refined = refine_on_nonlinear_loop(problem, result, hand, options);
-    if (refined.controller.series != result.controller.series) best = measure_design(problem, "optimized", refined.controller);
+    if (refined.controller.series != result.controller.series)
+      out.best = measure_and_confirm(problem, DesignRole::optimized, refined.controller);
     result = refined;
-    result.summary.active_effects = active;
-  } else if (!active.empty()) {
+    result.summary.active_effects = out.active;
+  } else if (!out.active.empty()) {
     result.summary.nonlinear_stage = "no nonlinear stage: search.simulate = \"linear\" (the verdict is still read on the "
                                      "loop the spec describes)";
   } else {
@@ -271,14 +314,20 @@ DesignRun run_design(const Spec& spec) {
                                            "optimum (the nonlinear loop is the linear one)"
                                          : "no nonlinear stage: search.simulate = \"linear\"";
   }
-  run.search = result.summary;
-  best.notes.push_back(fmt::format("seeded by the {} design", classical ? "classical" : baseline ? "ultimate-gain" : "mid-bounds"));
-  if (stage) best.notes.push_back(result.summary.nonlinear_stage);
-  for (std::string& w : fragility_warnings(problem, best, true))
-    if (std::find(best.warnings.begin(), best.warnings.end(), w) == best.warnings.end()) best.warnings.push_back(std::move(w));
+  return out;
+}
 
-  run.judged_on_nonlinear = stage || !active.empty();
-  run.met_on_linear = best.meets_all;
+// The optimized design's notes (its seed, the nonlinear stage) and warnings: the fragility of a
+// searched design (a parameter on its bound), and a pass that holds only with the nonlinear
+// loop's effects acting.
+void review_optimized(const DesignRun& run, SearchOutcome& s, bool seeded_by_classical, bool seeded_by_baseline) {
+  Design& best = s.best;
+  best.notes.push_back(fmt::format("seeded by the {} design", seeded_by_classical ? "classical"
+                                                                : seeded_by_baseline ? "ultimate-gain"
+                                                                                     : "mid-bounds"));
+  if (s.nonlinear_stage) best.notes.push_back(s.result.summary.nonlinear_stage);
+  for (std::string& w : fragility_warnings(run.problem, best, true))
+    if (std::find(best.warnings.begin(), best.warnings.end(), w) == best.warnings.end()) best.warnings.push_back(std::move(w));
   if (run.judged_on_nonlinear && best.nonlinear && best.nonlinear->meets_all && !best.meets_all) {
     // Met for the spec's step on the loop it describes, but not for steps small enough that
     // nothing saturates: true, and worth saying.
@@ -291,53 +340,79 @@ DesignRun run_design(const Spec& spec) {
     best.warnings.push_back(fmt::format(
         "on the linear loop — a step small enough that nothing saturates — this design misses {}: it meets the "
         "requirements for the spec's step of {:.4g} only with the effects of the loop it describes (limits, …) acting",
-        fmt::join(misses, ", "), spec.reference.amplitude));
+        fmt::join(misses, ", "), run.problem.spec.reference.amplitude));
   }
+}
+
+// The verdict: met or not, on the loop that judges, and when not, why (run.infeasibility; on the
+// linear loop with the nearest reachable value of the binding requirement).
+void judge(DesignRun& run, SearchOutcome& s, const SearchOptions& options) {
+  Design& best = s.best;
+  const SearchResult& result = s.result;
   if (run.judged_on_nonlinear) {
     // Judged on the loop the spec describes. Misses are that loop's; no second search.
     run.met = best.nonlinear && best.nonlinear->status == NonlinearStatus::ok && best.nonlinear->meets_all;
-    if (!run.met) {
-      Infeasibility info = collect_misses(best.nonlinear ? best.nonlinear->checks : std::vector<RequirementCheck>{});
-      if (info.binding.empty()) info.binding = "the nonlinear simulation";
-      info.nearest_text = fmt::format(
-          "judged on the nonlinear loop ({}){}; the best reachable value is not searched there",
-          active.empty() ? std::string("search.simulate = \"nonlinear\"")
-                         : fmt::format("active: {}", fmt::join(active, ", ")),
-          best.meets_all ? "; the linear loop alone meets every requirement (a linear-only pass, which does not count)" : "");
-      run.infeasibility = info;
-    }
-  } else {
-    // "Met" needs the search's own evaluation of its best point and the re-measurement of the
-    // controller to agree: a best point the search rated unstable or infeasible is never met, even
-    // if the re-measurement (another realization of the same loop) passes.
-    run.met = best.meets_all && result.summary.feasible;
-    if (best.meets_all && !result.summary.feasible) {
-      Infeasibility info;
-      info.binding = "search";
-      info.nearest_text = fmt::format(
-          "the search rated its best point {}, but the re-measured controller meets every requirement: the two "
-          "evaluations of one loop disagree, which happens only at the edge of what the numerics resolve, so the "
-          "design is not claimed as met",
-          result.summary.best_violation > 0.0 ? "infeasible" : "unstable");
-      best.notes.push_back(info.nearest_text);
-      run.infeasibility = info;
-    } else if (!best.meets_all) {
-      run.infeasibility = analyze_misses(problem, best, result, options);
-    }
+    if (run.met) return;
+    Infeasibility info = collect_misses(best.nonlinear ? best.nonlinear->checks : std::vector<RequirementCheck>{});
+    if (info.binding.empty()) info.binding = "the nonlinear simulation";
+    info.nearest_text = fmt::format(
+        "judged on the nonlinear loop ({}){}; the best reachable value is not searched there",
+        s.active.empty() ? std::string("search.simulate = \"nonlinear\"") : fmt::format("active: {}", fmt::join(s.active, ", ")),
+        best.meets_all ? "; the linear loop alone meets every requirement (a linear-only pass, which does not count)" : "");
+    run.infeasibility = info;
+    return;
   }
-  // A final value far from r with no requirement saying how far it may be: say so.
-  if (best.status == StepStatus::ok && !spec.requirements.steady_state_error_max &&
-      std::abs(best.simulated.steady_state_error) > problem.band_fraction) {
-    const std::string w = fmt::format(
-        "the optimized design's final value {:.4g} is {:.3g} % away from the reference {:.4g} (outside the ±{:.3g} % "
-        "settling band around it), and no requirement limits the steady-state error: add steady_state_error_max, or a "
-        "structure with integral action, if the output must follow the reference",
-        best.simulated.final_value, 100.0 * std::abs(best.simulated.steady_state_error), spec.reference.amplitude,
-        100.0 * problem.band_fraction);
-    best.notes.push_back("warning: " + w);
-    run.warnings.push_back(w);
+  // "Met" needs the search's own evaluation of its best point and the re-measurement of the
+  // controller to agree: a best point the search rated unstable or infeasible is never met, even
+  // if the re-measurement (another realization of the same loop) passes.
+  run.met = best.meets_all && result.summary.feasible;
+  if (best.meets_all && !result.summary.feasible) {
+    Infeasibility info;
+    info.binding = "search";
+    info.nearest_text = fmt::format(
+        "the search rated its best point {}, but the re-measured controller meets every requirement: the two "
+        "evaluations of one loop disagree, which happens only at the edge of what the numerics resolve, so the "
+        "design is not claimed as met",
+        result.summary.best_violation > 0.0 ? "infeasible" : "unstable");
+    best.notes.push_back(info.nearest_text);
+    run.infeasibility = info;
+  } else if (!best.meets_all) {
+    run.infeasibility = analyze_misses(run.problem, best, result, options);
   }
-  run.designs.push_back(std::move(best));
+}
+
+// A final value far from r with no requirement saying how far it may be: say so.
+void warn_final_value(DesignRun& run, Design& best) {
+  const Problem& problem = run.problem;
+  if (best.status != StepStatus::ok || problem.spec.requirements.steady_state_error_max ||
+      !(std::abs(best.simulated.steady_state_error) > problem.band_fraction))
+    return;
+  const std::string w = fmt::format(
+      "the optimized design's final value {:.4g} is {:.3g} % away from the reference {:.4g} (outside the ±{:.3g} % "
+      "settling band around it), and no requirement limits the steady-state error: add steady_state_error_max, or a "
+      "structure with integral action, if the output must follow the reference",
+      best.simulated.final_value, 100.0 * std::abs(best.simulated.steady_state_error), problem.spec.reference.amplitude,
+      100.0 * problem.band_fraction);
+  best.notes.push_back("warning: " + w);
+  run.warnings.push_back(w);
+}
+
+}  // namespace
+
+DesignRun run_design(const Spec& spec) {
+  DesignRun run = prepare_run(spec);
+  add_reference_design(run);
+  const std::optional<Controller> classical = add_classical_design(run);
+  const std::optional<Controller> baseline = add_ultimate_gain_design(run);
+  const SearchOptions options = search_options(spec);
+  SearchOutcome s = search_stage(run.problem, classical, baseline, options);
+  run.search = s.result.summary;
+  run.judged_on_nonlinear = s.nonlinear_stage || !s.active.empty();
+  run.met_on_linear = s.best.meets_all;
+  review_optimized(run, s, classical.has_value(), baseline.has_value());
+  judge(run, s, options);
+  warn_final_value(run, s.best);
+  run.designs.push_back(std::move(s.best));
   return run;
 }
 

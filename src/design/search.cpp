@@ -9,7 +9,7 @@
 // stability, then to feasibility, then down the objective. (An additive penalty was measured
 // too: it stalled on constraint boundaries, e.g. 45 % worse ITAE on the oven demo; see
 // DEVELOPERS.md.) Feasibility is judged against the requirements tightened by the search's
-// margin (design.hpp, `tightened`), with the settling band narrowed by it, so that the design
+// margin (requirements.hpp, `tightened`), with the settling band narrowed by it, so that the design
 // returned keeps room on every limit.
 #include <nlopt.hpp>
 
@@ -20,7 +20,8 @@
 #include <limits>
 #include <map>
 
-#include "specloop/design/design.hpp"
+#include "specloop/design/nonlinear_loop.hpp"
+#include "specloop/design/search.hpp"
 #include "specloop/sim/sampled_loop.hpp"
 
 namespace specloop {
@@ -39,7 +40,7 @@ class CostFunction {
       : problem_(problem), options_(options), structure_(problem.spec.controller.structure),
         n_(problem.spec.controller.derivative_filter), margin_(problem.search_margin),
         band_(problem.band_fraction * (1.0 - problem.search_margin)) {
-    // The search's margin (design.hpp, `tightened`): limits tightened, the band narrowed.
+    // The search's margin (requirements.hpp, `tightened`): limits tightened, the band narrowed.
     for (const Requirement& r : problem.requirements) requirements_.push_back(tightened(r, margin_));
   }
 
@@ -149,7 +150,7 @@ class CostFunction {
   }
 
   // The same outcome measured on the spec's nonlinear loop, exactly as the confirmation measures
-  // it (measure_design → confirm_nonlinear): the linear loop's horizon, the confirmation's samples,
+  // it (the confirmation stage, confirm_nonlinear): the linear loop's horizon, the confirmation's samples,
   // extended until the response settles.
   Outcome evaluate_nonlinear(const double* params) {
     Outcome out;
@@ -527,6 +528,17 @@ SearchResult refine_on_nonlinear_loop(const Problem& problem, const SearchResult
   summary.best_objective = chosen.stable ? chosen.objective : summary.best_objective;
   summary.best_violation = chosen.stable ? chosen.violation : summary.best_violation;
   return out;
+}
+
+SearchOptions search_options(const Spec& spec) {
+  SearchOptions o;
+  o.objective = spec.search.objective;
+  o.seed = spec.search.seed;
+  o.max_evaluations = spec.search.max_evaluations;
+  o.max_time_s = spec.search.max_time_s;
+  // The nonlinear stage gets a tenth of the linear budget, between 40 and 400 evaluations.
+  o.nonlinear_evaluations = std::clamp(spec.search.max_evaluations / 10, 40, 400);
+  return o;
 }
 
 }  // namespace specloop

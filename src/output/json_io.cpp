@@ -1,6 +1,6 @@
 // JSON output of the characterization.
 #include "specloop/output/json_io.hpp"
-#include "specloop/output/report.hpp"
+#include "specloop/output/caution.hpp"
 
 #include <algorithm>
 #include <cmath>
@@ -391,7 +391,7 @@ json search_json(const SearchSummary& s) {
 
 json result_json(const DesignRun& run) {
   json designs = json::object();
-  for (const Design& d : run.designs) designs[d.name] = design_json(d);
+  for (const Design& d : run.designs) designs[std::string(role_name(d.role))] = design_json(d);
   json out = {{"schema", "specloop-result-1"},
               {"version", SPECLOOP_VERSION},
               {"spec", spec_json(run.problem.spec)},

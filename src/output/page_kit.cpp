@@ -1,7 +1,8 @@
 // Internal helpers shared by the design report and the sweep report (page_kit.hpp).
 #include "output/page_kit.hpp"
 
-#include "specloop/output/report.hpp"
+#include "specloop/output/caution.hpp"
+#include "specloop/output/output_folder.hpp"
 
 #include <cmath>
 #include <cstdlib>

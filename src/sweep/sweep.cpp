@@ -478,16 +478,16 @@ PointRow run_point(const SweepSpec& spec, const SweepGrid& grid, std::size_t ind
     // on the loop the design was judged on.
     if (run.infeasibility) {
       row.binding = run.infeasibility->binding;
-    } else if (const Design* o = run.find("optimized"); o && run.met) {
+    } else if (const Design* o = run.find(DesignRole::optimized); o && run.met) {
       row.binding = tightest_requirement(run.judged_on_nonlinear && o->nonlinear ? o->nonlinear->checks : o->checks);
     }
     row.evaluations = run.search.evaluations;
     row.search_wall_time_s = run.search.wall_time_s;
-    if (const Design* c = run.find("classical")) {
+    if (const Design* c = run.find(DesignRole::classical)) {
       row.classical = design_summary(*c).dump();
       if (c->nonlinear) row.classical_confirmed = c->nonlinear->confirmed;
     }
-    if (const Design* o = run.find("optimized")) {
+    if (const Design* o = run.find(DesignRole::optimized)) {
       row.optimized = design_summary(*o).dump();
       if (o->nonlinear) row.optimized_confirmed = o->nonlinear->confirmed;
     }

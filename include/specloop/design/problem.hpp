@@ -1,0 +1,44 @@
+// The search problem built from a spec: the plant's linear model and realizations, the
+// requirement list, the settling band, the search margin and bounds — everything the designs and
+// the search do not change, computed once per spec.
+#pragma once
+
+#include <optional>
+#include <utility>
+#include <vector>
+
+#include "specloop/core/compensator.hpp"
+#include "specloop/core/lti.hpp"
+#include "specloop/design/characterize.hpp"
+#include "specloop/design/requirements.hpp"
+#include "specloop/spec/spec.hpp"
+
+namespace specloop {
+
+/// Everything the search does not change, computed once per spec.
+struct Problem {
+  Spec spec;
+  TransferFunction plant;                 // the linear model: G(s), times the delay approximant
+  double action = 1.0;                    // loop_action(plant): +1 direct, −1 reverse; every controller carries it
+  TransferFunction normalized_plant;      // action·plant: what the design rules (reference gain, root locus,
+                                          // ultimate gain) work on, with positive gains
+  StateSpace plant_realization;           // of `plant`
+  StateSpace delay_free_realization;      // of G(s) alone, for the nonlinear loop (exact delay)
+  std::optional<double> reference_peak_time_s;  // from the characterization (P gain at the limit)
+  std::vector<Requirement> requirements;
+  double band_fraction = 0.02;
+  double search_margin = 0.01;                  // search.margin_pct/100: see `tightened` (requirements.hpp)
+  double tracking_window_s = 1.0;               // W of the tracking objectives (see tracking_objective)
+  bool needs_margins = false;                   // a margin requirement or the Ms objective
+  std::vector<ParameterInfo> parameters;        // of the spec's structure
+  std::vector<std::pair<double, double>> bounds;  // per parameter, natural units, lo < hi
+  /// controller.sample_time is set and the plant is strictly proper: the linear loop of every
+  /// measurement and of the search is the sampled one (sampled_loop.hpp), not the continuous one.
+  bool sampled = false;
+};
+
+/// Builds the Problem: default search bounds from the plant's pole/zero scale and the reference
+/// gain, overridden by [search.bounds]. Throws SpecError for a bound that names no parameter.
+Problem make_problem(const Spec& spec, const Characterization& ch);
+
+}  // namespace specloop

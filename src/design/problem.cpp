@@ -1,0 +1,86 @@
+// The search problem built from a spec (problem.hpp): models, requirement list, default bounds,
+// tracking window.
+#include "specloop/design/problem.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+
+#include "specloop/sim/response.hpp"
+
+namespace specloop {
+
+namespace {
+constexpr double kInf = std::numeric_limits<double>::infinity();
+}  // namespace
+
+Problem make_problem(const Spec& spec, const Characterization& ch) {
+  Problem p;
+  p.spec = spec;
+  p.plant = linear_plant(spec);
+  p.action = loop_action(p.plant);
+  p.normalized_plant = TransferFunction(p.action * p.plant.numerator, p.plant.denominator);
+  p.plant_realization = realize(p.plant);
+  p.delay_free_realization =
+      spec.plant.delay_s > 0.0
+          ? realize(TransferFunction(Polynomial(spec.plant.numerator), Polynomial(spec.plant.denominator)))
+          : p.plant_realization;
+  if (ch.reference && ch.reference->simulated.peak_time_s) p.reference_peak_time_s = ch.reference->simulated.peak_time_s;
+  p.requirements = requirement_list(spec.requirements);
+  p.band_fraction = spec.requirements.settling_band_pct / 100.0;
+  p.needs_margins = spec.search.objective == Objective::sensitivity_peak ||
+                    std::any_of(p.requirements.begin(), p.requirements.end(), [](const Requirement& r) {
+                      return r.key == "phase_margin_min_deg" || r.key == "gain_margin_min_db" ||
+                             r.key == "sensitivity_peak_max";
+                    });
+  const Structure s = spec.controller.structure;
+  p.parameters = structure_parameters(s);
+
+  // Default bounds: frequencies over the plant's pole/zero scale widened by decades on both
+  // sides; gains around the reference gain (or the plant's inverse magnitude at its scale).
+  double w_lo = kInf, w_hi = 0.0;
+  for (const auto* list : {&spec.plant.poles, &spec.plant.zeros})
+    for (const Complex& z : *list)
+      if (std::abs(z) > 0.0) {
+        w_lo = std::min(w_lo, std::abs(z));
+        w_hi = std::max(w_hi, std::abs(z));
+      }
+  if (!(w_hi > 0.0)) w_lo = w_hi = 1.0;
+  double k_scale = 0.0;
+  if (ch.reference) k_scale = ch.reference->gain;
+  else if (ch.dominant) k_scale = ch.dominant->gain;
+  else k_scale = 1.0 / std::abs(p.plant(Complex(0.0, std::sqrt(w_lo * w_hi))));
+  if (!(k_scale > 0.0) || !std::isfinite(k_scale)) k_scale = 1.0;
+
+  // The tracking window W: the horizon of the reference P loop's step response (its slowest mode
+  // decayed to 1e-4 of its size), else of the P loop at the dominant crossing, else the settling
+  // time limit, else the time the slowest plant pole or zero needs to decay to 1e-4.
+  p.search_margin = spec.search.margin_pct / 100.0;
+  p.tracking_window_s = std::log(1e4) / w_lo;
+  if (spec.requirements.settling_time_max_s) p.tracking_window_s = *spec.requirements.settling_time_max_s;
+  const GainPoint* anchor = ch.reference ? &*ch.reference : ch.dominant ? &*ch.dominant : nullptr;
+  if (anchor) {
+    StepSimulator sim;
+    StepMetrics m;
+    if (sim.simulate(close_loop(p.plant_realization, static_gain(anchor->gain)), spec.reference.amplitude,
+                     p.band_fraction, m) == StepStatus::ok)
+      p.tracking_window_s = sim.grid().horizon_s();
+  }
+  const double n = spec.controller.derivative_filter;
+  for (const ParameterInfo& info : p.parameters) {
+    std::pair<double, double> b;
+    if (info.name == "gain") b = {k_scale * 1e-3, k_scale * 1e3};
+    else if (info.name == "ratio" || info.name == "lag_ratio") b = {1.05, 100.0};
+    else if (info.name == "zero_damping") b = {pid_min_zero_damping(n) * 1.0001, 20.0};
+    else b = {w_lo * 1e-3, w_hi * 10.0};
+    for (const auto& [name, range] : spec.search.bounds)
+      if (name == info.name) b = range;
+    p.bounds.push_back(b);
+  }
+  // The sampled loop needs a strictly proper plant (no algebraic loop through the hold); a
+  // biproper plant keeps the continuous loop (the nonlinear loop refuses it too, with a note).
+  p.sampled = spec.controller.sample_time_s > 0.0 && p.plant_realization.D(0) == 0.0;
+  return p;
+}
+
+}  // namespace specloop
