@@ -2,7 +2,7 @@
 // path; the document walk with the schema's name checks (unknown keys and sections, did-you-mean);
 // typed getters that fail with "file:line:col: key: expected …, got …"; and SpecSources, where
 // the reader found what later checks may blame. The sections are read by read_plant.cpp,
-// read_loop.cpp, read_requirements.cpp and read_run.cpp; read_spec.cpp puts them together.
+// read_loop.cpp, read_requirements.cpp and read_run.cpp; spec.cpp (read_spec) puts them together.
 #pragma once
 
 #include <fmt/format.h>
@@ -123,7 +123,7 @@ struct PendingTime {
 /// Where the reader found what the modelling step's checks may blame (SpecAsRead::sources).
 struct SpecSources {
   std::string path;                              // as given to read_spec: every message names it
-  reading::PlantSources plant;                   // a linear plant's roots, gain and delay
+  reading::PlantSources plant;                   // a linear plant's roots and gain; the delay (either form)
   reading::NonlinearSources nonlinear;           // [plant.nonlinear]'s parts
   std::optional<reading::ActuatorLimitsShown> actuator_limits;  // a nonlinear plant's, to check u0 against
   std::vector<reading::PendingTime> pending_times;  // times to check once the plant is modelled

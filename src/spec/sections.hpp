@@ -1,6 +1,6 @@
 // The spec reader's sections (private to the spec layer), one file each: read_plant.cpp,
 // read_loop.cpp (actuator, controller), read_requirements.cpp, read_run.cpp (reference, search,
-// disturbance, sweep, units). read_spec.cpp calls them in this order, which is the order a file's
+// disturbance, sweep, units). read_spec (spec.cpp) calls them in this order, which is the order a file's
 // problems are reported in. Each throws SpecError on the first problem.
 #pragma once
 
