@@ -3,10 +3,14 @@
 // that is not listed is refused as unknown. Also the [units] section. Invented examples only.
 #include <catch2/catch.hpp>
 
+#include <cmath>
 #include <map>
 #include <set>
 #include <string>
 
+#include <fmt/format.h>
+
+#include "specloop/spec/requirement_catalogue.hpp"
 #include "specloop/spec/spec.hpp"
 
 using specloop::parse_spec;
@@ -34,10 +38,18 @@ const std::string kPlant = "[plant]\npoles = [-1.0, -4.0]\n";
 const std::string kNonlinearHead =
     "[plant.nonlinear]\nstates = [\"level\"]\nderivatives = [\"(u - k*level)/area\"]\noutput = \"level\"\n";
 
+/// A value inside a requirement's range: the middle of a finite range, else one beyond its end.
+std::string inside_range(const specloop::RequirementRange& range) {
+  if (!std::isinf(range.low) && !std::isinf(range.high)) return fmt::format("{}", (range.low + range.high) / 2.0);
+  return fmt::format("{}", std::isinf(range.high) ? range.low + 1.0 : range.high - 1.0);
+}
+
 // For each key of the table: a spec with '@' where that key's value goes, and a valid value.
-// A key added to the table without an entry here fails the first test below.
+// A key added to the table without an entry here fails the first test below. The
+// [requirements] keys come from the requirement catalogue, each with a value inside its range.
 const std::map<std::string, std::pair<std::string, std::string>>& examples() {
-  static const std::map<std::string, std::pair<std::string, std::string>> m{
+  static const std::map<std::string, std::pair<std::string, std::string>> m = [] {
+    std::map<std::string, std::pair<std::string, std::string>> rows{
       {"title", {"title = @\n" + kPlant, "\"Belt\""}},
       {"plant.zeros", {"[plant]\npoles = [-1.0, -4.0]\nzeros = @\n", "[-2.0]"}},
       {"plant.poles", {"[plant]\npoles = @\n", "[-1.0, [-2.0, 1.0]]"}},
@@ -73,18 +85,6 @@ const std::map<std::string, std::pair<std::string, std::string>>& examples() {
       {"controller.sample_time", {kPlant + "[controller]\nsample_time = @\n", "0.01"}},
       {"controller.setpoint_weight", {kPlant + "[controller]\nsetpoint_weight = @\n", "0.5"}},
       {"controller.derivative_on", {kPlant + "[controller]\nderivative_on = @\n", "\"measurement\""}},
-      {"requirements.overshoot_max_pct", {kPlant + "[requirements]\novershoot_max_pct = @\n", "10.0"}},
-      {"requirements.peak_time_ratio", {kPlant + "[requirements]\npeak_time_ratio = @\n", "0.7"}},
-      {"requirements.settling_time_max", {kPlant + "[requirements]\nsettling_time_max = @\n", "2.0"}},
-      {"requirements.peak_time_max", {kPlant + "[requirements]\npeak_time_max = @\n", "1.0"}},
-      {"requirements.rise_time_max", {kPlant + "[requirements]\nrise_time_max = @\n", "0.5"}},
-      {"requirements.settling_band_pct", {kPlant + "[requirements]\nsettling_band_pct = @\n", "5.0"}},
-      {"requirements.steady_state_error_max", {kPlant + "[requirements]\nsteady_state_error_max = @\n", "0.05"}},
-      {"requirements.effort_max", {kPlant + "[requirements]\neffort_max = @\n", "24.0"}},
-      {"requirements.undershoot_max_pct", {kPlant + "[requirements]\nundershoot_max_pct = @\n", "5.0"}},
-      {"requirements.phase_margin_min_deg", {kPlant + "[requirements]\nphase_margin_min_deg = @\n", "45.0"}},
-      {"requirements.gain_margin_min_db", {kPlant + "[requirements]\ngain_margin_min_db = @\n", "6.0"}},
-      {"requirements.sensitivity_peak_max", {kPlant + "[requirements]\nsensitivity_peak_max = @\n", "1.6"}},
       {"reference.amplitude", {kPlant + "[reference]\namplitude = @\n", "2.0"}},
       {"search.objective", {kPlant + "[search]\nobjective = @\n", "\"iae\""}},
       {"search.seed", {kPlant + "[search]\nseed = @\n", "7"}},
@@ -102,7 +102,12 @@ const std::map<std::string, std::pair<std::string, std::string>>& examples() {
       {"units.output", {kPlant + "[units]\noutput = @\n", "\"m/s\""}},
       {"units.input", {kPlant + "[units]\ninput = @\n", "\"V\""}},
       {"units.time", {kPlant + "[units]\ntime = @\n", "\"min\""}},
-  };
+    };
+    for (const specloop::RequirementEntry& entry : specloop::requirement_catalogue())
+      rows[fmt::format("requirements.{}", entry.key)] = {fmt::format("{}[requirements]\n{} = @\n", kPlant, entry.key),
+                                                         inside_range(entry.range)};
+    return rows;
+  }();
   return m;
 }
 

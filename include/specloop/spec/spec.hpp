@@ -25,7 +25,8 @@ class SpecError : public std::runtime_error {
 
 class ExpressionPlant;
 
-/// [plant.nonlinear]: the plant as ODE right-hand sides, and what loading found from them.
+/// [plant.nonlinear]: the plant as ODE right-hand sides (read by read_spec), and what the
+/// modelling step (model_spec) found from them.
 struct NonlinearPlantSpec {
   std::vector<std::string> states;            // names, in state order
   std::vector<std::string> derivatives;       // d(state)/dt, one expression per state
@@ -33,7 +34,7 @@ struct NonlinearPlantSpec {
   std::vector<std::pair<std::string, double>> parameters;  // as listed
   std::vector<double> state_guess;            // [plant.nonlinear.operating_point], per state
   double input = 0.0;                         // operating_point.u: the actuator value held (absolute units)
-  // Found at load time:
+  // Found by model_spec (empty in a SpecAsRead):
   std::vector<double> equilibrium;            // states where every derivative is 0 with u = input
   double output_value = 0.0;                  // y0 = h(equilibrium)
   int newton_iterations = 0;
@@ -47,7 +48,7 @@ struct NonlinearPlantSpec {
 };
 
 /// The plant as written; both forms are filled after loading (the other one is derived). For a
-/// nonlinear plant, both are the linearization at the operating point.
+/// nonlinear plant, both are the linearization at the operating point (filled by model_spec).
 struct PlantSpec {
   bool given_as_zeros_poles = true;           // which form the file used
   std::vector<std::complex<double>> zeros;    // rad/s, conjugate pairs expanded, as listed
@@ -174,12 +175,38 @@ inline constexpr double kMinTimeFraction = 1e-4;
 /// A plant pole with Re ≥ −tol·|p| and a zero within tol·max(|p|, |z|) of it cancel (refused).
 inline constexpr double kCancellationTolerance = 1e-6;
 
+struct SpecSources;  // where the reader found each part (private to the spec layer)
+
+/// A spec as read, not yet modelled: every key read and checked against its type and range. For
+/// a linear plant that is every check (model_spec returns it unchanged). For [plant.nonlinear]
+/// the expressions are not yet compiled, the plant's linear forms and the found values are empty,
+/// and the checks that need valid names or the linearization wait for model_spec: the
+/// expressions' names and syntax, the operating point's names (state_guess and input are filled
+/// then), the equilibrium, the plant's ranges (kMinRate …), u0 within the actuator's limits,
+/// controller.tracking_time, controller.sample_time and disturbance.noise_period against the
+/// plant's fastest time constant, and a zero steady_state_error_max's integrator.
+struct SpecAsRead {
+  Spec spec;
+  std::shared_ptr<const SpecSources> sources;  // positions for model_spec's messages
+};
+
+/// The reading half of parse_spec: TOML syntax, names, types, ranges (see SpecAsRead). Throws
+/// SpecError as parse_spec does; `path` is only used in messages and for `name`.
+SpecAsRead read_spec(std::string_view text, const std::string& path);
+
+/// The modelling half of parse_spec, once per spec: for [plant.nonlinear] compiles the
+/// expressions, finds the equilibrium (Newton), linearizes there, fills both plant forms and
+/// plant.nonlinear's found values and model, then runs the checks that waited for it. Messages
+/// name the path and line given to read_spec. Throws SpecError.
+Spec model_spec(SpecAsRead spec);
+
 /// Reads and validates a spec file. Throws SpecError (message as above) on any problem:
 /// unreadable file, TOML syntax, unknown key (with a did-you-mean), wrong type, out-of-range,
 /// NaN/inf, improper plant, zero leading coefficient, empty or duplicate section, contradiction.
 Spec load_spec(const std::string& path);
 
 /// Same as load_spec, from text; `path` is only used in messages and for `name`.
+/// model_spec(read_spec(text, path)).
 Spec parse_spec(std::string_view text, const std::string& path);
 
 }  // namespace specloop
