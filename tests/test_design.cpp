@@ -142,6 +142,35 @@ TEST_CASE("requirements read their values from the response", "[requirements]") 
   CHECK(std::isinf(*requirement_value(list[2], m, margins, 2.0, 2.0)));  // no gain crossover: infinite PM
 }
 
+TEST_CASE("every limit of the requirement catalogue is listed in check order and has a measurement",
+          "[requirements][catalogue]") {
+  // A new catalogue entry without a value in requirement_value fails here (it throws), as does one
+  // whose member requirement_list does not read.
+  Requirements r;
+  for (const RequirementEntry* entry : requirement_check_order()) r.*(entry->limit) = 1.5;
+  const auto list = requirement_list(r);
+  REQUIRE(list.size() == requirement_check_order().size());
+  StepMetrics m;
+  m.overshoot_pct = 5.0;
+  m.peak_time_s = 1.0;
+  m.settling_time_s = 2.0;
+  m.rise_time_s = 0.5;
+  Margins margins;
+  margins.sensitivity_peak = 1.3;
+  for (std::size_t i = 0; i < list.size(); ++i) {
+    const Requirement& q = list[i];
+    INFO(q.key);
+    REQUIRE(q.entry == requirement_check_order()[i]);
+    CHECK(q.key == q.entry->key);
+    CHECK(q.upper == (q.entry->bound == specloop::RequirementBound::upper));
+    CHECK(q.magnitude == q.entry->on_magnitude);
+    CHECK_NOTHROW(requirement_value(q, m, margins, 2.0, 2.0));
+    // A frequency-domain requirement has no value without the margins; a step-response one does.
+    const bool needs_margins = q.entry->source == specloop::RequirementSource::frequency_response;
+    CHECK(requirement_value(q, m, std::nullopt, 2.0, 2.0).has_value() == !needs_margins);
+  }
+}
+
 TEST_CASE("the search's margin tightens every limit by its fraction", "[requirements]") {
   // Common practice (a design margin): upper limits move down, lower ones up, a zero limit stays.
   const Requirement os{"overshoot_max_pct", "%", true, 10.0};

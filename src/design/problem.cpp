@@ -30,8 +30,7 @@ Problem make_problem(const Spec& spec, const Characterization& ch) {
   p.band_fraction = spec.requirements.settling_band_pct / 100.0;
   p.needs_margins = spec.search.objective == Objective::sensitivity_peak ||
                     std::any_of(p.requirements.begin(), p.requirements.end(), [](const Requirement& r) {
-                      return r.key == "phase_margin_min_deg" || r.key == "gain_margin_min_db" ||
-                             r.key == "sensitivity_peak_max";
+                      return r.entry->source == RequirementSource::frequency_response;
                     });
   const Structure s = spec.controller.structure;
   p.parameters = structure_parameters(s);

@@ -15,21 +15,12 @@ constexpr double kInf = std::numeric_limits<double>::infinity();
 
 std::vector<Requirement> requirement_list(const Requirements& r) {
   std::vector<Requirement> out;
-  auto add = [&](const std::optional<double>& v, const char* key, const char* unit, bool upper) {
-    if (v) out.push_back({key, unit, upper, *v});
-  };
-  add(r.overshoot_max_pct, "overshoot_max_pct", "%", true);
-  add(r.undershoot_max_pct, "undershoot_max_pct", "%", true);
-  add(r.peak_time_ratio, "peak_time_ratio", "", true);
-  add(r.peak_time_max_s, "peak_time_max", "s", true);
-  add(r.settling_time_max_s, "settling_time_max", "s", true);
-  add(r.rise_time_max_s, "rise_time_max", "s", true);
-  add(r.steady_state_error_max, "steady_state_error_max", "", true);
-  if (r.steady_state_error_max) out.back().magnitude = true;  // the signed error e∞ = (r − y∞)/r, |e∞| ≤ limit
-  add(r.effort_max, "effort_max", "", true);
-  add(r.phase_margin_min_deg, "phase_margin_min_deg", "deg", false);
-  add(r.gain_margin_min_db, "gain_margin_min_db", "dB", false);
-  add(r.sensitivity_peak_max, "sensitivity_peak_max", "", true);
+  for (const RequirementEntry* entry : requirement_check_order()) {
+    const std::optional<double>& limit = r.*(entry->limit);
+    if (!limit) continue;
+    out.push_back({std::string(entry->key), std::string(requirement_unit_code(entry->unit)),
+                   entry->bound == RequirementBound::upper, *limit, entry->on_magnitude, entry});
+  }
   return out;
 }
 

@@ -26,8 +26,7 @@ std::string shown_unit(std::string_view unit, const UnitsSpec& units) {
 }
 
 std::string requirement_unit(const Requirement& r, const UnitsSpec& units) {
-  if (r.key == "effort_max") return units.input;
-  return shown_unit(r.unit, units);
+  return r.entry ? requirement_unit_name(r.entry->unit, units) : shown_unit(r.unit, units);
 }
 
 std::string controller_action(const DesignRun& run) { return run.problem.action < 0.0 ? "reverse" : "direct"; }

@@ -9,6 +9,7 @@
 
 #include "specloop/core/margins.hpp"
 #include "specloop/sim/response.hpp"
+#include "specloop/spec/requirement_catalogue.hpp"
 #include "specloop/spec/spec.hpp"
 
 namespace specloop {
@@ -20,10 +21,11 @@ struct Requirement {
   bool upper = true;    // value <= limit (true) or value >= limit (false)
   double limit = 0.0;   // in the key's unit (peak_time_ratio: the ratio)
   bool magnitude = false;  // the bound applies to |value| (steady-state error: the value stays signed)
+  const RequirementEntry* entry = nullptr;  // its catalogue entry (requirement_list sets it)
 };
 
-/// The requirements of a spec as a list, in a fixed order (peak_time_ratio stays a ratio:
-/// requirement_value divides by the reference peak time).
+/// The requirements of a spec as a list, in the catalogue's check order (requirement_check_order;
+/// peak_time_ratio stays a ratio: requirement_value divides by the reference peak time).
 std::vector<Requirement> requirement_list(const Requirements& r);
 
 /// A requirement checked on one design.
