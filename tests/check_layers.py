@@ -22,12 +22,6 @@ MAX_FILE_LINES = 600
 MAX_FUNCTION_LINES = 150
 # path (relative to the source dir) or "path:function" → why it may be longer.
 SIZE_EXCEPTIONS = {
-    "src/sim/nonlinear.cpp": "being split (issue 13)",
-    "src/sim/nonlinear.cpp:measure": "being split (issue 13)",
-    "src/sim/nonlinear.cpp:simulate_nonlinear": "being split (issue 13)",
-    "src/sim/response.cpp": "being split (issue 13)",
-    "src/sim/response.cpp:StepSimulator::simulate": "being split (issue 13)",
-    "src/sim/sampled_loop.cpp:SampledStepSimulator::simulate": "being split (issue 13)",
     "src/sweep/sweep.cpp": "being split (issue 13)",
     "src/sweep/sweep_report.cpp": "being split (issue 13)",
     "src/sweep/sweep_report.cpp:write_report": "being split (issue 13)",

@@ -110,10 +110,10 @@ class StepSimulator {
   void recur(int states, int first, int count);
   // Fills poles_ with the eigenvalues of a; false when the solver fails.
   bool eigenvalues(const Eigen::MatrixXd& a);
-  // Exact slope of output row 1 (y') or 3 (u') at sample k, from the stored state.
-  double slope(int row, int k) const;
-  // The stored state of sample k (z = T·x for up to 8 states, see response.cpp) and its stride.
-  const double* stored_state(int k, std::ptrdiff_t& stride) const;
+  // y∞/r of the loop: D_y − C_y·A⁻¹·B.
+  double dc_gain(const StateSpace& loop);
+  // Writes y_, u_ and the stored states over grid_'s segments (the recurrence), from rest.
+  void run_segments(const StateSpace& loop, double amplitude);
 
   TimeGridRules rules_;
   TimeGrid grid_;
@@ -127,7 +127,8 @@ class StepSimulator {
   Eigen::MatrixXd phi_, outputs_;  // Φ and [C_y; C_y·A; C_u; C_u·A]
   Eigen::VectorXd gamma_, out_const_, x_, x_next_, solve_;
   std::vector<double> y_, u_;  // sampled output and effort (times follow from grid_)
-  std::vector<double> states_store_;  // x at every sample, for slopes on demand
+  std::vector<double> states_store_;  // the state at every sample, for slopes on demand (layout:
+                                      // exact_step::StoredStates, src/sim/step_kernels.hpp)
   // One bit per sample, 64 to a word: e = y∞ − y < 0; |y/y∞ − 1| > band; y[k+1] < y[k].
   std::vector<std::uint64_t> below_bits_, outside_bits_, falling_bits_;
 };

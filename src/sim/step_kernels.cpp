@@ -1,0 +1,405 @@
+// The exact step simulation's kernels (see step_kernels.hpp): the recurrence, the sample scan and
+// the integral sums, each as a portable SSE2 (or scalar) kernel and an AVX variant compiled for
+// "avx" only and chosen at run time, with the same arithmetic in the same order.
+#include "sim/step_kernels.hpp"
+
+#include <algorithm>
+#include <atomic>
+#include <cmath>
+#include <cstdint>
+#include <limits>
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
+#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__))
+#include <immintrin.h>
+#endif
+
+#include "specloop/sim/response.hpp"
+
+namespace specloop::exact_step {
+namespace {
+
+// L doubles to a vector register (GCC/Clang vector extension): L = 2 is one SSE2 register on
+// x86-64, L = 4 one AVX register; plain scalar code elsewhere.
+template <int L>
+struct PackOf;
+template <>
+struct PackOf<2> {
+  typedef double type __attribute__((vector_size(16)));
+  typedef double unaligned __attribute__((vector_size(16), aligned(8)));
+  typedef std::uint64_t bits __attribute__((vector_size(16)));
+};
+template <>
+struct PackOf<4> {
+  typedef double type __attribute__((vector_size(32)));
+  typedef double unaligned __attribute__((vector_size(32), aligned(8)));
+  typedef std::uint64_t bits __attribute__((vector_size(32)));
+};
+
+#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__)) && !defined(SPECLOOP_NO_AVX)
+#define SPECLOOP_AVX_KERNELS 1
+// The AVX variants below (recurrence, sample scan, sums) do the same arithmetic as the SSE2
+// ones on twice the lanes, so they give the same bits; they are compiled for "avx" only (no
+// fused multiply-add) and chosen at run time. Defining SPECLOOP_NO_AVX leaves them out (to
+// compare the two builds' results).
+std::atomic<bool> g_portable_kernels{false};
+bool has_avx() {
+  static const bool avx = __builtin_cpu_supports("avx");
+  return avx && !g_portable_kernels.load(std::memory_order_relaxed);
+}
+#endif
+
+#if defined(SPECLOOP_AVX_KERNELS)
+// scan_samples' vector part four samples a step (AVX); max, min and comparisons are exact, so
+// this finds the same extremes and bits. Returns the first sample left for the scalar tail.
+__attribute__((target("avx"))) int scan_samples_avx(const double* y, const double* u, int count, double y_inf,
+                                                    double inv, double band, const ScanBits& bits,
+                                                    SampleExtremes& ex) {
+  const __m256d v_inf = _mm256_set1_pd(y_inf), v_inv = _mm256_set1_pd(inv), v_one = _mm256_set1_pd(1.0),
+                v_band = _mm256_set1_pd(band),
+                v_abs = _mm256_castsi256_pd(_mm256_set1_epi64x(0x7fffffffffffffffLL));
+  __m256d vyh = _mm256_set1_pd(ex.y_hi), vyl = _mm256_set1_pd(ex.y_lo), vuh = _mm256_set1_pd(ex.u_hi),
+          vul = _mm256_set1_pd(ex.u_lo);
+  int k = 0;
+  for (; k + 64 <= count; k += 64) {
+    std::uint64_t b = 0, o = 0, f = 0;
+    for (int j = 0; j < 64; j += 4) {
+      const __m256d yv = _mm256_loadu_pd(y + k + j), uv = _mm256_loadu_pd(u + k + j),
+                    yn = _mm256_loadu_pd(y + k + j + 1);
+      b |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_sub_pd(v_inf, yv))) << j;
+      const __m256d dev = _mm256_and_pd(_mm256_sub_pd(_mm256_mul_pd(yv, v_inv), v_one), v_abs);
+      o |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_cmp_pd(dev, v_band, _CMP_GT_OS))) << j;
+      f |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_cmp_pd(yn, yv, _CMP_LT_OS))) << j;
+      vyh = _mm256_max_pd(yv, vyh);
+      vyl = _mm256_min_pd(yv, vyl);
+      vuh = _mm256_max_pd(uv, vuh);
+      vul = _mm256_min_pd(uv, vul);
+    }
+    bits.below[k / 64] = b;
+    bits.outside[k / 64] = o;
+    bits.falling[k / 64] = f;
+  }
+  double lanes[4];
+  _mm256_storeu_pd(lanes, vyh);
+  ex.y_hi = std::max(std::max(lanes[0], lanes[1]), std::max(lanes[2], lanes[3]));
+  _mm256_storeu_pd(lanes, vyl);
+  ex.y_lo = std::min(std::min(lanes[0], lanes[1]), std::min(lanes[2], lanes[3]));
+  _mm256_storeu_pd(lanes, vuh);
+  ex.u_hi = std::max(std::max(lanes[0], lanes[1]), std::max(lanes[2], lanes[3]));
+  _mm256_storeu_pd(lanes, vul);
+  ex.u_lo = std::min(std::min(lanes[0], lanes[1]), std::min(lanes[2], lanes[3]));
+  return k;
+}
+#endif
+
+template <int L>
+[[gnu::always_inline]] inline SegmentSums segment_sums_kernel(const double* y, int first, int last, double y_inf,
+                                                             double t_first, double h) {
+  using Pack = typename PackOf<L>::type;
+  using Unaligned = typename PackOf<L>::unaligned;
+  using Bits = typename PackOf<L>::bits;
+  constexpr int P = 4 / L;  // four samples a step, each summed in its own lane
+  Pack inf, four, sq[P] = {}, ab[P] = {}, idx_ab[P] = {}, idx[P];
+  Bits magnitude;
+  for (int l = 0; l < L; ++l) {
+    inf[l] = y_inf;
+    four[l] = 4.0;
+    magnitude[l] = ~(std::uint64_t{1} << 63);
+    for (int p = 0; p < P; ++p) idx[p][l] = L * p + l;
+  }
+  int k = first;
+  for (; k + 4 <= last + 1; k += 4)
+    for (int p = 0; p < P; ++p) {
+      const Pack yv = *reinterpret_cast<const Unaligned*>(y + k + L * p);
+      const Pack e = inf - yv;
+      const Pack a = (Pack)((Bits)e & magnitude);  // |e|: sign bit cleared (vector casts keep the bits)
+      sq[p] += e * e;
+      ab[p] += a;
+      idx_ab[p] += idx[p] * a;
+      idx[p] += four;
+    }
+  // The four lanes (samples k ≡ 0, 1, 2, 3 mod 4 from `first`) in the order (0 + 1) + (2 + 3).
+  auto total = [&](const Pack* v) { return (v[0][0] + v[0][1]) + (v[P - 1][L - 2] + v[P - 1][L - 1]); };
+  double squares = total(sq), absolute = total(ab), weighted = total(idx_ab);
+  for (; k <= last; ++k) {
+    const double e = y_inf - y[k], a = std::abs(e);
+    squares += e * e;
+    absolute += a;
+    weighted += (k - first) * a;
+  }
+  return {squares, absolute, t_first * absolute + h * weighted};
+}
+
+#if defined(SPECLOOP_AVX_KERNELS)
+__attribute__((target("avx"))) SegmentSums segment_sums_avx(const double* y, int first, int last, double y_inf,
+                                                            double t_first, double h) {
+  return segment_sums_kernel<4>(y, first, last, y_inf, t_first, h);
+}
+#endif
+
+// True when the effort row, rewritten to act on z, uses coordinate p only (up to rounding):
+// u is then an affine function of y (a proportional controller: u = K·(r − y)), and each effort
+// sample costs one product instead of N. The other entries are the rounding left by
+// to_output_coordinates when c_u is a multiple of c_y; they are dropped only when they are
+// below a few ulps of the terms they came from.
+template <class Row, class Cy>
+bool effort_follows_output(const Row& c_u_x, const Row& c_u_z, const Cy& c_y, const OutputCoordinates& oc) {
+  if (!oc.active) return false;
+  const double rp = c_u_z(oc.p);
+  for (int j = 0; j < c_y.size(); ++j) {
+    if (j == oc.p) continue;
+    const double scale = std::abs(c_u_x(j)) + std::abs(rp * c_y(j));
+    if (std::abs(c_u_z(j)) > 4.0 * std::numeric_limits<double>::epsilon() * scale) return false;
+  }
+  return true;
+}
+
+// The recurrence kernel (recur_fixed_size in step_kernels.hpp). Four interleaved chains (samples
+// k, k+1, k+2, k+3 stepped by Φ⁴ with Γ₄ = (Φ³ + Φ² + Φ + I)·Γ) shorten the dependency chain that
+// bounds the loop's speed. The chains are held state-component-major (z[i][c]: component i of
+// chain c), so every operation works on whole rows of four chains: no shuffles, no horizontal
+// sums, and the matrix entries are read pre-broadcast from memory. The states are stored the same
+// way, one block of N×4 per four samples (StoredStates), in the output coordinates z = T·x
+// (OutputCoordinates). L chains to a vector register (GCC/Clang vector extension: L = 2 is one
+// SSE2 register on x86-64, L = 4 one AVX register; plain scalar code elsewhere). Both widths
+// perform the same multiplications and additions in the same order, so they give the same bits;
+// no fused multiply-add is involved (the AVX variant is compiled for "avx" only, not "fma").
+template <int N, int L>
+[[gnu::always_inline]] inline void recur_kernel(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dyn,
+                                               const Eigen::MatrixXd& out_dyn, const Eigen::VectorXd& oc_dyn,
+                                               Eigen::VectorXd& x_io, int samples, double* y, double* u,
+                                               double* states) {
+  using Vec = Eigen::Matrix<double, N, 1>;
+  using Mat = Eigen::Matrix<double, N, N>;
+  using RowVec = Eigen::Matrix<double, 1, N>;
+  using Pack = typename PackOf<L>::type;
+  // Stores through a vector type aligned like double (vector types alias their element type);
+  // unlike memcpy from the chains, this keeps them in registers.
+  using Unaligned = typename PackOf<L>::unaligned;
+  auto put = [](double* at, Pack v) __attribute__((always_inline)) { *reinterpret_cast<Unaligned*>(at) = v; };
+  constexpr int C = kChains, P = kChains / L;
+  static_assert(C % L == 0);
+  const OutputCoordinates oc = output_coordinates(out_dyn);
+  const int q = oc.p;
+  const RowVec c_y = out_dyn.row(0);
+  Mat t = Mat::Identity(), t_inv = Mat::Identity();
+  if (oc.active) {
+    t.row(q) = c_y;
+    t_inv.row(q) = -c_y / c_y(q);
+    t_inv(q, q) = 1.0 / c_y(q);
+  }
+  const Mat phi_x = phi_dyn;  // fixed-size copies first: a product with a dynamic operand allocates
+  const Vec gamma_x = gamma_dyn;
+  const Mat phi = t * phi_x * t_inv;
+  const Vec gamma = t * gamma_x;
+  const Mat phi2 = phi * phi;
+  const Mat phi4 = phi2 * phi2;
+  const Vec gamma4 = phi2 * (phi * gamma + gamma) + phi * gamma + gamma;
+  const RowVec c_u_x = out_dyn.row(2);
+  RowVec c_u = c_u_x;
+  to_output_coordinates(c_u, c_y, oc);
+  const bool u_from_y = effort_follows_output(c_u_x, c_u, c_y, oc);
+  Pack p4[N][N], g4[N], cu[N], z[N][P], oy, ou, wy;
+  for (int l = 0; l < L; ++l) {
+    for (int i = 0; i < N; ++i) {
+      for (int j = 0; j < N; ++j) p4[i][j][l] = phi4(i, j);
+      g4[i][l] = gamma4(i);
+      cu[i][l] = c_u(i);
+    }
+    oy[l] = oc_dyn(0);
+    ou[l] = oc_dyn(2);
+    wy[l] = oc.active ? 1.0 : 0.0;
+  }
+  const Vec x_start = x_io;
+  Vec start = t * x_start;
+  for (int c = 0; c < C; ++c) {
+    for (int i = 0; i < N; ++i) z[i][c / L][c % L] = start(i);
+    start = phi * start + gamma;
+  }
+  int k = 0;
+  for (;; k += C) {
+    double* block = states + static_cast<std::ptrdiff_t>(k) * N;
+    for (int i = 0; i < N; ++i)
+      for (int p = 0; p < P; ++p) put(block + i * C + L * p, z[i][p]);
+    if (k + C > samples) break;  // the last, partial block: stored whole, outputs below
+    for (int p = 0; p < P; ++p) {
+      const Pack yb = wy * z[q][p] + oy;
+      Pack ub = ou;
+      if (u_from_y) {
+        ub += cu[q] * z[q][p];
+      } else {
+        for (int i = 0; i < N; ++i) ub += cu[i] * z[i][p];
+      }
+      put(y + k + L * p, yb);
+      put(u + k + L * p, ub);
+    }
+    Pack next[N][P];
+    for (int i = 0; i < N; ++i)
+      for (int p = 0; p < P; ++p) {
+        Pack v = g4[i];
+        for (int j = 0; j < N; ++j) v += p4[i][j] * z[j][p];
+        next[i][p] = v;
+      }
+    for (int i = 0; i < N; ++i)
+      for (int p = 0; p < P; ++p) z[i][p] = next[i][p];
+  }
+  const int rest = samples - k;  // 0..3 samples left: they sit in chains 0 .. rest − 1
+  for (int c = 0; c < rest; ++c) {
+    const double zq = z[q][c / L][c % L];
+    double yv = wy[0] * zq + oy[0], uv = ou[0];
+    if (u_from_y) {
+      uv += cu[q][0] * zq;
+    } else {
+      for (int i = 0; i < N; ++i) uv += cu[i][0] * z[i][c / L][c % L];
+    }
+    y[k + c] = yv;
+    u[k + c] = uv;
+  }
+  Vec last;
+  for (int i = 0; i < N; ++i) last(i) = z[i][rest / L][rest % L];
+  x_io = t_inv * last;  // the state at sample `samples`, back in the loop's coordinates
+}
+
+// Both kernels are flattened: everything they call, the fixed-size products of their set-up
+// included, is inlined into them. GCC's inliner stops at a growth limit relative to the size of
+// the file, and in this file (smaller than the one the kernels came from) it left those products
+// as calls, which made the recurrence about 15 % slower.
+#if defined(SPECLOOP_AVX_KERNELS)
+// Four chains to one AVX register: half the instructions of the SSE2 kernel, same arithmetic.
+// Chosen at run time (processors without AVX take the SSE2 kernel).
+template <int N>
+__attribute__((target("avx"), flatten)) void recur_fixed_avx(const Eigen::MatrixXd& phi, const Eigen::VectorXd& gamma,
+                                                             const Eigen::MatrixXd& out, const Eigen::VectorXd& oc,
+                                                             Eigen::VectorXd& x_io, int samples, double* y, double* u,
+                                                             double* states) {
+  recur_kernel<N, 4>(phi, gamma, out, oc, x_io, samples, y, u, states);
+}
+#endif
+
+template <int N>
+[[gnu::flatten]] void recur_fixed_portable(const Eigen::MatrixXd& phi, const Eigen::VectorXd& gamma,
+                                           const Eigen::MatrixXd& out, const Eigen::VectorXd& oc, Eigen::VectorXd& x_io,
+                                           int samples, double* y, double* u, double* states) {
+  recur_kernel<N, 2>(phi, gamma, out, oc, x_io, samples, y, u, states);
+}
+
+template <int N>
+void recur_fixed(const Eigen::MatrixXd& phi, const Eigen::VectorXd& gamma, const Eigen::MatrixXd& out,
+                 const Eigen::VectorXd& oc, Eigen::VectorXd& x_io, int samples, double* y, double* u,
+                 double* states) {
+#if defined(SPECLOOP_AVX_KERNELS)
+  if (has_avx()) return recur_fixed_avx<N>(phi, gamma, out, oc, x_io, samples, y, u, states);
+#endif
+  recur_fixed_portable<N>(phi, gamma, out, oc, x_io, samples, y, u, states);
+}
+
+}  // namespace
+
+SampleExtremes scan_samples(const double* y, const double* u, int count, double y_inf, double inv, double band,
+                            const ScanBits& bits) {
+  double yh = y[0], yl = y[0], uh = u[0], ul = u[0];
+  int k = 0;
+#if defined(SPECLOOP_AVX_KERNELS)
+  if (has_avx()) {
+    SampleExtremes ex{yh, yl, uh, ul};
+    k = scan_samples_avx(y, u, count, y_inf, inv, band, bits, ex);
+    yh = ex.y_hi;
+    yl = ex.y_lo;
+    uh = ex.u_hi;
+    ul = ex.u_lo;
+  }
+#endif
+#if defined(__SSE2__)
+  // Two samples a step; max/min keep the comparison order of the scalar tail (no NaN reaches
+  // here unnoticed: the caller checks the last sample, which a NaN would have spread to).
+  const __m128d v_inf = _mm_set1_pd(y_inf), v_inv = _mm_set1_pd(inv), v_one = _mm_set1_pd(1.0),
+                v_band = _mm_set1_pd(band), v_abs = _mm_castsi128_pd(_mm_set1_epi64x(0x7fffffffffffffffLL));
+  __m128d vyh = _mm_set1_pd(yh), vyl = _mm_set1_pd(yl), vuh = _mm_set1_pd(uh), vul = _mm_set1_pd(ul);
+  for (; k + 64 <= count; k += 64) {
+    std::uint64_t b = 0, o = 0, f = 0;
+    for (int j = 0; j < 64; j += 2) {
+      const __m128d yv = _mm_loadu_pd(y + k + j), uv = _mm_loadu_pd(u + k + j), yn = _mm_loadu_pd(y + k + j + 1);
+      b |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_sub_pd(v_inf, yv))) << j;
+      const __m128d dev = _mm_and_pd(_mm_sub_pd(_mm_mul_pd(yv, v_inv), v_one), v_abs);
+      o |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmpgt_pd(dev, v_band))) << j;
+      f |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmplt_pd(yn, yv))) << j;
+      vyh = _mm_max_pd(yv, vyh);
+      vyl = _mm_min_pd(yv, vyl);
+      vuh = _mm_max_pd(uv, vuh);
+      vul = _mm_min_pd(uv, vul);
+    }
+    bits.below[k / 64] = b;
+    bits.outside[k / 64] = o;
+    bits.falling[k / 64] = f;
+  }
+  double lanes[2];
+  _mm_storeu_pd(lanes, vyh);
+  yh = std::max(lanes[0], lanes[1]);
+  _mm_storeu_pd(lanes, vyl);
+  yl = std::min(lanes[0], lanes[1]);
+  _mm_storeu_pd(lanes, vuh);
+  uh = std::max(lanes[0], lanes[1]);
+  _mm_storeu_pd(lanes, vul);
+  ul = std::min(lanes[0], lanes[1]);
+#endif
+  for (; k < count; k += 64) {  // the rest (everything without SSE2)
+    std::uint64_t b = 0, o = 0, f = 0;
+    for (int j = 0; j < 64 && k + j < count; ++j) {
+      const double yk = y[k + j], uk = u[k + j], dev = std::abs(yk * inv - 1.0);
+      b |= static_cast<std::uint64_t>(std::signbit(y_inf - yk)) << j;
+      o |= static_cast<std::uint64_t>(dev > band) << j;
+      f |= static_cast<std::uint64_t>(y[k + j + 1] < yk) << j;
+      yh = yk > yh ? yk : yh;
+      yl = yk < yl ? yk : yl;
+      uh = uk > uh ? uk : uh;
+      ul = uk < ul ? uk : ul;
+    }
+    bits.below[k / 64] = b;
+    bits.outside[k / 64] = o;
+    bits.falling[k / 64] = f;
+  }
+  return {yh, yl, uh, ul};
+}
+
+SegmentSums segment_sums(const double* y, int first, int last, double y_inf, double t_first, double h) {
+#if defined(SPECLOOP_AVX_KERNELS)
+  if (has_avx()) return segment_sums_avx(y, first, last, y_inf, t_first, h);
+#endif
+  return segment_sums_kernel<2>(y, first, last, y_inf, t_first, h);
+}
+
+bool recur_fixed_size(int n, const Eigen::MatrixXd& phi, const Eigen::VectorXd& gamma, const Eigen::MatrixXd& outputs,
+                      const Eigen::VectorXd& out_const, Eigen::VectorXd& x_io, int count, double* y, double* u,
+                      double* states) {
+  switch (n) {
+    case 1: recur_fixed<1>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
+    case 2: recur_fixed<2>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
+    case 3: recur_fixed<3>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
+    case 4: recur_fixed<4>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
+    case 5: recur_fixed<5>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
+    case 6: recur_fixed<6>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
+    case 7: recur_fixed<7>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
+    case 8: recur_fixed<8>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
+    default: return false;
+  }
+}
+
+}  // namespace specloop::exact_step
+
+namespace specloop::detail {
+void use_portable_kernels(bool portable) {
+#if defined(SPECLOOP_AVX_KERNELS)
+  exact_step::g_portable_kernels.store(portable, std::memory_order_relaxed);
+#else
+  (void)portable;
+#endif
+}
+bool wide_kernels_available() {
+#if defined(SPECLOOP_AVX_KERNELS)
+  return __builtin_cpu_supports("avx");
+#else
+  return false;
+#endif
+}
+}  // namespace specloop::detail
