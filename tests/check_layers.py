@@ -34,9 +34,6 @@ SIZE_EXCEPTIONS = {
     "src/sim/sampled_loop.cpp:SampledStepSimulator::simulate": "being split (issue 13)",
     "src/spec/spec.cpp": "being split (issue 13)",
     "src/spec/spec.cpp:read_nonlinear_form": "being split (issue 13)",
-    "src/sweep/sweep.cpp": "being split (issue 13)",
-    "src/sweep/sweep_report.cpp": "being split (issue 13)",
-    "src/sweep/sweep_report.cpp:write_report": "being split (issue 13)",
 }
 
 INCLUDE = re.compile(r'^\s*#\s*include\s+"([^"]+)"')
