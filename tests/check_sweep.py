@@ -57,7 +57,7 @@ def tightest_ok(row):
         if not c["met"] or c["value"] is None or (c["limit"] == 0 and abs(c["value"]) <= 1e-9):
             continue
         scale = abs(c["limit"]) if c["limit"] != 0 else 0.01
-        room = (c["limit"] - c["value"]) / scale if c["upper"] else (c["value"] - c["limit"]) / scale
+        room = (c["limit"] - c["value"]) / scale if c["bound"] == "max" else (c["value"] - c["limit"]) / scale
         if best is None or room < best:
             best, name = room, c["requirement"]
     return row[4] in ("linear", "nonlinear") and row[5] == name
@@ -117,8 +117,8 @@ def main() -> int:
                                 "FROM sweep_header").fetchall()
             points = db.execute("SELECT idx, v1, v2 FROM sweep_points ORDER BY idx").fetchall()
             mode = db.execute("PRAGMA journal_mode").fetchone()[0]
-        t.check("store", "one header row, format specloop-sweep-2, 12 points, shard 1/1",
-                len(header) == 1 and header[0][0] == "specloop-sweep-2" and header[0][6] == POINTS
+        t.check("store", "one header row, format specloop-sweep-3, 12 points, shard 1/1",
+                len(header) == 1 and header[0][0] == "specloop-sweep-3" and header[0][6] == POINTS
                 and header[0][5] == "1/1", str(header[0][:2] + header[0][4:]) if header else "none")
         t.check("store", "the spec hash is the FNV-1a 64 of the stored spec text",
                 header[0][3] == fnv1a64(header[0][2].encode()), header[0][3])

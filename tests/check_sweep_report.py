@@ -95,6 +95,18 @@ def store_rows(store):
     return points, results, band_pct
 
 
+SUMMARY_KEYS = ("status", "meets_all", "controller", "checks", "second_order", "simulated", "nonlinear")
+SUMMARY_NONLINEAR_KEYS = ("status", "simulated", "checks", "meets_all", "confirmed")
+
+
+def as_stored(design):
+    """A result.json design object restricted to the keys the store keeps (README, "The store")."""
+    out = {k: design[k] for k in SUMMARY_KEYS}
+    if out["nonlinear"] is not None:
+        out["nonlinear"] = {k: design["nonlinear"][k] for k in SUMMARY_NONLINEAR_KEYS}
+    return out
+
+
 def verdict_of(r):
     """The report's verdict categories (README, sweep-report), from the stored row."""
     if r is None:
@@ -115,9 +127,9 @@ def front_metric(r, metric, nonlinear, band_pct):
     if nonlinear:
         if not d["nonlinear"] or d["nonlinear"]["status"] != "ok":
             return None
-        m = d["nonlinear"]["metrics"]
+        m = d["nonlinear"]["simulated"]
     else:
-        m = d["linear"]
+        m = d["simulated"]
     if metric == "peak_time":  # README, "Metric definitions": the visible peak, else the final band entry
         visible = (m["peak_time"] is not None and m["overshoot_pct"] > band_pct
                    and m.get("post_peak_dip_pct", 0.0) <= m["overshoot_pct"])
@@ -167,7 +179,7 @@ def errors_of(r):
     c = r["classical"] if r else None
     if c is None or c["second_order"] is None:
         return None, None, False
-    so, lin = c["second_order"], c["linear"]
+    so, lin = c["second_order"], c["simulated"]
 
     def rel(pred, sim):
         return None if pred is None or sim is None or pred == 0 else (sim - pred) / pred * 100.0
@@ -193,8 +205,9 @@ def check_points_csv(t, out, points, results):
         eo, et, _ = errors_of(r)
         if not (close(number(row["overshoot_error_pct"]), eo) and close(number(row["peak_time_error_pct"]), et)):
             bad.append((idx, "approximation errors", row["overshoot_error_pct"], eo))
-        for prefix, design, path in (("classical_", r["classical"], ("linear",)), ("optimized_", r["optimized"], ("linear",)),
-                                     ("optimized_nonlinear_", r["optimized"], ("nonlinear", "metrics"))):
+        for prefix, design, path in (("classical_", r["classical"], ("simulated",)),
+                                     ("optimized_", r["optimized"], ("simulated",)),
+                                     ("optimized_nonlinear_", r["optimized"], ("nonlinear", "simulated"))):
             for m in METRICS:
                 want = None
                 if design is not None:
@@ -368,13 +381,14 @@ def main():
             for i, limit in enumerate((6.0, 14.0)):
                 res = json.loads((reports / f"point-{i}" / "result.json").read_text())
                 page = (reports / f"point-{i}" / "report.md").read_text()
-                stored = small_results[i]["optimized"]["linear"]
                 ok = ok and res["spec"]["requirements"]["overshoot_max_pct"] == limit
                 ok = ok and f"overshoot_max_pct = {limit}" in page and f"sweep point {i}" in page
-                ok = ok and all(close(res["designs"]["optimized"]["simulated"][m], stored[m], 1e-12)
-                                for m in ("overshoot_pct", "effort_peak", "itae"))
-        t.check("point reports", "one design report per point, for that point's spec, agreeing with the store", ok,
-                r.stderr.strip()[-300:])
+                # One dialect (README, "The store"): each stored summary is result.json's design
+                # object restricted to the summary's keys, value for value.
+                for name in ("classical", "optimized"):
+                    ok = ok and small_results[i][name] == as_stored(res["designs"][name])
+        t.check("point reports", "one design report per point, for that point's spec; each stored design summary "
+                "equals its result.json design object restricted to the summary's keys", ok, r.stderr.strip()[-300:])
 
         # A part-finished store: the missing points show as not run.
         part = work / "part.sqlite"
@@ -412,7 +426,7 @@ def main():
         misshapen = work / "misshapen.sqlite"
         shutil.copy(store, misshapen)
         with sqlite3.connect(misshapen) as db:
-            db.execute("""UPDATE sweep_results SET optimized = '{"nonlinear": {"status": 7}, "linear": {}}' """
+            db.execute("""UPDATE sweep_results SET optimized = '{"nonlinear": {"status": 7}, "simulated": {}}' """
                        "WHERE idx = (SELECT min(idx) FROM sweep_results WHERE met = 1)")
         # Damage the fuzzer (tests/fuzz/fuzz_store_sql.cpp) reached: a damaged axis was reported as if
         # the user had typed a bad --vary; a point stored twice or off its grid value, or an infinite
@@ -435,12 +449,15 @@ def main():
         endless = damaged("endless-time", "UPDATE sweep_results SET point_wall_time_s = -2e308 "
                                           "WHERE idx = (SELECT min(idx) FROM sweep_results)")
         huge = damaged("huge-grid", "UPDATE sweep_axes SET definition = '1:2:1000000'")
+        # Format 2 wrote the design summaries in a dialect of their own; it is refused, not read.
+        older = damaged("format-2", "UPDATE sweep_header SET format = 'specloop-sweep-2'")
         cases = [
             ("damaged axis", [str(bad_axis)], "axis 1 of the store ('requirements.overshoot_max_pct=banana') is damaged"),
             ("point stored twice", [str(twice)], "point 0 is stored twice (damaged)"),
             ("point off the grid", [str(off_grid)], "point 0's values differ from the grid's (damaged)"),
             ("infinite wall time", [str(endless)], "are not finite times >= 0 (damaged)"),
             ("grid too large", [str(huge)], "has more than 10000000 points"),
+            ("store of format 2", [str(older)], "store format 'specloop-sweep-2', this specloop reads 'specloop-sweep-3'"),
             ("design summary not JSON", [str(garbled)], "not valid JSON"),
             ("design summary of another form", [str(misshapen)], "does not have the expected form"),
             ("missing file", [str(work / "nowhere.sqlite")], "no such file"),

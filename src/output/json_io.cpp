@@ -1,6 +1,7 @@
 // JSON output of the characterization.
 #include "specloop/output/json_io.hpp"
 #include "specloop/output/caution.hpp"
+#include "specloop/output/design_json.hpp"
 
 #include <algorithm>
 #include <cmath>
@@ -250,122 +251,6 @@ json spec_json(const Spec& spec) {
             {"bounds", bounds}}},
           {"sweep", {{"vary", spec.sweep_vary}}},
           {"units", units_json(spec.units)}};
-}
-
-json design_json(const Design& d) {
-  const Controller& c = d.controller;
-  json series = json::object();
-  const auto& info = structure_parameters(c.structure);
-  const std::vector<double> shown = signed_series(c);
-  for (std::size_t i = 0; i < info.size(); ++i) series[info[i].name] = number_json(shown[i]);
-  json parallel = nullptr, standard = nullptr;
-  if (c.parallel)
-    parallel = {{"kp", number_json(c.parallel->kp)}, {"ki", number_json(c.parallel->ki)},
-                {"kd", number_json(c.parallel->kd)}, {"filter_time", number_json(c.parallel->filter_time)}};
-  if (c.standard)
-    standard = {{"kp", number_json(c.standard->kp)},
-                {"ti", c.standard->has_integral ? number_json(c.standard->ti) : json(nullptr)},
-                {"td", c.standard->has_derivative ? number_json(c.standard->td) : json(nullptr)},
-                {"n", c.standard->has_derivative ? number_json(c.standard->n) : json(nullptr)}};
-  auto checks_json = [](const std::vector<RequirementCheck>& list) {
-    json out = json::array();
-    for (const auto& check : list)
-      out.push_back({{"requirement", check.requirement.key},
-                     {"limit", number_json(check.requirement.limit)},
-                     {"bound", check.requirement.upper ? "max" : "min"},
-                     {"on_magnitude", check.requirement.magnitude},  // the bound applies to |value|
-                     {"unit", check.requirement.unit},
-                     {"value", optional_number(check.value)},
-                     {"met", check.met},
-                     {"violation", number_json(check.violation)},
-                     {"slack", number_json(check.slack)}});
-    return out;
-  };
-  const json checks = checks_json(d.checks);
-  json out = {{"status", status_name(d.status)},
-              {"controller",
-               {{"structure", structure_name(c.structure)},
-                {"action", action_name(c.action)},
-                {"numerator", numbers(c.transfer.numerator.coefficients)},
-                {"denominator", numbers(c.transfer.denominator.coefficients)},
-                {"derivative_filter", number_json(c.derivative_filter)},
-                {"reference_numerator", numbers(d.reference_path.numerator.coefficients)},
-                {"reference_denominator", numbers(d.reference_path.denominator.coefficients)},
-                {"series", series},
-                {"parallel", parallel},
-                {"standard", standard}}},
-              {"closed_loop_poles", poles_json(d.closed_loop_poles)},
-              {"checks", checks},
-              {"meets_all", d.meets_all},
-              {"simulated_loop", d.sampled ? "sampled" : "continuous"},
-              {"warnings", d.warnings},
-              {"notes", d.notes}};
-  out["second_order"] = d.second_order
-                            ? json{{"overshoot_pct", number_json(d.second_order->overshoot_pct)},
-                                   {"peak_time", number_json(d.second_order->peak_time_s)},
-                                   {"settling_time", number_json(d.second_order->settling_time_s)},
-                                   {"damping_ratio", number_json(d.second_order->damping_ratio)},
-                                   {"natural_frequency", number_json(d.second_order->natural_frequency)}}
-                            : json(nullptr);
-  out["simulated"] = d.status == StepStatus::ok ? metrics_json(d.simulated) : json(nullptr);
-  out["dominance"] = d.dominance ? dominance_json(*d.dominance) : json(nullptr);
-  if (d.nonlinear) {
-    const NonlinearConfirmation& n = *d.nonlinear;
-    out["nonlinear"] = {{"status", status_name(n.status)},
-                        {"simulated", n.status == NonlinearStatus::ok ? metrics_json(n.simulated) : json(nullptr)},
-                        {"saturated_fraction", number_json(n.saturated_fraction)},
-                        {"rate_limited_fraction", number_json(n.rate_limited_fraction)},
-                        {"command_excess_max", number_json(n.command_excess_max)},
-                        {"integrator_held_fraction", number_json(n.integrator_held_fraction)},
-                        {"active_effects", n.active_effects},
-                        {"horizon", number_json(n.horizon_s)},
-                        {"horizon_bound_hit", n.horizon_bound_hit},
-                        {"stepper", stepper_name(n.stepper)},
-                        {"noise_period", optional_number(n.noise_period_s)},
-                        {"tracking_time", optional_number(n.tracking_time_s)},
-                        {"checks", checks_json(n.checks)},
-                        {"meets_all", n.meets_all},
-                        {"confirmed", n.confirmed},
-                        {"verdict", n.verdict},
-                        {"notes", n.notes}};
-    json attribution = json::array();
-    for (const CauseTrial& t : n.attribution)
-      attribution.push_back({{"factor", t.factor},
-                             {"factors", t.factors},
-                             {"removed", t.removed},
-                             {"status", status_name(t.status)},
-                             {"checks", checks_json(t.checks)},
-                             {"restores", t.restores}});
-    out["nonlinear"]["attribution"] = attribution;
-    if (n.difference_equation) {
-      const DifferenceEquation& de = *n.difference_equation;
-      out["nonlinear"]["difference_equation"] = {{"sample_time", number_json(de.sample_time_s)},
-                                                 {"reference_numerator", numbers(de.reference_numerator)},
-                                                 {"measurement_numerator", numbers(de.measurement_numerator)},
-                                                 {"denominator", numbers(de.denominator)},
-                                                 {"method", de.method}};
-    } else {
-      out["nonlinear"]["difference_equation"] = nullptr;
-    }
-  } else {
-    out["nonlinear"] = nullptr;
-  }
-  if (d.margins) {
-    const Margins& m = *d.margins;
-    // An absent crossover means an infinite margin.
-    out["margins"] = {{"gain_margin_db", m.gain_margin_db ? number_json(*m.gain_margin_db) : json("infinite")},
-                      {"phase_crossover", optional_number(m.phase_crossover_rad_s)},
-                      {"phase_margin_deg", m.phase_margin_deg ? number_json(*m.phase_margin_deg) : json("infinite")},
-                      {"gain_crossover", optional_number(m.gain_crossover_rad_s)},
-                      {"sensitivity_peak", number_json(m.sensitivity_peak)},
-                      {"sensitivity_peak_frequency", number_json(m.sensitivity_peak_rad_s)},
-                      {"delay_margin", m.delay_margin_s ? number_json(*m.delay_margin_s) : json("infinite")},
-                      {"lower_gain_margin_db", optional_number(m.lower_gain_margin_db)},
-                      {"lower_phase_crossover", optional_number(m.lower_phase_crossover_rad_s)}};
-  } else {
-    out["margins"] = nullptr;
-  }
-  return out;
 }
 
 json search_json(const SearchSummary& s) {

@@ -56,7 +56,7 @@ inline void read_and_check(std::string_view harness, const std::filesystem::path
   } catch (const std::exception& e) {
     fail_exception(harness, e);
   }
-  SPECLOOP_FUZZ_CHECK(harness, contents.format == "specloop-sweep-2", "a store of format '{}' was read",
+  SPECLOOP_FUZZ_CHECK(harness, contents.format == "specloop-sweep-3", "a store of format '{}' was read",
                       contents.format);
   std::size_t size = 0;
   try {

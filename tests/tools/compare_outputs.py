@@ -5,7 +5,8 @@ version and wall-clock figures).
 
 Inputs: every spec in specs/, tests/claims/ and tests/unusual_plants/ (`design`, result.json), the
 committed example sweep (re-run with the axes of tests/tools/refresh_examples.py; every point's
-stored design summaries and checks), and `sweep-report`'s points.csv and front.csv of both stores.
+stored design summaries and checks — a format-2 store's mapped into format 3's dialect, see
+summary_v2_to_v3), and `sweep-report`'s points.csv and front.csv of both stores.
 
 The search's wall-time cap (`search.max_time`, 20 s by default) binds on a loaded machine and then
 ends two runs of the same binary at different evaluation counts; so each spec is run from a copy with
@@ -98,9 +99,64 @@ def compare_spec(before, after, spec, work):
     return problems
 
 
+# Store format 3 writes each design summary with result.json's encoder (design_summary). A format-2
+# summary (an older binary's) is mapped into that dialect before the comparison, and the keys that
+# format 3 added are left out of the format-3 side, so that every stored value of the old store is
+# still compared with its counterpart. The added keys come from the code that writes result.json,
+# which the spec comparisons above cover field by field.
+ADDED_IN_FORMAT_3 = {
+    "check": {"on_magnitude", "unit", "violation"},
+    "controller": {"action", "numerator", "denominator", "derivative_filter", "reference_numerator",
+                   "reference_denominator"},
+    "second_order": {"settling_time", "damping_ratio", "natural_frequency"},
+}
+
+
+def checks_v2_to_v3(checks):
+    """Format 2's check {requirement, limit, upper, value, met, slack} → format 3's `bound`."""
+    out = []
+    for c in checks:
+        c = dict(c)
+        c["bound"] = "max" if c.pop("upper") else "min"
+        out.append(c)
+    return out
+
+
+def summary_v2_to_v3(d):
+    """A format-2 design summary in format 3's dialect: `linear` → `simulated` and
+    `nonlinear.metrics` → `nonlinear.simulated`, each null unless its loop's status is "ok" (as
+    result.json writes them; format 2 kept the metrics of a failed loop); `upper` → `bound`."""
+    d = dict(d)
+    linear = d.pop("linear")
+    d["simulated"] = linear if d["status"] == "ok" else None
+    d["checks"] = checks_v2_to_v3(d["checks"])
+    if d.get("nonlinear"):
+        nl = dict(d["nonlinear"])
+        metrics = nl.pop("metrics")
+        nl["simulated"] = metrics if nl["status"] == "ok" else None
+        nl["checks"] = checks_v2_to_v3(nl["checks"])
+        d["nonlinear"] = nl
+    return d
+
+
+def without_added_keys(d):
+    """A format-3 summary without the keys format 3 added (compared against a mapped format-2 one)."""
+    d = dict(d)
+    drop = lambda obj, kind: {k: v for k, v in obj.items() if k not in ADDED_IN_FORMAT_3[kind]}
+    d["controller"] = drop(d["controller"], "controller")
+    if d.get("second_order"):
+        d["second_order"] = drop(d["second_order"], "second_order")
+    d["checks"] = [drop(c, "check") for c in d["checks"]]
+    if d.get("nonlinear"):
+        d["nonlinear"] = dict(d["nonlinear"], checks=[drop(c, "check") for c in d["nonlinear"]["checks"]])
+    return d
+
+
 def store_rows(path):
+    """The store's format and its result rows by index (wall times dropped, summaries parsed)."""
     con = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
     con.row_factory = sqlite3.Row
+    store_format = con.execute("SELECT format FROM sweep_header").fetchone()[0]
     rows = {}
     for r in con.execute("SELECT * FROM sweep_results ORDER BY idx"):
         d = {k: r[k] for k in r.keys() if not k.endswith("wall_time_s")}
@@ -109,7 +165,26 @@ def store_rows(path):
                 d[k] = strip(json.loads(d[k]))
         rows[d["idx"]] = d
     con.close()
-    return rows
+    return store_format, rows
+
+
+def comparable_rows(before, after):
+    """Both stores' rows in one dialect: a format-2 store mapped to format 3, the format-3 side then
+    without the keys format 3 added; two stores of one format as they are."""
+    (format_b, rows_b), (format_a, rows_a) = before, after
+    if format_b == format_a:
+        return rows_b, rows_a
+    if (format_b, format_a) != ("specloop-sweep-2", "specloop-sweep-3"):
+        raise SystemExit(f"compare_outputs: no mapping from store format {format_b} to {format_a}")
+    for row in rows_b.values():
+        for k in ("classical", "optimized"):
+            if row.get(k):
+                row[k] = summary_v2_to_v3(row[k])
+    for row in rows_a.values():
+        for k in ("classical", "optimized"):
+            if row.get(k):
+                row[k] = without_added_keys(row[k])
+    return rows_b, rows_a
 
 
 def read_csv(path):
@@ -130,6 +205,9 @@ def compare_sweep(before, after, work):
         subprocess.run([exe, "sweep-report", str(store), "--out", str(report)], cwd=ROOT, check=True,
                        capture_output=True)
         data[name] = (store_rows(store), read_csv(report / "points.csv"), read_csv(report / "front.csv"))
+    data["before"] = list(data["before"])
+    data["after"] = list(data["after"])
+    data["before"][0], data["after"][0] = comparable_rows(data["before"][0], data["after"][0])
     for part, a, b in zip(("store", "points.csv", "front.csv"), data["before"], data["after"]):
         problems += [f"{part}{p}" for p in diff(a, b, limit=10)]
     return problems

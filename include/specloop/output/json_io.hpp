@@ -6,6 +6,7 @@
 
 #include "specloop/design/characterize.hpp"
 #include "specloop/design/design.hpp"
+#include "specloop/output/design_json.hpp"  // design_json: one design, as result.json writes it
 
 namespace specloop {
 
@@ -34,9 +35,6 @@ nlohmann::json characterization_json(const Spec& spec, const Characterization& c
 nlohmann::json linearization_json(const Spec& spec);
 /// The spec as normalized (both plant forms, every default filled in).
 nlohmann::json spec_json(const Spec& spec);
-/// One design: controller (all parameterizations), poles, second-order prediction, simulated
-/// metrics, margins, requirement checks.
-nlohmann::json design_json(const Design& d);
 /// The search summary.
 nlohmann::json search_json(const SearchSummary& s);
 /// The whole result.json (schema "specloop-result-1").

@@ -1,47 +1,19 @@
 // Sweeps: a grid of spec variants (the Cartesian product of varied numeric keys), each point
-// designed in full, the results kept in a resumable SQLite store; shards and their merge.
+// designed in full on worker threads, the results kept in a resumable SQLite store. The point
+// specs are in sweep_spec.hpp, reading and merging stores in store.hpp (both included here).
 #pragma once
 
 #include <atomic>
-#include <cstdint>
+#include <cstddef>
 #include <functional>
-#include <optional>
-#include <stdexcept>
 #include <string>
-#include <string_view>
-#include <vector>
 
 #include "specloop/spec/axes.hpp"
 #include "specloop/sweep/pareto.hpp"
+#include "specloop/sweep/store.hpp"
+#include "specloop/sweep/sweep_spec.hpp"
 
 namespace specloop {
-
-/// A spec file prepared for sweeping: the document re-serialized without its [sweep] table (the
-/// canonical text that identifies the spec), and the point texts.
-class SweepSpec {
- public:
-  /// Reads the file (SpecError/SweepError on problems). Does not validate the axes' keys yet.
-  explicit SweepSpec(const std::string& path);
-  ~SweepSpec();
-  SweepSpec(const SweepSpec&) = delete;
-  SweepSpec& operator=(const SweepSpec&) = delete;
-
-  const std::string& path() const { return path_; }
-  const std::string& name() const { return name_; }
-  const std::string& canonical_text() const { return canonical_; }
-  /// The axes written in the spec's [sweep] vary list (empty when there is none).
-  const std::vector<std::string>& vary_in_file() const { return vary_in_file_; }
-  /// Checks that every axis key names a number present in the document (not in [sweep]).
-  void check_keys(const SweepGrid& grid) const;
-  /// The spec text of one point: the canonical document with each axis key set to its value.
-  std::string point_text(const SweepGrid& grid, std::size_t index) const;
-
- private:
-  struct Impl;
-  Impl* impl_;
-  std::string path_, name_, canonical_;
-  std::vector<std::string> vary_in_file_;
-};
 
 /// What a sweep run did.
 struct SweepOutcome {
@@ -82,37 +54,5 @@ std::string point_report_name(std::size_t index, std::size_t grid_size);
 /// The default store path: results/<name>.sweep.sqlite, with ".shard-K-of-N" before ".sqlite"
 /// for a shard other than 1/1.
 std::string default_store_path(const std::string& spec_name, const Shard& shard);
-
-/// Combines stores of the same spec and grid into `out` (written to a temporary file beside it,
-/// then renamed). Throws SweepError naming the files on a mismatch or a disagreeing overlap.
-/// Returns the number of finished points in `out`.
-std::size_t merge_stores(const std::string& out, const std::vector<std::string>& inputs);
-
-/// One grid point of a store, with its result when finished.
-struct StoredPoint {
-  std::size_t index = 0;
-  std::vector<double> values;        // one per axis
-  bool finished = false;             // has a result row
-  std::string status;                // "ok" or "error" (finished points)
-  std::string error;                 // the message of an "error" point
-  bool met = false;
-  std::string judged_on, binding;    // binding: "" when none
-  int evaluations = 0;
-  std::optional<bool> classical_confirmed, optimized_confirmed;
-  std::string classical, optimized;  // JSON text (README, "The store"); empty: no such design
-  double search_wall_time_s = 0.0, point_wall_time_s = 0.0;
-};
-
-/// A whole store, read.
-struct SweepStoreContents {
-  std::string path, format, tool_version, spec_name, spec_text, spec_hash, shard;
-  SweepGrid grid;
-  std::vector<StoredPoint> points;   // every grid point, by index
-  std::size_t finished() const;
-};
-
-/// Reads a store (read-only). Throws SweepError for a missing, damaged, truncated, foreign or
-/// other-format file, naming the file and what is wrong.
-SweepStoreContents read_sweep_store(const std::string& path);
 
 }  // namespace specloop

@@ -1,1 +1,1 @@
-UPDATE sweep_results SET optimized = json_set(optimized, '$.nonlinear.metrics.peak_time', 'soon'), classical = json_set(classical, '$.second_order.overshoot_pct', 0);
+UPDATE sweep_results SET optimized = json_set(optimized, '$.nonlinear.simulated.peak_time', 'soon'), classical = json_set(classical, '$.second_order.overshoot_pct', 0);

@@ -1,1 +1,1 @@
-UPDATE sweep_results SET optimized = '{"controller": {"parallel": 3, "series": {"gain": "x"}}, "linear": {"peak_time": 1e999}}';
+UPDATE sweep_results SET optimized = '{"controller": {"parallel": 3, "series": {"gain": "x"}}, "simulated": {"peak_time": 1e999}}';
