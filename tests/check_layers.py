@@ -2,7 +2,7 @@
 """The architecture's rules, checked on the source tree (DEVELOPERS.md, "Architecture"):
 
   1. Every source and public header sits in a layer folder: src/<layer>/, include/specloop/<layer>/.
-  2. A file includes only its own layer and the layers before it, in the order
+  2. A file (and a unit test in tests/<layer>/) includes only its own layer and the layers before it, in the order
      core < sim < spec < design < output < sweep < cli. A new back edge fails with the file, the
      line and both layers named.
   3. No file over 600 lines and no function over 150 lines, except those listed in SIZE_EXCEPTIONS
@@ -42,6 +42,12 @@ def files(root):
         for path in sorted(base.rglob("*")):
             if path.suffix in (".cpp", ".hpp"):
                 yield base, path
+
+
+def test_files(root):
+    """The unit tests, tests/<layer>/test_*.cpp: held to the include order, not to the sizes."""
+    for layer in LAYERS:
+        yield from ((layer, p) for p in sorted((root / "tests" / layer).glob("*.cpp")))
 
 
 def strip_code(text):
@@ -140,6 +146,16 @@ def check(root, exceptions):
             sizes.append((length, f"{rel}:{start}", name))
             if length > MAX_FUNCTION_LINES and f"{rel}:{name}" not in exceptions:
                 problems.append(f"{rel}:{start}: {name} is {length} lines (at most {MAX_FUNCTION_LINES} unless listed)")
+    for layer, path in test_files(root):
+        rel = path.relative_to(root).as_posix()
+        for number, line in enumerate(path.read_text().split("\n"), 1):
+            m = INCLUDE.match(line)
+            target = layer_of_include(m.group(1)) if m else None
+            if target is not None and RANK[target] > RANK[layer]:
+                problems.append(f"{rel}:{number}: a test of the {layer} layer includes \"{m.group(1)}\" of the "
+                                f"later {target} layer (move the test to tests/{target}/)")
+    loose = sorted(p.name for p in (root / "tests").glob("test_*.cpp")) if (root / "tests").is_dir() else []
+    problems += [f"tests/{name}: a unit test outside the layer folders tests/<layer>/" for name in loose]
     return problems, edges, sizes
 
 
@@ -166,15 +182,17 @@ def self_test():
         write("src/sim/b.cpp", '#include "specloop/design/d.hpp"\n#include "specloop/core/a.hpp"\n')
         write("src/loose.cpp", "int z;\n")
         write("src/spec/long.cpp", "int f(int x) {\n" + body * 2 + "  return x;\n}\n" + "\n" * 400)
+        write("tests/sim/test_b.cpp", '#include "specloop/output/r.hpp"\n')
         problems, _, _ = check(root, {})
         expect = ["src/sim/b.cpp:1: the sim layer includes", "src/loose.cpp: not in a layer folder",
-                  "src/spec/long.cpp: 643 lines", "src/spec/long.cpp:1: f is 243 lines"]
+                  "src/spec/long.cpp: 643 lines", "src/spec/long.cpp:1: f is 243 lines",
+                  "tests/sim/test_b.cpp:1: a test of the sim layer includes"]
         for e in expect:
             assert any(p.startswith(e) for p in problems), (e, problems)
         assert len(problems) == len(expect), problems
         excused, _, _ = check(root, {"src/spec/long.cpp": "test", "src/spec/long.cpp:f": "test"})
-        assert len(excused) == 2, excused
-    print("check_layers: self-test passed (back edge, loose file, long file, long function caught)")
+        assert len(excused) == 3, excused
+    print("check_layers: self-test passed (back edges in src and tests, loose file, long file, long function caught)")
 
 
 def main():
