@@ -2,6 +2,7 @@
 #include "specloop/output/json_io.hpp"
 #include "specloop/output/caution.hpp"
 #include "specloop/output/design_json.hpp"
+#include "specloop/spec/requirement_catalogue.hpp"
 
 #include <algorithm>
 #include <cmath>
@@ -218,18 +219,10 @@ json spec_json(const Spec& spec) {
                             {"noise_period", dist.noise_period_s > 0.0 ? number_json(dist.noise_period_s) : json(nullptr)},
                             {"seed", dist.noise_seed}};
   const Requirements& r = spec.requirements;
-  json requirements = {{"overshoot_max_pct", optional_number(r.overshoot_max_pct)},
-                       {"undershoot_max_pct", optional_number(r.undershoot_max_pct)},
-                       {"peak_time_ratio", optional_number(r.peak_time_ratio)},
-                       {"peak_time_max", optional_number(r.peak_time_max_s)},
-                       {"settling_time_max", optional_number(r.settling_time_max_s)},
-                       {"rise_time_max", optional_number(r.rise_time_max_s)},
-                       {"settling_band_pct", number_json(r.settling_band_pct)},
-                       {"steady_state_error_max", optional_number(r.steady_state_error_max)},
-                       {"effort_max", optional_number(r.effort_max)},
-                       {"phase_margin_min_deg", optional_number(r.phase_margin_min_deg)},
-                       {"gain_margin_min_db", optional_number(r.gain_margin_min_db)},
-                       {"sensitivity_peak_max", optional_number(r.sensitivity_peak_max)}};
+  json requirements = json::object();
+  for (const RequirementEntry& entry : requirement_catalogue())
+    requirements[std::string(entry.key)] =
+        entry.is_limit() ? optional_number(r.*(entry.limit)) : number_json(r.*(entry.setting));
   json bounds = json::object();
   for (const auto& [name, range] : spec.search.bounds) bounds[name] = {range.first, range.second};
   return {{"path", spec.path},

@@ -2,6 +2,7 @@
 // the classical prediction's errors, the gains shown, the map slice, the front's candidates and the
 // non-dominated ones, and the counts over the whole grid.
 #include "sweep/report_view.hpp"
+#include "specloop/spec/requirement_catalogue.hpp"
 
 #include <fmt/format.h>
 
@@ -39,12 +40,9 @@ const char* verdict_colour(Verdict v) {
 }
 
 std::string requirement_short(const std::string& key) {
-  static const std::map<std::string, std::string> names{
-      {"overshoot_max_pct", "OS"}, {"undershoot_max_pct", "US"}, {"peak_time_ratio", "tp"}, {"peak_time_max", "tp"},
-      {"settling_time_max", "ts"}, {"rise_time_max", "tr"}, {"steady_state_error_max", "ess"}, {"effort_max", "u"},
-      {"gain_margin_min_db", "GM"}, {"phase_margin_min_deg", "PM"}, {"sensitivity_peak_max", "Ms"}, {"stability", "unst"}};
-  const auto it = names.find(key);
-  return it == names.end() ? key : it->second;
+  if (key == "stability") return "unst";  // the binding "requirement" of an unstable optimum
+  if (const RequirementEntry* entry = find_requirement(key)) return std::string(entry->label);
+  return key;
 }
 
 const std::vector<std::string>& front_metric_names() {
@@ -126,10 +124,10 @@ PointView view_of(const StoredPoint& p, const std::string& store_path) {
   return v;
 }
 
-// COPY TO REPLACE (issue 13): the time a peak-time requirement reads, re-derived here from a stored
-// metric object — a StepMetrics rebuilt from four stored fields, then effective_peak_time with no
-// margin. The requirement check's reading has an edge rule that this copy lacks; the design layer
-// publishes the check's own function: call that here and delete this copy.
+// The time a peak-time requirement reads, from a stored metric object: the requirement check's own
+// reading (effective_peak_time, design/requirements.hpp) without the search's margin, as the
+// verdict reads it. Without a margin it reads exactly these four metrics (the tied-peak rule is
+// already in the stored peak time), so the map's and the front's peak times are the judged ones.
 std::optional<double> stored_peak_time(const json& m, double band_pct) {
   StepMetrics sm;
   sm.overshoot_pct = number_at(m, {"overshoot_pct"}).value_or(0.0);
