@@ -93,7 +93,7 @@ constexpr SpecKey kKeysAfterRequirements[] = {
      "(≤ L becomes ≤ L − m·|L|, ≥ L becomes ≥ L + m·|L|; a zero limit stays zero), the settling band is narrowed by "
      "the same percentage, and a peak counts as visible only with this much to spare (overshoot above band·(1 + m), "
      "dip below overshoot·(1 − m)); so a design it returns keeps room on every limit and still meets them all when "
-     "the plant's gain and poles move by 1e-6 (checked by `tests/test_margin_robustness.cpp`). The checks use the "
+     "the plant's gain and poles move by 1e-6 (checked by `tests/design/test_margin_robustness.cpp`). The checks use the "
      "spec's own limits. `0`: no margin (designs may sit exactly on a limit)"},
     {"search.bounds.<parameter>", "parameter's unit", "from the plant",
      "`[low, high]`, 0 < low < high; parameter names per structure in the `design` section; the gain's bounds are on "

@@ -73,8 +73,9 @@ def main():
                        cwd=ROOT, check=True, capture_output=True)
     report = ROOT / "results" / "examples" / "conveyor_speed.sweep-report"
     shutil.rmtree(report, ignore_errors=True)
-    subprocess.run([exe, "sweep-report", str(ROOT / "results" / "examples" / "conveyor_speed.sweep.sqlite"),
-                    "--out", str(report)], cwd=ROOT, check=True, capture_output=True)
+    # Relative paths: the committed report names the store as a clone sees it, not this machine's path.
+    subprocess.run([exe, "sweep-report", "results/examples/conveyor_speed.sweep.sqlite",
+                    "--out", "results/examples/conveyor_speed.sweep-report"], cwd=ROOT, check=True, capture_output=True)
     print("refreshed: README design block and key table, results/examples/" + (" (sweep re-run)" if args.sweep else ""))
 
 
