@@ -2,7 +2,6 @@
 #include "specloop/core/vocabulary.hpp"
 
 #include <algorithm>
-#include <array>
 #include <cctype>
 #include <stdexcept>
 #include <utility>
@@ -11,10 +10,11 @@ namespace specloop {
 
 namespace {
 
-template <typename E, std::size_t N>
-using Spellings = std::array<std::pair<E, std::string_view>, N>;
+// One table per enum; its length follows from its entries (a new value is one line).
+template <typename E>
+using Spelling = std::pair<E, std::string_view>;
 
-constexpr Spellings<Structure, 7> kStructures{{
+constexpr Spelling<Structure> kStructures[] = {
     {Structure::p, "p"},
     {Structure::pi, "pi"},
     {Structure::pd, "pd"},
@@ -22,45 +22,45 @@ constexpr Spellings<Structure, 7> kStructures{{
     {Structure::lead, "lead"},
     {Structure::lag, "lag"},
     {Structure::lead_lag, "lead-lag"},
-}};
+};
 
-constexpr Spellings<AntiWindup, 3> kAntiWindups{{
+constexpr Spelling<AntiWindup> kAntiWindups[] = {
     {AntiWindup::none, "none"},
     {AntiWindup::conditional_integration, "conditional-integration"},
     {AntiWindup::back_calculation, "back-calculation"},
-}};
+};
 
-constexpr Spellings<Objective, 6> kObjectives{{
+constexpr Spelling<Objective> kObjectives[] = {
     {Objective::itae, "itae"},
     {Objective::iae, "iae"},
     {Objective::ise, "ise"},
     {Objective::effort, "effort"},
     {Objective::settling_time, "settling_time"},
     {Objective::sensitivity_peak, "sensitivity_peak"},
-}};
+};
 
-constexpr Spellings<SimulateMode, 3> kSimulateModes{{
+constexpr Spelling<SimulateMode> kSimulateModes[] = {
     {SimulateMode::automatic, "auto"},
     {SimulateMode::linear, "linear"},
     {SimulateMode::nonlinear, "nonlinear"},
-}};
+};
 
 template <typename E, std::size_t N>
-std::string_view name_in(const Spellings<E, N>& table, E value, const char* what) {
+std::string_view name_in(const Spelling<E> (&table)[N], E value, const char* what) {
   for (const auto& [v, spelling] : table)
     if (v == value) return spelling;
   throw std::invalid_argument(std::string(what) + ": not a listed value");
 }
 
 template <typename E, std::size_t N>
-std::optional<E> parse_in(const Spellings<E, N>& table, std::string_view name) {
+std::optional<E> parse_in(const Spelling<E> (&table)[N], std::string_view name) {
   for (const auto& [v, spelling] : table)
     if (spelling == name) return v;
   return std::nullopt;
 }
 
 template <typename E, std::size_t N>
-std::vector<std::string> names_in(const Spellings<E, N>& table) {
+std::vector<std::string> names_in(const Spelling<E> (&table)[N]) {
   std::vector<std::string> all;
   for (const auto& entry : table) all.emplace_back(entry.second);
   return all;

@@ -54,7 +54,7 @@ constexpr SpecKey kKeysBeforeRequirements[] = {
      "`[plant.nonlinear]` absolute values with min ≤ operating_point.u ≤ max"},
     {"actuator.max", "input units", "unlimited", "upper saturation limit, as `actuator.min`"},
     {"actuator.rate_max", "input units/s", "unlimited", "slew limit of the applied u, > 0"},
-    {"controller.structure", "—", "`pid`", "`p`, `pi`, `pd`, `pid`, `lead`, `lag`, `lead-lag`"},
+    {"controller.structure", "—", "`pid`", "{structures}"},  // filled from the vocabulary's table
     {"controller.derivative_filter", "—", "10",
      "N: the derivative's filter pole sits N times beyond the derivative zero; in (0, 1000] (common practice 2–20)"},
     {"controller.anti_windup", "—", "`conditional-integration`",
@@ -137,6 +137,11 @@ const std::vector<SpecKey>& spec_keys() {
       rows.push_back({key, requirement_unit_key_text(entry.unit), default_value, meaning});
     }
     rows.insert(rows.end(), std::begin(kKeysAfterRequirements), std::end(kKeysAfterRequirements));
+    // The structures' names as the reader accepts them (vocabulary.cpp), so a new structure is listed.
+    std::string& names = texts.emplace_back();
+    for (const std::string& name : structure_names()) names += fmt::format("{}`{}`", names.empty() ? "" : ", ", name);
+    for (SpecKey& row : rows)
+      if (row.meaning == "{structures}") row.meaning = names;
     return rows;
   }();
   return keys;
