@@ -28,14 +28,14 @@ import tempfile
 
 ROOT = pathlib.Path(__file__).resolve().parents[2]
 # Fields that may differ between two runs of the same binary (wall clock) or two versions.
-VOLATILE = {"version", "tool_version", "wall_time_s", "evaluations_per_s", "search_wall_time_s",
-            "point_wall_time_s", "nonlinear_wall_time_s"}
-VOLATILE_CSV_SUFFIXES = ("wall_time_s", "_per_s")
+# Any key ending in one of these suffixes (every wall time and rate), and the version fields.
+VOLATILE_SUFFIXES = ("wall_time_s", "_per_s")
+VOLATILE = {"version", "tool_version"}
 
 
 def strip(value):
     if isinstance(value, dict):
-        return {k: strip(v) for k, v in value.items() if k not in VOLATILE and not k.endswith("wall_time_s")}
+        return {k: strip(v) for k, v in value.items() if k not in VOLATILE and not k.endswith(VOLATILE_SUFFIXES)}
     if isinstance(value, list):
         return [strip(v) for v in value]
     return value
@@ -159,7 +159,7 @@ def store_rows(path):
     store_format = con.execute("SELECT format FROM sweep_header").fetchone()[0]
     rows = {}
     for r in con.execute("SELECT * FROM sweep_results ORDER BY idx"):
-        d = {k: r[k] for k in r.keys() if not k.endswith("wall_time_s")}
+        d = {k: r[k] for k in r.keys() if not k.endswith(VOLATILE_SUFFIXES)}
         for k in ("classical", "optimized"):
             if d.get(k):
                 d[k] = strip(json.loads(d[k]))
@@ -190,7 +190,7 @@ def comparable_rows(before, after):
 def read_csv(path):
     with open(path, newline="") as f:
         rows = list(csv.DictReader(f))
-    return [{k: v for k, v in r.items() if not k.endswith(VOLATILE_CSV_SUFFIXES)} for r in rows]
+    return [{k: v for k, v in r.items() if not k.endswith(VOLATILE_SUFFIXES)} for r in rows]
 
 
 def compare_sweep(before, after, work):
