@@ -5,10 +5,14 @@
 // (closed-loop poles ≈ −0.50 ± j1.70 and −2.50 ± j1.70), unit step, 2 % band.
 //
 // Prints `key value` lines (times in microseconds): median, p10 and p90 of single-call timings
-// for `simulate` without and with the trace, and for building the loop plus simulating; the
-// number of heap allocations made by the timed calls after the first (glibc builds count every
-// malloc); and the loop's coefficients and horizon so that bench/run_bench.sh can time SciPy on
-// the very same loop. No pass/fail here: run_bench.sh compares ratios measured in one run.
+// for `simulate` without and with the trace, for building the loop plus simulating, and for one
+// whole cost evaluation of the search (CandidateEvaluator::evaluate: parameters → controller →
+// realization → closed loop → simulation → metrics → violation → objective) of a P controller
+// with K = 2 on the same plant, the Problem built from a spec text as `design` builds it (two
+// requirements, the ITAE objective), and of a PID on it (for information); the number of heap
+// allocations made by the timed calls after the first (glibc builds count every malloc); and the
+// loop's coefficients and horizon so that bench/run_bench.sh can time SciPy on the very same
+// loop. No pass/fail here: run_bench.sh compares ratios measured in one run.
 //
 // Usage: specloop_bench [repetitions]   (default 20000)
 #include <algorithm>
@@ -20,7 +24,12 @@
 #include <vector>
 
 #include "specloop/core/lti.hpp"
+#include "specloop/design/characterize.hpp"
+#include "specloop/design/evaluate.hpp"
+#include "specloop/design/problem.hpp"
+#include "specloop/design/search.hpp"
 #include "specloop/sim/response.hpp"
+#include "specloop/spec/spec.hpp"
 
 // Allocation counter: on glibc, interpose malloc (forwarding to the real allocator) so that
 // allocations by Eigen (which calls malloc directly) and by operator new are both seen.
@@ -86,6 +95,23 @@ std::string coefficients(const Polynomial& p) {
   return out;
 }
 
+// The bench plant as a spec (the same G(s): k = 8, poles −1, −2, −1.5 ± j2), with `structure`.
+Spec bench_spec(const char* structure) {
+  std::string text = R"(
+[plant]
+poles = [-1.0, -2.0, [-1.5, 2.0]]
+gain = 8.0
+[controller]
+structure = ")";
+  text += structure;
+  text += R"("
+[requirements]
+overshoot_max_pct = 40.0
+settling_time_max = 12.0
+)";
+  return parse_spec(text, "bench.toml");
+}
+
 }  // namespace
 
 int main(int argc, char** argv) {
@@ -145,5 +171,29 @@ int main(int argc, char** argv) {
     sink = sink + metrics.iae;
   });
   print_summary("build_and_simulate", rebuilt, allocations, repetitions);
+
+  // One cost evaluation of the search on the same loop (P, K = 2), then a PID on the same plant.
+  for (const char* structure : {"p", "pid"}) {
+    const Spec spec = bench_spec(structure);
+    const Problem problem = make_problem(spec, characterize(spec));
+    const SearchOptions options = search_options(spec);
+    CandidateEvaluator evaluator(problem, options);
+    const std::vector<double> params = std::string(structure) == "p" ? std::vector<double>{gain}
+                                                                      : std::vector<double>{1.0, 1.5, 0.8};
+    const CandidateOutcome first = evaluator.evaluate(problem, params.data());
+    if (!first.stable) {
+      std::fprintf(stderr, "specloop_bench: the %s candidate is not stable\n", structure);
+      return 1;
+    }
+    if (std::string(structure) == "p" && evaluator.linear_grid().horizon_s != sim.grid().horizon_s()) {
+      std::fprintf(stderr, "specloop_bench: the evaluation's grid differs from the bench loop's\n");
+      return 1;
+    }
+    const Summary evaluated = time_calls(repetitions, allocations, [&] {
+      const CandidateOutcome o = evaluator.evaluate(problem, params.data());
+      sink = sink + o.objective;
+    });
+    print_summary(std::string(structure) == "p" ? "evaluate_p" : "evaluate_pid", evaluated, allocations, repetitions);
+  }
   return 0;
 }

@@ -15,6 +15,7 @@
 
 #include "sim/step_kernels.hpp"
 #include "sim/step_metrics.hpp"
+#include "specloop/sim/eigenvalues.hpp"
 
 namespace specloop {
 
@@ -86,7 +87,7 @@ StepSimulator::StepSimulator(TimeGridRules rules) : rules_(rules) {}
 void StepSimulator::prepare(int n, int samples) {
   if (n != states_) {
     const int m = n + 1;
-    eigen_ = Eigen::EigenSolver<Eigen::MatrixXd>(n);
+    if (n > kSmallEigenCapacity) eigen_ = Eigen::EigenSolver<Eigen::MatrixXd>(n);
     lu_state_ = Eigen::PartialPivLU<Eigen::MatrixXd>(n);
     lu_pade_ = Eigen::PartialPivLU<Eigen::MatrixXd>(m);
     for (Eigen::MatrixXd* mat : {&augmented_, &power2_, &power4_, &power6_, &even_, &odd_, &numer_, &denom_})
@@ -170,6 +171,7 @@ void StepSimulator::recur(int n, int first, int count) {
 }
 
 bool StepSimulator::eigenvalues(const Eigen::MatrixXd& a) {
+  if (a.rows() <= kSmallEigenCapacity) return small_eigenvalues(a, poles_);
   eigen_.compute(a, false);
   if (eigen_.info() != Eigen::Success) return false;
   for (int i = 0; i < a.rows(); ++i) poles_.push_back(eigen_.eigenvalues()(i));
