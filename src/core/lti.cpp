@@ -255,57 +255,105 @@ StateSpace realize(const TransferFunction& g) {
   return result;
 }
 
+void realize_low_order(const std::vector<double>& numerator, const std::vector<double>& denominator, StateSpace& out) {
+  const std::size_t m = denominator.size() - 1;  // degree
+  if (denominator.empty() || m > 2 || numerator.empty() || numerator.size() > denominator.size())
+    throw std::invalid_argument("realize_low_order: needs a proper ratio with a denominator of degree at most 2");
+  if (numerator.front() == 0.0 || denominator.front() == 0.0)
+    throw std::invalid_argument("realize_low_order: a leading coefficient is zero");
+  const double k = numerator.front() / denominator.front();  // high-frequency gain, as realize
+  // The monic numerator's coefficients, right-aligned in b (b[0] for s², b[2] for s⁰).
+  double b[3] = {0.0, 0.0, 0.0}, a[3] = {1.0, 0.0, 0.0};
+  for (std::size_t i = 0; i < numerator.size(); ++i) b[3 - numerator.size() + i] = numerator[i] / numerator.front();
+  for (std::size_t i = 1; i <= m; ++i) a[i] = denominator[i] / denominator.front();
+  const int n = static_cast<int>(m);
+  out.A.resize(n, n);
+  out.B.resize(n);
+  out.C.resize(1, n);
+  out.D.resize(1);
+  if (m == 0) {
+    out.D(0) = k;
+  } else if (m == 1) {  // first_order_section: (s − z)/(s − p) = 1 + (p − z)/(s − p), or 1/(s − p)
+    const double pole = -a[1];
+    out.A(0, 0) = pole;
+    out.B(0) = 1.0;
+    if (numerator.size() == 2) {
+      out.C(0, 0) = k * (pole - (-b[2]));
+      out.D(0) = k * 1.0;
+    } else {
+      out.C(0, 0) = k * 1.0;
+      out.D(0) = k * 0.0;
+    }
+  } else {  // second_order_section, scaled by w = √|a0|
+    const double a1 = a[1], a0 = a[2], b2 = b[0], b1 = b[1], b0 = b[2];
+    const double w = a0 != 0.0 ? std::sqrt(std::abs(a0)) : 1.0;
+    out.A << 0.0, w, -a0 / w, -a1;
+    out.B << 0.0, 1.0;
+    out.C << k * ((b0 - b2 * a0) / w), k * (b1 - b2 * a1);
+    out.D(0) = k * b2;
+  }
+}
+
 namespace {
 
-// A two-input controller x' = A x + B_r r − B_y y, u = C x + d_r r − d_y y.
+// A two-input controller x' = A x + B_r r − B_y y, u = C x + d_r r − d_y y (references to its
+// parts: the single-input loop passes its controller's matrices, shared by both inputs).
 struct TwoInputController {
-  Eigen::MatrixXd A;
-  Eigen::VectorXd b_r, b_y;
-  Eigen::RowVectorXd c;
+  const Eigen::MatrixXd& A;
+  const Eigen::VectorXd& b_r;
+  const Eigen::VectorXd& b_y;
+  const Eigen::MatrixXd& c;  // row 0
   double d_r = 0.0, d_y = 0.0;
 };
 
-// The loop y = P·u with that controller. Outputs: row 0 = y, row 1 = u.
-StateSpace assemble_loop(const StateSpace& plant, const TwoInputController& k) {
+// The loop y = P·u with that controller into `cl`, in place. Outputs: row 0 = y, row 1 = u.
+// Plain loops over the entries, each computed as the matrix expressions u_x = [−d_y·C_p, c]/den,
+// y_x = D_p·u_x + [C_p, 0], A = [A_p 0; 0 A] + [B_p·u_x; −B_y·y_x] would (the same products and
+// sums, so the same bits as before this was written in place).
+void assemble_loop(const StateSpace& plant, const TwoInputController& k, StateSpace& cl) {
   const int np = plant.states(), nc = static_cast<int>(k.A.rows()), n = np + nc;
   const double dp = plant.D(0);
   const double denom = 1.0 + k.d_y * dp;
   if (std::abs(denom) < 1e-12) throw std::domain_error("closed loop is ill-posed: 1 + Dc·Dp = 0");
-  // u = (C xc + d_r r − d_y Cp xp)/denom ;  y = Cp xp + Dp u.
-  const Eigen::RowVectorXd cp = plant.C.row(0);
-  Eigen::RowVectorXd u_x(n);
-  u_x.head(np) = -k.d_y * cp / denom;
-  u_x.tail(nc) = k.c / denom;
-  const double u_r = k.d_r / denom;
-  Eigen::RowVectorXd y_x = dp * u_x;
-  y_x.head(np) += cp;
-  const double y_r = dp * u_r;
-
-  StateSpace cl;
-  cl.A = Eigen::MatrixXd::Zero(n, n);
-  cl.B = Eigen::VectorXd::Zero(n);
-  // xp' = Ap xp + Bp u
-  cl.A.topRows(np) = plant.B * u_x;
-  cl.A.topLeftCorner(np, np) += plant.A;
-  cl.B.head(np) = plant.B * u_r;
-  // xc' = A xc + B_r r − B_y y
-  cl.A.bottomRows(nc) = -k.b_y * y_x;
-  cl.A.bottomRightCorner(nc, nc) += k.A;
-  cl.B.tail(nc) = k.b_r - k.b_y * y_r;
+  cl.A.resize(n, n);
+  cl.B.resize(n);
   cl.C.resize(2, n);
-  cl.C.row(0) = y_x;
-  cl.C.row(1) = u_x;
   cl.D.resize(2);
+  // u = (C xc + d_r r − d_y Cp xp)/denom ;  y = Cp xp + Dp u (rows 1 and 0 of C).
+  for (int j = 0; j < np; ++j) cl.C(1, j) = -k.d_y * plant.C(0, j) / denom;
+  for (int j = 0; j < nc; ++j) cl.C(1, np + j) = k.c(0, j) / denom;
+  const double u_r = k.d_r / denom;
+  for (int j = 0; j < n; ++j) cl.C(0, j) = dp * cl.C(1, j);
+  for (int j = 0; j < np; ++j) cl.C(0, j) += plant.C(0, j);
+  const double y_r = dp * u_r;
+  // xp' = Ap xp + Bp u
+  for (int j = 0; j < n; ++j)
+    for (int i = 0; i < np; ++i) {
+      cl.A(i, j) = plant.B(i) * cl.C(1, j);
+      if (j < np) cl.A(i, j) += plant.A(i, j);
+    }
+  for (int i = 0; i < np; ++i) cl.B(i) = plant.B(i) * u_r;
+  // xc' = A xc + B_r r − B_y y
+  for (int j = 0; j < n; ++j)
+    for (int i = 0; i < nc; ++i) {
+      cl.A(np + i, j) = -k.b_y(i) * cl.C(0, j);
+      if (j >= np) cl.A(np + i, j) += k.A(i, j - np);
+    }
+  for (int i = 0; i < nc; ++i) cl.B(np + i) = k.b_r(i) - k.b_y(i) * y_r;
   cl.D << y_r, u_r;
-  return cl;
 }
 
 }  // namespace
 
 StateSpace close_loop(const StateSpace& plant, const StateSpace& controller) {
+  StateSpace loop;
+  close_loop_into(plant, controller, loop);
+  return loop;
+}
+
+void close_loop_into(const StateSpace& plant, const StateSpace& controller, StateSpace& loop) {
   // e = r − y drives the controller: both inputs share its B and D.
-  return assemble_loop(plant, {controller.A, controller.B, controller.B, controller.C.row(0), controller.D(0),
-                               controller.D(0)});
+  assemble_loop(plant, {controller.A, controller.B, controller.B, controller.C, controller.D(0), controller.D(0)}, loop);
 }
 
 StateSpace close_loop(const StateSpace& plant, const TransferFunction& controller, const TransferFunction& reference) {
@@ -328,22 +376,19 @@ StateSpace close_loop(const StateSpace& plant, const TransferFunction& controlle
     return c;
   };
   const auto ny = padded(fb.numerator), nr = padded(rf.numerator);
-  TwoInputController k;
-  k.A = Eigen::MatrixXd::Zero(m, m);
-  k.b_r.resize(m);
-  k.b_y.resize(m);
-  k.c = Eigen::RowVectorXd::Zero(m);
-  if (m > 0) k.c(0) = 1.0;
+  Eigen::MatrixXd a = Eigen::MatrixXd::Zero(m, m), c = Eigen::MatrixXd::Zero(1, m);
+  Eigen::VectorXd b_r(m), b_y(m);
+  if (m > 0) c(0, 0) = 1.0;
   for (int i = 0; i < m; ++i) {
-    const auto a = den[static_cast<std::size_t>(i) + 1];
-    k.A(i, 0) = -a;
-    if (i + 1 < m) k.A(i, i + 1) = 1.0;
-    k.b_r(i) = nr[static_cast<std::size_t>(i) + 1] - nr[0] * a;
-    k.b_y(i) = ny[static_cast<std::size_t>(i) + 1] - ny[0] * a;
+    const auto ai = den[static_cast<std::size_t>(i) + 1];
+    a(i, 0) = -ai;
+    if (i + 1 < m) a(i, i + 1) = 1.0;
+    b_r(i) = nr[static_cast<std::size_t>(i) + 1] - nr[0] * ai;
+    b_y(i) = ny[static_cast<std::size_t>(i) + 1] - ny[0] * ai;
   }
-  k.d_r = nr[0];
-  k.d_y = ny[0];
-  return assemble_loop(plant, k);
+  StateSpace loop;
+  assemble_loop(plant, {a, b_r, b_y, c, nr[0], ny[0]}, loop);
+  return loop;
 }
 
 ClosedLoopTF close_loop(const TransferFunction& plant, const TransferFunction& controller) {

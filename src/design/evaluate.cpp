@@ -27,7 +27,6 @@ CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double
   const double amplitude = nominal_.spec.reference.amplitude;
   const std::size_t count = nominal_.parameters.size();
   controller_polynomials(structure, params, n, nominal_.action, num_, den_);
-  const TransferFunction c{Polynomial(num_), Polynomial(den_)};
   last_sampled_ = plant.sampled;
   CandidateOutcome out;
   if (plant.sampled) {
@@ -45,33 +44,39 @@ CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double
       out.objective = kUnstableCost * (1.0 + std::min(1.0, sampled_sim_.instability()));
       return out;
     }
-    return judge(c, plant.plant, sampled_sim_.horizon_s());
+    return judge(plant.plant, sampled_sim_.horizon_s());
   }
   const bool weighted = cs.setpoint_weight != 1.0 || cs.derivative_on_measurement;
-  const StateSpace loop =
-      weighted ? close_loop(plant.plant_realization, c,
-                            reference_path(make_controller(structure, std::vector<double>(params, params + count), n,
-                                                           nominal_.action),
-                                           cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0))
-               : close_loop(plant.plant_realization, realize(c));
-  const StepStatus status = sim_.simulate(loop, amplitude, band_, metrics_);
+  if (weighted) {
+    const TransferFunction c{Polynomial(num_), Polynomial(den_)};
+    loop_ = close_loop(plant.plant_realization, c,
+                       reference_path(make_controller(structure, std::vector<double>(params, params + count), n,
+                                                      nominal_.action),
+                                      cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0));
+  } else {  // in the evaluator's own storage: nothing allocated after the first candidate
+    realize_low_order(num_, den_, controller_);
+    close_loop_into(plant.plant_realization, controller_, loop_);
+  }
+  const StepStatus status = sim_.simulate(loop_, amplitude, band_, metrics_);
   if (status != StepStatus::ok) {
     double rightmost = 0.0;
     for (const Complex& p : sim_.poles()) rightmost = std::max(rightmost, p.real() / std::max(1.0, std::abs(p)));
     out.objective = kUnstableCost * (1.0 + rightmost);
     return out;
   }
-  return judge(c, plant.plant, sim_.grid().horizon_s());
+  return judge(plant.plant, sim_.grid().horizon_s());
 }
 
-CandidateOutcome CandidateEvaluator::judge(const TransferFunction& c, const TransferFunction& plant,
-                                           double horizon_s) const {
+CandidateOutcome CandidateEvaluator::judge(const TransferFunction& plant, double horizon_s) const {
   CandidateOutcome out;
   out.stable = true;
+  // C(s) as a transfer function and the margins only where something reads them (they allocate).
   std::optional<Margins> margins;
-  if (nominal_.needs_margins || options_.objective_requirement) margins = loop_margins(c * plant);
+  const bool sensitivity = !options_.objective_requirement && options_.objective == Objective::sensitivity_peak;
+  if (nominal_.needs_margins || options_.objective_requirement || sensitivity)
+    margins = loop_margins(TransferFunction(Polynomial(num_), Polynomial(den_)) * plant);
   out.violation = violation(metrics_, margins);
-  out.objective = objective(metrics_, margins, c, plant, horizon_s);
+  out.objective = objective_given(metrics_, margins, horizon_s);
   out.effort_peak = metrics_.effort_peak;
   return out;
 }
@@ -92,6 +97,13 @@ double CandidateEvaluator::violation(const StepMetrics& m, const std::optional<M
 double CandidateEvaluator::objective(const StepMetrics& m, const std::optional<Margins>& margins,
                                      const TransferFunction& c, const TransferFunction& plant,
                                      double horizon_s) const {
+  if (!margins && !options_.objective_requirement && options_.objective == Objective::sensitivity_peak)
+    return loop_margins(c * plant).sensitivity_peak;
+  return objective_given(m, margins, horizon_s);
+}
+
+double CandidateEvaluator::objective_given(const StepMetrics& m, const std::optional<Margins>& margins,
+                                           double horizon_s) const {
   if (options_.objective_requirement) {
     const auto v = requirement_value(*options_.objective_requirement, m, margins, nominal_.reference_peak_time_s,
                                      nominal_.band_fraction * 100.0);
@@ -107,8 +119,7 @@ double CandidateEvaluator::objective(const StepMetrics& m, const std::optional<M
       return tracking_objective(options_.objective, m, nominal_.spec.reference.amplitude, nominal_.tracking_window_s);
     case Objective::effort: return m.command_peak.value_or(m.effort_peak);  // what effort_max reads
     case Objective::settling_time: return m.settling_time_s.value_or(1e3 * horizon_s);
-    case Objective::sensitivity_peak:
-      return margins ? margins->sensitivity_peak : loop_margins(c * plant).sensitivity_peak;
+    case Objective::sensitivity_peak: return margins->sensitivity_peak;  // present: see objective()
   }
   return 0.0;
 }

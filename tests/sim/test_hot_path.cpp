@@ -1,17 +1,22 @@
 // The optimizer's hot path (discretize, recur, measure for a given realization) must not
 // allocate after the first call. Global operator new (and, on glibc, malloc) is replaced here to
-// count allocations.
+// count allocations, for every test of the executable (allocation_counter.hpp; the search's
+// evaluation is counted in tests/design/test_hot_path.cpp).
 #include <catch2/catch.hpp>
 #include <atomic>
 #include <cstdlib>
 #include <new>
 
+#include "allocation_counter.hpp"
 #include "specloop/sim/response.hpp"
 
-namespace {
+namespace specloop::testing {
 std::atomic<bool> counting{false};
 std::atomic<long> allocations{0};
-}  // namespace
+}  // namespace specloop::testing
+
+using specloop::testing::allocations;
+using specloop::testing::counting;
 
 // Eigen allocates with malloc, not operator new: on glibc, malloc is interposed too (forwarding to
 // the real allocator), so a dynamic-size temporary in the hot path is seen.

@@ -94,9 +94,21 @@ StateSpace static_gain(double k);
 /// Cascade connection: the output of `first` drives `second` (both single output).
 StateSpace cascade(const StateSpace& first, const StateSpace& second);
 
+/// The realization `realize` gives a proper transfer function whose denominator has degree ≤ 2
+/// (one first- or second-order section times the high-frequency gain), built from the
+/// coefficients (highest power first, leading ones nonzero) without computing roots, into `out`:
+/// nothing is allocated when `out` already has the sizes (the search's controller, once per
+/// candidate). Its numbers agree with realize's to rounding (realize rebuilds the section's
+/// coefficients from computed roots). Throws std::invalid_argument for a denominator of degree
+/// above 2, an improper ratio or a zero leading coefficient.
+void realize_low_order(const std::vector<double>& numerator, const std::vector<double>& denominator, StateSpace& out);
+
 /// Unity negative feedback e = r − y, u = C(e), y = P(u). Outputs: row 0 = y, row 1 = u.
 /// Throws std::domain_error when the loop is algebraically ill-posed (1 + Dc·Dp = 0).
 StateSpace close_loop(const StateSpace& plant, const StateSpace& controller);
+/// close_loop(plant, controller) written into `loop`, reusing its storage: nothing is allocated
+/// when `loop` already has the sizes. The same matrices, bit for bit.
+void close_loop_into(const StateSpace& plant, const StateSpace& controller, StateSpace& loop);
 
 /// Two-degree-of-freedom loop u = C_r·r − C·y, y = P·u, with C_r and C over one denominator
 /// (reference_path). Outputs: row 0 = y, row 1 = u. C_r = C is close_loop(plant, realize(C)).

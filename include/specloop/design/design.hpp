@@ -8,6 +8,7 @@
 #include "specloop/design/characterize.hpp"
 #include "specloop/design/classical.hpp"
 #include "specloop/design/confirm.hpp"
+#include "specloop/design/evaluate.hpp"
 #include "specloop/design/design_run.hpp"
 #include "specloop/design/measure.hpp"
 #include "specloop/design/nonlinear_loop.hpp"

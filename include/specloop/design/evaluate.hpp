@@ -25,8 +25,11 @@ struct CandidateOutcome {
   double effort_peak = 0.0;  // max |u|
 };
 
-/// The cost evaluation's workspace and judgement: one per search (not for concurrent use; after
-/// the first call on a loop of a given size it reuses its simulators' storage).
+/// The cost evaluation's workspace and judgement: one per search, not for concurrent use. On the
+/// continuous loop without set-point weighting and without margins to compute (no margin
+/// requirement, not the Ms objective), an evaluation allocates nothing once the storage has the
+/// loop's size and the longest time grid seen (tests/design/test_hot_path.cpp); the weighted and
+/// the sampled loops and the margins allocate per call.
 class CandidateEvaluator {
  public:
   /// `nominal`: the problem whose requirements (tightened by its search margin), band, objective
@@ -55,7 +58,10 @@ class CandidateEvaluator {
                    const TransferFunction& plant, double horizon_s) const;
 
  private:
-  CandidateOutcome judge(const TransferFunction& c, const TransferFunction& plant, double horizon_s) const;
+  // The outcome of a stable simulation (metrics_) of the loop with `plant`.
+  CandidateOutcome judge(const TransferFunction& plant, double horizon_s) const;
+  // objective() when the margins are present wherever the objective reads them.
+  double objective_given(const StepMetrics& m, const std::optional<Margins>& margins, double horizon_s) const;
 
   const Problem& nominal_;
   const SearchOptions& options_;
@@ -66,7 +72,8 @@ class CandidateEvaluator {
   StepSimulator sim_;
   SampledStepSimulator sampled_sim_;
   StepMetrics metrics_;
-  std::vector<double> num_, den_;
+  std::vector<double> num_, den_;  // the candidate's C(s)
+  StateSpace controller_, loop_;   // its realization and the closed loop, reused
 };
 
 }  // namespace specloop
