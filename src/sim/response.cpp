@@ -156,10 +156,12 @@ void StepSimulator::output_rows(const StateSpace& loop, double amplitude) {
 void StepSimulator::recur(int n, int first, int count) {
   double* y = y_.data() + first;
   double* u = u_.data() + first;
-  // Fixed-size kernels store blocks of kChains samples, each segment from a whole block on.
+  // Fixed-size kernels store blocks of kChains samples, each segment from a whole block on, and
+  // leave out what y gives (layout_).
   const int base = n <= 8 && first > 0 ? (first + kChains - 1) / kChains * kChains : first;
-  double* states = states_store_.data() + static_cast<std::size_t>(base) * static_cast<std::size_t>(n);
-  if (exact_step::recur_fixed_size(n, phi_, gamma_, outputs_, out_const_, x_, count, y, u, states)) return;
+  const int rows = n <= 8 && layout_.output_from_y ? n - 1 : n;
+  double* states = states_store_.data() + static_cast<std::size_t>(base) * static_cast<std::size_t>(rows);
+  if (exact_step::recur_fixed_size(n, phi_, gamma_, outputs_, out_const_, layout_, x_, count, y, u, states)) return;
   for (int k = 0; k < count; ++k) {
     Eigen::Map<Eigen::VectorXd>(states + static_cast<std::ptrdiff_t>(k) * n, n) = x_;
     y[k] = outputs_.row(0).dot(x_) + out_const_(0);
@@ -205,6 +207,7 @@ void StepSimulator::run_segments(const StateSpace& loop, double amplitude) {
     // The fine segment writes samples 0 .. T₁ − h₁ and leaves x_ at T₁; the coarse segment
     // writes T₁ .. T with the coarse step. Without a coarse segment the fine one runs to T.
     output_rows(loop, amplitude);
+    layout_ = n <= 8 ? exact_step::kernel_layout(outputs_, out_const_) : exact_step::KernelLayout{};
     discretize(loop, amplitude, grid_.step_s, phi_, gamma_);
     x_.setZero();
     if (grid_.coarse_intervals == 0) {
@@ -220,6 +223,7 @@ void StepSimulator::run_segments(const StateSpace& loop, double amplitude) {
       to_output_coordinates(outputs_.row(3), outputs_.row(0), oc);
     }
   } else {
+    layout_ = exact_step::KernelLayout{};
     for (int k = 0; k < grid_.samples; ++k) {
       y_[k] = loop.D(0) * amplitude;
       u_[k] = loop.D(1) * amplitude;
@@ -254,14 +258,17 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   prepare(n, grid_.samples);
   const int K = grid_.samples;
   run_segments(loop, amplitude);
-  if (!std::isfinite(y_[K - 1]) || !std::isfinite(u_[K - 1])) return StepStatus::numerical_failure;
+  const double u_last = layout_.effort_from_y ? layout_.effort(y_[K - 1]) : u_[K - 1];
+  if (!std::isfinite(y_[K - 1]) || !std::isfinite(u_last)) return StepStatus::numerical_failure;
 
   double fastest_pole = 0.0;
   for (const Complex& p : poles_) fastest_pole = std::max(fastest_pole, std::abs(p));
   const exact_step::SampleTimes time(grid_, K);
   const exact_step::SimulatedStep step{
-      loop, amplitude, band_fraction, y_inf, y_.data(), u_.data(), K, grid_, time,
-      exact_step::StoredStates{states_store_.data(), n, grid_.fine_intervals, grid_.coarse_intervals},
+      loop, amplitude, band_fraction, y_inf, y_.data(), layout_.effort_from_y ? nullptr : u_.data(), layout_, K, grid_,
+      time,
+      exact_step::StoredStates{states_store_.data(), n, grid_.fine_intervals, grid_.coarse_intervals, y_.data(),
+                               layout_.output_from_y ? layout_.p : -1},
       outputs_, out_const_, x_next_.data(), solve_.data(),
       exact_step::ScanBits{below_bits_.data(), outside_bits_.data(), falling_bits_.data()}, fastest_pole};
   const StepStatus status = exact_step::measure_step(step, m);
@@ -269,7 +276,12 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
 
   if (trace) {
     trace->output.assign(y_.data(), y_.data() + K);
-    trace->effort.assign(u_.data(), u_.data() + K);
+    if (layout_.effort_from_y) {
+      trace->effort.resize(static_cast<std::size_t>(K));
+      for (int k = 0; k < K; ++k) trace->effort[static_cast<std::size_t>(k)] = layout_.effort(y_[k]);
+    } else {
+      trace->effort.assign(u_.data(), u_.data() + K);
+    }
     trace->time_s.resize(static_cast<std::size_t>(K));
     for (int k = 0; k < K; ++k) trace->time_s[static_cast<std::size_t>(k)] = time(k);
   }

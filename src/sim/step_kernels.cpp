@@ -53,6 +53,7 @@ bool has_avx() {
 #if defined(SPECLOOP_AVX_KERNELS)
 // scan_samples' vector part four samples a step (AVX); max, min and comparisons are exact, so
 // this finds the same extremes and bits. Returns the first sample left for the scalar tail.
+template <bool WithU>
 __attribute__((target("avx"))) int scan_samples_avx(const double* y, const double* u, int count, double y_inf,
                                                     double inv, double band, const ScanBits& bits,
                                                     SampleExtremes& ex) {
@@ -65,16 +66,18 @@ __attribute__((target("avx"))) int scan_samples_avx(const double* y, const doubl
   for (; k + 64 <= count; k += 64) {
     std::uint64_t b = 0, o = 0, f = 0;
     for (int j = 0; j < 64; j += 4) {
-      const __m256d yv = _mm256_loadu_pd(y + k + j), uv = _mm256_loadu_pd(u + k + j),
-                    yn = _mm256_loadu_pd(y + k + j + 1);
+      const __m256d yv = _mm256_loadu_pd(y + k + j), yn = _mm256_loadu_pd(y + k + j + 1);
       b |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_sub_pd(v_inf, yv))) << j;
       const __m256d dev = _mm256_and_pd(_mm256_sub_pd(_mm256_mul_pd(yv, v_inv), v_one), v_abs);
       o |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_cmp_pd(dev, v_band, _CMP_GT_OS))) << j;
       f |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_cmp_pd(yn, yv, _CMP_LT_OS))) << j;
       vyh = _mm256_max_pd(yv, vyh);
       vyl = _mm256_min_pd(yv, vyl);
-      vuh = _mm256_max_pd(uv, vuh);
-      vul = _mm256_min_pd(uv, vul);
+      if constexpr (WithU) {
+        const __m256d uv = _mm256_loadu_pd(u + k + j);
+        vuh = _mm256_max_pd(uv, vuh);
+        vul = _mm256_min_pd(uv, vul);
+      }
     }
     bits.below[k / 64] = b;
     bits.outside[k / 64] = o;
@@ -155,21 +158,22 @@ bool effort_follows_output(const Row& c_u_x, const Row& c_u_z, const Cy& c_y, co
   return true;
 }
 
-// The recurrence kernel (recur_fixed_size in step_kernels.hpp). Four interleaved chains (samples
-// k, k+1, k+2, k+3 stepped by Φ⁴ with Γ₄ = (Φ³ + Φ² + Φ + I)·Γ) shorten the dependency chain that
-// bounds the loop's speed. The chains are held state-component-major (z[i][c]: component i of
-// chain c), so every operation works on whole rows of four chains: no shuffles, no horizontal
+// The recurrence kernel (recur_fixed_size in step_kernels.hpp). kChains interleaved chains
+// (samples k … k + C − 1, each stepped by Φ^C with Γ_C = (Φ^(C−1) + … + Φ + I)·Γ) give the
+// processor independent work. The chains are held state-component-major (z[i][c]: component i
+// of chain c), so every operation works on whole rows of chains: no shuffles, no horizontal
 // sums, and the matrix entries are read pre-broadcast from memory. The states are stored the same
-// way, one block of N×4 per four samples (StoredStates), in the output coordinates z = T·x
-// (OutputCoordinates). L chains to a vector register (GCC/Clang vector extension: L = 2 is one
-// SSE2 register on x86-64, L = 4 one AVX register; plain scalar code elsewhere). Both widths
-// perform the same multiplications and additions in the same order, so they give the same bits;
-// no fused multiply-add is involved (the AVX variant is compiled for "avx" only, not "fma").
+// way, one block of rows×C per C samples (StoredStates), in the output coordinates z = T·x
+// (OutputCoordinates), without z_p when y gives it (KernelLayout). L chains to a vector register
+// (GCC/Clang vector extension: L = 2 is one SSE2 register on x86-64, L = 4 one AVX register;
+// plain scalar code elsewhere). Both widths perform the same multiplications and additions in the
+// same order, so they give the same bits; no fused multiply-add is involved (the AVX variant is
+// compiled for "avx" only, not "fma").
 template <int N, int L>
 [[gnu::always_inline]] inline void recur_kernel(const Eigen::MatrixXd& phi_dyn, const Eigen::VectorXd& gamma_dyn,
                                                const Eigen::MatrixXd& out_dyn, const Eigen::VectorXd& oc_dyn,
-                                               Eigen::VectorXd& x_io, int samples, double* y, double* u,
-                                               double* states) {
+                                               const KernelLayout& layout, Eigen::VectorXd& x_io, int samples,
+                                               double* y, double* u, double* states) {
   using Vec = Eigen::Matrix<double, N, 1>;
   using Mat = Eigen::Matrix<double, N, N>;
   using RowVec = Eigen::Matrix<double, 1, N>;
@@ -189,22 +193,39 @@ template <int N, int L>
     t_inv.row(q) = -c_y / c_y(q);
     t_inv(q, q) = 1.0 / c_y(q);
   }
+  // Inside the kernel the coordinates q and 0 trade places (an involution s), so that y reads
+  // chain row 0: an index known at compile time keeps every row in registers (a row chosen at
+  // run time made the compiler keep the chains in memory and read them back, stalling the loop
+  // on store forwarding). The stored states keep the documented order: kernel row i goes to
+  // block row stored_at[i] (−1: not stored, y gives it).
+  Mat s = Mat::Identity();
+  s.row(0).swap(s.row(q));
+  const int rows = layout.output_from_y ? N - 1 : N;
+  int component[N], stored_at[N];
+  for (int i = 0; i < N; ++i) {
+    component[i] = i == 0 ? q : i == q ? 0 : i;
+    stored_at[i] = !layout.output_from_y ? component[i] : i == 0 ? -1 : component[i] < q ? component[i] : component[i] - 1;
+  }
   const Mat phi_x = phi_dyn;  // fixed-size copies first: a product with a dynamic operand allocates
   const Vec gamma_x = gamma_dyn;
-  const Mat phi = t * phi_x * t_inv;
-  const Vec gamma = t * gamma_x;
-  const Mat phi2 = phi * phi;
-  const Mat phi4 = phi2 * phi2;
-  const Vec gamma4 = phi2 * (phi * gamma + gamma) + phi * gamma + gamma;
-  const RowVec c_u_x = out_dyn.row(2);
-  RowVec c_u = c_u_x;
-  to_output_coordinates(c_u, c_y, oc);
-  const bool u_from_y = effort_follows_output(c_u_x, c_u, c_y, oc);
-  Pack p4[N][N], g4[N], cu[N], z[N][P], oy, ou, wy;
+  const Mat phi = s * (t * phi_x * t_inv) * s;
+  const Vec gamma = s * (t * gamma_x);
+  // Φ^C and Γ_C = (Φ^(C−1) + … + Φ + I)·Γ by doubling: (Φᵐ, Γₘ) → (Φ²ᵐ, Φᵐ·Γₘ + Γₘ).
+  Mat phi_c = phi;
+  Vec gamma_c = gamma;
+  for (int m = 1; m < C; m *= 2) {
+    gamma_c = phi_c * gamma_c + gamma_c;
+    phi_c = phi_c * phi_c;
+  }
+  RowVec c_u_z = out_dyn.row(2);
+  to_output_coordinates(c_u_z, c_y, oc);
+  const RowVec c_u = c_u_z * s;
+  const bool write_u = !layout.effort_from_y;
+  Pack pc[N][N], gc[N], cu[N], z[N][P], oy, ou, wy;
   for (int l = 0; l < L; ++l) {
     for (int i = 0; i < N; ++i) {
-      for (int j = 0; j < N; ++j) p4[i][j][l] = phi4(i, j);
-      g4[i][l] = gamma4(i);
+      for (int j = 0; j < N; ++j) pc[i][j][l] = phi_c(i, j);
+      gc[i][l] = gamma_c(i);
       cu[i][l] = c_u(i);
     }
     oy[l] = oc_dyn(0);
@@ -212,52 +233,61 @@ template <int N, int L>
     wy[l] = oc.active ? 1.0 : 0.0;
   }
   const Vec x_start = x_io;
-  Vec start = t * x_start;
+  Vec start = s * (t * x_start);
   for (int c = 0; c < C; ++c) {
     for (int i = 0; i < N; ++i) z[i][c / L][c % L] = start(i);
     start = phi * start + gamma;
   }
   int k = 0;
   for (;; k += C) {
-    double* block = states + static_cast<std::ptrdiff_t>(k) * N;
+    double* block = states + static_cast<std::ptrdiff_t>(k) * rows;
     for (int i = 0; i < N; ++i)
-      for (int p = 0; p < P; ++p) put(block + i * C + L * p, z[i][p]);
+      if (stored_at[i] >= 0)
+        for (int p = 0; p < P; ++p) put(block + stored_at[i] * C + L * p, z[i][p]);
     if (k + C > samples) break;  // the last, partial block: stored whole, outputs below
     for (int p = 0; p < P; ++p) {
-      const Pack yb = wy * z[q][p] + oy;
-      Pack ub = ou;
-      if (u_from_y) {
-        ub += cu[q] * z[q][p];
-      } else {
+      put(y + k + L * p, wy * z[0][p] + oy);
+      if (write_u) {
+        Pack ub = ou;
         for (int i = 0; i < N; ++i) ub += cu[i] * z[i][p];
+        put(u + k + L * p, ub);
       }
-      put(y + k + L * p, yb);
-      put(u + k + L * p, ub);
     }
+    // z ← Φ^C·z + Γ_C, each row summed in two interleaved halves (the even and the odd terms),
+    // then the halves: half the dependent additions of a plain left-to-right sum.
     Pack next[N][P];
     for (int i = 0; i < N; ++i)
       for (int p = 0; p < P; ++p) {
-        Pack v = g4[i];
-        for (int j = 0; j < N; ++j) v += p4[i][j] * z[j][p];
-        next[i][p] = v;
+        Pack even = gc[i] + pc[i][0] * z[0][p];
+        if constexpr (N == 1) {
+          next[i][p] = even;
+        } else {
+          Pack odd = pc[i][1] * z[1][p];
+          for (int j = 2; j < N; ++j) {
+            if (j % 2 == 0) even += pc[i][j] * z[j][p];
+            else odd += pc[i][j] * z[j][p];
+          }
+          next[i][p] = even + odd;
+        }
       }
     for (int i = 0; i < N; ++i)
       for (int p = 0; p < P; ++p) z[i][p] = next[i][p];
   }
-  const int rest = samples - k;  // 0..3 samples left: they sit in chains 0 .. rest − 1
+  // The chains as plain numbers (vector stores), for the last samples and the final state.
+  double chains[N][C];
+  for (int i = 0; i < N; ++i)
+    for (int p = 0; p < P; ++p) put(&chains[i][L * p], z[i][p]);
+  const int rest = samples - k;  // 0 … C − 1 samples left: they sit in chains 0 .. rest − 1
   for (int c = 0; c < rest; ++c) {
-    const double zq = z[q][c / L][c % L];
-    double yv = wy[0] * zq + oy[0], uv = ou[0];
-    if (u_from_y) {
-      uv += cu[q][0] * zq;
-    } else {
-      for (int i = 0; i < N; ++i) uv += cu[i][0] * z[i][c / L][c % L];
+    y[k + c] = wy[0] * chains[0][c] + oy[0];
+    if (write_u) {
+      double uv = ou[0];
+      for (int i = 0; i < N; ++i) uv += cu[i][0] * chains[i][c];
+      u[k + c] = uv;
     }
-    y[k + c] = yv;
-    u[k + c] = uv;
   }
   Vec last;
-  for (int i = 0; i < N; ++i) last(i) = z[i][rest / L][rest % L];
+  for (int i = 0; i < N; ++i) last(component[i]) = chains[i][rest];
   x_io = t_inv * last;  // the state at sample `samples`, back in the loop's coordinates
 }
 
@@ -271,39 +301,43 @@ template <int N, int L>
 template <int N>
 __attribute__((target("avx"), flatten)) void recur_fixed_avx(const Eigen::MatrixXd& phi, const Eigen::VectorXd& gamma,
                                                              const Eigen::MatrixXd& out, const Eigen::VectorXd& oc,
-                                                             Eigen::VectorXd& x_io, int samples, double* y, double* u,
-                                                             double* states) {
-  recur_kernel<N, 4>(phi, gamma, out, oc, x_io, samples, y, u, states);
+                                                             const KernelLayout& layout, Eigen::VectorXd& x_io,
+                                                             int samples, double* y, double* u, double* states) {
+  recur_kernel<N, 4>(phi, gamma, out, oc, layout, x_io, samples, y, u, states);
 }
 #endif
 
 template <int N>
 [[gnu::flatten]] void recur_fixed_portable(const Eigen::MatrixXd& phi, const Eigen::VectorXd& gamma,
-                                           const Eigen::MatrixXd& out, const Eigen::VectorXd& oc, Eigen::VectorXd& x_io,
-                                           int samples, double* y, double* u, double* states) {
-  recur_kernel<N, 2>(phi, gamma, out, oc, x_io, samples, y, u, states);
+                                           const Eigen::MatrixXd& out, const Eigen::VectorXd& oc,
+                                           const KernelLayout& layout, Eigen::VectorXd& x_io, int samples, double* y,
+                                           double* u, double* states) {
+  recur_kernel<N, 2>(phi, gamma, out, oc, layout, x_io, samples, y, u, states);
 }
 
 template <int N>
 void recur_fixed(const Eigen::MatrixXd& phi, const Eigen::VectorXd& gamma, const Eigen::MatrixXd& out,
-                 const Eigen::VectorXd& oc, Eigen::VectorXd& x_io, int samples, double* y, double* u,
-                 double* states) {
+                 const Eigen::VectorXd& oc, const KernelLayout& layout, Eigen::VectorXd& x_io, int samples, double* y,
+                 double* u, double* states) {
 #if defined(SPECLOOP_AVX_KERNELS)
-  if (has_avx()) return recur_fixed_avx<N>(phi, gamma, out, oc, x_io, samples, y, u, states);
+  if (has_avx()) return recur_fixed_avx<N>(phi, gamma, out, oc, layout, x_io, samples, y, u, states);
 #endif
-  recur_fixed_portable<N>(phi, gamma, out, oc, x_io, samples, y, u, states);
+  recur_fixed_portable<N>(phi, gamma, out, oc, layout, x_io, samples, y, u, states);
 }
 
 }  // namespace
 
-SampleExtremes scan_samples(const double* y, const double* u, int count, double y_inf, double inv, double band,
-                            const ScanBits& bits) {
-  double yh = y[0], yl = y[0], uh = u[0], ul = u[0];
+namespace {
+
+template <bool WithU>
+SampleExtremes scan_samples_kernel(const double* y, const double* u, int count, double y_inf, double inv, double band,
+                                   const ScanBits& bits) {
+  double yh = y[0], yl = y[0], uh = WithU ? u[0] : 0.0, ul = uh;
   int k = 0;
 #if defined(SPECLOOP_AVX_KERNELS)
   if (has_avx()) {
     SampleExtremes ex{yh, yl, uh, ul};
-    k = scan_samples_avx(y, u, count, y_inf, inv, band, bits, ex);
+    k = scan_samples_avx<WithU>(y, u, count, y_inf, inv, band, bits, ex);
     yh = ex.y_hi;
     yl = ex.y_lo;
     uh = ex.u_hi;
@@ -319,15 +353,18 @@ SampleExtremes scan_samples(const double* y, const double* u, int count, double 
   for (; k + 64 <= count; k += 64) {
     std::uint64_t b = 0, o = 0, f = 0;
     for (int j = 0; j < 64; j += 2) {
-      const __m128d yv = _mm_loadu_pd(y + k + j), uv = _mm_loadu_pd(u + k + j), yn = _mm_loadu_pd(y + k + j + 1);
+      const __m128d yv = _mm_loadu_pd(y + k + j), yn = _mm_loadu_pd(y + k + j + 1);
       b |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_sub_pd(v_inf, yv))) << j;
       const __m128d dev = _mm_and_pd(_mm_sub_pd(_mm_mul_pd(yv, v_inv), v_one), v_abs);
       o |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmpgt_pd(dev, v_band))) << j;
       f |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmplt_pd(yn, yv))) << j;
       vyh = _mm_max_pd(yv, vyh);
       vyl = _mm_min_pd(yv, vyl);
-      vuh = _mm_max_pd(uv, vuh);
-      vul = _mm_min_pd(uv, vul);
+      if constexpr (WithU) {
+        const __m128d uv = _mm_loadu_pd(u + k + j);
+        vuh = _mm_max_pd(uv, vuh);
+        vul = _mm_min_pd(uv, vul);
+      }
     }
     bits.below[k / 64] = b;
     bits.outside[k / 64] = o;
@@ -346,20 +383,31 @@ SampleExtremes scan_samples(const double* y, const double* u, int count, double 
   for (; k < count; k += 64) {  // the rest (everything without SSE2)
     std::uint64_t b = 0, o = 0, f = 0;
     for (int j = 0; j < 64 && k + j < count; ++j) {
-      const double yk = y[k + j], uk = u[k + j], dev = std::abs(yk * inv - 1.0);
+      const double yk = y[k + j], dev = std::abs(yk * inv - 1.0);
       b |= static_cast<std::uint64_t>(std::signbit(y_inf - yk)) << j;
       o |= static_cast<std::uint64_t>(dev > band) << j;
       f |= static_cast<std::uint64_t>(y[k + j + 1] < yk) << j;
       yh = yk > yh ? yk : yh;
       yl = yk < yl ? yk : yl;
-      uh = uk > uh ? uk : uh;
-      ul = uk < ul ? uk : ul;
+      if constexpr (WithU) {
+        const double uk = u[k + j];
+        uh = uk > uh ? uk : uh;
+        ul = uk < ul ? uk : ul;
+      }
     }
     bits.below[k / 64] = b;
     bits.outside[k / 64] = o;
     bits.falling[k / 64] = f;
   }
   return {yh, yl, uh, ul};
+}
+
+}  // namespace
+
+SampleExtremes scan_samples(const double* y, const double* u, int count, double y_inf, double inv, double band,
+                            const ScanBits& bits) {
+  return u ? scan_samples_kernel<true>(y, u, count, y_inf, inv, band, bits)
+           : scan_samples_kernel<false>(y, u, count, y_inf, inv, band, bits);
 }
 
 SegmentSums segment_sums(const double* y, int first, int last, double y_inf, double t_first, double h) {
@@ -369,18 +417,40 @@ SegmentSums segment_sums(const double* y, int first, int last, double y_inf, dou
   return segment_sums_kernel<2>(y, first, last, y_inf, t_first, h);
 }
 
+KernelLayout kernel_layout(const Eigen::MatrixXd& outputs, const Eigen::VectorXd& out_const) {
+  KernelLayout layout;
+  const OutputCoordinates oc = output_coordinates(outputs);
+  layout.p = oc.p;
+  layout.output_from_y = oc.active && out_const(0) == 0.0;
+  if (!layout.output_from_y) return layout;
+  // The effort row rewritten for z (to_output_coordinates, on plain numbers), then the test of
+  // effort_follows_output.
+  const int n = static_cast<int>(outputs.cols()), p = oc.p;
+  const double rp = outputs(2, p) / outputs(0, p);
+  layout.effort_from_y = true;
+  for (int j = 0; j < n; ++j) {
+    if (j == p) continue;
+    const double entry = outputs(2, j) - rp * outputs(0, j);
+    const double scale = std::abs(outputs(2, j)) + std::abs(rp * outputs(0, j));
+    if (std::abs(entry) > 4.0 * std::numeric_limits<double>::epsilon() * scale) layout.effort_from_y = false;
+  }
+  layout.u_const = out_const(2);
+  layout.u_gain = rp;
+  return layout;
+}
+
 bool recur_fixed_size(int n, const Eigen::MatrixXd& phi, const Eigen::VectorXd& gamma, const Eigen::MatrixXd& outputs,
-                      const Eigen::VectorXd& out_const, Eigen::VectorXd& x_io, int count, double* y, double* u,
-                      double* states) {
+                      const Eigen::VectorXd& out_const, const KernelLayout& layout, Eigen::VectorXd& x_io, int count,
+                      double* y, double* u, double* states) {
   switch (n) {
-    case 1: recur_fixed<1>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
-    case 2: recur_fixed<2>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
-    case 3: recur_fixed<3>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
-    case 4: recur_fixed<4>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
-    case 5: recur_fixed<5>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
-    case 6: recur_fixed<6>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
-    case 7: recur_fixed<7>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
-    case 8: recur_fixed<8>(phi, gamma, outputs, out_const, x_io, count, y, u, states); return true;
+    case 1: recur_fixed<1>(phi, gamma, outputs, out_const, layout, x_io, count, y, u, states); return true;
+    case 2: recur_fixed<2>(phi, gamma, outputs, out_const, layout, x_io, count, y, u, states); return true;
+    case 3: recur_fixed<3>(phi, gamma, outputs, out_const, layout, x_io, count, y, u, states); return true;
+    case 4: recur_fixed<4>(phi, gamma, outputs, out_const, layout, x_io, count, y, u, states); return true;
+    case 5: recur_fixed<5>(phi, gamma, outputs, out_const, layout, x_io, count, y, u, states); return true;
+    case 6: recur_fixed<6>(phi, gamma, outputs, out_const, layout, x_io, count, y, u, states); return true;
+    case 7: recur_fixed<7>(phi, gamma, outputs, out_const, layout, x_io, count, y, u, states); return true;
+    case 8: recur_fixed<8>(phi, gamma, outputs, out_const, layout, x_io, count, y, u, states); return true;
     default: return false;
   }
 }

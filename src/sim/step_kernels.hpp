@@ -14,6 +14,8 @@
 #include <limits>
 #include <type_traits>
 
+#include "specloop/sim/response.hpp"
+
 namespace specloop::exact_step {
 
 // ---- Matrix exponential -------------------------------------------------------------------
@@ -95,45 +97,65 @@ void to_output_coordinates(Row&& row, const Cy& cy, const OutputCoordinates& oc)
   row(oc.p) = rp;
 }
 
+// KernelLayout (what the recurrence need not write, because y gives it) is declared in
+// response.hpp, where StepSimulator holds one.
+/// The layout for a loop with output rows `outputs` and constants `out_const` (1 ≤ n ≤ 8).
+KernelLayout kernel_layout(const Eigen::MatrixXd& outputs, const Eigen::VectorXd& out_const);
+
 /// The recurrence for 1 ≤ n ≤ 8 states (the fixed-size kernels, step_kernels.cpp): writes samples
-/// [0, count) of y and u and the states themselves, in output coordinates z = T·x, starting
-/// from x_io, which is left at the state after the last sample (ready for the next segment).
-/// `outputs` are the rows [C_y; C_y·A; C_u; C_u·A], `out_const` their constants. False (nothing
-/// done) for other n.
+/// [0, count) of y and (unless layout.effort_from_y) u and the states themselves (all but z_p
+/// when layout.output_from_y), in output coordinates z = T·x, starting from x_io, which is left
+/// at the state after the last sample (ready for the next segment). `outputs` are the rows
+/// [C_y; C_y·A; C_u; C_u·A], `out_const` their constants. False (nothing done) for other n.
 bool recur_fixed_size(int n, const Eigen::MatrixXd& phi, const Eigen::VectorXd& gamma, const Eigen::MatrixXd& outputs,
-                      const Eigen::VectorXd& out_const, Eigen::VectorXd& x_io, int count, double* y, double* u,
-                      double* states);
+                      const Eigen::VectorXd& out_const, const KernelLayout& layout, Eigen::VectorXd& x_io, int count,
+                      double* y, double* u, double* states);
 
 /// Where the recurrence left the state of each sample: above 8 states x per sample, one after
 /// the other; up to 8 (the fixed-size kernels) z = T·x in blocks of kChains samples,
-/// component-major, each segment of the grid starting on a whole block.
+/// component-major, each segment of the grid starting on a whole block, without the component
+/// that y gives (from_y, when the layout says so).
 struct StoredStates {
   const double* data;
   int n;               // states
   int fine_intervals;  // the grid's segments (TimeGrid)
   int coarse_intervals;
-  /// The stored state of sample k; component i is at [i·stride].
-  const double* at(int k, std::ptrdiff_t& stride) const {
-    const double* x = data;
-    stride = 1;
-    if (n <= 8) {  // blocks of kChains samples, component-major, per segment (see recur)
-      int local = k, base = 0;
-      if (coarse_intervals > 0 && k >= fine_intervals) {
-        local = k - fine_intervals;
-        base = (fine_intervals + kChains - 1) / kChains * kChains;
-      }
-      x += static_cast<std::ptrdiff_t>(base + local / kChains * kChains) * n + local % kChains;
-      stride = kChains;
-    } else {
-      x += static_cast<std::ptrdiff_t>(k) * n;
+  const double* y = nullptr;  // the output samples, for component from_y
+  int from_y = -1;            // the component not stored, z_p = y (−1: all stored)
+  /// The rows stored per sample, and the distance between a sample's rows.
+  int rows() const { return from_y >= 0 ? n - 1 : n; }
+  std::ptrdiff_t stride() const { return n > 8 ? 1 : kChains; }
+  /// Sample k's first stored row; row r at [r·stride()] holds component r, or r + 1 from from_y on.
+  const double* stored(int k) const {
+    if (n > 8) return data + static_cast<std::ptrdiff_t>(k) * n;
+    int local = k, base = 0;  // blocks of kChains samples, component-major, per segment (see recur)
+    if (coarse_intervals > 0 && k >= fine_intervals) {
+      local = k - fine_intervals;
+      base = (fine_intervals + kChains - 1) / kChains * kChains;
     }
-    return x;
+    return data + static_cast<std::ptrdiff_t>(base + local / kChains * kChains) * rows() + local % kChains;
+  }
+  /// The state of sample k, n components: the store itself above 8 states, else assembled in
+  /// `buffer` (8 entries).
+  const double* state(int k, double* buffer) const {
+    const double* x = stored(k);
+    if (n > 8) return x;
+    const std::ptrdiff_t step = kChains;
+    if (from_y < 0) {
+      for (int i = 0; i < n; ++i) buffer[i] = x[i * step];
+      return buffer;
+    }
+    for (int i = 0; i < from_y; ++i) buffer[i] = x[i * step];
+    buffer[from_y] = y[k];
+    for (int i = from_y + 1; i < n; ++i) buffer[i] = x[(i - 1) * step];
+    return buffer;
   }
 };
 
 // ---- Sample scan and sums -----------------------------------------------------------------
 
-// One pass over the samples: the extremes of y and u, and three bit masks (64 samples a word, bit
+// One pass over the samples: the extremes of y and u (u = nullptr: u is not read, and its
+// extremes are left to the caller), and three bit masks (64 samples a word, bit
 // j of word w is sample 64w + j): `below`, e = y∞ − y < 0 (the sign bit of e); `outside`,
 // |y/y∞ − 1| > band; `falling`, y[k+1] < y[k] (the caller keeps y[count] readable; bit count − 1
 // is meaningless). Sign changes of e, band exits and the samples where y turns (sample extrema)

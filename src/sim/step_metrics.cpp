@@ -29,9 +29,18 @@ class StepMeasure {
         oc_(n_ >= 1 && n_ <= 8 ? output_coordinates(step.outputs) : OutputCoordinates{}),
         sign_(step.y_inf > 0.0 ? 1.0 : -1.0), f_follows_y_(step.y_inf > 0.0) {
     // Extremes of y/y∞ are extremes of y (y∞ > 0) or swapped (y∞ < 0).
-    k_max_ = first_equal(y_, y_inf_ > 0.0 ? ex.y_hi : ex.y_lo);
-    k_min_ = first_equal(y_, y_inf_ > 0.0 ? ex.y_lo : ex.y_hi);
-    k_effort_ = first_equal(u_, std::abs(ex.u_hi) >= std::abs(ex.u_lo) ? ex.u_hi : ex.u_lo);
+    k_max_ = first_equal(0, y_inf_ > 0.0 ? ex.y_hi : ex.y_lo);
+    k_min_ = first_equal(0, y_inf_ > 0.0 ? ex.y_lo : ex.y_hi);
+    k_effort_ = first_equal(1, std::abs(ex.u_hi) >= std::abs(ex.u_lo) ? ex.u_hi : ex.u_lo);
+    if (n_ <= 8)
+      for (int j = 0; j < 2; ++j) {
+        SlopeRow& r = slope_rows_[j];
+        const int row = j == 0 ? 1 : 3, from_y = step.states.from_y;
+        r.stored = 0;
+        r.from_y = from_y >= 0 ? step.outputs(row, from_y) : 0.0;
+        for (int i = 0; i < n_; ++i)
+          if (i != from_y) r.entry[r.stored++] = step.outputs(row, i);
+      }
   }
 
   void integrals(StepMetrics& m) const;
@@ -52,20 +61,35 @@ class StepMeasure {
     double iae = 0.0, ise = 0.0, itae = 0.0;
   };
 
-  static int first_equal(const double* f, double v) {
+  // The first sample where output row `row` (0: y, 1: u) takes the value v (one of its extremes).
+  int first_equal(int row, double v) const {
     int k = 0;
-    while (f[k] != v) ++k;
+    if (row == 0 || u_) {
+      const double* f = row == 0 ? y_ : u_;
+      while (f[k] != v) ++k;
+    } else {
+      while (value(1, k) != v) ++k;
+    }
     return k;
   }
   double t(int k) const { return s_.time(k); }
-  const double* samples(int row) const { return row == 0 ? y_ : u_; }
-  // Exact slope of output row 1 (y') or 3 (u') at sample k, from the stored state.
+  // Sample k of output row `row`: y, or u (from y when the recurrence did not write it).
+  double value(int row, int k) const { return row == 0 ? y_[k] : u_ ? u_[k] : s_.layout.effort(y_[k]); }
+  // Exact slope of output row 1 (y') or 3 (u') at sample k, from the stored state: the row's
+  // entries in the store's order (slope_rows_), and the entry of the component y gives.
   double slope(int row, int k) const {
     if (n_ == 0) return 0.0;
-    std::ptrdiff_t stride = 1;
-    const double* x = s_.states.at(k, stride);
-    double v = s_.out_const(row);
-    for (int i = 0; i < n_; ++i) v += s_.outputs(row, i) * x[i * stride];
+    if (n_ > 8) {  // x per sample, every component
+      const double* x = s_.states.stored(k);
+      double v = s_.out_const(row);
+      for (int i = 0; i < n_; ++i) v += s_.outputs(row, i) * x[i];
+      return v;
+    }
+    const SlopeRow& r = slope_rows_[row == 1 ? 0 : 1];
+    const double* x = s_.states.stored(k);
+    const std::ptrdiff_t step = s_.states.stride();
+    double v = s_.out_const(row) + r.from_y * y_[k];
+    for (int i = 0; i < r.stored; ++i) v += r.entry[i] * x[i * step];
     return v;
   }
   double dy(int k) const { return slope(1, k); }  // exact y'(t_k)
@@ -94,9 +118,8 @@ class StepMeasure {
   std::pair<double, double> square_error_odd_derivatives(int k) const;
   void integrate_segment(int first, int last, double h, Integrals& sum) const;
   Hermite interval(int row, int k) const {
-    const double* f = samples(row);
     const int slope_row = row == 0 ? 1 : 3;
-    return Hermite{f[k], f[k + 1], slope(slope_row, k), slope(slope_row, k + 1), t(k + 1) - t(k)};
+    return Hermite{value(row, k), value(row, k + 1), slope(slope_row, k), slope(slope_row, k + 1), t(k + 1) - t(k)};
   }
   bool exact_on(int j, int row, double s_near, double cover, ExactSeries& e) const;
   double time_of(const Found& f) const { return t(f.j) + f.s * (t(f.j + 1) - t(f.j)); }
@@ -113,6 +136,12 @@ class StepMeasure {
   const double* y_;
   const double* u_;
   int n_, count_;
+  struct SlopeRow {
+    double entry[8];     // the slope row's entries for the stored rows, in their order (≤ 8 states)
+    double from_y;       // its entry for the component y gives (0 when every component is stored)
+    int stored;
+  };
+  SlopeRow slope_rows_[2];  // y' and u' (up to 8 states)
   double y_inf_, inv_;
   double y_scale_, u_scale_;  // |extremes| summed: the rounding scale of y and u
   SampleBits bits_;
@@ -125,11 +154,11 @@ class StepMeasure {
 // x'(t_k) = A·x(t_k) + B·r from the state stored at sample k, in scratch_a (scratch_b is used).
 double* StepMeasure::state_rate(int k) const {
   const int n = n_;
-  std::ptrdiff_t stride = 1;
-  const double* z = s_.states.at(k, stride);
   double* v = s_.scratch_a;
   double* w = s_.scratch_b;
-  for (int i = 0; i < n; ++i) w[i] = z[i * stride];
+  double buffer[8];
+  const double* z = s_.states.state(k, buffer);
+  for (int i = 0; i < n; ++i) w[i] = z[i];
   if (oc_.active) {  // back from z = T·x (see output_coordinates) to the loop's x
     double zp = w[oc_.p];
     for (int i = 0; i < n; ++i)
@@ -252,7 +281,7 @@ bool StepMeasure::exact_on(int j, int row, double s_near, double cover, ExactSer
   const int kb = s_near <= 0.5 ? j : j + 1;
   const double h = t(j + 1) - t(j);
   e.base = kb - j;
-  e.fb = samples(row)[kb];
+  e.fb = value(row, kb);
   const double scale = row == 0 ? y_scale_ : u_scale_;
   double power = h, reach_power = cover;  // h^{i+1}/(i+1)!, cover^{i+1}
   int negligible = 0;
@@ -269,8 +298,8 @@ bool StepMeasure::exact_on(int j, int row, double s_near, double cover, ExactSer
 
 // The cubic Hermite's extremum (max for sgn = +1) over the intervals either side of sample k.
 StepMeasure::Found StepMeasure::refine_extremum(int row, int k, double sgn) const {
-  const double* f = samples(row);
-  Found best = k + 1 < count_ ? Found{f[k], k, 0.0} : Found{f[k], k - 1, 1.0};
+  const double fk = value(row, k);
+  Found best = k + 1 < count_ ? Found{fk, k, 0.0} : Found{fk, k - 1, 1.0};
   for (int j : {k - 1, k}) {
     if (j < 0 || j + 1 >= count_) continue;
     const auto [v, sp] = interval(row, j).extremum(sgn);
@@ -282,11 +311,11 @@ StepMeasure::Found StepMeasure::refine_extremum(int row, int k, double sgn) cons
 // The same extremum on the exact response: Newton on the exact slope from the Hermite's
 // location, the exact value there (never worse than the samples either side).
 StepMeasure::Found StepMeasure::polish(Found f, int row, double sgn) const {
-  const double* samples_of_row = samples(row);
+  const double ends[2] = {value(row, f.j), value(row, f.j + 1)};
   // Only an extremum strictly between the samples and beyond both by more than rounding (a
   // response that starts flat has a Hermite "extremum" 1e-20 below its first sample) needs it.
   const double rounding = 1e-12 * (row == 0 ? y_scale_ : u_scale_);
-  const double beyond = sgn * f.v - std::max(sgn * samples_of_row[f.j], sgn * samples_of_row[f.j + 1]);
+  const double beyond = sgn * f.v - std::max(sgn * ends[0], sgn * ends[1]);
   if (!(f.s > 0.0 && f.s < 1.0) || !(beyond > rounding)) return f;
   ExactSeries e;
   if (!exact_on(f.j, row, f.s, 0.5, e)) return f;
@@ -297,7 +326,7 @@ StepMeasure::Found StepMeasure::polish(Found f, int row, double sgn) const {
   if (!(sp > 0.0 && sp < 1.0)) sp = f.s;
   Found best{e.value(sp), f.j, sp};
   for (int k : {f.j, f.j + 1})
-    if (sgn * samples_of_row[k] > sgn * best.v) best = {samples_of_row[k], f.j, static_cast<double>(k - f.j)};
+    if (sgn * ends[k - f.j] > sgn * best.v) best = {ends[k - f.j], f.j, static_cast<double>(k - f.j)};
   return best;
 }
 
@@ -378,7 +407,7 @@ void StepMeasure::undershoot(StepMetrics& m) const {
 }
 
 void StepMeasure::effort(StepMetrics& m) const {
-  const double u_sign = u_[k_effort_] >= 0.0 ? 1.0 : -1.0;
+  const double u_sign = value(1, k_effort_) >= 0.0 ? 1.0 : -1.0;
   m.effort_peak = std::abs(polish(refine_extremum(1, k_effort_, u_sign), 1, u_sign).v);
 }
 
@@ -470,8 +499,13 @@ void StepMeasure::settling(StepMetrics& m) const {
 }  // namespace
 
 StepStatus measure_step(const SimulatedStep& step, StepMetrics& m) {
-  const SampleExtremes ex =
+  SampleExtremes ex =
       scan_samples(step.y, step.u, step.count, step.y_inf, 1.0 / step.y_inf, step.band_fraction, step.bits);
+  if (!step.u) {  // u = u_const + u_gain·y, monotone in y (rounding is monotone): its extremes are exact
+    const double at_hi = step.layout.effort(ex.y_hi), at_lo = step.layout.effort(ex.y_lo);
+    ex.u_hi = std::max(at_hi, at_lo);
+    ex.u_lo = std::min(at_hi, at_lo);
+  }
   if (!std::isfinite(ex.y_hi) || !std::isfinite(ex.y_lo) || !std::isfinite(ex.u_hi) || !std::isfinite(ex.u_lo))
     return StepStatus::numerical_failure;
   const StepMeasure measure(step, ex);

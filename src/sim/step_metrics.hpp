@@ -30,14 +30,15 @@ struct SimulatedStep {
   double band_fraction = 0.0;
   double y_inf = 0.0;
   const double* y = nullptr;  // `count` samples of y and u; y[count] readable (the scan reads it)
-  const double* u = nullptr;
+  const double* u = nullptr;  // nullptr when layout.effort_from_y: u_k = layout.effort(y_k)
+  KernelLayout layout;
   int count = 0;
   TimeGrid grid;
   SampleTimes time;
-  StoredStates states;               // the state at every sample
+  StoredStates states;               // the state at every sample (StoredStates::state)
   const Eigen::MatrixXd& outputs;    // [C_y; C_y·A; C_u; C_u·A], the slope rows acting on the stored states
   const Eigen::VectorXd& out_const;  // their constants: D_y·r, C_y·B·r, D_u·r, C_u·B·r
-  double* scratch_a = nullptr;       // two vectors of n entries, overwritten
+  double* scratch_a = nullptr;       // two vectors of n entries, overwritten (state_rate)
   double* scratch_b = nullptr;
   ScanBits bits;                     // room for the scan's masks, (count + 63)/64 words each
   double fastest_pole = 0.0;         // the largest |pole| of the loop

@@ -80,6 +80,23 @@ struct TimeGrid {
 /// Chooses h and the number of samples from stable closed-loop poles.
 TimeGrid choose_time_grid(const std::vector<Complex>& poles, const TimeGridRules& rules);
 
+namespace exact_step {
+/// Private to the simulator (src/sim/step_kernels.hpp), declared here because StepSimulator holds
+/// one: what the fixed-size recurrence need not write, because y gives it (decided once per loop
+/// by kernel_layout, and read back the same way by StoredStates and the metrics):
+/// - `output_from_y`: the output coordinate z_p is not stored; it is y itself (C_y ≠ 0 and
+///   D_y·r = 0, as for every strictly proper plant: y = 1·z_p + 0 exactly);
+/// - `effort_from_y`: u is not written either; u_k = u_const + u_gain·y_k, the kernel's own
+///   formula (u affine in y: the effort row in z uses z_p alone, see effort_follows_output).
+struct KernelLayout {
+  bool output_from_y = false;
+  bool effort_from_y = false;
+  int p = 0;  // the output coordinate (OutputCoordinates::p)
+  double u_const = 0.0, u_gain = 0.0;
+  double effort(double y) const { return u_const + u_gain * y; }
+};
+}  // namespace exact_step
+
 /// Sampled responses kept only when asked for (plots, tests).
 struct StepTrace {
   std::vector<double> time_s, output, effort;
@@ -117,6 +134,7 @@ class StepSimulator {
 
   TimeGridRules rules_;
   TimeGrid grid_;
+  exact_step::KernelLayout layout_;  // what the recurrence leaves for y to give (step_kernels.hpp)
   std::vector<Complex> poles_;
   // Workspace (sized on demand, then reused).
   int states_ = -1;
@@ -126,7 +144,8 @@ class StepSimulator {
   Eigen::MatrixXd augmented_, power2_, power4_, power6_, even_, odd_, numer_, denom_;
   Eigen::MatrixXd phi_, outputs_;  // Φ and [C_y; C_y·A; C_u; C_u·A]
   Eigen::VectorXd gamma_, out_const_, x_, x_next_, solve_;
-  std::vector<double> y_, u_;  // sampled output and effort (times follow from grid_)
+  std::vector<double> y_, u_;  // sampled output and effort (times follow from grid_; u_ unused when
+                               // layout_.effort_from_y)
   std::vector<double> states_store_;  // the state at every sample, for slopes on demand (layout:
                                       // exact_step::StoredStates, src/sim/step_kernels.hpp)
   // One bit per sample, 64 to a word: e = y∞ − y < 0; |y/y∞ − 1| > band; y[k+1] < y[k].
