@@ -66,6 +66,8 @@ class StepMeasure {
     int k = 0;
     if (row == 0 || u_) {
       const double* f = row == 0 ? y_ : u_;
+      // Four samples a test (branch-free within the four), then the one.
+      while (k + 4 <= count_ && !((f[k] == v) | (f[k + 1] == v) | (f[k + 2] == v) | (f[k + 3] == v))) k += 4;
       while (f[k] != v) ++k;
     } else {
       while (value(1, k) != v) ++k;

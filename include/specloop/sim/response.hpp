@@ -5,6 +5,7 @@
 #include <Eigen/Dense>
 #include <cstddef>
 #include <cstdint>
+#include <new>
 #include <optional>
 #include <string_view>
 #include <vector>
@@ -144,10 +145,22 @@ class StepSimulator {
   Eigen::MatrixXd augmented_, power2_, power4_, power6_, even_, odd_, numer_, denom_;
   Eigen::MatrixXd phi_, outputs_;  // Φ and [C_y; C_y·A; C_u; C_u·A]
   Eigen::VectorXd gamma_, out_const_, x_, x_next_, solve_;
-  std::vector<double> y_, u_;  // sampled output and effort (times follow from grid_; u_ unused when
-                               // layout_.effort_from_y)
-  std::vector<double> states_store_;  // the state at every sample, for slopes on demand (layout:
-                                      // exact_step::StoredStates, src/sim/step_kernels.hpp)
+  // The sample buffers start on a cache line: the recurrence's 32-byte stores then never straddle
+  // two lines (with malloc's 16-byte alignment every other one did: about 5 % of the recurrence).
+  template <class T>
+  struct LineAligned {
+    using value_type = T;
+    LineAligned() = default;
+    template <class U>
+    LineAligned(const LineAligned<U>&) {}
+    T* allocate(std::size_t n) { return static_cast<T*>(::operator new(n * sizeof(T), std::align_val_t{64})); }
+    void deallocate(T* p, std::size_t) { ::operator delete(p, std::align_val_t{64}); }
+    bool operator==(const LineAligned&) const { return true; }
+  };
+  using Samples = std::vector<double, LineAligned<double>>;
+  Samples y_, u_;  // sampled output and effort (times follow from grid_; u_ unused when layout_.effort_from_y)
+  Samples states_store_;  // the state at every sample, for slopes on demand (layout:
+                          // exact_step::StoredStates, src/sim/step_kernels.hpp)
   // One bit per sample, 64 to a word: e = y∞ − y < 0; |y/y∞ − 1| > band; y[k+1] < y[k].
   std::vector<std::uint64_t> below_bits_, outside_bits_, falling_bits_;
 };
