@@ -115,6 +115,7 @@ void StepSimulator::prepare(int n, int samples) {
   const std::size_t words = static_cast<std::size_t>(samples + 63) / 64;
   if (below_bits_.size() < words) {
     for (auto* v : {&below_bits_, &outside_bits_, &falling_bits_}) v->resize(words);
+    word_sums_.resize(3 * words);
   }
   // Room for the fixed-size kernels' blocks: each segment starts on a whole block and its last,
   // partial block is stored whole.
@@ -276,7 +277,8 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
       exact_step::StoredStates{states_store_.data(), n, grid_.fine_intervals, grid_.coarse_intervals, y_.data(),
                                layout_.output_from_y ? layout_.p : -1},
       outputs_, out_const_, x_next_.data(), solve_.data(),
-      exact_step::ScanBits{below_bits_.data(), outside_bits_.data(), falling_bits_.data()}, fastest_pole};
+      exact_step::ScanBits{below_bits_.data(), outside_bits_.data(), falling_bits_.data(), word_sums_.data()},
+      fastest_pole};
   const StepStatus status = exact_step::measure_step(step, m);
   if (status != StepStatus::ok) return status;
 

@@ -60,14 +60,21 @@ __attribute__((target("avx"))) int scan_samples_avx(const double* y, const doubl
   const __m256d v_inf = _mm256_set1_pd(y_inf), v_inv = _mm256_set1_pd(inv), v_one = _mm256_set1_pd(1.0),
                 v_band = _mm256_set1_pd(band),
                 v_abs = _mm256_castsi256_pd(_mm256_set1_epi64x(0x7fffffffffffffffLL));
+  const __m256d v_four = _mm256_set1_pd(4.0), v_first = _mm256_set_pd(3.0, 2.0, 1.0, 0.0);
   __m256d vyh = _mm256_set1_pd(ex.y_hi), vyl = _mm256_set1_pd(ex.y_lo), vuh = _mm256_set1_pd(ex.u_hi),
           vul = _mm256_set1_pd(ex.u_lo);
   int k = 0;
   for (; k + 64 <= count; k += 64) {
     std::uint64_t b = 0, o = 0, f = 0;
+    __m256d sq = _mm256_setzero_pd(), ab = _mm256_setzero_pd(), wt = _mm256_setzero_pd(), idx = v_first;
     for (int j = 0; j < 64; j += 4) {
       const __m256d yv = _mm256_loadu_pd(y + k + j), yn = _mm256_loadu_pd(y + k + j + 1);
-      b |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_sub_pd(v_inf, yv))) << j;
+      const __m256d e = _mm256_sub_pd(v_inf, yv), a = _mm256_and_pd(e, v_abs);
+      b |= static_cast<std::uint64_t>(_mm256_movemask_pd(e)) << j;
+      sq = _mm256_add_pd(sq, _mm256_mul_pd(e, e));
+      ab = _mm256_add_pd(ab, a);
+      wt = _mm256_add_pd(wt, _mm256_mul_pd(idx, a));
+      idx = _mm256_add_pd(idx, v_four);
       const __m256d dev = _mm256_and_pd(_mm256_sub_pd(_mm256_mul_pd(yv, v_inv), v_one), v_abs);
       o |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_cmp_pd(dev, v_band, _CMP_GT_OS))) << j;
       f |= static_cast<std::uint64_t>(_mm256_movemask_pd(_mm256_cmp_pd(yn, yv, _CMP_LT_OS))) << j;
@@ -82,6 +89,11 @@ __attribute__((target("avx"))) int scan_samples_avx(const double* y, const doubl
     bits.below[k / 64] = b;
     bits.outside[k / 64] = o;
     bits.falling[k / 64] = f;
+    double lanes[4];
+    for (int m = 0; m < 3; ++m) {
+      _mm256_storeu_pd(lanes, m == 0 ? sq : m == 1 ? ab : wt);
+      bits.sums[3 * (k / 64) + m] = (lanes[0] + lanes[1]) + (lanes[2] + lanes[3]);
+    }
   }
   double lanes[4];
   _mm256_storeu_pd(lanes, vyh);
@@ -93,51 +105,6 @@ __attribute__((target("avx"))) int scan_samples_avx(const double* y, const doubl
   _mm256_storeu_pd(lanes, vul);
   ex.u_lo = std::min(std::min(lanes[0], lanes[1]), std::min(lanes[2], lanes[3]));
   return k;
-}
-#endif
-
-template <int L>
-[[gnu::always_inline]] inline SegmentSums segment_sums_kernel(const double* y, int first, int last, double y_inf,
-                                                             double t_first, double h) {
-  using Pack = typename PackOf<L>::type;
-  using Unaligned = typename PackOf<L>::unaligned;
-  using Bits = typename PackOf<L>::bits;
-  constexpr int P = 4 / L;  // four samples a step, each summed in its own lane
-  Pack inf, four, sq[P] = {}, ab[P] = {}, idx_ab[P] = {}, idx[P];
-  Bits magnitude;
-  for (int l = 0; l < L; ++l) {
-    inf[l] = y_inf;
-    four[l] = 4.0;
-    magnitude[l] = ~(std::uint64_t{1} << 63);
-    for (int p = 0; p < P; ++p) idx[p][l] = L * p + l;
-  }
-  int k = first;
-  for (; k + 4 <= last + 1; k += 4)
-    for (int p = 0; p < P; ++p) {
-      const Pack yv = *reinterpret_cast<const Unaligned*>(y + k + L * p);
-      const Pack e = inf - yv;
-      const Pack a = (Pack)((Bits)e & magnitude);  // |e|: sign bit cleared (vector casts keep the bits)
-      sq[p] += e * e;
-      ab[p] += a;
-      idx_ab[p] += idx[p] * a;
-      idx[p] += four;
-    }
-  // The four lanes (samples k ≡ 0, 1, 2, 3 mod 4 from `first`) in the order (0 + 1) + (2 + 3).
-  auto total = [&](const Pack* v) { return (v[0][0] + v[0][1]) + (v[P - 1][L - 2] + v[P - 1][L - 1]); };
-  double squares = total(sq), absolute = total(ab), weighted = total(idx_ab);
-  for (; k <= last; ++k) {
-    const double e = y_inf - y[k], a = std::abs(e);
-    squares += e * e;
-    absolute += a;
-    weighted += (k - first) * a;
-  }
-  return {squares, absolute, t_first * absolute + h * weighted};
-}
-
-#if defined(SPECLOOP_AVX_KERNELS)
-__attribute__((target("avx"))) SegmentSums segment_sums_avx(const double* y, int first, int last, double y_inf,
-                                                            double t_first, double h) {
-  return segment_sums_kernel<4>(y, first, last, y_inf, t_first, h);
 }
 #endif
 
@@ -349,26 +316,44 @@ SampleExtremes scan_samples_kernel(const double* y, const double* u, int count, 
   // here unnoticed: the caller checks the last sample, which a NaN would have spread to).
   const __m128d v_inf = _mm_set1_pd(y_inf), v_inv = _mm_set1_pd(inv), v_one = _mm_set1_pd(1.0),
                 v_band = _mm_set1_pd(band), v_abs = _mm_castsi128_pd(_mm_set1_epi64x(0x7fffffffffffffffLL));
+  const __m128d v_four = _mm_set1_pd(4.0);
   __m128d vyh = _mm_set1_pd(yh), vyl = _mm_set1_pd(yl), vuh = _mm_set1_pd(uh), vul = _mm_set1_pd(ul);
   for (; k + 64 <= count; k += 64) {
     std::uint64_t b = 0, o = 0, f = 0;
-    for (int j = 0; j < 64; j += 2) {
-      const __m128d yv = _mm_loadu_pd(y + k + j), yn = _mm_loadu_pd(y + k + j + 1);
-      b |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_sub_pd(v_inf, yv))) << j;
-      const __m128d dev = _mm_and_pd(_mm_sub_pd(_mm_mul_pd(yv, v_inv), v_one), v_abs);
-      o |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmpgt_pd(dev, v_band))) << j;
-      f |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmplt_pd(yn, yv))) << j;
-      vyh = _mm_max_pd(yv, vyh);
-      vyl = _mm_min_pd(yv, vyl);
-      if constexpr (WithU) {
-        const __m128d uv = _mm_loadu_pd(u + k + j);
-        vuh = _mm_max_pd(uv, vuh);
-        vul = _mm_min_pd(uv, vul);
+    // The sums in the AVX kernel's four lanes: samples j ≡ 0, 1 (vector 0) and 2, 3 (vector 1) mod 4.
+    __m128d sq[2] = {_mm_setzero_pd(), _mm_setzero_pd()}, ab[2] = {sq[0], sq[0]}, wt[2] = {sq[0], sq[0]},
+            idx[2] = {_mm_set_pd(1.0, 0.0), _mm_set_pd(3.0, 2.0)};
+    for (int j = 0; j < 64; j += 4)
+      for (int h = 0; h < 2; ++h) {
+        const int i = j + 2 * h;
+        const __m128d yv = _mm_loadu_pd(y + k + i), yn = _mm_loadu_pd(y + k + i + 1);
+        const __m128d e = _mm_sub_pd(v_inf, yv), a = _mm_and_pd(e, v_abs);
+        b |= static_cast<std::uint64_t>(_mm_movemask_pd(e)) << i;
+        sq[h] = _mm_add_pd(sq[h], _mm_mul_pd(e, e));
+        ab[h] = _mm_add_pd(ab[h], a);
+        wt[h] = _mm_add_pd(wt[h], _mm_mul_pd(idx[h], a));
+        idx[h] = _mm_add_pd(idx[h], v_four);
+        const __m128d dev = _mm_and_pd(_mm_sub_pd(_mm_mul_pd(yv, v_inv), v_one), v_abs);
+        o |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmpgt_pd(dev, v_band))) << i;
+        f |= static_cast<std::uint64_t>(_mm_movemask_pd(_mm_cmplt_pd(yn, yv))) << i;
+        vyh = _mm_max_pd(yv, vyh);
+        vyl = _mm_min_pd(yv, vyl);
+        if constexpr (WithU) {
+          const __m128d uv = _mm_loadu_pd(u + k + i);
+          vuh = _mm_max_pd(uv, vuh);
+          vul = _mm_min_pd(uv, vul);
+        }
       }
-    }
     bits.below[k / 64] = b;
     bits.outside[k / 64] = o;
     bits.falling[k / 64] = f;
+    double lo[2], hi[2];
+    for (int m = 0; m < 3; ++m) {
+      const __m128d* v = m == 0 ? sq : m == 1 ? ab : wt;
+      _mm_storeu_pd(lo, v[0]);
+      _mm_storeu_pd(hi, v[1]);
+      bits.sums[3 * (k / 64) + m] = (lo[0] + lo[1]) + (hi[0] + hi[1]);
+    }
   }
   double lanes[2];
   _mm_storeu_pd(lanes, vyh);
@@ -382,9 +367,13 @@ SampleExtremes scan_samples_kernel(const double* y, const double* u, int count, 
 #endif
   for (; k < count; k += 64) {  // the rest (everything without SSE2)
     std::uint64_t b = 0, o = 0, f = 0;
+    double sq[4] = {0.0, 0.0, 0.0, 0.0}, ab[4] = {0.0, 0.0, 0.0, 0.0}, wt[4] = {0.0, 0.0, 0.0, 0.0};
     for (int j = 0; j < 64 && k + j < count; ++j) {
-      const double yk = y[k + j], dev = std::abs(yk * inv - 1.0);
-      b |= static_cast<std::uint64_t>(std::signbit(y_inf - yk)) << j;
+      const double yk = y[k + j], dev = std::abs(yk * inv - 1.0), e = y_inf - yk, a = std::abs(e);
+      sq[j % 4] += e * e;
+      ab[j % 4] += a;
+      wt[j % 4] += j * a;
+      b |= static_cast<std::uint64_t>(std::signbit(e)) << j;
       o |= static_cast<std::uint64_t>(dev > band) << j;
       f |= static_cast<std::uint64_t>(y[k + j + 1] < yk) << j;
       yh = yk > yh ? yk : yh;
@@ -398,6 +387,9 @@ SampleExtremes scan_samples_kernel(const double* y, const double* u, int count, 
     bits.below[k / 64] = b;
     bits.outside[k / 64] = o;
     bits.falling[k / 64] = f;
+    bits.sums[3 * (k / 64)] = (sq[0] + sq[1]) + (sq[2] + sq[3]);
+    bits.sums[3 * (k / 64) + 1] = (ab[0] + ab[1]) + (ab[2] + ab[3]);
+    bits.sums[3 * (k / 64) + 2] = (wt[0] + wt[1]) + (wt[2] + wt[3]);
   }
   return {yh, yl, uh, ul};
 }
@@ -410,11 +402,25 @@ SampleExtremes scan_samples(const double* y, const double* u, int count, double 
            : scan_samples_kernel<false>(y, u, count, y_inf, inv, band, bits);
 }
 
-SegmentSums segment_sums(const double* y, int first, int last, double y_inf, double t_first, double h) {
-#if defined(SPECLOOP_AVX_KERNELS)
-  if (has_avx()) return segment_sums_avx(y, first, last, y_inf, t_first, h);
-#endif
-  return segment_sums_kernel<2>(y, first, last, y_inf, t_first, h);
+SegmentSums segment_sums(const ScanBits& bits, const double* y, int first, int last, double y_inf, double t_first,
+                         double h) {
+  double squares = 0.0, absolute = 0.0, weighted = 0.0;  // weighted: Σ (k − first)·|e|
+  for (int w = first / 64; w <= last / 64; ++w) {
+    const int lo = 64 * w, hi = lo + 63;
+    if (lo >= first && hi <= last) {  // a whole word: the scan's sums
+      squares += bits.sums[3 * w];
+      absolute += bits.sums[3 * w + 1];
+      weighted += bits.sums[3 * w + 2] + (lo - first) * bits.sums[3 * w + 1];
+      continue;
+    }
+    for (int k = std::max(lo, first); k <= std::min(hi, last); ++k) {  // a segment's end: sample by sample
+      const double e = y_inf - y[k], a = std::abs(e);
+      squares += e * e;
+      absolute += a;
+      weighted += (k - first) * a;
+    }
+  }
+  return {squares, absolute, t_first * absolute + h * weighted};
 }
 
 KernelLayout kernel_layout(const Eigen::MatrixXd& outputs, const Eigen::VectorXd& out_const) {

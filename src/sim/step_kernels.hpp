@@ -155,7 +155,9 @@ struct StoredStates {
 // ---- Sample scan and sums -----------------------------------------------------------------
 
 // One pass over the samples: the extremes of y and u (u = nullptr: u is not read, and its
-// extremes are left to the caller), and three bit masks (64 samples a word, bit
+// extremes are left to the caller), the integral sums of each word (ScanBits::sums; four partial
+// sums each, samples j ≡ 0 … 3 mod 4, added as (0 + 1) + (2 + 3): one four-lane vector (AVX)
+// or two two-lane vectors (SSE2) add the same numbers in the same order), and three bit masks (64 samples a word, bit
 // j of word w is sample 64w + j): `below`, e = y∞ − y < 0 (the sign bit of e); `outside`,
 // |y/y∞ − 1| > band; `falling`, y[k+1] < y[k] (the caller keeps y[count] readable; bit count − 1
 // is meaningless). Sign changes of e, band exits and the samples where y turns (sample extrema)
@@ -165,6 +167,7 @@ struct SampleExtremes {
 };
 struct ScanBits {
   std::uint64_t *below, *outside, *falling;
+  double* sums;  // per word, of e = y∞ − y: Σe², Σ|e|, Σ j·|e| (j = 0 … 63 within the word)
 };
 SampleExtremes scan_samples(const double* y, const double* u, int count, double y_inf, double inv, double band,
                             const ScanBits& bits);
@@ -233,13 +236,12 @@ class SampleBits {
 };
 
 // Σe², Σ|e| and Σt·|e| over samples first..last of one uniform segment (t = t_first + (k − first)·h),
-// e = y∞ − y: four samples a step, four independent partial sums each (floating-point sums are
-// not reordered by the compiler on its own, so the partial sums are written out), as two
-// two-lane vectors (SSE2) or one four-lane vector (AVX), which add the same numbers in the same
-// order.
+// e = y∞ − y: the scan's word sums for the words inside the segment, sample by sample at its
+// ends.
 struct SegmentSums {
   double squares, absolute, time_absolute;
 };
-SegmentSums segment_sums(const double* y, int first, int last, double y_inf, double t_first, double h);
+SegmentSums segment_sums(const ScanBits& bits, const double* y, int first, int last, double y_inf, double t_first,
+                         double h);
 
 }  // namespace specloop::exact_step

@@ -232,7 +232,7 @@ void StepMeasure::integrate_segment(int first, int last, double h, Integrals& su
   const double c = h * h / 12.0;
   auto e = [&](int k) { return y_inf_ - y_[k]; };
   auto de = [&](int k) { return -dy(k); };
-  const auto [sum_e2, sum_abs, sum_tabs] = segment_sums(y_, first, last, y_inf_, t(first), h);
+  const auto [sum_e2, sum_abs, sum_tabs] = segment_sums(s_.bits, y_, first, last, y_inf_, t(first), h);
   auto ends = [&](double f_first, double f_last) { return 0.5 * (f_first + f_last); };
   const double e_a = e(first), e_b = e(last);
   sum.ise += h * (sum_e2 - ends(e_a * e_a, e_b * e_b)) + c * (2.0 * e_a * de(first) - 2.0 * e_b * de(last));

@@ -163,6 +163,7 @@ class StepSimulator {
                           // exact_step::StoredStates, src/sim/step_kernels.hpp)
   // One bit per sample, 64 to a word: e = y∞ − y < 0; |y/y∞ − 1| > band; y[k+1] < y[k].
   std::vector<std::uint64_t> below_bits_, outside_bits_, falling_bits_;
+  std::vector<double> word_sums_;  // the integral sums of each 64 samples (exact_step::ScanBits)
 };
 
 namespace detail {
