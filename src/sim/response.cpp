@@ -13,6 +13,7 @@
 #include <cmath>
 #include <limits>
 
+#include "sim/modal.hpp"
 #include "sim/step_kernels.hpp"
 #include "sim/step_metrics.hpp"
 #include "specloop/sim/eigenvalues.hpp"
@@ -160,7 +161,8 @@ void StepSimulator::output_rows(const StateSpace& loop, double amplitude) {
   out_const_(3) = loop.C.row(1).dot(loop.B) * amplitude;
 }
 
-void StepSimulator::recur(int n, int first, int count) {
+void StepSimulator::recur(const StateSpace& loop, double amplitude, int first, int count, double h) {
+  const int n = loop.states();
   double* y = y_.data() + first;
   double* u = u_.data() + first;
   // Fixed-size kernels store blocks of kChains samples, each segment from a whole block on, and
@@ -168,6 +170,14 @@ void StepSimulator::recur(int n, int first, int count) {
   const int base = n <= 8 && first > 0 ? (first + kChains - 1) / kChains * kChains : first;
   const int rows = n <= 8 && layout_.output_from_y ? n - 1 : n;
   double* states = states_store_.data() + static_cast<std::size_t>(base) * static_cast<std::size_t>(rows);
+  if (modal_) {  // the step in closed form, no exponential
+    const exact_step::ModalStep one = exact_step::modal_step(basis_, h, amplitude);
+    const exact_step::ModalStep chain = exact_step::modal_step(basis_, kChains * h, amplitude);
+    exact_step::recur_modal(n, one, chain, modal_rows_[0], modal_rows_[2], out_const_(0), out_const_(2),
+                            !layout_.effort_from_y, w_, count, y, u, states);
+    return;
+  }
+  discretize(loop, amplitude, h, phi_, gamma_);
   if (exact_step::recur_fixed_size(n, phi_, gamma_, outputs_, out_const_, layout_, x_, count, y, u, states)) return;
   for (int k = 0; k < count; ++k) {
     Eigen::Map<Eigen::VectorXd>(states + static_cast<std::ptrdiff_t>(k) * n, n) = x_;
@@ -215,22 +225,40 @@ void StepSimulator::run_segments(const StateSpace& loop, double amplitude) {
     // writes T₁ .. T with the coarse step. Without a coarse segment the fine one runs to T.
     output_rows(loop, amplitude);
     layout_ = n <= 8 ? exact_step::kernel_layout(outputs_, out_const_) : exact_step::KernelLayout{};
-    discretize(loop, amplitude, grid_.step_s, phi_, gamma_);
+    // Modal coordinates where they are as accurate as the dense kernel's (modal.hpp): then every
+    // component of w is stored (y is no coordinate), and the rows act on w.
+    modal_ = n <= exact_step::kModalCapacity && exact_step::modal_kernels_enabled() &&
+             exact_step::modal_basis(loop.A, loop.B, poles_, kMaxModalCondition, basis_);
+    if (modal_) {
+      layout_.output_from_y = false;
+      for (int r = 0; r < 4; ++r)
+        for (int j = 0; j < n; ++j) {
+          double v = 0.0;
+          for (int i = 0; i < n; ++i) v += outputs_(r, i) * basis_.v[i][j];
+          modal_rows_[r][j] = v;
+        }
+      for (int i = 0; i < n; ++i) w_[i] = 0.0;
+    }
     x_.setZero();
     if (grid_.coarse_intervals == 0) {
-      recur(n, 0, fine_samples);
+      recur(loop, amplitude, 0, fine_samples, grid_.step_s);
     } else {
-      recur(n, 0, fine_samples - 1);
-      discretize(loop, amplitude, grid_.coarse_step_s, phi_, gamma_);
-      recur(n, fine_samples - 1, grid_.coarse_intervals + 1);
+      recur(loop, amplitude, 0, fine_samples - 1, grid_.step_s);
+      recur(loop, amplitude, fine_samples - 1, grid_.coarse_intervals + 1, grid_.coarse_step_s);
     }
-    if (n <= 8) {  // the fixed-size kernels stored z = T·x: the slope rows now act on z
+    if (modal_) {  // the stored states are w: the slope rows now act on w
+      for (int j = 0; j < n; ++j) {
+        outputs_(1, j) = modal_rows_[1][j];
+        outputs_(3, j) = modal_rows_[3][j];
+      }
+    } else if (n <= 8) {  // the fixed-size kernels stored z = T·x: the slope rows now act on z
       const OutputCoordinates oc = output_coordinates(outputs_);
       to_output_coordinates(outputs_.row(1), outputs_.row(0), oc);
       to_output_coordinates(outputs_.row(3), outputs_.row(0), oc);
     }
   } else {
     layout_ = exact_step::KernelLayout{};
+    modal_ = false;
     for (int k = 0; k < grid_.samples; ++k) {
       y_[k] = loop.D(0) * amplitude;
       u_[k] = loop.D(1) * amplitude;
@@ -276,6 +304,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
       time,
       exact_step::StoredStates{states_store_.data(), n, grid_.fine_intervals, grid_.coarse_intervals, y_.data(),
                                layout_.output_from_y ? layout_.p : -1},
+      modal_ ? basis_.v : nullptr,
       outputs_, out_const_, x_next_.data(), solve_.data(),
       exact_step::ScanBits{below_bits_.data(), outside_bits_.data(), falling_bits_.data(), word_sums_.data()},
       fastest_pole};

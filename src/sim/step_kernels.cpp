@@ -15,40 +15,22 @@
 #include <immintrin.h>
 #endif
 
+#include "sim/vector_pack.hpp"
 #include "specloop/sim/response.hpp"
 
 namespace specloop::exact_step {
+
+#if defined(SPECLOOP_AVX_KERNELS)
 namespace {
-
-// L doubles to a vector register (GCC/Clang vector extension): L = 2 is one SSE2 register on
-// x86-64, L = 4 one AVX register; plain scalar code elsewhere.
-template <int L>
-struct PackOf;
-template <>
-struct PackOf<2> {
-  typedef double type __attribute__((vector_size(16)));
-  typedef double unaligned __attribute__((vector_size(16), aligned(8)));
-  typedef std::uint64_t bits __attribute__((vector_size(16)));
-};
-template <>
-struct PackOf<4> {
-  typedef double type __attribute__((vector_size(32)));
-  typedef double unaligned __attribute__((vector_size(32), aligned(8)));
-  typedef std::uint64_t bits __attribute__((vector_size(32)));
-};
-
-#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__)) && !defined(SPECLOOP_NO_AVX)
-#define SPECLOOP_AVX_KERNELS 1
-// The AVX variants below (recurrence, sample scan, sums) do the same arithmetic as the SSE2
-// ones on twice the lanes, so they give the same bits; they are compiled for "avx" only (no
-// fused multiply-add) and chosen at run time. Defining SPECLOOP_NO_AVX leaves them out (to
-// compare the two builds' results).
 std::atomic<bool> g_portable_kernels{false};
+}  // namespace
 bool has_avx() {
   static const bool avx = __builtin_cpu_supports("avx");
   return avx && !g_portable_kernels.load(std::memory_order_relaxed);
 }
 #endif
+
+namespace {
 
 #if defined(SPECLOOP_AVX_KERNELS)
 // scan_samples' vector part four samples a step (AVX); max, min and comparisons are exact, so

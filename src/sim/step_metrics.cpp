@@ -26,7 +26,7 @@ class StepMeasure {
         y_inf_(step.y_inf), inv_(1.0 / step.y_inf),
         y_scale_(std::abs(ex.y_hi) + std::abs(ex.y_lo)), u_scale_(std::abs(ex.u_hi) + std::abs(ex.u_lo)),
         bits_(step.bits, step.count),
-        oc_(n_ >= 1 && n_ <= 8 ? output_coordinates(step.outputs) : OutputCoordinates{}),
+        oc_(n_ >= 1 && n_ <= 8 && !step.basis ? output_coordinates(step.outputs) : OutputCoordinates{}),
         sign_(step.y_inf > 0.0 ? 1.0 : -1.0), f_follows_y_(step.y_inf > 0.0) {
     // Extremes of y/y∞ are extremes of y (y∞ > 0) or swapped (y∞ < 0).
     k_max_ = first_equal(0, y_inf_ > 0.0 ? ex.y_hi : ex.y_lo);
@@ -160,7 +160,15 @@ double* StepMeasure::state_rate(int k) const {
   double* w = s_.scratch_b;
   double buffer[8];
   const double* z = s_.states.state(k, buffer);
-  for (int i = 0; i < n; ++i) w[i] = z[i];
+  if (s_.basis) {  // back from w to the loop's x = V·w
+    for (int i = 0; i < n; ++i) {
+      double x = 0.0;
+      for (int j = 0; j < n; ++j) x += s_.basis[i][j] * z[j];
+      w[i] = x;
+    }
+  } else {
+    for (int i = 0; i < n; ++i) w[i] = z[i];
+  }
   if (oc_.active) {  // back from z = T·x (see output_coordinates) to the loop's x
     double zp = w[oc_.p];
     for (int i = 0; i < n; ++i)

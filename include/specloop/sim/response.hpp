@@ -82,6 +82,23 @@ struct TimeGrid {
 TimeGrid choose_time_grid(const std::vector<Complex>& poles, const TimeGridRules& rules);
 
 namespace exact_step {
+/// Private to the simulator (src/sim/modal.hpp), declared here because StepSimulator holds one:
+/// a loop's eigenvector basis and modal blocks (up to 8 states).
+struct ModalBasis {
+  int n = 0;
+  double v[8][8];      // x = V·w (row-major); unit columns
+  double b[8];         // V⁻¹·B
+  double condition = 0.0;  // ‖V‖∞·‖V⁻¹‖∞
+  // Block j (rows 2j, 2j + 1): a complex pair σ ± jω (`complex`; first = σ, second = ω) or two
+  // real eigenvalues (first, second); the last, for odd n, a real eigenvalue in `first`.
+  struct Block {
+    bool complex = false;
+    double first = 0.0, second = 0.0;
+  };
+  Block block[4];
+  int blocks() const { return (n + 1) / 2; }
+};
+
 /// Private to the simulator (src/sim/step_kernels.hpp), declared here because StepSimulator holds
 /// one: what the fixed-size recurrence need not write, because y gives it (decided once per loop
 /// by kernel_layout, and read back the same way by StoredStates and the metrics):
@@ -125,7 +142,9 @@ class StepSimulator {
   void discretize(const StateSpace& loop, double amplitude, double step, Eigen::MatrixXd& phi, Eigen::VectorXd& gamma);
   // Fills outputs_ and out_const_: the rows giving y, y', u, u' from the state.
   void output_rows(const StateSpace& loop, double amplitude);
-  void recur(int states, int first, int count);
+  // Writes samples first … first + count − 1 with the step h (the segment's), from x_ (w_ when
+  // modal_), which it leaves at the next sample.
+  void recur(const StateSpace& loop, double amplitude, int first, int count, double h);
   // Fills poles_ with the eigenvalues of a; false when the solver fails.
   bool eigenvalues(const Eigen::MatrixXd& a);
   // y∞/r of the loop: D_y − C_y·A⁻¹·B.
@@ -136,6 +155,13 @@ class StepSimulator {
   TimeGridRules rules_;
   TimeGrid grid_;
   exact_step::KernelLayout layout_;  // what the recurrence leaves for y to give (step_kernels.hpp)
+  // The modal recurrence (src/sim/modal.hpp), when the loop's eigenvector basis V is this well
+  // conditioned: its rounding is then within about this factor of the dense kernel's.
+  static constexpr double kMaxModalCondition = 1e3;
+  bool modal_ = false;
+  exact_step::ModalBasis basis_;
+  double modal_rows_[4][8];  // outputs_'s rows acting on w (x = V·w)
+  double w_[8];              // the modal state between segments
   std::vector<Complex> poles_;
   // Workspace (sized on demand, then reused).
   int states_ = -1;
@@ -172,6 +198,10 @@ namespace detail {
 /// compare both on this machine. Not thread-safe to change while simulations run.
 void use_portable_kernels(bool portable);
 bool wide_kernels_available();  // compiled in and supported by this processor
+/// Loops of up to 8 states with a well-conditioned eigenvector basis run the modal recurrence
+/// (src/sim/modal.hpp); tests switch it off to compare it with the dense one. Not thread-safe to
+/// change while simulations run.
+void use_modal_kernels(bool modal);
 }  // namespace detail
 
 }  // namespace specloop
