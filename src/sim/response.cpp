@@ -171,9 +171,9 @@ void StepSimulator::recur(const StateSpace& loop, double amplitude, int first, i
   const int rows = n <= 8 && layout_.output_from_y ? n - 1 : n;
   double* states = states_store_.data() + static_cast<std::size_t>(base) * static_cast<std::size_t>(rows);
   if (modal_) {  // the step in closed form, no exponential
-    const exact_step::ModalStep one = exact_step::modal_step(basis_, h, amplitude);
-    const exact_step::ModalStep chain = exact_step::modal_step(basis_, kChains * h, amplitude);
-    exact_step::recur_modal(n, one, chain, modal_rows_[0], modal_rows_[2], out_const_(0), out_const_(2),
+    const exact_step::ModalStep one = exact_step::modal_step(basis_, h);
+    const exact_step::ModalStep chain = exact_step::modal_step(basis_, kChains * h);
+    exact_step::recur_modal(n, one, chain, modal_rows_[0], modal_rows_[2], modal_final_[0], modal_final_[1],
                             !layout_.effort_from_y, w_, count, y, u, states);
     return;
   }
@@ -217,7 +217,7 @@ double StepSimulator::dc_gain(const StateSpace& loop) {
   return dc;
 }
 
-void StepSimulator::run_segments(const StateSpace& loop, double amplitude) {
+void StepSimulator::run_segments(const StateSpace& loop, double amplitude, double y_inf) {
   const int n = loop.states();
   const int fine_samples = grid_.fine_intervals + 1;
   if (n > 0) {
@@ -228,7 +228,7 @@ void StepSimulator::run_segments(const StateSpace& loop, double amplitude) {
     // Modal coordinates where they are as accurate as the dense kernel's (modal.hpp): then every
     // component of w is stored (y is no coordinate), and the rows act on w.
     modal_ = n <= exact_step::kModalCapacity && exact_step::modal_kernels_enabled() &&
-             exact_step::modal_basis(loop.A, loop.B, poles_, kMaxModalCondition, basis_);
+             exact_step::modal_basis(loop.A, poles_, kMaxModalCondition, basis_);
     if (modal_) {
       layout_.output_from_y = false;
       for (int r = 0; r < 4; ++r)
@@ -237,7 +237,21 @@ void StepSimulator::run_segments(const StateSpace& loop, double amplitude) {
           for (int i = 0; i < n; ++i) v += outputs_(r, i) * basis_.v[i][j];
           modal_rows_[r][j] = v;
         }
-      for (int i = 0; i < n; ++i) w_[i] = 0.0;
+      // From rest: w(0) = −V⁻¹·x∞, x∞ = −A⁻¹·B·r; the final values y∞ (the measurement's) and u∞.
+      double x_inf[8];
+      with_fixed_size(n, [&](auto size) {
+        constexpr int N = decltype(size)::value;
+        const Eigen::Matrix<double, N, 1> solved = Eigen::PartialPivLU<Eigen::Matrix<double, N, N>>(loop.A).solve(loop.B);
+        for (int i = 0; i < N; ++i) x_inf[i] = -solved(i) * amplitude;
+      });
+      modal_final_[0] = y_inf;
+      modal_final_[1] = out_const_(2);
+      for (int i = 0; i < n; ++i) modal_final_[1] += outputs_(2, i) * x_inf[i];
+      for (int i = 0; i < n; ++i) {
+        double w = 0.0;
+        for (int j = 0; j < n; ++j) w -= basis_.v_inv[i][j] * x_inf[j];
+        w_[i] = w;
+      }
     }
     x_.setZero();
     if (grid_.coarse_intervals == 0) {
@@ -246,11 +260,12 @@ void StepSimulator::run_segments(const StateSpace& loop, double amplitude) {
       recur(loop, amplitude, 0, fine_samples - 1, grid_.step_s);
       recur(loop, amplitude, fine_samples - 1, grid_.coarse_intervals + 1, grid_.coarse_step_s);
     }
-    if (modal_) {  // the stored states are w: the slope rows now act on w
-      for (int j = 0; j < n; ++j) {
+    if (modal_) {  // the stored states are w: the slope rows now act on w, and y′ = C·A·V·w exactly
+      for (int j = 0; j < n; ++j) {  // (A·x∞ + B·r = 0)
         outputs_(1, j) = modal_rows_[1][j];
         outputs_(3, j) = modal_rows_[3][j];
       }
+      out_const_(1) = out_const_(3) = 0.0;
     } else if (n <= 8) {  // the fixed-size kernels stored z = T·x: the slope rows now act on z
       const OutputCoordinates oc = output_coordinates(outputs_);
       to_output_coordinates(outputs_.row(1), outputs_.row(0), oc);
@@ -292,7 +307,7 @@ StepStatus StepSimulator::simulate(const StateSpace& loop, double amplitude, dou
   grid_ = choose_time_grid(poles_, rules_);
   prepare(n, grid_.samples);
   const int K = grid_.samples;
-  run_segments(loop, amplitude);
+  run_segments(loop, amplitude, y_inf);
   const double u_last = layout_.effort_from_y ? layout_.effort(y_[K - 1]) : u_[K - 1];
   if (!std::isfinite(y_[K - 1]) || !std::isfinite(u_last)) return StepStatus::numerical_failure;
 

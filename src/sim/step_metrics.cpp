@@ -160,12 +160,19 @@ double* StepMeasure::state_rate(int k) const {
   double* w = s_.scratch_b;
   double buffer[8];
   const double* z = s_.states.state(k, buffer);
-  if (s_.basis) {  // back from w to the loop's x = V·w
+  if (s_.basis) {  // modal: x − x∞ = V·w, and x' = A·(x − x∞) exactly (A·x∞ + B·r = 0)
     for (int i = 0; i < n; ++i) {
       double x = 0.0;
       for (int j = 0; j < n; ++j) x += s_.basis[i][j] * z[j];
       w[i] = x;
     }
+    const double* a = loop_.A.data();  // column-major
+    for (int r = 0; r < n; ++r) {
+      double acc = 0.0;
+      for (int col = 0; col < n; ++col) acc += a[col * n + r] * w[col];
+      v[r] = acc;
+    }
+    return v;
   } else {
     for (int i = 0; i < n; ++i) w[i] = z[i];
   }

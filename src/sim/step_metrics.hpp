@@ -36,7 +36,7 @@ struct SimulatedStep {
   TimeGrid grid;
   SampleTimes time;
   StoredStates states;               // the state at every sample (StoredStates::state)
-  const double (*basis)[8] = nullptr;  // modal: x = V·w, the stored states being w (else nullptr)
+  const double (*basis)[8] = nullptr;  // modal: x − x∞ = V·w, the stored states being w (else nullptr)
   const Eigen::MatrixXd& outputs;    // [C_y; C_y·A; C_u; C_u·A]: rows 0, 2 on x, the slope rows 1, 3 on the stored states
   const Eigen::VectorXd& out_const;  // their constants: D_y·r, C_y·B·r, D_u·r, C_u·B·r
   double* scratch_a = nullptr;       // two vectors of n entries, overwritten (state_rate)

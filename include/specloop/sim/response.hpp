@@ -86,8 +86,8 @@ namespace exact_step {
 /// a loop's eigenvector basis and modal blocks (up to 8 states).
 struct ModalBasis {
   int n = 0;
-  double v[8][8];      // x = V·w (row-major); unit columns
-  double b[8];         // V⁻¹·B
+  double v[8][8];      // x − x∞ = V·w (row-major); unit columns
+  double v_inv[8][8];  // V⁻¹
   double condition = 0.0;  // ‖V‖∞·‖V⁻¹‖∞
   // Block j (rows 2j, 2j + 1): a complex pair σ ± jω (`complex`; first = σ, second = ω) or two
   // real eigenvalues (first, second); the last, for odd n, a real eigenvalue in `first`.
@@ -149,19 +149,24 @@ class StepSimulator {
   bool eigenvalues(const Eigen::MatrixXd& a);
   // y∞/r of the loop: D_y − C_y·A⁻¹·B.
   double dc_gain(const StateSpace& loop);
-  // Writes y_, u_ and the stored states over grid_'s segments (the recurrence), from rest.
-  void run_segments(const StateSpace& loop, double amplitude);
+  // Writes y_, u_ and the stored states over grid_'s segments (the recurrence), from rest;
+  // y_inf: the final value (the modal recurrence settles on it exactly).
+  void run_segments(const StateSpace& loop, double amplitude, double y_inf);
 
   TimeGridRules rules_;
   TimeGrid grid_;
   exact_step::KernelLayout layout_;  // what the recurrence leaves for y to give (step_kernels.hpp)
   // The modal recurrence (src/sim/modal.hpp), when the loop's eigenvector basis V is this well
-  // conditioned: its rounding is then within about this factor of the dense kernel's.
-  static constexpr double kMaxModalCondition = 1e3;
+  // conditioned. Measured against a long-double reference (Taylor exponential, 64-bit mantissa)
+  // on 800 random P and PI loops with poles over two to six decades, the largest sample error
+  // relative to max|y|: modal 5e-12 with cond(V) <= 1e4 (1e-10 on one loop up to 1e5); the dense
+  // kernel 7e-10 on the same loops (its error grows on graded loops, the modal one's does not).
+  static constexpr double kMaxModalCondition = 1e4;
   bool modal_ = false;
   exact_step::ModalBasis basis_;
-  double modal_rows_[4][8];  // outputs_'s rows acting on w (x = V·w)
+  double modal_rows_[4][8];  // outputs_'s rows acting on w (x − x∞ = V·w)
   double w_[8];              // the modal state between segments
+  double modal_final_[2];    // y∞ and u∞ (the modal recurrence's constants)
   std::vector<Complex> poles_;
   // Workspace (sized on demand, then reused).
   int states_ = -1;
