@@ -225,6 +225,25 @@ json spec_json(const Spec& spec) {
         entry.is_limit() ? optional_number(r.*(entry.limit)) : number_json(r.*(entry.setting));
   json bounds = json::object();
   for (const auto& [name, range] : spec.search.bounds) bounds[name] = {range.first, range.second};
+  json uncertainty = nullptr;
+  if (const UncertaintySpec& u = spec.uncertainty; u.active()) {
+    json ranges = json::array();
+    for (const UncertainRange& range : u.ranges)
+      ranges.push_back({{"key", range.key},
+                        {"low", number_json(range.low)},
+                        {"high", number_json(range.high)},
+                        {"nominal", number_json(range.nominal)},
+                        {"scaled_low", number_json(u.low_of(range))},
+                        {"scaled_high", number_json(u.high_of(range))}});
+    uncertainty = {{"ranges", ranges},
+                   {"samples", u.samples},
+                   {"seed", u.seed},
+                   {"mode", robust_mode_name(u.mode)},
+                   {"yield_min_pct", u.mode == RobustMode::yield ? number_json(u.yield_min_pct) : json(nullptr)},
+                   {"verify_samples", u.verify_samples},
+                   {"scale", number_json(u.scale)},
+                   {"max_corners", u.max_corners}};
+  }
   return {{"path", spec.path},
           {"name", spec.name},
           {"title", spec.title},
@@ -241,8 +260,10 @@ json spec_json(const Spec& spec) {
             {"max_time", number_json(spec.search.max_time_s)},
             {"simulate", simulate_mode_name(spec.search.simulate)},
             {"margin_pct", number_json(spec.search.margin_pct)},
+            {"objective_at", objective_at_name(spec.search.objective_at)},
             {"bounds", bounds}}},
           {"sweep", {{"vary", spec.sweep_vary}}},
+          {"uncertainty", uncertainty},
           {"units", units_json(spec.units)}};
 }
 

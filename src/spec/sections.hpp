@@ -40,6 +40,9 @@ void read_disturbance(const DocumentReader& reader, DisturbanceSpec& disturbance
                       std::vector<PendingTime>& pending);
 /// [sweep] vary: each axis's syntax.
 void read_sweep(const DocumentReader& reader, std::vector<std::string>& vary);
+/// [uncertainty]: each range's key checked against the document (a numeric plant key, as `sweep
+/// --vary` checks it), low < high around the file's value; the drawing and judging keys.
+void read_uncertainty(const DocumentReader& reader, UncertaintySpec& uncertainty);
 /// [units]: each a short label without control characters.
 void read_units(const DocumentReader& reader, UnitsSpec& units);
 

@@ -40,6 +40,10 @@ SpecAsRead read_document(const toml::table& document, const std::string& path) {
   reading::read_disturbance(reader, spec.disturbance, times, sources->pending_times);
   reading::read_sweep(reader, spec.sweep_vary);
   reading::read_units(reader, spec.units);
+  reading::read_uncertainty(reader, spec.uncertainty);
+  if (spec.search.objective_at != ObjectiveAt::nominal && !spec.uncertainty.active())
+    reading::fail_at(path, reading::find_entry(*reader.section("search"), "objective_at")->at, "search.objective_at",
+                     "\"worst\" reads the objective over the plants of [uncertainty], and the file has none");
   if (times) reading::check_zero_error_integrator(path, spec, *sources);
   read.sources = std::move(sources);
   return read;
