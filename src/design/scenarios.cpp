@@ -1,0 +1,181 @@
+// The scenario plants of robust design (scenarios.hpp): the box, its corners, the Latin
+// hypercube and the verification sample, each plant a re-read spec; Wilson's interval.
+#include "specloop/design/scenarios.hpp"
+
+#include <fmt/format.h>
+
+#include <algorithm>
+#include <cmath>
+#include <random>
+#include <regex>
+#include <set>
+
+#include "specloop/design/characterize.hpp"
+#include "specloop/spec/key_paths.hpp"
+
+namespace specloop {
+
+namespace {
+
+/// [0, 1) from 53 random bits (portable, unlike std::uniform_real_distribution).
+double unit(std::mt19937_64& g) { return static_cast<double>(g() >> 11) * 0x1.0p-53; }
+/// An integer in [0, n) (n small; the bias of a 64-bit modulo is below 1e-15).
+std::size_t below(std::mt19937_64& g, std::size_t n) { return static_cast<std::size_t>(g() % n); }
+
+constexpr std::uint64_t kVerificationStream = 0x9E3779B97F4A7C15ull;
+constexpr std::uint64_t kCornerStream = 0xD1B54A32D192ED03ull;
+
+std::vector<double> corner_of(const UncertaintyBox& box, std::uint64_t bits) {
+  std::vector<double> v(box.size());
+  for (std::size_t k = 0; k < box.size(); ++k) v[k] = (bits >> k) & 1u ? box.high[k] : box.low[k];
+  return v;
+}
+
+std::vector<Scenario> build(const Problem& nominal, ScenarioKind kind, const std::vector<std::vector<double>>& points) {
+  std::vector<Scenario> out;
+  out.reserve(points.size());
+  for (const auto& values : points) out.push_back({kind, values, scenario_problem(nominal, values)});
+  return out;
+}
+
+}  // namespace
+
+std::string_view scenario_kind_name(ScenarioKind kind) {
+  switch (kind) {
+    case ScenarioKind::nominal: return "nominal";
+    case ScenarioKind::corner: return "corner";
+    case ScenarioKind::sample: return "sample";
+    case ScenarioKind::verification: return "verification";
+  }
+  return "unknown";
+}
+
+UncertaintyBox uncertainty_box(const UncertaintySpec& u) {
+  UncertaintyBox box;
+  for (const UncertainRange& r : u.ranges) {
+    box.keys.push_back(r.key);
+    box.low.push_back(u.low_of(r));
+    box.high.push_back(u.high_of(r));
+    box.nominal.push_back(r.nominal);
+  }
+  return box;
+}
+
+std::vector<std::vector<double>> box_corners(const UncertaintyBox& box, int max_corners, std::uint64_t seed) {
+  const std::size_t d = box.size();
+  std::vector<std::vector<double>> out;
+  if (d < 63 && (std::uint64_t{1} << d) <= static_cast<std::uint64_t>(max_corners)) {
+    for (std::uint64_t bits = 0; bits < (std::uint64_t{1} << d); ++bits) out.push_back(corner_of(box, bits));
+    return out;
+  }
+  // Too many: a deterministic subset, each corner as a set of "high" keys (a bit vector).
+  std::set<std::vector<bool>> seen;
+  const auto add = [&](const std::vector<bool>& high) {
+    if (out.size() >= static_cast<std::size_t>(max_corners) || !seen.insert(high).second) return;
+    std::vector<double> v(d);
+    for (std::size_t k = 0; k < d; ++k) v[k] = high[k] ? box.high[k] : box.low[k];
+    out.push_back(std::move(v));
+  };
+  add(std::vector<bool>(d, false));
+  add(std::vector<bool>(d, true));
+  for (std::size_t k = 0; k < d; ++k) {
+    std::vector<bool> one(d, false), all_but_one(d, true);
+    one[k] = true;
+    all_but_one[k] = false;
+    add(one);
+    add(all_but_one);
+  }
+  std::mt19937_64 g(seed ^ kCornerStream);
+  for (int tries = 0; out.size() < static_cast<std::size_t>(max_corners) && tries < 100 * max_corners; ++tries) {
+    std::vector<bool> high(d);
+    for (std::size_t k = 0; k < d; ++k) high[k] = (g() >> 63) != 0;
+    add(high);
+  }
+  return out;
+}
+
+std::vector<std::vector<double>> latin_hypercube(const UncertaintyBox& box, int n, std::uint64_t seed) {
+  std::mt19937_64 g(seed);
+  const std::size_t count = static_cast<std::size_t>(std::max(0, n));
+  std::vector<std::vector<double>> out(count, std::vector<double>(box.size()));
+  std::vector<std::size_t> strata(count);
+  for (std::size_t k = 0; k < box.size(); ++k) {
+    for (std::size_t i = 0; i < count; ++i) strata[i] = i;
+    for (std::size_t i = count; i > 1; --i) std::swap(strata[i - 1], strata[below(g, i)]);  // Fisher–Yates
+    for (std::size_t i = 0; i < count; ++i) {
+      const double u = (static_cast<double>(strata[i]) + unit(g)) / static_cast<double>(count);
+      out[i][k] = box.low[k] + u * (box.high[k] - box.low[k]);
+    }
+  }
+  return out;
+}
+
+std::vector<std::vector<double>> uniform_sample(const UncertaintyBox& box, int n, std::uint64_t seed) {
+  std::mt19937_64 g(seed ^ kVerificationStream);
+  std::vector<std::vector<double>> out(static_cast<std::size_t>(std::max(0, n)), std::vector<double>(box.size()));
+  for (auto& point : out)
+    for (std::size_t k = 0; k < box.size(); ++k) point[k] = box.low[k] + unit(g) * (box.high[k] - box.low[k]);
+  return out;
+}
+
+std::string scenario_values_text(const UncertaintyBox& box, const std::vector<double>& values) {
+  std::string text;
+  for (std::size_t k = 0; k < box.size() && k < values.size(); ++k)
+    text += fmt::format("{}{} = {:.6g}", k ? ", " : "", box.keys[k], values[k]);
+  return text;
+}
+
+Problem scenario_problem(const Problem& nominal, const std::vector<double>& values) {
+  const Spec& spec = nominal.spec;
+  const UncertaintyBox box = uncertainty_box(spec.uncertainty);
+  SpecDocument document(spec.source_text, spec.path);
+  document.erase("uncertainty");
+  document.erase("sweep");
+  for (std::size_t k = 0; k < box.size(); ++k) document.set_number(box.keys[k], values[k]);
+  Spec plant_spec;
+  try {
+    plant_spec = parse_spec(document.text(), spec.path);
+  } catch (const SpecError& e) {
+    // The position is in the re-written text, not the user's file: keep only what is wrong.
+    static const std::regex located(R"(^.*?:\d+:\d+: )");
+    throw SpecError(fmt::format("{}: [uncertainty]: the plant with {} is not a valid plant: {}", spec.path,
+                                scenario_values_text(box, values), std::regex_replace(e.what(), located, "",
+                                                                                        std::regex_constants::format_first_only)));
+  }
+  Problem p = nominal;
+  p.spec.plant = plant_spec.plant;
+  p.plant = linear_plant(plant_spec);
+  p.normalized_plant = TransferFunction(p.action * p.plant.numerator, p.plant.denominator);
+  p.plant_realization = realize(p.plant);
+  p.delay_free_realization =
+      plant_spec.plant.delay_s > 0.0
+          ? realize(TransferFunction(Polynomial(plant_spec.plant.numerator), Polynomial(plant_spec.plant.denominator)))
+          : p.plant_realization;
+  p.sampled = nominal.sampled && p.plant_realization.D(0) == 0.0;
+  return p;
+}
+
+std::vector<Scenario> scenario_set(const Problem& nominal) {
+  const UncertaintySpec& u = nominal.spec.uncertainty;
+  const UncertaintyBox box = uncertainty_box(u);
+  std::vector<Scenario> out;
+  out.push_back({ScenarioKind::nominal, box.nominal, nominal});
+  for (Scenario& s : build(nominal, ScenarioKind::corner, box_corners(box, u.max_corners, u.seed))) out.push_back(std::move(s));
+  for (Scenario& s : build(nominal, ScenarioKind::sample, latin_hypercube(box, u.samples, u.seed))) out.push_back(std::move(s));
+  return out;
+}
+
+std::vector<Scenario> verification_plants(const Problem& nominal) {
+  const UncertaintySpec& u = nominal.spec.uncertainty;
+  return build(nominal, ScenarioKind::verification, uniform_sample(uncertainty_box(u), u.verify_samples, u.seed));
+}
+
+ProportionInterval wilson_interval(int met, int of, double z) {
+  if (of <= 0) return {};
+  const double n = of, p = met / n, z2 = z * z;
+  const double centre = (p + z2 / (2.0 * n)) / (1.0 + z2 / n);
+  const double half = z / (1.0 + z2 / n) * std::sqrt(p * (1.0 - p) / n + z2 / (4.0 * n * n));
+  return {100.0 * std::max(0.0, centre - half), 100.0 * std::min(1.0, centre + half)};
+}
+
+}  // namespace specloop
