@@ -1,16 +1,16 @@
 // The NLopt search against the true simulated response.
 //
-// Variables are the structure's series parameters on a log scale. One evaluation: parameters →
-// controller polynomials → realization → closed loop → stability barrier (poles) → exact step
-// simulation → metrics (→ margins when a requirement needs them) → cost. The cost ranks
-// candidates feasibility first: a feasible one costs objective/objective_at_seed (mapped
-// monotonically below 1e4), an infeasible stable one 1e4·(1 + Σ normalized violations), an
-// unstable one 1e9·(1 + how far right its rightmost pole is), so the search is steered back to
-// stability, then to feasibility, then down the objective. (An additive penalty was measured
-// too: it stalled on constraint boundaries, e.g. 45 % worse ITAE on the oven demo; see
-// DEVELOPERS.md.) Feasibility is judged against the requirements tightened by the search's
-// margin (requirements.hpp, `tightened`), with the settling band narrowed by it, so that the design
-// returned keeps room on every limit.
+// Variables are the structure's series parameters on a log scale. One evaluation
+// (CandidateEvaluator, evaluate.hpp): parameters → controller polynomials → realization → closed
+// loop → stability barrier (poles) → exact step simulation → metrics (→ margins when a
+// requirement needs them) → violation and objective. The cost ranks candidates feasibility
+// first: a feasible one costs objective/objective_at_seed (mapped monotonically below 1e4), an
+// infeasible stable one 1e4·(1 + Σ normalized violations), an unstable one 1e9·(1 + how far right
+// its rightmost pole is), so the search is steered back to stability, then to feasibility, then
+// down the objective. (An additive penalty was measured too: it stalled on constraint
+// boundaries, e.g. 45 % worse ITAE on the oven demo; see DEVELOPERS.md.) Feasibility is judged
+// against the requirements tightened by the search's margin (requirements.hpp, `tightened`),
+// with the settling band narrowed by it, so that the design returned keeps room on every limit.
 #include <nlopt.hpp>
 
 #include <algorithm>
@@ -20,9 +20,9 @@
 #include <limits>
 #include <map>
 
+#include "specloop/design/evaluate.hpp"
 #include "specloop/design/nonlinear_loop.hpp"
 #include "specloop/design/search.hpp"
-#include "specloop/sim/sampled_loop.hpp"
 
 namespace specloop {
 
@@ -36,118 +36,15 @@ constexpr std::size_t kNonlinearStarts = 3;    // Subplex starts of the nonlinea
 
 class CostFunction {
  public:
-  CostFunction(const Problem& problem, const SearchOptions& options)
-      : problem_(problem), options_(options), structure_(problem.spec.controller.structure),
-        n_(problem.spec.controller.derivative_filter), margin_(problem.search_margin),
-        band_(problem.band_fraction * (1.0 - problem.search_margin)) {
-    // The search's margin (requirements.hpp, `tightened`): limits tightened, the band narrowed.
-    for (const Requirement& r : problem.requirements) requirements_.push_back(tightened(r, margin_));
-  }
+  CostFunction(const Problem& problem, const SearchOptions& options) : problem_(problem), evaluator_(problem, options) {}
 
-  struct Outcome {
-    bool stable = false;
-    double objective = 0.0;
-    double violation = 0.0;
-    double effort_peak = 0.0;
+  struct Outcome : CandidateOutcome {
     double linear_violation = 0.0;  // nonlinear evaluations: the requirements missed on the linear loop
   };
 
   // Evaluates natural-unit parameters on the linear loop (the sampled one when the problem's
   // controller is sampled).
-  Outcome evaluate(const double* params) {
-    Outcome out;
-    controller_polynomials(structure_, params, n_, problem_.action, num_, den_);
-    const TransferFunction c{Polynomial(num_), Polynomial(den_)};
-    const ControllerSpec& cs = problem_.spec.controller;
-    if (problem_.sampled) return evaluate_sampled(params, c);
-    const bool weighted = cs.setpoint_weight != 1.0 || cs.derivative_on_measurement;
-    const StateSpace loop =
-        weighted ? close_loop(problem_.plant_realization, c,
-                              reference_path(make_controller(structure_, std::vector<double>(params, params + problem_.parameters.size()), n_, problem_.action),
-                                             cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0))
-                 : close_loop(problem_.plant_realization, realize(c));
-    const StepStatus status = sim_.simulate(loop, problem_.spec.reference.amplitude, band_, metrics_);
-    if (status != StepStatus::ok) {
-      double rightmost = 0.0;
-      for (const Complex& p : sim_.poles()) rightmost = std::max(rightmost, p.real() / std::max(1.0, std::abs(p)));
-      out.objective = kUnstableCost * (1.0 + rightmost);
-      return out;
-    }
-    out.stable = true;
-    std::optional<Margins> margins;
-    if (problem_.needs_margins || options_.objective_requirement) margins = loop_margins(c * problem_.plant);
-    out.violation = total_violation(metrics_, margins);
-    out.objective = objective_of(metrics_, margins, c, sim_.grid().horizon_s());
-    out.effort_peak = metrics_.effort_peak;
-    return out;
-  }
-
-  // The sampled loop: the controller's difference equation at the spec's period, exactly.
-  Outcome evaluate_sampled(const double* params, const TransferFunction& c) {
-    Outcome out;
-    const ControllerSpec& cs = problem_.spec.controller;
-    StepStatus status = StepStatus::numerical_failure;
-    try {
-      const Controller ctl = make_controller(structure_, std::vector<double>(params, params + problem_.parameters.size()), n_, problem_.action);
-      const DifferenceEquation eq =
-          controller_difference_equation(ctl, cs.sample_time_s, cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0);
-      status = sampled_sim_.simulate(problem_.plant_realization, eq, problem_.spec.reference.amplitude,
-                                     band_, metrics_);
-    } catch (const std::invalid_argument&) {
-      status = StepStatus::numerical_failure;
-    }
-    if (status != StepStatus::ok) {
-      out.objective = kUnstableCost * (1.0 + std::min(1.0, sampled_sim_.instability()));
-      return out;
-    }
-    out.stable = true;
-    std::optional<Margins> margins;
-    if (problem_.needs_margins || options_.objective_requirement) margins = loop_margins(c * problem_.plant);
-    out.violation = total_violation(metrics_, margins);
-    out.objective = objective_of(metrics_, margins, c, sampled_sim_.horizon_s());
-    out.effort_peak = metrics_.effort_peak;
-    return out;
-  }
-
-  // The grid of the last successful linear evaluation.
-  LinearGrid linear_grid() const {
-    return problem_.sampled ? LinearGrid{sampled_sim_.horizon_s(), sampled_sim_.fine_step_s(), sampled_sim_.fine_until_s()}
-                            : linear_grid_of(sim_.grid());
-  }
-
-  // Σ normalized violations of the problem's requirements (a missing value counts as 1).
-  // Σ normalized violations of the tightened requirements (a missing value counts as 1).
-  double total_violation(const StepMetrics& m, const std::optional<Margins>& margins) const {
-    double total = 0.0;
-    for (const Requirement& r : requirements_)
-      total += requirement_violation(
-          r, requirement_value(r, m, margins, problem_.reference_peak_time_s, problem_.band_fraction * 100.0, margin_));
-    return total;
-  }
-
-  // What is minimized among feasible candidates.
-  double objective_of(const StepMetrics& m, const std::optional<Margins>& margins, const TransferFunction& c,
-                      double horizon_s) const {
-    if (options_.objective_requirement) {
-      const auto v = requirement_value(*options_.objective_requirement, m, margins, problem_.reference_peak_time_s,
-                                       problem_.band_fraction * 100.0);
-      const double big = 1e3 * std::max(1.0, std::abs(options_.objective_requirement->limit));
-      if (!v) return big;
-      const double read = options_.objective_requirement->magnitude ? std::abs(*v) : *v;
-      return options_.objective_requirement->upper ? read : 1.0 / std::max(read, 1e-12);
-    }
-    switch (options_.objective) {
-      case Objective::itae:
-      case Objective::iae:
-      case Objective::ise:
-        return tracking_objective(options_.objective, m, problem_.spec.reference.amplitude, problem_.tracking_window_s);
-      case Objective::effort: return m.command_peak.value_or(m.effort_peak);  // what effort_max reads
-      case Objective::settling_time: return m.settling_time_s.value_or(1e3 * horizon_s);
-      case Objective::sensitivity_peak:
-        return margins ? margins->sensitivity_peak : loop_margins(c * problem_.plant).sensitivity_peak;
-    }
-    return 0.0;
-  }
+  Outcome evaluate(const double* params) { return {evaluator_.evaluate(problem_, params)}; }
 
   // The same outcome measured on the spec's nonlinear loop, exactly as the confirmation measures
   // it (the confirmation stage, confirm_nonlinear): the linear loop's horizon, the confirmation's samples,
@@ -156,7 +53,8 @@ class CostFunction {
     Outcome out;
     Controller c;
     try {
-      c = make_controller(structure_, std::vector<double>(params, params + problem_.parameters.size()), n_, problem_.action);
+      c = make_controller(problem_.spec.controller.structure, std::vector<double>(params, params + problem_.parameters.size()),
+                          problem_.spec.controller.derivative_filter, problem_.action);
     } catch (const std::invalid_argument&) {
       out.objective = kUnstableCost;
       return out;
@@ -167,7 +65,7 @@ class CostFunction {
       return out;
     }
     out.linear_violation = linear.violation;
-    const NonlinearSetup setup = nonlinear_setup(problem_, linear_grid(), kConfirmationSamples);
+    const NonlinearSetup setup = nonlinear_setup(problem_, evaluator_.linear_grid(), kConfirmationSamples);
     SettledRun run;
     try {
       run = simulate_until_settled(problem_, c, setup, kMaxHorizonFactor, kRefinementMaxSeconds);
@@ -183,8 +81,8 @@ class CostFunction {
     out.stable = true;
     std::optional<Margins> margins;
     if (problem_.needs_margins) margins = loop_margins(c.transfer * problem_.plant);
-    out.violation = total_violation(r.metrics, margins);
-    out.objective = objective_of(r.metrics, margins, c.transfer, run.setup.options.horizon_s);
+    out.violation = evaluator_.violation(r.metrics, margins);
+    out.objective = evaluator_.objective(r.metrics, margins, c.transfer, problem_.plant, run.setup.options.horizon_s);
     out.effort_peak = r.metrics.effort_peak;
     return out;
   }
@@ -251,17 +149,9 @@ class CostFunction {
 
  private:
   const Problem& problem_;
-  const SearchOptions& options_;
-  Structure structure_;
-  double n_;
-  double margin_;                      // the search's margin (fraction)
-  double band_;                        // the settling band narrowed by it
-  std::vector<Requirement> requirements_;  // the problem's, tightened by it
+  CandidateEvaluator evaluator_;
   double objective_scale_ = 1.0;
-  StepSimulator sim_;
-  SampledStepSimulator sampled_sim_;
-  StepMetrics metrics_;
-  std::vector<double> num_, den_, params_;
+  std::vector<double> params_;
 };
 
 double nlopt_trampoline(const std::vector<double>& x, std::vector<double>&, void* data) {

@@ -1,0 +1,72 @@
+// One candidate's evaluation on the linear loop: parameters → controller → closed loop → exact
+// step response (continuous or sampled) → metrics → violation of the tightened requirements and
+// the objective. The search ranks what this returns; the plant it runs on may be a scenario of
+// the nominal one (the same problem with the plant fields replaced).
+#pragma once
+
+#include <optional>
+#include <vector>
+
+#include "specloop/core/margins.hpp"
+#include "specloop/design/nonlinear_loop.hpp"
+#include "specloop/design/problem.hpp"
+#include "specloop/design/search.hpp"
+#include "specloop/sim/response.hpp"
+#include "specloop/sim/sampled_loop.hpp"
+
+namespace specloop {
+
+/// What one evaluation found. Unstable (or not simulable): `objective` holds the barrier cost,
+/// 1e9·(1 + how far right the rightmost pole is), and the other fields are 0.
+struct CandidateOutcome {
+  bool stable = false;
+  double objective = 0.0;
+  double violation = 0.0;    // Σ normalized violations of the tightened requirements (0: feasible)
+  double effort_peak = 0.0;  // max |u|
+};
+
+/// The cost evaluation's workspace and judgement: one per search (not for concurrent use; after
+/// the first call on a loop of a given size it reuses its simulators' storage).
+class CandidateEvaluator {
+ public:
+  /// `nominal`: the problem whose requirements (tightened by its search margin), band, objective
+  /// and reference peak time every evaluation is judged against. Both arguments must outlive
+  /// the evaluator.
+  CandidateEvaluator(const Problem& nominal, const SearchOptions& options);
+
+  /// Evaluates natural-unit series parameters on `plant`'s linear loop (plant.plant,
+  /// plant.plant_realization, plant.sampled): `plant` is the nominal problem or a copy of it with
+  /// the plant fields replaced (a scenario of the plant's uncertainty). The controller (structure,
+  /// action, set-point weighting, sample time), the step, the requirements and the objective are
+  /// always those of `nominal`.
+  CandidateOutcome evaluate(const Problem& plant, const double* params);
+
+  /// The metrics of the last evaluation (meaningful when it was stable).
+  const StepMetrics& metrics() const { return metrics_; }
+  /// The time grid of the last successful evaluation, as the nonlinear loop takes it.
+  LinearGrid linear_grid() const;
+
+  /// Σ normalized violations of the tightened requirements for metrics measured elsewhere (the
+  /// nonlinear loop); a missing value counts as 1.
+  double violation(const StepMetrics& m, const std::optional<Margins>& margins) const;
+  /// The objective minimized among feasible candidates, for metrics `m` of the loop of
+  /// controller `c` and `plant` simulated over `horizon_s`.
+  double objective(const StepMetrics& m, const std::optional<Margins>& margins, const TransferFunction& c,
+                   const TransferFunction& plant, double horizon_s) const;
+
+ private:
+  CandidateOutcome judge(const TransferFunction& c, const TransferFunction& plant, double horizon_s) const;
+
+  const Problem& nominal_;
+  const SearchOptions& options_;
+  double margin_;                          // the search's margin (fraction)
+  double band_;                            // the settling band narrowed by it
+  std::vector<Requirement> requirements_;  // the nominal problem's, tightened by it
+  bool last_sampled_ = false;              // which simulator ran last
+  StepSimulator sim_;
+  SampledStepSimulator sampled_sim_;
+  StepMetrics metrics_;
+  std::vector<double> num_, den_;
+};
+
+}  // namespace specloop

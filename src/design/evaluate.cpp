@@ -1,0 +1,116 @@
+// One candidate's evaluation on the linear loop (evaluate.hpp): the controller's polynomials, the
+// closed loop, the exact step response and its metrics, judged against the nominal problem's
+// requirements tightened by the search's margin (requirements.hpp, `tightened`) with the settling
+// band narrowed by it, so that a design the search calls feasible keeps room on every limit.
+#include "specloop/design/evaluate.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <stdexcept>
+
+namespace specloop {
+
+namespace {
+constexpr double kUnstableCost = 1e9;  // the search's stability barrier (search.cpp ranks above it)
+}  // namespace
+
+CandidateEvaluator::CandidateEvaluator(const Problem& nominal, const SearchOptions& options)
+    : nominal_(nominal), options_(options), margin_(nominal.search_margin),
+      band_(nominal.band_fraction * (1.0 - nominal.search_margin)) {
+  for (const Requirement& r : nominal.requirements) requirements_.push_back(tightened(r, margin_));
+}
+
+CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double* params) {
+  const Structure structure = nominal_.spec.controller.structure;
+  const double n = nominal_.spec.controller.derivative_filter;
+  const ControllerSpec& cs = nominal_.spec.controller;
+  const double amplitude = nominal_.spec.reference.amplitude;
+  const std::size_t count = nominal_.parameters.size();
+  controller_polynomials(structure, params, n, nominal_.action, num_, den_);
+  const TransferFunction c{Polynomial(num_), Polynomial(den_)};
+  last_sampled_ = plant.sampled;
+  CandidateOutcome out;
+  if (plant.sampled) {
+    // The controller's difference equation at the spec's period, exactly.
+    StepStatus status = StepStatus::numerical_failure;
+    try {
+      const Controller ctl = make_controller(structure, std::vector<double>(params, params + count), n, nominal_.action);
+      const DifferenceEquation eq = controller_difference_equation(ctl, cs.sample_time_s, cs.setpoint_weight,
+                                                                   cs.derivative_on_measurement ? 0.0 : 1.0);
+      status = sampled_sim_.simulate(plant.plant_realization, eq, amplitude, band_, metrics_);
+    } catch (const std::invalid_argument&) {
+      status = StepStatus::numerical_failure;
+    }
+    if (status != StepStatus::ok) {
+      out.objective = kUnstableCost * (1.0 + std::min(1.0, sampled_sim_.instability()));
+      return out;
+    }
+    return judge(c, plant.plant, sampled_sim_.horizon_s());
+  }
+  const bool weighted = cs.setpoint_weight != 1.0 || cs.derivative_on_measurement;
+  const StateSpace loop =
+      weighted ? close_loop(plant.plant_realization, c,
+                            reference_path(make_controller(structure, std::vector<double>(params, params + count), n,
+                                                           nominal_.action),
+                                           cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0))
+               : close_loop(plant.plant_realization, realize(c));
+  const StepStatus status = sim_.simulate(loop, amplitude, band_, metrics_);
+  if (status != StepStatus::ok) {
+    double rightmost = 0.0;
+    for (const Complex& p : sim_.poles()) rightmost = std::max(rightmost, p.real() / std::max(1.0, std::abs(p)));
+    out.objective = kUnstableCost * (1.0 + rightmost);
+    return out;
+  }
+  return judge(c, plant.plant, sim_.grid().horizon_s());
+}
+
+CandidateOutcome CandidateEvaluator::judge(const TransferFunction& c, const TransferFunction& plant,
+                                           double horizon_s) const {
+  CandidateOutcome out;
+  out.stable = true;
+  std::optional<Margins> margins;
+  if (nominal_.needs_margins || options_.objective_requirement) margins = loop_margins(c * plant);
+  out.violation = violation(metrics_, margins);
+  out.objective = objective(metrics_, margins, c, plant, horizon_s);
+  out.effort_peak = metrics_.effort_peak;
+  return out;
+}
+
+LinearGrid CandidateEvaluator::linear_grid() const {
+  return last_sampled_ ? LinearGrid{sampled_sim_.horizon_s(), sampled_sim_.fine_step_s(), sampled_sim_.fine_until_s()}
+                       : linear_grid_of(sim_.grid());
+}
+
+double CandidateEvaluator::violation(const StepMetrics& m, const std::optional<Margins>& margins) const {
+  double total = 0.0;
+  for (const Requirement& r : requirements_)
+    total += requirement_violation(
+        r, requirement_value(r, m, margins, nominal_.reference_peak_time_s, nominal_.band_fraction * 100.0, margin_));
+  return total;
+}
+
+double CandidateEvaluator::objective(const StepMetrics& m, const std::optional<Margins>& margins,
+                                     const TransferFunction& c, const TransferFunction& plant,
+                                     double horizon_s) const {
+  if (options_.objective_requirement) {
+    const auto v = requirement_value(*options_.objective_requirement, m, margins, nominal_.reference_peak_time_s,
+                                     nominal_.band_fraction * 100.0);
+    const double big = 1e3 * std::max(1.0, std::abs(options_.objective_requirement->limit));
+    if (!v) return big;
+    const double read = options_.objective_requirement->magnitude ? std::abs(*v) : *v;
+    return options_.objective_requirement->upper ? read : 1.0 / std::max(read, 1e-12);
+  }
+  switch (options_.objective) {
+    case Objective::itae:
+    case Objective::iae:
+    case Objective::ise:
+      return tracking_objective(options_.objective, m, nominal_.spec.reference.amplitude, nominal_.tracking_window_s);
+    case Objective::effort: return m.command_peak.value_or(m.effort_peak);  // what effort_max reads
+    case Objective::settling_time: return m.settling_time_s.value_or(1e3 * horizon_s);
+    case Objective::sensitivity_peak:
+      return margins ? margins->sensitivity_peak : loop_margins(c * plant).sensitivity_peak;
+  }
+  return 0.0;
+}
+
+}  // namespace specloop
