@@ -398,6 +398,10 @@ int main(int argc, char** argv) {
                                               "checked against every requirement");
   design->add_option("SPEC", spec_path, "spec file (TOML)")->required();
   design->add_option("--out", out_dir, "output folder (default results/<spec name>/)");
+  unsigned design_jobs = std::max(1u, std::thread::hardware_concurrency());
+  design->add_option("--jobs", design_jobs, "threads for the plants of [uncertainty] (default: all cores; the result "
+                                            "is the same for any number)")
+      ->check(CLI::Range(1u, 4096u));
 
   std::vector<std::string> vary;
   std::string store, shard, point_reports;
@@ -465,7 +469,7 @@ int main(int argc, char** argv) {
       const Spec spec = load_spec(spec_path);
       const std::filesystem::path dir = out_dir.empty() ? std::filesystem::path("results") / spec.name : std::filesystem::path(out_dir);
       check_output_folder(dir, "--out");  // before the work, not after it
-      const DesignRun run = run_design(spec);
+      const DesignRun run = run_design(spec, design_jobs);
       const ReportOutcome outcome = write_design_outputs(run, dir);
       print_design(run, outcome);
       return run.met ? 0 : 1;

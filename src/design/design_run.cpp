@@ -283,11 +283,24 @@ struct SearchOutcome {
 // then, when an effect the linear loop leaves out acts for it (or search.simulate says so), the
 // nonlinear stage, and the moved optimum measured and confirmed again.
 SearchOutcome search_stage(const Problem& problem, const std::optional<Controller>& classical,
-                           const std::optional<Controller>& baseline, const SearchOptions& options) {
+                           const std::optional<Controller>& baseline, SearchOptions options, RobustRun* robust,
+                           unsigned jobs) {
   // Seed: the classical design, else the ultimate-gain baseline, else the middle of the bounds.
   std::vector<double> seed = classical ? classical->series : baseline ? baseline->series : middle_of_bounds(problem);
   SearchOutcome out;
-  out.result = optimize(problem, seed, options);
+  if (robust) {
+    out.result = optimize_over_scenarios(problem, robust->scenarios, seed, options, jobs, robust->search);
+    // The nonlinear stage's linear tier then reads the final active set (or the yield's plants).
+    options.robust_mode = problem.spec.uncertainty.mode;
+    options.objective_at = problem.spec.search.objective_at;
+    for (const std::size_t i : robust->search.active) options.scenarios.push_back(&robust->scenarios[i].problem);
+    if (options.robust_mode == RobustMode::yield) {
+      const auto samples = static_cast<double>(robust->search.active.size() - 1);
+      options.yield_required = static_cast<std::size_t>(std::ceil(problem.spec.uncertainty.yield_min_pct / 100.0 * samples - 1e-9));
+    }
+  } else {
+    out.result = optimize(problem, seed, options);
+  }
   out.best = measure_and_confirm(problem, DesignRole::optimized, out.result.controller);
   // Which loop the search ends on, and which loop judges: the effects the linear loop leaves out
   // that act for the linear optimum, measured on its confirmation run.
@@ -365,8 +378,11 @@ void judge(DesignRun& run, SearchOutcome& s, const SearchOptions& options) {
   // "Met" needs the search's own evaluation of its best point and the re-measurement of the
   // controller to agree: a best point the search rated unstable or infeasible is never met, even
   // if the re-measurement (another realization of the same loop) passes.
-  run.met = best.meets_all && result.summary.feasible;
-  if (best.meets_all && !result.summary.feasible) {
+  // (A robust search's feasibility is over the scenario plants: the nominal verdict is the
+  // measurement's, and the plants' claim is assess_robust's.)
+  const bool search_feasible = result.summary.feasible || run.robust.has_value();
+  run.met = best.meets_all && search_feasible;
+  if (best.meets_all && !search_feasible) {
     Infeasibility info;
     info.binding = "search";
     info.nearest_text = fmt::format(
@@ -397,15 +413,42 @@ void warn_final_value(DesignRun& run, Design& best) {
   run.warnings.push_back(w);
 }
 
+// Every design of the run over the scenario plants; the optimized one's claim joins the verdict.
+void assess_robust(DesignRun& run, unsigned jobs) {
+  RobustRun& robust = *run.robust;
+  for (const Design& d : run.designs) {
+    if (d.status != StepStatus::ok && d.role != DesignRole::optimized) continue;
+    const bool optimized = d.role == DesignRole::optimized;
+    robust.assessments.push_back(
+        assess_over_scenarios(robust, run.problem, d.role, d.controller, jobs, optimized, run.judged_on_nonlinear));
+  }
+  const RobustAssessment* best = robust.find(DesignRole::optimized);
+  if (!best || best->holds || !run.met) {
+    run.met = run.met && best && best->holds;
+    return;
+  }
+  run.met = false;
+  Infeasibility info;
+  info.binding = "uncertainty";
+  info.nearest_text = best->claim;
+  run.infeasibility = info;
+}
+
 }  // namespace
 
-DesignRun run_design(const Spec& spec) {
+DesignRun run_design(const Spec& spec, unsigned jobs) {
   DesignRun run = prepare_run(spec);
+  if (spec.uncertainty.active()) {
+    run.robust.emplace();
+    run.robust->box = uncertainty_box(spec.uncertainty);
+    run.robust->scenarios = scenario_set(run.problem);
+    run.robust->verification = verification_plants(run.problem);
+  }
   add_reference_design(run);
   const std::optional<Controller> classical = add_classical_design(run);
   const std::optional<Controller> baseline = add_ultimate_gain_design(run);
   const SearchOptions options = search_options(spec);
-  SearchOutcome s = search_stage(run.problem, classical, baseline, options);
+  SearchOutcome s = search_stage(run.problem, classical, baseline, options, run.robust ? &*run.robust : nullptr, jobs);
   run.search = s.result.summary;
   run.judged_on_nonlinear = s.nonlinear_stage || !s.active.empty();
   run.met_on_linear = s.best.meets_all;
@@ -413,6 +456,7 @@ DesignRun run_design(const Spec& spec) {
   judge(run, s, options);
   warn_final_value(run, s.best);
   run.designs.push_back(std::move(s.best));
+  if (run.robust) assess_robust(run, jobs);
   return run;
 }
 

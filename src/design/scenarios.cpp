@@ -31,10 +31,13 @@ std::vector<double> corner_of(const UncertaintyBox& box, std::uint64_t bits) {
   return v;
 }
 
-std::vector<Scenario> build(const Problem& nominal, ScenarioKind kind, const std::vector<std::vector<double>>& points) {
+std::vector<Scenario> build(const Problem& nominal, ScenarioKind kind, std::vector<std::vector<double>> points) {
   std::vector<Scenario> out;
   out.reserve(points.size());
-  for (const auto& values : points) out.push_back({kind, values, scenario_problem(nominal, values)});
+  for (auto& values : points) {
+    Problem p = scenario_problem(nominal, values);
+    out.push_back({kind, values, std::move(p)});
+  }
   return out;
 }
 
@@ -125,7 +128,7 @@ std::string scenario_values_text(const UncertaintyBox& box, const std::vector<do
   return text;
 }
 
-Problem scenario_problem(const Problem& nominal, const std::vector<double>& values) {
+Problem scenario_problem(const Problem& nominal, std::vector<double>& values) {
   const Spec& spec = nominal.spec;
   const UncertaintyBox box = uncertainty_box(spec.uncertainty);
   SpecDocument document(spec.source_text, spec.path);
@@ -134,7 +137,19 @@ Problem scenario_problem(const Problem& nominal, const std::vector<double>& valu
   for (std::size_t k = 0; k < box.size(); ++k) document.set_number(box.keys[k], values[k]);
   Spec plant_spec;
   try {
-    plant_spec = parse_spec(document.text(), spec.path);
+    try {
+      plant_spec = parse_spec(document.text(), spec.path);
+    } catch (const SpecError& e) {
+      // A delay drawn so short that the numerics refuse it ("negligible: leave it out") is left
+      // out: that plant has no delay, and its values say so.
+      const auto delay = std::find(box.keys.begin(), box.keys.end(), "plant.delay");
+      if (delay == box.keys.end() || std::string_view(e.what()).find("plant.delay:") == std::string_view::npos ||
+          std::string_view(e.what()).find("negligible") == std::string_view::npos)
+        throw;
+      values[static_cast<std::size_t>(delay - box.keys.begin())] = 0.0;
+      document.set_number("plant.delay", 0.0);
+      plant_spec = parse_spec(document.text(), spec.path);
+    }
   } catch (const SpecError& e) {
     // The position is in the re-written text, not the user's file: keep only what is wrong.
     static const std::regex located(R"(^.*?:\d+:\d+: )");

@@ -1,5 +1,6 @@
 // JSON output of the characterization.
 #include "specloop/output/json_io.hpp"
+#include "specloop/output/robust_json.hpp"
 #include "specloop/output/caution.hpp"
 #include "specloop/output/design_json.hpp"
 #include "specloop/spec/requirement_catalogue.hpp"
@@ -290,7 +291,11 @@ json search_json(const SearchSummary& s) {
 
 json result_json(const DesignRun& run) {
   json designs = json::object();
-  for (const Design& d : run.designs) designs[std::string(role_name(d.role))] = design_json(d);
+  for (const Design& d : run.designs) {
+    json& entry = designs[std::string(role_name(d.role))] = design_json(d);
+    if (run.robust)
+      if (const RobustAssessment* a = run.robust->find(d.role)) entry["robust"] = robust_assessment_json(*run.robust, *a);
+  }
   json out = {{"schema", "specloop-result-1"},
               {"version", SPECLOOP_VERSION},
               {"spec", spec_json(run.problem.spec)},
@@ -315,6 +320,7 @@ json result_json(const DesignRun& run) {
               {"met_on_linear", run.met_on_linear},
               {"safety", kSafetyCaution}};
   out["linear_model"]["linearization"] = linearization_json(run.problem.spec);
+  out["robust"] = robust_run_json(run);
   if (run.target)
     out["target_pole"] = {{"pole", complex_json(run.target->pole)}, {"derivation", run.target->derivation}};
   out["classical_outcome"] = {{"designed", run.classical.designed},

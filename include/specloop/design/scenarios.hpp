@@ -47,8 +47,10 @@ std::vector<std::vector<double>> uniform_sample(const UncertaintyBox& box, int n
 
 /// The nominal problem with each ranged key set to `values` (the spec re-read with those values
 /// and without [uncertainty]); the requirements, bounds, action and reference peak time stay the
-/// nominal's. Throws SpecError naming the values when that plant is not a valid spec plant.
-Problem scenario_problem(const Problem& nominal, const std::vector<double>& values);
+/// nominal's. A plant.delay value too short for the numerics (the reader's "negligible: leave
+/// it out") is set to 0 in the plant and in `values`. Throws SpecError naming the values when
+/// that plant is not a valid spec plant.
+Problem scenario_problem(const Problem& nominal, std::vector<double>& values);
 
 /// The scenario set of the search: the nominal plant first, then the corners, then the samples.
 std::vector<Scenario> scenario_set(const Problem& nominal);
