@@ -190,7 +190,8 @@ ProportionInterval wilson_interval(int met, int of, double z) {
   const double n = of, p = met / n, z2 = z * z;
   const double centre = (p + z2 / (2.0 * n)) / (1.0 + z2 / n);
   const double half = z / (1.0 + z2 / n) * std::sqrt(p * (1.0 - p) / n + z2 / (4.0 * n * n));
-  return {100.0 * std::max(0.0, centre - half), 100.0 * std::min(1.0, centre + half)};
+  // At 0 of n (n of n) the interval's end is 0 (100 %) exactly, not a rounding residue.
+  return {met <= 0 ? 0.0 : 100.0 * std::max(0.0, centre - half), met >= of ? 100.0 : 100.0 * std::min(1.0, centre + half)};
 }
 
 }  // namespace specloop
