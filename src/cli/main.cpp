@@ -155,7 +155,8 @@ void print_robust(const DesignRun& run) {
   }
   fmt::print("  {:<37}", "plants meeting all (set / fresh)");
   for (const RobustAssessment& a : r.assessments)
-    fmt::print(" {:>14}", fmt::format("{:.3g}/{:.3g} %", a.set_all.pct, a.verification.pct));
+    fmt::print(" {:>14}", a.verification.of > 0 ? fmt::format("{:.3g}/{:.3g} %", a.set_all.pct, a.verification.pct)
+                                                : fmt::format("{:.3g} %/—", a.set_all.pct));
   fmt::print("\n  (value ✓/✗ @ scenario index; the scenarios and every plant's checks are in result.json)\n");
 }
 

@@ -138,7 +138,7 @@ Problem scenario_problem(const Problem& nominal, std::vector<double>& values) {
   Spec plant_spec;
   try {
     try {
-      plant_spec = parse_spec(document.text(), spec.path);
+      plant_spec = document.spec(spec.path);
     } catch (const SpecError& e) {
       // A delay drawn so short that the numerics refuse it ("negligible: leave it out") is left
       // out: that plant has no delay, and its values say so.
@@ -148,7 +148,7 @@ Problem scenario_problem(const Problem& nominal, std::vector<double>& values) {
         throw;
       values[static_cast<std::size_t>(delay - box.keys.begin())] = 0.0;
       document.set_number("plant.delay", 0.0);
-      plant_spec = parse_spec(document.text(), spec.path);
+      plant_spec = document.spec(spec.path);
     }
   } catch (const SpecError& e) {
     // The position is in the re-written text, not the user's file: keep only what is wrong.

@@ -43,11 +43,12 @@ json robust_assessment_json(const RobustRun& robust, const RobustAssessment& a) 
                                       {"scenario", w.scenario}};
   json verify = count_json(a.verification);
   json plants = json::array(), meets = json::array(), misses = json::array();
-  for (const Scenario& s : robust.verification) {
-    json row = json::array();
-    for (double v : s.values) row.push_back(number_json(v));
-    plants.push_back(row);
-  }
+  if (a.verification.of > 0)
+    for (const Scenario& s : robust.verification) {
+      json row = json::array();
+      for (double v : s.values) row.push_back(number_json(v));
+      plants.push_back(row);
+    }
   verify["plants"] = plants;
   verify["meets_all"] = a.verification_meets;
   for (const auto& [plant, what] : a.verification_misses) misses.push_back({{"plant", plant}, {"what", what}});

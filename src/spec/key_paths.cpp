@@ -13,6 +13,7 @@
 #include "specloop/spec/spec.hpp"
 #include "spec/key_paths.hpp"
 #include "spec/reader_core.hpp"
+#include "spec/sections.hpp"
 
 namespace specloop {
 
@@ -162,5 +163,7 @@ void SpecDocument::set_number(const std::string& key, double value) {
 void SpecDocument::erase(std::string_view top_level_key) { impl_->document.erase(top_level_key); }
 
 std::string SpecDocument::text() const { return serialize(impl_->document); }
+
+Spec SpecDocument::spec(const std::string& path) const { return model_spec(reading::read_document(impl_->document, path)); }
 
 }  // namespace specloop

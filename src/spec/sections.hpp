@@ -46,6 +46,9 @@ void read_uncertainty(const DocumentReader& reader, UncertaintySpec& uncertainty
 /// [units]: each a short label without control characters.
 void read_units(const DocumentReader& reader, UnitsSpec& units);
 
+/// Every section of a parsed document, in order (spec.cpp; read_spec without the TOML parse).
+SpecAsRead read_document(const toml::table& document, const std::string& path);
+
 /// A time key whose lower limit depends on the plant (controller.tracking_time, controller.sample_time,
 /// disturbance.noise_period): checked against `times` when given, else read and left in `pending`.
 std::optional<double> read_plant_time(const DocumentReader& reader, const toml::table* table, std::string_view section,

@@ -15,7 +15,7 @@
 
 namespace specloop {
 
-namespace {
+namespace reading {
 
 /// The sections in order. A linear plant is checked completely here; for a nonlinear one the
 /// checks that need its linearization wait in `sources` for model_spec.
@@ -49,7 +49,7 @@ SpecAsRead read_document(const toml::table& document, const std::string& path) {
   return read;
 }
 
-}  // namespace
+}  // namespace reading
 
 SpecAsRead read_spec(std::string_view text, const std::string& path) {
   toml::table document;
@@ -59,7 +59,7 @@ SpecAsRead read_spec(std::string_view text, const std::string& path) {
     const auto at = reading::position_of(error.source());
     throw SpecError(fmt::format("{}:{}:{}: invalid TOML: {}", path, at.line, at.column, error.description()));
   }
-  SpecAsRead read = read_document(document, path);
+  SpecAsRead read = reading::read_document(document, path);
   read.spec.source_text = std::string(text);
   return read;
 }

@@ -91,13 +91,14 @@ struct RobustRun {
   const RobustAssessment* find(DesignRole role) const;
 };
 
-/// Measures `controller` on every plant of the set and of the verification sample (on `jobs`
-/// threads; the result does not depend on it) and states the claim of the spec's mode: every
-/// plant of both (worst-case), or the verification sample's share ≥ yield_min_pct (yield).
-/// With `confirm_worst`, also confirms the design on the nonlinear loop of each requirement's
-/// worst plant; a miss there voids a worst-case claim when `judged_on_nonlinear`.
+/// Measures `controller` on every plant of the set (on `jobs` threads; the result does not depend
+/// on it). For the design the run `claimed` (the optimized one), also on every fresh plant of the
+/// verification sample and on the nonlinear loop of each requirement's worst plant, and states the
+/// claim of the spec's mode: every plant of both (worst-case; a miss on a worst plant's nonlinear
+/// loop voids it when `judged_on_nonlinear`), or the fresh plants' share ≥ yield_min_pct (yield).
+/// Other designs (the hand designs, for comparison) are judged on the set alone, and say so.
 RobustAssessment assess_over_scenarios(const RobustRun& robust, const Problem& nominal, DesignRole role,
-                                       const Controller& controller, unsigned jobs, bool confirm_worst,
+                                       const Controller& controller, unsigned jobs, bool claimed,
                                        bool judged_on_nonlinear);
 
 }  // namespace specloop

@@ -11,6 +11,8 @@
 
 namespace specloop {
 
+struct Spec;
+
 /// A key path that names no number of the document. what() says which step failed, without the
 /// file or the caller's prefix ("'plant.x' is not in the spec file", "… expected a numeric spec
 /// key (it is an array: …)"); the caller adds both.
@@ -44,6 +46,10 @@ class SpecDocument {
   void erase(std::string_view top_level_key);
   /// The document re-serialized (sorted keys, no comments) with a final newline.
   std::string text() const;
+  /// The spec this document describes: parse_spec(text(), path) without the text round trip
+  /// (Spec::source_text stays empty). Throws SpecError as parse_spec does; positions are those of
+  /// the document as parsed, not of the numbers set since.
+  Spec spec(const std::string& path) const;
 
  private:
   struct Impl;
