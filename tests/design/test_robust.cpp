@@ -186,7 +186,7 @@ TEST_CASE("box corners: all 2^d when they fit, else a deterministic subset with 
   }
 }
 
-TEST_CASE("scenario plants: the same seed gives the same plants, another seed others; fresh plants are new",
+TEST_CASE("scenario plants: the same seed gives the same plants, another seed others, and fresh plants are new",
           "[robust][scenarios]") {
   const std::string ranges = "\"plant.gain\" = [150.0, 170.0]\n\"plant.poles[1][1]\" = [2.7, 3.3]\nsamples = 20\n"
                              "verify_samples = 50\n";
