@@ -22,6 +22,8 @@ double unit(std::mt19937_64& g) { return static_cast<double>(g() >> 11) * 0x1.0p
 /// An integer in [0, n) (n small; the bias of a 64-bit modulo is below 1e-15).
 std::size_t below(std::mt19937_64& g, std::size_t n) { return static_cast<std::size_t>(g() % n); }
 
+const std::regex real_pole(R"(plant\.poles\[\d+\])");
+
 constexpr std::uint64_t kVerificationStream = 0x9E3779B97F4A7C15ull;
 constexpr std::uint64_t kCornerStream = 0xD1B54A32D192ED03ull;
 
@@ -134,21 +136,37 @@ Problem scenario_problem(const Problem& nominal, std::vector<double>& values) {
   SpecDocument document(spec.source_text, spec.path);
   document.erase("uncertainty");
   document.erase("sweep");
-  for (std::size_t k = 0; k < box.size(); ++k) document.set_number(box.keys[k], values[k]);
+  document.erase("search.objective_at");  // refused without [uncertainty]; the nominal problem keeps it
+  for (std::size_t k = 0; k < box.size(); ++k) {
+    // A real pole drawn closer to the origin than the numerics resolve (a range through 0: a lag
+    // that turns into an integrator and beyond) is the integrator it is at that scale.
+    if (std::regex_match(box.keys[k], real_pole) && values[k] != 0.0 && std::abs(values[k]) < kMinRate) values[k] = 0.0;
+    document.set_number(box.keys[k], values[k]);
+  }
   Spec plant_spec;
   try {
     try {
       plant_spec = document.spec(spec.path);
     } catch (const SpecError& e) {
-      // A delay drawn so short that the numerics refuse it ("negligible: leave it out") is left
-      // out: that plant has no delay, and its values say so.
+      // A delay drawn so short that the numerics refuse it (its Padé approximant's poles beyond
+      // kMaxRate, or the fastest of the plant's roots by more than kMaxSpread: "negligible, leave
+      // it out") is left out: that plant has no delay, and its values say so. A delay refused for
+      // being too long is an error like any other.
       const auto delay = std::find(box.keys.begin(), box.keys.end(), "plant.delay");
-      if (delay == box.keys.end() || std::string_view(e.what()).find("plant.delay:") == std::string_view::npos ||
-          std::string_view(e.what()).find("negligible") == std::string_view::npos)
-        throw;
-      values[static_cast<std::size_t>(delay - box.keys.begin())] = 0.0;
-      document.set_number("plant.delay", 0.0);
-      plant_spec = document.spec(spec.path);
+      if (delay == box.keys.end() || std::string_view(e.what()).find("plant.delay:") == std::string_view::npos) throw;
+      double& d = values[static_cast<std::size_t>(delay - box.keys.begin())];
+      SpecDocument without = document;
+      without.set_number("plant.delay", 0.0);
+      const Spec delay_free = without.spec(spec.path);  // throws (the plant's own fault) when that is refused too
+      double fastest_root = 0.0;
+      for (const auto* roots : {&delay_free.plant.poles, &delay_free.plant.zeros})
+        for (const Complex& z : *roots) fastest_root = std::max(fastest_root, std::abs(z));
+      double fastest_approximant = 0.0;
+      for (const Complex& p : delay_approximant(d, kDelayApproximantOrder).poles())
+        fastest_approximant = std::max(fastest_approximant, std::abs(p));
+      if (!(d > 0.0) || fastest_approximant <= fastest_root) throw;
+      d = 0.0;
+      plant_spec = delay_free;
     }
   } catch (const SpecError& e) {
     // The position is in the re-written text, not the user's file: keep only what is wrong.

@@ -160,7 +160,16 @@ void SpecDocument::set_number(const std::string& key, double value) {
   }
 }
 
-void SpecDocument::erase(std::string_view top_level_key) { impl_->document.erase(top_level_key); }
+void SpecDocument::erase(const std::string& key) {
+  const auto steps = split_key(key);
+  if (steps.back().index) throw KeyPathError(KeyPathError::Kind::syntax, "only a table key can be erased");
+  try {
+    toml::node* parent = walk<toml::node>(&impl_->document, steps, steps.size() - 1);
+    if (auto* table = parent->as_table()) table->erase(steps.back().key);
+  } catch (const KeyPathError&) {
+    // a parent that is not there: nothing to erase
+  }
+}
 
 std::string SpecDocument::text() const { return serialize(impl_->document); }
 

@@ -1,6 +1,7 @@
 // Reading [uncertainty]: the ranges of numeric plant keys (checked with the sweep's key checker
 // against the document, the nominal inside each range) and how the scenarios are drawn and judged.
 #include <algorithm>
+#include <optional>
 #include <cmath>
 #include <regex>
 #include <utility>
@@ -28,6 +29,37 @@ void collect(const toml::table& table, const std::string& prefix, std::vector<Ra
   }
 }
 
+/// What a plant key's range may not do, whatever the plant: reverse the loop's action (a gain, a
+/// real zero, the numerator's constant or the denominator's leading coefficient through 0), make a
+/// delay negative, or take a pair's imaginary part to 0. Empty when the range is fine.
+std::optional<std::string> range_refusal(const toml::table& document, const std::string& path, double lo, double hi) {
+  static const std::regex imaginary(R"(plant\.(poles|zeros)\[\d+\]\[1\])");
+  static const std::regex real_zero(R"(plant\.zeros\[\d+\])");
+  static const std::regex coefficient(R"(plant\.(numerator|denominator)\[(\d+)\])");
+  const bool through_zero = lo <= 0.0 && hi >= 0.0;
+  std::smatch m;
+  if (path == "plant.gain" && through_zero)
+    return "a gain's range may not contain 0: the loop's action would reverse inside it";
+  if (path == "plant.delay" && lo < 0.0) return "a delay's range may not reach below 0 (a delay is never negative)";
+  if (std::regex_match(path, imaginary) && lo <= 0.0)
+    return "the imaginary part of a pair must stay > 0 (give the pair's real part [i][0] a range to move it, or write "
+           "two real poles)";
+  if (std::regex_match(path, real_zero) && through_zero)
+    return "a real zero's range may not contain 0: the plant's DC gain changes sign there and the loop's action would "
+           "reverse inside it";
+  if (std::regex_match(path, m, coefficient) && through_zero) {
+    const auto* array = node_at(document, "plant." + m[1].str()).as_array();
+    const std::size_t i = std::stoul(m[2].str());
+    if (m[1] == "numerator" && array && i + 1 == array->size())
+      return "the numerator's constant term may not pass through 0: the plant's DC gain changes sign there and the "
+             "loop's action would reverse inside it";
+    if (m[1] == "denominator" && i == 0)
+      return "the denominator's leading coefficient may not pass through 0: the plant's order and its high-frequency "
+             "sign change there";
+  }
+  return std::nullopt;
+}
+
 void read_range(const DocumentReader& reader, const RangeEntry& entry, UncertaintySpec& uncertainty) {
   const std::string key = fmt::format("uncertainty.\"{}\"", entry.path);
   const auto* pair = entry.value->as_array();
@@ -49,16 +81,8 @@ void read_range(const DocumentReader& reader, const RangeEntry& entry, Uncertain
     reader.fail(entry.at, key,
                 fmt::format("the range [{}, {}] does not contain the nominal value {} that the file gives {}", lo.shown,
                             hi.shown, nominal, entry.path));
-  if (entry.path == "plant.gain" && lo.value <= 0.0 && hi.value >= 0.0)
-    reader.fail(entry.at, key,
-                fmt::format("a gain's range may not contain 0 (got [{}, {}]): the loop's action would reverse inside it",
-                            lo.shown, hi.shown));
-  if (entry.path == "plant.delay" && lo.value < 0.0)
-    reader.require(false, lo, key, "a low end >= 0 (a delay is never negative)");
-  static const std::regex imaginary(R"(plant\.(poles|zeros)\[\d+\]\[1\])");
-  if (std::regex_match(entry.path, imaginary) && lo.value <= 0.0)
-    reader.require(false, lo, key, "a low end > 0 (the imaginary part of a pair stays > 0; give the pair's real "
-                                   "part [i][0] a range to move it, or write two real poles)");
+  if (const auto why = range_refusal(reader.document(), entry.path, lo.value, hi.value))
+    reader.fail(entry.at, key, fmt::format("[{}, {}]: {}", lo.shown, hi.shown, *why));
   if (std::any_of(uncertainty.ranges.begin(), uncertainty.ranges.end(),
                   [&](const UncertainRange& r) { return r.key == entry.path; }))
     reader.fail(entry.at, key, "given twice (a quoted \"plant.x\" and a dotted plant.x name the same key)");
@@ -114,6 +138,14 @@ void read_uncertainty(const DocumentReader& reader, UncertaintySpec& uncertainty
                                           [&](double v) { return v >= 2.0 && v <= 4096.0 && whole(v); },
                                           "a whole number in [2, 4096]"))
     uncertainty.max_corners = static_cast<int>(*n);
+  if (uncertainty.scale != 1.0)
+    for (std::size_t k = 0; k < ranges.size(); ++k) {
+      const UncertainRange& r = uncertainty.ranges[k];
+      if (const auto why = range_refusal(reader.document(), r.key, uncertainty.low_of(r), uncertainty.high_of(r)))
+        reader.fail(ranges[k].at, fmt::format("uncertainty.\"{}\"", r.key),
+                    fmt::format("uncertainty.scale = {} stretches the range to [{:.6g}, {:.6g}] about the nominal {:.6g}: "
+                                "{}", uncertainty.scale, uncertainty.low_of(r), uncertainty.high_of(r), r.nominal, *why));
+    }
   if (uncertainty.mode == RobustMode::yield && uncertainty.samples < 10)
     reader.fail(find_entry(*table, "samples") ? find_entry(*table, "samples")->at : DocumentReader::header_of(*table),
                 "uncertainty.samples",

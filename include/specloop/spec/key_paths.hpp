@@ -42,8 +42,8 @@ class SpecDocument {
   /// Replaces the number `key` names (number_at's errors); an integer stays an integer when the
   /// value is integral.
   void set_number(const std::string& key, double value);
-  /// Removes a top-level key or section (nothing when absent).
-  void erase(std::string_view top_level_key);
+  /// Removes the table key `key` names ("uncertainty", "search.objective_at"); nothing when absent.
+  void erase(const std::string& key);
   /// The document re-serialized (sorted keys, no comments) with a final newline.
   std::string text() const;
   /// The spec this document describes: parse_spec(text(), path) without the text round trip
