@@ -51,9 +51,62 @@ std::vector<const Problem*> problems_of(const std::vector<Scenario>& set, const 
   return out;
 }
 
+/// The least normalized room of a controller over the requirements on one plant (−inf: unstable).
+double least_slack(const Problem& plant, const Controller& controller) {
+  const Design d = measure_design(plant, DesignRole::optimized, controller);
+  if (d.status != StepStatus::ok) return -kInf;
+  double least = kInf;
+  for (const RequirementCheck& c : d.checks) least = std::min(least, c.slack);
+  return least;
+}
+
+/// When the set holds only some corners of the box (2^d > max_corners): from the corner where
+/// the design has the least room, flip one key at a time to the corner with still less room, as
+/// long as one is found (at most 4·d moves); each corner moved to joins the set. Returns how
+/// many corners joined.
+std::size_t add_worse_corners(const Problem& nominal, std::vector<Scenario>& set, const Controller& controller) {
+  const UncertaintySpec& u = nominal.spec.uncertainty;
+  const UncertaintyBox box = uncertainty_box(u);
+  const std::size_t d = box.size();
+  std::size_t corners = 0;
+  for (const Scenario& s : set) corners += s.kind == ScenarioKind::corner ? 1 : 0;
+  if (d < 63 && corners >= (std::size_t{1} << d)) return 0;  // every corner is in the set already
+  std::optional<std::size_t> start;
+  double room = kInf;
+  for (std::size_t i = 0; i < set.size(); ++i)
+    if (set[i].kind == ScenarioKind::corner) {
+      const double r = least_slack(set[i].problem, controller);
+      if (!start || r < room) start = i, room = r;
+    }
+  if (!start) return 0;
+  std::vector<double> at = set[*start].values;
+  std::size_t added = 0;
+  for (std::size_t move = 0; move < 4 * d; ++move) {
+    std::optional<Scenario> best;
+    double best_room = room;
+    for (std::size_t k = 0; k < d; ++k) {
+      std::vector<double> values = at;
+      values[k] = values[k] == box.low[k] ? box.high[k] : box.low[k];
+      if (std::any_of(set.begin(), set.end(), [&](const Scenario& s) { return s.values == values; })) continue;
+      Problem p = scenario_problem(nominal, values);
+      const double r = least_slack(p, controller);
+      if (r < best_room) {
+        best_room = r;
+        best = Scenario{ScenarioKind::corner, values, std::move(p)};
+      }
+    }
+    if (!best) break;
+    at = best->values;
+    room = best_room;
+    set.push_back(std::move(*best));
+    ++added;
+  }
+  return added;
+}
+
 }  // namespace
 
-SearchResult optimize_over_scenarios(const Problem& nominal, const std::vector<Scenario>& set,
+SearchResult optimize_over_scenarios(const Problem& nominal, std::vector<Scenario>& set,
                                      const std::vector<double>& seed_parameters, SearchOptions options, unsigned jobs,
                                      RobustSearchLog& log) {
   const auto start = std::chrono::steady_clock::now();
@@ -119,6 +172,9 @@ SearchResult optimize_over_scenarios(const Problem& nominal, const std::vector<S
     // lower effort tends to tolerate more plant variation).
     options.extra_starts = {seed_parameters};
     for (std::size_t j = 0; j < result.archive.size() && j < 3; ++j) options.extra_starts.push_back(result.archive[j].series);
+    // Only some corners in the set: look for worse ones next to the worst (they join the set).
+    log.corners_found += add_worse_corners(
+        nominal, set, make_controller(nominal.spec.controller.structure, from, nominal.spec.controller.derivative_filter, nominal.action));
     const std::vector<double> v = violations_on_set(nominal, set, options, from, jobs);
     log.scenario_evaluations += static_cast<int>(set.size());
     log.converged = std::all_of(v.begin(), v.end(), [](double x) { return x == 0.0; });
@@ -136,9 +192,11 @@ SearchResult optimize_over_scenarios(const Problem& nominal, const std::vector<S
   total.best_violation = result.summary.best_violation;
   total.wall_time_s = seconds_since(start);
   log.text = fmt::format("worst-case search over {} plants: {} round(s) (global and local, or local from the previous "
-                         "optimum), active set of {} plant(s); its optimum {} every requirement "
+                         "optimum), active set of {} plant(s){}; its optimum {} every requirement "
                          "(tightened by the search margin) on every plant of the set",
-                         set.size(), log.rounds, log.active.size(), log.converged ? "meets" : "does not meet");
+                         set.size(), log.rounds, log.active.size(),
+                         log.corners_found ? fmt::format(", {} worse corner(s) found and added to the set", log.corners_found) : "",
+                         log.converged ? "meets" : "does not meet");
   total.stop_reason = result.summary.stop_reason + "; " + log.text;
   result.summary = total;
   return result;

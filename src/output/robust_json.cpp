@@ -95,6 +95,7 @@ json robust_run_json(const DesignRun& run) {
            {{"rounds", r.search.rounds},
             {"active", r.search.active},
             {"scenario_evaluations", r.search.scenario_evaluations},
+            {"corners_found", r.search.corners_found},
             {"converged", r.search.converged},
             {"text", r.search.text}}}};
 }

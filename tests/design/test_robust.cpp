@@ -306,3 +306,54 @@ TEST_CASE("Wilson's interval at its closed-form ends", "[robust]") {
   CHECK(nothing.low_pct == 0.0);
   CHECK(nothing.high_pct == 100.0);
 }
+
+TEST_CASE("robust search: with only some corners in the set, worse corners are found and join it", "[robust]") {
+  // An invented belt drive (a lag, a resonant pair, a fast pole, a zero) with six ranged keys (64
+  // corners) and max_corners = 8: the set starts with all-low, all-high and six one-key corners.
+  // Each worst-case round walks from the corner with the least room to neighbouring corners with
+  // less (one key flipped at a time); those join the set.
+  const Problem p = problem_from(
+      "[plant]\nzeros = [-9.0]\npoles = [-1.2, [-4.0, 3.0], -40.0]\ngain = 160.0\n"
+      "[actuator]\nmin = -24.0\nmax = 24.0\n"
+      "[controller]\nstructure = \"pid\"\nderivative_filter = 5.0\n"
+      "[requirements]\novershoot_max_pct = 12.0\npeak_time_ratio = 0.7\nsettling_time_max = 2.0\n"
+      "steady_state_error_max = 0.0\neffort_max = 24.0\n"
+      "[search]\nmax_evaluations = 300\nmax_time = 3600\n"
+      "[uncertainty]\n\"plant.gain\" = [150.0, 170.0]\n\"plant.poles[0]\" = [-1.3, -1.1]\n"
+      "\"plant.poles[1][0]\" = [-4.2, -3.8]\n\"plant.poles[1][1]\" = [2.8, 3.2]\n\"plant.poles[2]\" = [-44.0, -36.0]\n"
+      "\"plant.zeros[0]\" = [-9.5, -8.5]\nsamples = 4\nmax_corners = 8\nverify_samples = 10\n");
+  std::vector<Scenario> set = scenario_set(p);
+  const std::size_t before = set.size();
+  REQUIRE(before == 1 + 8 + 4);
+  RobustSearchLog log;
+  const SearchResult r = optimize_over_scenarios(p, set, {4.0, 2.6, 1.0}, search_options(p.spec), 1, log);
+  CHECK(log.corners_found == set.size() - before);
+  CHECK(log.corners_found >= 1);  // the walk moves whenever a neighbouring corner has less room
+  const UncertaintyBox box = uncertainty_box(p.spec.uncertainty);
+  std::set<std::vector<double>> seen;
+  for (std::size_t i = before; i < set.size(); ++i) {
+    CHECK(set[i].kind == ScenarioKind::corner);
+    for (std::size_t k = 0; k < box.size(); ++k)
+      CHECK((set[i].values[k] == box.low[k] || set[i].values[k] == box.high[k]));
+    CHECK(seen.insert(set[i].values).second);  // no corner twice
+  }
+  for (std::size_t i = 1; i < before; ++i) CHECK(seen.count(set[i].values) == 0);
+  CHECK(r.controller.series.size() == 3);
+  // What the walk guarantees for the final design: no corner next to the set's corner with the
+  // least room (one key flipped) has less room, in the set or not.
+  const auto room = [&](const Problem& plant) {
+    const Design d = measure_design(plant, DesignRole::optimized, r.controller);
+    double least = 1e300;
+    for (const RequirementCheck& c : d.checks) least = std::min(least, c.slack);
+    return d.status == StepStatus::ok ? least : -1e300;
+  };
+  std::size_t tightest = 0;
+  double least = 1e300;
+  for (std::size_t i = 0; i < set.size(); ++i)
+    if (set[i].kind == ScenarioKind::corner && room(set[i].problem) < least) tightest = i, least = room(set[i].problem);
+  for (std::size_t k = 0; k < box.size(); ++k) {
+    std::vector<double> values = set[tightest].values;
+    values[k] = values[k] == box.low[k] ? box.high[k] : box.low[k];
+    CHECK(room(scenario_problem(p, values)) >= least);
+  }
+}

@@ -21,15 +21,18 @@ struct RobustSearchLog {
   std::vector<std::size_t> active;          // indices into the scenario set, in the order they were added
   int rounds = 0;                           // searches run (the first global + local, the rest local only)
   int scenario_evaluations = 0;             // single-plant simulations of the whole search
+  std::size_t corners_found = 0;            // corners the search added to the set (only some were in it)
   bool converged = false;                   // the last round's optimum met every requirement on every scenario of the set (tightened)
   std::string text;                         // in words
 };
 
 /// The search over the scenario set (worst-case: an active set of plants, grown by the plants
 /// the round's optimum misses on, until it meets every tightened requirement on every plant of
-/// the set or the rounds run out; yield: every plant of the set each time). Deterministic: the
-/// result does not depend on `jobs` (the full-set checks run on `jobs` threads).
-SearchResult optimize_over_scenarios(const Problem& nominal, const std::vector<Scenario>& set,
+/// the set or the rounds run out; yield: every plant of the set each time). When the set holds
+/// only some of the box's corners, each worst-case round also walks from the corner with the least
+/// room to worse neighbouring corners (one key flipped at a time), which join `set`.
+/// Deterministic: the result does not depend on `jobs` (the full-set checks run on `jobs` threads).
+SearchResult optimize_over_scenarios(const Problem& nominal, std::vector<Scenario>& set,
                                      const std::vector<double>& seed_parameters, SearchOptions options, unsigned jobs,
                                      RobustSearchLog& log);
 inline constexpr int kMaxRobustRounds = 8;
