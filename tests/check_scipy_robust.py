@@ -316,8 +316,15 @@ class RobustSpec:
             ok = ok and sorted(int(math.floor(x)) for x in u) == list(range(n))
         self.check("set/latin_hypercube", ok, f"{n} samples, each of the n strata of every key used once "
                    "(McKay, Beckman & Conover 1979)")
-        self.check("set/count", len(sc) == self.robust["scenario_count"] == 1 + len(corners) + len(samples),
-                   "scenario_count = nominal + corners + samples", f"{len(sc)} / {self.robust['scenario_count']}")
+        # Fresh plants that refuted a first optimum join the set as "found" (README, Robust design);
+        # then the claim is verified on a second, independent sample (verification.draw = 1).
+        found = [v for v, k in zip(values, kinds) if k == "found"]
+        added = self.robust["search"]["refuting_plants_added"]
+        self.check("set/count", len(sc) == self.robust["scenario_count"] == 1 + len(corners) + len(samples) + len(found),
+                   "scenario_count = nominal + corners + samples + found", f"{len(sc)} / {self.robust['scenario_count']}")
+        self.check("set/found", len(found) == added and (added == 0 or self.robust["verification"]["draw"] == 1),
+                   "the found plants are the refuting ones the search log counts, verified on a second sample",
+                   f"{len(found)} found, {added} added, draw {self.robust['verification']['draw']}")
         fresh = np.array(self.rd["verify"]["plants"], float)
         inside = fresh.shape == (int(self.unc.get("verify_samples", 1000)), d) and bool(
             np.all((fresh >= self.box_low) & (fresh <= self.box_high) | (fresh == 0.0)))

@@ -284,12 +284,23 @@ struct SearchOutcome {
 // nonlinear stage, and the moved optimum measured and confirmed again.
 SearchOutcome search_stage(const Problem& problem, const std::optional<Controller>& classical,
                            const std::optional<Controller>& baseline, SearchOptions options, RobustRun* robust,
-                           unsigned jobs) {
-  // Seed: the classical design, else the ultimate-gain baseline, else the middle of the bounds.
-  std::vector<double> seed = classical ? classical->series : baseline ? baseline->series : middle_of_bounds(problem);
+                           unsigned jobs, const std::optional<std::vector<double>>& restart) {
+  // Seed: a restart's point, else the classical design, else the ultimate-gain baseline, else the
+  // middle of the bounds.
+  std::vector<double> seed = restart      ? *restart
+                             : classical ? classical->series
+                             : baseline  ? baseline->series
+                                         : middle_of_bounds(problem);
   SearchOutcome out;
   if (robust) {
-    out.result = optimize_over_scenarios(problem, robust->scenarios, seed, options, jobs, robust->search);
+    // A restart continues from the earlier active set with the refuting plants (the last ones).
+    std::vector<std::size_t> start_active;
+    if (restart) {
+      start_active = robust->search.active;
+      for (std::size_t i = robust->scenarios.size() - robust->refuting_added; i < robust->scenarios.size(); ++i)
+        start_active.push_back(i);
+    }
+    out.result = optimize_over_scenarios(problem, robust->scenarios, seed, options, jobs, robust->search, start_active);
     // The nonlinear stage's linear tier then reads the final active set (or the yield's plants).
     options.robust_mode = problem.spec.uncertainty.mode;
     options.objective_at = problem.spec.search.objective_at;
@@ -434,6 +445,27 @@ void assess_robust(DesignRun& run, unsigned jobs) {
   run.infeasibility = info;
 }
 
+// Worst case met on the whole set but refuted by fresh plants: those plants (at most
+// kMaxRefuting) join the set and a second, independent fresh sample replaces the first, for one
+// more search. False when there is nothing to add (or it was done already).
+bool add_refuting_plants(DesignRun& run) {
+  RobustRun& robust = *run.robust;
+  const RobustAssessment* a = robust.find(DesignRole::optimized);
+  if (run.problem.spec.uncertainty.mode != RobustMode::worst_case || robust.verification_draw > 0 || !a || a->holds ||
+      a->set_all.met != a->set_all.of || a->verification.met == a->verification.of)
+    return false;
+  for (std::size_t i = 0; i < a->verification_meets.size() && robust.refuting_added < kMaxRefuting; ++i)
+    if (!a->verification_meets[i]) {
+      Scenario s = robust.verification[i];
+      s.kind = ScenarioKind::found;
+      robust.scenarios.push_back(std::move(s));
+      ++robust.refuting_added;
+    }
+  robust.verification_draw = 1;
+  robust.verification = verification_plants(run.problem, robust.verification_draw);
+  return true;
+}
+
 }  // namespace
 
 DesignRun run_design(const Spec& spec, unsigned jobs) {
@@ -448,15 +480,49 @@ DesignRun run_design(const Spec& spec, unsigned jobs) {
   const std::optional<Controller> classical = add_classical_design(run);
   const std::optional<Controller> baseline = add_ultimate_gain_design(run);
   const SearchOptions options = search_options(spec);
-  SearchOutcome s = search_stage(run.problem, classical, baseline, options, run.robust ? &*run.robust : nullptr, jobs);
-  run.search = s.result.summary;
-  run.judged_on_nonlinear = s.nonlinear_stage || !s.active.empty();
-  run.met_on_linear = s.best.meets_all;
-  review_optimized(run, s, classical.has_value(), baseline.has_value());
-  judge(run, s, options);
-  warn_final_value(run, s.best);
-  run.designs.push_back(std::move(s.best));
-  if (run.robust) assess_robust(run, jobs);
+  const std::vector<std::string> warnings_before = run.warnings;
+  std::optional<std::vector<double>> restart;
+  std::optional<DesignRun> first;  // the run as judged before a second search
+  for (;;) {
+    SearchOutcome s = search_stage(run.problem, classical, baseline, options, run.robust ? &*run.robust : nullptr, jobs,
+                                   restart);
+    run.search = s.result.summary;
+    run.judged_on_nonlinear = s.nonlinear_stage || !s.active.empty();
+    run.met_on_linear = s.best.meets_all;
+    review_optimized(run, s, classical.has_value(), baseline.has_value());
+    judge(run, s, options);
+    warn_final_value(run, s.best);
+    run.designs.push_back(std::move(s.best));
+    if (!run.robust) break;
+    assess_robust(run, jobs);
+    if (first) {
+      // The second search did not meet every plant of its set: the first optimum, its verdict
+      // and its verification stand (its refutation stated).
+      if (!run.robust->search.converged) {
+        const std::size_t added = run.robust->refuting_added;
+        run = std::move(*first);
+        run.robust->search.text += fmt::format(
+            "; {} fresh plant(s) refuted this optimum; a second search with them in the set did not meet every plant "
+            "of it, so this optimum and its verification stand", added);
+      }
+      break;
+    }
+    first = run;  // kept in case the second search does worse
+    if (!add_refuting_plants(run)) break;
+    // Fresh plants refuted the worst case: search again (from this optimum) with them in the set,
+    // and judge afresh on a new sample. This attempt's verdict is undone.
+    restart = run.designs.back().controller.series;
+    run.designs.pop_back();
+    run.robust->assessments.clear();
+    run.met = false;
+    run.infeasibility.reset();
+    run.warnings = warnings_before;
+  }
+  if (run.robust && run.robust->refuting_added > 0 && run.robust->verification_draw > 0)
+    run.robust->search.text += fmt::format("; a first optimum met every plant of the set but {} fresh plant(s) refuted "
+                                           "it: they joined the set, this search started from that optimum, and the "
+                                           "claim is verified on a second, independent fresh sample",
+                                           run.robust->refuting_added);
   return run;
 }
 

@@ -108,7 +108,7 @@ std::size_t add_worse_corners(const Problem& nominal, std::vector<Scenario>& set
 
 SearchResult optimize_over_scenarios(const Problem& nominal, std::vector<Scenario>& set,
                                      const std::vector<double>& seed_parameters, SearchOptions options, unsigned jobs,
-                                     RobustSearchLog& log) {
+                                     RobustSearchLog& log, const std::vector<std::size_t>& start_active) {
   const auto start = std::chrono::steady_clock::now();
   const UncertaintySpec& u = nominal.spec.uncertainty;
   options.robust_mode = u.mode;
@@ -140,7 +140,7 @@ SearchResult optimize_over_scenarios(const Problem& nominal, std::vector<Scenari
   // Worst case: an active set, the nominal plant first, then the plants the seed misses on most.
   const int budget = options.max_evaluations;
   const double time_cap = options.max_time_s;
-  log.active.push_back(0);
+  log.active = start_active.empty() ? std::vector<std::size_t>{0} : start_active;
   const auto add_worst = [&](const std::vector<double>& v) {
     std::vector<std::size_t> missed;
     for (std::size_t i = 0; i < v.size(); ++i)
@@ -149,14 +149,15 @@ SearchResult optimize_over_scenarios(const Problem& nominal, std::vector<Scenari
     for (std::size_t j = 0; j < missed.size() && j < kAddedPerRound; ++j) log.active.push_back(missed[j]);
     return !missed.empty();
   };
-  add_worst(violations_on_set(nominal, set, options, seed_parameters, jobs));
+  if (start_active.empty()) add_worst(violations_on_set(nominal, set, options, seed_parameters, jobs));
 
   SearchResult result;
   SearchSummary total;
   std::vector<double> from = seed_parameters;
-  bool global_next = true;  // the first round searches globally; later ones locally, unless stuck
+  bool global_next = start_active.empty();  // the first round searches globally (not a continuation); later ones locally, unless stuck
   bool global_retried = false;
-  for (int round = 0; round < kMaxRobustRounds; ++round) {
+  const int rounds = start_active.empty() ? kMaxRobustRounds : kMaxContinuationRounds;
+  for (int round = 0; round < rounds; ++round) {
     options.scenarios = problems_of(set, log.active);
     options.local_only = !global_next;
     options.max_evaluations = global_next ? budget : std::max(100, static_cast<int>((1.0 - options.global_share) * budget));

@@ -26,6 +26,7 @@ const std::regex real_pole(R"(plant\.poles\[\d+\])");
 
 constexpr std::uint64_t kVerificationStream = 0x9E3779B97F4A7C15ull;
 constexpr std::uint64_t kCornerStream = 0xD1B54A32D192ED03ull;
+constexpr std::uint64_t kDrawStride = 0x632BE59BD9B4E019ull;
 
 std::vector<double> corner_of(const UncertaintyBox& box, std::uint64_t bits) {
   std::vector<double> v(box.size());
@@ -51,6 +52,7 @@ std::string_view scenario_kind_name(ScenarioKind kind) {
     case ScenarioKind::corner: return "corner";
     case ScenarioKind::sample: return "sample";
     case ScenarioKind::verification: return "verification";
+    case ScenarioKind::found: return "found";
   }
   return "unknown";
 }
@@ -115,8 +117,8 @@ std::vector<std::vector<double>> latin_hypercube(const UncertaintyBox& box, int 
   return out;
 }
 
-std::vector<std::vector<double>> uniform_sample(const UncertaintyBox& box, int n, std::uint64_t seed) {
-  std::mt19937_64 g(seed ^ kVerificationStream);
+std::vector<std::vector<double>> uniform_sample(const UncertaintyBox& box, int n, std::uint64_t seed, int draw) {
+  std::mt19937_64 g((seed ^ kVerificationStream) + static_cast<std::uint64_t>(draw) * kDrawStride);
   std::vector<std::vector<double>> out(static_cast<std::size_t>(std::max(0, n)), std::vector<double>(box.size()));
   for (auto& point : out)
     for (std::size_t k = 0; k < box.size(); ++k) point[k] = box.low[k] + unit(g) * (box.high[k] - box.low[k]);
@@ -198,9 +200,9 @@ std::vector<Scenario> scenario_set(const Problem& nominal) {
   return out;
 }
 
-std::vector<Scenario> verification_plants(const Problem& nominal) {
+std::vector<Scenario> verification_plants(const Problem& nominal, int draw) {
   const UncertaintySpec& u = nominal.spec.uncertainty;
-  return build(nominal, ScenarioKind::verification, uniform_sample(uncertainty_box(u), u.verify_samples, u.seed));
+  return build(nominal, ScenarioKind::verification, uniform_sample(uncertainty_box(u), u.verify_samples, u.seed, draw));
 }
 
 ProportionInterval wilson_interval(int met, int of, double z) {

@@ -90,12 +90,13 @@ json robust_run_json(const DesignRun& run) {
           {"keys", r.box.keys},
           {"box", {{"low", low}, {"high", high}, {"nominal", nominal}}},
           {"scenario_count", r.scenarios.size()},
-          {"verification", {{"count", r.verification.size()}, {"seed", u.seed}}},
+          {"verification", {{"count", r.verification.size()}, {"seed", u.seed}, {"draw", r.verification_draw}}},
           {"search",
            {{"rounds", r.search.rounds},
             {"active", r.search.active},
             {"scenario_evaluations", r.search.scenario_evaluations},
             {"corners_found", r.search.corners_found},
+            {"refuting_plants_added", r.refuting_added},
             {"converged", r.search.converged},
             {"text", r.search.text}}}};
 }

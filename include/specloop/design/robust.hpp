@@ -32,10 +32,13 @@ struct RobustSearchLog {
 /// only some of the box's corners, each worst-case round also walks from the corner with the least
 /// room to worse neighbouring corners (one key flipped at a time), which join `set`.
 /// Deterministic: the result does not depend on `jobs` (the full-set checks run on `jobs` threads).
+/// `start_active` (a continuation: the active set of an earlier search plus new plants) starts the
+/// active set there and makes every round local from the seed.
 SearchResult optimize_over_scenarios(const Problem& nominal, std::vector<Scenario>& set,
                                      const std::vector<double>& seed_parameters, SearchOptions options, unsigned jobs,
-                                     RobustSearchLog& log);
+                                     RobustSearchLog& log, const std::vector<std::size_t>& start_active = {});
 inline constexpr int kMaxRobustRounds = 8;
+inline constexpr int kMaxContinuationRounds = 3;   // rounds of a continuation (start_active), at most
 inline constexpr std::size_t kAddedPerRound = 4;   // plants added to the active set per round, at most
 
 /// Share of plants meeting every requirement, with Wilson's 95 % interval.
@@ -83,12 +86,15 @@ struct RobustAssessment {
   std::string claim;                        // that, in words, with the counts and the interval
 };
 inline constexpr std::size_t kMaxListed = 8;
+inline constexpr std::size_t kMaxRefuting = 16;  // refuting fresh plants added to the set, at most
 
 /// The fresh verification sample's values and plants (verification_plants).
 struct RobustRun {
   UncertaintyBox box;
   std::vector<Scenario> scenarios;          // the set (nominal, corners, samples)
   std::vector<Scenario> verification;       // the fresh plants
+  int verification_draw = 0;                // which sample they are (1: a second one, after refuting plants joined the set)
+  std::size_t refuting_added = 0;           // fresh plants that refuted the first optimum and joined the set (kind found)
   RobustSearchLog search;
   std::vector<RobustAssessment> assessments;  // one per design of the run, in its order
   const RobustAssessment* find(DesignRole role) const;

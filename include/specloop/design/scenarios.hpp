@@ -13,9 +13,10 @@
 
 namespace specloop {
 
-/// How a scenario was drawn.
-enum class ScenarioKind { nominal, corner, sample, verification };
-/// "nominal", "corner", "sample", "verification".
+/// How a scenario was drawn. `found`: a fresh verification plant that refuted a first worst-case
+/// optimum, added to the set for a second search.
+enum class ScenarioKind { nominal, corner, sample, verification, found };
+/// "nominal", "corner", "sample", "verification", "found".
 std::string_view scenario_kind_name(ScenarioKind kind);
 
 /// One plant of the uncertainty: its values of the ranged keys and the problem built with them.
@@ -42,8 +43,9 @@ std::vector<std::vector<double>> box_corners(const UncertaintyBox& box, int max_
 /// stratum used once, a uniform point inside it), from a 64-bit Mersenne Twister seeded with
 /// `seed` and our own conversions to [0, 1) (the same plants on every machine and library).
 std::vector<std::vector<double>> latin_hypercube(const UncertaintyBox& box, int n, std::uint64_t seed);
-/// n independent uniform points in the box, from a stream distinct from latin_hypercube's.
-std::vector<std::vector<double>> uniform_sample(const UncertaintyBox& box, int n, std::uint64_t seed);
+/// n independent uniform points in the box, from a stream distinct from latin_hypercube's (and
+/// another one for each `draw`).
+std::vector<std::vector<double>> uniform_sample(const UncertaintyBox& box, int n, std::uint64_t seed, int draw = 0);
 
 /// The nominal problem with each ranged key set to `values` (the spec re-read with those values
 /// and without [uncertainty]); the requirements, bounds, action and reference peak time stay the
@@ -54,8 +56,9 @@ Problem scenario_problem(const Problem& nominal, std::vector<double>& values);
 
 /// The scenario set of the search: the nominal plant first, then the corners, then the samples.
 std::vector<Scenario> scenario_set(const Problem& nominal);
-/// The fresh verification plants (uncertainty.verify_samples), independent of the set's samples.
-std::vector<Scenario> verification_plants(const Problem& nominal);
+/// The fresh verification plants (uncertainty.verify_samples), independent of the set's samples;
+/// `draw` 1, 2, … gives further samples, independent of the first.
+std::vector<Scenario> verification_plants(const Problem& nominal, int draw = 0);
 
 /// "plant.gain = 200, plant.poles[0] = -0.9": a scenario's values, for messages and reports.
 std::string scenario_values_text(const UncertaintyBox& box, const std::vector<double>& values);
