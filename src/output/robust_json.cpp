@@ -76,6 +76,14 @@ json robust_assessment_json(const RobustRun& robust, const RobustAssessment& a) 
           {"confirmations", confirmations}};
 }
 
+json robust_summary_json(const RobustRun& robust, const RobustAssessment& a) {
+  json out = robust_assessment_json(robust, a);
+  out.erase("scenarios");
+  out["verify"].erase("plants");
+  out["verify"].erase("meets_all");
+  return out;
+}
+
 json robust_run_json(const DesignRun& run) {
   if (!run.robust) return nullptr;
   const RobustRun& r = *run.robust;

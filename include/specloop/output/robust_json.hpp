@@ -17,6 +17,10 @@ namespace specloop {
 /// meets_all, checks}}]}.
 nlohmann::json robust_assessment_json(const RobustRun& robust, const RobustAssessment& a);
 
+/// The sweep store's form (README, "The store"): robust_assessment_json without the per-plant
+/// lists (scenarios, verify.plants, verify.meets_all).
+nlohmann::json robust_summary_json(const RobustRun& robust, const RobustAssessment& a);
+
 /// The run level: {mode, keys, box: {low, high, nominal}, scenario_count, verification: {count,
 /// seed}, search: {rounds, active, scenario_evaluations, converged, text}}.
 nlohmann::json robust_run_json(const DesignRun& run);
