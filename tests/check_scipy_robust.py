@@ -567,6 +567,36 @@ def check_draws(binary, tmp, tally):
                     "with file:line (exit 2)", f"exit {proc.returncode}: {proc.stderr.strip()[-300:]}")
 
 
+def check_scale_sweep(binary, source_dir, tmp, tally):
+    """`sweep --vary uncertainty.scale=…` (README, Robust design): each point's store row carries the
+    robust claim of the design run at that scale, the same as `design` of that point's spec writes."""
+    spec = pathlib.Path(source_dir) / "tests" / "robust" / "winder_lag_gain.toml"
+    store = pathlib.Path(tmp) / "scale.sqlite"
+    proc = subprocess.run([binary, "sweep", str(spec), "--vary", "uncertainty.scale=0.4,1.6", "--store", str(store),
+                           "--jobs", "2"], capture_output=True, text=True, timeout=600)
+    if not check(tally, "sweep/scale/run", proc.returncode == 0, "a sweep of uncertainty.scale runs",
+                 f"exit {proc.returncode}: {proc.stderr.strip()[-300:]}"):
+        return
+    import sqlite3
+    with sqlite3.connect(store) as db:
+        rows = db.execute("SELECT v1, met, binding, optimized FROM sweep_points JOIN sweep_results USING (idx) "
+                          "ORDER BY idx").fetchall()
+    for scale, met, binding, optimized in rows:
+        summary = json.loads(optimized)
+        robust = summary.get("robust") or {}
+        text = spec.read_text().replace("scale = 0.8", f"scale = {scale}")
+        point = pathlib.Path(tmp) / f"scale_{scale}.toml"
+        point.write_text(text)
+        out = pathlib.Path(tmp) / f"scale_{scale}"
+        run_design(binary, point, out, 2)
+        design = json.loads((out / "result.json").read_text())["designs"]["optimized"]["robust"]
+        same = robust.get("holds") == design["holds"] and robust.get("claim") == design["claim"] and \
+            robust.get("set") == design["set"] and "plants" not in robust.get("verify", {"plants": 1})
+        check(tally, f"sweep/scale/{scale}", same and bool(met) == (design["holds"] and summary["meets_all"]),
+              "the store's robust summary (no per-plant lists) is the claim `design` makes at that scale, and `met` "
+              "needs it", f"store {robust.get('claim')!r} met {met} | design {design['claim']!r}")
+
+
 # ---- main ----------------------------------------------------------------------------------------------------
 
 def main():
@@ -607,6 +637,7 @@ def main():
                 check(tally, f"{spec.stem}/oracle", False, "the check ran to the end",
                             f"{type(exc).__name__}: {exc} | {traceback.format_exc().strip().splitlines()[-3].strip()}")
         check_draws(args.specloop, tmp, tally)
+        check_scale_sweep(args.specloop, args.source_dir, tmp, tally)
     print(f"{tally.passed} passed, {tally.failed} failed")
     return 1 if tally.failed else 0
 
