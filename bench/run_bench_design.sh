@@ -41,7 +41,9 @@ if command -v taskset >/dev/null 2>&1 && taskset -c 0 true 2>/dev/null; then
   pinned="both pinned to core 0 (taskset -c 0)"
 fi
 
-specs=("$root"/specs/*.toml)
+# The robust demo (an [uncertainty] section) has its own benchmark: bench/run_bench_robust.sh.
+specs=()
+for f in "$root"/specs/*.toml; do grep -q '^\[uncertainty\]' "$f" || specs+=("$f"); done
 echo "== specloop design vs a SciPy search of the same cost; $(nproc) cores present, $pinned"
 echo "   specloop: $bin; $repeats runs per spec. SciPy: $python, at most $cap evaluations per spec."
 echo

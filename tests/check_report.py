@@ -598,10 +598,12 @@ def main():
             parser = ReportParser()
             parser.feed(page)
             tally.check(name, "html: no external references", not [l for l in parser.links if "://" in l], str(parser.links))
-            tally.check(name, "html: the four figures inline", parser.figures_with_svg == {f"fig-{f}" for f in FIGURES},
+            # A robust spec ([uncertainty]) adds the envelope figure (every plant's step response).
+            figures = FIGURES + (["envelope"] if result.get("robust") else [])
+            tally.check(name, f"html: the {len(figures)} figures inline", parser.figures_with_svg == {f"fig-{f}" for f in figures},
                         str(sorted(parser.figures_with_svg)))
             tally.check(name, "safety caution on both pages", "not a verified machine" in page and "not a verified machine" in md)
-            tally.check(name, "markdown links every figure", all(f"plots/{f}.svg" in md for f in FIGURES))
+            tally.check(name, "markdown links every figure", all(f"plots/{f}.svg" in md for f in figures))
             check_table(tally, name, parser, result)
             check_series(tally, name, out, result)
             check_locus(tally, name, out, result)
@@ -629,7 +631,7 @@ def main():
                 dparser.feed(dom)
                 tally.check(name, "browser DOM: requirement table present", len(dparser.cells) > 0)
                 tally.check(name, "browser DOM: every figure present with its svg",
-                            dparser.figures_with_svg == {f"fig-{f}" for f in FIGURES}, str(sorted(dparser.figures_with_svg)))
+                            dparser.figures_with_svg == {f"fig-{f}" for f in figures}, str(sorted(dparser.figures_with_svg)))
         tally.check("specs", "a spec without a ζ-line crossing is among them", crossing_seen)
         # The committed example (README) has the files and keys a fresh run writes, so it cannot rot.
         example = pathlib.Path(args.source_dir, "results", "examples", "conveyor_speed")

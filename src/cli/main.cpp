@@ -135,6 +135,31 @@ std::string slack_text(const RequirementCheck& c) {
   return fmt::format("{:+.3g} %", 100.0 * c.slack);
 }
 
+// The designs over [uncertainty]: each requirement's worst value and plant, and each claim.
+void print_robust(const DesignRun& run) {
+  const RobustRun& r = *run.robust;
+  fmt::print("\nOver the plant's uncertainty ({}: {} plants of the scenario set, {} fresh random plants; {}):\n",
+             robust_mode_name(run.problem.spec.uncertainty.mode), r.scenarios.size(), r.verification.size(),
+             fmt::join(r.box.keys, ", "));
+  fmt::print("  {:<24} {:>12}", "worst over the set", "limit");
+  for (const RobustAssessment& a : r.assessments) fmt::print(" {:>14}", role_name(a.role));
+  fmt::print("\n");
+  for (const Requirement& q : run.problem.requirements) {
+    fmt::print("  {:<24} {:>12}", q.key, fmt::format("{} {:.4g}", q.upper ? "≤" : "≥", q.limit));
+    for (const RobustAssessment& a : r.assessments) {
+      const auto w = std::find_if(a.worst.begin(), a.worst.end(), [&](const WorstCase& c) { return c.check.requirement.key == q.key; });
+      fmt::print(" {:>14}", w == a.worst.end() ? std::string("—")
+                                               : fmt::format("{} {}@{}", shown_value(w->check), w->check.met ? "✓" : "✗", w->scenario));
+    }
+    fmt::print("\n");
+  }
+  fmt::print("  {:<37}", "plants meeting all (set / fresh)");
+  for (const RobustAssessment& a : r.assessments)
+    fmt::print(" {:>14}", a.verification.of > 0 ? fmt::format("{:.3g}/{:.3g} %", a.set_all.pct, a.verification.pct)
+                                                : fmt::format("{:.3g} %/—", a.set_all.pct));
+  fmt::print("\n  (value ✓/✗ @ scenario index; the scenarios and every plant's checks are in result.json)\n");
+}
+
 void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   const Spec& spec = run.problem.spec;
   fmt::print("{}  —  structure {}\n\n", spec.title.empty() ? spec.name : spec.title,
@@ -212,7 +237,11 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
              s.simulate, effects.empty() ? std::string("none") : fmt::format("{}", fmt::join(effects, ", ")),
              s.nonlinear_evaluations, s.nonlinear_stage);
   const char* loop = run.judged_on_nonlinear ? "nonlinear loop (the loop the spec describes)" : "linear loop";
-  if (run.infeasibility) {
+  if (run.robust) print_robust(run);
+  if (run.infeasibility && run.infeasibility->binding == "uncertainty") {
+    fmt::print("\nNOT MET over the plant's uncertainty: the optimized design meets every requirement on the nominal "
+               "plant's {}, but {}.\n", loop, run.infeasibility->nearest_text);
+  } else if (run.infeasibility) {
     fmt::print("\nNOT MET: no design meets every requirement on the {}. Binding: {}.\n", loop, run.infeasibility->binding);
     for (const auto& m : run.infeasibility->misses)
       fmt::print("  - {} misses by {} %\n", m.requirement.key,
@@ -221,7 +250,10 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
                                      : fmt::format("{:.2g}", m.violation * 100.0));
     fmt::print("  {}\n", run.infeasibility->nearest_text);
   } else {
-    fmt::print("\nMET: the optimized design meets every requirement on the {}.\n", loop);
+    if (const RobustAssessment* a = run.robust ? run.robust->find(DesignRole::optimized) : nullptr)
+      fmt::print("\nMET: the optimized design meets every requirement on the nominal plant's {}; {}.\n", loop, a->claim);
+    else
+      fmt::print("\nMET: the optimized design meets every requirement on the {}.\n", loop);
   }
   if (best && best->nonlinear) fmt::print("Nonlinear loop: {}\n", best->nonlinear->verdict);
   if (!run.classical.designed)
@@ -398,6 +430,10 @@ int main(int argc, char** argv) {
                                               "checked against every requirement");
   design->add_option("SPEC", spec_path, "spec file (TOML)")->required();
   design->add_option("--out", out_dir, "output folder (default results/<spec name>/)");
+  unsigned design_jobs = std::max(1u, std::thread::hardware_concurrency());
+  design->add_option("--jobs", design_jobs, "threads for the plants of [uncertainty] (default: all cores; the result "
+                                            "is the same for any number)")
+      ->check(CLI::Range(1u, 4096u));
 
   std::vector<std::string> vary;
   std::string store, shard, point_reports;
@@ -465,7 +501,7 @@ int main(int argc, char** argv) {
       const Spec spec = load_spec(spec_path);
       const std::filesystem::path dir = out_dir.empty() ? std::filesystem::path("results") / spec.name : std::filesystem::path(out_dir);
       check_output_folder(dir, "--out");  // before the work, not after it
-      const DesignRun run = run_design(spec);
+      const DesignRun run = run_design(spec, design_jobs);
       const ReportOutcome outcome = write_design_outputs(run, dir);
       print_design(run, outcome);
       return run.met ? 0 : 1;

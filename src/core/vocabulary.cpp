@@ -45,6 +45,16 @@ constexpr Spelling<SimulateMode> kSimulateModes[] = {
     {SimulateMode::nonlinear, "nonlinear"},
 };
 
+constexpr Spelling<RobustMode> kRobustModes[] = {
+    {RobustMode::worst_case, "worst-case"},
+    {RobustMode::yield, "yield"},
+};
+
+constexpr Spelling<ObjectiveAt> kObjectiveAts[] = {
+    {ObjectiveAt::nominal, "nominal"},
+    {ObjectiveAt::worst, "worst"},
+};
+
 template <typename E, std::size_t N>
 std::string_view name_in(const Spelling<E> (&table)[N], E value, const char* what) {
   for (const auto& [v, spelling] : table)
@@ -117,6 +127,20 @@ std::string_view simulate_mode_name(SimulateMode m) { return name_in(kSimulateMo
 std::optional<SimulateMode> parse_simulate_mode(std::string_view name) { return parse_in(kSimulateModes, name); }
 const std::vector<std::string>& simulate_mode_names() {
   static const std::vector<std::string> names = names_in(kSimulateModes);
+  return names;
+}
+
+std::string_view robust_mode_name(RobustMode m) { return name_in(kRobustModes, m, "robust_mode_name"); }
+std::optional<RobustMode> parse_robust_mode(std::string_view name) { return parse_in(kRobustModes, name); }
+const std::vector<std::string>& robust_mode_names() {
+  static const std::vector<std::string> names = names_in(kRobustModes);
+  return names;
+}
+
+std::string_view objective_at_name(ObjectiveAt a) { return name_in(kObjectiveAts, a, "objective_at_name"); }
+std::optional<ObjectiveAt> parse_objective_at(std::string_view name) { return parse_in(kObjectiveAts, name); }
+const std::vector<std::string>& objective_at_names() {
+  static const std::vector<std::string> names = names_in(kObjectiveAts);
   return names;
 }
 

@@ -283,11 +283,35 @@ struct SearchOutcome {
 // then, when an effect the linear loop leaves out acts for it (or search.simulate says so), the
 // nonlinear stage, and the moved optimum measured and confirmed again.
 SearchOutcome search_stage(const Problem& problem, const std::optional<Controller>& classical,
-                           const std::optional<Controller>& baseline, const SearchOptions& options) {
-  // Seed: the classical design, else the ultimate-gain baseline, else the middle of the bounds.
-  std::vector<double> seed = classical ? classical->series : baseline ? baseline->series : middle_of_bounds(problem);
+                           const std::optional<Controller>& baseline, SearchOptions options, RobustRun* robust,
+                           unsigned jobs, const std::optional<std::vector<double>>& restart) {
+  // Seed: a restart's point, else the classical design, else the ultimate-gain baseline, else the
+  // middle of the bounds.
+  std::vector<double> seed = restart      ? *restart
+                             : classical ? classical->series
+                             : baseline  ? baseline->series
+                                         : middle_of_bounds(problem);
   SearchOutcome out;
-  out.result = optimize(problem, seed, options);
+  if (robust) {
+    // A restart continues from the earlier active set with the refuting plants (the last ones).
+    std::vector<std::size_t> start_active;
+    if (restart) {
+      start_active = robust->search.active;
+      for (std::size_t i = robust->scenarios.size() - robust->refuting_added; i < robust->scenarios.size(); ++i)
+        start_active.push_back(i);
+    }
+    out.result = optimize_over_scenarios(problem, robust->scenarios, seed, options, jobs, robust->search, start_active);
+    // The nonlinear stage's linear tier then reads the final active set (or the yield's plants).
+    options.robust_mode = problem.spec.uncertainty.mode;
+    options.objective_at = problem.spec.search.objective_at;
+    for (const std::size_t i : robust->search.active) options.scenarios.push_back(&robust->scenarios[i].problem);
+    if (options.robust_mode == RobustMode::yield) {
+      const auto samples = static_cast<double>(robust->search.active.size() - 1);
+      options.yield_required = static_cast<std::size_t>(std::ceil(problem.spec.uncertainty.yield_min_pct / 100.0 * samples - 1e-9));
+    }
+  } else {
+    out.result = optimize(problem, seed, options);
+  }
   out.best = measure_and_confirm(problem, DesignRole::optimized, out.result.controller);
   // Which loop the search ends on, and which loop judges: the effects the linear loop leaves out
   // that act for the linear optimum, measured on its confirmation run.
@@ -365,8 +389,11 @@ void judge(DesignRun& run, SearchOutcome& s, const SearchOptions& options) {
   // "Met" needs the search's own evaluation of its best point and the re-measurement of the
   // controller to agree: a best point the search rated unstable or infeasible is never met, even
   // if the re-measurement (another realization of the same loop) passes.
-  run.met = best.meets_all && result.summary.feasible;
-  if (best.meets_all && !result.summary.feasible) {
+  // (A robust search's feasibility is over the scenario plants: the nominal verdict is the
+  // measurement's, and the plants' claim is assess_robust's.)
+  const bool search_feasible = result.summary.feasible || run.robust.has_value();
+  run.met = best.meets_all && search_feasible;
+  if (best.meets_all && !search_feasible) {
     Infeasibility info;
     info.binding = "search";
     info.nearest_text = fmt::format(
@@ -397,22 +424,105 @@ void warn_final_value(DesignRun& run, Design& best) {
   run.warnings.push_back(w);
 }
 
+// Every design of the run over the scenario plants; the optimized one's claim joins the verdict.
+void assess_robust(DesignRun& run, unsigned jobs) {
+  RobustRun& robust = *run.robust;
+  for (const Design& d : run.designs) {
+    if (d.status != StepStatus::ok && d.role != DesignRole::optimized) continue;
+    const bool optimized = d.role == DesignRole::optimized;
+    robust.assessments.push_back(
+        assess_over_scenarios(robust, run.problem, d.role, d.controller, jobs, optimized, run.judged_on_nonlinear));
+  }
+  const RobustAssessment* best = robust.find(DesignRole::optimized);
+  if (!best || best->holds || !run.met) {
+    run.met = run.met && best && best->holds;
+    return;
+  }
+  run.met = false;
+  Infeasibility info;
+  info.binding = "uncertainty";
+  info.nearest_text = best->claim;
+  run.infeasibility = info;
+}
+
+// Worst case met on the whole set but refuted by fresh plants: those plants (at most
+// kMaxRefuting) join the set and a second, independent fresh sample replaces the first, for one
+// more search. False when there is nothing to add (or it was done already).
+bool add_refuting_plants(DesignRun& run) {
+  RobustRun& robust = *run.robust;
+  const RobustAssessment* a = robust.find(DesignRole::optimized);
+  if (run.problem.spec.uncertainty.mode != RobustMode::worst_case || robust.verification_draw > 0 || !a || a->holds ||
+      a->set_all.met != a->set_all.of || a->verification.met == a->verification.of)
+    return false;
+  for (std::size_t i = 0; i < a->verification_meets.size() && robust.refuting_added < kMaxRefuting; ++i)
+    if (!a->verification_meets[i]) {
+      Scenario s = robust.verification[i];
+      s.kind = ScenarioKind::found;
+      robust.scenarios.push_back(std::move(s));
+      ++robust.refuting_added;
+    }
+  robust.verification_draw = 1;
+  robust.verification = verification_plants(run.problem, robust.verification_draw);
+  return true;
+}
+
 }  // namespace
 
-DesignRun run_design(const Spec& spec) {
+DesignRun run_design(const Spec& spec, unsigned jobs) {
   DesignRun run = prepare_run(spec);
+  if (spec.uncertainty.active()) {
+    run.robust.emplace();
+    run.robust->box = uncertainty_box(spec.uncertainty);
+    run.robust->scenarios = scenario_set(run.problem);
+    run.robust->verification = verification_plants(run.problem);
+  }
   add_reference_design(run);
   const std::optional<Controller> classical = add_classical_design(run);
   const std::optional<Controller> baseline = add_ultimate_gain_design(run);
   const SearchOptions options = search_options(spec);
-  SearchOutcome s = search_stage(run.problem, classical, baseline, options);
-  run.search = s.result.summary;
-  run.judged_on_nonlinear = s.nonlinear_stage || !s.active.empty();
-  run.met_on_linear = s.best.meets_all;
-  review_optimized(run, s, classical.has_value(), baseline.has_value());
-  judge(run, s, options);
-  warn_final_value(run, s.best);
-  run.designs.push_back(std::move(s.best));
+  const std::vector<std::string> warnings_before = run.warnings;
+  std::optional<std::vector<double>> restart;
+  std::optional<DesignRun> first;  // the run as judged before a second search
+  for (;;) {
+    SearchOutcome s = search_stage(run.problem, classical, baseline, options, run.robust ? &*run.robust : nullptr, jobs,
+                                   restart);
+    run.search = s.result.summary;
+    run.judged_on_nonlinear = s.nonlinear_stage || !s.active.empty();
+    run.met_on_linear = s.best.meets_all;
+    review_optimized(run, s, classical.has_value(), baseline.has_value());
+    judge(run, s, options);
+    warn_final_value(run, s.best);
+    run.designs.push_back(std::move(s.best));
+    if (!run.robust) break;
+    assess_robust(run, jobs);
+    if (first) {
+      // The second search did not meet every plant of its set: the first optimum, its verdict
+      // and its verification stand (its refutation stated).
+      if (!run.robust->search.converged) {
+        const std::size_t added = run.robust->refuting_added;
+        run = std::move(*first);
+        run.robust->search.text += fmt::format(
+            "; {} fresh plant(s) refuted this optimum; a second search with them in the set did not meet every plant "
+            "of it, so this optimum and its verification stand", added);
+      }
+      break;
+    }
+    first = run;  // kept in case the second search does worse
+    if (!add_refuting_plants(run)) break;
+    // Fresh plants refuted the worst case: search again (from this optimum) with them in the set,
+    // and judge afresh on a new sample. This attempt's verdict is undone.
+    restart = run.designs.back().controller.series;
+    run.designs.pop_back();
+    run.robust->assessments.clear();
+    run.met = false;
+    run.infeasibility.reset();
+    run.warnings = warnings_before;
+  }
+  if (run.robust && run.robust->refuting_added > 0 && run.robust->verification_draw > 0)
+    run.robust->search.text += fmt::format("; a first optimum met every plant of the set but {} fresh plant(s) refuted "
+                                           "it: they joined the set, this search started from that optimum, and the "
+                                           "claim is verified on a second, independent fresh sample",
+                                           run.robust->refuting_added);
   return run;
 }
 

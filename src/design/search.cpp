@@ -36,15 +36,72 @@ constexpr std::size_t kNonlinearStarts = 3;    // Subplex starts of the nonlinea
 
 class CostFunction {
  public:
-  CostFunction(const Problem& problem, const SearchOptions& options) : problem_(problem), evaluator_(problem, options) {}
+  CostFunction(const Problem& problem, const SearchOptions& options)
+      : problem_(problem), options_(options), evaluator_(problem, options) {}
 
   struct Outcome : CandidateOutcome {
     double linear_violation = 0.0;  // nonlinear evaluations: the requirements missed on the linear loop
   };
 
   // Evaluates natural-unit parameters on the linear loop (the sampled one when the problem's
-  // controller is sampled).
-  Outcome evaluate(const double* params) { return {evaluator_.evaluate(problem_, params)}; }
+  // controller is sampled), on every scenario plant when there are some.
+  Outcome evaluate(const double* params) {
+    if (options_.scenarios.empty()) return {evaluator_.evaluate(problem_, params)};
+    return options_.robust_mode == RobustMode::yield ? evaluate_yield(params) : evaluate_worst_case(params);
+  }
+
+  // SearchOptions::scenarios, worst-case (ScenarioJudgement in search.hpp).
+  Outcome evaluate_worst_case(const double* params) {
+    Outcome out;
+    out.stable = true;
+    double barrier = 0.0, objective = 0.0;
+    const auto n = static_cast<double>(options_.scenarios.size());
+    for (std::size_t i = 0; i < options_.scenarios.size(); ++i) {
+      const CandidateOutcome o = evaluator_.evaluate(*options_.scenarios[i], params);
+      if (!o.stable) {
+        out.stable = false;
+        barrier += std::min(o.objective / kUnstableCost, 2.0);
+        continue;
+      }
+      out.violation += o.violation;
+      out.effort_peak = std::max(out.effort_peak, o.effort_peak);
+      if (i == 0 || options_.objective_at == ObjectiveAt::worst) objective = std::max(objective, o.objective);
+    }
+    if (!out.stable) {
+      out.objective = kUnstableCost * (1.0 + barrier / n);
+      out.violation = out.effort_peak = 0.0;
+      return out;
+    }
+    out.objective = objective;
+    return out;
+  }
+
+  // SearchOptions::scenarios, yield (ScenarioJudgement in search.hpp).
+  Outcome evaluate_yield(const double* params) {
+    Outcome out;
+    const std::size_t n = options_.scenarios.size();
+    violations_.resize(n);
+    objectives_.resize(n);
+    for (std::size_t i = 0; i < n; ++i) {
+      const CandidateOutcome o = evaluator_.evaluate(*options_.scenarios[i], params);
+      if (i == 0 && !o.stable) return {o};
+      violations_[i] = o.stable ? o.violation : kUnstableScenarioViolation;
+      objectives_[i] = o.stable ? o.objective : 0.0;
+      if (o.stable) out.effort_peak = std::max(out.effort_peak, o.effort_peak);
+    }
+    out.stable = true;
+    order_.resize(n - 1);
+    for (std::size_t i = 1; i < n; ++i) order_[i - 1] = i;
+    const std::size_t m = std::min(options_.yield_required, n - 1);
+    std::stable_sort(order_.begin(), order_.end(), [&](std::size_t a, std::size_t b) { return violations_[a] < violations_[b]; });
+    out.violation = violations_[0];
+    out.objective = objectives_[0];
+    for (std::size_t j = 0; j < m; ++j) {
+      out.violation += violations_[order_[j]];
+      if (options_.objective_at == ObjectiveAt::worst) out.objective = std::max(out.objective, objectives_[order_[j]]);
+    }
+    return out;
+  }
 
   // The same outcome measured on the spec's nonlinear loop, exactly as the confirmation measures
   // it (the confirmation stage, confirm_nonlinear): the linear loop's horizon, the confirmation's samples,
@@ -149,9 +206,12 @@ class CostFunction {
 
  private:
   const Problem& problem_;
+  const SearchOptions& options_;
   CandidateEvaluator evaluator_;
   double objective_scale_ = 1.0;
   std::vector<double> params_;
+  std::vector<double> violations_, objectives_;  // yield mode's workspace, per scenario
+  std::vector<std::size_t> order_;
 };
 
 double nlopt_trampoline(const std::vector<double>& x, std::vector<double>&, void* data) {
@@ -203,7 +263,8 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
 
   SearchSummary summary;
   nlopt::srand(options.seed);
-  const int global_budget = std::max(1, static_cast<int>(options.global_share * options.max_evaluations));
+  const int global_budget =
+      options.local_only ? 0 : std::max(1, static_cast<int>(options.global_share * options.max_evaluations));
   const int local_budget = std::max(1, options.max_evaluations - global_budget);
 
   // Global stage: one or more algorithms over the whole box (a comma-separated list), each with
@@ -221,6 +282,7 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
   std::vector<std::vector<double>> starts;
   double value = 0.0;
   nlopt::result global_result = nlopt::FAILURE;
+  if (options.local_only) globals.clear();
   for (const std::string& name : globals) {
     nlopt::opt global(algorithm_named(name), static_cast<unsigned>(dim));
     summary.global_algorithm += std::string(summary.global_algorithm.empty() ? "" : "; ") + global.get_algorithm_name();
@@ -250,6 +312,12 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
   local.set_min_objective(nlopt_trampoline, &cost);
   local.set_ftol_rel(options.local_relative_tolerance);
   if (std::find(starts.begin(), starts.end(), x) == starts.end()) starts.push_back(x);
+  for (const std::vector<double>& e : options.extra_starts) {
+    if (e.size() != dim) continue;
+    std::vector<double> lx(dim);
+    for (std::size_t i = 0; i < dim; ++i) lx[i] = std::clamp(std::log(e[i]), lower[i], upper[i]);
+    if (std::find(starts.begin(), starts.end(), lx) == starts.end()) starts.push_back(lx);
+  }
   const int runs = static_cast<int>(starts.size()) + 1;
   nlopt::result local_result = nlopt::FAILURE;
   for (int run = 0; run < runs; ++run) {
@@ -274,7 +342,8 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
   summary.best_violation = cost.best.violation;
   if (summary.stop_reason.empty())
     summary.stop_reason = fmt::format("global stage: {}; local stage: {}; best point {}",
-                                      result_text(global_result, options, global_budget),
+                                      options.local_only ? std::string("skipped (local only)")
+                                                         : result_text(global_result, options, global_budget),
                                       result_text(local_result, options, local_budget),
                                       summary.feasible     ? std::string("feasible")
                                       : !cost.best.stable ? std::string("unstable (no stable candidate was found)")

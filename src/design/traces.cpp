@@ -152,6 +152,19 @@ DesignTraces design_traces(const DesignRun& run) {
     if (auto t = nonlinear_trace(problem, *best, linear != out.responses.end() ? &*linear : nullptr))
       out.responses.push_back(std::move(*t));
   }
+  if (best && run.robust)
+    for (std::size_t i = 0; i < run.robust->scenarios.size(); ++i)
+      if (auto t = linear_trace(run.robust->scenarios[i].problem, *best)) {
+        // Thinned for the figure (every scenario is drawn): about kEnvelopeSamples points.
+        const std::size_t every = std::max<std::size_t>(1, t->time_s.size() / kEnvelopeSamples);
+        ResponseTrace thin{t->design, false, {}, {}, {}, {}};
+        for (std::size_t k = 0; k < t->time_s.size(); k += every) {
+          thin.time_s.push_back(t->time_s[k]);
+          thin.output.push_back(t->output[k]);
+          thin.control.push_back(t->control[k]);
+        }
+        out.scenarios.emplace_back(i, std::move(thin));
+      }
   out.locus = locus_trace(problem, best);
   for (const DesignRole role : {DesignRole::classical, DesignRole::optimized}) {
     const Design* d = run.find(role);

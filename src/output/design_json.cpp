@@ -46,20 +46,6 @@ json controller_json(const Design& d) {
           {"standard", standard}};
 }
 
-json checks_json(const std::vector<RequirementCheck>& list) {
-  json out = json::array();
-  for (const auto& check : list)
-    out.push_back({{"requirement", check.requirement.key},
-                   {"limit", number_json(check.requirement.limit)},
-                   {"bound", check.requirement.upper ? "max" : "min"},
-                   {"on_magnitude", check.requirement.magnitude},  // the bound applies to |value|
-                   {"unit", check.requirement.unit},
-                   {"value", optional_number(check.value)},
-                   {"met", check.met},
-                   {"violation", number_json(check.violation)},
-                   {"slack", number_json(check.slack)}});
-  return out;
-}
 
 json second_order_json(const std::optional<SecondOrderPrediction>& p) {
   if (!p) return nullptr;
@@ -131,6 +117,21 @@ json margins_json(const std::optional<Margins>& margins) {
 }
 
 }  // namespace
+
+json checks_json(const std::vector<RequirementCheck>& list) {
+  json out = json::array();
+  for (const auto& check : list)
+    out.push_back({{"requirement", check.requirement.key},
+                   {"limit", number_json(check.requirement.limit)},
+                   {"bound", check.requirement.upper ? "max" : "min"},
+                   {"on_magnitude", check.requirement.magnitude},  // the bound applies to |value|
+                   {"unit", check.requirement.unit},
+                   {"value", optional_number(check.value)},
+                   {"met", check.met},
+                   {"violation", number_json(check.violation)},
+                   {"slack", number_json(check.slack)}});
+  return out;
+}
 
 json design_summary(const Design& d) {
   return {{"status", status_name(d.status)},

@@ -1,5 +1,6 @@
 // JSON output of the characterization.
 #include "specloop/output/json_io.hpp"
+#include "specloop/output/robust_json.hpp"
 #include "specloop/output/caution.hpp"
 #include "specloop/output/design_json.hpp"
 #include "specloop/spec/requirement_catalogue.hpp"
@@ -225,6 +226,25 @@ json spec_json(const Spec& spec) {
         entry.is_limit() ? optional_number(r.*(entry.limit)) : number_json(r.*(entry.setting));
   json bounds = json::object();
   for (const auto& [name, range] : spec.search.bounds) bounds[name] = {range.first, range.second};
+  json uncertainty = nullptr;
+  if (const UncertaintySpec& u = spec.uncertainty; u.active()) {
+    json ranges = json::array();
+    for (const UncertainRange& range : u.ranges)
+      ranges.push_back({{"key", range.key},
+                        {"low", number_json(range.low)},
+                        {"high", number_json(range.high)},
+                        {"nominal", number_json(range.nominal)},
+                        {"scaled_low", number_json(u.low_of(range))},
+                        {"scaled_high", number_json(u.high_of(range))}});
+    uncertainty = {{"ranges", ranges},
+                   {"samples", u.samples},
+                   {"seed", u.seed},
+                   {"mode", robust_mode_name(u.mode)},
+                   {"yield_min_pct", u.mode == RobustMode::yield ? number_json(u.yield_min_pct) : json(nullptr)},
+                   {"verify_samples", u.verify_samples},
+                   {"scale", number_json(u.scale)},
+                   {"max_corners", u.max_corners}};
+  }
   return {{"path", spec.path},
           {"name", spec.name},
           {"title", spec.title},
@@ -241,8 +261,10 @@ json spec_json(const Spec& spec) {
             {"max_time", number_json(spec.search.max_time_s)},
             {"simulate", simulate_mode_name(spec.search.simulate)},
             {"margin_pct", number_json(spec.search.margin_pct)},
+            {"objective_at", objective_at_name(spec.search.objective_at)},
             {"bounds", bounds}}},
           {"sweep", {{"vary", spec.sweep_vary}}},
+          {"uncertainty", uncertainty},
           {"units", units_json(spec.units)}};
 }
 
@@ -269,7 +291,11 @@ json search_json(const SearchSummary& s) {
 
 json result_json(const DesignRun& run) {
   json designs = json::object();
-  for (const Design& d : run.designs) designs[std::string(role_name(d.role))] = design_json(d);
+  for (const Design& d : run.designs) {
+    json& entry = designs[std::string(role_name(d.role))] = design_json(d);
+    if (run.robust)
+      if (const RobustAssessment* a = run.robust->find(d.role)) entry["robust"] = robust_assessment_json(*run.robust, *a);
+  }
   json out = {{"schema", "specloop-result-1"},
               {"version", SPECLOOP_VERSION},
               {"spec", spec_json(run.problem.spec)},
@@ -294,6 +320,7 @@ json result_json(const DesignRun& run) {
               {"met_on_linear", run.met_on_linear},
               {"safety", kSafetyCaution}};
   out["linear_model"]["linearization"] = linearization_json(run.problem.spec);
+  out["robust"] = robust_run_json(run);
   if (run.target)
     out["target_pole"] = {{"pole", complex_json(run.target->pole)}, {"derivation", run.target->derivation}};
   out["classical_outcome"] = {{"designed", run.classical.designed},

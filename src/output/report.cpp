@@ -91,12 +91,12 @@ ReportOutcome write_design_outputs(const DesignRun& run, const fs::path& dir, co
     write_text(staging / "result.json", result_json(run).dump(2) + "\n");
     const SplaneView view = write_series(run, data, staging / "series");
     const double zeta = run.characterization.damping_ratio;
-    const RenderedFigures figures = write_and_render(staging / "plots",
-                                                     {{"step", step_script(run, data, false)},
-                                                      {"effort", step_script(run, data, true)},
-                                                      {"splane", splane_script(run, data, zeta, view)},
-                                                      {"frequency", frequency_script(run, data)}},
-                                                     options.render_figures);
+    std::vector<std::pair<std::string, std::string>> scripts{{"step", step_script(run, data, false)},
+                                                             {"effort", step_script(run, data, true)},
+                                                             {"splane", splane_script(run, data, zeta, view)},
+                                                             {"frequency", frequency_script(run, data)}};
+    if (run.robust) scripts.emplace_back("envelope", envelope_script(run, data));
+    const RenderedFigures figures = write_and_render(staging / "plots", scripts, options.render_figures);
     outcome.figures_note = figures.note;
     outcome.figures_rendered = figures.rendered;
     const Spec& spec = run.problem.spec;

@@ -228,4 +228,57 @@ std::string frequency_script(const DesignRun& run, const ReportData& data) {
 }
 
 
+std::string envelope_script(const DesignRun& run, const ReportData& data) {
+  const Spec& spec = run.problem.spec;
+  const Requirements& req = spec.requirements;
+  const UnitsSpec& units = spec.units;
+  const double r = spec.reference.amplitude, band = run.problem.band_fraction;
+  const Design* best = recommended_design(run);
+  const RobustAssessment* a = best && run.robust ? run.robust->find(best->role) : nullptr;
+  double horizon = 0.0;
+  for (const auto& [index, t] : data.traces.scenarios) horizon = std::max(horizon, t.time_s.back());
+  horizon = std::min(horizon, 2.0 * data.plot_horizon_s);
+  std::string s;
+  s += fmt::format("  set title {} font ',13'\n", quoted(fmt::format("Step response on every plant of the scenario set ({})",
+                                                                     best ? name_of(best->role) : std::string("none"))));
+  s += fmt::format("  set xlabel {}\n", quoted(fmt::format("time ({})", units.time)));
+  s += fmt::format("  set ylabel {}\n", quoted(fmt::format("y ({})", units.output)));
+  s += fmt::format("  set xrange [0:{}]\n", csv_number(horizon > 0.0 ? horizon : 1.0));
+  s += "  set key outside right top vertical Left reverse box opaque font ',10' samplen 2\n";
+  s += "  unset object; unset arrow; unset label\n";
+  std::vector<std::string> plots;
+  if (req.overshoot_max_pct)
+    plots.push_back(fmt::format("{} with lines lc rgb '#c62828' dt 2 lw 1.5 title {}", csv_number(r * (1.0 + *req.overshoot_max_pct / 100.0)),
+                                quoted(fmt::format("overshoot limit {:.4g} %", *req.overshoot_max_pct))));
+  if (req.settling_time_max_s) {
+    const double ts = *req.settling_time_max_s;
+    for (double edge : {r * (1.0 + band), r * (1.0 - band)})
+      s += fmt::format("  set arrow from {},{} to graph 1,first {} nohead lc rgb '#6a1b9a' dt 3 lw 1.2\n", csv_number(ts),
+                       csv_number(edge), csv_number(edge));
+    s += fmt::format("  set arrow from {},graph 0 to {},graph 1 nohead lc rgb '#6a1b9a' dt 3 lw 1\n", csv_number(ts), csv_number(ts));
+  }
+  if (data.peak_time_limit_s)
+    s += fmt::format("  set arrow from {},graph 0 to {},graph 1 nohead lc rgb '#ef6c00' dt 4 lw 1.2\n",
+                     csv_number(*data.peak_time_limit_s), csv_number(*data.peak_time_limit_s));
+  if (!data.traces.scenarios.empty()) {
+    plots.push_back(fmt::format("'../series/envelope.csv' skip 1 using 2:3 with lines lc rgb '#b0b7c3' lw 0.8 title {}",
+                                quoted(fmt::format("{} plants", data.traces.scenarios.size()))));
+    // The nominal plant, then each requirement's worst plant, named.
+    std::vector<std::pair<std::size_t, std::string>> named{{0, "nominal plant"}};
+    if (a)
+      for (const WorstCase& w : a->worst) {
+        auto it = std::find_if(named.begin(), named.end(), [&](const auto& n) { return n.first == w.scenario; });
+        const std::string what = fmt::format("worst {}", w.check.requirement.key);
+        if (it == named.end()) named.emplace_back(w.scenario, fmt::format("plant {}: {}", w.scenario, what));
+        else it->second += ", " + what;
+      }
+    static const char* colours[] = {"#1f5f99", "#c62828", "#ef6c00", "#6a1b9a", "#2e7d32", "#8d6e63", "#00838f"};
+    for (std::size_t j = 0; j < named.size(); ++j)
+      plots.push_back(fmt::format("'../series/envelope.csv' skip 1 using 2:($1 == {} ? $3 : NaN) with lines lc rgb '{}' lw {} title {}",
+                                  named[j].first, colours[j % 7], j == 0 ? "2" : "1.6", page::quoted(named[j].second)));
+  }
+  s += plot_command(plots, "no stable design to show");
+  return script_frame("envelope", s);
+}
+
 }  // namespace specloop::design_report

@@ -52,6 +52,11 @@ struct SplaneView {
 std::string step_script(const DesignRun& run, const ReportData& data, bool effort);
 std::string splane_script(const DesignRun& run, const ReportData& data, double zeta, const SplaneView& view);
 std::string frequency_script(const DesignRun& run, const ReportData& data);
+/// With [uncertainty]: the recommended design's step response on every plant of the scenario set,
+/// the nominal and each requirement's worst plant drawn and named, with the requirement envelope.
+std::string envelope_script(const DesignRun& run, const ReportData& data);
+/// The section over [uncertainty] (report_robust.cpp), with the envelope figure from `figures`.
+page::Section robust_section(const DesignRun& run, const std::vector<std::pair<std::string, std::string>>& figures);
 
 // ---- series (report_series.cpp) ------------------------------------------------------------------
 

@@ -232,6 +232,7 @@ std::vector<Section> sections(const DesignRun& run, const ReportData& data, cons
   out.push_back(controller_section(run));
   if (!run.warnings.empty()) out.push_back(warnings_section(run));
   out.push_back(requirement_section(run));
+  if (run.robust) out.push_back(robust_section(run, figures));
   out.push_back(figures_section(run, data, outcome, figures));
   out.push_back(approximation_section(run));
   out.push_back(confirmation_section(run));

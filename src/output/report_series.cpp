@@ -63,6 +63,16 @@ SplaneView write_series(const DesignRun& run, const ReportData& data, const fs::
   fs::create_directories(dir);
   write_traces(data, dir);
   write_locus(data.traces.locus.locus, dir);
+  if (!data.traces.scenarios.empty()) {
+    // Every scenario's response in one file, a blank line between scenarios (one curve each).
+    std::string envelope = "scenario,time,output,control\n";
+    for (const auto& [index, t] : data.traces.scenarios) {
+      for (std::size_t k = 0; k < t.time_s.size(); ++k)
+        envelope += fmt::format("{},{},{},{}\n", index, csv_number(t.time_s[k]), csv_number(t.output[k]), csv_number(t.control[k]));
+      envelope += "\n";
+    }
+    write_text(dir / "envelope.csv", envelope);
+  }
   // Marked points of the s-plane, and the view that holds them.
   double extent_re = 0.0, extent_im = 0.0, rightmost = 0.0;
   std::string points = "kind,design,real_per_s,imag_rad_per_s\n";

@@ -61,6 +61,9 @@ void read_search(const DocumentReader& reader, SearchSpec& search, Structure str
   if (const auto mode =
           reader.read_choice(*table, kSection, "simulate", "mode", simulate_mode_names(), parse_simulate_mode))
     search.simulate = *mode;
+  if (const auto at = reader.read_choice(*table, kSection, "objective_at", "place", objective_at_names(),
+                                         parse_objective_at))
+    search.objective_at = *at;
   const auto whole = [](double v) { return v == std::floor(v); };
   if (const auto seed = reader.ranged_number(
           table, kSection, "seed", [&](double v) { return v >= 0.0 && v <= 4294967295.0 && whole(v); },

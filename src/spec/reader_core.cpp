@@ -179,9 +179,15 @@ void DocumentReader::check_names_and_shapes() const {
 
 void DocumentReader::check_keys(const toml::table& table, std::string_view section_name,
                                 const std::vector<std::string_view>& keys) const {
+  // A section with free plant keys ([uncertainty]) leaves those to its reader: "plant.gain" (one
+  // quoted key) or plant.gain (a dotted key, a [plant] table inside the section).
+  const bool plant_keys_free = std::find(keys.begin(), keys.end(), "<plant key>") != keys.end();
   for (const auto& key_entry : entries_in_file_order(table)) {
     if (std::find(keys.begin(), keys.end(), key_entry.key) != keys.end()) continue;
+    if (plant_keys_free && (key_entry.key == "plant" || key_entry.key.starts_with("plant."))) continue;
     const std::string key = dotted(section_name, key_entry.key);
+    if (plant_keys_free && (key_entry.value->is_table() || key_entry.key.find('.') != std::string_view::npos))
+      fail(key_entry.at, key, "only numeric plant keys can be given a range here (\"plant.gain\", \"plant.poles[0]\", …)");
     if (const auto suggestion = closest_name(key_entry.key, keys))
       fail(key_entry.at, key, fmt::format("unknown key; did you mean '{}'?", *suggestion));
     fail(key_entry.at, key, fmt::format("unknown key; valid keys in [{}]: {}", section_name, fmt::join(keys, ", ")));

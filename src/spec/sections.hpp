@@ -40,8 +40,14 @@ void read_disturbance(const DocumentReader& reader, DisturbanceSpec& disturbance
                       std::vector<PendingTime>& pending);
 /// [sweep] vary: each axis's syntax.
 void read_sweep(const DocumentReader& reader, std::vector<std::string>& vary);
+/// [uncertainty]: each range's key checked against the document (a numeric plant key, as `sweep
+/// --vary` checks it), low < high around the file's value; the drawing and judging keys.
+void read_uncertainty(const DocumentReader& reader, UncertaintySpec& uncertainty);
 /// [units]: each a short label without control characters.
 void read_units(const DocumentReader& reader, UnitsSpec& units);
+
+/// Every section of a parsed document, in order (spec.cpp; read_spec without the TOML parse).
+SpecAsRead read_document(const toml::table& document, const std::string& path);
 
 /// A time key whose lower limit depends on the plant (controller.tracking_time, controller.sample_time,
 /// disturbance.noise_period): checked against `times` when given, else read and left in `pending`.

@@ -15,7 +15,7 @@
 
 namespace specloop {
 
-namespace {
+namespace reading {
 
 /// The sections in order. A linear plant is checked completely here; for a nonlinear one the
 /// checks that need its linearization wait in `sources` for model_spec.
@@ -40,12 +40,16 @@ SpecAsRead read_document(const toml::table& document, const std::string& path) {
   reading::read_disturbance(reader, spec.disturbance, times, sources->pending_times);
   reading::read_sweep(reader, spec.sweep_vary);
   reading::read_units(reader, spec.units);
+  reading::read_uncertainty(reader, spec.uncertainty);
+  if (spec.search.objective_at != ObjectiveAt::nominal && !spec.uncertainty.active())
+    reading::fail_at(path, reading::find_entry(*reader.section("search"), "objective_at")->at, "search.objective_at",
+                     "\"worst\" reads the objective over the plants of [uncertainty], and the file has none");
   if (times) reading::check_zero_error_integrator(path, spec, *sources);
   read.sources = std::move(sources);
   return read;
 }
 
-}  // namespace
+}  // namespace reading
 
 SpecAsRead read_spec(std::string_view text, const std::string& path) {
   toml::table document;
@@ -55,7 +59,7 @@ SpecAsRead read_spec(std::string_view text, const std::string& path) {
     const auto at = reading::position_of(error.source());
     throw SpecError(fmt::format("{}:{}:{}: invalid TOML: {}", path, at.line, at.column, error.description()));
   }
-  SpecAsRead read = read_document(document, path);
+  SpecAsRead read = reading::read_document(document, path);
   read.spec.source_text = std::string(text);
   return read;
 }

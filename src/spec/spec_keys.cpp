@@ -95,6 +95,9 @@ constexpr SpecKey kKeysAfterRequirements[] = {
      "dip below overshoot·(1 − m)); so a design it returns keeps room on every limit and still meets them all when "
      "the plant's gain and poles move by 1e-6 (checked by `tests/design/test_margin_robustness.cpp`). The checks use the "
      "spec's own limits. `0`: no margin (designs may sit exactly on a limit)"},
+    {"search.objective_at", "—", "`nominal`",
+     "with `[uncertainty]`: `nominal` minimizes the objective on the nominal plant, `worst` its worst value over the "
+     "scenario set"},
     {"search.bounds.<parameter>", "parameter's unit", "from the plant",
      "`[low, high]`, 0 < low < high; parameter names per structure in the `design` section; the gain's bounds are on "
      "its magnitude (reverse action makes it negative)"},
@@ -112,6 +115,25 @@ constexpr SpecKey kKeysAfterRequirements[] = {
      "`specloop sweep`'s axes: a non-empty array of strings `\"KEY=FROM:TO:COUNT\"`, `\"KEY=FROM:TO:COUNTlog\"` or "
      "`\"KEY=a,b,c\"` (syntax checked when the spec is read; keys checked by `sweep`); ignored by `analyze` and "
      "`design`, replaced by `--vary`"},
+    {"uncertainty.<plant key>", "the key's unit", "none",
+     "`[low, high]`, low < high, containing the value `[plant]` gives the key (the nominal); the key is a numeric "
+     "plant key as in `sweep --vary`, quoted: `\"plant.gain\" = [120.0, 200.0]`, `\"plant.poles[1][1]\" = [2.5, 3.5]`, "
+     "`\"plant.nonlinear.parameters.area\" = [0.2, 0.3]`; a gain's range may not contain 0, a delay's starts at ≥ 0, "
+     "an imaginary part's stays > 0. See \"Robust design\""},
+    {"uncertainty.samples", "—", "64", "seeded Latin-hypercube plants inside the box besides its corners, in [0, 10000]"},
+    {"uncertainty.seed", "—", "1", "seed of those plants and of the verification sample (whole number in [0, 2^53])"},
+    {"uncertainty.mode", "—", "`worst-case`",
+     "`worst-case`: every requirement on every scenario (nominal, corners, samples); `yield`: on at least "
+     "`yield_min_pct` of the random plants"},
+    {"uncertainty.yield_min_pct", "%", "95", "mode `yield`: the share of plants that must meet every requirement, in (0, 100]"},
+    {"uncertainty.verify_samples", "—", "1000",
+     "fresh random plants the design is re-checked on after the search (the claim's plants), in [1, 1000000]"},
+    {"uncertainty.scale", "—", "1",
+     "every range's half-widths multiplied by this about the nominal, in [0, 10] (`sweep --vary uncertainty.scale=…` "
+     "maps how much plant variation a spec tolerates)"},
+    {"uncertainty.max_corners", "—", "64",
+     "every corner of the box is a scenario when there are at most this many (2^ranges), else this many chosen "
+     "deterministically plus the worst corners found; in [2, 4096]"},
     {"units.output", "—", "`output units`",
      "name of the output's unit (e.g. `\"m/s\"`), shown in figure axes, tables, the terminal and result.json; a "
      "non-empty string of at most 24 characters, no control characters"},

@@ -16,6 +16,7 @@
 #include "specloop/design/design.hpp"
 #include "specloop/output/design_json.hpp"
 #include "specloop/output/report.hpp"
+#include "specloop/output/robust_json.hpp"
 #include "specloop/spec/spec.hpp"
 #include "specloop/sweep/sweep.hpp"
 #include "sweep/store_db.hpp"
@@ -58,12 +59,19 @@ PointRow run_point(const SweepSpec& spec, const SweepGrid& grid, std::size_t ind
     }
     row.evaluations = run.search.evaluations;
     row.search_wall_time_s = run.search.wall_time_s;
+    // A design's summary; with [uncertainty], its robust claim and counts too (robust_summary_json).
+    const auto summary = [&](const Design& d) {
+      nlohmann::json j = design_summary(d);
+      if (run.robust)
+        if (const RobustAssessment* a = run.robust->find(d.role)) j["robust"] = robust_summary_json(*run.robust, *a);
+      return j.dump();
+    };
     if (const Design* c = run.find(DesignRole::classical)) {
-      row.classical = design_summary(*c).dump();
+      row.classical = summary(*c);
       if (c->nonlinear) row.classical_confirmed = c->nonlinear->confirmed;
     }
     if (const Design* o = run.find(DesignRole::optimized)) {
-      row.optimized = design_summary(*o).dump();
+      row.optimized = summary(*o);
       if (o->nonlinear) row.optimized_confirmed = o->nonlinear->confirmed;
     }
   } catch (const std::exception& e) {

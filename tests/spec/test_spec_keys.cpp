@@ -35,6 +35,7 @@ std::string replaced(std::string text, const std::string& value) {
 }
 
 const std::string kPlant = "[plant]\npoles = [-1.0, -4.0]\n";
+const std::string kUncertain = "[uncertainty]\n\"plant.poles[1]\" = [-5.0, -3.0]\n";
 const std::string kNonlinearHead =
     "[plant.nonlinear]\nstates = [\"level\"]\nderivatives = [\"(u - k*level)/area\"]\noutput = \"level\"\n";
 
@@ -93,6 +94,15 @@ const std::map<std::string, std::pair<std::string, std::string>>& examples() {
       {"search.simulate", {kPlant + "[search]\nsimulate = @\n", "\"nonlinear\""}},
       {"search.margin_pct", {kPlant + "[search]\nmargin_pct = @\n", "3.0"}},
       {"search.bounds.<parameter>", {kPlant + "[search.bounds]\ngain = @\n", "[0.1, 10.0]"}},
+      {"search.objective_at", {kPlant + "[search]\nobjective_at = @\n" + kUncertain, "\"worst\""}},
+      {"uncertainty.<plant key>", {kPlant + "[uncertainty]\n\"plant.poles[0]\" = @\n", "[-1.5, -0.5]"}},
+      {"uncertainty.samples", {kPlant + kUncertain + "samples = @\n", "32"}},
+      {"uncertainty.seed", {kPlant + kUncertain + "seed = @\n", "5"}},
+      {"uncertainty.mode", {kPlant + kUncertain + "mode = @\n", "\"yield\""}},
+      {"uncertainty.yield_min_pct", {kPlant + kUncertain + "mode = \"yield\"\nyield_min_pct = @\n", "90.0"}},
+      {"uncertainty.verify_samples", {kPlant + kUncertain + "verify_samples = @\n", "200"}},
+      {"uncertainty.scale", {kPlant + kUncertain + "scale = @\n", "0.5"}},
+      {"uncertainty.max_corners", {kPlant + kUncertain + "max_corners = @\n", "16"}},
       {"disturbance.time", {kPlant + "[disturbance]\ntime = @\nsize = 1.0\n", "3.0"}},
       {"disturbance.size", {kPlant + "[disturbance]\nsize = @\n", "1.0"}},
       {"disturbance.noise_rms", {kPlant + "[disturbance]\nnoise_rms = @\n", "0.01"}},
@@ -116,6 +126,7 @@ std::string named_key(const std::string& key) {
   if (key == "plant.nonlinear.parameters.<name>") return "plant.nonlinear.parameters.k";
   if (key == "plant.nonlinear.operating_point.<state>") return "plant.nonlinear.operating_point.level";
   if (key == "search.bounds.<parameter>") return "search.bounds.gain";
+  if (key == "uncertainty.<plant key>") return "uncertainty.\"plant.poles[0]\"";
   return key;
 }
 
@@ -172,7 +183,7 @@ TEST_CASE("spec keys: a key or section not in the table is refused as unknown", 
   CHECK(error_of(kPlant + "[unit]\noutput = \"m\"\n").find("unit: unknown section; did you mean 'units'?") != std::string::npos);
   CHECK(error_of(kPlant + "[labels]\noutput = \"m\"\n").find("labels: unknown section; valid top-level names: title, plant, "
                                                             "actuator, controller, requirements, reference, search, "
-                                                            "disturbance, sweep, units") != std::string::npos);
+                                                            "disturbance, sweep, uncertainty, units") != std::string::npos);
 }
 
 TEST_CASE("units: names are read, defaults kept, bad names refused", "[spec][keys]") {

@@ -54,6 +54,21 @@ std::string_view simulate_mode_name(SimulateMode m);  // "auto", "linear", "nonl
 std::optional<SimulateMode> parse_simulate_mode(std::string_view name);
 const std::vector<std::string>& simulate_mode_names();
 
+/// What a design over the plant's uncertainty ([uncertainty] mode) requires.
+///   worst_case: every requirement on every plant of the scenario set;
+///   yield:      every requirement on at least yield_min_pct of the set's random plants.
+enum class RobustMode { worst_case, yield };
+std::string_view robust_mode_name(RobustMode m);  // "worst-case", "yield"
+std::optional<RobustMode> parse_robust_mode(std::string_view name);
+const std::vector<std::string>& robust_mode_names();
+
+/// Where a robust search reads its objective (`search.objective_at`): on the nominal plant, or
+/// its worst value over the scenarios.
+enum class ObjectiveAt { nominal, worst };
+std::string_view objective_at_name(ObjectiveAt a);  // "nominal", "worst"
+std::optional<ObjectiveAt> parse_objective_at(std::string_view name);
+const std::vector<std::string>& objective_at_names();
+
 /// The known name closest to `unknown` when it is a likely typo (equal ignoring case, or within
 /// edit distance 2 and not a complete rewrite of a short word), for did-you-mean messages.
 std::optional<std::string_view> closest_name(std::string_view unknown, std::span<const std::string_view> known);

@@ -12,6 +12,7 @@
 #include "specloop/design/measure.hpp"
 #include "specloop/design/problem.hpp"
 #include "specloop/design/requirements.hpp"
+#include "specloop/design/robust.hpp"
 #include "specloop/design/role.hpp"
 #include "specloop/design/search.hpp"
 #include "specloop/spec/spec.hpp"
@@ -47,6 +48,9 @@ struct DesignRun {
   bool met = false;                         // the optimized design meets every requirement …
   bool judged_on_nonlinear = false;         // … on the nonlinear loop (an effect active, or search.simulate = "nonlinear") or the linear one
   bool met_on_linear = false;               // it meets every requirement on the linear loop (a linear-only pass when !met)
+  /// With [uncertainty]: the scenario plants, the robust search's log and every design's
+  /// assessment over them. `met` then also needs the optimized design's robust claim to hold.
+  std::optional<RobustRun> robust;
   /// The design of that role, or nullptr when the run has none.
   const Design* find(DesignRole role) const;
 };
@@ -58,7 +62,8 @@ Design measure_and_confirm(const Problem& problem, DesignRole role, const Contro
 /// characterize → problem → classical and baseline designs → search (seeded by the classical
 /// design) → measurement and confirmation of every design → infeasibility analysis when the
 /// optimum misses.
-DesignRun run_design(const Spec& spec);
+/// `jobs`: threads for the scenario plants of [uncertainty] (the result does not depend on it).
+DesignRun run_design(const Spec& spec, unsigned jobs = 1);
 
 /// The design the report recommends: the optimized one, else the classical one (with a stable
 /// linear loop), else none.

@@ -28,7 +28,29 @@ struct SearchOptions {
   int nonlinear_evaluations = 400;
   std::string global_algorithm = "GN_DIRECT_L";  // NLopt algorithm names (nlopt_algorithm_from_string)
   std::string local_algorithm = "LN_SBPLX";
+  /// Robust search: every candidate is evaluated on each of these plants (scenario problems,
+  /// scenarios.hpp; the first is the nominal one) instead of the problem's plant alone, and
+  /// judged as `robust_mode` says (see `ScenarioJudgement`). Empty: the problem's plant only.
+  std::vector<const Problem*> scenarios;
+  RobustMode robust_mode = RobustMode::worst_case;
+  ObjectiveAt objective_at = ObjectiveAt::nominal;
+  /// Mode yield: at least this many of scenarios[1…] must meet every requirement (and the nominal).
+  std::size_t yield_required = 0;
+  /// Skip the global stage: the local stage starts from the seed only (a robust search's later rounds).
+  bool local_only = false;
+  /// More starts of the local stage (natural units), after the global stage's and the seed.
+  std::vector<std::vector<double>> extra_starts;
 };
+
+/// How a candidate's outcomes on several plants become one (SearchOptions::scenarios):
+///  - worst-case: stable only when stable on every plant (else the barrier grows with the share of
+///    unstable plants and how far right their poles are); violation Σ over the plants; the
+///    objective the nominal plant's, or the largest (objective_at = worst);
+///  - yield: the nominal plant must be stable; a plant of scenarios[1…] that is unstable counts as
+///    a violation of kUnstableScenarioViolation; violation = the nominal's + the sum of the
+///    `yield_required` smallest violations of the others (0 exactly when the nominal and that
+///    many others meet everything); objective the nominal's, or the largest over those plants.
+inline constexpr double kUnstableScenarioViolation = 10.0;
 
 struct SearchSummary {
   std::string global_given, local_given;  // NLopt names, as asked for

@@ -51,7 +51,11 @@ struct DesignTraces {
   /// The classical and optimized loops' frequency responses, over two decades beyond every corner
   /// and crossover of the loop (300 points).
   std::vector<std::pair<DesignRole, FrequencySeries>> frequency;
+  /// With [uncertainty]: the recommended design's linear-loop step response on each plant of the
+  /// scenario set (index into RobustRun::scenarios, at most kEnvelopeSamples points each).
+  std::vector<std::pair<std::size_t, ResponseTrace>> scenarios;
 };
+inline constexpr std::size_t kEnvelopeSamples = 400;
 
 /// Computes the traces of a design run (the simulators run again here, never in the report).
 DesignTraces design_traces(const DesignRun& run);

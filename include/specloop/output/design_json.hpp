@@ -14,6 +14,9 @@ namespace specloop {
 /// confirmation's effects, horizon, stepper, verdict, notes, attribution and difference equation.
 nlohmann::json design_json(const Design& d);
 
+/// Requirement checks: [{requirement, limit, bound, on_magnitude, unit, value, met, violation, slack}].
+nlohmann::json checks_json(const std::vector<RequirementCheck>& list);
+
 /// One design as the sweep store keeps it (README, "The store"): result.json's design object
 /// restricted to status, meets_all, controller, checks, second_order, simulated and nonlinear,
 /// the last restricted to status, simulated, checks, meets_all, confirmed (null when the linear

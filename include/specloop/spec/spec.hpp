@@ -104,6 +104,7 @@ struct Requirements {
 
 struct SearchSpec {
   Objective objective = Objective::itae;
+  ObjectiveAt objective_at = ObjectiveAt::nominal;  // with [uncertainty]: the nominal plant's objective or the worst
   unsigned seed = 1;                          // NLopt's random seed
   int max_evaluations = 6000;                 // cost evaluations, global + local
   double max_time_s = 20.0;                   // wall-time cap, s
@@ -111,6 +112,29 @@ struct SearchSpec {
   double margin_pct = 1.0;                    // limits tightened by this % of themselves in the search, band narrowed too; [0, 50)
   /// [search.bounds]: parameter name → [lo, hi], natural units, 0 < lo < hi.
   std::vector<std::pair<std::string, std::pair<double, double>>> bounds;
+};
+
+/// One [uncertainty] range: a numeric plant key and the interval its value may take.
+struct UncertainRange {
+  std::string key;                            // dotted path as in `sweep --vary`, e.g. "plant.poles[1][1]"
+  double low = 0.0, high = 0.0;               // as written, low < high
+  double nominal = 0.0;                       // the value the file gives the key, in [low, high]
+};
+
+/// [uncertainty]: the plants the machine can be, and what a design must do over them.
+struct UncertaintySpec {
+  std::vector<UncertainRange> ranges;         // in file order; empty: no [uncertainty]
+  int samples = 64;                           // seeded Latin-hypercube plants inside the box, besides the corners
+  std::uint64_t seed = 1;                     // of those samples and of the verification sample
+  RobustMode mode = RobustMode::worst_case;
+  double yield_min_pct = 95.0;                // mode yield: the share of the random plants that must meet all
+  int verify_samples = 1000;                  // fresh random plants the design is re-checked on after the search
+  double scale = 1.0;                         // every half-width multiplied by this about the nominal (sweepable)
+  int max_corners = 64;                       // every corner of the box when there are at most this many
+  bool active() const { return !ranges.empty(); }
+  /// The range's ends after `scale`: nominal − scale·(nominal − low), nominal + scale·(high − nominal).
+  double low_of(const UncertainRange& r) const { return r.nominal - scale * (r.nominal - r.low); }
+  double high_of(const UncertainRange& r) const { return r.nominal + scale * (r.high - r.nominal); }
 };
 
 struct ReferenceSpec {
@@ -138,6 +162,7 @@ struct Spec {
   SearchSpec search;
   DisturbanceSpec disturbance;
   UnitsSpec units;
+  UncertaintySpec uncertainty;
   /// [sweep] vary: the axes of `specloop sweep`, each "KEY=FROM:TO:COUNT[log]" or "KEY=a,b,c"
   /// (syntax checked here; the keys are checked against the file by the sweep).
   std::vector<std::string> sweep_vary;
