@@ -151,14 +151,6 @@ DESIGNS = ("reference", "classical", "ultimate_gain", "optimized")
 # run; an entry that matches no failure any more is printed as such (remove it; --strict-known
 # fails the run on it). The lead removes entries as the merges that fix them land.
 KNOWN_FAILING = {
-    # The classical design of this stiff PI loop lands on the overshoot limit itself (the
-    # second-order approximation is exact here): 10.0000000056 % by a long-double re-measurement,
-    # which requirement_violation's 1e-9 relative allowance counts as met, while a 1e-6 move of the
-    # plant gives 10.0000354 %. The dense simulator read 10.000000014 % (8e-9 points high on this
-    # graded loop) and so reported a miss; the modal recurrence (fasteval) reads 10.000000004 %.
-    # For the design layer: the allowance only for zero limits, or the classical design aimed
-    # inside the limit as the reference P design is (kReferenceBelowPct).
-    "claims/stiff_lag/classical/perturb/*/overshoot_max_pct": "classical design on the limit, within the 1e-9 met allowance",
 }
 
 

@@ -403,7 +403,31 @@ std::optional<GainPoint> find_reference(const TransferFunction& plant, const Cha
   // The bracket's end at or below the limit (the reference's own check must hold), unless the
   // other end is closer to it.
   const double fa = f(a), fb = f(b);
-  const double k_ref = fa <= 0.0 ? a : (fb <= 0.0 ? b : (std::abs(fa) <= std::abs(fb) ? a : b));
+  double k_ref = fa <= 0.0 ? a : (fb <= 0.0 ? b : (std::abs(fa) <= std::abs(fb) ? a : b));
+  // The reference's own overshoot check must survive a 1e-6 move of the plant: where that moves
+  // the overshoot by more than half the aim's room, aim inside by twice the largest move.
+  if (const auto at = overshoot(k_ref); at && std::abs(*at - aim) <= kReferenceTolerancePct) {
+    double moved = 0.0;
+    for (const TransferFunction& p : knife_edge_plants(plant)) {
+      StepMetrics m;
+      if (sim.simulate(close_loop(realize(p), static_gain(k_ref)), amplitude, ch.band_fraction, m) == StepStatus::ok)
+        moved = std::max(moved, m.overshoot_pct - *at);
+    }
+    const double inner = limit - 2.0 * moved;
+    if (*at + moved >= limit - 0.5 * kReferenceBelowPct && inner < aim) {
+      // A bracket below: the scan's last point under the new aim, in the same stable range.
+      std::size_t j = first - 1;
+      while (j > 0 && scan[j].second >= inner && same_range(scan[j - 1].first, scan[j].first)) --j;
+      if (scan[j].second < inner) {
+        const auto g = [&](double kk) { return overshoot(kk).value_or(1e9) - inner; };
+        iterations = 100;
+        const auto [c, e] = boost::math::tools::toms748_solve(g, scan[j].first, k_ref, scan[j].second - inner,
+                                                             *at - inner, boost::math::tools::eps_tolerance<double>(40),
+                                                             iterations);
+        k_ref = g(c) <= 0.0 ? c : e;
+      }
+    }
+  }
   auto point = measure_gain(plant, k_ref, amplitude, ch.band_fraction, sim);
   if (!point) {
     note = "the reference gain could not be simulated";
@@ -428,6 +452,27 @@ std::optional<GainPoint> find_reference(const TransferFunction& plant, const Cha
 }
 
 }  // namespace
+
+std::vector<TransferFunction> knife_edge_plants(const TransferFunction& plant, double relative) {
+  const std::vector<Complex> poles = plant.poles();
+  const double leading = plant.denominator.leading();
+  std::vector<TransferFunction> out;
+  for (double sign : {-1.0, 1.0}) {
+    const double factor = 1.0 + sign * relative;
+    out.emplace_back(factor * plant.numerator, plant.denominator);
+    for (std::size_t i = 0; i < poles.size(); ++i) {
+      if (poles[i].imag() < 0.0) continue;  // moves with its upper member
+      bool seen = false;
+      for (std::size_t j = 0; j < i; ++j) seen = seen || poles[j] == poles[i];
+      if (seen) continue;
+      std::vector<Complex> moved = poles;
+      for (Complex& q : moved)
+        if (q == poles[i] || q == std::conj(poles[i])) q *= factor;
+      out.emplace_back(plant.numerator, leading * Polynomial::from_roots(moved));
+    }
+  }
+  return out;
+}
 
 TransferFunction linear_plant(const Spec& spec) {
   const TransferFunction given(Polynomial(spec.plant.numerator), Polynomial(spec.plant.denominator));

@@ -16,11 +16,22 @@ namespace {
 constexpr double kInf = std::numeric_limits<double>::infinity();
 constexpr double kDeg = 180.0 / std::numbers::pi;
 
+// The hand design aims a hair inside the limits it is built from, as the reference P design does:
+// where the second-order approximation is exact (a P loop on two real poles) it would otherwise land
+// on the limit itself, and a verdict there turns with the last bits (a 1e-6 move of the plant moves
+// the overshoot by some 1e-5 points). Overshoot in percentage points (at most 1 % of the limit), and
+// the peak time relative.
+constexpr double kInsideOvershootPct = 1e-4;
+constexpr double kInsidePeakTime = 1e-5;
+
 }  // namespace
 
 std::optional<DesiredPole> desired_pole(const Problem& problem, const Characterization& ch) {
   const Requirements& r = problem.spec.requirements;
-  const double zeta = r.overshoot_max_pct ? damping_from_overshoot(*r.overshoot_max_pct) : std::sqrt(0.5);
+  const double zeta =
+      r.overshoot_max_pct
+          ? damping_from_overshoot(*r.overshoot_max_pct - std::min(kInsideOvershootPct, 0.01 * *r.overshoot_max_pct))
+          : std::sqrt(0.5);
   const std::string zeta_from = r.overshoot_max_pct
                                     ? fmt::format("ζ = {:.4f} from {:.4g} % overshoot", zeta, *r.overshoot_max_pct)
                                     : std::string("ζ = 0.7071 (no overshoot limit; common practice)");
@@ -37,7 +48,7 @@ std::optional<DesiredPole> desired_pole(const Problem& problem, const Characteri
   }
   const double root = std::sqrt(1.0 - zeta * zeta);
   if (tp) {
-    const double wd = std::numbers::pi / *tp;
+    const double wd = std::numbers::pi / (*tp * (1.0 - kInsidePeakTime));
     return DesiredPole{Complex(-zeta * wd / root, wd), zeta_from + ", " + tp_from + ", ω_d = π/t_p"};
   }
   if (r.settling_time_max_s) {
@@ -46,7 +57,9 @@ std::optional<DesiredPole> desired_pole(const Problem& problem, const Characteri
                        zeta_from + fmt::format(", σ = −ln(band)/t_s from settling_time_max {:.4g} s", *r.settling_time_max_s)};
   }
   if (ch.dominant_index) {
-    const Complex pole = ch.crossings[*ch.dominant_index].pair_pole;
+    // The crossing's speed on the aimed ζ-line (the crossing itself lies on the limit's).
+    const double speed = std::abs(ch.crossings[*ch.dominant_index].pair_pole);
+    const Complex pole(-zeta * speed, root * speed);
     return DesiredPole{pole, zeta_from + ", speed of the P-only dominant crossing (no time requirement)"};
   }
   return std::nullopt;

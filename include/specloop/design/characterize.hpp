@@ -128,6 +128,12 @@ struct Characterization {
 /// plant.delay > 0.
 TransferFunction linear_plant(const Spec& spec);
 
+/// The plant moved by ±`relative` (1e-6: the project's knife-edge test) in its gain and in each
+/// pole (a conjugate pair moves together), 2·(distinct poles + 1) plants. A verdict that one of
+/// them turns is on the limit, not met (measure_design); the reference P design aims inside by
+/// what they shift its overshoot.
+std::vector<TransferFunction> knife_edge_plants(const TransferFunction& plant, double relative = 1e-6);
+
 /// Runs the whole characterization for the spec's plant. Throws SpecError when the spec lacks
 /// what this needs (an overshoot limit).
 Characterization characterize(const Spec& spec);

@@ -9,7 +9,7 @@ do for [term in 'svg png'] {
   set title 'Control effort u(t)' font ',13'
   set xlabel 'time (s)'
   set ylabel 'u (V)'
-  set xrange [0:12.20223072]
+  set xrange [0:12.20200231]
   set key outside right top vertical Left reverse box opaque font ',10' samplen 2
   unset object; unset arrow; unset label
   plot 24 with lines lc rgb '#c62828' dt 2 lw 1.5 title 'actuator limits', \

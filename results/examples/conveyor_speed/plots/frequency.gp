@@ -13,16 +13,16 @@ do for [term in 'svg png'] {
   set key outside right top vertical Left reverse box opaque font ',9' samplen 2 width 2
   unset arrow; unset label
   set ylabel 'magnitude (dB)'
-  set arrow from 32.32643123,-30.32127333 to 32.32643123,0 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
-  set arrow from 29.72156581,-24.00799977 to 29.72156581,0 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
+  set arrow from 32.32608207,-30.32087937 to 32.32608207,0 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
+  set arrow from 29.72112189,-24.00758883 to 29.72112189,0 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
   plot 0 with lines lc rgb '#999999' dt 2 notitle, \
        '../series/frequency_classical.csv' using 1:2 with lines lc rgb '#c26a1b' lw 2 title 'classical', \
        '../series/frequency_optimized.csv' using 1:2 with lines lc rgb '#1f5f99' lw 2 title 'optimized', \
        NaN with lines lc rgb '#555555' lw 1.5 title 'bars: gain margins at the phase crossovers'
   unset arrow; unset label
   set ylabel 'phase (deg)'
-  set arrow from 3.270959499,-180 to 3.270959499,-97.69678157 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
-  set arrow from 5.035006239,-180 to 5.035006239,-116.7521655 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
+  set arrow from 3.271007171,-180 to 3.271007171,-97.69684382 lc rgb '#c26a1b' lw 1.5 heads size screen 0.008,90
+  set arrow from 5.035080194,-180 to 5.035080194,-116.7517171 lc rgb '#1f5f99' lw 1.5 heads size screen 0.008,90
   plot -180 with lines lc rgb '#999999' dt 2 notitle, \
        '../series/frequency_classical.csv' using 1:3 with lines lc rgb '#c26a1b' lw 2 title 'classical', \
        '../series/frequency_optimized.csv' using 1:3 with lines lc rgb '#1f5f99' lw 2 title 'optimized', \

@@ -9,8 +9,8 @@ do for [term in 'svg png'] {
   set title 's-plane: root locus of the optimized loop as its gain varies' font ',13'
   set xlabel 'real (1/s)'
   set ylabel 'imaginary (rad/s)'
-  set xrange [-59.16803087:14.79200772]
-  set yrange [-35.50081852:35.50081852]
+  set xrange [-59.16755007:14.79188752]
+  set yrange [-35.50053004:35.50053004]
   set size ratio -1
   set key outside right top vertical Left reverse box opaque font ',9' samplen 2
   set arrow from graph 0,first 0 to graph 1,first 0 nohead lc rgb '#999999'

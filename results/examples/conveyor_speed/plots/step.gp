@@ -9,15 +9,15 @@ do for [term in 'svg png'] {
   set title 'Step response y(t)' font ',13'
   set xlabel 'time (s)'
   set ylabel 'y (m/s)'
-  set xrange [0:12.20223072]
+  set xrange [0:12.20200231]
   set key outside right top vertical Left reverse box opaque font ',10' samplen 2
   unset object; unset arrow; unset label
   set arrow from 2,1.02 to graph 1,first 1.02 nohead lc rgb '#6a1b9a' dt 3 lw 1.2
   set arrow from 2,0.98 to graph 1,first 0.98 nohead lc rgb '#6a1b9a' dt 3 lw 1.2
   set arrow from 2,graph 0 to 2,graph 1 nohead lc rgb '#6a1b9a' dt 3 lw 1
   set label 'settling 2 s, ±2 % band' at 2,graph 0.05 left offset 0.5,0 textcolor rgb '#6a1b9a' font ',10'
-  set arrow from 0.6706926647,graph 0 to 0.6706926647,graph 1 nohead lc rgb '#ef6c00' dt 4 lw 1.2
-  set label 'peak-time limit 0.6707 s' at 0.6706926647,graph 0.12 left offset 0.5,0 textcolor rgb '#ef6c00' font ',10'
+  set arrow from 0.6706931486,graph 0 to 0.6706931486,graph 1 nohead lc rgb '#ef6c00' dt 4 lw 1.2
+  set label 'peak-time limit 0.6707 s' at 0.6706931486,graph 0.12 left offset 0.5,0 textcolor rgb '#ef6c00' font ',10'
   plot 1.12 with lines lc rgb '#c62828' dt 2 lw 1.5 title 'overshoot limit 12 %', \
        '../series/step_reference.csv' every 2 using 1:2 with lines lc rgb '#8c8c8c' lw 1.2  title 'reference (P only)', \
        '../series/step_classical.csv' every 2 using 1:2 with lines lc rgb '#c26a1b' lw 2  title 'classical', \
