@@ -356,6 +356,22 @@ void close_loop_into(const StateSpace& plant, const StateSpace& controller, Stat
   assemble_loop(plant, {controller.A, controller.B, controller.B, controller.C, controller.D(0), controller.D(0)}, loop);
 }
 
+void load_loop_into(const StateSpace& plant, const StateSpace& controller, double load, double offset,
+                    StateSpace& loop) {
+  // A is the set-point loop's (the reference path only changes B and D; they are replaced below).
+  assemble_loop(plant, {controller.A, controller.B, controller.B, controller.C, controller.D(0), controller.D(0)}, loop);
+  const int np = plant.states(), nc = controller.states();
+  const double dp = plant.D(0);
+  const double denom = 1.0 + controller.D(0) * dp;
+  // The plant's input is u + d with u = (C_c x_c − D_c·(C_p x_p + D_p·d))/denom, so
+  // x_p' gains B_p·d/denom, y = C_p x_p + D_p·(u + d) gains D_p·d/denom, x_c' = … − B_c·y.
+  for (int i = 0; i < np; ++i) loop.B(i) = plant.B(i) * load / denom;
+  const double y_d = dp * load / denom;
+  for (int i = 0; i < nc; ++i) loop.B(np + i) = -controller.B(i) * y_d;
+  for (int j = 0; j < np + nc; ++j) loop.C(1, j) = loop.C(0, j);
+  loop.D << y_d + offset, y_d;
+}
+
 StateSpace close_loop(const StateSpace& plant, const TransferFunction& controller, const TransferFunction& reference) {
   // Observable canonical form of the two-input controller over the monic common denominator
   // d(s) = s^m + a1 s^(m−1) + … + am: A has −a in its first column and ones above the diagonal,

@@ -6,7 +6,8 @@
 // crossovers of L = N/D); the gain margins are the nearest of them above and below K = 1 that
 // end the stable range containing 1 (stable_gain_set); gain crossovers are the positive roots of
 // |N|² − |D|² (in x); the sensitivity peak is the largest value of |D|²/|D + N|² (in x) over its
-// stationary points and the ends x = 0 and x → ∞.
+// stationary points and the ends x = 0 and x → ∞, the complementary peak that of |N|²/|D + N|²,
+// the noise gain that of |Nc·Dg|²/|Dc·Dg + Nc·Ng|².
 #include "specloop/core/margins.hpp"
 
 #include <algorithm>
@@ -54,6 +55,29 @@ std::vector<double> positive_real_roots(const Polynomial& p) {
   return out;
 }
 
+
+// The largest value of sqrt(p(x)/q(x)) over x = ω² ≥ 0 (p, q squared magnitudes in ω², q > 0
+// there) and where it occurs: at x = 0, a stationary point (a root of p'·q − p·q'), or x → ∞
+// (+∞ rad/s) when the degrees match.
+std::pair<double, double> magnitude_peak(const Polynomial& p, const Polynomial& q) {
+  auto f = [&](double x) { return p(x) / q(x); };
+  double peak = std::sqrt(f(0.0)), at = 0.0;
+  for (double x : positive_real_roots(p.derivative() * q - p * q.derivative())) {
+    const double v = std::sqrt(f(x));
+    if (std::isfinite(v) && v > peak) {
+      peak = v;
+      at = std::sqrt(x);
+    }
+  }
+  if (p.degree() == q.degree()) {
+    const double v = std::sqrt(p.leading() / q.leading());
+    if (v > peak) {
+      peak = v;
+      at = std::numeric_limits<double>::infinity();
+    }
+  }
+  return {peak, at};
+}
 
 }  // namespace
 
@@ -126,6 +150,19 @@ Margins loop_margins(const TransferFunction& loop) {
     }
   }
   return m;
+}
+
+void add_closed_loop_peaks(Margins& m, const TransferFunction& controller, const TransferFunction& plant) {
+  // T = L/(1 + L) = Nc·Ng / (Dc·Dg + Nc·Ng); C·S = C/(1 + C·G) = Nc·Dg / (Dc·Dg + Nc·Ng).
+  const Polynomial loop_num = controller.numerator * plant.numerator;
+  const Polynomial den = controller.denominator * plant.denominator + loop_num;
+  const Polynomial den2 = squared_magnitude_in_w2(den);
+  const auto [mt, mt_at] = magnitude_peak(squared_magnitude_in_w2(loop_num), den2);
+  m.complementary_peak = mt;
+  m.complementary_peak_rad_s = mt_at;
+  const auto [mn, mn_at] = magnitude_peak(squared_magnitude_in_w2(controller.numerator * plant.denominator), den2);
+  m.noise_gain = mn;
+  m.noise_gain_rad_s = mn_at;
 }
 
 namespace {

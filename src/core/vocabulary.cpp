@@ -37,6 +37,7 @@ constexpr Spelling<Objective> kObjectives[] = {
     {Objective::effort, "effort"},
     {Objective::settling_time, "settling_time"},
     {Objective::sensitivity_peak, "sensitivity_peak"},
+    {Objective::load_iae, "load_iae"},
 };
 
 constexpr Spelling<SimulateMode> kSimulateModes[] = {

@@ -10,6 +10,7 @@
 
 #include "specloop/design/measure.hpp"
 #include "specloop/design/nonlinear_loop.hpp"
+#include "specloop/design/regulation.hpp"
 
 namespace specloop {
 
@@ -105,7 +106,9 @@ std::vector<CauseTrial> attribute(const Problem& problem, const Design& d, const
           trial.restores = true;
           for (std::size_t i : degraded_index) {
             const Requirement& req = problem.requirements[i];
-            RequirementCheck c = check_requirement(problem, req, rr.metrics, d.margins);
+            StepMetrics metrics = rr.metrics;
+            if (problem.needs_load) fill_missing_load(metrics, d.simulated);
+            RequirementCheck c = check_requirement(problem, req, metrics, d.margins);
             trial.restores = trial.restores && c.met;
             values.push_back(fmt::format("{} {}", req.key, show_value(req, c.value)));
             trial.checks.push_back(std::move(c));
@@ -301,6 +304,7 @@ NonlinearConfirmation confirm_nonlinear(const Problem& problem, const Design& d)
   }
   nc.active_effects = active_effects_of(spec, r, nc.horizon_s);
   nc.simulated = r.metrics;
+  if (problem.needs_load) fill_missing_load(nc.simulated, d.simulated);  // no load step: the linear loop's
   const Degraded degraded = check_on_nonlinear_loop(problem, d, nc);
   const std::vector<std::string> causes = effects_in_words(spec, nc, r);
   const std::string because = fmt::format("{}", fmt::join(causes, "; "));

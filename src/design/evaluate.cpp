@@ -4,6 +4,8 @@
 // band narrowed by it, so that a design the search calls feasible keeps room on every limit.
 #include "specloop/design/evaluate.hpp"
 
+#include "specloop/design/regulation.hpp"
+
 #include <algorithm>
 #include <cmath>
 #include <stdexcept>
@@ -16,7 +18,8 @@ constexpr double kUnstableCost = 1e9;  // the search's stability barrier (search
 
 CandidateEvaluator::CandidateEvaluator(const Problem& nominal, const SearchOptions& options)
     : nominal_(nominal), options_(options), margin_(nominal.search_margin),
-      band_(nominal.band_fraction * (1.0 - nominal.search_margin)) {
+      band_(nominal.band_fraction * (1.0 - nominal.search_margin)), load_size_(load_size(nominal.spec)),
+      load_offset_(std::abs(nominal.spec.reference.amplitude)) {
   for (const Requirement& r : nominal.requirements) requirements_.push_back(tightened(r, margin_));
 }
 
@@ -64,6 +67,17 @@ CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double
     out.objective = kUnstableCost * (1.0 + rightmost);
     return out;
   }
+  if (nominal_.needs_load) {
+    // The second simulation: the same loop driven by the load (its A is the set-point loop's), in
+    // the evaluator's storage, with the band narrowed like the set point's.
+    if (weighted) realize_low_order(num_, den_, controller_);
+    load_loop_into(plant.plant_realization, controller_, load_size_, load_offset_, load_loop_);
+    if (load_sim_.simulate(load_loop_, 1.0, band_, load_metrics_) != StepStatus::ok) {
+      out.objective = kUnstableCost;
+      return out;
+    }
+    take_load_metrics(nominal_, load_metrics_, metrics_);
+  }
   return judge(plant.plant, sim_.grid().horizon_s());
 }
 
@@ -74,7 +88,7 @@ CandidateOutcome CandidateEvaluator::judge(const TransferFunction& plant, double
   std::optional<Margins> margins;
   const bool sensitivity = !options_.objective_requirement && options_.objective == Objective::sensitivity_peak;
   if (nominal_.needs_margins || options_.objective_requirement || sensitivity)
-    margins = loop_margins(TransferFunction(Polynomial(num_), Polynomial(den_)) * plant);
+    margins = design_margins(nominal_, TransferFunction(Polynomial(num_), Polynomial(den_)), plant);
   out.violation = violation(metrics_, margins);
   out.objective = objective_given(metrics_, margins, horizon_s);
   out.effort_peak = metrics_.effort_peak;
@@ -98,7 +112,7 @@ double CandidateEvaluator::objective(const StepMetrics& m, const std::optional<M
                                      const TransferFunction& c, const TransferFunction& plant,
                                      double horizon_s) const {
   if (!margins && !options_.objective_requirement && options_.objective == Objective::sensitivity_peak)
-    return loop_margins(c * plant).sensitivity_peak;
+    return design_margins(nominal_, c, plant).sensitivity_peak;
   return objective_given(m, margins, horizon_s);
 }
 
@@ -120,6 +134,7 @@ double CandidateEvaluator::objective_given(const StepMetrics& m, const std::opti
     case Objective::effort: return m.command_peak.value_or(m.effort_peak);  // what effort_max reads
     case Objective::settling_time: return m.settling_time_s.value_or(1e3 * horizon_s);
     case Objective::sensitivity_peak: return margins->sensitivity_peak;  // present: see objective()
+    case Objective::load_iae: return m.load_iae.value_or(1e3 * horizon_s * load_offset_);  // present: see the reader
   }
   return 0.0;
 }

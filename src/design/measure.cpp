@@ -3,6 +3,8 @@
 // prediction and its diagnosis, the requirement checks; and the fragility warnings.
 #include "specloop/design/measure.hpp"
 
+#include "specloop/design/regulation.hpp"
+
 #include <cmath>
 #include <fmt/format.h>
 #include <stdexcept>
@@ -52,7 +54,8 @@ void judge_knife_edges(const Problem& problem, Design& d) {
                   : sim.simulate(close_loop(realized, d.controller.transfer, d.reference_path),
                                  problem.spec.reference.amplitude, problem.band_fraction, m);
     const std::optional<Margins> margins =
-        status == StepStatus::ok ? loop_margins(d.controller.transfer * p) : std::optional<Margins>{};
+        status == StepStatus::ok ? design_margins(problem, d.controller.transfer, p) : std::optional<Margins>{};
+    if (status == StepStatus::ok && problem.needs_load) measure_load(problem, realized, d.controller.transfer, m);
     for (std::size_t i : near) {
       RequirementCheck& c = d.checks[i];
       if (!c.met) continue;
@@ -135,7 +138,13 @@ Design measure_design(const Problem& problem, DesignRole role, const Controller&
       const TransferFunction t(d.reference_path.numerator * g.numerator, cl.output.denominator);
       d.dominance = diagnose_dominance(t, *pair, *d.second_order, continuous);
     }
-    d.margins = loop_margins(controller.transfer * problem.plant);
+    d.margins = design_margins(problem, controller.transfer, problem.plant);
+    if (problem.needs_load) {
+      // The continuous loop's load response (the reader refuses load requirements on a sampled
+      // controller, so d.simulated is that loop's set-point response).
+      const StepStatus load = measure_load(problem, problem.plant_realization, controller.transfer, d.simulated);
+      if (load != StepStatus::ok) d.notes.push_back(fmt::format("load response {}: not measured", status_name(load)));
+    }
   } else {
     d.notes.push_back(fmt::format("{} loop {}: no metrics", d.sampled ? "sampled" : "linear", status_name(d.status)));
   }

@@ -32,6 +32,11 @@ Problem make_problem(const Spec& spec, const Characterization& ch) {
                     std::any_of(p.requirements.begin(), p.requirements.end(), [](const Requirement& r) {
                       return r.entry->source == RequirementSource::frequency_response;
                     });
+  p.needs_peaks = spec.requirements.noise_gain_max || spec.requirements.complementary_peak_max;
+  p.needs_load = spec.search.objective == Objective::load_iae ||
+                 std::any_of(p.requirements.begin(), p.requirements.end(), [](const Requirement& r) {
+                   return r.entry->source == RequirementSource::load_response;
+                 });
   const Structure s = spec.controller.structure;
   p.parameters = structure_parameters(s);
 

@@ -56,6 +56,9 @@ std::optional<double> requirement_value(const Requirement& r, const StepMetrics&
   // the controller's output: on the nonlinear loop before the actuator's limits (a design that
   // rides the saturation does not meet effort_max by clipping), on the linear loop u itself
   if (k == "effort_max") return m.command_peak.value_or(m.effort_peak);
+  if (k == "load_iae_max") return m.load_iae;
+  if (k == "load_peak_max") return m.load_peak;
+  if (k == "load_recovery_time_max") return m.load_recovery_time_s;
   if (!margins) return std::nullopt;
   if (k == "phase_margin_min_deg") return margins->phase_margin_deg.value_or(kInf);
   if (k == "gain_margin_min_db") {
@@ -65,6 +68,8 @@ std::optional<double> requirement_value(const Requirement& r, const StepMetrics&
     return margins->lower_gain_margin_db ? std::min(upper, -*margins->lower_gain_margin_db) : upper;
   }
   if (k == "sensitivity_peak_max") return margins->sensitivity_peak;
+  if (k == "noise_gain_max") return margins->noise_gain;
+  if (k == "complementary_peak_max") return margins->complementary_peak;
   throw std::logic_error("requirement_value: unknown requirement " + k);
 }
 

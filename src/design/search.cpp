@@ -22,6 +22,7 @@
 
 #include "specloop/design/evaluate.hpp"
 #include "specloop/design/nonlinear_loop.hpp"
+#include "specloop/design/regulation.hpp"
 #include "specloop/design/search.hpp"
 
 namespace specloop {
@@ -137,9 +138,11 @@ class CostFunction {
     }
     out.stable = true;
     std::optional<Margins> margins;
-    if (problem_.needs_margins) margins = loop_margins(c.transfer * problem_.plant);
-    out.violation = evaluator_.violation(r.metrics, margins);
-    out.objective = evaluator_.objective(r.metrics, margins, c.transfer, problem_.plant, run.setup.options.horizon_s);
+    if (problem_.needs_margins) margins = design_margins(problem_, c.transfer, problem_.plant);
+    StepMetrics metrics = r.metrics;
+    if (problem_.needs_load) fill_missing_load(metrics, evaluator_.metrics());  // no load step in the run
+    out.violation = evaluator_.violation(metrics, margins);
+    out.objective = evaluator_.objective(metrics, margins, c.transfer, problem_.plant, run.setup.options.horizon_s);
     out.effort_peak = r.metrics.effort_peak;
     return out;
   }

@@ -314,6 +314,10 @@ void finish(RunState& run, double y_inf, double band_fraction) {
     double command_peak = run.peak_command;
     for (double uc : result.command) command_peak = std::max(command_peak, std::abs(uc));
     result.metrics.command_peak = command_peak;
+    const LoopOptions& o = run.options;
+    if (o.measure_load && o.disturbance_size != 0.0 && o.disturbance_time_s < horizon)
+      add_load_metrics(result.time_s, result.output, y_inf, o.disturbance_time_s, o.load_band, o.load_settles,
+                       run.exact_y, result.metrics);
     result.measured = true;
     result.notes.push_back("metrics relative to the linear loop's final value y_inf = " + to_string(y_inf));
   } else {

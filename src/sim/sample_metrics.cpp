@@ -247,4 +247,46 @@ StepMetrics metrics_from_samples(const std::vector<double>& t, const std::vector
   return m;
 }
 
+void add_load_metrics(const std::vector<double>& t, const std::vector<double>& y, double y_inf, double from_s,
+                      double band, bool settles, const std::vector<std::pair<double, double>>& exact, StepMetrics& m) {
+  const std::size_t n = std::min(t.size(), y.size());
+  std::size_t first = 0;
+  while (first < n && t[first] < from_s) ++first;
+  if (first >= n) return;
+  double peak = 0.0;
+  for (std::size_t k = first; k < n; ++k) peak = std::max(peak, std::abs(y[k] - y_inf));
+  for (const auto& [te, ye] : exact)
+    if (te >= from_s) peak = std::max(peak, std::abs(ye - y_inf));
+  m.load_peak = peak;
+  if (!settles) return;
+  // ∫|e| of the linear interpolant between (ta, ea) and (tb, eb).
+  auto piece = [](double ta, double ea, double tb, double eb) {
+    const double h = tb - ta;
+    if ((ea >= 0.0) == (eb >= 0.0)) return 0.5 * h * (std::abs(ea) + std::abs(eb));
+    const double tc = h * std::abs(ea) / (std::abs(ea) + std::abs(eb));
+    return 0.5 * (tc * std::abs(ea) + (h - tc) * std::abs(eb));
+  };
+  double iae = 0.0;
+  if (first > 0 && t[first] > from_s) {
+    const double w = (from_s - t[first - 1]) / (t[first] - t[first - 1]);
+    const double e0 = (1.0 - w) * (y[first - 1] - y_inf) + w * (y[first] - y_inf);
+    iae += piece(from_s, e0, t[first], y[first] - y_inf);
+  }
+  for (std::size_t k = first; k + 1 < n; ++k) iae += piece(t[k], y[k] - y_inf, t[k + 1], y[k + 1] - y_inf);
+  m.load_iae = iae;
+  std::size_t last = n;  // the last sample outside the band
+  for (std::size_t k = n; k-- > first;)
+    if (std::abs(y[k] - y_inf) > band) {
+      last = k;
+      break;
+    }
+  if (last == n) {
+    m.load_recovery_time_s = 0.0;
+  } else if (last + 1 < n) {
+    const double a = std::abs(y[last] - y_inf), b = std::abs(y[last + 1] - y_inf);
+    const double at = t[last] + (t[last + 1] - t[last]) * (a - band) / (a - b);
+    m.load_recovery_time_s = std::max(0.0, at - from_s);
+  }
+}
+
 }  // namespace specloop::nonlinear_loop

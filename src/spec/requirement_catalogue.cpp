@@ -48,6 +48,22 @@ constexpr RequirementEntry kCatalogue[] = {
     {"sensitivity_peak_max", U::none, B::upper, false, S::frequency_response, {1.0, false, kNoLimit, false},
      " (|S| is at least 1 somewhere for any loop of relative degree >= 1)", "Ms", 10, &R::sensitivity_peak_max, nullptr,
      "Ms = max |1/(1 + L(jω))|, {range}"},
+    {"load_iae_max", U::output_time, B::upper, false, S::load_response, {0.0, false, kNoLimit, false}, "", "IAEd", 11,
+     &R::load_iae_max, nullptr,
+     "∫|y| dt after a step load of `disturbance.size` (1 when not given) at the plant input, linear loop, {range}; "
+     "needs integral action in the controller"},
+    {"load_peak_max", U::output, B::upper, false, S::load_response, {0.0, false, kNoLimit, false}, "", "yd", 12,
+     &R::load_peak_max, nullptr, "peak |y| after that load step, {range}"},
+    {"load_recovery_time_max", U::time, B::upper, false, S::load_response, {0.0, false, kNoLimit, false}, "", "trd",
+     13, &R::load_recovery_time_max_s, nullptr,
+     "time after that load step until |y| stays within settling_band_pct of |reference.amplitude|, {range}; needs "
+     "integral action in the controller"},
+    {"noise_gain_max", U::input_per_output, B::upper, false, S::frequency_response, {0.0, false, kNoLimit, false}, "",
+     "Mn", 14, &R::noise_gain_max, nullptr,
+     "max over ω of |C(jω)/(1 + L(jω))|: measurement noise to u, input units per output unit, {range}"},
+    {"complementary_peak_max", U::none, B::upper, false, S::frequency_response, {1.0, false, kNoLimit, false},
+     " (a loop with integral action has |T(0)| = 1)", "Mt", 15, &R::complementary_peak_max, nullptr,
+     "Mt = max |L(jω)/(1 + L(jω))|, {range}"},
 };
 
 }  // namespace
@@ -92,6 +108,8 @@ std::string requirement_unit_name(RequirementUnit unit, const UnitsSpec& units) 
     case RequirementUnit::time: return units.time;
     case RequirementUnit::output: return units.output;
     case RequirementUnit::input: return units.input;
+    case RequirementUnit::output_time: return units.output + "·" + units.time;
+    case RequirementUnit::input_per_output: return units.input + "/" + units.output;
     default: return std::string(requirement_unit_code(unit));
   }
 }
@@ -101,6 +119,8 @@ std::string_view requirement_unit_key_text(RequirementUnit unit) {
     case RequirementUnit::none: return "—";
     case RequirementUnit::output: return "output units";
     case RequirementUnit::input: return "input units";
+    case RequirementUnit::output_time: return "output units × s";
+    case RequirementUnit::input_per_output: return "input units / output unit";
     default: return requirement_unit_code(unit);
   }
 }
@@ -113,7 +133,9 @@ std::string_view requirement_unit_code(RequirementUnit unit) {
     case RequirementUnit::decibels: return "dB";
     case RequirementUnit::none:
     case RequirementUnit::output:
-    case RequirementUnit::input: break;
+    case RequirementUnit::input:
+    case RequirementUnit::output_time:
+    case RequirementUnit::input_per_output: break;
   }
   return "";
 }

@@ -31,6 +31,11 @@ void read_controller(const DocumentReader& reader, ControllerSpec& controller, c
 /// [requirements], key by key from the requirement catalogue; notes where
 /// steady_state_error_max was written in `sources`.
 void read_requirements(const DocumentReader& reader, Requirements& requirements, SpecSources& sources);
+/// The load requirements (load_iae_max, load_peak_max, load_recovery_time_max) and the load_iae
+/// objective where the load response cannot be defined: a sampled controller (not measured), and
+/// for the IAE and the recovery time a structure without integral action (the load leaves an
+/// offset). Fails naming the first such key.
+void check_load_requirements(const DocumentReader& reader, const Spec& spec, const std::string& path);
 
 void read_reference(const DocumentReader& reader, ReferenceSpec& reference);
 /// [search]; its bounds must name parameters of `structure`.

@@ -45,6 +45,7 @@ SpecAsRead read_document(const toml::table& document, const std::string& path) {
     reading::fail_at(path, reading::find_entry(*reader.section("search"), "objective_at")->at, "search.objective_at",
                      "\"worst\" reads the objective over the plants of [uncertainty], and the file has none");
   if (times) reading::check_zero_error_integrator(path, spec, *sources);
+  reading::check_load_requirements(reader, spec, path);
   read.sources = std::move(sources);
   return read;
 }

@@ -110,6 +110,16 @@ StateSpace close_loop(const StateSpace& plant, const StateSpace& controller);
 /// when `loop` already has the sizes. The same matrices, bit for bit.
 void close_loop_into(const StateSpace& plant, const StateSpace& controller, StateSpace& loop);
 
+/// The same loop driven by a load d at the plant's input instead of the reference (r = 0):
+/// y = G/(1 + C·G)·d, with the input's step scaled by `load` (a unit input step is the load
+/// `load`). Outputs: row 0 = y + `offset` (a constant, so that a step simulation, which measures
+/// relative to the final value, sees y∞ = offset + y_d∞ ≠ 0: its IAE about that is ∫|y_d| dt when
+/// y_d∞ = 0 and its settling band |y/y∞ − 1| ≤ b is |y_d| ≤ b·offset), row 1 = y (its peak |y| is
+/// the simulation's effort peak). A is close_loop's; nothing is allocated when `loop` already
+/// has the sizes (the search's second simulation).
+void load_loop_into(const StateSpace& plant, const StateSpace& controller, double load, double offset,
+                    StateSpace& loop);
+
 /// Two-degree-of-freedom loop u = C_r·r − C·y, y = P·u, with C_r and C over one denominator
 /// (reference_path). Outputs: row 0 = y, row 1 = u. C_r = C is close_loop(plant, realize(C)).
 StateSpace close_loop(const StateSpace& plant, const TransferFunction& controller, const TransferFunction& reference);

@@ -35,12 +35,22 @@ struct Margins {
   /// lower gain. Both margins are the ends of stable_gain_set's range that contains K = 1.
   std::optional<double> lower_gain_margin_db;
   std::optional<double> lower_phase_crossover_rad_s;
+  /// Filled by add_closed_loop_peaks only (empty otherwise): Mt = max over ω ≥ 0 of |T(jω)|,
+  /// T = L/(1 + L), and max over ω ≥ 0 of |C(jω)·S(jω)| = |C/(1 + C·G)| — how much measurement
+  /// noise reaches the controller's output u, input units per output unit — each with where it
+  /// occurs (+∞ when at ω → ∞).
+  std::optional<double> complementary_peak, complementary_peak_rad_s;
+  std::optional<double> noise_gain, noise_gain_rad_s;
 };
 
 /// Margins of a loop whose closed loop is stable (the margins of an unstable loop are not
 /// meaningful and the caller should report the instability instead: both gain margins are then
 /// empty).
 Margins loop_margins(const TransferFunction& loop);
+/// Fills m's complementary peak and noise gain for the loop of `controller` and `plant` (which
+/// loop_margins(controller·plant) cannot tell apart), exactly, from the stationary points of the
+/// squared magnitudes in ω² and the ends ω = 0 and ω → ∞.
+void add_closed_loop_peaks(Margins& m, const TransferFunction& controller, const TransferFunction& plant);
 
 /// The closed loop of K·L (unity negative feedback) for every gain multiplier K > 0: (0, ∞) cut
 /// at the gains where a closed-loop pole crosses the imaginary axis — at s = 0 (K = −D(0)/N(0)),

@@ -39,7 +39,7 @@ std::optional<AntiWindup> parse_anti_windup(std::string_view name);
 const std::vector<std::string>& anti_windup_names();
 
 /// What a search minimizes among feasible designs.
-enum class Objective { itae, iae, ise, effort, settling_time, sensitivity_peak };
+enum class Objective { itae, iae, ise, effort, settling_time, sensitivity_peak, load_iae };
 std::string_view objective_name(Objective o);
 std::optional<Objective> parse_objective(std::string_view name);
 const std::vector<std::string>& objective_names();

@@ -13,6 +13,7 @@
 #include "specloop/design/measure.hpp"
 #include "specloop/design/nonlinear_loop.hpp"
 #include "specloop/design/problem.hpp"
+#include "specloop/design/regulation.hpp"
 #include "specloop/design/requirements.hpp"
 #include "specloop/design/role.hpp"
 #include "specloop/design/search.hpp"

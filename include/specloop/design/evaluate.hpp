@@ -28,8 +28,9 @@ struct CandidateOutcome {
 /// The cost evaluation's workspace and judgement: one per search, not for concurrent use. On the
 /// continuous loop without set-point weighting and without margins to compute (no margin
 /// requirement, not the Ms objective), an evaluation allocates nothing once the storage has the
-/// loop's size and the longest time grid seen (tests/design/test_hot_path.cpp); the weighted and
-/// the sampled loops and the margins allocate per call.
+/// loop's size and the longest time grid seen (tests/design/test_hot_path.cpp), the load
+/// response's second simulation included; the weighted and the sampled loops and the margins
+/// allocate per call.
 class CandidateEvaluator {
  public:
   /// `nominal`: the problem whose requirements (tightened by its search margin), band, objective
@@ -74,6 +75,12 @@ class CandidateEvaluator {
   StepMetrics metrics_;
   std::vector<double> num_, den_;  // the candidate's C(s)
   StateSpace controller_, loop_;   // its realization and the closed loop, reused
+  // The load response (Problem::needs_load): a second simulation of the same loop driven at the
+  // plant's input (load_loop_into), in storage of its own, so that it allocates nothing either.
+  double load_size_, load_offset_;
+  StepSimulator load_sim_;
+  StepMetrics load_metrics_;
+  StateSpace load_loop_;
 };
 
 }  // namespace specloop

@@ -30,6 +30,8 @@ struct Problem {
   double search_margin = 0.01;                  // search.margin_pct/100: see `tightened` (requirements.hpp)
   double tracking_window_s = 1.0;               // W of the tracking objectives (see tracking_objective)
   bool needs_margins = false;                   // a margin requirement or the Ms objective
+  bool needs_peaks = false;                     // noise_gain_max or complementary_peak_max (add_closed_loop_peaks)
+  bool needs_load = false;                      // a load requirement or the load_iae objective (regulation.hpp)
   std::vector<ParameterInfo> parameters;        // of the spec's structure
   std::vector<std::pair<double, double>> bounds;  // per parameter, natural units, lo < hi
   /// controller.sample_time is set and the plant is strictly proper: the linear loop of every

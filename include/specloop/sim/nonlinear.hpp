@@ -80,6 +80,12 @@ struct LoopOptions {
   std::optional<double> tracking_time_s;  // back-calculation Tt, s; default √(Ti·Td), or Ti without D
   double disturbance_time_s = 0.0;  // a step of disturbance_size added at the plant input from here
   double disturbance_size = 0.0;    // in plant-input units; 0: no disturbance
+  /// Measure the load response after the disturbance step (StepMetrics::load_*, README
+  /// "Regulators") into the metrics: the peak always, the IAE and the recovery time (last exit
+  /// from ±load_band, output units) with load_settles (integral action).
+  bool measure_load = false;
+  bool load_settles = false;
+  double load_band = 0.0;
   double horizon_s = 0.0;      // simulated time, s; <= 0: the linear step simulation's horizon
   double output_step_s = 0.0;  // observer sampling step, s; <= 0: horizon/4000
   std::vector<double> sample_times_s;  // if non-empty, sample exactly here instead (increasing, >= 0)

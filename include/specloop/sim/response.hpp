@@ -47,6 +47,12 @@ struct StepMetrics {
   double iae = 0.0;                      // ∫|e| dt, e = y∞ − y (see README)
   double ise = 0.0;                      // ∫e² dt
   double itae = 0.0;                     // ∫t·|e| dt
+  // The response to a step load at the plant input (README, "Regulators"): filled only where a
+  // load requirement or the load_iae objective needs it (design/regulation.hpp; the nonlinear
+  // loop after its load step); the simulators leave them empty. Times from the load step.
+  std::optional<double> load_iae;              // ∫|y − y∞| dt, output units × time
+  std::optional<double> load_peak;             // max |y − y∞|
+  std::optional<double> load_recovery_time_s;  // last exit from the regulator's band; empty: not recovered
 };
 
 enum class StepStatus {

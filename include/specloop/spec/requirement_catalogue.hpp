@@ -22,6 +22,8 @@ enum class RequirementUnit {
   time,      // the spec's time unit ([units] time, "s" by default)
   output,    // the output's unit ([units] output)
   input,     // the actuator's unit ([units] input)
+  output_time,       // output unit × time unit (an integral of y)
+  input_per_output,  // input unit per output unit (a gain from y to u)
   degrees,   // deg
   decibels,  // dB
 };
@@ -34,6 +36,7 @@ enum class RequirementBound { upper, lower, none };
 enum class RequirementSource {
   step_response,       // the step's metrics (StepMetrics)
   frequency_response,  // the loop's margins (Margins): a design needs them computed
+  load_response,       // the load step's response (StepMetrics::load_*): a design needs it simulated
 };
 
 /// The values a key accepts: from `low` to `high`, each end open or closed; an infinite end is no
@@ -79,11 +82,12 @@ const RequirementEntry* find_requirement(std::string_view key);
 /// The limits (no settings) in check order (`check_rank`): the order of every list of checks.
 const std::vector<const RequirementEntry*>& requirement_check_order();
 
-/// The unit as shown to the user: "%", the [units] names for time, output and input, "deg", "dB",
-/// "" for none.
+/// The unit as shown to the user: "%", the [units] names for time, output and input (and their
+/// product "output·time" and ratio "input/output"), "deg", "dB", "" for none.
 std::string requirement_unit_name(RequirementUnit unit, const UnitsSpec& units);
 
-/// The unit as the key table writes it: "%", "s", "output units", "input units", "deg", "dB", "—".
+/// The unit as the key table writes it: "%", "s", "output units", "input units", "output units × s",
+/// "input units / output unit", "deg", "dB", "—".
 std::string_view requirement_unit_key_text(RequirementUnit unit);
 
 /// The fixed unit text a check carries (result.json's "unit"): "%", "s", "deg", "dB"; "" for none

@@ -100,6 +100,13 @@ struct Requirements {
   std::optional<double> phase_margin_min_deg;    // deg, in (0, 90)
   std::optional<double> gain_margin_min_db;      // dB, in (0, 60)
   std::optional<double> sensitivity_peak_max;    // Ms = max |1/(1 + L(jω))|, > 1
+  // The load response (a step load at the plant input, README "Regulators") and the noise and
+  // robustness peaks of the loop.
+  std::optional<double> load_iae_max;            // ∫|y| dt after the load step, output units·s, > 0
+  std::optional<double> load_peak_max;           // peak |y| after the load step, output units, > 0
+  std::optional<double> load_recovery_time_max_s;  // s, > 0: back within the band for good
+  std::optional<double> noise_gain_max;          // max |C·S(jω)|, input units per output unit, > 0
+  std::optional<double> complementary_peak_max;  // Mt = max |T(jω)|, > 1
 };
 
 struct SearchSpec {

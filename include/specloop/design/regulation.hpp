@@ -1,0 +1,43 @@
+// What a regulator is judged on (README, "Regulators"): the linear loop's response to a step load
+// at the plant input, y_d = G/(1 + C·G)·d, simulated exactly by the step simulator, and the loop's
+// closed-loop peaks (noise gain, Mt). Only computed for a spec that requires them, so set-point
+// specs cost nothing more.
+#pragma once
+
+#include "specloop/core/lti.hpp"
+#include "specloop/core/margins.hpp"
+#include "specloop/design/problem.hpp"
+#include "specloop/sim/response.hpp"
+
+namespace specloop {
+
+/// The load step's size: disturbance.size, or 1 (a unit load) when the spec gives none.
+double load_size(const Spec& spec);
+
+/// The regulator's band half-width in output units: settling_band_pct of |reference.amplitude|
+/// (README, "Metric definitions": the band the set-point step settles into, fixed by the spec and
+/// the same for every design). It is also the offset load_loop_into adds to y for the simulation.
+double load_band(const Problem& problem);
+
+/// Copies the load metrics out of `load_run`, a simulation of load_loop_into(…, load_size,
+/// load_band·…) with band fraction band_fraction: the peak |y| (its effort peak) always, the IAE
+/// and the recovery time (its settling time) when the controller integrates (the load's final
+/// value is then 0); writes them into `m`'s load_* fields.
+void take_load_metrics(const Problem& problem, const StepMetrics& load_run, StepMetrics& m);
+
+/// Simulates the load response of `controller` on the loop with `plant_realization` (the
+/// continuous linear loop) and fills m's load_* fields; `trace`, when given, receives t and y (in
+/// `output`, without the offset). Returns the simulation's status (the loop's poles are the
+/// set-point loop's, so it is ok whenever that loop was).
+StepStatus measure_load(const Problem& problem, const StateSpace& plant_realization, const TransferFunction& controller,
+                        StepMetrics& m, StepTrace* trace = nullptr);
+
+/// The margins of `controller` on `plant` as every design's measurement computes them: loop_margins
+/// of C·G, with the closed-loop peaks when the problem requires one (Problem::needs_peaks).
+Margins design_margins(const Problem& problem, const TransferFunction& controller, const TransferFunction& plant);
+
+/// Where a nonlinear run has no load step (disturbance.size = 0) its metrics carry no load
+/// response: the load requirements then read the linear loop's (copied from `linear`).
+void fill_missing_load(StepMetrics& nonlinear, const StepMetrics& linear);
+
+}  // namespace specloop

@@ -1,0 +1,56 @@
+// The load response and the closed-loop peaks of a design (regulation.hpp).
+#include "specloop/design/regulation.hpp"
+
+#include <cmath>
+
+namespace specloop {
+
+double load_size(const Spec& spec) { return spec.disturbance.size != 0.0 ? spec.disturbance.size : 1.0; }
+
+double load_band(const Problem& problem) {
+  return problem.band_fraction * std::abs(problem.spec.reference.amplitude);
+}
+
+void take_load_metrics(const Problem& problem, const StepMetrics& load_run, StepMetrics& m) {
+  m.load_peak = load_run.effort_peak;
+  m.load_iae.reset();
+  m.load_recovery_time_s.reset();
+  if (!has_integrator(problem.spec.controller.structure)) return;
+  m.load_iae = load_run.iae;
+  // Never outside the band: recovered at once.
+  m.load_recovery_time_s = load_run.settling_time_s;
+}
+
+StepStatus measure_load(const Problem& problem, const StateSpace& plant_realization, const TransferFunction& controller,
+                        StepMetrics& m, StepTrace* trace) {
+  const double offset = std::abs(problem.spec.reference.amplitude);
+  StateSpace loop;
+  load_loop_into(plant_realization, realize(controller), load_size(problem.spec), offset, loop);
+  StepSimulator sim;
+  StepMetrics run;
+  const StepStatus status = sim.simulate(loop, 1.0, problem.band_fraction, run, trace);
+  if (status != StepStatus::ok) {
+    m.load_iae.reset();
+    m.load_peak.reset();
+    m.load_recovery_time_s.reset();
+    return status;
+  }
+  take_load_metrics(problem, run, m);
+  if (trace) trace->output = trace->effort;  // row 1: y itself
+  return status;
+}
+
+Margins design_margins(const Problem& problem, const TransferFunction& controller, const TransferFunction& plant) {
+  Margins margins = loop_margins(controller * plant);
+  if (problem.needs_peaks) add_closed_loop_peaks(margins, controller, plant);
+  return margins;
+}
+
+void fill_missing_load(StepMetrics& nonlinear, const StepMetrics& linear) {
+  if (nonlinear.load_peak) return;
+  nonlinear.load_iae = linear.load_iae;
+  nonlinear.load_peak = linear.load_peak;
+  nonlinear.load_recovery_time_s = linear.load_recovery_time_s;
+}
+
+}  // namespace specloop
