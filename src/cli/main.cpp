@@ -207,6 +207,23 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   margin_row("phase margin (deg)", [](const Margins& m) { return m.phase_margin_deg; });
   margin_row("sensitivity peak Ms", [](const Margins& m) { return std::optional<double>(m.sensitivity_peak); });
   margin_row(fmt::format("delay margin ({})", spec.units.time), [](const Margins& m) { return m.delay_margin_s; });
+  if (run.problem.needs_peaks) {
+    margin_row("complementary peak Mt", [](const Margins& m) { return m.complementary_peak; });
+    margin_row("noise gain", [](const Margins& m) { return m.noise_gain; });
+  }
+  if (run.problem.needs_load) {  // a regulator: the load response of every design, linear loop
+    auto load_row = [&](const std::string& name, auto get) {
+      fmt::print("  {:<24} {:>12}", name, "");
+      for (const Design& d : run.designs) {
+        const std::optional<double> v = d.status == StepStatus::ok ? get(d.simulated) : std::nullopt;
+        fmt::print(" {:>14}", v ? fmt::format("{:.4g}", *v) : "—");
+      }
+      fmt::print("\n");
+    };
+    load_row(fmt::format("load IAE ({}·{})", spec.units.output, spec.units.time),
+             [](const StepMetrics& m) { return m.load_iae; });
+    load_row(fmt::format("load peak ({})", spec.units.output), [](const StepMetrics& m) { return m.load_peak; });
+  }
   fmt::print("  {:<24} {:>12}", "nonlinear loop", "");
   for (const Design& d : run.designs)
     fmt::print(" {:>14}", !d.nonlinear ? "—" : d.nonlinear->confirmed ? "confirmed" : "NOT confirmed");

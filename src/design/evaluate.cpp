@@ -76,7 +76,7 @@ CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double
       out.objective = kUnstableCost;
       return out;
     }
-    take_load_metrics(nominal_, load_metrics_, metrics_);
+    take_load_metrics(load_metrics_, has_integrator(structure), metrics_);
   }
   return judge(plant.plant, sim_.grid().horizon_s());
 }

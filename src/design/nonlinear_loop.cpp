@@ -35,7 +35,6 @@ NonlinearSetup nonlinear_setup(const Problem& problem, double linear_horizon_s, 
   options.disturbance_time_s = spec.disturbance.time_s;
   options.disturbance_size = spec.disturbance.size;
   options.measure_load = problem.needs_load;
-  options.load_settles = has_integrator(spec.controller.structure);
   options.load_band = problem.band_fraction * std::abs(spec.reference.amplitude);
   options.noise_rms = spec.disturbance.noise_rms;
   options.noise_period_s = spec.disturbance.noise_period_s;

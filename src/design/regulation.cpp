@@ -11,11 +11,11 @@ double load_band(const Problem& problem) {
   return problem.band_fraction * std::abs(problem.spec.reference.amplitude);
 }
 
-void take_load_metrics(const Problem& problem, const StepMetrics& load_run, StepMetrics& m) {
+void take_load_metrics(const StepMetrics& load_run, bool integrates, StepMetrics& m) {
   m.load_peak = load_run.effort_peak;
   m.load_iae.reset();
   m.load_recovery_time_s.reset();
-  if (!has_integrator(problem.spec.controller.structure)) return;
+  if (!integrates) return;
   m.load_iae = load_run.iae;
   // Never outside the band: recovered at once.
   m.load_recovery_time_s = load_run.settling_time_s;
@@ -35,7 +35,7 @@ StepStatus measure_load(const Problem& problem, const StateSpace& plant_realizat
     m.load_recovery_time_s.reset();
     return status;
   }
-  take_load_metrics(problem, run, m);
+  take_load_metrics(run, controller.system_type() > 0, m);
   if (trace) trace->output = trace->effort;  // row 1: y itself
   return status;
 }

@@ -9,6 +9,7 @@
 
 #include "specloop/core/margins.hpp"
 #include "specloop/design/nonlinear_loop.hpp"
+#include "specloop/design/regulation.hpp"
 #include "specloop/sim/response.hpp"
 #include "specloop/sim/sampled_loop.hpp"
 
@@ -165,6 +166,15 @@ DesignTraces design_traces(const DesignRun& run) {
         }
         out.scenarios.emplace_back(i, std::move(thin));
       }
+  if (problem.needs_load)
+    for (const Design& d : run.designs) {
+      if (d.status != StepStatus::ok) continue;
+      StepMetrics m;
+      StepTrace trace;
+      if (measure_load(problem, problem.plant_realization, d.controller.transfer, m, &trace) != StepStatus::ok) continue;
+      ResponseTrace t{d.role, false, std::move(trace.time_s), std::move(trace.output), {}, {}};
+      if (trace_is_finite(t)) out.load.push_back(std::move(t));
+    }
   out.locus = locus_trace(problem, best);
   for (const DesignRole role : {DesignRole::classical, DesignRole::optimized}) {
     const Design* d = run.find(role);

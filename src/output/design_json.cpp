@@ -105,7 +105,7 @@ json margins_json(const std::optional<Margins>& margins) {
   if (!margins) return nullptr;
   const Margins& m = *margins;
   // An absent crossover means an infinite margin.
-  return {{"gain_margin_db", m.gain_margin_db ? number_json(*m.gain_margin_db) : json("infinite")},
+  json out = {{"gain_margin_db", m.gain_margin_db ? number_json(*m.gain_margin_db) : json("infinite")},
           {"phase_crossover", optional_number(m.phase_crossover_rad_s)},
           {"phase_margin_deg", m.phase_margin_deg ? number_json(*m.phase_margin_deg) : json("infinite")},
           {"gain_crossover", optional_number(m.gain_crossover_rad_s)},
@@ -114,6 +114,13 @@ json margins_json(const std::optional<Margins>& margins) {
           {"delay_margin", m.delay_margin_s ? number_json(*m.delay_margin_s) : json("infinite")},
           {"lower_gain_margin_db", optional_number(m.lower_gain_margin_db)},
           {"lower_phase_crossover", optional_number(m.lower_phase_crossover_rad_s)}};
+  if (m.complementary_peak) {  // only where a requirement asks for them (add_closed_loop_peaks)
+    out["complementary_peak"] = optional_number(m.complementary_peak);
+    out["complementary_peak_frequency"] = optional_number(m.complementary_peak_rad_s);
+    out["noise_gain"] = optional_number(m.noise_gain);
+    out["noise_gain_frequency"] = optional_number(m.noise_gain_rad_s);
+  }
+  return out;
 }
 
 }  // namespace

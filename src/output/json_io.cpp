@@ -74,6 +74,11 @@ json metrics_json(const StepMetrics& m) {
           {"ise", number_json(m.ise)},
           {"itae", number_json(m.itae)}};
   if (m.command_peak) out["command_peak"] = number_json(*m.command_peak);  // the nonlinear loop's
+  if (m.load_peak) {  // only where the spec asks for the load response (README, "Regulators")
+    out["load_peak"] = number_json(*m.load_peak);
+    out["load_iae"] = optional_json(m.load_iae);
+    out["load_recovery_time"] = optional_json(m.load_recovery_time_s);
+  }
   return out;
 }
 

@@ -96,6 +96,10 @@ ReportOutcome write_design_outputs(const DesignRun& run, const fs::path& dir, co
                                                              {"splane", splane_script(run, data, zeta, view)},
                                                              {"frequency", frequency_script(run, data)}};
     if (run.robust) scripts.emplace_back("envelope", envelope_script(run, data));
+    if (run.problem.needs_load) {
+      write_load_series(run, data, staging / "series");
+      scripts.emplace_back("load", load_script(run, data));
+    }
     const RenderedFigures figures = write_and_render(staging / "plots", scripts, options.render_figures);
     outcome.figures_note = figures.note;
     outcome.figures_rendered = figures.rendered;

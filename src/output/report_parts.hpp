@@ -55,6 +55,11 @@ std::string frequency_script(const DesignRun& run, const ReportData& data);
 /// With [uncertainty]: the recommended design's step response on every plant of the scenario set,
 /// the nominal and each requirement's worst plant drawn and named, with the requirement envelope.
 std::string envelope_script(const DesignRun& run, const ReportData& data);
+/// With a load requirement or the load_iae objective (report_load.cpp): each design's load
+/// response with the load_peak_max limit and the recovery band and time; its CSVs (load_<design>.csv).
+std::string load_script(const DesignRun& run, const ReportData& data);
+void write_load_series(const DesignRun& run, const ReportData& data, const fs::path& dir);
+std::string load_file(const ResponseTrace& t);
 /// The section over [uncertainty] (report_robust.cpp), with the envelope figure from `figures`.
 page::Section robust_section(const DesignRun& run, const std::vector<std::pair<std::string, std::string>>& figures);
 

@@ -118,12 +118,16 @@ Section figures_section(const DesignRun& run, const ReportData& data, const Repo
       {"frequency", "Loop frequency response of the classical and optimized designs. Each bar spans a margin at its "
                     "crossover: in the magnitude panel from the magnitude at the phase crossover up to 0 dB (the gain "
                     "margin), in the phase panel from −180° up to the phase at the gain crossover (the phase margin); "
-                    "their values are in the table below."}};
+                    "their values are in the table below."},
+      {"load", "Load response: each design's output after a step load at the plant input on the linear loop, with "
+               "load_peak_max and the recovery band (settling_band_pct of |reference.amplitude|) from "
+               "load_recovery_time_max."}};
   if (!outcome.figures_rendered) {
     s.html += paragraph_html(outcome.figures_note);
     s.markdown += outcome.figures_note + "\n\n";
   }
   for (const auto& [id, caption] : captions) {
+    if (id == "load" && !run.problem.needs_load) continue;  // regulator specs only
     const auto svg = std::find_if(figures.begin(), figures.end(), [&id = id](const auto& f) { return f.first == id; });
     s.html += fmt::format("<figure id=\"fig-{}\">\n{}<figcaption>{}</figcaption>\n</figure>\n", id,
                           svg != figures.end() && !svg->second.empty() ? svg->second + "\n" : std::string(),

@@ -283,8 +283,9 @@ void set_up_run(RunState& run) {
       run.breaks.insert(static_cast<double>(k) * run.noise.period);
 }
 
-// After a completed run: the non-finite checks, the fractions, the metrics relative to y∞.
-void finish(RunState& run, double y_inf, double band_fraction) {
+// After a completed run: the non-finite checks, the fractions, the metrics relative to y∞ (the
+// load response's IAE and recovery only when the controller `integrates`).
+void finish(RunState& run, double y_inf, double band_fraction, bool integrates) {
   NonlinearResult& result = run.result;
   const LoopModel& model = run.model;
   for (double v : result.output)
@@ -316,7 +317,7 @@ void finish(RunState& run, double y_inf, double band_fraction) {
     result.metrics.command_peak = command_peak;
     const LoopOptions& o = run.options;
     if (o.measure_load && o.disturbance_size != 0.0 && o.disturbance_time_s < horizon)
-      add_load_metrics(result.time_s, result.output, y_inf, o.disturbance_time_s, o.load_band, o.load_settles,
+      add_load_metrics(result.time_s, result.output, y_inf, o.disturbance_time_s, o.load_band, integrates,
                        run.exact_y, result.metrics);
     result.measured = true;
     result.notes.push_back("metrics relative to the linear loop's final value y_inf = " + to_string(y_inf));
@@ -352,7 +353,7 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   set_up_run(run);
   run.started = std::chrono::steady_clock::now();
   const bool completed = period > 0.0 ? run_sampled(run, controller) : run_continuous(run);
-  if (completed) finish(run, y_inf, band_fraction);
+  if (completed) finish(run, y_inf, band_fraction, controller.transfer.system_type() > 0);
   return result;
 }
 

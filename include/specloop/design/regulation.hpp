@@ -20,10 +20,10 @@ double load_size(const Spec& spec);
 double load_band(const Problem& problem);
 
 /// Copies the load metrics out of `load_run`, a simulation of load_loop_into(…, load_size,
-/// load_band·…) with band fraction band_fraction: the peak |y| (its effort peak) always, the IAE
-/// and the recovery time (its settling time) when the controller integrates (the load's final
-/// value is then 0); writes them into `m`'s load_* fields.
-void take_load_metrics(const Problem& problem, const StepMetrics& load_run, StepMetrics& m);
+/// |reference.amplitude|) with the problem's band fraction: the peak |y| (its effort peak) always,
+/// the IAE and the recovery time (its settling time) when the controller `integrates` (C(s) has a
+/// pole at s = 0, so the load's final value is 0); writes them into `m`'s load_* fields.
+void take_load_metrics(const StepMetrics& load_run, bool integrates, StepMetrics& m);
 
 /// Simulates the load response of `controller` on the loop with `plant_realization` (the
 /// continuous linear loop) and fills m's load_* fields; `trace`, when given, receives t and y (in

@@ -54,6 +54,10 @@ struct DesignTraces {
   /// With [uncertainty]: the recommended design's linear-loop step response on each plant of the
   /// scenario set (index into RobustRun::scenarios, at most kEnvelopeSamples points each).
   std::vector<std::pair<std::size_t, ResponseTrace>> scenarios;
+  /// With a load requirement or the load_iae objective (Problem::needs_load): every design's
+  /// response to the load step on the continuous linear loop (`output`: y; no control), as
+  /// measured (measure_load).
+  std::vector<ResponseTrace> load;
 };
 inline constexpr std::size_t kEnvelopeSamples = 400;
 

@@ -82,9 +82,8 @@ struct LoopOptions {
   double disturbance_size = 0.0;    // in plant-input units; 0: no disturbance
   /// Measure the load response after the disturbance step (StepMetrics::load_*, README
   /// "Regulators") into the metrics: the peak always, the IAE and the recovery time (last exit
-  /// from ±load_band, output units) with load_settles (integral action).
+  /// from ±load_band, output units) when the controller integrates (C(s) has a pole at s = 0).
   bool measure_load = false;
-  bool load_settles = false;
   double load_band = 0.0;
   double horizon_s = 0.0;      // simulated time, s; <= 0: the linear step simulation's horizon
   double output_step_s = 0.0;  // observer sampling step, s; <= 0: horizon/4000
