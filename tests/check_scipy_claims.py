@@ -123,6 +123,9 @@ import time
 import numpy as np
 from scipy import integrate, interpolate, linalg, optimize, signal
 
+sys.path.insert(0, str(pathlib.Path(__file__).resolve().parent))
+import check_scipy_load as load_reference  # noqa: E402  (the exact load response and peaks, SciPy)
+
 # ---- tolerances and resolution ------------------------------------------------------------------
 
 H_RHO = 0.05            # grid: h·|p| for every live mode (long mode: 0.01)
@@ -1767,6 +1770,13 @@ def sample_pieces(pieces, times):
 # ---- requirement values ----------------------------------------------------------------------------------
 
 PCT_KEYS = ("overshoot_max_pct", "undershoot_max_pct")
+# The regulator requirements (README, "Regulators"): the oracle reads them off the linear loop (the
+# load response y = G/(1 + C·G)·d and the closed-loop peaks, check_scipy_load.py's SciPy
+# measurements), on the described loop too; the nonlinear loop's own load response is compared by
+# check_scipy_load.py.
+LOAD_KEYS = {"load_iae_max": "load_iae", "load_peak_max": "load_peak", "load_recovery_time_max": "load_recovery_time"}
+PEAK_KEYS = {"noise_gain_max": "noise_gain", "complementary_peak_max": "complementary_peak"}
+TOL_REGULATOR = 1e-6  # relative, for both (check_scipy_load.py's accuracy is far finer)
 TIME_KEYS = ("peak_time_max", "settling_time_max", "rise_time_max")
 
 
@@ -1811,8 +1821,12 @@ def requirement_value(key, m, mg, tref, band_pct, strict=True):
         # README: on the nonlinear loop effort_max reads the command before the actuator's limits
         # (command_peak); on the linear loop command and applied u are one signal
         return m["command_peak"] if m.get("command_peak") is not None else m["effort_peak"]
+    if key in LOAD_KEYS:
+        return m.get(LOAD_KEYS[key])
     if mg is None:
         return None
+    if key in PEAK_KEYS:
+        return mg.get(PEAK_KEYS[key])
     if key == "gain_margin_min_db":
         # README "Margins": the gain may move either way by the limit — the smaller of the upper
         # margin and the magnitude of the lower one
@@ -1833,6 +1847,8 @@ def claim_tolerance(key, limit, bounds):
         return bounds["sse"]
     if key == "sensitivity_peak_max":
         return bounds["ms_rel"] * abs(limit)
+    if key in LOAD_KEYS or key in PEAK_KEYS:
+        return TOL_REGULATOR * abs(limit)
     return bounds["margin"]
 
 
@@ -2003,10 +2019,38 @@ class SpecOracle:
     def margins_of(self, design, delay_exact=False, gn=None, gd=None):
         c = design["controller"]
         if delay_exact:
-            gn, gd, dl = self.gn, self.gd, self.delay
+            gn, gd, dl = (self.gn if gn is None else gn), (self.gd if gd is None else gd), self.delay
         else:
             gn, gd, dl = (self.ln if gn is None else gn), (self.ld if gd is None else gd), 0.0
-        return margins(strip(c["numerator"]), strip(c["denominator"]), gn, gd, dl, 20000 if self.long else 2000)
+        out = margins(strip(c["numerator"]), strip(c["denominator"]), gn, gd, dl, 20000 if self.long else 2000)
+        req = self.spec["requirements"]
+        if req.get("noise_gain_max") is not None or req.get("complementary_peak_max") is not None:
+            cn, cd = strip(c["numerator"]), strip(c["denominator"])
+            delay = (lambda s: np.exp(-s * dl)) if dl else (lambda s: 1.0)
+            g = lambda s: np.polyval(gn, s) / np.polyval(gd, s) * delay(s)  # noqa: E731
+            cf = lambda s: np.polyval(cn, s) / np.polyval(cd, s)  # noqa: E731
+            corners = load_reference.corners_of(gn, gd, cn, cd)
+            out["complementary_peak"] = load_reference.peak_over_frequency(lambda s: cf(s) * g(s) / (1 + cf(s) * g(s)), corners)
+            out["noise_gain"] = load_reference.peak_over_frequency(lambda s: cf(s) / (1 + cf(s) * g(s)), corners)
+        return out
+
+    def load_of(self, design, ln, ld):
+        """The load response's metrics of `design` on the linear loop with plant ln/ld (with its
+        delay's approximant), measured by check_scipy_load.py's exact SciPy simulation; {} when the
+        spec asks for no load response."""
+        spec = self.spec
+        if not any(spec["requirements"].get(k) is not None for k in LOAD_KEYS) and spec["search"]["objective"] != "load_iae":
+            return {}
+        c = design["controller"]
+        cn, cd = strip(c["numerator"]), strip(c["denominator"])
+        size = spec["disturbance"]["size"] or 1.0
+        r = load_reference.Response(*load_reference.load_transfer(ln, ld, cn, cd, size), points=100_001)
+        out = {"load_peak": r.peak(), "load_iae": None, "load_recovery_time": None}
+        if cd[-1] == 0.0:  # the controller integrates
+            out["load_iae"] = r.iae()
+            out["load_recovery_time"] = r.last_exit(spec["requirements"]["settling_band_pct"] / 100.0 *
+                                                    abs(spec["reference"]["amplitude"]))
+        return out
 
     # -- the described loop ------------------------------------------------------------------------------------
     def described(self, design, plant=None):
@@ -2164,6 +2208,8 @@ class SpecOracle:
         for c in checks:
             key = c["requirement"]
             a = num(c["value"])
+            if nonlinear and key in LOAD_KEYS:
+                continue  # the nonlinear loop's load response: check_scipy_load.py
             cands = [requirement_value(key, m, mg, tref, self.band_pct, strict=s) for s in (False, True)]
             ok = False
             for b in cands:
@@ -2183,6 +2229,8 @@ class SpecOracle:
                     ok |= abs(a - b) <= (TOL_NL_EFFORT if nonlinear else TOL_EFFORT) * abs(b)
                 elif key == "sensitivity_peak_max":
                     ok |= abs(a - b) <= TOL_MS * abs(b)
+                elif key in LOAD_KEYS or key in PEAK_KEYS:
+                    ok |= abs(a - b) <= TOL_REGULATOR * abs(b)
                 else:
                     ok |= (math.isinf(a) and math.isinf(b)) or abs(a - b) <= TOL_MARGIN
             self.F.check(f"{prefix}/{key}", ok, f"reported value {show(a)} vs SciPy {' / '.join(show(b) for b in cands)}")
@@ -2273,6 +2321,7 @@ class SpecOracle:
             if not F.check(f"{name}/linear/stable", loop.stable(), "the rebuilt linear loop is stable (status ok)"):
                 return None
             m, pieces = self.measure_linear(loop)
+            m.update(self.load_of(d, self.ln, self.ld))
         T = m["_horizon"]
         self._u_range = (m["_umin"], m["_umax"])
         self.compare_metrics(f"{name}/linear/metric", d["simulated"], m, T, nonlinear=False,
@@ -2314,6 +2363,7 @@ class SpecOracle:
             F.note(f"{name}: described loop not simulated ({exc})")
             return out
         m_nl = measure(pieces_nl, y_inf, self.r, self.band, H)
+        m_nl.update({k: m[k] for k in LOAD_KEYS.values() if k in m})  # the linear loop's (LOAD_KEYS)
         if how == "sampled":
             m_nl["command_peak"] = float(np.max(np.abs(np.array(eng.commands))))
         elif how == "hybrid":
@@ -2457,6 +2507,7 @@ class SpecOracle:
                         F.check(f"{name}/perturb/{k}/stable", False, f"perturbed plant ({pattern}): loop stable")
                         continue
                     m, _ = self.measure_linear(loop)
+                    m.update(self.load_of(d, ln, ld))
                 mg = self.margins_of(d, gn=ln, gd=ld) if d.get("margins") is not None else None
                 self._perturb_checks(name, k, pattern, d["checks"], m, mg, tref, CLAIM_LINEAR)
         else:
@@ -2469,16 +2520,17 @@ class SpecOracle:
                 loop2 = loop_d.with_plant(("linear", Ap, Bp, Cp))
                 if self.delay:
                     pn, pd = pade_delay(self.delay, int(self.R["linear_model"]["delay_approximant_order"]))
-                    lin = self.linear_loop(d, np.polymul(gn, pn), np.polymul(gd, pd))
+                    ln, ld = np.polymul(gn, pn), np.polymul(gd, pd)
                 else:
-                    lin = self.linear_loop(d, gn, gd)
+                    ln, ld = gn, gd
+                lin = self.linear_loop(d, ln, ld)
                 pieces, eng2, how = self.simulate_described(loop2, lin, EXTEND * loop_d.horizon)
                 y_inf, _ = lin.final(self.r)
                 m = measure(pieces, y_inf, self.r, self.band, loop_d.horizon)
                 m["command_peak"] = float(np.max(np.abs(np.array(eng2.commands)))) if how == "sampled" \
                     else command_peak(pieces, EXTEND * loop_d.horizon)
-                mg = margins(strip(d["controller"]["numerator"]), strip(d["controller"]["denominator"]), gn, gd, self.delay) \
-                    if d.get("margins") is not None else None
+                m.update(self.load_of(d, ln, ld))  # the linear loop's (LOAD_KEYS)
+                mg = self.margins_of(d, delay_exact=True, gn=gn, gd=gd) if d.get("margins") is not None else None
                 self._perturb_checks(name, k, pattern, d["nonlinear"]["checks"], m, mg, tref, CLAIM_HYBRID)
 
     def _perturb_checks(self, name, k, pattern, checks, m, mg, tref, bounds):

@@ -19,7 +19,7 @@ constexpr double kUnstableCost = 1e9;  // the search's stability barrier (search
 CandidateEvaluator::CandidateEvaluator(const Problem& nominal, const SearchOptions& options)
     : nominal_(nominal), options_(options), margin_(nominal.search_margin),
       band_(nominal.band_fraction * (1.0 - nominal.search_margin)), load_size_(load_size(nominal.spec)),
-      load_offset_(std::abs(nominal.spec.reference.amplitude)) {
+      load_offset_(std::abs(nominal.spec.reference.amplitude)), load_sim_(kLoadGridRules) {
   for (const Requirement& r : nominal.requirements) requirements_.push_back(tightened(r, margin_));
 }
 
@@ -96,8 +96,10 @@ CandidateOutcome CandidateEvaluator::judge(const TransferFunction& plant, double
 }
 
 LinearGrid CandidateEvaluator::linear_grid() const {
-  return last_sampled_ ? LinearGrid{sampled_sim_.horizon_s(), sampled_sim_.fine_step_s(), sampled_sim_.fine_until_s()}
-                       : linear_grid_of(sim_.grid());
+  if (last_sampled_) return {sampled_sim_.horizon_s(), sampled_sim_.fine_step_s(), sampled_sim_.fine_until_s()};
+  LinearGrid g = linear_grid_of(sim_.grid());
+  if (nominal_.needs_load) g.load_horizon_s = load_settle_horizon(load_sim_.grid().horizon_s());
+  return g;
 }
 
 double CandidateEvaluator::violation(const StepMetrics& m, const std::optional<Margins>& margins) const {

@@ -142,7 +142,8 @@ Design measure_design(const Problem& problem, DesignRole role, const Controller&
     if (problem.needs_load) {
       // The continuous loop's load response (the reader refuses load requirements on a sampled
       // controller, so d.simulated is that loop's set-point response).
-      const StepStatus load = measure_load(problem, problem.plant_realization, controller.transfer, d.simulated);
+      const StepStatus load = measure_load(problem, problem.plant_realization, controller.transfer, d.simulated,
+                                           nullptr, &d.linear_grid.load_horizon_s);
       if (load != StepStatus::ok) d.notes.push_back(fmt::format("load response {}: not measured", status_name(load)));
     }
   } else {

@@ -91,7 +91,11 @@ void set_output_times(NonlinearSetup& setup) {
 }
 
 NonlinearSetup nonlinear_setup(const Problem& problem, const LinearGrid& grid, int samples) {
-  NonlinearSetup setup = nonlinear_setup(problem, grid.horizon_s, samples);
+  // The load response can be slower than the set point's (a mode the set point's zero nearly
+  // cancels is all there after a load): after the load step the run lasts the longer of the two.
+  const double horizon =
+      problem.spec.disturbance.size != 0.0 ? std::max(grid.horizon_s, grid.load_horizon_s) : grid.horizon_s;
+  NonlinearSetup setup = nonlinear_setup(problem, horizon, samples);
   if (grid.fine_step_s > 0.0 && setup.options.output_step_s > 4.0 * grid.fine_step_s) {
     setup.fine_step_s = grid.fine_step_s;
     setup.fine_until_s = grid.fine_until_s;

@@ -11,6 +11,10 @@ double load_band(const Problem& problem) {
   return problem.band_fraction * std::abs(problem.spec.reference.amplitude);
 }
 
+double load_settle_horizon(double load_grid_horizon_s) {
+  return load_grid_horizon_s * std::log(1.0 / TimeGridRules{}.decay_fraction) / std::log(1.0 / kLoadGridRules.decay_fraction);
+}
+
 void take_load_metrics(const StepMetrics& load_run, bool integrates, StepMetrics& m) {
   m.load_peak = load_run.effort_peak;
   m.load_iae.reset();
@@ -22,11 +26,11 @@ void take_load_metrics(const StepMetrics& load_run, bool integrates, StepMetrics
 }
 
 StepStatus measure_load(const Problem& problem, const StateSpace& plant_realization, const TransferFunction& controller,
-                        StepMetrics& m, StepTrace* trace) {
+                        StepMetrics& m, StepTrace* trace, double* horizon_s) {
   const double offset = std::abs(problem.spec.reference.amplitude);
   StateSpace loop;
   load_loop_into(plant_realization, realize(controller), load_size(problem.spec), offset, loop);
-  StepSimulator sim;
+  StepSimulator sim(kLoadGridRules);
   StepMetrics run;
   const StepStatus status = sim.simulate(loop, 1.0, problem.band_fraction, run, trace);
   if (status != StepStatus::ok) {
@@ -36,6 +40,7 @@ StepStatus measure_load(const Problem& problem, const StateSpace& plant_realizat
     return status;
   }
   take_load_metrics(run, controller.system_type() > 0, m);
+  if (horizon_s) *horizon_s = load_settle_horizon(sim.grid().horizon_s());
   if (trace) trace->output = trace->effort;  // row 1: y itself
   return status;
 }

@@ -283,9 +283,8 @@ void set_up_run(RunState& run) {
       run.breaks.insert(static_cast<double>(k) * run.noise.period);
 }
 
-// After a completed run: the non-finite checks, the fractions, the metrics relative to y∞ (the
-// load response's IAE and recovery only when the controller `integrates`).
-void finish(RunState& run, double y_inf, double band_fraction, bool integrates) {
+// After a completed run: the non-finite checks, the fractions, the metrics relative to y∞.
+void finish(RunState& run, double y_inf, double band_fraction) {
   NonlinearResult& result = run.result;
   const LoopModel& model = run.model;
   for (double v : result.output)
@@ -315,10 +314,6 @@ void finish(RunState& run, double y_inf, double band_fraction, bool integrates) 
     double command_peak = run.peak_command;
     for (double uc : result.command) command_peak = std::max(command_peak, std::abs(uc));
     result.metrics.command_peak = command_peak;
-    const LoopOptions& o = run.options;
-    if (o.measure_load && o.disturbance_size != 0.0 && o.disturbance_time_s < horizon)
-      add_load_metrics(result.time_s, result.output, y_inf, o.disturbance_time_s, o.load_band, integrates,
-                       run.exact_y, result.metrics);
     result.measured = true;
     result.notes.push_back("metrics relative to the linear loop's final value y_inf = " + to_string(y_inf));
   } else {
@@ -353,7 +348,25 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   set_up_run(run);
   run.started = std::chrono::steady_clock::now();
   const bool completed = period > 0.0 ? run_sampled(run, controller) : run_continuous(run);
-  if (completed) finish(run, y_inf, band_fraction, controller.transfer.system_type() > 0);
+  if (completed) finish(run, y_inf, band_fraction);
+  if (completed && result.measured && options.measure_load && options.disturbance_size != 0.0 &&
+      options.disturbance_time_s < run.horizon) {
+    // The load's effect: this run less the same run without the load (same samples, same noise),
+    // so that what the set point still does after the load step is not read as the load's.
+    LoopOptions without = options;
+    without.disturbance_size = 0.0;
+    without.measure_load = false;
+    without.sample_times_s = result.time_s;
+    const NonlinearResult base = simulate_nonlinear(plant, controller, actuator, without, amplitude, band_fraction);
+    if (base.status == NonlinearStatus::ok && base.output.size() == result.output.size()) {
+      std::vector<double> effect(result.output.size());
+      for (std::size_t k = 0; k < effect.size(); ++k) effect[k] = result.output[k] - base.output[k];
+      add_load_metrics(result.time_s, effect, 0.0, options.disturbance_time_s, options.load_band,
+                       controller.transfer.system_type() > 0, {}, result.metrics);
+    } else {
+      result.notes.push_back("load response not measured: the run without the load did not finish");
+    }
+  }
   return result;
 }
 

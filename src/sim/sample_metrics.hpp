@@ -20,8 +20,8 @@ StepMetrics metrics_from_samples(const std::vector<double>& t, const std::vector
                                  double y_inf, double amplitude, double band,
                                  const std::vector<std::pair<double, double>>& exact);
 
-/// The load response read from the same samples after the load step at `from_s` (README,
-/// "Regulators"): e = y − y_inf; load_peak = max |e| over the samples and `exact` points at or
+/// The load response read from samples after the load step at `from_s` (README, "Regulators"; y:
+/// the load's effect on the output, y_inf = 0): e = y − y_inf; load_peak = max |e| over the samples and `exact` points at or
 /// after from_s; with `settles` (integral action) also load_iae = ∫|e| dt from from_s (trapezoid,
 /// each interval split where e changes sign, the first from e(from_s) linearly interpolated) and
 /// load_recovery_time_s, the last exit of |e| from `band` (output units; linearly interpolated)

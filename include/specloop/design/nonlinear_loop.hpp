@@ -29,6 +29,8 @@ struct LinearGrid {
   double horizon_s = 0.0;
   double fine_step_s = 0.0;   // 0: one uniform resolution is enough
   double fine_until_s = 0.0;
+  double load_horizon_s = 0.0;  // the load response's horizon (Problem::needs_load; 0: none): a load
+                                // step gets at least this long to settle on the nonlinear loop
 };
 /// The linear grid of the last call of either simulator.
 LinearGrid linear_grid_of(const TimeGrid& grid);

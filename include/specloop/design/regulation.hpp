@@ -25,12 +25,23 @@ double load_band(const Problem& problem);
 /// pole at s = 0, so the load's final value is 0); writes them into `m`'s load_* fields.
 void take_load_metrics(const StepMetrics& load_run, bool integrates, StepMetrics& m);
 
+/// The load response's time grid: the set point's rules with the slowest mode decayed to 1e-9
+/// instead of 1e-4, so that the IAE, an integral to infinity, is not truncated where a limit
+/// could tell (at 1e-4 the tail left out was up to 2e-4 of the IAE, seen by SciPy).
+inline constexpr TimeGridRules kLoadGridRules{1e-9, 2000, 20000, 0.5};
+
+/// How long the load response takes to settle as the set point's horizon counts it (its slowest
+/// mode decayed to 1e-4, TimeGridRules' default), from the horizon of its own grid
+/// (kLoadGridRules): what the nonlinear loop gives a load step (LinearGrid::load_horizon_s).
+double load_settle_horizon(double load_grid_horizon_s);
+
 /// Simulates the load response of `controller` on the loop with `plant_realization` (the
 /// continuous linear loop) and fills m's load_* fields; `trace`, when given, receives t and y (in
 /// `output`, without the offset). Returns the simulation's status (the loop's poles are the
 /// set-point loop's, so it is ok whenever that loop was).
+/// `horizon_s`, when given, receives load_settle_horizon of the simulation's horizon.
 StepStatus measure_load(const Problem& problem, const StateSpace& plant_realization, const TransferFunction& controller,
-                        StepMetrics& m, StepTrace* trace = nullptr);
+                        StepMetrics& m, StepTrace* trace = nullptr, double* horizon_s = nullptr);
 
 /// The margins of `controller` on `plant` as every design's measurement computes them: loop_margins
 /// of C·G, with the closed-loop peaks when the problem requires one (Problem::needs_peaks).

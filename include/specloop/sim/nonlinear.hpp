@@ -81,8 +81,9 @@ struct LoopOptions {
   double disturbance_time_s = 0.0;  // a step of disturbance_size added at the plant input from here
   double disturbance_size = 0.0;    // in plant-input units; 0: no disturbance
   /// Measure the load response after the disturbance step (StepMetrics::load_*, README
-  /// "Regulators") into the metrics: the peak always, the IAE and the recovery time (last exit
-  /// from ±load_band, output units) when the controller integrates (C(s) has a pole at s = 0).
+  /// "Regulators") into the metrics: the output less that of a second run without the load (the
+  /// same samples and noise), its peak always, its IAE and recovery time (last exit from
+  /// ±load_band, output units) when the controller integrates (C(s) has a pole at s = 0).
   bool measure_load = false;
   double load_band = 0.0;
   double horizon_s = 0.0;      // simulated time, s; <= 0: the linear step simulation's horizon
