@@ -77,7 +77,7 @@ constexpr SpecKey kKeysAfterRequirements[] = {
      "step size, magnitude in [1e-6, 1e6], either sign (for `[plant.nonlinear]`: measured from the operating output "
      "y0)"},
     {"search.objective", "—", "`itae`",
-     "minimized among feasible designs: `itae`, `iae`, `ise`, `effort`, `settling_time`, `sensitivity_peak`"},
+     "minimized among feasible designs: `itae`, `iae`, `ise`, `effort`, `settling_time`, `sensitivity_peak`, `load_iae` (a regulator: README, \"Regulators\")"},
     {"search.seed", "—", "1", "NLopt's random seed: runs repeat exactly"},
     {"search.max_evaluations", "—", "6000",
      "cost evaluations of the linear stages (global + local), at least 20; the nonlinear stage adds a tenth of it (40 "

@@ -155,8 +155,13 @@ TEST_CASE("every limit of the requirement catalogue is listed in check order and
   m.peak_time_s = 1.0;
   m.settling_time_s = 2.0;
   m.rise_time_s = 0.5;
+  m.load_iae = 0.7;  // a regulator's run (design/regulation.hpp) carries its load response
+  m.load_peak = 0.2;
+  m.load_recovery_time_s = 3.0;
   Margins margins;
   margins.sensitivity_peak = 1.3;
+  margins.complementary_peak = 1.1;
+  margins.noise_gain = 4.0;
   for (std::size_t i = 0; i < list.size(); ++i) {
     const Requirement& q = list[i];
     INFO(q.key);
@@ -168,6 +173,10 @@ TEST_CASE("every limit of the requirement catalogue is listed in check order and
     // A frequency-domain requirement has no value without the margins; a step-response one does.
     const bool needs_margins = q.entry->source == specloop::RequirementSource::frequency_response;
     CHECK(requirement_value(q, m, std::nullopt, 2.0, 2.0).has_value() == !needs_margins);
+    CHECK(requirement_value(q, m, margins, 2.0, 2.0).has_value());
+    // A load requirement has no value where the load response was not simulated.
+    if (q.entry->source == specloop::RequirementSource::load_response)
+      CHECK_FALSE(requirement_value(q, StepMetrics{}, margins, 2.0, 2.0).has_value());
   }
 }
 

@@ -60,11 +60,11 @@ TEST_CASE("requirement catalogue: one entry per member of Requirements, keys and
     }
     CHECK(find_requirement(entry.key) == &entry);
   }
-  // Requirements has 11 optional limits and the settling band.
-  CHECK(ranks.size() == 11);
+  // Requirements has 16 optional limits and the settling band.
+  CHECK(ranks.size() == 16);
   CHECK(settings == 1);
   CHECK(*ranks.begin() == 0);
-  CHECK(*ranks.rbegin() == 10);
+  CHECK(*ranks.rbegin() == 15);
   CHECK(find_requirement("settling_time_max_s") == nullptr);
 }
 
@@ -73,7 +73,9 @@ TEST_CASE("requirement catalogue: the check order is the order of every list of 
   const std::vector<std::string_view> expected{"overshoot_max_pct", "undershoot_max_pct", "peak_time_ratio",
                                                "peak_time_max",     "settling_time_max",  "rise_time_max",
                                                "steady_state_error_max", "effort_max", "phase_margin_min_deg",
-                                               "gain_margin_min_db", "sensitivity_peak_max"};
+                                               "gain_margin_min_db", "sensitivity_peak_max", "load_iae_max",
+                                               "load_peak_max", "load_recovery_time_max", "noise_gain_max",
+                                               "complementary_peak_max"};
   std::vector<std::string_view> order;
   for (const RequirementEntry* entry : specloop::requirement_check_order()) order.push_back(entry->key);
   CHECK(order == expected);
