@@ -76,6 +76,15 @@ from scipy.optimize import brentq
 from reference_common import Tally
 
 FIGURES = ["step", "effort", "splane", "frequency"]
+LOAD_KEYS = ("load_iae_max", "load_peak_max", "load_recovery_time_max")
+
+
+def figures_of(result):
+    """The figures a report has: FIGURES, the envelope with [uncertainty], the load response where
+    the spec asks for it (a load requirement or objective = "load_iae"; README, "Regulators")."""
+    spec = result["spec"]
+    load = any(spec["requirements"].get(k) is not None for k in LOAD_KEYS) or spec["search"]["objective"] == "load_iae"
+    return FIGURES + (["envelope"] if result.get("robust") else []) + (["load"] if load else [])
 PEAK_TIE = 1e-4  # README "Metric definitions": humps within this × |y∞| of the highest are one peak
 
 
@@ -215,9 +224,9 @@ def inside(p, r, slack=0.5):
     return r[0] + slack < p[0] < r[2] - slack and r[1] + slack < p[1] < r[3] - slack
 
 
-def check_figures(tally, name, out):
+def check_figures(tally, name, out, figures=FIGURES):
     """Legends outside the plot areas and off the curves; no two texts overlapping."""
-    for fig in FIGURES:
+    for fig in figures:
         svg = (out / "plots" / f"{fig}.svg").read_text()
         areas = svg_rectangles(svg, "rgb( 85,  85,  85)")
         keys = svg_rectangles(svg, "black")
@@ -598,8 +607,15 @@ def main():
             parser = ReportParser()
             parser.feed(page)
             tally.check(name, "html: no external references", not [l for l in parser.links if "://" in l], str(parser.links))
-            # A robust spec ([uncertainty]) adds the envelope figure (every plant's step response).
-            figures = FIGURES + (["envelope"] if result.get("robust") else [])
+            # A robust spec ([uncertainty]) adds the envelope figure (every plant's step response), a
+            # regulator spec the load response (with load_peak_max drawn).
+            figures = figures_of(result)
+            if "load" in figures:
+                gp = (out / "plots" / "load.gp").read_text()
+                limit = result["spec"]["requirements"]["load_peak_max"]
+                tally.check(name, "load figure: load_peak_max drawn", limit is None or "load_peak_max" in gp)
+                tally.check(name, "load figure: one series per design", len(list((out / "series").glob("load_*.csv"))) ==
+                            sum(1 for d in result["designs"].values() if d["status"] == "ok"))
             tally.check(name, f"html: the {len(figures)} figures inline", parser.figures_with_svg == {f"fig-{f}" for f in figures},
                         str(sorted(parser.figures_with_svg)))
             tally.check(name, "safety caution on both pages", "not a verified machine" in page and "not a verified machine" in md)
@@ -607,7 +623,7 @@ def main():
             check_table(tally, name, parser, result)
             check_series(tally, name, out, result)
             check_locus(tally, name, out, result)
-            check_figures(tally, name, out)
+            check_figures(tally, name, out, [f for f in figures if f != "envelope"])
             check_time_axis(tally, name, out, result)
             spec_toml = tomllib.loads(spec.read_text())
             check_page_content(tally, name, out, result, page, spec_toml, expect_delay=spec == variant)
