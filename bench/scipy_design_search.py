@@ -142,7 +142,11 @@ class Cost:
         self.scale = 1.0
         self.evaluations = 0
         self.best = (math.inf, None, None)
-        if any(k in self.req for k in ("phase_margin_min_deg", "gain_margin_min_db", "sensitivity_peak_max")) \
+        # A regulator (README, "Regulators"): the load response too, a second simulation per candidate.
+        self.load = self.objective == "load_iae" or any(k.startswith("load_") for k in self.req)
+        self.load_size = spec["disturbance"]["size"] or 1.0
+        if any(k in self.req for k in ("phase_margin_min_deg", "gain_margin_min_db", "sensitivity_peak_max",
+                                       "noise_gain_max", "complementary_peak_max")) \
                 or self.objective == "sensitivity_peak":
             self.needs_margins = True
         else:
@@ -168,6 +172,14 @@ class Cost:
         y_inf = self.r * np.polyval(num_y, 0.0) / np.polyval(den, 0.0)
         m = metrics(t, y, u, y_inf, self.r, self.band_pct / 100.0)
         margins = loop_margins(nc, dc, self.np_, self.dp) if self.needs_margins else {}
+        if self.load:
+            # y = G/(1 + C·G)·d on the same time grid, its IAE, peak and last exit from the band.
+            _, yl = signal.step(signal.StateSpace(*signal.tf2ss(np.polymul(self.np_, dc) * self.load_size, den)), T=t)
+            band = self.band_pct / 100.0 * abs(self.r)
+            out = np.nonzero(np.abs(yl) > band)[0]
+            m["load_peak"] = float(np.max(np.abs(yl)))
+            m["load_iae"] = float(np.trapz(np.abs(yl), t))
+            m["load_recovery_time"] = float(t[out[-1]]) if out.size else 0.0
         violation = 0.0
         for key, limit in self.req.items():
             value = requirement_value(key, m, margins, self.ref_tp, self.band_pct)
@@ -183,7 +195,7 @@ class Cost:
                 violation += miss
         objective = {"itae": m["itae"], "iae": m["iae"], "ise": m["ise"], "effort": m["effort_peak"],
                      "settling_time": m["settling_time"] if m["settling_time"] is not None else 1e3 * horizon,
-                     "sensitivity_peak": margins.get("sensitivity_peak")}[self.objective]
+                     "sensitivity_peak": margins.get("sensitivity_peak"), "load_iae": m.get("load_iae")}[self.objective]
         return True, objective, violation
 
     def cost(self, stable, objective, violation):
@@ -256,7 +268,9 @@ def loop_margins(nc, dc, np_, dp):
     lo, hi = (min(mags), max(mags)) if mags else (1.0, 1.0)
     w = np.logspace(math.log10(lo) - 3, math.log10(hi) + 3, 2000)
     L = np.polyval(nl, 1j * w) / np.polyval(dl, 1j * w)
-    out = {"sensitivity_peak": float(np.max(np.abs(1.0 / (1.0 + L))))}
+    out = {"sensitivity_peak": float(np.max(np.abs(1.0 / (1.0 + L)))),
+           "complementary_peak": float(np.max(np.abs(L / (1.0 + L)))),
+           "noise_gain": float(np.max(np.abs(np.polyval(nc, 1j * w) / np.polyval(dc, 1j * w) / (1.0 + L))))}
     mag = np.abs(L)
     k = np.nonzero(np.diff(np.sign(mag - 1.0)) != 0)[0]
     out["phase_margin_deg"] = min(((math.degrees(np.angle(L[i])) + 360.0) % 360.0) for i in k) if k.size else math.inf
@@ -279,6 +293,11 @@ def requirement_value(key, m, mg, ref_tp, band_pct):
         "phase_margin_min_deg": lambda: mg.get("phase_margin_deg"),
         "gain_margin_min_db": lambda: mg.get("gain_margin_db"),
         "sensitivity_peak_max": lambda: mg.get("sensitivity_peak"),
+        "load_iae_max": lambda: m.get("load_iae"),
+        "load_peak_max": lambda: m.get("load_peak"),
+        "load_recovery_time_max": lambda: m.get("load_recovery_time"),
+        "noise_gain_max": lambda: mg.get("noise_gain"),
+        "complementary_peak_max": lambda: mg.get("complementary_peak"),
     }[key]()
 
 
@@ -402,7 +421,10 @@ def main():
                                                        ".linear-only")
             active = s.get("active_effects") or []
             nl_evals = s.get("nonlinear_evaluations", 0)
-            rows.append((name, median, sl_rate, sp_rate, ratio, capped, lin_median, active))
+            spec_json = result["spec"]
+            regulator = spec_json["search"]["objective"] == "load_iae" or any(
+                v is not None for k, v in spec_json["requirements"].items() if k.startswith("load_"))
+            rows.append((name, median, sl_rate, sp_rate, ratio, capped, lin_median, active, regulator))
             print(f"ratio     specloop evals/s ÷ SciPy evals/s = {ratio:,.0f}×")
             print(f"stage     search.simulate = linear: median {lin_median:.3f} s; auto ÷ linear = {median / lin_median:.2f}× "
                   f"(active effects: {', '.join(active) or 'none'}; {nl_evals} nonlinear evaluations)")
@@ -414,13 +436,24 @@ def main():
     print(f"== report (one run, same machine, {args.pinned or 'not pinned to a core'})")
     print(f"{'spec':<20} {'specloop median s':>17} {'linear-only s':>13} {'auto÷lin':>8} {'specloop evals/s':>16} "
           f"{'SciPy evals/s':>14} {'ratio':>9}  target")
-    for name, median, sl_rate, sp_rate, ratio, capped, lin_median, active in rows:
+    for name, median, sl_rate, sp_rate, ratio, capped, lin_median, active, _ in rows:
         target = ("n/a (active: " + ", ".join(active) + ")") if active else \
             f"{'PASS' if median <= TARGET_S else 'MISS'} (≤ {TARGET_S} s)"
         print(f"{name:<20} {median:>17.3f} {lin_median:>13.3f} {median / lin_median:>7.2f}× {sl_rate:>16,.0f} "
               f"{sp_rate:>14,.1f}{'*' if capped else ' '}{ratio:>8,.0f}×  {target}")
     if any(r[5] for r in rows):
         print("* SciPy capped: evals/s measured on the evaluations it ran (see above), full-budget time extrapolated.")
+    # Regulators (a load requirement or the load_iae objective) against the set-point designs of
+    # this run: the median design time and the linear-only one (target: within 1.5×).
+    setpoint = [r for r in rows if not r[8]]
+    for r in rows:
+        if not r[8] or not setpoint:
+            continue
+        sp_med = statistics.median(x[1] for x in setpoint)
+        sp_lin = statistics.median(x[6] for x in setpoint)
+        print(f"regulator {r[0]}: median {r[1]:.3f} s ÷ the set-point specs' median {sp_med:.3f} s = {r[1] / sp_med:.2f}× "
+              f"({'PASS' if r[1] / sp_med <= 1.5 else 'MISS'} ≤ 1.5×); linear-only {r[6]:.3f} s ÷ {sp_lin:.3f} s = "
+              f"{r[6] / sp_lin:.2f}×")
     return 0
 
 

@@ -38,3 +38,56 @@ TEST_CASE("the search's cost evaluation allocates nothing after the first call",
     CHECK(testing::allocations.load() == 0);
   }
 }
+
+TEST_CASE("a regulator's cost evaluation, with the load response's second simulation, allocates nothing",
+          "[evaluate][hot-path][regulation]") {
+  // PI and PID minimizing the load IAE with load requirements (no margin requirement: those
+  // allocate), also with a set-point weight of 1 given explicitly and a load size.
+  for (const char* structure : {"pi", "pid"}) {
+    const Spec spec = parse_spec(std::string("[plant]\npoles = [-1.0, -2.0, [-1.5, 2.0]]\ngain = 8.0\n"
+                                             "[controller]\nstructure = \"") +
+                                     structure +
+                                     "\"\n[requirements]\novershoot_max_pct = 20.0\nload_peak_max = 0.5\n"
+                                     "load_recovery_time_max = 20.0\n[search]\nobjective = \"load_iae\"\n"
+                                     "[disturbance]\nsize = 0.3\ntime = 10.0\n",
+                                 "specs/unit.toml");
+    const Problem problem = make_problem(spec, characterize(spec));
+    REQUIRE(problem.needs_load);
+    const SearchOptions options = search_options(spec);
+    CandidateEvaluator evaluator(problem, options);
+    std::vector<double> a, b;
+    for (const auto& [lo, hi] : problem.bounds) {
+      a.push_back(std::sqrt(lo * hi));
+      b.push_back(std::sqrt(lo * hi) * 1.1);
+    }
+    evaluator.evaluate(problem, a.data());
+    evaluator.evaluate(problem, b.data());
+    testing::allocations = 0;
+    testing::counting = true;
+    const CandidateOutcome first = evaluator.evaluate(problem, b.data());
+    const CandidateOutcome second = evaluator.evaluate(problem, a.data());
+    testing::counting = false;
+    INFO(structure << ": outcomes " << first.objective << ", " << second.objective);
+    CHECK(testing::allocations.load() == 0);
+    // The load response was measured (a stable candidate carries it).
+    if (second.stable) CHECK(evaluator.metrics().load_peak.has_value());
+  }
+}
+
+TEST_CASE("the load loop is the set-point loop's A driven at the plant input", "[regulation]") {
+  // y_d/d = G/(1 + C·G): for G = 2/(s + 1), C = 3 (P) the load loop is 2/(s + 7): DC gain 2/7,
+  // pole −7; with the offset 0.5 the simulation's final value is 0.5 + 0.3·2/7.
+  const StateSpace plant = realize(TransferFunction(Polynomial({2.0}), Polynomial({1.0, 1.0})));
+  const StateSpace controller = static_gain(3.0);
+  StateSpace load, set_point;
+  load_loop_into(plant, controller, 0.3, 0.5, load);
+  close_loop_into(plant, controller, set_point);
+  CHECK(load.A.isApprox(set_point.A));
+  CHECK(load.A(0, 0) == Approx(-7.0));
+  StepSimulator sim(kLoadGridRules);  // to 1e-9 of the slowest mode: y(T) is y∞ within that
+  StepMetrics m;
+  REQUIRE(sim.simulate(load, 1.0, 0.02, m) == StepStatus::ok);
+  CHECK(m.final_value == Approx(0.5 + 0.3 * 2.0 / 7.0).epsilon(1e-12));
+  CHECK(m.effort_peak == Approx(0.3 * 2.0 / 7.0).epsilon(2e-9));  // row 1: y itself, monotone to its final value
+  CHECK(m.iae == Approx(0.3 * 2.0 / 7.0 / 7.0).epsilon(1e-8));    // ∫|y − y∞| = |y∞|/7 for a single pole at −7
+}
