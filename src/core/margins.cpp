@@ -16,6 +16,7 @@
 #include <fmt/ranges.h>
 #include <limits>
 #include <numbers>
+#include <tuple>
 
 namespace specloop {
 
@@ -149,6 +150,14 @@ Margins loop_margins(const TransferFunction& loop) {
       m.lower_phase_crossover_rad_s = r->low_frequency;
     }
   }
+  return m;
+}
+
+Margins sensitivity_margins(const TransferFunction& loop) {
+  Margins m;
+  // loop_margins' computation of Ms (the same polynomials and operations, so the same bits).
+  std::tie(m.sensitivity_peak, m.sensitivity_peak_rad_s) =
+      magnitude_peak(squared_magnitude_in_w2(loop.denominator), squared_magnitude_in_w2(loop.denominator + loop.numerator));
   return m;
 }
 

@@ -21,6 +21,15 @@ CandidateEvaluator::CandidateEvaluator(const Problem& nominal, const SearchOptio
       band_(nominal.band_fraction * (1.0 - nominal.search_margin)), load_size_(load_size(nominal.spec)),
       load_offset_(std::abs(nominal.spec.reference.amplitude)), load_sim_(kLoadGridRules) {
   for (const Requirement& r : nominal.requirements) requirements_.push_back(tightened(r, margin_));
+  // Which of the margins the evaluation reads: when only Ms and the closed-loop peaks, not the
+  // crossovers and gain margins, whose polynomial roots cost most of a margin computation.
+  auto peaks_only = [](const std::string& key) {
+    return key == "sensitivity_peak_max" || key == "noise_gain_max" || key == "complementary_peak_max";
+  };
+  sensitivity_only_ = (!options.objective_requirement || peaks_only(options.objective_requirement->key)) &&
+                      std::all_of(nominal.requirements.begin(), nominal.requirements.end(), [&](const Requirement& r) {
+                        return r.entry->source != RequirementSource::frequency_response || peaks_only(r.key);
+                      });
 }
 
 CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double* params) {
@@ -87,8 +96,15 @@ CandidateOutcome CandidateEvaluator::judge(const TransferFunction& plant, double
   // C(s) as a transfer function and the margins only where something reads them (they allocate).
   std::optional<Margins> margins;
   const bool sensitivity = !options_.objective_requirement && options_.objective == Objective::sensitivity_peak;
-  if (nominal_.needs_margins || options_.objective_requirement || sensitivity)
-    margins = design_margins(nominal_, TransferFunction(Polynomial(num_), Polynomial(den_)), plant);
+  if (nominal_.needs_margins || options_.objective_requirement || sensitivity) {
+    const TransferFunction c{Polynomial(num_), Polynomial(den_)};
+    if (sensitivity_only_) {
+      margins = sensitivity_margins(c * plant);
+      if (nominal_.needs_peaks) add_closed_loop_peaks(*margins, c, plant);
+    } else {
+      margins = design_margins(nominal_, c, plant);
+    }
+  }
   out.violation = violation(metrics_, margins);
   out.objective = objective_given(metrics_, margins, horizon_s);
   out.effort_peak = metrics_.effort_peak;

@@ -47,6 +47,9 @@ struct Margins {
 /// meaningful and the caller should report the instability instead: both gain margins are then
 /// empty).
 Margins loop_margins(const TransferFunction& loop);
+/// Ms alone: loop_margins(loop) with only sensitivity_peak and its frequency filled (the same
+/// numbers, bit for bit), for the search's evaluation when nothing else of the margins is read.
+Margins sensitivity_margins(const TransferFunction& loop);
 /// Fills m's complementary peak and noise gain for the loop of `controller` and `plant` (which
 /// loop_margins(controller·plant) cannot tell apart), exactly, from the stationary points of the
 /// squared magnitudes in ω² and the ends ω = 0 and ω → ∞.

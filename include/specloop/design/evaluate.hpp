@@ -67,6 +67,7 @@ class CandidateEvaluator {
   const Problem& nominal_;
   const SearchOptions& options_;
   double margin_;                          // the search's margin (fraction)
+  bool sensitivity_only_ = false;          // of the margins only Ms and the closed-loop peaks are read
   double band_;                            // the settling band narrowed by it
   std::vector<Requirement> requirements_;  // the nominal problem's, tightened by it
   bool last_sampled_ = false;              // which simulator ran last
