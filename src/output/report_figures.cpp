@@ -24,6 +24,8 @@ const char* colour_of(DesignRole design, bool nonlinear) {
     case DesignRole::reference: return "#8c8c8c";
     case DesignRole::classical: return "#c26a1b";
     case DesignRole::ultimate_gain: return "#7b5ea7";
+    case DesignRole::simc: return "#00897b";
+    case DesignRole::amigo: return "#b8860b";
     case DesignRole::optimized: break;
   }
   return "#1f5f99";
