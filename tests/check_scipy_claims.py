@@ -144,7 +144,7 @@ REFERENCE_PP = 0.01          # issue 11 §4
 PERTURB = 1e-6
 PERTURB_COMBOS = 4
 NONLINEAR_SAMPLES = 20000    # README: the nonlinear metrics are read off 20000 samples
-DESIGNS = ("reference", "classical", "ultimate_gain", "optimized")
+DESIGNS = ("reference", "classical", "ultimate_gain", "simc", "amigo", "optimized")
 
 # Known failures of the tool on this branch, each the target of another branch (issues 11 and 12).
 # A failing check whose id matches a pattern (fnmatch) prints "KNOWN FAILING" and does not fail the

@@ -277,6 +277,7 @@ void add_rule_designs(DesignRun& run) {
   const RuleInputs in = tuning_rule_inputs(problem);
   for (const DesignRole role : {DesignRole::simc, DesignRole::amigo}) {
     RuleOutcome rule = role == DesignRole::simc ? simc_rule(problem.spec.plant, in) : amigo_rule(problem.spec.plant, in);
+    screen_rule_loop(rule, problem.plant);
     if (rule.controller) {
       Design d = measure_and_confirm(problem, role, *rule.controller);
       d.notes.push_back(fmt::format("{} rules on the model {} ({}){}: {}", role == DesignRole::simc ? "SIMC" : "AMIGO",

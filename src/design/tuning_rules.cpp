@@ -8,6 +8,7 @@
 #include <algorithm>
 #include <cmath>
 #include <fmt/format.h>
+#include <limits>
 #include <stdexcept>
 #include <variant>
 
@@ -341,6 +342,26 @@ RuleOutcome amigo_rule(const PlantSpec& plant, const RuleInputs& in) {
                                   number(f.kp), number(f.ti), tau);
   build_controller(out, f, in);
   return out;
+}
+
+void screen_rule_loop(RuleOutcome& rule, const TransferFunction& plant) {
+  if (!rule.controller) return;
+  const ClosedLoopTF loop = close_loop(plant, rule.controller->transfer);
+  double fastest = 0.0, slowest = std::numeric_limits<double>::infinity();
+  for (const Complex& p : loop.output.poles())
+    if (std::abs(p) > 0.0) {
+      fastest = std::max(fastest, std::abs(p));
+      slowest = std::min(slowest, std::abs(p));
+    }
+  // A plant pole at the range's edge moves a little under any feedback: 1 % is allowed for it.
+  constexpr double kEdgeMove = 1.01;
+  if (fastest <= kMaxRate * kEdgeMove && slowest >= kMinRate / kEdgeMove) return;
+  rule.reason = fmt::format(
+      "its closed loop has a pole of magnitude {} rad/s, outside [{}, {}], the range the numerics honour (as for a "
+      "plant's poles){}",
+      number(fastest > kMaxRate ? fastest : slowest), number(kMinRate), number(kMaxRate),
+      rule.rule == "simc" && fastest > kMaxRate ? "; a larger rules.simc_tau_c slows it" : "");
+  rule.controller.reset();
 }
 
 std::string model_text(const ReducedModel& m) {

@@ -292,3 +292,23 @@ TEST_CASE("reverse action: the rule on |k|, the controller carries the action", 
   CHECK(down.controller->standard->ti == up.controller->standard->ti);
   CHECK(down.controller->series == up.controller->series);  // magnitudes
 }
+
+TEST_CASE("a rule whose loop leaves the range the numerics honour is left out, with the reason", "[rules]") {
+  // Lags 10 s, 1 s and 1e-5 s: the second-order model's delay is 5e-6 s, and SIMC's default
+  // τc = L gives Kc = 1e6 (series), τI = 4e-5 s: closed-loop poles near 3e5 rad/s, beyond kMaxRate.
+  const PlantSpec edge = plant_of({}, {{-0.1, 0}, {-1.0, 0}, {-1e5, 0}}, 1e4);
+  const TransferFunction g = TransferFunction::from_zeros_poles(edge.zeros, edge.poles, edge.gain);
+  RuleOutcome fast = simc_rule(edge, inputs(Structure::pid));
+  REQUIRE(fast.applied());
+  const auto poles = close_loop(g, fast.controller->transfer).output.poles();
+  const double fastest = std::abs(*std::max_element(poles.begin(), poles.end(),
+                                                    [](Complex a, Complex b) { return std::abs(a) < std::abs(b); }));
+  CHECK(fastest > kMaxRate);
+  screen_rule_loop(fast, g);
+  CHECK_FALSE(fast.applied());
+  CHECK_THAT(fast.reason, Catch::Matchers::Contains("rules.simc_tau_c"));
+  // With τc = 0.1 s the same rule stays inside and is kept.
+  RuleOutcome slow = simc_rule(edge, inputs(Structure::pid, 1.0, 0.1));
+  screen_rule_loop(slow, g);
+  CHECK(slow.applied());
+}

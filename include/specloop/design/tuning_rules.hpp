@@ -106,6 +106,15 @@ RuleOutcome simc_rule(const PlantSpec& plant, const RuleInputs& in);
 /// a model without delay (the rules divide by L).
 RuleOutcome amigo_rule(const PlantSpec& plant, const RuleInputs& in);
 
+/// A rule's controller is kept only when its closed loop with `plant` (the linear model every
+/// design is measured on) stays inside what the numerics honour, as every plant must (spec.hpp:
+/// each nonzero pole magnitude in [kMinRate, kMaxRate], 1 % allowed for a plant pole at an edge
+/// that the feedback moves a little); otherwise the outcome loses its
+/// controller and says why. Example: SIMC with τc = L on a plant whose only "delay" is a lag of
+/// 1e-5 s puts closed-loop poles near 3e5 rad/s with a gain of 2.5e10, where the exact simulation
+/// loses digits (its peak effort times the rounding exceeds the metrics' resolution).
+void screen_rule_loop(RuleOutcome& rule, const TransferFunction& plant);
+
 /// The model as a formula, times in the spec's time unit, e.g. "1.5·e^(−0.3·s)/(2·s + 1)".
 std::string model_text(const ReducedModel& m);
 
