@@ -152,7 +152,9 @@ class PageParser(html.parser.HTMLParser):
             self.row.append(tuple(self.cell))
             self.cell = None
         elif tag == "li" and self.li is not None:
-            self.modes[self.li[0]] = self.li[1]
+            # the contributions' line; a design's "Modes cancel: …" line (same class) follows it
+            if self.li[1].startswith("Closed-loop modes"):
+                self.modes[self.li[0]] = self.li[1]
             self.li = None
 
     def handle_data(self, data):
