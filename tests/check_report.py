@@ -161,8 +161,8 @@ class PageParser(html.parser.HTMLParser):
             self.row.append(tuple(self.cell))
             self.cell = None
         elif tag == "li" and self.li is not None:
-            # A design's modes line; a second "modes" item (the cancellation note) does not replace it.
-            if "signed contribution" in self.li[1] or self.li[0] not in self.modes:
+            # the contributions' line; a design's "Modes cancel: …" line (same class) follows it
+            if self.li[1].startswith("Closed-loop modes"):
                 self.modes[self.li[0]] = self.li[1]
             self.li = None
 
@@ -312,6 +312,17 @@ def check_page_content(tally, name, out, result, page, spec_toml, expect_delay=F
         got["sample_time"] = repr(float(got["sample_time"]))
     tally.check(name, "controller box: design, derivative, set-point weight, action, sample time as specified", got == want,
                 f"{got} vs {want}")
+    # The published rules: one row per rule of result.json, applied exactly when its design
+    # exists, a left-out rule showing its reason (never silently absent).
+    rule_rows = [r for r in parser.tables.get("rules", [])[1:] if r]
+    shown = {r[0][0].get("data-rule"): (r[0][0].get("data-applied"), r[3][1]) for r in rule_rows}
+    want_rules = result.get("rules", {})
+    ok_rules = set(shown) == set(want_rules) and all(
+        (shown[k][0] == "true") == v["applied"] == (k in result["designs"])
+        and (v["applied"] or v["reason"] in shown[k][1])
+        for k, v in want_rules.items())
+    tally.check(name, "published rules: each rule of result.json in the report, applied or with its reason", ok_rules,
+                f"{shown} vs {json.dumps(want_rules)[:300]}")
     # Margins under the frequency figure: one row per design drawn there, equal to result.json.
     rows = parser.tables.get("margins", [])[1:]
     drawn = sorted(f.stem[len("frequency_"):] for f in (out / "series").glob("frequency_*.csv"))

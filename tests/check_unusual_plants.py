@@ -291,9 +291,12 @@ def check_plant(tally, specloop, spec_file):
                         run.returncode == 1 and info.get("binding") == "stability" and "s^3" in info.get("nearest", ""),
                         json.dumps(info)[:300])
         if case == "reverse_third_order_pid":
-            tally.check(case, "every design rule ran (reference, classical, ultimate gain, optimized)",
-                        sorted(result["designs"]) == ["classical", "optimized", "reference", "ultimate_gain"]
+            tally.check(case, "every design rule ran (reference, classical, ultimate gain, SIMC, AMIGO, optimized)",
+                        sorted(result["designs"]) == ["amigo", "classical", "optimized", "reference", "simc", "ultimate_gain"]
                         and result["ultimate"]["gain"] < 0, f"{sorted(result['designs'])}, {result.get('ultimate')}")
+            tally.check(case, "the published rules carry the reverse action (negative Kp)",
+                        all(result["designs"][r]["controller"]["standard"]["kp"] < 0 for r in ("simc", "amigo")
+                            if r in result["designs"]))
         if action < 0:
             tally.check(case, "terminal states the reverse action", "reverse action" in run.stdout)
             html = (out_dir / "report.html").read_text()

@@ -276,6 +276,14 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
   if (!run.classical.designed)
     fmt::print("Classical design: none — the hand method stops at its {} step: {}\n", run.classical.failed_step,
                run.classical.reason);
+  for (const RuleOutcome& rule : run.rules) {
+    if (rule.applied())
+      fmt::print("Published rule {}: on the model {} ({}){}\n", rule.rule, model_text(*rule.model),
+                 rule.model->exact ? "exact" : "Skogestad's half rule",
+                 rule.tau_c_s ? fmt::format(", τc = {:.4g} {} ({})", *rule.tau_c_s, spec.units.time, rule.tau_c_source) : "");
+    else
+      fmt::print("Published rule {}: left out — {}\n", rule.rule, rule.reason);
+  }
   for (const std::string& w : run.warnings) fmt::print("Warning: {}\n", w);
   if (best)
     for (const std::string& w : best->warnings) fmt::print("Warning: {}\n", w);

@@ -270,6 +270,26 @@ std::optional<Controller> add_ultimate_gain_design(DesignRun& run) {
   return baseline;
 }
 
+// The published rules (SIMC, AMIGO) on the plant's half-rule model: each design measured and
+// confirmed like the ultimate-gain one; a rule that does not apply is kept with its reason.
+void add_rule_designs(DesignRun& run) {
+  const Problem& problem = run.problem;
+  const RuleInputs in = tuning_rule_inputs(problem);
+  for (const DesignRole role : {DesignRole::simc, DesignRole::amigo}) {
+    RuleOutcome rule = role == DesignRole::simc ? simc_rule(problem.spec.plant, in) : amigo_rule(problem.spec.plant, in);
+    screen_rule_loop(rule, problem.plant);
+    if (rule.controller) {
+      Design d = measure_and_confirm(problem, role, *rule.controller);
+      d.notes.push_back(fmt::format("{} rules on the model {} ({}){}: {}", role == DesignRole::simc ? "SIMC" : "AMIGO",
+                                    model_text(*rule.model), rule.model->exact ? "exact" : "half rule",
+                                    rule.tau_c_s ? fmt::format(", τc = {:.4g} s ({})", *rule.tau_c_s, rule.tau_c_source) : "",
+                                    rule.formula));
+      run.designs.push_back(std::move(d));
+    }
+    run.rules.push_back(std::move(rule));
+  }
+}
+
 // What the search stage hands on: its result, the optimized design measured and confirmed, whether
 // the nonlinear stage ran, and the effects active for the linear optimum that decided it.
 struct SearchOutcome {
@@ -479,6 +499,7 @@ DesignRun run_design(const Spec& spec, unsigned jobs) {
   add_reference_design(run);
   const std::optional<Controller> classical = add_classical_design(run);
   const std::optional<Controller> baseline = add_ultimate_gain_design(run);
+  add_rule_designs(run);
   const SearchOptions options = search_options(spec);
   const std::vector<std::string> warnings_before = run.warnings;
   std::optional<std::vector<double>> restart;

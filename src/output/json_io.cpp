@@ -270,7 +270,30 @@ json spec_json(const Spec& spec) {
             {"bounds", bounds}}},
           {"sweep", {{"vary", spec.sweep_vary}}},
           {"uncertainty", uncertainty},
+          {"rules", {{"simc_tau_c", optional_number(spec.rules.simc_tau_c_s)}}},
           {"units", units_json(spec.units)}};
+}
+
+json rule_json(const RuleOutcome& r) {
+  json model = nullptr;
+  if (r.model) {
+    const ReducedModel& m = *r.model;
+    model = {{"order", m.order},
+             {"integrating", m.integrating},
+             {"gain", number_json(m.gain)},
+             {"lag", m.integrating ? json(nullptr) : number_json(m.lag_s)},
+             {"second_lag", m.order == 2 ? number_json(m.second_lag_s) : json(nullptr)},
+             {"delay", number_json(m.delay_s)},
+             {"exact", m.exact},
+             {"text", model_text(m)},
+             {"derivation", m.steps}};
+  }
+  return {{"applied", r.applied()},
+          {"reason", r.applied() ? json(nullptr) : json(r.reason)},
+          {"model", model},
+          {"tau_c", optional_number(r.tau_c_s)},
+          {"tau_c_source", r.tau_c_s ? json(r.tau_c_source) : json(nullptr)},
+          {"settings", r.formula.empty() ? json(nullptr) : json(r.formula)}};
 }
 
 json search_json(const SearchSummary& s) {
@@ -336,6 +359,8 @@ json result_json(const DesignRun& run) {
                       {"tracking_window", number_json(run.problem.tracking_window_s)},
                       {"search_margin_pct", number_json(run.problem.search_margin * 100.0)}};
   out["warnings"] = run.warnings;
+  out["rules"] = json::object();
+  for (const RuleOutcome& r : run.rules) out["rules"][r.rule] = rule_json(r);
   if (run.ultimate)
     out["ultimate"] = {{"gain", number_json(run.problem.action * run.ultimate->gain)}, {"period", number_json(run.ultimate->period_s)},
                        {"frequency", number_json(run.ultimate->frequency_rad_s)}};

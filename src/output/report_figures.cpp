@@ -13,6 +13,10 @@ using namespace page;
 
 bool plotted(const ResponseTrace& t) { return t.design != DesignRole::ultimate_gain; }
 
+bool on_splane(DesignRole role) {
+  return role != DesignRole::ultimate_gain && role != DesignRole::simc && role != DesignRole::amigo;
+}
+
 std::string trace_file(const ResponseTrace& t) {
   return fmt::format("step_{}{}.csv", role_name(t.design), t.nonlinear ? "_nonlinear" : "");
 }
@@ -24,6 +28,8 @@ const char* colour_of(DesignRole design, bool nonlinear) {
     case DesignRole::reference: return "#8c8c8c";
     case DesignRole::classical: return "#c26a1b";
     case DesignRole::ultimate_gain: return "#7b5ea7";
+    case DesignRole::simc: return "#00897b";
+    case DesignRole::amigo: return "#b8860b";
     case DesignRole::optimized: break;
   }
   return "#1f5f99";
@@ -158,7 +164,7 @@ std::string splane_script(const DesignRun& run, const ReportData& data, double z
                                 quoted(fmt::format("Padé zeros (order-{} stand-in for the delay)", kDelayApproximantOrder))));
   }
   for (const Design& d : run.designs) {
-    if (d.status != StepStatus::ok || d.role == DesignRole::ultimate_gain) continue;
+    if (d.status != StepStatus::ok || !on_splane(d.role)) continue;
     plots.push_back(fmt::format("'../series/splane_points.csv' using ((strcol(1) eq 'closed_loop_pole' && strcol(2) eq '{}') ? $3 : "
                                 "NaN):4 with points pt 7 ps 1.0 lc rgb '{}' title {}",
                                 role_name(d.role), colour_of(d.role, false), quoted(name_of(d.role) + " closed-loop poles")));

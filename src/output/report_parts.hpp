@@ -37,6 +37,9 @@ inline std::string name_of(DesignRole role) { return std::string(role_name(role)
 
 /// The step figure's designs: all but the ultimate-gain one (its trace is in the CSV only).
 bool plotted(const ResponseTrace& t);
+/// The designs whose closed-loop poles the s-plane marks: reference, classical, optimized (the
+/// ultimate-gain and published-rule designs are in result.json only).
+bool on_splane(DesignRole role);
 /// The CSV file of a trace: step_<design>[_nonlinear].csv.
 std::string trace_file(const ResponseTrace& t);
 /// A design's colour in every figure (the nonlinear loop's is its own).

@@ -103,12 +103,38 @@ Section requirement_section(const DesignRun& run) {
   return s;
 }
 
+// The published rules beside the optimum: each rule's model, how it was obtained, and its settings
+// or the reason it was left out.
+Section rules_section(const DesignRun& run) {
+  Section s{"rules", "Published tuning rules", "", ""};
+  const std::string note =
+      "SIMC (Skogestad 2003) and AMIGO (Åström & Hägglund 2004 for PI, 2006 for PID) on a low-order model of the plant "
+      "with delay, obtained by Skogestad's half rule; their designs are the columns simc and amigo above, measured and "
+      "confirmed like every design (the spec's derivative filter, set-point weight and derivative placement apply). "
+      "Times in " + run.problem.spec.units.time + ".";
+  Table t{"rules", {"rule", "model", "how it was obtained", "settings"}, {}};
+  for (const RuleOutcome& r : run.rules) {
+    std::string how = "—";
+    if (r.model) how = fmt::format("{}", fmt::join(r.model->steps, "; "));
+    std::string settings = r.applied() ? r.formula : "left out: " + r.reason;
+    if (r.applied() && r.tau_c_s) settings = fmt::format("τc = {:.4g} ({}); {}", *r.tau_c_s, r.tau_c_source, settings);
+    t.rows.push_back({{r.rule, fmt::format("data-rule=\"{}\" data-applied=\"{}\"", r.rule, r.applied() ? "true" : "false")},
+                      {r.model ? model_text(*r.model) : "—", ""},
+                      {how, ""},
+                      {settings, r.applied() ? "" : "class=\"missed\""}});
+  }
+  s.html = paragraph_html(note) + html_table(t);
+  s.markdown = escape_md(note) + "\n\n" + md_table(t);
+  return s;
+}
+
 // The figures with their captions (inline SVG when rendered), the margin table under the frequency one.
 Section figures_section(const DesignRun& run, const ReportData& data, const ReportOutcome& outcome,
                         const std::vector<std::pair<std::string, std::string>>& figures) {
   Section s{"figures", "Figures", "", ""};
   static const std::vector<std::pair<std::string, std::string>> captions{
-      {"step", "Step response: reference (P only), classical and optimized designs on the linear loop, and the recommended "
+      {"step", "Step response: reference (P only), classical, published-rule (simc, amigo) and optimized designs on the "
+               "linear loop, and the recommended "
                "design on the nonlinear loop, with the requirement envelope."},
       {"effort", "Control effort u(t) for the same designs, with the actuator limits, effort_max, and the time the command "
                  "spends beyond a limit shaded."},
@@ -236,6 +262,7 @@ std::vector<Section> sections(const DesignRun& run, const ReportData& data, cons
   out.push_back(controller_section(run));
   if (!run.warnings.empty()) out.push_back(warnings_section(run));
   out.push_back(requirement_section(run));
+  if (!run.rules.empty()) out.push_back(rules_section(run));
   if (run.robust) out.push_back(robust_section(run, figures));
   out.push_back(figures_section(run, data, outcome, figures));
   out.push_back(approximation_section(run));

@@ -89,7 +89,7 @@ SplaneView write_series(const DesignRun& run, const ReportData& data, const fs::
   for (const LoopRoot& p : locus.poles) point(p.delay_approximant ? "delay_approximant_pole" : "open_loop_pole", roots_of, p.at);
   for (const LoopRoot& z : locus.zeros) point(z.delay_approximant ? "delay_approximant_zero" : "open_loop_zero", roots_of, z.at);
   for (const Design& d : run.designs)
-    if (d.status == StepStatus::ok && d.role != DesignRole::ultimate_gain)
+    if (d.status == StepStatus::ok && on_splane(d.role))
       for (const Complex& p : d.closed_loop_poles) point("closed_loop_pole", name_of(d.role), p);
   if (const Design* best = recommended_design(run)) {
     const std::string name = name_of(best->role);

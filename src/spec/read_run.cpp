@@ -1,5 +1,6 @@
 // Reading how a run is set up: [reference] (the step), [search] (objective, budget, bounds),
-// [disturbance] (load step, measurement noise), [sweep] (the axes' syntax) and [units] (labels).
+// [disturbance] (load step, measurement noise), [sweep] (the axes' syntax), [units] (labels) and
+// [rules] (the published tuning rules' settings).
 #include "specloop/core/compensator.hpp"
 #include "specloop/spec/axes.hpp"
 #include "spec/sections.hpp"
@@ -80,6 +81,12 @@ void read_search(const DocumentReader& reader, SearchSpec& search, Structure str
           table, kSection, "margin_pct", [](double v) { return v >= 0.0 && v < 50.0; }, "a percentage in [0, 50)"))
     search.margin_pct = *margin;
   if (const auto entry = find_entry(*table, "bounds")) read_bounds(reader, *entry, search, structure);
+}
+
+void read_rules(const DocumentReader& reader, RulesSpec& rules) {
+  if (const auto tau_c = reader.ranged_number(reader.section("rules"), "rules", "simc_tau_c",
+                                              [](double v) { return v > 0.0; }, "a time in s > 0"))
+    rules.simc_tau_c_s = *tau_c;
 }
 
 void read_disturbance(const DocumentReader& reader, DisturbanceSpec& disturbance, const std::optional<TimeRule>& times,

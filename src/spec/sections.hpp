@@ -48,6 +48,8 @@ void read_sweep(const DocumentReader& reader, std::vector<std::string>& vary);
 /// [uncertainty]: each range's key checked against the document (a numeric plant key, as `sweep
 /// --vary` checks it), low < high around the file's value; the drawing and judging keys.
 void read_uncertainty(const DocumentReader& reader, UncertaintySpec& uncertainty);
+/// [rules]: simc_tau_c, a time > 0.
+void read_rules(const DocumentReader& reader, RulesSpec& rules);
 /// [units]: each a short label without control characters.
 void read_units(const DocumentReader& reader, UnitsSpec& units);
 

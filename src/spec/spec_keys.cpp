@@ -134,6 +134,9 @@ constexpr SpecKey kKeysAfterRequirements[] = {
     {"uncertainty.max_corners", "—", "64",
      "every corner of the box is a scenario when there are at most this many (2^ranges), else this many chosen "
      "deterministically plus the worst corners found; in [2, 4096]"},
+    {"rules.simc_tau_c", "s", "the model's delay",
+     "SIMC's closed-loop time constant τc, > 0 (the `simc` design column; see \"Published tuning rules\"); smaller is "
+     "faster and less robust. Without it, a model with no delay leaves SIMC out"},
     {"units.output", "—", "`output units`",
      "name of the output's unit (e.g. `\"m/s\"`), shown in figure axes, tables, the terminal and result.json; a "
      "non-empty string of at most 24 characters, no control characters"},

@@ -153,6 +153,7 @@ const std::vector<Mutation>& mutations() {
       {"search.margin_pct", 0, {{"search", "margin_pct", "3.0"}}, "/search/margin_pct"},
       {"search.bounds.<parameter>", 0, {{"search.bounds", "gain", "[0.1, 10.0]"}}, "/search/bounds/gain"},
       {"sweep.vary", 0, {{"sweep", "vary", "[\"plant.gain=100:200:3\"]"}}, "/sweep/vary"},
+      {"rules.simc_tau_c", 0, {{"rules", "simc_tau_c", "0.4"}}, "/rules/simc_tau_c"},
       {"units.output", 0, {{"units", "output", "\"m/s\""}}, "/units/output"},
       {"units.input", 0, {{"units", "input", "\"V\""}}, "/units/input"},
       {"units.time", 0, {{"units", "time", "\"min\""}}, "/units/time"},

@@ -308,7 +308,7 @@ TEST_CASE("unknown names get a did-you-mean or the list of valid names", "[spec]
         "specs/unit.toml:4:1: controler: unknown section; did you mean 'controller'?");
   CHECK(error_of("[plant]\npoles = [-1.0]\n[logging]\nlevel = 3\n") ==
         "specs/unit.toml:3:1: logging: unknown section; valid top-level names: title, plant, "
-        "actuator, controller, requirements, reference, search, disturbance, sweep, uncertainty, units");
+        "actuator, controller, requirements, reference, search, disturbance, sweep, uncertainty, rules, units");
   CHECK(error_of("titel = \"Valve\"\n[plant]\npoles = [-1.0]\n") ==
         "specs/unit.toml:1:1: titel: unknown key; did you mean 'title'?");
   CHECK(error_of("[plant]\npoles = [-1.0]\n[controller]\nstructure = \"Lead\"\n") ==

@@ -112,6 +112,7 @@ const std::map<std::string, std::pair<std::string, std::string>>& examples() {
       {"units.output", {kPlant + "[units]\noutput = @\n", "\"m/s\""}},
       {"units.input", {kPlant + "[units]\ninput = @\n", "\"V\""}},
       {"units.time", {kPlant + "[units]\ntime = @\n", "\"min\""}},
+      {"rules.simc_tau_c", {kPlant + "[rules]\nsimc_tau_c = @\n", "0.5"}},
     };
     for (const specloop::RequirementEntry& entry : specloop::requirement_catalogue())
       rows[fmt::format("requirements.{}", entry.key)] = {fmt::format("{}[requirements]\n{} = @\n", kPlant, entry.key),
@@ -183,7 +184,7 @@ TEST_CASE("spec keys: a key or section not in the table is refused as unknown", 
   CHECK(error_of(kPlant + "[unit]\noutput = \"m\"\n").find("unit: unknown section; did you mean 'units'?") != std::string::npos);
   CHECK(error_of(kPlant + "[labels]\noutput = \"m\"\n").find("labels: unknown section; valid top-level names: title, plant, "
                                                             "actuator, controller, requirements, reference, search, "
-                                                            "disturbance, sweep, uncertainty, units") != std::string::npos);
+                                                            "disturbance, sweep, uncertainty, rules, units") != std::string::npos);
 }
 
 TEST_CASE("units: names are read, defaults kept, bad names refused", "[spec][keys]") {

@@ -18,3 +18,4 @@
 #include "specloop/design/role.hpp"
 #include "specloop/design/search.hpp"
 #include "specloop/design/traces.hpp"
+#include "specloop/design/tuning_rules.hpp"

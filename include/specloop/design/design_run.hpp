@@ -1,5 +1,5 @@
-// The `design` pipeline: characterize → problem → the reference, classical and ultimate-gain
-// designs → search → the verdict. Every design passes the same two stages: measure_design on the
+// The `design` pipeline: characterize → problem → the reference, classical, ultimate-gain and
+// published-rule (SIMC, AMIGO) designs → search → the verdict. Every design passes the same two stages: measure_design on the
 // linear loop, then confirm_design on the nonlinear one.
 #pragma once
 
@@ -15,6 +15,7 @@
 #include "specloop/design/robust.hpp"
 #include "specloop/design/role.hpp"
 #include "specloop/design/search.hpp"
+#include "specloop/design/tuning_rules.hpp"
 #include "specloop/spec/spec.hpp"
 
 namespace specloop {
@@ -42,7 +43,10 @@ struct DesignRun {
   ClassicalOutcome classical;
   std::vector<std::string> warnings;        // about the recommended result (e.g. a final value far from r)
   std::optional<UltimatePoint> ultimate;
-  std::vector<Design> designs;              // reference, classical, ultimate_gain, optimized (those that exist)
+  /// The published rules (SIMC, AMIGO, in that order): each applied (its design is in `designs`)
+  /// or left out with its reason.
+  std::vector<RuleOutcome> rules;
+  std::vector<Design> designs;              // reference, classical, ultimate_gain, simc, amigo, optimized (those that exist)
   SearchSummary search;
   std::optional<Infeasibility> infeasibility;
   bool met = false;                         // the optimized design meets every requirement …
@@ -59,7 +63,7 @@ struct DesignRun {
 /// confirm_design on the nonlinear one, then its fragility warnings (which read both).
 Design measure_and_confirm(const Problem& problem, DesignRole role, const Controller& controller);
 
-/// characterize → problem → classical and baseline designs → search (seeded by the classical
+/// characterize → problem → classical, baseline and published-rule designs → search (seeded by the classical
 /// design) → measurement and confirmation of every design → infeasibility analysis when the
 /// optimum misses.
 /// `jobs`: threads for the scenario plants of [uncertainty] (the result does not depend on it).

@@ -11,15 +11,20 @@ enum class DesignRole {
   reference,      // the P controller whose overshoot is at the limit
   classical,      // the root-locus (hand) design
   ultimate_gain,  // the Ziegler–Nichols rules from the ultimate gain
+  simc,           // Skogestad's SIMC rules on the half-rule model (tuning_rules.hpp)
+  amigo,          // Åström–Hägglund's AMIGO rules on the half-rule model
   optimized,      // the NLopt search against the simulated response
 };
 
-/// The role's spelling in every output: "reference", "classical", "ultimate_gain", "optimized".
+/// The role's spelling in every output: "reference", "classical", "ultimate_gain", "simc", "amigo",
+/// "optimized".
 constexpr std::string_view role_name(DesignRole role) {
   switch (role) {
     case DesignRole::reference: return "reference";
     case DesignRole::classical: return "classical";
     case DesignRole::ultimate_gain: return "ultimate_gain";
+    case DesignRole::simc: return "simc";
+    case DesignRole::amigo: return "amigo";
     case DesignRole::optimized: return "optimized";
   }
   return "unknown";

@@ -35,6 +35,10 @@ nlohmann::json characterization_json(const Spec& spec, const Characterization& c
 nlohmann::json linearization_json(const Spec& spec);
 /// The spec as normalized (both plant forms, every default filled in).
 nlohmann::json spec_json(const Spec& spec);
+/// One published rule's outcome: {"applied", "reason" (null when applied), "model": null |
+/// {"order", "integrating", "gain", "lag", "second_lag", "delay", "exact", "text", "derivation"},
+/// "tau_c", "tau_c_source" (SIMC; null otherwise), "settings" (the formulas with their values)}.
+nlohmann::json rule_json(const RuleOutcome& r);
 /// The search summary.
 nlohmann::json search_json(const SearchSummary& s);
 /// The whole result.json (schema "specloop-result-1").

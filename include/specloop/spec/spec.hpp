@@ -144,6 +144,11 @@ struct UncertaintySpec {
   double high_of(const UncertainRange& r) const { return r.nominal + scale * (r.high - r.nominal); }
 };
 
+/// [rules]: settings of the published tuning rules' design columns (tuning_rules.hpp).
+struct RulesSpec {
+  std::optional<double> simc_tau_c_s;         // SIMC's closed-loop time constant τc, s (> 0); default: the model's delay
+};
+
 struct ReferenceSpec {
   double amplitude = 1.0;                     // step size, output units (!= 0)
 };
@@ -170,6 +175,7 @@ struct Spec {
   DisturbanceSpec disturbance;
   UnitsSpec units;
   UncertaintySpec uncertainty;
+  RulesSpec rules;
   /// [sweep] vary: the axes of `specloop sweep`, each "KEY=FROM:TO:COUNT[log]" or "KEY=a,b,c"
   /// (syntax checked here; the keys are checked against the file by the sweep).
   std::vector<std::string> sweep_vary;
