@@ -206,6 +206,17 @@ def strip_small(p, rel=1e-9):
     return p[nz[0]:] if len(nz) else np.zeros(1)
 
 
+def weighted_reference_path(kp, ki, kd, tf, b, c):
+    """C_r(s) = Kp·b + Ki/s + Kd·c·s/(Tf·s + 1) over s·(Tf·s + 1) (Åström & Hägglund, set-point
+    weighting of the parallel PID; the I term acts on the whole error), as (numerator, denominator)."""
+    num = np.polyadd(np.polyadd(np.polymul([kp * b], np.polymul([1.0, 0.0], [tf, 1.0])), np.polymul([ki], [tf, 1.0])),
+                     np.polymul([kd * c], [1.0, 0.0, 0.0]))
+    den = np.polymul([1.0, 0.0], [tf, 1.0]) if ki != 0.0 else [tf, 1.0]
+    if ki == 0.0:
+        num = np.polyadd(np.polymul([kp * b], [tf, 1.0]), [kd * c, 0.0])
+    return num, den
+
+
 def same_tf(n1, d1, n2, d2, rel):
     """Two transfer functions equal coefficient by coefficient after normalizing the denominators'
     leading coefficients (leading coefficients below 1e-9 of the largest are dropped)."""
@@ -1968,6 +1979,21 @@ class SpecOracle:
                 F.check("rebuild/linearization", ok, "plant = C(sI − A)⁻¹B of our Jacobians (central differences, 1e-5)", detail)
         return True
 
+    def verify_reference_path(self, name, design):
+        """The reference path C_r written in result.json, rebuilt from the parallel gains and the set-point
+        weight b the design runs with (its own when the search tuned it, else the spec's)."""
+        c = design["controller"]
+        par = c.get("parallel")
+        if not par:
+            return
+        ctl = self.spec["controller"]
+        b = float(c.get("setpoint_weight", ctl["setpoint_weight"]))
+        cw = 0.0 if ctl["derivative_on"] == "measurement" else 1.0
+        kp, ki, kd, tf = (float(par[k]) for k in ("kp", "ki", "kd", "filter_time"))
+        rn, rd = weighted_reference_path(kp, ki, kd, tf, b, cw)
+        ok, detail = same_tf(rn, rd, c["reference_numerator"], c["reference_denominator"], 1e-9)
+        self.F.check(f"{name}/reference_path", ok, f"C_r = Kp·b + Ki/s + Kd·c·s/(Tf·s + 1) with b = {b:g}, c = {cw:g}", detail)
+
     def linear_loop(self, design, gn=None, gd=None):
         c = design["controller"]
         return LinearLoop(self.ln if gn is None else gn, self.ld if gd is None else gd, c["numerator"], c["denominator"],
@@ -1998,7 +2024,7 @@ class SpecOracle:
         c = design["controller"]
         ctl = self.spec["controller"]
         ts = float(ctl["sample_time"])
-        b = float(ctl["setpoint_weight"])
+        b = float(c.get("setpoint_weight", ctl["setpoint_weight"]))  # searched b (tune_setpoint_weight) first
         cw = 0.0 if ctl["derivative_on"] == "measurement" else 1.0
         par = c.get("parallel")
         parallel = (float(par["kp"]), float(par["ki"]), float(par["kd"]), float(par["filter_time"])) if par else None
@@ -2097,7 +2123,7 @@ class SpecOracle:
                 plant = ("linear", Ap, Bp, Cp)
         de = nl.get("difference_equation")
         return DescribedLoop(plant=plant, parallel=parallel, ctrl_tf=(strip(c["numerator"]), strip(c["denominator"])),
-                             b=float(ctl["setpoint_weight"]), c=0.0 if ctl["derivative_on"] == "measurement" else 1.0,
+                             b=float(c.get("setpoint_weight", ctl["setpoint_weight"])), c=0.0 if ctl["derivative_on"] == "measurement" else 1.0,
                              umin=umin, umax=umax, rate=num(act.get("rate_max")), anti_windup=ctl["anti_windup"], tt=tt,
                              r=self.r, td=float(dist["time"]), dsize=float(dist["size"]), noise_rms=noise_rms,
                              noise_period=period, seed=int(dist["seed"]), delay=self.delay, horizon=horizon, ts=ts,
@@ -2651,6 +2677,7 @@ class SpecOracle:
             d = R["designs"].get(name)
             if d is None:
                 continue
+            self.verify_reference_path(name, d)
             try:
                 infos[name] = self.verify_design(name, d, tref)
             except Exception as exc:  # a bug of the oracle, or a loop it cannot handle: loudly

@@ -239,6 +239,7 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
     const auto& info = structure_parameters(c.structure);
     const std::vector<double> shown = signed_series(c);
     for (std::size_t i = 0; i < info.size(); ++i) fmt::print(" {} = {:.5g}", info[i].name, shown[i]);
+    if (c.setpoint_weight) fmt::print(" setpoint_weight = {:.4g} (searched)", *c.setpoint_weight);
     fmt::print("\n");
     if (c.parallel)
       fmt::print("  parallel: Kp = {:.5g}, Ki = {:.5g}, Kd = {:.5g}, Tf = {:.4g} {}\n", c.parallel->kp, c.parallel->ki,

@@ -56,6 +56,10 @@ std::string fmt_pole(Complex p) {
   return fmt::format("{:.4g} ± j{:.4g}", p.real(), std::abs(p.imag()));
 }
 
+// The smallest overshoot an error is taken relative to, percentage points (1e-4 of the step: no
+// plot shows less).
+constexpr double kVisibleOvershootPct = 0.01;
+
 double relative_error_pct(double simulated, double predicted) {
   return (simulated - predicted) / predicted * 100.0;
 }
@@ -280,7 +284,9 @@ DominanceDiagnosis diagnose_dominance(const TransferFunction& t, Complex pair_po
           "near it to cancel it{}", fmt_pole(z), ratio, kFarRatio, z.real() > 0.0 ? " (right half plane)" : ""));
     }
   }
-  d.overshoot_error_pct = relative_error_pct(sim.overshoot_pct, pred.overshoot_pct);
+  // Relative to the prediction, but not to less than kVisibleOvershootPct: a pair damped close to
+  // ζ = 1 predicts an overshoot that underflows to 0, and 0/0 is no error figure.
+  d.overshoot_error_pct = (sim.overshoot_pct - pred.overshoot_pct) / std::max(pred.overshoot_pct, kVisibleOvershootPct) * 100.0;
   if (sim.peak_time_s) d.peak_time_error_pct = relative_error_pct(*sim.peak_time_s, pred.peak_time_s);
   if (sim.settling_time_s) d.settling_time_error_pct = relative_error_pct(*sim.settling_time_s, pred.settling_time_s);
   const bool os_ok = std::abs(d.overshoot_error_pct) <= kAgreementPct;

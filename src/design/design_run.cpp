@@ -53,7 +53,9 @@ std::optional<int> structurally_missing_power(const Problem& problem) {
   for (const auto& [lo, hi] : problem.bounds) x.push_back(std::sqrt(lo * hi) * 1.0123456789);
   Controller c;
   try {
-    c = make_controller(problem.spec.controller.structure, x, problem.spec.controller.derivative_filter, 1.0);
+    c = make_controller(problem.spec.controller.structure,
+                        std::vector<double>(x.begin(), x.begin() + static_cast<std::ptrdiff_t>(structure_parameter_count(problem))),
+                        problem.spec.controller.derivative_filter, 1.0);
   } catch (const std::invalid_argument&) {
     return std::nullopt;
   }
@@ -105,7 +107,7 @@ Infeasibility analyze_misses(const Problem& problem, const Design& best, const S
   }
   SearchOptions o = options;
   o.objective_requirement = binding;
-  const SearchResult nearest = optimize(relaxed, first.controller.series, o);
+  const SearchResult nearest = optimize(relaxed, search_vector(problem, first.controller), o);
   // Measured on the linear loop only: the nearest value is read there (no confirmation needed).
   const Design d = measure_design(relaxed, DesignRole::optimized, nearest.controller);
   const auto value = d.status == StepStatus::ok
@@ -308,8 +310,8 @@ SearchOutcome search_stage(const Problem& problem, const std::optional<Controlle
   // Seed: a restart's point, else the classical design, else the ultimate-gain baseline, else the
   // middle of the bounds.
   std::vector<double> seed = restart      ? *restart
-                             : classical ? classical->series
-                             : baseline  ? baseline->series
+                             : classical ? search_vector(problem, *classical)
+                             : baseline  ? search_vector(problem, *baseline)
                                          : middle_of_bounds(problem);
   SearchOutcome out;
   if (robust) {
@@ -342,10 +344,10 @@ SearchOutcome search_stage(const Problem& problem, const std::optional<Controlle
   out.nonlinear_stage = mode == SimulateMode::nonlinear || (mode == SimulateMode::automatic && !out.active.empty());
   if (out.nonlinear_stage) {
     std::vector<std::vector<double>> hand;
-    if (classical) hand.push_back(classical->series);
-    if (baseline) hand.push_back(baseline->series);
+    if (classical) hand.push_back(search_vector(problem, *classical));
+    if (baseline) hand.push_back(search_vector(problem, *baseline));
     const SearchResult refined = refine_on_nonlinear_loop(problem, result, hand, options);
-    if (refined.controller.series != result.controller.series)
+    if (search_vector(problem, refined.controller) != search_vector(problem, result.controller))
       out.best = measure_and_confirm(problem, DesignRole::optimized, refined.controller);
     result = refined;
     result.summary.active_effects = out.active;
@@ -532,7 +534,7 @@ DesignRun run_design(const Spec& spec, unsigned jobs) {
     if (!add_refuting_plants(run)) break;
     // Fresh plants refuted the worst case: search again (from this optimum) with them in the set,
     // and judge afresh on a new sample. This attempt's verdict is undone.
-    restart = run.designs.back().controller.series;
+    restart = search_vector(run.problem, run.designs.back().controller);
     run.designs.pop_back();
     run.robust->assessments.clear();
     run.met = false;

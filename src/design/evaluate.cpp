@@ -37,7 +37,8 @@ CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double
   const double n = nominal_.spec.controller.derivative_filter;
   const ControllerSpec& cs = nominal_.spec.controller;
   const double amplitude = nominal_.spec.reference.amplitude;
-  const std::size_t count = nominal_.parameters.size();
+  const std::size_t count = structure_parameter_count(nominal_);
+  const double b = nominal_.spec.search.tune_setpoint_weight ? params[count] : cs.setpoint_weight;
   controller_polynomials(structure, params, n, nominal_.action, num_, den_);
   last_sampled_ = plant.sampled;
   CandidateOutcome out;
@@ -45,8 +46,8 @@ CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double
     // The controller's difference equation at the spec's period, exactly.
     StepStatus status = StepStatus::numerical_failure;
     try {
-      const Controller ctl = make_controller(structure, std::vector<double>(params, params + count), n, nominal_.action);
-      const DifferenceEquation eq = controller_difference_equation(ctl, cs.sample_time_s, cs.setpoint_weight,
+      const Controller ctl = controller_from(nominal_, params);
+      const DifferenceEquation eq = controller_difference_equation(ctl, cs.sample_time_s, b,
                                                                    cs.derivative_on_measurement ? 0.0 : 1.0);
       status = sampled_sim_.simulate(plant.plant_realization, eq, amplitude, band_, metrics_);
     } catch (const std::invalid_argument&) {
@@ -58,13 +59,11 @@ CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double
     }
     return judge(plant.plant, sampled_sim_.horizon_s());
   }
-  const bool weighted = cs.setpoint_weight != 1.0 || cs.derivative_on_measurement;
+  const bool weighted = b != 1.0 || cs.derivative_on_measurement;
   if (weighted) {
     const TransferFunction c{Polynomial(num_), Polynomial(den_)};
     loop_ = close_loop(plant.plant_realization, c,
-                       reference_path(make_controller(structure, std::vector<double>(params, params + count), n,
-                                                      nominal_.action),
-                                      cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0));
+                       reference_path(controller_from(nominal_, params), b, cs.derivative_on_measurement ? 0.0 : 1.0));
   } else {  // in the evaluator's own storage: nothing allocated after the first candidate
     realize_low_order(num_, den_, controller_);
     close_loop_into(plant.plant_realization, controller_, loop_);

@@ -42,7 +42,7 @@ void judge_knife_edges(const Problem& problem, Design& d) {
   const ControllerSpec& cs = problem.spec.controller;
   std::optional<DifferenceEquation> eq;
   if (d.sampled)
-    eq = controller_difference_equation(d.controller, cs.sample_time_s, cs.setpoint_weight,
+    eq = controller_difference_equation(d.controller, cs.sample_time_s, setpoint_weight_of(cs, d.controller),
                                         cs.derivative_on_measurement ? 0.0 : 1.0);
   StepSimulator sim;
   SampledStepSimulator sampled;
@@ -97,7 +97,7 @@ Design measure_design(const Problem& problem, DesignRole role, const Controller&
   d.role = role;
   d.controller = controller;
   const ControllerSpec& cs = problem.spec.controller;
-  d.reference_path = reference_path(controller, cs.setpoint_weight, cs.derivative_on_measurement ? 0.0 : 1.0);
+  d.reference_path = reference_path(controller, setpoint_weight_of(cs, controller), cs.derivative_on_measurement ? 0.0 : 1.0);
   const StateSpace loop = close_loop(problem.plant_realization, controller.transfer, d.reference_path);
   StepSimulator sim;
   StepMetrics continuous;
@@ -110,7 +110,7 @@ Design measure_design(const Problem& problem, DesignRole role, const Controller&
     d.sampled = true;
     SampledStepSimulator sampled;
     try {
-      const DifferenceEquation eq = controller_difference_equation(controller, cs.sample_time_s, cs.setpoint_weight,
+      const DifferenceEquation eq = controller_difference_equation(controller, cs.sample_time_s, setpoint_weight_of(cs, controller),
                                                                    cs.derivative_on_measurement ? 0.0 : 1.0);
       d.status = sampled.simulate(problem.plant_realization, eq, problem.spec.reference.amplitude, problem.band_fraction,
                                   d.simulated);

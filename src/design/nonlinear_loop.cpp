@@ -51,8 +51,15 @@ NonlinearSetup nonlinear_setup(const Problem& problem, double linear_horizon_s, 
 }
 
 NonlinearResult simulate_on_nonlinear_loop(const Problem& problem, const Controller& controller, const NonlinearSetup& setup) {
-  return simulate_nonlinear(setup.delay_approximant ? problem.plant_realization : problem.delay_free_realization,
-                            controller, setup.actuator, setup.options, problem.spec.reference.amplitude,
+  const StateSpace& plant = setup.delay_approximant ? problem.plant_realization : problem.delay_free_realization;
+  if (controller.setpoint_weight) {
+    // A searched set-point weight (search.tune_setpoint_weight) replaces the spec's.
+    LoopOptions options = setup.options;
+    options.setpoint_weight = *controller.setpoint_weight;
+    return simulate_nonlinear(plant, controller, setup.actuator, options, problem.spec.reference.amplitude,
+                              problem.band_fraction);
+  }
+  return simulate_nonlinear(plant, controller, setup.actuator, setup.options, problem.spec.reference.amplitude,
                             problem.band_fraction);
 }
 

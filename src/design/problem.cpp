@@ -5,6 +5,8 @@
 #include <algorithm>
 #include <cmath>
 #include <limits>
+#include <stdexcept>
+#include <string>
 
 #include "specloop/sim/response.hpp"
 
@@ -12,7 +14,39 @@ namespace specloop {
 
 namespace {
 constexpr double kInf = std::numeric_limits<double>::infinity();
+// The default low end of a searched set-point weight (log scale: 0 itself is out of reach; at
+// b = 0.01 the proportional kick is 1 % of the error's).
+constexpr double kSetpointWeightLow = 0.01;
 }  // namespace
+
+std::size_t structure_parameter_count(const Problem& problem) {
+  return problem.parameters.size() - (problem.spec.search.tune_setpoint_weight ? 1 : 0);
+}
+
+Controller controller_from(const Problem& problem, const double* params) {
+  const std::size_t count = structure_parameter_count(problem);
+  const ControllerSpec& cs = problem.spec.controller;
+  Controller c = make_controller(cs.structure, std::vector<double>(params, params + count), cs.derivative_filter,
+                                 problem.action);
+  if (problem.spec.search.tune_setpoint_weight) c.setpoint_weight = params[count];
+  return c;
+}
+
+Controller controller_from(const Problem& problem, const std::vector<double>& params) {
+  if (params.size() != problem.parameters.size())
+    throw std::invalid_argument("controller_from: the search vector has the wrong size");
+  return controller_from(problem, params.data());
+}
+
+std::vector<double> search_vector(const Problem& problem, const Controller& c) {
+  std::vector<double> v = c.series;
+  if (problem.spec.search.tune_setpoint_weight) v.push_back(setpoint_weight_of(problem.spec.controller, c));
+  return v;
+}
+
+double setpoint_weight_of(const ControllerSpec& spec, const Controller& c) {
+  return c.setpoint_weight.value_or(spec.setpoint_weight);
+}
 
 Problem make_problem(const Spec& spec, const Characterization& ch) {
   Problem p;
@@ -70,10 +104,14 @@ Problem make_problem(const Spec& spec, const Characterization& ch) {
                      p.band_fraction, m) == StepStatus::ok)
       p.tracking_window_s = sim.grid().horizon_s();
   }
+  if (spec.search.tune_setpoint_weight)
+    p.parameters.push_back({std::string(kSetpointWeightParameter), "",
+                            "set-point weight b: the proportional term acts on b·r − y"});
   const double n = spec.controller.derivative_filter;
   for (const ParameterInfo& info : p.parameters) {
     std::pair<double, double> b;
-    if (info.name == "gain") b = {k_scale * 1e-3, k_scale * 1e3};
+    if (info.name == kSetpointWeightParameter) b = {kSetpointWeightLow, 1.0};
+    else if (info.name == "gain") b = {k_scale * 1e-3, k_scale * 1e3};
     else if (info.name == "ratio" || info.name == "lag_ratio") b = {1.05, 100.0};
     else if (info.name == "zero_damping") b = {pid_min_zero_damping(n) * 1.0001, 20.0};
     else b = {w_lo * 1e-3, w_hi * 10.0};

@@ -168,14 +168,14 @@ SearchResult optimize_over_scenarios(const Problem& nominal, std::vector<Scenari
     if (round == 0) total = r.summary;
     else add_summary(total, r.summary);
     result = std::move(r);
-    from = result.controller.series;
+    from = search_vector(nominal, result.controller);
     // The next round's other starts: the seed and the gentlest feasible designs of this one (a
     // lower effort tends to tolerate more plant variation).
     options.extra_starts = {seed_parameters};
     for (std::size_t j = 0; j < result.archive.size() && j < 3; ++j) options.extra_starts.push_back(result.archive[j].series);
     // Only some corners in the set: look for worse ones next to the worst (they join the set).
     log.corners_found += add_worse_corners(
-        nominal, set, make_controller(nominal.spec.controller.structure, from, nominal.spec.controller.derivative_filter, nominal.action));
+        nominal, set, controller_from(nominal, from));
     const std::vector<double> v = violations_on_set(nominal, set, options, from, jobs);
     log.scenario_evaluations += static_cast<int>(set.size());
     log.converged = std::all_of(v.begin(), v.end(), [](double x) { return x == 0.0; });

@@ -111,8 +111,7 @@ class CostFunction {
     Outcome out;
     Controller c;
     try {
-      c = make_controller(problem_.spec.controller.structure, std::vector<double>(params, params + problem_.parameters.size()),
-                          problem_.spec.controller.derivative_filter, problem_.action);
+      c = controller_from(problem_, params);
     } catch (const std::invalid_argument&) {
       out.objective = kUnstableCost;
       return out;
@@ -358,7 +357,7 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
   const std::vector<double> best_x = cost.best_x.empty() ? x : cost.best_x;
   std::vector<double> best(dim);
   for (std::size_t i = 0; i < dim; ++i) best[i] = std::exp(best_x[i]);
-  SearchResult result{make_controller(problem.spec.controller.structure, best, problem.spec.controller.derivative_filter, problem.action),
+  SearchResult result{controller_from(problem, best),
                       summary, {}};
   for (auto& [band, candidate] : cost.archive) result.archive.push_back(std::move(candidate));
   return result;
@@ -409,7 +408,7 @@ SearchResult refine_on_nonlinear_loop(const Problem& problem, const SearchResult
 
   // Screening: the linear optimum, the extra starts (hand designs), and the archive across its
   // effort bands (gentle to aggressive designs, at most kScreened).
-  std::vector<std::vector<double>> screen{to_log(linear.controller.series)};
+  std::vector<std::vector<double>> screen{to_log(search_vector(problem, linear.controller))};
   for (const auto& e : extra_starts)
     if (e.size() == dim) screen.push_back(to_log(e));
   const std::size_t n_archive = linear.archive.size();
@@ -458,7 +457,7 @@ SearchResult refine_on_nonlinear_loop(const Problem& problem, const SearchResult
   summary.nonlinear_evaluations = stage.evaluations;
   summary.evaluations = linear.summary.evaluations + stage.evaluations;
   summary.wall_time_s = linear.summary.wall_time_s + elapsed();
-  const std::vector<double> linear_x = to_log(linear.controller.series);
+  const std::vector<double> linear_x = to_log(search_vector(problem, linear.controller));
   const bool feasible = stage.best < kInfeasibleCost;
   const bool linear_feasible = linear_outcome.stable && linear_outcome.violation == 0.0;
   const std::string screened_words = fmt::format(
@@ -467,7 +466,7 @@ SearchResult refine_on_nonlinear_loop(const Problem& problem, const SearchResult
   if (feasible && !stage.best_x.empty() && stage.best_x != linear_x) {
     std::vector<double> best(dim);
     for (std::size_t i = 0; i < dim; ++i) best[i] = std::exp(stage.best_x[i]);
-    out.controller = make_controller(problem.spec.controller.structure, best, problem.spec.controller.derivative_filter, problem.action);
+    out.controller = controller_from(problem, best);
     summary.nonlinear_stage = fmt::format("nonlinear stage: {} evaluations on the nonlinear loop ({}) moved the design to "
                                           "one that meets every requirement there{}",
                                           stage.evaluations, screened_words,

@@ -73,7 +73,7 @@ std::optional<ResponseTrace> linear_trace(const Problem& problem, const Design& 
   StepStatus status = StepStatus::numerical_failure;
   if (d.sampled) {  // the sampled loop, as the design was measured
     const ControllerSpec& cs = spec.controller;
-    const DifferenceEquation eq = controller_difference_equation(d.controller, cs.sample_time_s, cs.setpoint_weight,
+    const DifferenceEquation eq = controller_difference_equation(d.controller, cs.sample_time_s, setpoint_weight_of(cs, d.controller),
                                                                  cs.derivative_on_measurement ? 0.0 : 1.0);
     status = sampled.simulate(problem.plant_realization, eq, spec.reference.amplitude, problem.band_fraction, m, &trace);
   } else {

@@ -34,7 +34,7 @@ json controller_json(const Design& d) {
                 {"ti", c.standard->has_integral ? number_json(c.standard->ti) : json(nullptr)},
                 {"td", c.standard->has_derivative ? number_json(c.standard->td) : json(nullptr)},
                 {"n", c.standard->has_derivative ? number_json(c.standard->n) : json(nullptr)}};
-  return {{"structure", structure_name(c.structure)},
+  json out = {{"structure", structure_name(c.structure)},
           {"action", action_name(c.action)},
           {"numerator", numbers(c.transfer.numerator.coefficients)},
           {"denominator", numbers(c.transfer.denominator.coefficients)},
@@ -44,6 +44,9 @@ json controller_json(const Design& d) {
           {"series", series},
           {"parallel", parallel},
           {"standard", standard}};
+  // A searched set-point weight (search.tune_setpoint_weight); otherwise the spec's applies.
+  if (c.setpoint_weight) out["setpoint_weight"] = number_json(*c.setpoint_weight);
+  return out;
 }
 
 

@@ -267,6 +267,7 @@ json spec_json(const Spec& spec) {
             {"simulate", simulate_mode_name(spec.search.simulate)},
             {"margin_pct", number_json(spec.search.margin_pct)},
             {"objective_at", objective_at_name(spec.search.objective_at)},
+            {"tune_setpoint_weight", spec.search.tune_setpoint_weight},
             {"bounds", bounds}}},
           {"sweep", {{"vary", spec.sweep_vary}}},
           {"uncertainty", uncertainty},

@@ -153,9 +153,13 @@ Table controller_box(const DesignRun& run, const Design& d) {
     row("derivative_on", "derivative acts on",
         cs.derivative_on_measurement ? "the measurement (c = 0: no derivative kick on a set-point step)" : "the error (c = 1)",
         cs.derivative_on_measurement ? "measurement" : "error");
-  if (pid_type)
-    row("setpoint_weight", "set-point weight", fmt::format("b = {:.4g} (the proportional term acts on b·r − y)", cs.setpoint_weight),
-        fmt::format("{:.17g}", cs.setpoint_weight));
+  if (pid_type) {
+    const double b = setpoint_weight_of(cs, c);
+    row("setpoint_weight", "set-point weight",
+        fmt::format("b = {:.4g} (the proportional term acts on b·r − y{})", b,
+                    c.setpoint_weight ? "; searched with the feedback gains" : ""),
+        fmt::format("{:.17g}", b));
+  }
   else
     row("setpoint_weight", "set-point weight", "— (this structure acts on the error r − y)", "none");
   const std::string action = controller_action(run);

@@ -30,6 +30,7 @@ void read_bounds(const DocumentReader& reader, const Entry& entry, SearchSpec& s
     reader.fail_expected(entry.at, "search.bounds", "a table of parameter = [low, high]", describe(*entry.value));
   std::vector<std::string_view> names;
   for (const auto& info : structure_parameters(structure)) names.emplace_back(info.name);
+  if (search.tune_setpoint_weight) names.emplace_back(kSetpointWeightParameter);
   for (const auto& bound : entries_in_file_order(*bounds)) {
     const std::string key = fmt::format("search.bounds.{}", bound.key);
     if (std::find(names.begin(), names.end(), bound.key) == names.end()) {
@@ -46,6 +47,8 @@ void read_bounds(const DocumentReader& reader, const Entry& entry, SearchSpec& s
     const Number hi = reader.number_from(*pair->get(1), bound.at, key);
     reader.require(lo.value > 0.0, lo, key, "a low bound > 0 (parameters are searched on a log scale)");
     reader.require(hi.value > lo.value, hi, key, fmt::format("a high bound above the low bound ({})", lo.shown));
+    if (bound.key == kSetpointWeightParameter)
+      reader.require(hi.value <= 1.0, hi, key, "a high bound <= 1 (b weighs the set point within the error)");
     search.bounds.emplace_back(std::string(bound.key), std::make_pair(lo.value, hi.value));
   }
 }
@@ -80,6 +83,12 @@ void read_search(const DocumentReader& reader, SearchSpec& search, Structure str
   if (const auto margin = reader.ranged_number(
           table, kSection, "margin_pct", [](double v) { return v >= 0.0 && v < 50.0; }, "a percentage in [0, 50)"))
     search.margin_pct = *margin;
+  if (const auto entry = find_entry(*table, "tune_setpoint_weight")) {
+    const auto* flag = entry->value->as_boolean();
+    if (flag == nullptr)
+      reader.fail_expected(entry->at, "search.tune_setpoint_weight", "true or false", describe(*entry->value));
+    search.tune_setpoint_weight = flag->get();
+  }
   if (const auto entry = find_entry(*table, "bounds")) read_bounds(reader, *entry, search, structure);
 }
 

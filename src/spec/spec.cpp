@@ -45,6 +45,19 @@ SpecAsRead read_document(const toml::table& document, const std::string& path) {
   if (spec.search.objective_at != ObjectiveAt::nominal && !spec.uncertainty.active())
     reading::fail_at(path, reading::find_entry(*reader.section("search"), "objective_at")->at, "search.objective_at",
                      "\"worst\" reads the objective over the plants of [uncertainty], and the file has none");
+  if (spec.search.tune_setpoint_weight) {
+    const auto at = reading::find_entry(*reader.section("search"), "tune_setpoint_weight")->at;
+    const Structure s = spec.controller.structure;
+    if (s != Structure::pi && s != Structure::pid)
+      reading::fail_at(path, at, "search.tune_setpoint_weight",
+                       fmt::format("a set-point weight needs integral action to keep the final value on the set point "
+                                   "(PI or PID); structure '{}' has none",
+                                   structure_name(s)));
+    const toml::table* controller = reader.section("controller");
+    if (controller != nullptr && reading::find_entry(*controller, "setpoint_weight"))
+      reading::fail_at(path, at, "search.tune_setpoint_weight",
+                       "controller.setpoint_weight fixes b, and tune_setpoint_weight searches it: give one of them");
+  }
   if (times) reading::check_zero_error_integrator(path, spec, *sources);
   reading::check_load_requirements(reader, spec, path);
   read.sources = std::move(sources);

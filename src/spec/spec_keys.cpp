@@ -98,6 +98,11 @@ constexpr SpecKey kKeysAfterRequirements[] = {
     {"search.objective_at", "—", "`nominal`",
      "with `[uncertainty]`: `nominal` minimizes the objective on the nominal plant, `worst` its worst value over the "
      "scenario set"},
+    {"search.tune_setpoint_weight", "—", "false",
+     "`true`: the set-point weight b (the proportional term acts on b·r − y) is searched with the feedback gains, "
+     "in [0.01, 1] unless `search.bounds.setpoint_weight` says otherwise (log scale, like every parameter): the "
+     "feedback is tuned for the loop's robustness and disturbances, b for the set-point overshoot. PI and PID only; "
+     "not together with `controller.setpoint_weight`"},
     {"search.bounds.<parameter>", "parameter's unit", "from the plant",
      "`[low, high]`, 0 < low < high; parameter names per structure in the `design` section; the gain's bounds are on "
      "its magnitude (reverse action makes it negative)"},

@@ -94,6 +94,7 @@ const std::map<std::string, std::pair<std::string, std::string>>& examples() {
       {"search.simulate", {kPlant + "[search]\nsimulate = @\n", "\"nonlinear\""}},
       {"search.margin_pct", {kPlant + "[search]\nmargin_pct = @\n", "3.0"}},
       {"search.bounds.<parameter>", {kPlant + "[search.bounds]\ngain = @\n", "[0.1, 10.0]"}},
+      {"search.tune_setpoint_weight", {kPlant + "[controller]\nstructure = \"pi\"\n[search]\ntune_setpoint_weight = @\n", "true"}},
       {"search.objective_at", {kPlant + "[search]\nobjective_at = @\n" + kUncertain, "\"worst\""}},
       {"uncertainty.<plant key>", {kPlant + "[uncertainty]\n\"plant.poles[0]\" = @\n", "[-1.5, -0.5]"}},
       {"uncertainty.samples", {kPlant + kUncertain + "samples = @\n", "32"}},

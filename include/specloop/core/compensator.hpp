@@ -5,12 +5,17 @@
 
 #include <optional>
 #include <string>
+#include <string_view>
 #include <vector>
 
 #include "specloop/core/lti.hpp"
 #include "specloop/core/vocabulary.hpp"
 
 namespace specloop {
+
+/// The name of the set-point weight b as a search parameter (search.tune_setpoint_weight): in
+/// [search.bounds] and in the search's parameter list, after the structure's own.
+inline constexpr std::string_view kSetpointWeightParameter = "setpoint_weight";
 
 /// One named series parameter of a structure.
 struct ParameterInfo {
@@ -51,6 +56,9 @@ struct Controller {
   TransferFunction transfer;              // C(s), continuous time
   std::optional<ParallelGains> parallel;  // empty for lag and lead-lag (no PID equivalent)
   std::optional<StandardForm> standard;
+  /// The set-point weight b when the search tuned it (search.tune_setpoint_weight); empty: the
+  /// spec's controller.setpoint_weight applies (setpoint_weight_of in design/problem.hpp).
+  std::optional<double> setpoint_weight;
 };
 
 /// Builds the controller from series parameters and the action (+1 direct, −1 reverse: the sign

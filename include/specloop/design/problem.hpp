@@ -32,12 +32,26 @@ struct Problem {
   bool needs_margins = false;                   // a margin requirement or the Ms objective
   bool needs_peaks = false;                     // noise_gain_max or complementary_peak_max (add_closed_loop_peaks)
   bool needs_load = false;                      // a load requirement or the load_iae objective (regulation.hpp)
-  std::vector<ParameterInfo> parameters;        // of the spec's structure
+  std::vector<ParameterInfo> parameters;        // of the spec's structure, then b when search.tune_setpoint_weight
   std::vector<std::pair<double, double>> bounds;  // per parameter, natural units, lo < hi
   /// controller.sample_time is set and the plant is strictly proper: the linear loop of every
   /// measurement and of the search is the sampled one (sampled_loop.hpp), not the continuous one.
   bool sampled = false;
 };
+
+/// The count of the structure's own parameters in Problem::parameters (all of them, or all but
+/// the trailing set-point weight b when the search tunes it).
+std::size_t structure_parameter_count(const Problem& problem);
+/// The controller a search vector (natural units, Problem::parameters order) stands for: the
+/// structure's parameters, and b when the search tunes it. Throws as make_controller does.
+Controller controller_from(const Problem& problem, const double* params);
+Controller controller_from(const Problem& problem, const std::vector<double>& params);
+/// A controller's search vector: its series parameters, then its b (the spec's when it has none)
+/// when the search tunes b.
+std::vector<double> search_vector(const Problem& problem, const Controller& c);
+/// The set-point weight b the controller runs with: its own when the search tuned it, else the
+/// spec's controller.setpoint_weight.
+double setpoint_weight_of(const ControllerSpec& spec, const Controller& c);
 
 /// Builds the Problem: default search bounds from the plant's pole/zero scale and the reference
 /// gain, overridden by [search.bounds]. Throws SpecError for a bound that names no parameter.

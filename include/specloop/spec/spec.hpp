@@ -117,6 +117,7 @@ struct SearchSpec {
   double max_time_s = 20.0;                   // wall-time cap, s
   SimulateMode simulate = SimulateMode::automatic;  // search.simulate (see SimulateMode)
   double margin_pct = 1.0;                    // limits tightened by this % of themselves in the search, band narrowed too; [0, 50)
+  bool tune_setpoint_weight = false;          // the set-point weight b is a search variable (PI, PID)
   /// [search.bounds]: parameter name → [lo, hi], natural units, 0 < lo < hi.
   std::vector<std::pair<std::string, std::pair<double, double>>> bounds;
 };
