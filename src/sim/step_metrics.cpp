@@ -402,6 +402,15 @@ void StepMeasure::post_peak_dip(const Found& peak, StepMetrics& m) const {
     const Found f = refine_extremum(0, k, -sign_);
     if (-sign_ * f.v > -sign_ * dip.v && time_of(f) > *m.peak_time_s) dip = f;
   });
+  // The horizon's last sample is no turning point, but where the response still creeps toward y∞
+  // from short of it there, it is the lowest point after the peak that the run sees (the
+  // definition's min over t > t_peak; a slow PI zero's tail does this). An exact sample: no refining.
+  const int last = count_ - 1;
+  if (last > std::max(peak.j, 0) + 1 && fn(last) < 0.0 && -sign_ * y_[last] > -sign_ * dip.v &&
+      t(last) > *m.peak_time_s) {
+    m.post_peak_dip_pct = std::max(0.0, -fn(last) * 100.0);
+    return;
+  }
   if (dip.j >= 0) {
     // The dip decides whether the peak counts (design.hpp, effective_peak_time): on the exact
     // response when it comes within 1 % of the overshoot, else the Hermite's value stands.
