@@ -154,15 +154,6 @@ DESIGNS = ("reference", "classical", "ultimate_gain", "simc", "amigo", "optimize
 # run; an entry that matches no failure any more is printed as such (remove it; --strict-known
 # fails the run on it). The lead removes entries as the merges that fix them land.
 KNOWN_FAILING = {
-    # Found by the amigo column (branch rules), a sim-layer reading outside that branch's scope:
-    # on the sampled loop's nonlinear run the tool reports peak_time 3.2500000000000004 (a sample
-    # instant) where SciPy's trace has one hump at 3.146 and falls monotonically through 3.25
-    # (9.3e-5·|y∞| lower there, inside the 1e-4 tie band). Likely cause: extrema_from_series
-    # (src/sim/sample_metrics.cpp) merges two streams whose times differ by a rounding (3.25 and
-    # 3.2500000000000004), so `unique` keeps both and `local_max` (>=) sees a spurious hump that
-    # the tie rule then picks as the latest one.
-    "claims/sampled_delay_clamp/amigo/nonlinear/metric/peak_time":
-        "the nonlinear run's tied-hump reading picks a spurious sample-instant hump (sample_metrics.cpp)",
 }
 
 
