@@ -82,14 +82,17 @@ TEST_CASE("tune_setpoint_weight is refused where b cannot act or is fixed", "[se
 }
 
 TEST_CASE("a pair damped to within rounding of ζ = 1 gets a finite overshoot error", "[dominance]") {
-  // T(s) = ω²/((s + 1)² + 1e-12): the pair −1 ± j1e-6 has ζ = 1/√(1 + 1e-12), whose predicted
-  // overshoot exp(−πζ/√(1 − ζ²)) ≈ exp(−π·1e6) underflows to 0; the simulated one is 0 too.
-  const TransferFunction t(Polynomial(std::vector<double>{1.0 + 1e-12}), Polynomial(std::vector<double>{1.0, 2.0, 1.0 + 1e-12}));
-  const Complex pair(-1.0, 1e-6);
+  // K/(s(s + 2)) under P gain K = 1 + 1e-12: T(s) = K/(s² + 2s + K), the pair −1 ± j1e-6 with
+  // ζ = 1/√K, whose predicted overshoot exp(−πζ/√(1 − ζ²)) ≈ exp(−π·1e6) underflows to 0; the
+  // simulated one is 0 too.
+  const double k = 1.0 + 1e-12;
+  const TransferFunction plant(Polynomial(std::vector<double>{1.0}), Polynomial(std::vector<double>{1.0, 2.0, 0.0}));
+  const TransferFunction t(Polynomial(std::vector<double>{k}), Polynomial(std::vector<double>{1.0, 2.0, k}));
+  const Complex pair(-1.0, std::sqrt(k - 1.0));
   const SecondOrderPrediction pred = predict_second_order(pair, 0.02);
   StepMetrics sim;
   StepSimulator stepper;
-  REQUIRE(stepper.simulate(realize(t), 1.0, 0.02, sim) == StepStatus::ok);
+  REQUIRE(stepper.simulate(close_loop(realize(plant), static_gain(k)), 1.0, 0.02, sim) == StepStatus::ok);
   const DominanceDiagnosis d = diagnose_dominance(t, pair, pred, sim);
   CHECK(std::isfinite(d.overshoot_error_pct));
   CHECK(std::abs(d.overshoot_error_pct) <= 10.0);  // both "no overshoot": they agree
