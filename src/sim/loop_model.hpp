@@ -55,15 +55,33 @@ struct DelayLine {
     }
     return v;
   }
+  // The segment holding q: the first whose end is past q (right limit) or at or past it (left
+  // limit), else the last. The stepper's stages ask near the previous answer, so that segment and
+  // the next are tried before the binary search (the same segment either way).
+  std::size_t segment_of(double q, bool right) const {
+    const auto holds = [&](std::size_t i) {
+      if (i >= segments.size()) return false;
+      const bool here = right ? q < segments[i].t1 : !(segments[i].t1 < q);
+      const bool before = i == 0 || (right ? !(q < segments[i - 1].t1) : segments[i - 1].t1 < q);
+      return here && before;
+    };
+    const std::size_t last = segments.size() - 1;
+    if (right ? !(q < segments[last].t1) : segments[last].t1 < q) return last;  // past the end: the last one
+    if (holds(hint)) return hint;
+    if (holds(hint + 1)) return ++hint;
+    auto it = right ? std::upper_bound(segments.begin(), segments.end(), q, [](double v, const Segment& s) { return v < s.t1; })
+                    : std::lower_bound(segments.begin(), segments.end(), q, [](const Segment& s, double v) { return s.t1 < v; });
+    if (it == segments.end()) --it;
+    hint = static_cast<std::size_t>(it - segments.begin());
+    return hint;
+  }
   double value(double tau) const {
     const bool right = tau <= lo;
     const double q = right ? lo : std::min(tau, hi);
     if (q < 0.0 || (q == 0.0 && !right) || segments.empty()) return 0.0;  // at rest before t = 0
-    auto it = right ? std::upper_bound(segments.begin(), segments.end(), q, [](double v, const Segment& s) { return v < s.t1; })
-                    : std::lower_bound(segments.begin(), segments.end(), q, [](const Segment& s, double v) { return s.t1 < v; });
-    if (it == segments.end()) --it;
-    return interpolate(*it, tau);
+    return interpolate(segments[segment_of(q, right)], tau);
   }
+  mutable std::size_t hint = 0;  // the segment of the last lookup
 };
 
 // The parallel control law u = Kp·(b·r − y) + I + Kd·D(c·r − y), shared by the continuous loop

@@ -86,7 +86,8 @@ constexpr SpecKey kKeysAfterRequirements[] = {
     {"search.simulate", "—", "`auto`",
      "`auto`: the search ends on the nonlinear loop when an effect the linear loop leaves out acts for the linear "
      "optimum (measured: limits the command goes beyond, a binding rate limit, sampling, delay, expression plant, "
-     "noise, load step), and the verdict and exit code come from that loop; `nonlinear`: that stage always; "
+     "noise, load step; not when only the delay and a load step act and the linear optimum meets everything on both "
+     "loops), and the verdict and exit code come from that loop; `nonlinear`: that stage always; "
      "`linear`: never (the verdict is still read on the loop the spec describes). See \"Which loop judges\""},
     {"search.margin_pct", "%", "1",
      "the search's design margin, in [0, 50): in the search every limit is tightened by this percentage of itself "

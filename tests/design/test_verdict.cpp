@@ -101,6 +101,24 @@ TEST_CASE("auto runs the nonlinear stage exactly when an effect acts; the verdic
     CHECK(run.search.nonlinear_evaluations > 0);
     CHECK(run.judged_on_nonlinear);
   }
+  SECTION("only linear effects act (an exact delay, a load step) and the linear optimum meets everything on both "
+          "loops: no stage, still judged on the described loop") {
+    const std::string delayed = "[plant]\npoles = [-0.8, -5.0]\ngain = 6.0\ndelay = 0.05\n[controller]\nstructure = \"pi\"\n"
+                                "[requirements]\novershoot_max_pct = 10.0\n[disturbance]\ntime = 8.0\nsize = 0.2\n" + budget;
+    const DesignRun run = run_design(parse_spec(delayed, "<test>"));
+    CHECK(run.search.active_effects == Effects{"delay", "load_step"});
+    CHECK(run.search.nonlinear_evaluations == 0);
+    CHECK_THAT(run.search.nonlinear_stage, Contains("keep the loop linear"));
+    CHECK(run.judged_on_nonlinear);
+    const Design* o = run.find(DesignRole::optimized);
+    REQUIRE(o->nonlinear);
+    CHECK(o->meets_all);
+    CHECK(o->nonlinear->meets_all);
+    CHECK(run.met);
+    // Asked for, the stage runs on the same spec.
+    const DesignRun forced = run_design(parse_spec(delayed + "simulate = \"nonlinear\"\n", "<test>"));
+    CHECK(forced.search.nonlinear_evaluations > 0);
+  }
   SECTION("search.simulate = \"linear\" skips the stage but the verdict still reads the described loop") {
     const DesignRun run = run_design(parse_spec(
         winch("[actuator]\nmin = -0.9\nmax = 0.9\n", "", "[search]\nmax_evaluations = 600\nsimulate = \"linear\"\n"),
