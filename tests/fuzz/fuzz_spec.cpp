@@ -140,6 +140,16 @@ void check_spec(const specloop::Spec& spec, std::string_view text) {
   CHECK(finite(s.max_time_s) && s.max_time_s > 0.0 && s.max_time_s <= 86400.0, "search.max_time out of range");
   std::vector<std::string> names;
   for (const auto& info : specloop::structure_parameters(c.structure)) names.emplace_back(info.name);
+  // The set-point weight is a search parameter only when searched, only with integral action, and
+  // then not also fixed by controller.setpoint_weight; its bound stays within (0, 1].
+  if (s.tune_setpoint_weight) {
+    CHECK(specloop::has_integrator(c.structure), "search.tune_setpoint_weight on a structure without integral action");
+    CHECK(c.setpoint_weight == 1.0, "search.tune_setpoint_weight with controller.setpoint_weight = {}", c.setpoint_weight);
+    names.emplace_back(specloop::kSetpointWeightParameter);
+    for (const auto& [name, range] : s.bounds)
+      if (name == specloop::kSetpointWeightParameter) CHECK(range.second <= 1.0, "search.bounds.setpoint_weight above 1");
+  }
+  if (spec.rules.simc_tau_c_s) CHECK(finite(*spec.rules.simc_tau_c_s) && *spec.rules.simc_tau_c_s > 0.0, "rules.simc_tau_c not > 0");
   for (const auto& [name, range] : s.bounds) {
     CHECK(std::find(names.begin(), names.end(), name) != names.end(),
           "search.bounds.{} is not a parameter of the structure", name);
