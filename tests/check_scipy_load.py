@@ -20,15 +20,20 @@ C(s)):
     scipy.optimize.brentq, the IAE by the trapezoid rule split at sign changes. load_peak within
     1e-6, load_recovery_time within 1e-5, load_iae within 2e-4 relative (the tool integrates to
     its grid's horizon, where the slowest mode has decayed to 1e-4: a truncation of that order).
+(b') With a sampled controller (tests/regulator/sampled_pi.toml) the same three quantities of the
+    sampled loop: the linear model's zero-order-hold model driven by each design's reported
+    difference equation with r = 0 and the load added to the held u, stepped exactly by
+    scipy.linalg.expm at 200 points per period (exact anywhere through the state at the last
+    point), to rest; the same tolerances.
 (c) Mt = max|T(jω)| and the noise gain max|C(jω)/(1 + L(jω))| of every design where the spec
     requires one, against a dense sweep (20 000 log-spaced points over the loop's corners ± 4
     decades, then scipy.optimize.minimize_scalar around the largest), within 1e-6 relative.
 (d) The requirement checks: each load or peak check's value equals the metric it reads and
     `met` says value ≤ limit.
-(e) The nonlinear loop's load response (demo and damped_pi: a load step after the set-point has
+(e) The nonlinear loop's load response (demo, sampled_pi and damped_pi: a load step after the set-point has
     settled, no limit reached): its load_peak and load_iae agree with the linear loop's within
     1e-3 relative on damped_pi (the nonlinear loop is linear there), and on the demo, whose
-    nonlinear loop has the exact delay instead of its Padé approximant, within 5 %.
+    nonlinear loop has the exact delay instead of its Padé approximant, within 5 % (so has sampled_pi's).
 (f) The classic result (common practice; Åström & Hägglund, Advanced PID Control, 2006): for PI
     control the integral of the load error is d/Ki exactly, so a load response that does not
     change sign has IAE = |d|/Ki. On damped_pi (a well-damped loop, Ms ≤ 1.2) every PI design
@@ -62,7 +67,7 @@ sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 from reference_common import Tally  # noqa: E402
 
 SPECS = ["specs/drying_air_heater.toml", "tests/regulator/lag_delay_pi.toml", "tests/regulator/damped_pi.toml",
-         "tests/regulator/level_pid.toml"]
+         "tests/regulator/level_pid.toml", "tests/regulator/sampled_pi.toml"]
 
 
 def pade_coefficients(m):
@@ -144,6 +149,56 @@ class Response:
         return bool(np.any(self.y > 1e-9 * scale) and np.any(self.y < -1e-9 * scale))
 
 
+class SampledLoadResponse(Response):
+    """The sampled loop's load response, independently of the tool's simulator: the plant
+    num/den (tf2ss) under a zero-order hold of u[k] + d over each period Ts, u from the reported
+    difference equation with r = 0 (a0·u[k] = −Σ mn_i·y[k−i] − Σ_{i≥1} a_i·u[k−i]); the state
+    stepped exactly by scipy.linalg.expm at `per_period` points per period (the intersample
+    output is exact at those points and, through `at`, anywhere), until neither the state nor u
+    has moved by more than 1e-13 of its scale for 50 periods running."""
+
+    def __init__(self, num, den, eq, size, per_period=200):
+        a, b, c, d = signal.tf2ss(num, den)
+        self.a, self.b, self.c = a, b[:, 0], c[0]
+        self.d = 0.0
+        ts = eq["sample_time"]
+        mn, ad = eq["measurement_numerator"], eq["denominator"]
+        phi, gamma = self.step_matrices(ts)
+        sub_phi, sub_gamma = self.step_matrices(ts / per_period)
+        x = np.zeros(len(self.b))
+        ys, us = [0.0] * len(mn), [0.0] * max(1, len(ad) - 1)  # y[k], y[k−1], …; u[k−1], …
+        states, inputs = [], []
+        x_scale = u_scale = 0.0
+        quiet = 0
+        while quiet < 50 and len(states) < 2_000_000:
+            ys = [float(self.c @ x)] + ys[:-1]
+            u = (-sum(m * v for m, v in zip(mn, ys)) - sum(a_ * v for a_, v in zip(ad[1:], us))) / ad[0]
+            du = abs(u - us[0])
+            us = [u] + us[:-1]
+            v = u + size
+            xs = x.copy()
+            for _ in range(per_period):
+                states.append(xs.copy())
+                inputs.append(v)
+                xs = sub_phi @ xs + sub_gamma * v
+            x_next = phi @ x + gamma * v
+            x_scale = max(x_scale, float(np.max(np.abs(x_next))))
+            u_scale = max(u_scale, abs(v))
+            moved = float(np.max(np.abs(x_next - x)))
+            quiet = quiet + 1 if moved <= 1e-13 * x_scale and du <= 1e-13 * u_scale else 0
+            x = x_next
+        self.t = np.arange(len(states)) * (ts / per_period)
+        self.x = np.array(states)
+        self.v = np.array(inputs)
+        self.y = self.x @ self.c
+        self.horizon = float(self.t[-1])
+
+    def at(self, t):
+        k = min(int(np.searchsorted(self.t, t, side="right")) - 1, len(self.t) - 1)
+        phi, gamma = self.step_matrices(t - self.t[k])
+        return float(self.c @ (phi @ self.x[k] + gamma * self.v[k]))
+
+
 def polymul(a, b):
     return list(np.polymul(a, b))
 
@@ -213,8 +268,15 @@ def check_spec(tally, case, result, spec_text_keys):
         ctrl = d["controller"]
         cn, cd = ctrl["numerator"], ctrl["denominator"]
         m = d["simulated"]
-        num, den = load_transfer(gn, gd, cn, cd, size)
-        r = Response(num, den)
+        eq = (d.get("nonlinear") or {}).get("difference_equation")
+        if spec["controller"]["sample_time"]:
+            # (b') the sampled loop: the plant's zero-order-hold model under the reported
+            # difference equation (its coefficients are checked against the published
+            # discretizations in tests/check_scipy_sampled.py).
+            r = SampledLoadResponse(gn, gd, eq, size)
+        else:
+            num, den = load_transfer(gn, gd, cn, cd, size)
+            r = Response(num, den)
         responses[role] = r
         integrates = abs(cd[-1]) == 0.0
         # (b)
@@ -355,7 +417,7 @@ def main():
                 if case == "damped_pi":
                     check_nonlinear(tally, case, result, 1e-3)
                     check_inverse_ki(tally, case, result, responses, size)
-                if case == "drying_air_heater":
+                if case in ("drying_air_heater", "sampled_pi"):
                     check_nonlinear(tally, case, result, 0.05)
                 if case == "lag_delay_pi":
                     check_rules(tally, case, result, responses, model, size)

@@ -50,6 +50,15 @@ CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double
       const DifferenceEquation eq = controller_difference_equation(ctl, cs.sample_time_s, b,
                                                                    cs.derivative_on_measurement ? 0.0 : 1.0);
       status = sampled_sim_.simulate(plant.plant_realization, eq, amplitude, band_, metrics_);
+      if (status == StepStatus::ok && nominal_.needs_load) {
+        // The same loop driven by the load (poles as the set point's: stable whenever it is).
+        if (sampled_load_sim_.simulate_load(plant.plant_realization, eq, load_size_, load_offset_, band_, load_metrics_) !=
+            StepStatus::ok) {
+          out.objective = kUnstableCost;
+          return out;
+        }
+        take_load_metrics(load_metrics_, has_integrator(structure), metrics_);
+      }
     } catch (const std::invalid_argument&) {
       status = StepStatus::numerical_failure;
     }
@@ -111,7 +120,11 @@ CandidateOutcome CandidateEvaluator::judge(const TransferFunction& plant, double
 }
 
 LinearGrid CandidateEvaluator::linear_grid() const {
-  if (last_sampled_) return {sampled_sim_.horizon_s(), sampled_sim_.fine_step_s(), sampled_sim_.fine_until_s()};
+  if (last_sampled_) {
+    LinearGrid g{sampled_sim_.horizon_s(), sampled_sim_.fine_step_s(), sampled_sim_.fine_until_s()};
+    if (nominal_.needs_load) g.load_horizon_s = load_settle_horizon(sampled_load_sim_.horizon_s());
+    return g;
+  }
   LinearGrid g = linear_grid_of(sim_.grid());
   if (nominal_.needs_load) g.load_horizon_s = load_settle_horizon(load_sim_.grid().horizon_s());
   return g;

@@ -55,7 +55,7 @@ void judge_knife_edges(const Problem& problem, Design& d) {
                                  problem.spec.reference.amplitude, problem.band_fraction, m);
     const std::optional<Margins> margins =
         status == StepStatus::ok ? design_margins(problem, d.controller.transfer, p) : std::optional<Margins>{};
-    if (status == StepStatus::ok && problem.needs_load) measure_load(problem, realized, d.controller.transfer, m);
+    if (status == StepStatus::ok && problem.needs_load) measure_load(problem, realized, d.controller, m);
     for (std::size_t i : near) {
       RequirementCheck& c = d.checks[i];
       if (!c.met) continue;
@@ -140,9 +140,8 @@ Design measure_design(const Problem& problem, DesignRole role, const Controller&
     }
     d.margins = design_margins(problem, controller.transfer, problem.plant);
     if (problem.needs_load) {
-      // The continuous loop's load response (the reader refuses load requirements on a sampled
-      // controller, so d.simulated is that loop's set-point response).
-      const StepStatus load = measure_load(problem, problem.plant_realization, controller.transfer, d.simulated,
+      // The load response of the loop d.simulated was measured on (continuous or sampled).
+      const StepStatus load = measure_load(problem, problem.plant_realization, controller, d.simulated,
                                            nullptr, &d.linear_grid.load_horizon_s);
       if (load != StepStatus::ok) d.notes.push_back(fmt::format("load response {}: not measured", status_name(load)));
     }

@@ -2,6 +2,10 @@
 #include "specloop/design/regulation.hpp"
 
 #include <cmath>
+#include <stdexcept>
+
+#include "specloop/sim/nonlinear.hpp"
+#include "specloop/sim/sampled_loop.hpp"
 
 namespace specloop {
 
@@ -25,23 +29,39 @@ void take_load_metrics(const StepMetrics& load_run, bool integrates, StepMetrics
   m.load_recovery_time_s = load_run.settling_time_s;
 }
 
-StepStatus measure_load(const Problem& problem, const StateSpace& plant_realization, const TransferFunction& controller,
+StepStatus measure_load(const Problem& problem, const StateSpace& plant_realization, const Controller& controller,
                         StepMetrics& m, StepTrace* trace, double* horizon_s) {
   const double offset = std::abs(problem.spec.reference.amplitude);
-  StateSpace loop;
-  load_loop_into(plant_realization, realize(controller), load_size(problem.spec), offset, loop);
-  StepSimulator sim(kLoadGridRules);
   StepMetrics run;
-  const StepStatus status = sim.simulate(loop, 1.0, problem.band_fraction, run, trace);
+  StepStatus status = StepStatus::numerical_failure;
+  double horizon = 0.0;
+  if (problem.sampled) {
+    // The set-point weights do not matter here: the load run replaces the reference path.
+    SampledStepSimulator sim;
+    try {
+      const DifferenceEquation eq =
+          controller_difference_equation(controller, problem.spec.controller.sample_time_s, 1.0, 1.0);
+      status = sim.simulate_load(plant_realization, eq, load_size(problem.spec), offset, problem.band_fraction, run, trace);
+    } catch (const std::invalid_argument&) {
+      status = StepStatus::numerical_failure;
+    }
+    horizon = sim.horizon_s();
+  } else {
+    StateSpace loop;
+    load_loop_into(plant_realization, realize(controller.transfer), load_size(problem.spec), offset, loop);
+    StepSimulator sim(kLoadGridRules);
+    status = sim.simulate(loop, 1.0, problem.band_fraction, run, trace);
+    horizon = sim.grid().horizon_s();
+    if (status == StepStatus::ok && trace) trace->output = trace->effort;  // row 1: y itself
+  }
   if (status != StepStatus::ok) {
     m.load_iae.reset();
     m.load_peak.reset();
     m.load_recovery_time_s.reset();
     return status;
   }
-  take_load_metrics(run, controller.system_type() > 0, m);
-  if (horizon_s) *horizon_s = load_settle_horizon(sim.grid().horizon_s());
-  if (trace) trace->output = trace->effort;  // row 1: y itself
+  take_load_metrics(run, controller.transfer.system_type() > 0, m);
+  if (horizon_s) *horizon_s = load_settle_horizon(horizon);
   return status;
 }
 

@@ -171,7 +171,7 @@ DesignTraces design_traces(const DesignRun& run) {
       if (d.status != StepStatus::ok) continue;
       StepMetrics m;
       StepTrace trace;
-      if (measure_load(problem, problem.plant_realization, d.controller.transfer, m, &trace) != StepStatus::ok) continue;
+      if (measure_load(problem, problem.plant_realization, d.controller, m, &trace) != StepStatus::ok) continue;
       ResponseTrace t{d.role, false, std::move(trace.time_s), std::move(trace.output), {}, {}};
       if (trace_is_finite(t)) out.load.push_back(std::move(t));
     }

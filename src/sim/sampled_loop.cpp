@@ -105,7 +105,7 @@ struct SampledGrid {
 // The grid from the discrete poles (all inside the unit circle; `slowest` the smallest decay rate
 // −ln|λ|/Ts of a non-deadbeat mode, infinite if none) and the plant's speed; "" or why not.
 std::string choose_grid(const std::vector<Complex>& poles, double slowest, const StateSpace& plant, double ts,
-                        SampledGrid& grid) {
+                        SampledGrid& grid, double decay = kDecay) {
   // Horizon and grid from the modes' continuous-equivalent decay rates σ = −ln|λ|/Ts and
   // speeds ρ = |ln λ|/Ts (at most the Nyquist rate π/Ts; a mode at λ = 0 dies within a few periods).
   const double nyquist = std::numbers::pi / ts;
@@ -116,7 +116,7 @@ std::string choose_grid(const std::vector<Complex>& poles, double slowest, const
     speed.push_back(dead ? nyquist : std::min(std::abs(std::log(l)) / ts, nyquist));
   }
   const double slow = std::isfinite(slowest) ? slowest : 1.0 / ts;  // all modes deadbeat
-  const double horizon_wanted = std::max(std::log(1.0 / kDecay) / slow, 20.0 * ts);
+  const double horizon_wanted = std::max(std::log(1.0 / decay) / slow, 20.0 * ts);
   const double periods_wanted = std::ceil(horizon_wanted / ts - 1e-9);
   if (periods_wanted > static_cast<double>(SampledStepSimulator::kMaxPeriods))
     return "the horizon needs more than " + std::to_string(SampledStepSimulator::kMaxPeriods) + " controller periods";
@@ -326,6 +326,32 @@ class LoopStepper {
   double u_prev_ = 0.0;  // the control in force before the current sample (0: the loop at rest)
 };
 
+// The checks both runs share, the discrete loop of `plant` under `eq`, its poles (z-plane) and
+// the slowest decay rate of a non-deadbeat mode: ok, unstable, or numerical_failure with `failure`.
+StepStatus open_loop(const StateSpace& plant, const DifferenceEquation& eq, DiscreteLoop& loop,
+                     std::vector<Complex>& poles, double& slowest, std::string& failure) {
+  failure.clear();
+  poles.clear();
+  auto fail = [&](const std::string& why) {
+    failure = why;
+    return StepStatus::numerical_failure;
+  };
+  const double ts = eq.sample_time_s;
+  if (!(ts > 0.0) || !std::isfinite(ts)) return fail("sample time not a finite number > 0");
+  if (plant.outputs() != 1 || plant.states() < 1) return fail("plant not single-input single-output");
+  if (plant.D(0) != 0.0) return fail("plant not strictly proper (a direct feedthrough)");
+  if (const std::string why = discrete_loop_of(plant, eq, ts, loop); !why.empty()) return fail(why);
+  Eigen::EigenSolver<Eigen::MatrixXd> es(loop.mm, false);
+  if (es.info() != Eigen::Success) return fail("eigenvalues of the discrete loop not found");
+  slowest = std::numeric_limits<double>::infinity();
+  for (Eigen::Index i = 0; i < loop.dim; ++i) poles.push_back(es.eigenvalues()(i));
+  for (const Complex& l : poles) {
+    if (!(std::abs(l) < 1.0 - 1e-12)) return StepStatus::unstable;
+    if (std::abs(l) > 0.0) slowest = std::min(slowest, -std::log(std::abs(l)) / ts);
+  }
+  return StepStatus::ok;
+}
+
 }  // namespace
 
 double SampledStepSimulator::instability() const {
@@ -337,28 +363,13 @@ double SampledStepSimulator::instability() const {
 StepStatus SampledStepSimulator::simulate(const StateSpace& plant, const DifferenceEquation& eq, double amplitude,
                                           double band, StepMetrics& m, StepTrace* trace) {
   m = StepMetrics{};
-  failure_.clear();
-  poles_.clear();
   horizon_ = 0.0;
-  auto fail = [&](const std::string& why) {
-    failure_ = why;
-    return StepStatus::numerical_failure;
-  };
+  auto fail = [this](const std::string& why) { return failed(why); };
   const double ts = eq.sample_time_s;
-  if (!(ts > 0.0) || !std::isfinite(ts)) return fail("sample time not a finite number > 0");
-  if (plant.outputs() != 1 || plant.states() < 1) return fail("plant not single-input single-output");
-  if (plant.D(0) != 0.0) return fail("plant not strictly proper (a direct feedthrough)");
   DiscreteLoop loop;
-  if (const std::string why = discrete_loop_of(plant, eq, ts, loop); !why.empty()) return fail(why);
-
-  Eigen::EigenSolver<Eigen::MatrixXd> es(loop.mm, false);
-  if (es.info() != Eigen::Success) return fail("eigenvalues of the discrete loop not found");
-  double slowest = std::numeric_limits<double>::infinity();
-  for (Eigen::Index i = 0; i < loop.dim; ++i) poles_.push_back(es.eigenvalues()(i));
-  for (const Complex& l : poles_) {
-    if (!(std::abs(l) < 1.0 - 1e-12)) return StepStatus::unstable;
-    if (std::abs(l) > 0.0) slowest = std::min(slowest, -std::log(std::abs(l)) / ts);
-  }
+  double slowest = 0.0;
+  if (const StepStatus opened = open_loop(plant, eq, loop, poles_, slowest, failure_); opened != StepStatus::ok)
+    return opened;
   const double y_inf = loop.final_value(amplitude);
   if (!std::isfinite(y_inf)) return fail("non-finite final value");
   if (std::abs(y_inf) <= 1e-12 * std::abs(amplitude)) return StepStatus::zero_final_value;
@@ -379,6 +390,59 @@ StepStatus SampledStepSimulator::simulate(const StateSpace& plant, const Differe
   sampled_step::measure_interpolant(sampled_step::OutputSamples{t_, y_, slope_right_, slope_left_}, y_inf, band, m);
   if (!std::isfinite(m.overshoot_pct) || !std::isfinite(m.itae) || !std::isfinite(m.effort_peak))
     return fail("non-finite metric");
+  if (trace) {
+    trace->time_s = t_;
+    trace->output = y_;
+    trace->effort = u_;
+  }
+  return StepStatus::ok;
+}
+
+StepStatus SampledStepSimulator::simulate_load(const StateSpace& plant, const DifferenceEquation& eq, double load,
+                                               double offset, double band, StepMetrics& m, StepTrace* trace) {
+  m = StepMetrics{};
+  horizon_ = 0.0;
+  auto fail = [this](const std::string& why) { return failed(why); };
+  const double ts = eq.sample_time_s;
+  if (!(std::abs(load) > 0.0) || !std::isfinite(load) || !(offset > 0.0) || !std::isfinite(offset)) {
+    poles_.clear();
+    return fail("load or offset not a finite nonzero number");
+  }
+  // The reference path made the identity (its numerator the denominator): the "reference" then
+  // reaches the plant's input unchanged and nothing else, which is a load there with r = 0.
+  DifferenceEquation through = eq;
+  through.reference_numerator = eq.denominator;
+  DiscreteLoop loop;
+  double slowest = 0.0;
+  if (const StepStatus opened = open_loop(plant, through, loop, poles_, slowest, failure_); opened != StepStatus::ok)
+    return opened;
+  const double y_inf = loop.final_value(load);
+  if (!std::isfinite(y_inf)) return fail("non-finite final value");
+  // Measured against y∞ + offset, as the continuous load loop is (load_loop_into): the band is
+  // band·|y∞ + offset| about y∞ and the integrals are of |y − y∞|.
+  const double shifted_inf = y_inf + offset;
+  if (!(std::abs(shifted_inf) > 1e-12 * offset)) return fail("the load's final value cancels the offset");
+
+  // Run until the slowest mode has decayed to 1e-9: the IAE is an integral to infinity.
+  SampledGrid grid;
+  if (const std::string why = choose_grid(poles_, slowest, plant, ts, grid, 1e-9); !why.empty()) return fail(why);
+  horizon_ = static_cast<double>(grid.periods) * ts;
+  LoopStepper stepper(loop, plant, load, ts, grid, Recording{t_, y_, u_, slope_right_, slope_left_});
+  fine_step_ = static_cast<double>(grid.q1) * ts / grid.substeps;
+  fine_until_ = static_cast<double>(grid.fine_periods) * ts;
+  stepper.run();
+  for (double v : y_)
+    if (!std::isfinite(v)) return fail("non-finite output sample");
+
+  const sampled_step::OutputSamples raw{t_, y_, slope_right_, slope_left_};
+  const double peak = sampled_step::peak_magnitude(raw);
+  shifted_.resize(y_.size());
+  for (std::size_t k = 0; k < y_.size(); ++k) shifted_[k] = y_[k] + offset;
+  sampled_step::measure_interpolant(sampled_step::OutputSamples{t_, shifted_, slope_right_, slope_left_}, shifted_inf,
+                                    band, m);
+  m.final_value = y_inf;
+  m.effort_peak = peak;  // max |y|: where load_loop_into's second output row puts it
+  if (!std::isfinite(m.iae) || !std::isfinite(m.effort_peak)) return fail("non-finite metric");
   if (trace) {
     trace->time_s = t_;
     trace->output = y_;

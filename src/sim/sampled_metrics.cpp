@@ -265,4 +265,15 @@ void measure_interpolant(const OutputSamples& samples, double y_inf, double band
   InterpolantMeasure(samples, y_inf, band).measure(m);
 }
 
+double peak_magnitude(const OutputSamples& samples) {
+  const std::size_t count = samples.t.size();
+  double peak = count > 0 ? std::abs(samples.y[count - 1]) : 0.0;
+  for (std::size_t j = 0; j + 1 < count; ++j) {
+    const Cubic p(samples.y[j], samples.y[j + 1], samples.slope_right[j], samples.slope_left[j + 1], samples.t[j],
+                  samples.t[j + 1] - samples.t[j]);
+    peak = std::max({peak, std::abs(p.max()), std::abs(p.min())});
+  }
+  return peak;
+}
+
 }  // namespace specloop::sampled_step

@@ -24,4 +24,7 @@ struct OutputSamples {
 /// caller's.
 void measure_interpolant(const OutputSamples& samples, double y_inf, double band, StepMetrics& m);
 
+/// max |y| on the interpolant (the samples and each interval's stationary points).
+double peak_magnitude(const OutputSamples& samples);
+
 }  // namespace specloop::sampled_step

@@ -37,12 +37,6 @@ void check_load_requirements(const DocumentReader& reader, const Spec& spec, con
   if (spec.search.objective == Objective::load_iae && search)
     if (const auto at = find_entry(*search, "objective")) written.emplace_back("search.objective", at->at);
   for (const auto& [key, at] : written) {
-    if (spec.controller.sample_time_s > 0.0)
-      fail_at(path, at, key,
-              fmt::format("the load response is measured on the continuous loop only, and controller.sample_time = "
-                          "{} makes the loop the spec describes a sampled one; leave the load requirements out or "
-                          "the sample time (a controller sampled much faster than the loop acts as a continuous one)",
-                          spec.controller.sample_time_s));
     const bool settles = key != "requirements.load_peak_max";
     if (settles && !has_integrator(spec.controller.structure))
       fail_at(path, at, key,

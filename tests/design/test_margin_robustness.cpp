@@ -73,7 +73,7 @@ TEST_CASE("claimed designs survive a 1e-6 relative perturbation of the plant's g
           INFO(fmt::format("{} {}: {} by {:+.0e}", path.filename().string(), role_name(design.role),
                            which < 0 ? std::string("gain") : fmt::format("pole {}", which), sign * 1e-6));
           REQUIRE(status == StepStatus::ok);
-          if (problem.needs_load) REQUIRE(measure_load(problem, realize(p), design.controller.transfer, m) == StepStatus::ok);
+          if (problem.needs_load) REQUIRE(measure_load(problem, realize(p), design.controller, m) == StepStatus::ok);
           const std::optional<Margins> margins = design_margins(problem, design.controller.transfer, p);
           for (const RequirementCheck& c : design.checks) {
             if (!c.met) continue;

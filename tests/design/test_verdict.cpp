@@ -11,6 +11,7 @@
 #include <vector>
 
 #include "specloop/design/design.hpp"
+#include "specloop/design/regulation.hpp"
 #include "specloop/sim/nonlinear.hpp"
 #include "specloop/sim/sampled_loop.hpp"
 
@@ -355,6 +356,60 @@ TEST_CASE("a short sample period converges to the continuous loop", "[verdict][s
     previous = error;
   }
   CHECK(previous < 0.1);
+}
+
+TEST_CASE("the sampled loop's load response: exact on a first-order loop, the continuous one as Ts shrinks",
+          "[verdict][sampled][load]") {
+  // y' = a·(u + d − y) under u[k] = −K·y[k] held over T (invented numbers). At the samples
+  // x[k+1] = λ·x[k] + (1 − λp)·d with λp = e^{−aT}, λ = λp − K(1 − λp), so y∞ = d/(1 + K) (the
+  // DC gain of G/(1 + K·G), common practice) and y∞ − y[k] = y∞·λ^k. Between samples the held
+  // input v = d − K·y[k] gives y(τ) = v + (y[k] − v)·e^{−aτ}; integrating y∞ − y over each period
+  // and summing the geometric series: IAE = (d(1 − λp)/a − K·y∞·T)/(1 − λ) while λ ∈ (0, 1).
+  const double a = 2.0, t = 0.1, k = 1.5, d = 0.7;
+  DifferenceEquation eq;
+  eq.sample_time_s = t;
+  eq.reference_numerator = {k};
+  eq.measurement_numerator = {k};
+  eq.denominator = {1.0};
+  const double lp = std::exp(-a * t), lambda = lp - k * (1.0 - lp), y_inf = d / (1.0 + k);
+  REQUIRE(lambda > 0.0);
+  SampledStepSimulator sim;
+  StepMetrics m;
+  StepTrace trace;
+  REQUIRE(sim.simulate_load(plant_of({a}, {1.0, a}), eq, d, 1.0, 0.02, m, &trace) == StepStatus::ok);
+  CHECK_THAT(m.final_value, WithinRel(y_inf, 1e-12));
+  CHECK_THAT(m.effort_peak, WithinRel(y_inf, 1e-8));  // max |y|: approached from below, at the horizon
+  CHECK_THAT(m.iae, WithinRel((d * (1.0 - lp) / a - k * y_inf * t) / (1.0 - lambda), 1e-8));
+  // The trace is y itself and starts at rest; the plant's input is u + d.
+  REQUIRE(trace.output.size() > 2);
+  CHECK(trace.output.front() == 0.0);
+  CHECK_THAT(trace.effort.front(), WithinRel(d, 1e-15));
+
+  // A PI on the winch of the tests above: as Ts shrinks the sampled loop's load peak approaches
+  // the continuous loop's, the hold's Ts/2 of delay making the error shrink at least linearly (its
+  // own accuracy is checked against SciPy in tests/check_scipy_load.py). The IAE hardly moves: a
+  // load response that keeps its sign has IAE = ∫y = d/Ki whatever the delay (common practice,
+  // Åström–Hägglund), so it stays within rounding of the continuous one.
+  const Spec spec = parse_spec(winch("", "", ""), "<test>");
+  const Problem p = make_problem(spec, characterize(spec));
+  const Controller c = make_controller(Structure::pi, {2.0, 0.8}, 10.0);
+  StateSpace loop;
+  load_loop_into(p.plant_realization, realize(c.transfer), d, 1.0, loop);
+  StepSimulator cont(kLoadGridRules);
+  StepMetrics mc;
+  REQUIRE(cont.simulate(loop, 1.0, 0.02, mc) == StepStatus::ok);
+  double previous = 1e9;
+  for (double ts : {0.04, 0.01, 0.0025}) {
+    StepMetrics ms;
+    REQUIRE(sim.simulate_load(p.plant_realization, controller_difference_equation(c, ts, 1.0, 1.0), d, 1.0, 0.02, ms) ==
+            StepStatus::ok);
+    CHECK(std::abs(ms.final_value) < 1e-12);  // integral action: no offset
+    const double error = std::abs(ms.effort_peak - mc.effort_peak) / mc.effort_peak;
+    CHECK(error < 0.5 * previous);
+    previous = error;
+    CHECK_THAT(ms.iae, WithinRel(mc.iae, 1e-5));
+  }
+  CHECK(previous < 5e-3);
 }
 
 TEST_CASE("a nonlinear loop that cannot be run to its end counts every effect the spec has as active", "[verdict]") {

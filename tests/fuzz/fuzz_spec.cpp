@@ -127,8 +127,6 @@ void check_spec(const specloop::Spec& spec, std::string_view text) {
   require_optional(r.load_recovery_time_max_s, r.load_recovery_time_max_s > 0.0, "load_recovery_time_max");
   require_optional(r.noise_gain_max, r.noise_gain_max > 0.0, "noise_gain_max");
   require_optional(r.complementary_peak_max, r.complementary_peak_max > 1.0, "complementary_peak_max");
-  const bool load = r.load_iae_max || r.load_peak_max || r.load_recovery_time_max_s || spec.search.objective == specloop::Objective::load_iae;
-  CHECK(!load || !(spec.controller.sample_time_s > 0.0), "a load requirement on a sampled controller");
   CHECK(!(r.load_iae_max || r.load_recovery_time_max_s || spec.search.objective == specloop::Objective::load_iae) ||
             specloop::has_integrator(spec.controller.structure),
         "a load IAE or recovery requirement without integral action");

@@ -73,6 +73,7 @@ class CandidateEvaluator {
   bool last_sampled_ = false;              // which simulator ran last
   StepSimulator sim_;
   SampledStepSimulator sampled_sim_;
+  SampledStepSimulator sampled_load_sim_;  // the sampled loop's load response (Problem::needs_load)
   StepMetrics metrics_;
   std::vector<double> num_, den_;  // the candidate's C(s)
   StateSpace controller_, loop_;   // its realization and the closed loop, reused

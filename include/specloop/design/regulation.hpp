@@ -4,6 +4,7 @@
 // specs cost nothing more.
 #pragma once
 
+#include "specloop/core/compensator.hpp"
 #include "specloop/core/lti.hpp"
 #include "specloop/core/margins.hpp"
 #include "specloop/design/problem.hpp"
@@ -36,11 +37,12 @@ inline constexpr TimeGridRules kLoadGridRules{1e-9, 2000, 20000, 0.5};
 double load_settle_horizon(double load_grid_horizon_s);
 
 /// Simulates the load response of `controller` on the loop with `plant_realization` (the
-/// continuous linear loop) and fills m's load_* fields; `trace`, when given, receives t and y (in
+/// linear loop: the sampled one, through the controller's difference equation, when
+/// Problem::sampled) and fills m's load_* fields; `trace`, when given, receives t and y (in
 /// `output`, without the offset). Returns the simulation's status (the loop's poles are the
 /// set-point loop's, so it is ok whenever that loop was).
 /// `horizon_s`, when given, receives load_settle_horizon of the simulation's horizon.
-StepStatus measure_load(const Problem& problem, const StateSpace& plant_realization, const TransferFunction& controller,
+StepStatus measure_load(const Problem& problem, const StateSpace& plant_realization, const Controller& controller,
                         StepMetrics& m, StepTrace* trace = nullptr, double* horizon_s = nullptr);
 
 /// The margins of `controller` on `plant` as every design's measurement computes them: loop_margins

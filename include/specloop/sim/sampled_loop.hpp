@@ -42,6 +42,16 @@ class SampledStepSimulator {
   StepStatus simulate(const StateSpace& plant, const DifferenceEquation& controller, double amplitude,
                       double band_fraction, StepMetrics& metrics, StepTrace* trace = nullptr);
 
+  /// The load response of the same loop: a step of `load` added to the plant's input at t = 0,
+  /// the set point held at 0 (the controller's reference path unused), exactly as simulate does
+  /// the step, run until the slowest mode has decayed to 1e-9. `metrics` is filled the way the
+  /// continuous load loop (load_loop_into with this offset) fills it: effort_peak = max |y| on the
+  /// interpolant, iae (and ise, itae) of |y − y∞|, settling_time_s = the last time
+  /// |y − y∞| > band·|y∞ + offset| (empty if at the horizon), final_value = y∞. `offset` > 0 (the
+  /// regulator's band scale: load_band). `trace` receives t, y and the plant's input u + load.
+  StepStatus simulate_load(const StateSpace& plant, const DifferenceEquation& controller, double load, double offset,
+                           double band, StepMetrics& metrics, StepTrace* trace = nullptr);
+
   /// The discrete closed-loop poles (z-plane) of the last call.
   const std::vector<Complex>& poles() const { return poles_; }
   /// How far outside the unit circle the outermost pole lies (0 when stable): the search's
@@ -62,8 +72,12 @@ class SampledStepSimulator {
   std::vector<Complex> poles_;
   double horizon_ = 0.0, fine_step_ = 0.0, fine_until_ = 0.0;
   std::string failure_;
+  StepStatus failed(const std::string& why) {  // numerical_failure, saying why
+    failure_ = why;
+    return StepStatus::numerical_failure;
+  }
   // Workspace, reused between calls.
-  std::vector<double> t_, y_, u_, slope_right_, slope_left_;
+  std::vector<double> t_, y_, u_, slope_right_, slope_left_, shifted_;
 };
 
 /// Φ = e^{A·h} and Γ = ∫₀ʰ e^{A·τ} dτ·B, exactly (one exponential of the augmented matrix).
