@@ -6,6 +6,8 @@
 #include <limits>
 #include <stdexcept>
 
+#include <fmt/format.h>
+
 namespace specloop {
 
 const std::vector<ParameterInfo>& structure_parameters(Structure s) {
@@ -221,6 +223,41 @@ void measurement_filter_polynomials(const MeasurementFilter& f, std::vector<doub
   const double t = f.time_constant;
   if (f.order == 2) den.assign({t * t / 2.0, t, 1.0});
   else den.assign({t, 1.0});
+}
+
+std::string filters_text(const Controller& c, const std::string& time_unit) {
+  std::string s;
+  if (c.notch)
+    s += fmt::format("notch: ωn = {:.5g} rad/{}, depth {:.4g} ({:.1f} dB), width ζp = {:.4g} ({})", c.notch->frequency,
+                     time_unit, c.notch->depth, 20.0 * std::log10(c.notch->depth), c.notch->width,
+                     c.notch_searched ? "searched" : "given");
+  if (c.measurement_filter)
+    s += fmt::format("{}measurement filter: order {}, Tf = {:.5g} {} ({})", s.empty() ? "" : "; ", c.measurement_filter->order,
+                     c.measurement_filter->time_constant, time_unit, c.measurement_filter_searched ? "searched" : "given");
+  return s;
+}
+
+TwoInputRealization controller_realization(const Controller& c, double b, double cw) {
+  if (!c.notch && !c.measurement_filter) return two_input_controller(c.transfer, reference_path(c, b, cw));
+  Controller bare = c;
+  bare.notch.reset();
+  bare.measurement_filter.reset();
+  bare.transfer = structure_transfer(c);
+  const TwoInputRealization k = two_input_controller(bare.transfer, reference_path(bare, b, cw));
+  std::optional<StateSpace> f, n;
+  if (c.measurement_filter) {
+    std::vector<double> fd;
+    measurement_filter_polynomials(*c.measurement_filter, fd);
+    f = realize(TransferFunction(Polynomial({1.0}), Polynomial(fd)));
+  }
+  if (c.notch) {
+    double n3[3], d3[3];
+    notch_polynomials(*c.notch, n3, d3);
+    n = realize(TransferFunction(Polynomial({n3[0], n3[1], n3[2]}), Polynomial({d3[0], d3[1], d3[2]})));
+  }
+  TwoInputRealization out;
+  filtered_controller_into(k.A, k.b_r, k.b_y, k.c, k.d_r, k.d_y, f ? &*f : nullptr, n ? &*n : nullptr, out);
+  return out;
 }
 
 TransferFunction structure_transfer(const Controller& c) {

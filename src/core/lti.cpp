@@ -372,41 +372,55 @@ void load_loop_into(const StateSpace& plant, const StateSpace& controller, doubl
   loop.D << y_d + offset, y_d;
 }
 
-void filtered_controller_into(const StateSpace& k, const StateSpace* f, const StateSpace* notch, TwoInputRealization& out) {
+void filtered_controller_into(const Eigen::MatrixXd& ak, const Eigen::VectorXd& kbr, const Eigen::VectorXd& kby,
+                              const Eigen::MatrixXd& kc, double kdr, double kdy, const StateSpace* f, const StateSpace* notch,
+                              TwoInputRealization& out) {
   if (f != nullptr && f->D(0) != 0.0) throw std::invalid_argument("filtered_controller_into: the measurement filter must be strictly proper");
-  const int nf = f != nullptr ? f->states() : 0, nk = k.states(), nn = notch != nullptr ? notch->states() : 0;
+  const int nf = f != nullptr ? f->states() : 0, nk = static_cast<int>(ak.rows()), nn = notch != nullptr ? notch->states() : 0;
   const int n = nf + nk + nn;
   out.A.resize(n, n);
   out.A.setZero();
   out.b_r.resize(n);
   out.b_y.resize(n);
   out.c.resize(1, n);
-  // The notch's input w = C_k x_k + D_k·(r − v), v = C_f x_f (or y itself without F); u = C_n x_n + D_n·w.
-  const double dn = notch != nullptr ? notch->D(0) : 1.0, dk = k.D(0);
+  // K reads r and v = C_f x_f (y itself without F): x_k' = A_k x_k + b_r·r − b_y·v,
+  // w = c_k x_k + d_r·r − d_y·v; the notch x_n' = A_n x_n + B_n·w, u = C_n x_n + D_n·w.
+  const double dn = notch != nullptr ? notch->D(0) : 1.0;
+  const bool filtered = nf > 0;
   for (int i = 0; i < nf; ++i) {
     for (int j = 0; j < nf; ++j) out.A(i, j) = f->A(i, j);
     out.b_r(i) = 0.0;
     out.b_y(i) = -f->B(i);  // x_f' = A_f x_f + B_f·y
   }
   for (int i = 0; i < nk; ++i) {
-    for (int j = 0; j < nf; ++j) out.A(nf + i, j) = -k.B(i) * f->C(0, j);
-    for (int j = 0; j < nk; ++j) out.A(nf + i, nf + j) = k.A(i, j);
-    out.b_r(nf + i) = k.B(i);
-    out.b_y(nf + i) = nf > 0 ? 0.0 : k.B(i);
+    for (int j = 0; j < nf; ++j) out.A(nf + i, j) = -kby(i) * f->C(0, j);
+    for (int j = 0; j < nk; ++j) out.A(nf + i, nf + j) = ak(i, j);
+    out.b_r(nf + i) = kbr(i);
+    out.b_y(nf + i) = filtered ? 0.0 : kby(i);
   }
   for (int i = 0; i < nn; ++i) {
     const double bn = notch->B(i);
-    for (int j = 0; j < nf; ++j) out.A(nf + nk + i, j) = -bn * dk * f->C(0, j);
-    for (int j = 0; j < nk; ++j) out.A(nf + nk + i, nf + j) = bn * k.C(0, j);
+    for (int j = 0; j < nf; ++j) out.A(nf + nk + i, j) = -bn * kdy * f->C(0, j);
+    for (int j = 0; j < nk; ++j) out.A(nf + nk + i, nf + j) = bn * kc(0, j);
     for (int j = 0; j < nn; ++j) out.A(nf + nk + i, nf + nk + j) = notch->A(i, j);
-    out.b_r(nf + nk + i) = bn * dk;
-    out.b_y(nf + nk + i) = nf > 0 ? 0.0 : bn * dk;
+    out.b_r(nf + nk + i) = bn * kdr;
+    out.b_y(nf + nk + i) = filtered ? 0.0 : bn * kdy;
   }
-  for (int j = 0; j < nf; ++j) out.c(0, j) = -dn * dk * f->C(0, j);
-  for (int j = 0; j < nk; ++j) out.c(0, nf + j) = dn * k.C(0, j);
+  for (int j = 0; j < nf; ++j) out.c(0, j) = -dn * kdy * f->C(0, j);
+  for (int j = 0; j < nk; ++j) out.c(0, nf + j) = dn * kc(0, j);
   for (int j = 0; j < nn; ++j) out.c(0, nf + nk + j) = notch->C(0, j);
-  out.d_r = dn * dk;
-  out.d_y = nf > 0 ? 0.0 : dn * dk;
+  out.d_r = dn * kdr;
+  out.d_y = filtered ? 0.0 : dn * kdy;
+}
+
+void filtered_controller_into(const StateSpace& k, const StateSpace* f, const StateSpace* notch, TwoInputRealization& out) {
+  filtered_controller_into(k.A, k.B, k.B, k.C, k.D(0), k.D(0), f, notch, out);
+}
+
+StateSpace close_loop(const StateSpace& plant, const TwoInputRealization& controller) {
+  StateSpace loop;
+  close_loop_into(plant, controller, loop);
+  return loop;
 }
 
 void close_loop_into(const StateSpace& plant, const TwoInputRealization& k, StateSpace& loop) {

@@ -154,8 +154,7 @@ void set_state_space_controller(LoopModel& model, const Controller& controller, 
 // form is not applied to it (a note says so).
 void set_filtered_controller(LoopModel& model, const Controller& controller, const LoopOptions& options, int& size,
                              NonlinearResult& result) {
-  const TwoInputRealization k =
-      two_input_controller(controller.transfer, reference_path(controller, options.setpoint_weight, options.derivative_weight));
+  const TwoInputRealization k = controller_realization(controller, options.setpoint_weight, options.derivative_weight);
   model.parallel = false;
   model.two_input = true;
   model.nc = static_cast<int>(k.A.rows());

@@ -104,6 +104,17 @@ struct Controller {
 Controller with_filters(Controller c, const std::optional<NotchFilter>& notch,
                         const std::optional<MeasurementFilter>& measurement);
 
+/// The controller's filters in words for tables ("" without filters), e.g. "notch: ωn = 29.9 rad/s,
+/// depth 0.1 (-20 dB), width ζp = 0.3 (searched); measurement filter: order 1, Tf = 0.002 s (given)".
+/// `time_unit` labels Tf.
+std::string filters_text(const Controller& c, const std::string& time_unit);
+
+/// The controller u = N·(C_r·r − C·F·y) as one two-input state space built from its sections (the
+/// structure's two-input C/C_r with set-point weights b and c, F before its measurement input, N
+/// after its output): better conditioned than one canonical form of C·F·N, whose degree reaches 6.
+/// Without filters: two_input_controller(C, C_r).
+TwoInputRealization controller_realization(const Controller& c, double setpoint_weight, double derivative_weight);
+
 /// The PID part's C(s) alone (without the filters): the transfer function of the series parameters.
 TransferFunction structure_transfer(const Controller& c);
 

@@ -134,6 +134,12 @@ struct TwoInputRealization {
 /// with the output (nullptr: none), states ordered [F | K | N], into `out`: nothing is allocated
 /// when `out` already has the sizes. Throws std::invalid_argument for an F with feedthrough.
 void filtered_controller_into(const StateSpace& k, const StateSpace* f, const StateSpace* notch, TwoInputRealization& out);
+/// The same with a two-input K (x_k' = A_k x_k + b_r·r − b_y·v, w = c_k x_k + d_r·r − d_y·v, v = F·y).
+void filtered_controller_into(const Eigen::MatrixXd& ak, const Eigen::VectorXd& kbr, const Eigen::VectorXd& kby,
+                              const Eigen::MatrixXd& kc, double kdr, double kdy, const StateSpace* f, const StateSpace* notch,
+                              TwoInputRealization& out);
+/// close_loop_into into a new loop.
+StateSpace close_loop(const StateSpace& plant, const TwoInputRealization& controller);
 /// The two-input controller u = C_r·r − C·y (C and C_r over one denominator, as reference_path
 /// gives them) in observable canonical form, as close_loop(plant, C, C_r) builds it.
 TwoInputRealization two_input_controller(const TransferFunction& controller, const TransferFunction& reference);
