@@ -174,6 +174,7 @@ def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--specloop", required=True)
     ap.add_argument("--source-dir", required=True)
+    ap.add_argument("--probe")  # passed to every Python check by CMake; not used here
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as folder:
         check_continuous("notch+F2", design(args.specloop, CONTINUOUS, folder, "continuous"))
