@@ -69,6 +69,11 @@ def main() -> int:
                 check((run.returncode == 0) == bool(result.get("met")), f"{spec.name}: exit code agrees with 'met'")
                 for name, d in designs.items():
                     nl = d.get("nonlinear")
+                    if name != "optimized" and d.get("status") == "unstable":
+                        # A hand design that does not stabilize the plant (the carriage's resonance
+                        # defeats the classical and Ziegler–Nichols PIDs) has no loop to confirm.
+                        check(nl is None, f"{spec.name}: {name} unstable, so not confirmed")
+                        continue
                     check(nl is not None and nl.get("status") == "ok" and isinstance(nl.get("confirmed"), bool)
                           and nl.get("verdict"), f"{spec.name}: {name} confirmed or not on the nonlinear loop")
                 check("NaN" not in result_file.read_text(), f"{spec.name}: no NaN in result.json")

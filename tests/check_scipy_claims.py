@@ -1972,7 +1972,10 @@ class SpecOracle:
 
     def verify_reference_path(self, name, design):
         """The reference path C_r written in result.json, rebuilt from the parallel gains and the set-point
-        weight b the design runs with (its own when the search tuned it, else the spec's)."""
+        weight b the design runs with (its own when the search tuned it, else the spec's). With filters
+        (README "Filters": u = N·(C_r·r − C·F·y)) the whole controller is rebuilt too: C(s) from the
+        parallel gains, N(s) and F(s) from result.json's controller.notch / measurement_filter by their
+        documented formulas, and C·F·N and C_r·N compared with what result.json writes."""
         c = design["controller"]
         par = c.get("parallel")
         if not par:
@@ -1982,6 +1985,20 @@ class SpecOracle:
         cw = 0.0 if ctl["derivative_on"] == "measurement" else 1.0
         kp, ki, kd, tf = (float(par[k]) for k in ("kp", "ki", "kd", "filter_time"))
         rn, rd = weighted_reference_path(kp, ki, kd, tf, b, cw)
+        notch, filt = c.get("notch"), c.get("measurement_filter")
+        if notch or filt:
+            cn, cd = weighted_reference_path(kp, ki, kd, tf, 1.0, 1.0)  # C itself
+            nn, nd, fd = [1.0], [1.0], [1.0]
+            if notch:
+                w, depth, width = float(notch["frequency"]), float(notch["depth"]), float(notch["width"])
+                nn, nd = [1.0, 2.0 * depth * width * w, w * w], [1.0, 2.0 * width * w, w * w]
+            if filt:
+                T = float(filt["time_constant"])
+                fd = [T * T / 2.0, T, 1.0] if int(filt["order"]) == 2 else [T, 1.0]
+            wn, wd = np.polymul(np.polymul(cn, nn), [1.0]), np.polymul(np.polymul(cd, nd), fd)
+            ok, detail = same_tf(wn, wd, c["numerator"], c["denominator"], 1e-9)
+            self.F.check(f"{name}/filters/C", ok, "C·F·N rebuilt from the parallel gains, the notch and the filter", detail)
+            rn, rd = np.polymul(np.polymul(rn, nn), fd), np.polymul(np.polymul(rd, nd), fd)
         ok, detail = same_tf(rn, rd, c["reference_numerator"], c["reference_denominator"], 1e-9)
         self.F.check(f"{name}/reference_path", ok, f"C_r = Kp·b + Ki/s + Kd·c·s/(Tf·s + 1) with b = {b:g}, c = {cw:g}", detail)
 
@@ -2091,6 +2108,14 @@ class SpecOracle:
         umin = float(act["min"]) - u0 if act.get("min") is not None else -math.inf
         umax = float(act["max"]) - u0 if act.get("max") is not None else math.inf
         par = c.get("parallel")
+        if c.get("measurement_filter"):
+            # u = N·(C_r·r − C·F·y) has two inputs; the described loop's state-space controller acts on e.
+            raise NotImplementedError("a measurement filter (two-input controller) on the described loop")
+        if c.get("notch"):
+            # The tool runs C·N as one state space (README "Filters"); with b = c = 1 it acts on e.
+            if float(c.get("setpoint_weight", ctl["setpoint_weight"])) != 1.0 or ctl["derivative_on"] == "measurement":
+                raise NotImplementedError("a notch with set-point weights on the described loop")
+            par = None
         parallel = (float(par["kp"]), float(par["ki"]), float(par["kd"]), float(par["filter_time"])) if par else None
         tt = num(nl.get("tracking_time")) or num(ctl.get("tracking_time"))
         if tt is None and parallel and parallel[1]:

@@ -425,7 +425,19 @@ def check_controller(tally, case, name, ctrl):
         nn = number(std["n"]) if std["n"] is not None else math.inf
         deriv = td * wt / (td / nn * wt + 1) if td else 0.0
         forms.append(("standard", std["kp"] * (1 + 1 / (number(std["ti"]) * wt) + deriv)))
-    if structure == "pid":
+    # README "Filters": with a notch or a measurement filter num/den is C·F·N, the forms are C's;
+    # N and F by their documented formulas.
+    notch, filt = ctrl.get("notch"), ctrl.get("measurement_filter")
+    if notch or filt:
+        factor = np.ones_like(wt)
+        if notch:
+            w, d, z = notch["frequency"], notch["depth"], notch["width"]
+            factor = factor * (wt ** 2 + 2 * d * z * w * wt + w * w) / (wt ** 2 + 2 * z * w * wt + w * w)
+        if filt:
+            T = filt["time_constant"]
+            factor = factor / ((T * wt) ** 2 / 2 + T * wt + 1 if filt["order"] == 2 else T * wt + 1)
+        forms = [(label + " × filters", c * factor) for label, c in forms]
+    if structure == "pid" and not (notch or filt):
         expected = np.sort_complex(np.roots([1.0, 2 * series["zero_damping"] * series["zero_frequency"],
                                              series["zero_frequency"] ** 2]))
         got = np.sort_complex(np.roots(num))

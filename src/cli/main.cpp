@@ -244,6 +244,7 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
     if (c.parallel)
       fmt::print("  parallel: Kp = {:.5g}, Ki = {:.5g}, Kd = {:.5g}, Tf = {:.4g} {}\n", c.parallel->kp, c.parallel->ki,
                  c.parallel->kd, c.parallel->filter_time, spec.units.time);
+    if (c.notch || c.measurement_filter) fmt::print("  filters (in series, u = N·(C_r·r − C·F·y)): {}\n", filters_text(c, spec.units.time));
   }
   const SearchSummary& s = run.search;
   fmt::print("Search: NLopt {} then {}, {} evaluations ({} unstable, {} infeasible{}) in {:.3f} s;\n  {}\n",

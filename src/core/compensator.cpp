@@ -1,8 +1,12 @@
 // Compensator structures and their conversions between parameterizations.
 #include "specloop/core/compensator.hpp"
 
+#include <algorithm>
 #include <cmath>
+#include <limits>
 #include <stdexcept>
+
+#include <fmt/format.h>
 
 namespace specloop {
 
@@ -191,7 +195,128 @@ std::vector<double> signed_series(const Controller& c) {
   return out;
 }
 
+std::optional<std::pair<double, double>> notch_frequency_range(const std::vector<Complex>& poles, double sample_time) {
+  double lo = std::numeric_limits<double>::infinity(), hi = 0.0;
+  for (const Complex& p : poles) {
+    const double w = std::abs(p);
+    if (p.imag() == 0.0 || !(w > 0.0) || -p.real() / w >= kLightDamping) continue;
+    lo = std::min(lo, 0.5 * w);
+    hi = std::max(hi, 2.0 * w);
+  }
+  if (!(hi > 0.0)) return std::nullopt;
+  if (sample_time > 0.0) hi = std::min(hi, 0.9 * 3.14159265358979323846 / sample_time);
+  if (!(hi > lo)) return std::nullopt;
+  return std::make_pair(lo, hi);
+}
+
+void notch_polynomials(const NotchFilter& f, double* num3, double* den3) {
+  const double w = f.frequency, zp = f.width, zz = f.depth * f.width;
+  num3[0] = 1.0;
+  num3[1] = 2.0 * zz * w;
+  num3[2] = w * w;
+  den3[0] = 1.0;
+  den3[1] = 2.0 * zp * w;
+  den3[2] = w * w;
+}
+
+void measurement_filter_polynomials(const MeasurementFilter& f, std::vector<double>& den) {
+  const double t = f.time_constant;
+  if (f.order == 2) den.assign({t * t / 2.0, t, 1.0});
+  else den.assign({t, 1.0});
+}
+
+std::string filters_text(const Controller& c, const std::string& time_unit) {
+  std::string s;
+  if (c.notch)
+    s += fmt::format("notch: ωn = {:.5g} rad/{}, depth {:.4g} ({:.1f} dB), width ζp = {:.4g} ({})", c.notch->frequency,
+                     time_unit, c.notch->depth, 20.0 * std::log10(c.notch->depth), c.notch->width,
+                     c.notch_searched ? "searched" : "given");
+  if (c.measurement_filter)
+    s += fmt::format("{}measurement filter: order {}, Tf = {:.5g} {} ({})", s.empty() ? "" : "; ", c.measurement_filter->order,
+                     c.measurement_filter->time_constant, time_unit, c.measurement_filter_searched ? "searched" : "given");
+  return s;
+}
+
+TwoInputRealization controller_realization(const Controller& c, double b, double cw) {
+  if (!c.notch && !c.measurement_filter) return two_input_controller(c.transfer, reference_path(c, b, cw));
+  Controller bare = c;
+  bare.notch.reset();
+  bare.measurement_filter.reset();
+  bare.transfer = structure_transfer(c);
+  const TwoInputRealization k = two_input_controller(bare.transfer, reference_path(bare, b, cw));
+  std::optional<StateSpace> f, n;
+  if (c.measurement_filter) {
+    std::vector<double> fd;
+    measurement_filter_polynomials(*c.measurement_filter, fd);
+    f = realize(TransferFunction(Polynomial({1.0}), Polynomial(fd)));
+  }
+  if (c.notch) {
+    double n3[3], d3[3];
+    notch_polynomials(*c.notch, n3, d3);
+    n = realize(TransferFunction(Polynomial({n3[0], n3[1], n3[2]}), Polynomial({d3[0], d3[1], d3[2]})));
+  }
+  TwoInputRealization out;
+  filtered_controller_into(k.A, k.b_r, k.b_y, k.c, k.d_r, k.d_y, f ? &*f : nullptr, n ? &*n : nullptr, out);
+  return out;
+}
+
+TransferFunction structure_transfer(const Controller& c) {
+  std::vector<double> num, den;
+  controller_polynomials(c.structure, c.series.data(), c.derivative_filter, c.action, num, den);
+  return TransferFunction(Polynomial(num), Polynomial(den));
+}
+
+Controller with_filters(Controller c, const std::optional<NotchFilter>& notch,
+                        const std::optional<MeasurementFilter>& measurement) {
+  c.notch = notch;
+  c.measurement_filter = measurement;
+  TransferFunction t = structure_transfer(c);
+  if (notch) {
+    const NotchFilter& f = *notch;
+    if (!(f.frequency > 0.0) || !std::isfinite(f.frequency)) throw std::invalid_argument("notch frequency must be positive and finite");
+    if (!(f.depth > 0.0 && f.depth < 1.0)) throw std::invalid_argument("notch depth must lie in (0, 1)");
+    if (!(f.width > 0.0 && f.width <= 1.0)) throw std::invalid_argument("notch width must lie in (0, 1]");
+    double n3[3], d3[3];
+    notch_polynomials(f, n3, d3);
+    t = TransferFunction(t.numerator * Polynomial({n3[0], n3[1], n3[2]}), t.denominator * Polynomial({d3[0], d3[1], d3[2]}));
+  }
+  if (measurement) {
+    const MeasurementFilter& f = *measurement;
+    if (f.order != 1 && f.order != 2) throw std::invalid_argument("measurement filter order must be 1 or 2");
+    if (!(f.time_constant > 0.0) || !std::isfinite(f.time_constant))
+      throw std::invalid_argument("measurement filter time constant must be positive and finite");
+    std::vector<double> den;
+    measurement_filter_polynomials(f, den);
+    t = TransferFunction(t.numerator, t.denominator * Polynomial(den));
+  }
+  c.transfer = t;
+  return c;
+}
+
 TransferFunction reference_path(const Controller& c, double b, double cw) {
+  if (c.notch || c.measurement_filter) {
+    // u = N·(C_r·r − C·F·y): C_r·N·(F's denominator) over C·F·N's denominator.
+    Controller bare = c;
+    bare.notch.reset();
+    bare.measurement_filter.reset();
+    bare.transfer = structure_transfer(c);
+    const TransferFunction r = reference_path(bare, b, cw);
+    Polynomial num = r.numerator, den = r.denominator;
+    if (c.notch) {
+      double n3[3], d3[3];
+      notch_polynomials(*c.notch, n3, d3);
+      num = num * Polynomial({n3[0], n3[1], n3[2]});
+      den = den * Polynomial({d3[0], d3[1], d3[2]});
+    }
+    if (c.measurement_filter) {
+      std::vector<double> fd;
+      measurement_filter_polynomials(*c.measurement_filter, fd);
+      num = num * Polynomial(fd);
+      den = den * Polynomial(fd);
+    }
+    const double scale = c.transfer.denominator.leading() / den.leading();
+    return {scale * num, scale * den};
+  }
   if (b == 1.0 && cw == 1.0) return c.transfer;
   if (!c.parallel) throw std::invalid_argument("set-point weights need a parallel form; this structure has none");
   const ParallelGains& g = *c.parallel;

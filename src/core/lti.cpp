@@ -372,7 +372,74 @@ void load_loop_into(const StateSpace& plant, const StateSpace& controller, doubl
   loop.D << y_d + offset, y_d;
 }
 
-StateSpace close_loop(const StateSpace& plant, const TransferFunction& controller, const TransferFunction& reference) {
+void filtered_controller_into(const Eigen::MatrixXd& ak, const Eigen::VectorXd& kbr, const Eigen::VectorXd& kby,
+                              const Eigen::MatrixXd& kc, double kdr, double kdy, const StateSpace* f, const StateSpace* notch,
+                              TwoInputRealization& out) {
+  if (f != nullptr && f->D(0) != 0.0) throw std::invalid_argument("filtered_controller_into: the measurement filter must be strictly proper");
+  const int nf = f != nullptr ? f->states() : 0, nk = static_cast<int>(ak.rows()), nn = notch != nullptr ? notch->states() : 0;
+  const int n = nf + nk + nn;
+  out.A.resize(n, n);
+  out.A.setZero();
+  out.b_r.resize(n);
+  out.b_y.resize(n);
+  out.c.resize(1, n);
+  // K reads r and v = C_f x_f (y itself without F): x_k' = A_k x_k + b_r·r − b_y·v,
+  // w = c_k x_k + d_r·r − d_y·v; the notch x_n' = A_n x_n + B_n·w, u = C_n x_n + D_n·w.
+  const double dn = notch != nullptr ? notch->D(0) : 1.0;
+  const bool filtered = nf > 0;
+  for (int i = 0; i < nf; ++i) {
+    for (int j = 0; j < nf; ++j) out.A(i, j) = f->A(i, j);
+    out.b_r(i) = 0.0;
+    out.b_y(i) = -f->B(i);  // x_f' = A_f x_f + B_f·y
+  }
+  for (int i = 0; i < nk; ++i) {
+    for (int j = 0; j < nf; ++j) out.A(nf + i, j) = -kby(i) * f->C(0, j);
+    for (int j = 0; j < nk; ++j) out.A(nf + i, nf + j) = ak(i, j);
+    out.b_r(nf + i) = kbr(i);
+    out.b_y(nf + i) = filtered ? 0.0 : kby(i);
+  }
+  for (int i = 0; i < nn; ++i) {
+    const double bn = notch->B(i);
+    for (int j = 0; j < nf; ++j) out.A(nf + nk + i, j) = -bn * kdy * f->C(0, j);
+    for (int j = 0; j < nk; ++j) out.A(nf + nk + i, nf + j) = bn * kc(0, j);
+    for (int j = 0; j < nn; ++j) out.A(nf + nk + i, nf + nk + j) = notch->A(i, j);
+    out.b_r(nf + nk + i) = bn * kdr;
+    out.b_y(nf + nk + i) = filtered ? 0.0 : bn * kdy;
+  }
+  for (int j = 0; j < nf; ++j) out.c(0, j) = -dn * kdy * f->C(0, j);
+  for (int j = 0; j < nk; ++j) out.c(0, nf + j) = dn * kc(0, j);
+  for (int j = 0; j < nn; ++j) out.c(0, nf + nk + j) = notch->C(0, j);
+  out.d_r = dn * kdr;
+  out.d_y = filtered ? 0.0 : dn * kdy;
+}
+
+void filtered_controller_into(const StateSpace& k, const StateSpace* f, const StateSpace* notch, TwoInputRealization& out) {
+  filtered_controller_into(k.A, k.B, k.B, k.C, k.D(0), k.D(0), f, notch, out);
+}
+
+StateSpace close_loop(const StateSpace& plant, const TwoInputRealization& controller) {
+  StateSpace loop;
+  close_loop_into(plant, controller, loop);
+  return loop;
+}
+
+void close_loop_into(const StateSpace& plant, const TwoInputRealization& k, StateSpace& loop) {
+  assemble_loop(plant, {k.A, k.b_r, k.b_y, k.c, k.d_r, k.d_y}, loop);
+}
+
+void load_loop_into(const StateSpace& plant, const TwoInputRealization& k, double load, double offset, StateSpace& loop) {
+  assemble_loop(plant, {k.A, k.b_r, k.b_y, k.c, k.d_r, k.d_y}, loop);
+  const int np = plant.states(), nc = static_cast<int>(k.A.rows());
+  const double dp = plant.D(0);
+  const double denom = 1.0 + k.d_y * dp;
+  for (int i = 0; i < np; ++i) loop.B(i) = plant.B(i) * load / denom;
+  const double y_d = dp * load / denom;
+  for (int i = 0; i < nc; ++i) loop.B(np + i) = -k.b_y(i) * y_d;
+  for (int j = 0; j < np + nc; ++j) loop.C(1, j) = loop.C(0, j);
+  loop.D << y_d + offset, y_d;
+}
+
+TwoInputRealization two_input_controller(const TransferFunction& controller, const TransferFunction& reference) {
   // Observable canonical form of the two-input controller over the monic common denominator
   // d(s) = s^m + a1 s^(m−1) + … + am: A has −a in its first column and ones above the diagonal,
   // B = numerator − n0·a (per path), C = [1 0 … 0], D = n0.
@@ -402,8 +469,13 @@ StateSpace close_loop(const StateSpace& plant, const TransferFunction& controlle
     b_r(i) = nr[static_cast<std::size_t>(i) + 1] - nr[0] * ai;
     b_y(i) = ny[static_cast<std::size_t>(i) + 1] - ny[0] * ai;
   }
+  return {a, b_r, b_y, c, nr[0], ny[0]};
+}
+
+StateSpace close_loop(const StateSpace& plant, const TransferFunction& controller, const TransferFunction& reference) {
+  const TwoInputRealization k = two_input_controller(controller, reference);
   StateSpace loop;
-  assemble_loop(plant, {a, b_r, b_y, c, nr[0], ny[0]}, loop);
+  assemble_loop(plant, {k.A, k.b_r, k.b_y, k.c, k.d_r, k.d_y}, loop);
   return loop;
 }
 

@@ -14,7 +14,42 @@ namespace specloop {
 
 namespace {
 constexpr double kUnstableCost = 1e9;  // the search's stability barrier (search.cpp ranks above it)
+
+// a·b into `out` (coefficients highest power first), reusing out's storage.
+void multiply_into(const std::vector<double>& a, const std::vector<double>& b, std::vector<double>& out) {
+  out.assign(a.size() + b.size() - 1, 0.0);
+  for (std::size_t i = 0; i < a.size(); ++i)
+    for (std::size_t j = 0; j < b.size(); ++j) out[i + j] += a[i] * b[j];
+}
 }  // namespace
+
+void CandidateEvaluator::realize_filtered(const SearchedFilters& f) {
+  // K's section first (num_/den_ are still the structure's C(s)), then the filters' sections, then
+  // num_/den_ become the whole C·F·N the margins read. The buffers take turns (swap), so each
+  // gets room for the largest product once.
+  for (auto* v : {&num_, &den_, &scratch_}) v->reserve(8);
+  realize_low_order(num_, den_, controller_);
+  if (f.measurement) {
+    measurement_filter_polynomials(*f.measurement, filter_den_);
+    filter_num_.assign(1, 1.0);
+    realize_low_order(filter_num_, filter_den_, filter_section_);
+    multiply_into(den_, filter_den_, scratch_);
+    den_.swap(scratch_);
+  }
+  if (f.notch) {
+    double n3[3], d3[3];
+    notch_polynomials(*f.notch, n3, d3);
+    notch_num_.assign(n3, n3 + 3);
+    notch_den_.assign(d3, d3 + 3);
+    realize_low_order(notch_num_, notch_den_, notch_section_);
+    multiply_into(num_, notch_num_, scratch_);
+    num_.swap(scratch_);
+    multiply_into(den_, notch_den_, scratch_);
+    den_.swap(scratch_);
+  }
+  filtered_controller_into(controller_, f.measurement ? &filter_section_ : nullptr, f.notch ? &notch_section_ : nullptr,
+                           filtered_);
+}
 
 CandidateEvaluator::CandidateEvaluator(const Problem& nominal, const SearchOptions& options)
     : nominal_(nominal), options_(options), margin_(nominal.search_margin),
@@ -40,6 +75,8 @@ CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double
   const std::size_t count = structure_parameter_count(nominal_);
   const double b = nominal_.spec.search.tune_setpoint_weight ? params[count] : cs.setpoint_weight;
   controller_polynomials(structure, params, n, nominal_.action, num_, den_);
+  const bool filtered = cs.has_filters();
+  if (filtered) realize_filtered(filters_from(cs, params + count + (nominal_.spec.search.tune_setpoint_weight ? 1 : 0)));
   last_sampled_ = plant.sampled;
   CandidateOutcome out;
   if (plant.sampled) {
@@ -73,6 +110,8 @@ CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double
     const TransferFunction c{Polynomial(num_), Polynomial(den_)};
     loop_ = close_loop(plant.plant_realization, c,
                        reference_path(controller_from(nominal_, params), b, cs.derivative_on_measurement ? 0.0 : 1.0));
+  } else if (filtered) {  // u = N·K·(r − F·y), in the evaluator's storage like the unfiltered loop
+    close_loop_into(plant.plant_realization, filtered_, loop_);
   } else {  // in the evaluator's own storage: nothing allocated after the first candidate
     realize_low_order(num_, den_, controller_);
     close_loop_into(plant.plant_realization, controller_, loop_);
@@ -87,8 +126,12 @@ CandidateOutcome CandidateEvaluator::evaluate(const Problem& plant, const double
   if (nominal_.needs_load) {
     // The second simulation: the same loop driven by the load (its A is the set-point loop's), in
     // the evaluator's storage, with the band narrowed like the set point's.
-    if (weighted) realize_low_order(num_, den_, controller_);
-    load_loop_into(plant.plant_realization, controller_, load_size_, load_offset_, load_loop_);
+    if (filtered) {
+      load_loop_into(plant.plant_realization, filtered_, load_size_, load_offset_, load_loop_);
+    } else {
+      if (weighted) realize_low_order(num_, den_, controller_);
+      load_loop_into(plant.plant_realization, controller_, load_size_, load_offset_, load_loop_);
+    }
     if (load_sim_.simulate(load_loop_, 1.0, band_, load_metrics_) != StepStatus::ok) {
       out.objective = kUnstableCost;
       return out;

@@ -51,7 +51,7 @@ void judge_knife_edges(const Problem& problem, Design& d) {
     StepMetrics m;
     const StepStatus status =
         d.sampled ? sampled.simulate(realized, *eq, problem.spec.reference.amplitude, problem.band_fraction, m)
-                  : sim.simulate(close_loop(realized, d.controller.transfer, d.reference_path),
+                  : sim.simulate(design_loop(problem, realized, d),
                                  problem.spec.reference.amplitude, problem.band_fraction, m);
     const std::optional<Margins> margins =
         status == StepStatus::ok ? design_margins(problem, d.controller.transfer, p) : std::optional<Margins>{};
@@ -92,13 +92,20 @@ RequirementCheck check_requirement(const Problem& problem, const Requirement& re
   return c;
 }
 
+StateSpace design_loop(const Problem& problem, const StateSpace& plant, const Design& d) {
+  const Controller& c = d.controller;
+  if (!c.notch && !c.measurement_filter) return close_loop(plant, c.transfer, d.reference_path);
+  const ControllerSpec& cs = problem.spec.controller;
+  return close_loop(plant, controller_realization(c, setpoint_weight_of(cs, c), cs.derivative_on_measurement ? 0.0 : 1.0));
+}
+
 Design measure_design(const Problem& problem, DesignRole role, const Controller& controller) {
   Design d;
   d.role = role;
   d.controller = controller;
   const ControllerSpec& cs = problem.spec.controller;
   d.reference_path = reference_path(controller, setpoint_weight_of(cs, controller), cs.derivative_on_measurement ? 0.0 : 1.0);
-  const StateSpace loop = close_loop(problem.plant_realization, controller.transfer, d.reference_path);
+  const StateSpace loop = design_loop(problem, problem.plant_realization, d);
   StepSimulator sim;
   StepMetrics continuous;
   const StepStatus continuous_status = sim.simulate(loop, problem.spec.reference.amplitude, problem.band_fraction, continuous);

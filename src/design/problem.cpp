@@ -19,8 +19,24 @@ constexpr double kInf = std::numeric_limits<double>::infinity();
 constexpr double kSetpointWeightLow = 0.01;
 }  // namespace
 
+std::size_t filter_parameter_count(const ControllerSpec& cs) {
+  return (cs.notch_search ? 3 : 0) + (cs.measurement_filter_search ? 1 : 0);
+}
+
 std::size_t structure_parameter_count(const Problem& problem) {
-  return problem.parameters.size() - (problem.spec.search.tune_setpoint_weight ? 1 : 0);
+  return problem.parameters.size() - (problem.spec.search.tune_setpoint_weight ? 1 : 0) -
+         filter_parameter_count(problem.spec.controller);
+}
+
+SearchedFilters filters_from(const ControllerSpec& cs, const double* params) {
+  SearchedFilters f{cs.notch, cs.measurement_filter};
+  std::size_t i = 0;
+  if (cs.notch_search) {
+    f.notch = NotchFilter{params[0], params[1], params[2]};
+    i = 3;
+  }
+  if (cs.measurement_filter_search) f.measurement = MeasurementFilter{1, params[i]};
+  return f;
 }
 
 Controller controller_from(const Problem& problem, const double* params) {
@@ -28,7 +44,14 @@ Controller controller_from(const Problem& problem, const double* params) {
   const ControllerSpec& cs = problem.spec.controller;
   Controller c = make_controller(cs.structure, std::vector<double>(params, params + count), cs.derivative_filter,
                                  problem.action);
+  const std::size_t after = count + (problem.spec.search.tune_setpoint_weight ? 1 : 0);
   if (problem.spec.search.tune_setpoint_weight) c.setpoint_weight = params[count];
+  if (cs.has_filters()) {
+    const SearchedFilters f = filters_from(cs, params + after);
+    c = with_filters(std::move(c), f.notch, f.measurement);
+    c.notch_searched = cs.notch_search;
+    c.measurement_filter_searched = cs.measurement_filter_search;
+  }
   return c;
 }
 
@@ -40,7 +63,24 @@ Controller controller_from(const Problem& problem, const std::vector<double>& pa
 
 std::vector<double> search_vector(const Problem& problem, const Controller& c) {
   std::vector<double> v = c.series;
-  if (problem.spec.search.tune_setpoint_weight) v.push_back(setpoint_weight_of(problem.spec.controller, c));
+  const ControllerSpec& cs = problem.spec.controller;
+  if (problem.spec.search.tune_setpoint_weight) v.push_back(setpoint_weight_of(cs, c));
+  if (cs.notch_search) {
+    // A controller without a notch (a hand design seeding the search) starts at the range's middle.
+    const NotchFilter f = c.notch.value_or(NotchFilter{0.0, 0.0, 0.0});
+    const std::size_t at = v.size();
+    const auto* lo_hi = problem.bounds.size() > at + 2 ? &problem.bounds[at] : nullptr;
+    auto mid = [&](std::size_t k) { return std::sqrt(problem.bounds[at + k].first * problem.bounds[at + k].second); };
+    v.push_back(c.notch ? f.frequency : (lo_hi ? mid(0) : 1.0));
+    v.push_back(c.notch ? f.depth : (lo_hi ? mid(1) : 0.1));
+    v.push_back(c.notch ? f.width : (lo_hi ? mid(2) : 0.3));
+  }
+  if (cs.measurement_filter_search) {
+    const std::size_t at = v.size();
+    const bool known = problem.bounds.size() > at;
+    v.push_back(c.measurement_filter ? c.measurement_filter->time_constant
+                                     : (known ? std::sqrt(problem.bounds[at].first * problem.bounds[at].second) : 1.0));
+  }
   return v;
 }
 
@@ -107,6 +147,14 @@ Problem make_problem(const Spec& spec, const Characterization& ch) {
   if (spec.search.tune_setpoint_weight)
     p.parameters.push_back({std::string(kSetpointWeightParameter), "",
                             "set-point weight b: the proportional term acts on b·r − y"});
+  if (spec.controller.notch_search) {
+    p.parameters.push_back({std::string(kNotchFrequencyParameter), "rad/s", "notch frequency ωn"});
+    p.parameters.push_back({std::string(kNotchDepthParameter), "", "notch depth: the gain at ωn"});
+    p.parameters.push_back({std::string(kNotchWidthParameter), "", "notch width: the pole damping ζp"});
+  }
+  if (spec.controller.measurement_filter_search)
+    p.parameters.push_back({std::string(kFilterTimeParameter), "s", "measurement filter time constant Tf (order 1)"});
+  const auto notch_range = notch_frequency_range(spec.plant.poles, spec.controller.sample_time_s);
   const double n = spec.controller.derivative_filter;
   for (const ParameterInfo& info : p.parameters) {
     std::pair<double, double> b;
@@ -114,6 +162,10 @@ Problem make_problem(const Spec& spec, const Characterization& ch) {
     else if (info.name == "gain") b = {k_scale * 1e-3, k_scale * 1e3};
     else if (info.name == "ratio" || info.name == "lag_ratio") b = {1.05, 100.0};
     else if (info.name == "zero_damping") b = {pid_min_zero_damping(n) * 1.0001, 20.0};
+    else if (info.name == kNotchFrequencyParameter) b = notch_range.value_or(std::make_pair(w_lo, w_hi * 10.0));
+    else if (info.name == kNotchDepthParameter) b = {0.01, 0.5};
+    else if (info.name == kNotchWidthParameter) b = {0.05, 1.0};
+    else if (info.name == kFilterTimeParameter) b = {0.01 / w_hi, 1.0 / w_lo};
     else b = {w_lo * 1e-3, w_hi * 10.0};
     for (const auto& [name, range] : spec.search.bounds)
       if (name == info.name) b = range;

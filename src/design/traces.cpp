@@ -77,7 +77,7 @@ std::optional<ResponseTrace> linear_trace(const Problem& problem, const Design& 
                                                                  cs.derivative_on_measurement ? 0.0 : 1.0);
     status = sampled.simulate(problem.plant_realization, eq, spec.reference.amplitude, problem.band_fraction, m, &trace);
   } else {
-    status = sim.simulate(close_loop(problem.plant_realization, d.controller.transfer, d.reference_path),
+    status = sim.simulate(design_loop(problem, problem.plant_realization, d),
                           spec.reference.amplitude, problem.band_fraction, m, &trace);
   }
   if (status != StepStatus::ok) return std::nullopt;

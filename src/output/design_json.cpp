@@ -46,6 +46,15 @@ json controller_json(const Design& d) {
           {"standard", standard}};
   // A searched set-point weight (search.tune_setpoint_weight); otherwise the spec's applies.
   if (c.setpoint_weight) out["setpoint_weight"] = number_json(*c.setpoint_weight);
+  // The filters (README "Filters"): numerator/denominator above are then C·F·N's, the series,
+  // parallel and standard forms the structure's part alone.
+  if (c.notch)
+    out["notch"] = {{"frequency", number_json(c.notch->frequency)}, {"depth", number_json(c.notch->depth)},
+                    {"width", number_json(c.notch->width)}, {"searched", c.notch_searched}};
+  if (c.measurement_filter)
+    out["measurement_filter"] = {{"order", c.measurement_filter->order},
+                                 {"time_constant", number_json(c.measurement_filter->time_constant)},
+                                 {"searched", c.measurement_filter_searched}};
   return out;
 }
 

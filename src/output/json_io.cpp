@@ -211,13 +211,22 @@ json spec_json(const Spec& spec) {
   // Every key that changes a number is written, so that result.json rebuilds the loop alone;
   // null stands for "none" (rate_max, sample_time: continuous) or for the documented default rule
   // (tracking_time, noise_period: the value used is in each design's "nonlinear" block).
-  const json controller = {{"structure", structure_name(c.structure)},
+  json controller = {{"structure", structure_name(c.structure)},
                            {"derivative_filter", number_json(c.derivative_filter)},
                            {"setpoint_weight", number_json(c.setpoint_weight)},
                            {"derivative_on", c.derivative_on_measurement ? "measurement" : "error"},
                            {"sample_time", c.sample_time_s > 0.0 ? number_json(c.sample_time_s) : json(nullptr)},
                            {"anti_windup", anti_windup_name(c.anti_windup)},
                            {"tracking_time", optional_number(c.tracking_time_s)}};
+  // The filters (README "Filters"), only when given: "search", or their values.
+  if (c.notch_search) controller["notch"] = "search";
+  else if (c.notch)
+    controller["notch"] = {{"frequency", number_json(c.notch->frequency)}, {"depth", number_json(c.notch->depth)},
+                           {"width", number_json(c.notch->width)}};
+  if (c.measurement_filter_search) controller["measurement_filter"] = "search";
+  else if (c.measurement_filter)
+    controller["measurement_filter"] = {{"order", c.measurement_filter->order},
+                                        {"time_constant", number_json(c.measurement_filter->time_constant)}};
   const DisturbanceSpec& dist = spec.disturbance;
   const json disturbance = {{"time", number_json(dist.time_s)},
                             {"size", number_json(dist.size)},

@@ -118,6 +118,11 @@ std::string controller_lines(const Design& d, const UnitsSpec& units) {
     for (double v : p.coefficients) terms.push_back(fmt::format("{:.6g}", v));
     return fmt::format("[{}]", fmt::join(terms, ", "));
   };
+  if (c.notch || c.measurement_filter) {
+    s += fmt::format("filters: {} (u = N·(C_r·r − C·F·y); the series, parallel and standard forms above are C's, the PID "
+                     "part's; C(s) below is C·F·N, the whole controller the measurement sees)\n",
+                     filters_text(c, t));
+  }
   s += fmt::format("C(s) = {} / {} (coefficients, highest power of s first)\n", poly(c.transfer.numerator), poly(c.transfer.denominator));
   if (d.nonlinear && d.nonlinear->difference_equation) {
     const DifferenceEquation& e = *d.nonlinear->difference_equation;

@@ -2,6 +2,7 @@
 // term (integral by Tustin, filtered derivative by the backward difference), any other C(s) by the
 // Tustin transform of the whole (nonlinear.hpp, "Sampled controller").
 #include <cmath>
+#include <numbers>
 #include <utility>
 #include <vector>
 
@@ -30,13 +31,17 @@ std::vector<double> poly_add(std::vector<double> a, const std::vector<double>& b
 
 // Tustin image of N(s)/D(s) (coefficients highest power first, proper): s = (2/Ts)(1 − w)/(1 + w)
 // with w = z⁻¹; both multiplied by (1 + w)^n, n = deg D. Returns {num, den} with den[0] = 1.
-std::pair<std::vector<double>, std::vector<double>> tustin_of(const Polynomial& num, const Polynomial& den, double ts) {
+std::pair<std::vector<double>, std::vector<double>> tustin_of(const Polynomial& num, const Polynomial& den, double ts,
+                                                              double prewarp = 0.0) {
   const int n = den.degree();
+  // s = k·(1 − w)/(1 + w): k = 2/Ts, or ω/tan(ω·Ts/2) prewarped at ω (the image's gain and phase at
+  // ω are then the continuous ones at ω).
+  const double scale = prewarp > 0.0 ? prewarp / std::tan(prewarp * ts / 2.0) : 2.0 / ts;
   auto image = [&](const Polynomial& p) {
     std::vector<double> out(static_cast<std::size_t>(n) + 1, 0.0);
     const int deg = p.degree();
     for (int i = 0; i <= deg; ++i) {  // the s^i term
-      const double coef = p.coefficients[static_cast<std::size_t>(deg - i)] * std::pow(2.0 / ts, i);
+      const double coef = p.coefficients[static_cast<std::size_t>(deg - i)] * std::pow(scale, i);
       std::vector<double> term{coef};
       for (int k = 0; k < i; ++k) term = poly_mul(term, {1.0, -1.0});
       for (int k = i; k < n; ++k) term = poly_mul(term, {1.0, 1.0});
@@ -58,7 +63,8 @@ namespace nonlinear_loop {
 
 bool samples_parallel_law(const Controller& controller) {
   const Structure st = controller.structure;
-  return controller.parallel && st != Structure::lead && st != Structure::lag && st != Structure::lead_lag;
+  return controller.parallel && st != Structure::lead && st != Structure::lag && st != Structure::lead_lag &&
+         !controller.notch && !controller.measurement_filter;
 }
 
 }  // namespace nonlinear_loop
@@ -66,6 +72,45 @@ bool samples_parallel_law(const Controller& controller) {
 DifferenceEquation controller_difference_equation(const Controller& controller, double ts, double setpoint_weight,
                                                   double derivative_weight) {
   if (!(std::isfinite(ts) && ts > 0.0)) fail("sample_time_s: expected a finite number > 0");
+  if (controller.notch || controller.measurement_filter) {
+    // u = N·(C_r·r − C·F·y): the structure's two paths (Tustin of its C_r and C over one
+    // denominator), the filter by Tustin, the notch by Tustin prewarped at its frequency.
+    Controller bare = controller;
+    bare.notch.reset();
+    bare.measurement_filter.reset();
+    bare.transfer = structure_transfer(controller);
+    const TransferFunction cr = reference_path(bare, setpoint_weight, derivative_weight);
+    auto [rn, rd] = tustin_of(cr.numerator, cr.denominator, ts);
+    auto [mn, md] = tustin_of(bare.transfer.numerator, bare.transfer.denominator, ts);
+    (void)rd;  // cr shares C's denominator: the same image
+    DifferenceEquation eq;
+    eq.sample_time_s = ts;
+    eq.reference_numerator = rn;
+    eq.measurement_numerator = mn;
+    eq.denominator = md;
+    eq.method = "C_r(s) and C(s) by Tustin (bilinear) over one denominator";
+    if (controller.measurement_filter) {
+      std::vector<double> fd;
+      measurement_filter_polynomials(*controller.measurement_filter, fd);
+      auto [fzn, fzd] = tustin_of(Polynomial({1.0}), Polynomial(fd), ts);
+      eq.measurement_numerator = poly_mul(eq.measurement_numerator, fzn);
+      eq.reference_numerator = poly_mul(eq.reference_numerator, fzd);
+      eq.denominator = poly_mul(eq.denominator, fzd);
+      eq.method += "; measurement filter F(s) by Tustin";
+    }
+    if (controller.notch) {
+      const NotchFilter& f = *controller.notch;
+      if (!(f.frequency * ts < std::numbers::pi)) fail("notch frequency at or above the Nyquist frequency π/sample_time");
+      double n3[3], d3[3];
+      notch_polynomials(f, n3, d3);
+      auto [nzn, nzd] = tustin_of(Polynomial({n3[0], n3[1], n3[2]}), Polynomial({d3[0], d3[1], d3[2]}), ts, f.frequency);
+      eq.measurement_numerator = poly_mul(eq.measurement_numerator, nzn);
+      eq.reference_numerator = poly_mul(eq.reference_numerator, nzn);
+      eq.denominator = poly_mul(eq.denominator, nzd);
+      eq.method += "; notch N(s) by Tustin prewarped at its frequency ωn";
+    }
+    return eq;
+  }
   DifferenceEquation eq;
   eq.sample_time_s = ts;
   if (samples_parallel_law(controller)) {

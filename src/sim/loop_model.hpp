@@ -108,6 +108,9 @@ struct LoopModel : PidLaw {
   Eigen::RowVectorXd cc;
   double dc = 0;
   int c_index = 0, nc = 0;
+  // Two inputs (a controller with filters, u = N·(C_r·r − C·F·y)): x_c' = A·x_c + br·r − bc·(y + n).
+  bool two_input = false;
+  Eigen::VectorXd br;
   // Actuator.
   double umin = 0, umax = 0, rate_max = 0;
   bool rate = false;
@@ -187,7 +190,7 @@ struct LoopModel : PidLaw {
       if (d_index >= 0) dx[d_index] = (c * r - y - n - x[d_index]) / tf;
     } else {
       for (int i = 0; i < nc; ++i) {
-        double s = bc(i) * e;
+        double s = two_input ? br(i) * r - bc(i) * (y + n) : bc(i) * e;
         for (int j = 0; j < nc; ++j) s += ac(i, j) * x[c_index + j];
         dx[c_index + i] = s;
       }

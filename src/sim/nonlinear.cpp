@@ -149,6 +149,32 @@ void set_state_space_controller(LoopModel& model, const Controller& controller, 
                          "no anti-windup, set-point and derivative weights not applied");
 }
 
+// A controller with filters (u = N·(C_r·r − C·F·y)): the two-input controller realized as one state
+// space from C·F·N and C_r·N, its states from index `size` on. The anti-windup of the parallel
+// form is not applied to it (a note says so).
+void set_filtered_controller(LoopModel& model, const Controller& controller, const LoopOptions& options, int& size,
+                             NonlinearResult& result) {
+  const TwoInputRealization k = controller_realization(controller, options.setpoint_weight, options.derivative_weight);
+  model.parallel = false;
+  model.two_input = true;
+  model.nc = static_cast<int>(k.A.rows());
+  model.c_index = size;
+  size += model.nc;
+  model.ac = k.A;
+  model.bc = k.b_y;
+  model.br = k.b_r;
+  model.cc = k.c.row(0);
+  model.dc = k.d_y;
+  model.command_r = k.d_r;
+  model.command_n = k.d_y;
+  result.notes.push_back(std::string("controller with ") +
+                         (controller.notch && controller.measurement_filter ? "a notch and a measurement filter"
+                          : controller.notch                               ? "a notch"
+                                                                           : "a measurement filter") +
+                         ": u = N·(C_r·r − C·F·y) realized as one two-input state space" +
+                         (options.anti_windup != AntiWindup::none ? "; anti-windup not applied to it" : ""));
+}
+
 // The loop plant → controller → actuator; state layout [plant | controller | applied u].
 LoopModel loop_model_of(const StateSpace& plant, const Controller& controller, const ActuatorModel& actuator,
                         const LoopOptions& options, double amplitude, NonlinearResult& result) {
@@ -166,7 +192,8 @@ LoopModel loop_model_of(const StateSpace& plant, const Controller& controller, c
   model.umin = actuator.min;
   model.umax = actuator.max;
   int size = model.np;
-  if (controller.parallel) set_parallel_controller(model, *controller.parallel, options, size, result);
+  if (controller.notch || controller.measurement_filter) set_filtered_controller(model, controller, options, size, result);
+  else if (controller.parallel) set_parallel_controller(model, *controller.parallel, options, size, result);
   else set_state_space_controller(model, controller, size, result);
   if (actuator.rate_max) {
     model.rate = true;
@@ -336,7 +363,9 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   // are applied at all.
   const StateSpace linear = close_loop(plant, realize(controller.transfer));
   const bool weights_applied = model.parallel && (!(period > 0.0) || samples_parallel_law(controller));
-  const double reference_weight_dc = weights_applied && model.ki == 0.0 ? model.b : 1.0;
+  const bool filtered_integral = controller.parallel && controller.parallel->ki != 0.0;
+  const double reference_weight_dc = model.two_input ? (filtered_integral ? 1.0 : options.setpoint_weight)
+                                     : weights_applied && model.ki == 0.0 ? model.b : 1.0;
   const double y_inf = amplitude * loop_dc_gain(plant, controller.transfer, reference_weight_dc);
 
   RunState run(options, model, result);

@@ -30,6 +30,9 @@ struct SampledController : PidLaw {
   double ua_prev = 0;  // applied value at the end of the previous period (back-calculation)
   // Direct form (Tustin of C(s) on e): newest first.
   std::vector<double> num, den, e_hist, u_hist;
+  // Two inputs (a controller with filters: u = N·(C_r·r − C·F·y)): e_hist holds y, r_hist r.
+  bool two_input = false;
+  std::vector<double> rnum, r_hist;
   DifferenceEquation equation;
 
   // The last update: the command as first computed (with the integral increment) and whether
@@ -61,9 +64,17 @@ struct SampledController : PidLaw {
       return uc;
     }
     std::rotate(e_hist.rbegin(), e_hist.rbegin() + 1, e_hist.rend());
-    e_hist[0] = r - y;
     double uc = 0.0;
-    for (std::size_t j = 0; j < num.size(); ++j) uc += num[j] * e_hist[j];
+    if (two_input) {
+      e_hist[0] = y;
+      std::rotate(r_hist.rbegin(), r_hist.rbegin() + 1, r_hist.rend());
+      r_hist[0] = r;
+      for (std::size_t j = 0; j < rnum.size(); ++j) uc += rnum[j] * r_hist[j];
+      for (std::size_t j = 0; j < num.size(); ++j) uc -= num[j] * e_hist[j];
+    } else {
+      e_hist[0] = r - y;
+      for (std::size_t j = 0; j < num.size(); ++j) uc += num[j] * e_hist[j];
+    }
     for (std::size_t j = 1; j < den.size(); ++j) uc -= den[j] * u_hist[j - 1];
     tentative = uc;
     std::rotate(u_hist.rbegin(), u_hist.rbegin() + 1, u_hist.rend());
@@ -87,6 +98,11 @@ SampledController make_sampled(const Controller& controller, const LoopModel& mo
     sc.num = sc.equation.measurement_numerator;
     sc.den = sc.equation.denominator;
     sc.e_hist.assign(sc.num.size(), 0.0);
+    if (controller.notch || controller.measurement_filter) {
+      sc.two_input = true;
+      sc.rnum = sc.equation.reference_numerator;
+      sc.r_hist.assign(sc.rnum.size(), 0.0);
+    }
     sc.u_hist.assign(sc.den.size() > 1 ? sc.den.size() - 1 : 0, 0.0);
   }
   return sc;
@@ -281,7 +297,10 @@ class SampledIntegration {
 bool run_sampled(RunState& run, const Controller& controller) {
   SampledController ctl = make_sampled(controller, run.model, run.period);
   run.result.difference_equation = ctl.equation;
-  if (!ctl.parallel && controller.parallel)
+  if (ctl.two_input)
+    run.result.notes.push_back("sampled controller with filters: its difference equation u = N·(C_r·r − C·F·y) as one "
+                               "direct form; anti-windup not applied");
+  else if (!ctl.parallel && controller.parallel)
     run.result.notes.push_back("sampled lead/lag: Tustin of C(s) on e = r - y; set-point and derivative weights and anti-windup not applied");
   const LoopOptions& options = run.options;
   if (run.result.stepper == NonlinearStepper::rosenbrock4) {

@@ -7,6 +7,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <numbers>
 #include <cstdint>
 
 namespace specloop::reading {
@@ -24,13 +25,17 @@ void read_reference(const DocumentReader& reader, ReferenceSpec& reference) {
 namespace {
 
 /// [search.bounds]: parameter = [low, high], each parameter one of the structure's.
-void read_bounds(const DocumentReader& reader, const Entry& entry, SearchSpec& search, Structure structure) {
+void read_bounds(const DocumentReader& reader, const Entry& entry, SearchSpec& search, const ControllerSpec& controller) {
+  const Structure structure = controller.structure;
   const auto* bounds = entry.value->as_table();
   if (bounds == nullptr)
     reader.fail_expected(entry.at, "search.bounds", "a table of parameter = [low, high]", describe(*entry.value));
   std::vector<std::string_view> names;
   for (const auto& info : structure_parameters(structure)) names.emplace_back(info.name);
   if (search.tune_setpoint_weight) names.emplace_back(kSetpointWeightParameter);
+  if (controller.notch_search)
+    for (std::string_view n : {kNotchFrequencyParameter, kNotchDepthParameter, kNotchWidthParameter}) names.emplace_back(n);
+  if (controller.measurement_filter_search) names.emplace_back(kFilterTimeParameter);
   for (const auto& bound : entries_in_file_order(*bounds)) {
     const std::string key = fmt::format("search.bounds.{}", bound.key);
     if (std::find(names.begin(), names.end(), bound.key) == names.end()) {
@@ -49,13 +54,21 @@ void read_bounds(const DocumentReader& reader, const Entry& entry, SearchSpec& s
     reader.require(hi.value > lo.value, hi, key, fmt::format("a high bound above the low bound ({})", lo.shown));
     if (bound.key == kSetpointWeightParameter)
       reader.require(hi.value <= 1.0, hi, key, "a high bound <= 1 (b weighs the set point within the error)");
+    if (bound.key == kNotchDepthParameter)
+      reader.require(hi.value < 1.0, hi, key, "a high bound < 1 (the notch's depth is its gain at the notch frequency)");
+    if (bound.key == kNotchWidthParameter)
+      reader.require(hi.value <= 1.0, hi, key, "a high bound <= 1 (the notch's width is its pole damping)");
+    if (bound.key == kNotchFrequencyParameter && controller.sample_time_s > 0.0)
+      reader.require(hi.value < std::numbers::pi / controller.sample_time_s, hi, key,
+                     fmt::format("a high bound below the Nyquist frequency π/sample_time = {:.6g} rad/s",
+                                 std::numbers::pi / controller.sample_time_s));
     search.bounds.emplace_back(std::string(bound.key), std::make_pair(lo.value, hi.value));
   }
 }
 
 }  // namespace
 
-void read_search(const DocumentReader& reader, SearchSpec& search, Structure structure) {
+void read_search(const DocumentReader& reader, SearchSpec& search, const ControllerSpec& controller) {
   const toml::table* table = reader.section("search");
   if (table == nullptr) return;
   constexpr std::string_view kSection = "search";
@@ -89,7 +102,7 @@ void read_search(const DocumentReader& reader, SearchSpec& search, Structure str
       reader.fail_expected(entry->at, "search.tune_setpoint_weight", "true or false", describe(*entry->value));
     search.tune_setpoint_weight = flag->get();
   }
-  if (const auto entry = find_entry(*table, "bounds")) read_bounds(reader, *entry, search, structure);
+  if (const auto entry = find_entry(*table, "bounds")) read_bounds(reader, *entry, search, controller);
 }
 
 void read_rules(const DocumentReader& reader, RulesSpec& rules) {

@@ -38,8 +38,8 @@ void read_requirements(const DocumentReader& reader, Requirements& requirements,
 void check_load_requirements(const DocumentReader& reader, const Spec& spec, const std::string& path);
 
 void read_reference(const DocumentReader& reader, ReferenceSpec& reference);
-/// [search]; its bounds must name parameters of `structure`.
-void read_search(const DocumentReader& reader, SearchSpec& search, Structure structure);
+/// [search]; its bounds must name parameters of the controller's structure or its searched filters.
+void read_search(const DocumentReader& reader, SearchSpec& search, const ControllerSpec& controller);
 /// [disturbance]; noise_period like the controller's times.
 void read_disturbance(const DocumentReader& reader, DisturbanceSpec& disturbance, const std::optional<TimeRule>& times,
                       std::vector<PendingTime>& pending);

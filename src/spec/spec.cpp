@@ -7,6 +7,7 @@
 #include "spec/plant_checks.hpp"
 #include "spec/sections.hpp"
 
+#include <algorithm>
 #include <cerrno>
 #include <cstring>
 #include <filesystem>
@@ -36,7 +37,7 @@ SpecAsRead read_document(const toml::table& document, const std::string& path) {
   reading::read_controller(reader, spec.controller, times, sources->pending_times);
   reading::read_requirements(reader, spec.requirements, *sources);
   reading::read_reference(reader, spec.reference);
-  reading::read_search(reader, spec.search, spec.controller.structure);
+  reading::read_search(reader, spec.search, spec.controller);
   reading::read_disturbance(reader, spec.disturbance, times, sources->pending_times);
   reading::read_sweep(reader, spec.sweep_vary);
   reading::read_units(reader, spec.units);
@@ -57,6 +58,23 @@ SpecAsRead read_document(const toml::table& document, const std::string& path) {
     if (controller != nullptr && reading::find_entry(*controller, "setpoint_weight"))
       reading::fail_at(path, at, "search.tune_setpoint_weight",
                        "controller.setpoint_weight fixes b, and tune_setpoint_weight searches it: give one of them");
+  }
+  if (spec.controller.notch_search &&
+      std::none_of(spec.search.bounds.begin(), spec.search.bounds.end(),
+                   [](const auto& b) { return b.first == kNotchFrequencyParameter; })) {
+    // The searched notch's default frequency range comes from the plant's lightly damped poles.
+    const auto at = reading::find_entry(*reader.section("controller"), "notch")->at;
+    if (spec.plant.nonlinear)
+      reading::fail_at(path, at, "controller.notch",
+                       "\"search\" on an expression plant needs search.bounds.notch_frequency = [low, high] (its poles "
+                       "are known only from its linearization)");
+    if (!notch_frequency_range(spec.plant.poles, spec.controller.sample_time_s))
+      reading::fail_at(path, at, "controller.notch",
+                       fmt::format("\"search\" places the notch near the plant's lightly damped poles (a complex pair "
+                                   "with damping below {}), and this plant has none{}; give "
+                                   "search.bounds.notch_frequency = [low, high] or leave the notch out",
+                                   kLightDamping,
+                                   spec.controller.sample_time_s > 0.0 ? " below the sampled controller's Nyquist frequency" : ""));
   }
   if (times) reading::check_zero_error_integrator(path, spec, *sources);
   reading::check_load_requirements(reader, spec, path);

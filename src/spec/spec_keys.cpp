@@ -70,6 +70,22 @@ constexpr SpecKey kKeysBeforeRequirements[] = {
     {"controller.setpoint_weight", "—", "1",
      "b: the proportional term acts on b·r − y, in [0, 1] (PID-type structures)"},
     {"controller.derivative_on", "—", "`error`", "`error` (c = 1) or `measurement` (c = 0: no derivative kick)"},
+    {"controller.notch", "—", "none",
+     "a notch N(s) = (s² + 2·depth·width·ωn·s + ωn²)/(s² + 2·width·ωn·s + ωn²) in series with the controller's output "
+     "(u = N·(C_r·r − C·F·y)): a table `{frequency, depth, width}` (below), or `\"search\"`: the optimizer places it "
+     "(frequency within [0.5, 2]× the plant's lightly damped poles (ζ < 0.3) unless `search.bounds.notch_frequency` "
+     "says otherwise; depth in [0.01, 0.5], width in [0.05, 1]; `search.bounds.notch_depth`, `notch_width`). The "
+     "optimized design only (README \"Filters\")"},
+    {"controller.notch.frequency", "rad/s", "—",
+     "ωn, > 0; below the Nyquist frequency π/`sample_time` of a sampled controller"},
+    {"controller.notch.depth", "—", "—", "the gain |N(jωn)| at ωn, in (0, 1) (0.1 is −20 dB)"},
+    {"controller.notch.width", "—", "—", "the pole damping ζp, in (0, 1]: the dip is about 2·ζp·ωn wide"},
+    {"controller.measurement_filter", "—", "none",
+     "a low-pass F on the measured output (u = C_r·r − C·F·y): a table `{order, time_constant}`, or "
+     "`\"search\"` (order 1, Tf searched in [0.01, 1]/ω over the plant's pole and zero magnitudes unless "
+     "`search.bounds.filter_time_constant` says otherwise). The optimized design only"},
+    {"controller.measurement_filter.order", "—", "—", "1: 1/(Tf·s + 1); 2: 1/((Tf·s)²/2 + Tf·s + 1) (damping 1/√2)"},
+    {"controller.measurement_filter.time_constant", "s", "—", "Tf, > 0"},
 };
 
 constexpr SpecKey kKeysAfterRequirements[] = {

@@ -120,6 +120,34 @@ void close_loop_into(const StateSpace& plant, const StateSpace& controller, Stat
 void load_loop_into(const StateSpace& plant, const StateSpace& controller, double load, double offset,
                     StateSpace& loop);
 
+/// A two-input controller x' = A·x + b_r·r − b_y·y, u = c·x + d_r·r − d_y·y, in storage reused
+/// from call to call (the search's filtered controller).
+struct TwoInputRealization {
+  Eigen::MatrixXd A;
+  Eigen::VectorXd b_r, b_y;
+  Eigen::MatrixXd c;  // one row
+  double d_r = 0.0, d_y = 0.0;
+};
+
+/// The controller u = N·(K·(r − F·y)) from the realizations of K (the structure's C(s), acting on
+/// r − F·y), the measurement filter F (strictly proper; nullptr: none) and the notch N in series
+/// with the output (nullptr: none), states ordered [F | K | N], into `out`: nothing is allocated
+/// when `out` already has the sizes. Throws std::invalid_argument for an F with feedthrough.
+void filtered_controller_into(const StateSpace& k, const StateSpace* f, const StateSpace* notch, TwoInputRealization& out);
+/// The same with a two-input K (x_k' = A_k x_k + b_r·r − b_y·v, w = c_k x_k + d_r·r − d_y·v, v = F·y).
+void filtered_controller_into(const Eigen::MatrixXd& ak, const Eigen::VectorXd& kbr, const Eigen::VectorXd& kby,
+                              const Eigen::MatrixXd& kc, double kdr, double kdy, const StateSpace* f, const StateSpace* notch,
+                              TwoInputRealization& out);
+/// close_loop_into into a new loop.
+StateSpace close_loop(const StateSpace& plant, const TwoInputRealization& controller);
+/// The two-input controller u = C_r·r − C·y (C and C_r over one denominator, as reference_path
+/// gives them) in observable canonical form, as close_loop(plant, C, C_r) builds it.
+TwoInputRealization two_input_controller(const TransferFunction& controller, const TransferFunction& reference);
+/// close_loop_into and load_loop_into for a two-input controller (the same conventions).
+void close_loop_into(const StateSpace& plant, const TwoInputRealization& controller, StateSpace& loop);
+void load_loop_into(const StateSpace& plant, const TwoInputRealization& controller, double load, double offset,
+                    StateSpace& loop);
+
 /// Two-degree-of-freedom loop u = C_r·r − C·y, y = P·u, with C_r and C over one denominator
 /// (reference_path). Outputs: row 0 = y, row 1 = u. C_r = C is close_loop(plant, realize(C)).
 StateSpace close_loop(const StateSpace& plant, const TransferFunction& controller, const TransferFunction& reference);

@@ -75,8 +75,14 @@ class CandidateEvaluator {
   SampledStepSimulator sampled_sim_;
   SampledStepSimulator sampled_load_sim_;  // the sampled loop's load response (Problem::needs_load)
   StepMetrics metrics_;
-  std::vector<double> num_, den_;  // the candidate's C(s)
-  StateSpace controller_, loop_;   // its realization and the closed loop, reused
+  std::vector<double> num_, den_;  // the candidate's C(s) (with its filters: C·F·N)
+  StateSpace controller_, loop_;   // its realization (the structure's part) and the closed loop, reused
+  // The filters (controller.notch, controller.measurement_filter): their sections and the
+  // two-input controller u = N·K·(r − F·y), in fixed storage too.
+  void realize_filtered(const SearchedFilters& f);
+  std::vector<double> filter_num_, filter_den_, notch_num_, notch_den_, scratch_;
+  StateSpace filter_section_, notch_section_;
+  TwoInputRealization filtered_;
   // The load response (Problem::needs_load): a second simulation of the same loop driven at the
   // plant's input (load_loop_into), in storage of its own, so that it allocates nothing either.
   double load_size_, load_offset_;

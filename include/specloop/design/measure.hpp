@@ -43,6 +43,10 @@ struct Design {
   std::vector<std::string> warnings;
 };
 
+/// The design's linear loop u = C_r·r − C·y around `plant` (outputs y, u): close_loop of C and
+/// C_r, or, with filters, of the controller's sectioned realization (controller_realization).
+StateSpace design_loop(const Problem& problem, const StateSpace& plant, const Design& d);
+
 /// A requirement read off a measured response (the problem's reference peak time and band; the
 /// spec's own limit).
 RequirementCheck check_requirement(const Problem& problem, const Requirement& req, const StepMetrics& m,

@@ -39,6 +39,16 @@ struct Problem {
   bool sampled = false;
 };
 
+/// The filters a search vector's filter entries stand for (after the structure's and b), or the
+/// spec's given ones where nothing is searched.
+struct SearchedFilters {
+  std::optional<NotchFilter> notch;
+  std::optional<MeasurementFilter> measurement;
+};
+SearchedFilters filters_from(const ControllerSpec& cs, const double* filter_params);
+/// How many of Problem::parameters are the searched filters' (0, 1, 3 or 4; the last ones).
+std::size_t filter_parameter_count(const ControllerSpec& cs);
+
 /// The count of the structure's own parameters in Problem::parameters (all of them, or all but
 /// the trailing set-point weight b when the search tunes it).
 std::size_t structure_parameter_count(const Problem& problem);

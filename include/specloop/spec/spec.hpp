@@ -12,6 +12,7 @@
 #include <utility>
 #include <vector>
 
+#include "specloop/core/compensator.hpp"
 #include "specloop/core/vocabulary.hpp"
 
 namespace specloop {
@@ -75,6 +76,13 @@ struct ControllerSpec {
   double sample_time_s = 0.0;                 // > 0: a digital controller at this period, s
   double setpoint_weight = 1.0;               // b: the proportional term acts on b·r − y
   bool derivative_on_measurement = false;     // c = 0 (no derivative kick) instead of c = 1
+  // The filters (README "Filters"): u = N·(C_r·r − C·F·y). Given values, or searched (then the
+  // optional stays empty for the notch, and the filter's time constant is searched at `order`).
+  std::optional<NotchFilter> notch;               // controller.notch = {frequency, depth, width}
+  bool notch_search = false;                      // controller.notch = "search"
+  std::optional<MeasurementFilter> measurement_filter;  // controller.measurement_filter = {order, time_constant}
+  bool measurement_filter_search = false;         // controller.measurement_filter = "search" (order 1)
+  bool has_filters() const { return notch || notch_search || measurement_filter || measurement_filter_search; }
 };
 
 /// A load disturbance: a step added at the plant input (used by the nonlinear confirmation).
