@@ -19,6 +19,7 @@
 #include "specloop/spec/spec.hpp"
 #include "specloop/sweep/sweep.hpp"
 #include "specloop/sweep/sweep_report.hpp"
+#include "fit_command.hpp"
 
 namespace {
 
@@ -504,6 +505,9 @@ int main(int argc, char** argv) {
   sweep_report->add_option("--threshold", threshold_pct, "relative error of the second-order prediction, %, beyond which "
                                                          "a map cell is outlined (default 10)");
 
+  cli::FitCommand fit_cmd;
+  cli::add_fit_command(app, fit_cmd);
+
   const std::string keys_hint = "Spec file keys (unit, default, meaning): specloop keys [SECTION], or README.md, "
                                 "\"Spec file reference\".";
   for (CLI::App* command : {&app, analyze, design, sweep}) command->footer(keys_hint);
@@ -532,6 +536,7 @@ int main(int argc, char** argv) {
       print_design(run, outcome);
       return run.met ? 0 : 1;
     }
+    if (*fit_cmd.app) return cli::run_fit_command(fit_cmd);
     if (*keys) return print_keys(keys_prefix, keys_markdown);
     if (*sweep) return run_sweep_command(spec_path, vary, store, jobs, shard, point_reports);
     if (*sweep_report) {
