@@ -17,7 +17,11 @@ fits each (the operating point given, so that only the model's parameters are es
 covariance of those is what is checked).
 
 Checks:
-  run        exit 0, fit.json has the kind with status "ok" (every record is well excited).
+  run        exit 0, or exit 1 when the tool calls the one model not identifiable from the record
+             (README: ±2σ interval wider than the value); fit.json has the kind with status "ok"
+             or "not_identifiable" and its intervals (the count of the latter is printed: at the
+             high noise level the smaller time constants are poorly determined by 400 samples,
+             which is what that status says — the intervals must still cover).
   interval   low/high = value ∓ 2·std_error (the contract), 1e-9 relative.
   coverage   per kind, level and parameter: the truth lies in [low, high] in ≥ 90 % of the 50
              records (issue 16). The same 50 records are fitted independently by
@@ -101,9 +105,16 @@ def main():
                         tasks.append((args.specloop, csv, work / f"{kind}_{level}_{rep:02d}", kind))
                     results = list(pool.map(one_fit, tasks))
                     cell = f"{kind}/{level}"
+                    def usable(rc, e):
+                        return e is not None and ((rc == 0 and e.get("status") == "ok") or
+                                                  (rc == 1 and e.get("status") == "not_identifiable"))
                     bad_runs = [f"rep {i}: exit {rc}, {'no entry' if e is None else e.get('status')}: {err[-160:]}"
-                                for i, (rc, err, e) in enumerate(results) if rc != 0 or e is None or e.get("status") != "ok"]
-                    tally.check(cell, "run: exit 0, status ok on every record", not bad_runs, "; ".join(bad_runs[:3]))
+                                for i, (rc, err, e) in enumerate(results) if not usable(rc, e)]
+                    n_unid = sum(1 for rc, err, e in results if e is not None and e.get("status") == "not_identifiable")
+                    tally.check(cell, "run: exit 0 with status ok, or exit 1 with not_identifiable, on every record",
+                                not bad_runs, "; ".join(bad_runs[:3]))
+                    if n_unid:
+                        print(f"NOTE  {cell}: {n_unid} of {args.reps} records not identifiable (status)")
                     tool_hits = {n: 0 for n in names}
                     ctl_hits = {n: 0 for n in names}
                     used = 0
@@ -113,7 +124,7 @@ def main():
                                          [{n: v * 1.2 for n, v in truth.items()}, {n: v * 0.85 for n, v in truth.items()}])
                         for n in names:
                             ctl_hits[n] += abs(sp.values[n] - truth[n]) <= 2.0 * sp.std[n]
-                        if rc != 0 or entry is None or entry.get("status") != "ok":
+                        if not usable(rc, entry):
                             continue
                         used += 1
                         tp = fr.tool_parameters(entry, kind)

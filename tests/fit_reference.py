@@ -293,22 +293,24 @@ class ScipyFit:
     bounds T, wn, rates > 0, L ≥ 0, 0 < zeta < 1), the model `step_superposition`, the residual
     y − y0 − ŷ(u − u0). Covariance σ̂²·(JᵀJ)⁻¹ with σ̂² = SSR/(N − p) (the contract's scaling), J by
     3-point differences at the optimum. Second-order T1 ≥ T2 and poles p1 ≥ p2 are ordered after
-    the fit (the model is symmetric in them)."""
+    the fit (the model is symmetric in them). With `offset`, a constant c is fitted beside them
+    (y − y0 − c − ŷ: the output's operating point estimated with the model), named "c"."""
 
-    def __init__(self, kind, t, u, y, u0, y0, starts):
+    def __init__(self, kind, t, u, y, u0, y0, starts, offset=False):
         self.kind = kind
-        names = KINDS[kind]["names"]
+        names = KINDS[kind]["names"] + (["c"] if offset else [])
         self.names = names
         ud, yd = np.asarray(u) - u0, np.asarray(y) - y0
         lo = np.array([LOWER.get(n, -np.inf) for n in names])
         hi = np.array([UPPER.get(n, np.inf) for n in names])
 
         def residual(theta):
-            return yd - step_superposition(kind, dict(zip(names, theta)), t, ud)
+            p = dict(zip(names, theta))
+            return yd - p.get("c", 0.0) - step_superposition(kind, p, t, ud)
 
         best = None
         for start in starts:
-            x0 = np.clip(np.array([start[n] for n in names], float), lo + 1e-9, hi - 1e-9)
+            x0 = np.clip(np.array([start.get(n, 0.0) for n in names], float), lo + 1e-9, hi - 1e-9)
             try:
                 r = optimize.least_squares(residual, x0, bounds=(lo, hi), method="trf", x_scale="jac",
                                            ftol=1e-12, xtol=1e-12, gtol=1e-12, max_nfev=4000)
@@ -410,13 +412,14 @@ def self_test(tally):
 # ---- running the tool -------------------------------------------------------------------------------------
 
 def run_fit(specloop, csv_path, out_dir, extra=(), timeout=300):
-    """`specloop fit CSV --out DIR EXTRA...`; returns (CompletedProcess, fit.json as a dict or None)."""
+    """`specloop fit CSV --out DIR EXTRA...`; returns (CompletedProcess, fit.json as a dict or None).
+    fit.json is read after exit 0 and exit 1 (no model identifiable: every model still reported)."""
     import json
     import subprocess
     proc = subprocess.run([str(specloop), "fit", str(csv_path), "--out", str(out_dir), *extra],
                           capture_output=True, text=True, timeout=timeout, stdin=subprocess.DEVNULL)
     path = out_dir / "fit.json"
-    fit = json.loads(path.read_text()) if proc.returncode == 0 and path.exists() else None
+    fit = json.loads(path.read_text()) if proc.returncode in (0, 1) and path.exists() else None
     return proc, fit
 
 
@@ -430,9 +433,10 @@ def model_entry(fit, kind):
 
 def tool_parameters(entry, kind):
     """{name: (value, std_error, low, high)} of a fit.json model entry, in this file's names; the
-    poles of poles-zeros ordered fastest first (p1 ≥ p2, as ScipyFit orders them)."""
+    poles of poles-zeros ordered fastest first (p1 ≥ p2, as ScipyFit orders them); a null reads NaN."""
     ps = entry["parameters"]
-    out = {n: tuple(float(ps[n][f]) for f in ("value", "std_error", "low", "high")) for n in ps}
+    out = {n: tuple(math.nan if ps[n].get(f) is None else float(ps[n][f]) for f in ("value", "std_error", "low", "high"))
+           for n in ps}   # null (no covariance) reads as NaN, which no check accepts
     if kind == "poles-zeros":
         poles = sorted((out[n] for n in out if n.startswith("p")), key=lambda v: -v[0])
         for i, v in enumerate(poles):
