@@ -1,5 +1,5 @@
 // `specloop fit TEST.csv`: the plant model from a recorded test (fit_command.hpp).
-#include "fit_command.hpp"
+#include "cli/fit_command.hpp"
 
 #include <fmt/format.h>
 

@@ -143,7 +143,7 @@ StateModel realize(const ModelShape& shape, std::span<const double> p) {
 
 ResponseSimulator::ResponseSimulator(std::vector<double> t, std::vector<double> du) : t_(std::move(t)), du_(std::move(du)) {
   if (t_.size() != du_.size() || t_.size() < 2) throw std::invalid_argument("ResponseSimulator: t and du of equal length ≥ 2");
-  quantum_ = 1e-11 * (t_.back() - t_.front());
+  quantum_ = 1e-13 * (t_.back() - t_.front());
 }
 
 const ResponseSimulator::Step& ResponseSimulator::step_for(const StateModel& model, std::int64_t quanta) {
@@ -186,8 +186,11 @@ void ResponseSimulator::simulate(const StateModel& model, std::vector<double>& o
   for (std::size_t i = 0; i < n; ++i) c[i] = model.C(static_cast<Eigen::Index>(i));
   const double L = model.delay;
 
-  auto advance = [&](double h, double v) {
-    const std::int64_t q = std::llround(h / quantum_);
+  // Instants as whole quanta from t_0: the pieces of an interval add up to it exactly, so no
+  // rounding drift accumulates over the record.
+  const double t0 = t_[0];
+  auto quanta = [&](double t) { return static_cast<std::int64_t>(std::llround((t - t0) / quantum_)); };
+  auto advance = [&](std::int64_t q, double v) {
     if (q <= 0) return;
     const Step& s = step_for(model, q);
     if (v == 0.0) {
@@ -211,17 +214,18 @@ void ResponseSimulator::simulate(const StateModel& model, std::vector<double>& o
   double v = 0.0;
   while (j < N && t_[j] + L <= t_[0]) v = du_[j++];
   for (std::size_t k = 0; k + 1 < N; ++k) {
-    double tau = t_[k];
+    std::int64_t at = quanta(t_[k]);
     const double end = t_[k + 1];
+    const std::int64_t end_q = quanta(end);
     while (j < N && t_[j] + L < end) {
-      const double s = t_[j] + L;
-      if (s > tau) {
-        advance(s - tau, v);
-        tau = s;
+      const std::int64_t s = std::min(quanta(t_[j] + L), end_q);
+      if (s > at) {
+        advance(s - at, v);
+        at = s;
       }
       v = du_[j++];
     }
-    advance(end - tau, v);
+    advance(end_q - at, v);
     double y = 0.0;
     for (std::size_t i = 0; i < n; ++i) y += c[i] * x[i];
     out[k + 1] = y;

@@ -49,10 +49,11 @@ StateModel realize(const ModelShape& shape, std::span<const double> params);
 /// The model's output deviation at the recorded sample times for the recorded input deviation,
 /// from rest: the input held between samples (u(t) = du[k] on [t_k, t_{k+1})), delayed by L,
 /// zero before the record starts. Exact: each interval is split at the delayed switching instants
-/// t_j + L inside it and stepped with the exponential of that piece's length. Piece lengths are
-/// rounded to multiples of 1e-11 of the record's duration (pieces shorter than that are dropped),
-/// so a uniform grid needs two or three exponentials, cached by length; an uneven grid caches
-/// those that repeat. A negative L is allowed (the derivative at L = 0 looks there).
+/// t_j + L inside it and stepped with the exponential of that piece's length. The instants are
+/// rounded to whole multiples of 1e-13 of the record's duration from t_0 (pieces shorter than
+/// that vanish), so a uniform grid needs a handful of exponentials, cached by length, the pieces
+/// of an interval add up to it exactly, and no rounding accumulates; an uneven grid caches the
+/// lengths that repeat. A negative L is allowed (the derivative at L = 0 looks there).
 class ResponseSimulator {
  public:
   ResponseSimulator(std::vector<double> t, std::vector<double> du);
