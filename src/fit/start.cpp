@@ -42,7 +42,57 @@ std::optional<double> time_to_fraction(const PreparedData& d, const StepView& s,
   return std::nullopt;
 }
 
+// The sum of squares of dy − (k·s + c) with k and c by linear least squares (s a unit-gain response).
+double gain_fit(const std::vector<double>& s, const std::vector<double>& dy, double& k) {
+  const double n = double(s.size());
+  double ss = 0, sy = 0, s1 = 0, y1 = 0, yy = 0;
+  for (std::size_t i = 0; i < s.size(); ++i) {
+    ss += s[i] * s[i];
+    sy += s[i] * dy[i];
+    s1 += s[i];
+    y1 += dy[i];
+    yy += dy[i] * dy[i];
+  }
+  const double det = ss * n - s1 * s1;
+  if (!(det > 1e-300)) return INFINITY;
+  k = (sy * n - s1 * y1) / det;
+  const double c = (ss * y1 - s1 * sy) / det;
+  return yy - k * sy - c * y1;
+}
+
 }  // namespace
+
+FirstOrderGuess least_squares_first_order(const PreparedData& d, bool integrating) {
+  const double h = d.median_dt, duration = d.record.t.back() - d.record.t.front();
+  ResponseSimulator sim(d.record.t, d.du);
+  std::vector<double> s;
+  const ModelShape shape{integrating ? ModelKind::integrator_delay : ModelKind::first_order_delay, 0, 0};
+  const auto sum_squares = [&](const FirstOrderGuess& g, double& k) {
+    sim.simulate(realize(shape, std::vector<double>{1.0, g.T, g.L}), s);
+    return gain_fit(s, d.dy, k);
+  };
+  // Candidates: the ARX fit, then a grid of T (log-spaced) and L (linear), k and the offset
+  // solved linearly for each: the best by the simulated response's sum of squares.
+  FirstOrderGuess best = arx_first_order(d, integrating);
+  best.T = std::max(best.T, h);
+  best.L = std::clamp(best.L, 0.0, 0.5 * duration);
+  double k = best.k;
+  double best_ssr = sum_squares(best, k);
+  if (std::isfinite(best_ssr)) best.k = k;
+  const double t_low = std::max(h, duration / 2000.0), t_high = duration;
+  for (int i = 0; i < 24; ++i) {
+    const double T = t_low * std::pow(t_high / t_low, i / 23.0);
+    for (int j = 0; j <= 24; ++j) {
+      const FirstOrderGuess g{1.0, T, 0.4 * duration * j / 24.0};
+      const double ssr = sum_squares(g, k);
+      if (ssr < best_ssr) {
+        best_ssr = ssr;
+        best = {k, g.T, g.L};
+      }
+    }
+  }
+  return best;
+}
 
 // C. L. Smith, Digital Computer Process Control (Intext, 1972): the 28.3 % / 63.2 % points of a
 // first-order-plus-delay step response (values as commonly quoted; recalled from memory).
@@ -127,7 +177,7 @@ StartValues start_values(const PreparedData& d, const ModelShape& shape) {
     g = *sk;
     sv.method = "sundaresan-krishnaswamy";
   } else {
-    g = arx_first_order(d, false);
+    g = least_squares_first_order(d, false);
     sv.method = "least-squares";
   }
   g.T = std::max(g.T, h);
@@ -173,7 +223,7 @@ StartValues start_values(const PreparedData& d, const ModelShape& shape) {
         gi = {slope / d.du.back(), std::max(h, 0.5 * lag), std::max(0.0, 0.5 * lag)};
         sv.method = "least-squares";
       } else {
-        gi = arx_first_order(d, true);
+        gi = least_squares_first_order(d, true);
         sv.method = "least-squares";
       }
       sv.values = {gi.k, std::max(gi.T, h), std::max(gi.L, 0.0)};

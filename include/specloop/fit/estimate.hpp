@@ -41,6 +41,11 @@ std::optional<FirstOrderGuess> sundaresan_krishnaswamy(const PreparedData& d);
 /// With `integrating`, fitted to the output's first differences (the integrator's rate).
 FirstOrderGuess arx_first_order(const PreparedData& d, bool integrating);
 
+/// The start on any input: the ARX fit and a grid of T (24 values, log-spaced from the sample
+/// step to the duration) × L (25 values, 0 … 0.4·duration), each simulated exactly with k and the
+/// output offset by linear least squares; the candidate with the smallest sum of squares.
+FirstOrderGuess least_squares_first_order(const PreparedData& d, bool integrating);
+
 struct StartValues {
   std::vector<double> values;
   std::string method;  // "smith-two-point", "sundaresan-krishnaswamy", "least-squares"
