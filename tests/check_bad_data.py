@@ -2,6 +2,8 @@
 """The bad-data corpus of `specloop fit` and `specloop design --plant` (tests/bad_data/): each
 file must be refused cleanly — exit code 2, an error on stderr naming the file and the line (when
 the corpus says one) and containing the expected text, nothing on stdout, and no output folder.
+Each CSV runs twice: with --out DIR, and without it (the default results/<name>-fit/ must not
+appear either); after both, nothing at all may be left in the scratch folder the run started in.
 
   *.csv    run as `specloop fit FILE [ARGS] --out DIR`
   *.toml   run as `specloop design specs/conveyor_speed.toml --plant FILE --out DIR`
@@ -30,12 +32,12 @@ def header(path):
     return expect, (None if line == "any" else int(line)), args
 
 
-def check(specloop, source_dir, path):
+def check(specloop, source_dir, path, with_out=True):
     expect, line, args = header(path)
     with tempfile.TemporaryDirectory(prefix="specloop_bad_data_") as work:
         out = pathlib.Path(work) / "out"
         if path.suffix == ".csv":
-            command = [specloop, "fit", str(path), *args, "--out", str(out)]
+            command = [specloop, "fit", str(path), *args] + (["--out", str(out)] if with_out else [])
         else:
             command = [specloop, "design", str(source_dir / "specs" / "conveyor_speed.toml"), "--plant", str(path), "--out", str(out)]
         run = subprocess.run(command, cwd=work, capture_output=True, text=True, timeout=120, stdin=subprocess.DEVNULL)
@@ -50,6 +52,9 @@ def check(specloop, source_dir, path):
             problems.append(f"stdout not empty: {run.stdout[:200]!r}")
         if out.exists() or any(p.name.startswith(".out.partial") for p in pathlib.Path(work).iterdir()):
             problems.append("an output folder was written")
+        left = sorted(str(p.relative_to(work)) for p in pathlib.Path(work).rglob("*"))
+        if left:
+            problems.append(f"files left behind: {', '.join(left[:5])}")
         return problems, run.stderr.strip()
 
 
@@ -64,15 +69,18 @@ def main():
     if len(files) < 10:
         print(f"FAIL: only {len(files)} corpus files found")
         return 1
-    failed = 0
+    failed = runs = 0
     for path in files:
-        problems, stderr = check(args.specloop, source_dir, path)
-        if problems:
-            failed += 1
-            print(f"FAIL {path.name}: {'; '.join(problems)}\n     stderr: {stderr}")
-        else:
-            print(f"ok   {path.name}: {stderr}")
-    print(f"{len(files) - failed} of {len(files)} bad-data files refused as expected")
+        for with_out in ((True, False) if path.suffix == ".csv" else (True,)):
+            runs += 1
+            problems, stderr = check(args.specloop, source_dir, path, with_out)
+            tag = path.name + ("" if with_out else " (no --out)")
+            if problems:
+                failed += 1
+                print(f"FAIL {tag}: {'; '.join(problems)}\n     stderr: {stderr}")
+            else:
+                print(f"ok   {tag}: {stderr}")
+    print(f"{runs - failed} of {runs} runs on {len(files)} bad-data files refused as expected")
     return 1 if failed else 0
 
 
