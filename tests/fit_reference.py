@@ -262,13 +262,14 @@ class CleanResponse:
     """The noise-free part of a family of records (one kind, one input, one grid): computed once by
     `exact_zoh_response`, then `record(level, seed)` adds seeded noise."""
 
-    def __init__(self, kind, shape="step", samples=400, params=None, grid_seed=7, period=None, span=None):
+    def __init__(self, kind, shape="step", samples=400, params=None, grid_seed=7, period=None, span=None,
+                 jitter=0.1, dropped=3):
         info = KINDS[kind]
         self.kind, self.shape = kind, shape
         self.params = dict(params or info["true"])
         span = span or info["span"]
         period = period or span / samples
-        self.t = logger_grid(samples, period, grid_seed)
+        self.t = logger_grid(samples, period, grid_seed, jitter, dropped)
         self.u_dev = excitation(kind, self.t, shape)
         A, B, C = info["ss"](self.params)
         self.y_dev = exact_zoh_response(A, B, C, self.params["L"], self.t, self.u_dev)
