@@ -49,7 +49,6 @@ import numpy as np
 HERE = pathlib.Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import fit_reference as fr  # noqa: E402
-from reference_common import Tally  # noqa: E402
 
 REPS = 50
 SAMPLES = 400
@@ -80,7 +79,7 @@ def main():
     ap.add_argument("--levels", default=",".join(fr.NOISE_LEVELS))
     ap.add_argument("--keep")
     args = ap.parse_args()
-    tally = Tally()
+    tally = fr.KnownTally("check_fit_coverage")
     kinds = args.kinds.split(",")
     levels = args.levels.split(",")
     work = pathlib.Path(args.keep) if args.keep else pathlib.Path(tempfile.mkdtemp(prefix="specloop_fit_cov_"))
@@ -156,8 +155,7 @@ def main():
         print(f"{kind:<20}{level:<8}{n:<6}{tc:>7.0%}{cc:>7.0%}  {how:3} {md:.3g}")
     print(f"NOTE  {len(kinds) * len(levels) * args.reps} fits in {time.monotonic() - started:.0f} s "
           f"({args.jobs} jobs)")
-    print(f"{tally.passed} passed, {tally.failed} failed")
-    return 1 if tally.failed else 0
+    return tally.finish()
 
 
 if __name__ == "__main__":

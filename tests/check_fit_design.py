@@ -53,7 +53,6 @@ HERE = pathlib.Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import check_scipy_robust as robust  # noqa: E402  (measure_plant, plant_of, linear_model)
 import fit_reference as fr  # noqa: E402
-from reference_common import Tally  # noqa: E402
 
 SPEC = "tests/fit_design/water_heater_pi.toml"
 CASES = [
@@ -174,7 +173,7 @@ def main():
     ap.add_argument("--source-dir", required=True)
     ap.add_argument("--keep")
     args = ap.parse_args()
-    tally = Tally()
+    tally = fr.KnownTally("check_fit_design")
     work = pathlib.Path(args.keep) if args.keep else pathlib.Path(tempfile.mkdtemp(prefix="specloop_fit_design_"))
     work.mkdir(parents=True, exist_ok=True)
     try:
@@ -183,8 +182,7 @@ def main():
     finally:
         if not args.keep:
             shutil.rmtree(work, ignore_errors=True)
-    print(f"{tally.passed} passed, {tally.failed} failed")
-    return 1 if tally.failed else 0
+    return tally.finish()
 
 
 if __name__ == "__main__":

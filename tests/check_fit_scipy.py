@@ -15,6 +15,10 @@ samples with the tool's u0 and y0 — and, when fit.json says the output's opera
 estimated with the model, that offset c too — from three starts (the truth × 1.2, × 0.85, and the
 tool's own optimum, so a tool stopped short of a minimum is caught); the lowest sum of squares wins.
 
+First fit_reference.self_test: the records' two exact computations (cont2discrete stepping and the
+closed-form superposition the SciPy fit uses) agree to 1e-9 of the output's span on every kind
+and input, and the stepping equals scipy.signal.dlsim on an even grid with a whole-sample delay.
+
 Checks per record (ids kind/shape/level):
   run        exit 0 (or 1 with status not_identifiable); the entry is there.
   u0         data.u0 = the leading stretch's input (the record's first value), 1e-12 relative;
@@ -43,7 +47,6 @@ import numpy as np
 HERE = pathlib.Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import fit_reference as fr  # noqa: E402
-from reference_common import Tally  # noqa: E402
 
 SHAPES = ("step", "steps", "prbs")
 SAMPLES = 400
@@ -133,9 +136,10 @@ def main():
     ap.add_argument("--kinds", default=",".join(fr.ORDER))
     ap.add_argument("--keep")
     args = ap.parse_args()
-    tally = Tally()
+    tally = fr.KnownTally("check_fit_scipy")
     work = pathlib.Path(args.keep) if args.keep else pathlib.Path(tempfile.mkdtemp(prefix="specloop_fit_scipy_"))
     work.mkdir(parents=True, exist_ok=True)
+    fr.self_test(tally)   # the records' two exact computations agree (and with dlsim) before anything uses them
     ratios = []
     try:
         tasks, recs = [], []
@@ -168,8 +172,7 @@ def main():
         worst = max(ratios, key=lambda x: x[1])
         print(f"NOTE  residual RMS tool/SciPy: median {np.median([r for _, r in ratios]):.6f}, "
               f"largest {worst[1]:.6f} ({worst[0]})")
-    print(f"{tally.passed} passed, {tally.failed} failed")
-    return 1 if tally.failed else 0
+    return tally.finish()
 
 
 if __name__ == "__main__":

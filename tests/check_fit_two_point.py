@@ -44,7 +44,6 @@ import numpy as np
 HERE = pathlib.Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import fit_reference as fr  # noqa: E402
-from reference_common import Tally  # noqa: E402
 
 PLANTS = [
     {"k": 1.8, "T": 40.0, "L": 2.0},
@@ -68,7 +67,7 @@ def main():
     ap.add_argument("--probe")
     ap.add_argument("--source-dir")
     args = ap.parse_args()
-    tally = Tally()
+    tally = fr.KnownTally("check_fit_two_point")
     work = pathlib.Path(tempfile.mkdtemp(prefix="specloop_fit_2pt_"))
     try:
         for i, p in enumerate(PLANTS):
@@ -123,8 +122,7 @@ def main():
                   f"S–K {fr.sundaresan_krishnaswamy(*(T_true * -math.log(1 - f) + L_true for f in (0.353, 0.853)))}")
     finally:
         shutil.rmtree(work, ignore_errors=True)
-    print(f"{tally.passed} passed, {tally.failed} failed")
-    return 1 if tally.failed else 0
+    return tally.finish()
 
 
 if __name__ == "__main__":

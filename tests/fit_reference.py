@@ -443,3 +443,61 @@ def tool_parameters(entry, kind):
         for i, v in enumerate(poles):
             out[f"p{i + 1}"] = v
     return out
+
+
+# ---- checks that fail today for a reason the fitter's branch is to fix -------------------------------------
+
+# fnmatch patterns of "CASE: WHAT" lines, per check script, each with its reason (as the oracle's
+# KNOWN_FAILING in check_scipy_claims.py): a matching failure prints "KNOWN FAILING" and does not
+# fail the run; an entry that matches no failure any more is printed "remove it".
+PZ_LOCAL_MINIMUM = ("poles-zeros (2 poles, 1 zero) stops in a local minimum with a pole and the zero far above the "
+                    "record's bandwidth (p1 ≈ 20–200, z1 ≈ 200–2700 against 0.4 and 0.15), rank-deficient Jacobian, "
+                    "no covariance; SciPy from the truth ×1.2 / ×0.85 reaches the generating plant with a residual "
+                    "RMS 6 % to 15× lower (fit branch at 711754f: the poles-zeros start)")
+KNOWN_FAILING = {
+    "check_fit_scipy": [
+        ("poles-zeros/step/high: *", PZ_LOCAL_MINIMUM),
+        ("poles-zeros/steps/*: *", PZ_LOCAL_MINIMUM),
+        ("poles-zeros/prbs/*: *", PZ_LOCAL_MINIMUM),
+    ],
+}
+
+
+class KnownTally:
+    """reference_common.Tally with a KNOWN_FAILING list: check(case, what, ok, detail)."""
+
+    def __init__(self, script):
+        from reference_common import Tally
+        self.tally = Tally()
+        self.known = KNOWN_FAILING.get(script, [])
+        self.used = set()
+        self.known_failed = 0
+
+    @property
+    def passed(self):
+        return self.tally.passed
+
+    @property
+    def failed(self):
+        return self.tally.failed
+
+    def check(self, case, what, ok, detail=""):
+        import fnmatch
+        if not ok:
+            for i, (pattern, reason) in enumerate(self.known):
+                if fnmatch.fnmatchcase(f"{case}: {what}", pattern):
+                    self.used.add(i)
+                    self.known_failed += 1
+                    print(f"KNOWN FAILING  {case}: {what}  [{detail}]  — {reason}", flush=True)
+                    return False
+        return self.tally.check(case, what, ok, detail)
+
+    def finish(self):
+        """Prints the unused entries and the closing line; returns the exit status."""
+        for i, (pattern, reason) in enumerate(self.known):
+            if i not in self.used:
+                print(f"NOTE  KNOWN_FAILING entry {pattern!r} matches no failure any more: remove it")
+        if self.known_failed:
+            print(f"NOTE  {self.known_failed} known failing (fit_reference.KNOWN_FAILING)")
+        print(f"{self.passed} passed, {self.failed} failed")
+        return 1 if self.failed else 0
