@@ -25,8 +25,8 @@ samples (the textbook ZOH discretization, common practice).
 
 Records are absolute: an operating point (u0, y0) held over a leading steady stretch, then the
 excitation (one step, several steps, or a pseudo-random binary sequence from a 7-bit maximal-length
-shift register), on a logger's uneven grid (the nominal period ±10 % jitter, and a few samples
-dropped), with seeded Gaussian measurement noise (numpy.random.default_rng) at one of three levels
+shift register), on a logger's uneven grid (the nominal period ±10 % jitter stamped to period/20,
+and a few samples dropped), with seeded Gaussian measurement noise (numpy.random.default_rng) at one of three levels
 (a fraction of the noise-free output's span).
 """
 import math
@@ -135,11 +135,13 @@ def default_excitation(kind):
 # ---- grid and input ---------------------------------------------------------------------------------------
 
 def logger_grid(samples, period, seed, jitter=0.1, dropped=3):
-    """A logger's time stamps: k·period ± jitter·period (uniform), `dropped` samples missing (never
-    in the first fifth), strictly increasing, starting at 0."""
+    """A logger's time stamps: k·period ± jitter·period (uniform), stamped to a resolution of
+    period/20 (as a logger's clock ticks; so the intervals take a handful of distinct lengths),
+    `dropped` samples missing (never in the first fifth), strictly increasing, starting at 0."""
     rng = np.random.default_rng(seed)
     n = samples + dropped
     t = np.arange(n) * period + rng.uniform(-jitter, jitter, n) * period
+    t = np.round(t / (period / 20.0)) * (period / 20.0)
     t[0] = 0.0
     drop = rng.choice(np.arange(n // 5, n - 1), size=dropped, replace=False) if dropped else []
     t = np.delete(t, drop)
@@ -455,6 +457,11 @@ PZ_LOCAL_MINIMUM = ("poles-zeros (2 poles, 1 zero) stops in a local minimum with
                     "no covariance; SciPy from the truth ×1.2 / ×0.85 reaches the generating plant with a residual "
                     "RMS 6 % to 15× lower (fit branch at 711754f: the poles-zeros start)")
 KNOWN_FAILING = {
+    "check_fit_coverage": [
+        ("poles-zeros/medium/*: coverage*", PZ_LOCAL_MINIMUM + "; its coverage trails SciPy's on the same records"),
+        ("poles-zeros/high/*: coverage*", PZ_LOCAL_MINIMUM + "; its coverage trails SciPy's on the same records"),
+        ("poles-zeros/high: run*", PZ_LOCAL_MINIMUM),
+    ],
     "check_fit_scipy": [
         ("poles-zeros/step/high: *", PZ_LOCAL_MINIMUM),
         ("poles-zeros/steps/*: *", PZ_LOCAL_MINIMUM),
