@@ -36,10 +36,10 @@ class ResponseResiduals final : public ceres::CostFunction {
     std::vector<double> theta(parameters[0], parameters[0] + p);
     const double c = offset_ ? parameters[1][0] : 0.0;
     if (!response(theta, work_)) return false;
-    for (std::size_t k = 0; k < n; ++k) residuals[k] = d_.dy[k] - c - work_[k];
+    for (std::size_t k = 0; k < n; ++k) residuals[k] = weight(k) * (d_.dy[k] - c - work_[k]);
     if (jacobians == nullptr) return true;
     if (offset_ && jacobians[1] != nullptr)
-      for (std::size_t k = 0; k < n; ++k) jacobians[1][k] = -1.0;
+      for (std::size_t k = 0; k < n; ++k) jacobians[1][k] = -weight(k);
     if (jacobians[0] == nullptr) return true;
     for (std::size_t i = 0; i < p; ++i) {
       const double step = 1e-6 * std::max(std::abs(theta[i]), typical_[i]);
@@ -48,10 +48,13 @@ class ResponseResiduals final : public ceres::CostFunction {
       minus[i] -= step;
       if (!response(plus, up_) || !response(minus, down_)) return false;
       const double width = plus[i] - minus[i];
-      for (std::size_t k = 0; k < n; ++k) jacobians[0][k * p + i] = -(up_[k] - down_[k]) / width;
+      for (std::size_t k = 0; k < n; ++k) jacobians[0][k * p + i] = -weight(k) * (up_[k] - down_[k]) / width;
     }
     return true;
   }
+
+  /// Square roots of per-sample weights (IRLS for the Huber loss); empty = all 1.
+  void set_weights(std::vector<double> sqrt_weights) { sqrt_w_ = std::move(sqrt_weights); }
 
   bool response(const std::vector<double>& theta, std::vector<double>& out) const {
     sim_.simulate(realize(shape_, theta), out);
@@ -61,7 +64,9 @@ class ResponseResiduals final : public ceres::CostFunction {
  private:
   const PreparedData& d_;
   ModelShape shape_;
+  double weight(std::size_t k) const { return sqrt_w_.empty() ? 1.0 : sqrt_w_[k]; }
   std::vector<double> typical_;
+  std::vector<double> sqrt_w_;
   bool offset_ = false;
   mutable ResponseSimulator sim_;
   mutable std::vector<double> work_, up_, down_;
@@ -138,10 +143,8 @@ ModelFit fit_model(const PreparedData& d, const ModelShape& shape, const FitOpti
   const bool offset = !d.y0_given;
   double c = 0.0;
   auto* cost = new ResponseResiduals(d, shape, typical, offset);
-  ceres::LossFunction* loss = nullptr;
-  if (options.robust && d.noise_sigma > 0.0) loss = new ceres::HuberLoss(1.345 * d.noise_sigma);
-  if (offset) problem.AddResidualBlock(cost, loss, theta.data(), &c);
-  else problem.AddResidualBlock(cost, loss, theta.data());
+  if (offset) problem.AddResidualBlock(cost, nullptr, theta.data(), &c);
+  else problem.AddResidualBlock(cost, nullptr, theta.data());
   set_bounds(problem, theta.data(), shape, fit.names, h, duration);
 
   ceres::Solver::Options so;
@@ -153,12 +156,65 @@ ModelFit fit_model(const PreparedData& d, const ModelShape& shape, const FitOpti
   so.logging_type = ceres::SILENT;
   so.num_threads = 1;
   ceres::Solver::Summary summary;
-  ceres::Solve(so, &problem, &summary);
-  fit.iterations = static_cast<int>(summary.iterations.size()) - 1;
+  int iterations = 0;
+  const auto solve = [&] {
+    ceres::Solve(so, &problem, &summary);
+    iterations += static_cast<int>(summary.iterations.size()) - 1;
+  };
+  // Alternative starts (poles-zeros with zeros): each solved, the lowest final cost kept.
+  if (!sv.alternatives.empty()) {
+    std::vector<double> best_theta;
+    double best_c = 0.0, best_cost = INFINITY;
+    std::vector<std::vector<double>> starts{sv.values};
+    starts.insert(starts.end(), sv.alternatives.begin(), sv.alternatives.end());
+    for (const auto& start : starts) {
+      theta = start;
+      theta[p - 1] = std::clamp(theta[p - 1], 0.0, 0.9 * duration);
+      c = 0.0;
+      solve();
+      if (summary.IsSolutionUsable() && summary.final_cost < best_cost) {
+        best_cost = summary.final_cost;
+        best_theta = theta;
+        best_c = c;
+      }
+    }
+    if (!best_theta.empty()) {
+      theta = best_theta;
+      c = best_c;
+    }
+  }
+  solve();
+  // The Huber loss by iteratively reweighted least squares: weight min(1, δ/|r_k|) per sample
+  // (Ceres's loss functions act on a whole residual block, here all samples at once).
+  const double delta = 1.345 * d.noise_sigma;
+  const bool robust = options.robust && delta > 0.0;
+  if (robust) {
+    std::vector<double> dev0, w(n, 1.0);
+    for (int round = 0; round < 30; ++round) {
+      if (!cost->response(theta, dev0)) break;
+      double change = 0.0;
+      for (std::size_t k = 0; k < n; ++k) {
+        const double r = std::abs(d.dy[k] - c - dev0[k]);
+        const double next = r <= delta ? 1.0 : std::sqrt(delta / r);
+        change = std::max(change, std::abs(next - w[k]));
+        w[k] = next;
+      }
+      if (change < 1e-6 && round > 0) break;
+      cost->set_weights(w);
+      solve();
+    }
+  }
+  fit.iterations = iterations;
   fit.termination = summary.message;
 
   // second-order-delay: T1 ≥ T2 (the model is symmetric in them).
   if (shape.kind == ModelKind::second_order_delay && theta[2] > theta[1]) std::swap(theta[1], theta[2]);
+  // poles-zeros: poles and zeros each in ascending rate (the model is symmetric in their order).
+  if (shape.kind == ModelKind::poles_zeros) {
+    const auto np = static_cast<std::ptrdiff_t>(shape.poles), nz = static_cast<std::ptrdiff_t>(shape.zeros);
+    std::sort(theta.begin() + 1, theta.begin() + 1 + np);
+    std::sort(theta.begin() + 1 + np, theta.begin() + 1 + np + nz);
+  }
   fit.values = theta;
 
   std::vector<double> dev;
@@ -179,6 +235,18 @@ ModelFit fit_model(const PreparedData& d, const ModelShape& shape, const FitOpti
   fit.residual_rms = std::sqrt(fit.ssr / double(n));
   fit.fit_pct = 100.0 * (1.0 - std::sqrt(fit.ssr) / std::sqrt(sst));
   fit.sigma2 = fit.ssr / double(n - q);
+  if (robust) {
+    // Under the Huber loss the outliers the loss discounts would inflate SSR/(N − p): the scale
+    // is the residuals' MAD instead, 1.4826·median|r − median r| (σ under Gaussian noise; common
+    // practice), and the covariance is Ceres's on the robustified Jacobian.
+    std::vector<double> a = residual;
+    const auto mid = a.begin() + static_cast<std::ptrdiff_t>(n / 2);
+    std::nth_element(a.begin(), mid, a.end());
+    const double med = *mid;
+    for (double& v : a) v = std::abs(v - med);
+    std::nth_element(a.begin(), mid, a.end());
+    fit.sigma2 = std::pow(1.4826 * *mid, 2) * double(n) / double(n - q);
+  }
   // ln(SSR/N) with SSR/N floored at (1e-15·max|y|)², so that a noise-free fit stays finite.
   double ymax = 0.0;
   for (double y : d.record.y) ymax = std::max(ymax, std::abs(y));

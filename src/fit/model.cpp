@@ -147,74 +147,79 @@ ResponseSimulator::ResponseSimulator(std::vector<double> t, std::vector<double> 
 }
 
 const ResponseSimulator::Step& ResponseSimulator::step_for(const StateModel& model, std::int64_t quanta) {
+  for (std::size_t i = 0; i < recent_q_.size(); ++i)
+    if (recent_q_[i] == quanta) return cache_[recent_index_[i]];
+  std::size_t index = 0;
   const auto found = cache_index_.find(quanta);
-  if (found != cache_index_.end()) return cache_[found->second];
-  const double h = double(quanta) * quantum_;
-  const Eigen::Index n = model.A.rows();
-  Step s;
-  if (n == 1) {
-    const double a = model.A(0, 0);
-    const double e = std::exp(a * h);
-    s.phi = Eigen::MatrixXd::Constant(1, 1, e);
-    // (e^{ah} − 1)/a without cancellation for small a·h.
-    const double integral = std::abs(a * h) < 1e-5 ? h * (1.0 + a * h / 2.0 + a * a * h * h / 6.0) : std::expm1(a * h) / a;
-    s.gamma = Eigen::VectorXd::Constant(1, integral * model.B(0));
+  if (found != cache_index_.end()) {
+    index = found->second;
   } else {
-    Eigen::MatrixXd aug = Eigen::MatrixXd::Zero(n + 1, n + 1);
-    aug.topLeftCorner(n, n) = model.A * h;
-    aug.topRightCorner(n, 1) = model.B * h;
-    const Eigen::MatrixXd e = aug.exp();
-    s.phi = e.topLeftCorner(n, n);
-    s.gamma = e.topRightCorner(n, 1);
+    const double h = double(quanta) * quantum_;
+    const Eigen::Index n = model.A.rows();
+    Step s;
+    if (n == 1) {
+      const double a = model.A(0, 0);
+      s.phi[0] = std::exp(a * h);
+      // (e^{ah} − 1)/a without cancellation for small a·h.
+      const double integral = std::abs(a * h) < 1e-5 ? h * (1.0 + a * h / 2.0 + a * a * h * h / 6.0) : std::expm1(a * h) / a;
+      s.gamma[0] = integral * model.B(0);
+    } else {
+      Eigen::MatrixXd aug = Eigen::MatrixXd::Zero(n + 1, n + 1);
+      aug.topLeftCorner(n, n) = model.A * h;
+      aug.topRightCorner(n, 1) = model.B * h;
+      const Eigen::MatrixXd e = aug.exp();
+      for (Eigen::Index i = 0; i < n; ++i) {
+        for (Eigen::Index j = 0; j < n; ++j) s.phi[static_cast<std::size_t>(i * n + j)] = e(i, j);
+        s.gamma[static_cast<std::size_t>(i)] = e(i, n);
+      }
+    }
+    ++exponentials_;
+    index = cache_.size();
+    cache_index_.emplace(quanta, index);
+    cache_.push_back(s);
   }
-  ++exponentials_;
-  cache_index_.emplace(quanta, cache_.size());
-  cache_.push_back(std::move(s));
-  return cache_.back();
+  // Round-robin replacement in the small table of recent lengths.
+  recent_q_[next_recent_] = quanta;
+  recent_index_[next_recent_] = index;
+  next_recent_ = (next_recent_ + 1) % recent_q_.size();
+  return cache_[index];
 }
 
-void ResponseSimulator::simulate(const StateModel& model, std::vector<double>& out) {
-  cache_index_.clear();
-  cache_.clear();
-  cache_.reserve(16);
+// The recurrence for n states known at compile time (the state stays in registers).
+template <std::size_t n>
+void ResponseSimulator::run(const StateModel& model, std::vector<double>& out) {
   const std::size_t N = t_.size();
-  const auto n = static_cast<std::size_t>(model.A.rows());
-  out.assign(N, 0.0);
-  std::array<double, 8> x{}, next{};
-  if (n > x.size()) throw std::invalid_argument("ResponseSimulator: at most 8 states");
-  std::array<double, 8> c{};
+  std::array<double, n> x{}, c{};
   for (std::size_t i = 0; i < n; ++i) c[i] = model.C(static_cast<Eigen::Index>(i));
   const double L = model.delay;
-
   // Instants as whole quanta from t_0: the pieces of an interval add up to it exactly, so no
   // rounding drift accumulates over the record.
-  const double t0 = t_[0];
-  auto quanta = [&](double t) { return static_cast<std::int64_t>(std::llround((t - t0) / quantum_)); };
-  auto advance = [&](std::int64_t q, double v) {
+  const double t0 = t_[0], per_quantum = 1.0 / quantum_;
+  const auto quanta = [&](double t) {
+    const double q = (t - t0) * per_quantum;
+    return static_cast<std::int64_t>(q >= 0.0 ? q + 0.5 : q - 0.5);
+  };
+  const auto advance = [&](std::int64_t q, double v) {
     if (q <= 0) return;
-    const Step& s = step_for(model, q);
-    if (v == 0.0) {
-      for (std::size_t i = 0; i < n; ++i) {
-        double acc = 0.0;
-        for (std::size_t j = 0; j < n; ++j) acc += s.phi(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(j)) * x[j];
-        next[i] = acc;
-      }
-    } else {
-      for (std::size_t i = 0; i < n; ++i) {
-        double acc = s.gamma(static_cast<Eigen::Index>(i)) * v;
-        for (std::size_t j = 0; j < n; ++j) acc += s.phi(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(j)) * x[j];
-        next[i] = acc;
-      }
+    const Step* s = nullptr;
+    for (std::size_t r = 0; r < recent_q_.size(); ++r)
+      if (recent_q_[r] == q) s = &cache_[recent_index_[r]];
+    if (s == nullptr) s = &step_for(model, q);
+    std::array<double, n> next;
+    for (std::size_t i = 0; i < n; ++i) {
+      double acc = s->gamma[i] * v;
+      for (std::size_t j = 0; j < n; ++j) acc += s->phi[i * n + j] * x[j];
+      next[i] = acc;
     }
     x = next;
   };
-
   // j: the next delayed switching instant t_j + L; v: the delayed input's value now.
   std::size_t j = 0;
   double v = 0.0;
   while (j < N && t_[j] + L <= t_[0]) v = du_[j++];
+  std::int64_t at_k = 0;
   for (std::size_t k = 0; k + 1 < N; ++k) {
-    std::int64_t at = quanta(t_[k]);
+    std::int64_t at = at_k;
     const double end = t_[k + 1];
     const std::int64_t end_q = quanta(end);
     while (j < N && t_[j] + L < end) {
@@ -226,9 +231,30 @@ void ResponseSimulator::simulate(const StateModel& model, std::vector<double>& o
       v = du_[j++];
     }
     advance(end_q - at, v);
+    at_k = end_q;
     double y = 0.0;
     for (std::size_t i = 0; i < n; ++i) y += c[i] * x[i];
     out[k + 1] = y;
+  }
+}
+
+void ResponseSimulator::simulate(const StateModel& model, std::vector<double>& out) {
+  cache_index_.clear();
+  cache_.clear();
+  cache_.reserve(16);
+  recent_q_.fill(-1);
+  next_recent_ = 0;
+  out.assign(t_.size(), 0.0);
+  switch (model.A.rows()) {
+    case 1: run<1>(model, out); break;
+    case 2: run<2>(model, out); break;
+    case 3: run<3>(model, out); break;
+    case 4: run<4>(model, out); break;
+    case 5: run<5>(model, out); break;
+    case 6: run<6>(model, out); break;
+    case 7: run<7>(model, out); break;
+    case 8: run<8>(model, out); break;
+    default: throw std::invalid_argument("ResponseSimulator: 1 to 8 states");
   }
 }
 

@@ -230,12 +230,46 @@ StartValues start_values(const PreparedData& d, const ModelShape& shape) {
       break;
     }
     case ModelKind::poles_zeros: {
-      sv.values = {g.k};
-      double wsum = 0.0;
-      for (int i = 0; i < shape.poles; ++i) wsum += std::pow(0.5, i);
-      for (int i = 0; i < shape.poles; ++i) sv.values.push_back(1.0 / (g.T * std::pow(0.5, i) / wsum));
-      for (int j = 0; j < shape.zeros; ++j) sv.values.push_back(10.0 * (j + 1) / g.T);
-      sv.values.push_back(g.L);
+      // Candidates: time constants T·w_i (w halving or all equal, summing to 1) and zero rates
+      // f·(j + 1)/T for f in {0.3, 1, 3, 10}; the one whose exact response (k and the offset
+      // refitted linearly) has the smallest sum of squares. A single guess sent a lead (a zero
+      // slower than a pole) to a local minimum with the zero and a pole running off together.
+      // With zeros, the best candidates of the other zero placements are solved too (estimate.cpp).
+      ResponseSimulator sim(d.record.t, d.du);
+      std::vector<double> s;
+      struct Candidate {
+        double ssr;
+        double f;
+        std::vector<double> v;
+      };
+      std::vector<Candidate> candidates;
+      for (int spread = 0; spread < 2; ++spread) {
+        for (double f : {0.3, 1.0, 3.0, 10.0}) {
+          std::vector<double> v{1.0};
+          double wsum = 0.0;
+          for (int i = 0; i < shape.poles; ++i) wsum += spread == 0 ? std::pow(0.5, i) : 1.0;
+          for (int i = 0; i < shape.poles; ++i)
+            v.push_back(1.0 / (g.T * (spread == 0 ? std::pow(0.5, i) : 1.0 + 0.1 * i) / wsum));
+          for (int j = 0; j < shape.zeros; ++j) v.push_back(f * (j + 1) / g.T);
+          v.push_back(g.L);
+          sim.simulate(realize(shape, v), s);
+          double k = g.k;
+          const double ssr = gain_fit(s, d.dy, k);
+          v[0] = std::isfinite(k) && k != 0.0 ? k : g.k;
+          candidates.push_back({std::isfinite(ssr) ? ssr : INFINITY, f, v});
+          if (shape.zeros == 0) break;
+        }
+      }
+      std::stable_sort(candidates.begin(), candidates.end(), [](const Candidate& a, const Candidate& b) { return a.ssr < b.ssr; });
+      sv.values = candidates.front().v;
+      for (double f : {0.3, 3.0}) {
+        if (shape.zeros == 0 || f == candidates.front().f) continue;
+        for (const Candidate& cand : candidates)
+          if (cand.f == f) {
+            sv.alternatives.push_back(cand.v);
+            break;
+          }
+      }
       break;
     }
   }

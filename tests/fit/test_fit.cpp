@@ -139,7 +139,7 @@ TEST_CASE("a noise-free test gives back each kind's parameters to 1e-6", "[fit]"
   for (const Case& c : cases) {
     const PreparedData d = prepare_test_data(make_record(t, c.sw, 1.0, 20.0, c.p.back(), c.step), std::nullopt, std::nullopt);
     const ModelFit f = fit_model(d, c.shape, FitOptions{});
-    INFO(kind_name(c.shape.kind) << " from " << f.start_method << ": " << f.termination);
+    INFO(kind_name(c.shape.kind) << " from " << f.start_method << ": " << f.termination << " " << f.message << " values " << f.values[0] << " " << f.values[1] << " " << f.values[2] << " " << f.values[3] << " start " << f.start[0] << " " << f.start[1] << " " << f.start[2] << " " << f.start[3]);
     REQUIRE(f.status == FitStatus::ok);
     for (std::size_t i = 0; i < c.p.size(); ++i) {
       INFO(f.names[i]);
@@ -238,4 +238,26 @@ TEST_CASE("bad CSV data is refused with file, line and column", "[fit]") {
   std::string dead = "t,u,y\n";
   for (int i = 0; i < 30; ++i) dead += std::to_string(i) + "," + (i < 10 ? "0" : "1") + "," + (i % 2 ? "0.01" : "0") + "\n";
   CHECK_THROWS_WITH(prepare_test_data(parse_test_csv(dead, "dead.csv", any), std::nullopt, std::nullopt), Contains("does not respond"));
+}
+
+TEST_CASE("the Huber loss keeps outliers from pulling the fit", "[fit]") {
+  // First-order-plus-delay, one step, noise σ = 0.02, and every 15th sample after the step
+  // spiked by +0.8 (a glitching sensor). Huber's loss with scale 1.345·σ̂ (Huber 1964; the 1.345
+  // as commonly used) should stay near the truth where least squares is pulled up.
+  const auto t = grid(0.05, 1600);
+  TestRecord r = make_record(t, {{5.0, 3.0}}, 1.0, 20.0, 1.3, [](double s) { return fod_step(s, 1.7, 4.0); }, 0.02, 5);
+  for (std::size_t i = 0; i < r.y.size(); ++i)
+    if (r.t[i] > 6.0 && i % 15 == 0) r.y[i] += 0.8;
+  const PreparedData d = prepare_test_data(r, std::nullopt, std::nullopt);
+  CHECK_THAT(d.noise_sigma, WithinRel(0.02, 0.25));  // σ̂ from second differences ignores the spikes
+  FitOptions robust;
+  robust.robust = true;
+  const ModelFit plain = fit_model(d, {ModelKind::first_order_delay, 0, 0}, FitOptions{});
+  const ModelFit huber = fit_model(d, {ModelKind::first_order_delay, 0, 0}, robust);
+  INFO(huber.message);
+  REQUIRE(huber.status == FitStatus::ok);
+  CHECK(std::abs(huber.values[0] - 1.7) < 0.5 * std::abs(plain.values[0] - 1.7));
+  CHECK_THAT(huber.values[0], WithinRel(1.7, 5e-3));
+  CHECK_THAT(huber.values[1], WithinRel(4.0, 2e-2));
+  CHECK_THAT(huber.values[2], WithinRel(1.3, 3e-2));
 }

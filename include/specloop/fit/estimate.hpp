@@ -20,7 +20,7 @@ enum class FitStatus { ok, not_converged, not_identifiable };
 std::string_view status_name(FitStatus s);  // "ok", "not_converged", "not_identifiable"
 
 struct FitOptions {
-  bool robust = false;  // Huber loss, scale 1.345·σ̂ (PreparedData::noise_sigma)
+  bool robust = false;  // Huber loss, scale 1.345·σ̂ (PreparedData::noise_sigma), by IRLS
   Criterion criterion = Criterion::aic;
 };
 
@@ -49,6 +49,7 @@ FirstOrderGuess least_squares_first_order(const PreparedData& d, bool integratin
 struct StartValues {
   std::vector<double> values;
   std::string method;  // "smith-two-point", "sundaresan-krishnaswamy", "least-squares"
+  std::vector<std::vector<double>> alternatives;  // further starts, each solved (the lowest cost kept)
 };
 /// Starting values for a kind (see estimate.cpp for each kind's conversion).
 StartValues start_values(const PreparedData& d, const ModelShape& shape);

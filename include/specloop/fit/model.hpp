@@ -4,6 +4,7 @@
 
 #include <Eigen/Dense>
 
+#include <array>
 #include <cstdint>
 #include <optional>
 #include <span>
@@ -33,7 +34,8 @@ inline constexpr int kMaxPoles = 4;
 ///   second-order-delay  k, T1, T2, L     k/((T1 s + 1)(T2 s + 1))·e^(−L s)
 ///   underdamped-delay   k, wn, zeta, L   k·wn²/(s² + 2·zeta·wn·s + wn²)·e^(−L s)
 ///   integrator-delay    k, T, L          k/(s·(T s + 1))·e^(−L s)
-///   poles-zeros         k, p1..pN, z1..zM, L   k·Π(s/z_j + 1)/Π(s/p_i + 1)·e^(−L s): k the static
+///   poles-zeros         k, p1..pN, z1..zM, L   k·Π(s/z_j + 1)/Π(s/p_i + 1)·e^(−L s) (each set returned in
+///                       ascending rate): k the static
 ///                       gain, poles at −p_i and zeros at −z_j (p, z > 0: stable, minimum phase)
 std::vector<std::string> parameter_names(const ModelShape& shape);
 
@@ -62,15 +64,20 @@ class ResponseSimulator {
   std::size_t exponentials_computed() const { return exponentials_; }
 
  private:
-  struct Step {
-    Eigen::MatrixXd phi;
-    Eigen::VectorXd gamma;
+  struct Step {  // row-major Φ and Γ of one piece length, at most 8 states
+    std::array<double, 64> phi{};
+    std::array<double, 8> gamma{};
   };
   const Step& step_for(const StateModel& model, std::int64_t quanta);
+  template <std::size_t n>
+  void run(const StateModel& model, std::vector<double>& out);
   std::vector<double> t_, du_;
   double quantum_ = 0.0;
   std::unordered_map<std::int64_t, std::size_t> cache_index_;
   std::vector<Step> cache_;
+  std::array<std::int64_t, 4> recent_q_{};      // the last lengths used and their entries: a
+  std::array<std::size_t, 4> recent_index_{};   // uniform grid's few lengths skip the hash map
+  std::size_t next_recent_ = 0;
   std::size_t exponentials_ = 0;
 };
 
