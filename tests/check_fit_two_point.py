@@ -19,10 +19,13 @@ recalled from memory):
 Records: three first-order-plus-delay plants (L/T = 0.05, 0.3, 1.5; one with a negative gain and a
 step down), a step after a leading steady stretch, 2000 samples on a logger's uneven grid with
 period T/60, computed exactly by SciPy (fit_reference: cont2discrete ZOH with the delay exact),
-no noise. `specloop fit REC.csv --model first-order-delay` runs on each.
+no noise. `specloop fit REC.csv --model first-order-delay --model second-order-delay` runs on each.
 
 Checks:
-  method    start_method names one of the two methods (the input is one step).
+  method    start_method names one of the two methods (the input is one step); the tool uses
+            Smith's for first-order-delay and Sundaresan–Krishnaswamy's for second-order-delay,
+            whose start it converts to T1 = 0.7 T, T2 = 0.3 T (src/fit/start.cpp): there T1 + T2 and
+            L are the method's T and L, and are checked as below.
   formula   the tool's start k, T, L = the named method applied here to the same samples (crossing
             times by linear interpolation between the two samples around each level), within
             2e-3·T (the two implementations may read the crossings differently between samples:
@@ -81,7 +84,8 @@ def main():
             rec = clean.record(0.0, 0)
             csv = work / f"fopdt{i}.csv"
             rec.write_csv(csv)
-            proc, fit = fr.run_fit(args.specloop, csv, work / f"out{i}", ["--model", "first-order-delay"])
+            proc, fit = fr.run_fit(args.specloop, csv, work / f"out{i}",
+                                   ["--model", "first-order-delay", "--model", "second-order-delay"])
             entry = fr.model_entry(fit, "first-order-delay") if fit else None
             if not tally.check(cid, "exit 0 and a first-order-delay entry", proc.returncode == 0 and entry is not None,
                                f"exit {proc.returncode}: {proc.stderr.strip()[-300:]}"):
@@ -111,6 +115,22 @@ def main():
             tally.check(cid, f"exact: {method}'s start against the true plant", ok,
                         f"start k={start['k']:.6g} T={start['T']:.6g} L={start['L']:.6g}, "
                         f"true k={k_true:g} T={T_true:g} L={L_true:g}")
+            # Sundaresan–Krishnaswamy through second-order-delay's start: the tool converts its (k, T, L)
+            # to T1 = 0.7 T, T2 = 0.3 T (src/fit/start.cpp), so T1 + T2 and L are the method's.
+            so = fr.model_entry(fit, "second-order-delay") or {}
+            s2 = so.get("start") or {}
+            if tally.check(cid, "method: second-order-delay starts from Sundaresan–Krishnaswamy",
+                           so.get("start_method") == "sundaresan-krishnaswamy", f"start_method {so.get('start_method')!r}"):
+                sk = methods_on_samples(rec.t, rec.y, ts, y0, yinf)["sundaresan-krishnaswamy"]
+                ok = (abs(s2["T1"] + s2["T2"] - sk[0]) <= tol and abs(s2["L"] - sk[1]) <= tol
+                      and abs(s2["k"] - k_mine) <= 1e-6 * abs(k_mine))
+                tally.check(cid, "formula: second-order-delay's start (T1 + T2, L, k) = Sundaresan–Krishnaswamy here", ok,
+                            f"tool T1+T2={s2.get('T1', 0) + s2.get('T2', 0):.8g} L={s2.get('L')!r} k={s2.get('k')!r}; "
+                            f"here T={sk[0]:.8g} L={sk[1]:.8g}")
+                ok = abs(s2["T1"] + s2["T2"] - T_true) <= 0.01 * T_true and \
+                    abs(s2["L"] - L_true) <= 0.01 * L_true + 0.012 * T_true
+                tally.check(cid, "exact: Sundaresan–Krishnaswamy's T within 1 %, L within 1 % + 1.2 % of T", ok,
+                            f"T1+T2 {s2['T1'] + s2['T2']:.6g}, L {s2['L']:.6g}; true T={T_true:g} L={L_true:g}")
             tp = fr.tool_parameters(entry, "first-order-delay")
             bad = [f"{n} {tp[n][0]!r} vs {p[n]!r}" for n in ("k", "T")
                    if not abs(tp[n][0] - p[n]) <= 1e-6 * abs(p[n])]
