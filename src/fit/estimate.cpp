@@ -101,6 +101,68 @@ double sum_squares(const std::vector<double>& v) {
   return std::accumulate(v.begin(), v.end(), 0.0, [](double a, double b) { return a + b * b; });
 }
 
+// Levenberg–Marquardt (Ceres's default trust region) on a dense QR, tolerances tight enough for
+// a noise-free record to give its parameters back to 1e-6.
+ceres::Solver::Options solver_options() {
+  ceres::Solver::Options so;
+  so.linear_solver_type = ceres::DENSE_QR;
+  so.max_num_iterations = 200;
+  so.function_tolerance = 1e-14;
+  so.gradient_tolerance = 1e-14;
+  so.parameter_tolerance = 1e-12;
+  so.logging_type = ceres::SILENT;
+  so.num_threads = 1;
+  return so;
+}
+
+// The σ²-scaled covariance at the estimate (ceres::Covariance, DENSE_SVD; a rank-deficient
+// Jacobian is refused, not pseudo-inverted), the correlations, and the identifiability verdict:
+// status ok, or not_identifiable (rank deficiency, or a ±2σ interval wider than the value, a delay
+// at its bound 0 excepted).
+void covariance_and_identifiability(ceres::Problem& problem, std::vector<double>& theta, double& c, bool offset,
+                                    double duration, ModelFit& fit) {
+  const std::size_t p = theta.size();
+  ceres::Covariance::Options co;
+  co.algorithm_type = ceres::DENSE_SVD;
+  co.num_threads = 1;
+  ceres::Covariance covariance(co);
+  std::vector<std::pair<const double*, const double*>> blocks{{theta.data(), theta.data()}};
+  if (offset) blocks.emplace_back(&c, &c);
+  if (!covariance.Compute(blocks, &problem)) {
+    fit.status = FitStatus::not_identifiable;
+    fit.message = "the Jacobian at the estimate is rank deficient: these data cannot tell the parameters apart";
+  } else {
+    Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, Eigen::RowMajor> cov(p, p);
+    covariance.GetCovarianceBlock(theta.data(), theta.data(), cov.data());
+    fit.covariance = cov * fit.sigma2;
+    if (offset) {
+      double cc = 0.0;
+      covariance.GetCovarianceBlock(&c, &c, &cc);
+      fit.output_operating_point_std_error = std::sqrt(std::max(0.0, cc * fit.sigma2));
+    }
+    fit.have_covariance = true;
+    fit.std_errors.resize(p);
+    fit.correlation = Eigen::MatrixXd::Identity(static_cast<Eigen::Index>(p), static_cast<Eigen::Index>(p));
+    for (std::size_t i = 0; i < p; ++i) fit.std_errors[i] = std::sqrt(std::max(0.0, fit.covariance(i, i)));
+    for (std::size_t i = 0; i < p; ++i)
+      for (std::size_t j = 0; j < p; ++j)
+        if (i != j && fit.std_errors[i] > 0 && fit.std_errors[j] > 0)
+          fit.correlation(i, j) = fit.covariance(i, j) / (fit.std_errors[i] * fit.std_errors[j]);
+    fit.status = FitStatus::ok;
+    // Not identifiable: a ±2σ interval wider than the value itself (a delay at its bound 0 excepted).
+    for (std::size_t i = 0; i < p; ++i) {
+      if (fit.names[i] == "L" && theta[i] <= 1e-9 * duration) continue;
+      if (4.0 * fit.std_errors[i] > std::abs(theta[i])) {
+        fit.status = FitStatus::not_identifiable;
+        fit.message = fmt::format("{} = {:.4g}: its ±2σ interval [{:.4g}, {:.4g}] is wider than the value itself; not "
+                                  "identifiable from these data", fit.names[i], theta[i], theta[i] - 2 * fit.std_errors[i],
+                                  theta[i] + 2 * fit.std_errors[i]);
+        break;
+      }
+    }
+  }
+}
+
 }  // namespace
 
 std::string_view criterion_name(Criterion c) { return c == Criterion::aic ? "aic" : "bic"; }
@@ -147,14 +209,7 @@ ModelFit fit_model(const PreparedData& d, const ModelShape& shape, const FitOpti
   else problem.AddResidualBlock(cost, nullptr, theta.data());
   set_bounds(problem, theta.data(), shape, fit.names, h, duration);
 
-  ceres::Solver::Options so;
-  so.linear_solver_type = ceres::DENSE_QR;
-  so.max_num_iterations = 200;
-  so.function_tolerance = 1e-14;
-  so.gradient_tolerance = 1e-14;
-  so.parameter_tolerance = 1e-12;
-  so.logging_type = ceres::SILENT;
-  so.num_threads = 1;
+  const ceres::Solver::Options so = solver_options();
   ceres::Solver::Summary summary;
   int iterations = 0;
   const auto solve = [&] {
@@ -260,45 +315,7 @@ ModelFit fit_model(const PreparedData& d, const ModelShape& shape, const FitOpti
                           : fmt::format("the solver stopped without converging after {} iteration(s): {}", fit.iterations,
                                         summary.message);
   } else {
-    ceres::Covariance::Options co;
-    co.algorithm_type = ceres::DENSE_SVD;
-    co.num_threads = 1;
-    ceres::Covariance covariance(co);
-    std::vector<std::pair<const double*, const double*>> blocks{{theta.data(), theta.data()}};
-    if (offset) blocks.emplace_back(&c, &c);
-    if (!covariance.Compute(blocks, &problem)) {
-      fit.status = FitStatus::not_identifiable;
-      fit.message = "the Jacobian at the estimate is rank deficient: these data cannot tell the parameters apart";
-    } else {
-      Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, Eigen::RowMajor> cov(p, p);
-      covariance.GetCovarianceBlock(theta.data(), theta.data(), cov.data());
-      fit.covariance = cov * fit.sigma2;
-      if (offset) {
-        double cc = 0.0;
-        covariance.GetCovarianceBlock(&c, &c, &cc);
-        fit.output_operating_point_std_error = std::sqrt(std::max(0.0, cc * fit.sigma2));
-      }
-      fit.have_covariance = true;
-      fit.std_errors.resize(p);
-      fit.correlation = Eigen::MatrixXd::Identity(static_cast<Eigen::Index>(p), static_cast<Eigen::Index>(p));
-      for (std::size_t i = 0; i < p; ++i) fit.std_errors[i] = std::sqrt(std::max(0.0, fit.covariance(i, i)));
-      for (std::size_t i = 0; i < p; ++i)
-        for (std::size_t j = 0; j < p; ++j)
-          if (i != j && fit.std_errors[i] > 0 && fit.std_errors[j] > 0)
-            fit.correlation(i, j) = fit.covariance(i, j) / (fit.std_errors[i] * fit.std_errors[j]);
-      fit.status = FitStatus::ok;
-      // Not identifiable: a ±2σ interval wider than the value itself (a delay at its bound 0 excepted).
-      for (std::size_t i = 0; i < p; ++i) {
-        if (fit.names[i] == "L" && theta[i] <= 1e-9 * duration) continue;
-        if (4.0 * fit.std_errors[i] > std::abs(theta[i])) {
-          fit.status = FitStatus::not_identifiable;
-          fit.message = fmt::format("{} = {:.4g}: its ±2σ interval [{:.4g}, {:.4g}] is wider than the value itself; not "
-                                    "identifiable from these data", fit.names[i], theta[i], theta[i] - 2 * fit.std_errors[i],
-                                    theta[i] + 2 * fit.std_errors[i]);
-          break;
-        }
-      }
-    }
+    covariance_and_identifiability(problem, theta, c, offset, duration, fit);
   }
   fit.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
   return fit;

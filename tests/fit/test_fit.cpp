@@ -139,7 +139,7 @@ TEST_CASE("a noise-free test gives back each kind's parameters to 1e-6", "[fit]"
   for (const Case& c : cases) {
     const PreparedData d = prepare_test_data(make_record(t, c.sw, 1.0, 20.0, c.p.back(), c.step), std::nullopt, std::nullopt);
     const ModelFit f = fit_model(d, c.shape, FitOptions{});
-    INFO(kind_name(c.shape.kind) << " from " << f.start_method << ": " << f.termination << " " << f.message << " values " << f.values[0] << " " << f.values[1] << " " << f.values[2] << " " << f.values[3] << " start " << f.start[0] << " " << f.start[1] << " " << f.start[2] << " " << f.start[3]);
+    INFO(kind_name(c.shape.kind) << " from " << f.start_method << ": " << f.termination << " " << f.message);
     REQUIRE(f.status == FitStatus::ok);
     for (std::size_t i = 0; i < c.p.size(); ++i) {
       INFO(f.names[i]);

@@ -17,7 +17,6 @@
 
 namespace {
 
-using specloop_fuzz::finite;
 constexpr std::string_view kHarness = "fuzz_csv";
 
 #define CHECK(condition, ...) SPECLOOP_FUZZ_CHECK(kHarness, condition, __VA_ARGS__)
@@ -32,16 +31,16 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     CHECK(r.t.size() == r.u.size() && r.u.size() == r.y.size() && r.y.size() == r.line.size(), "column lengths differ");
     CHECK(r.t.size() >= kMinSamples, "{} samples accepted", r.t.size());
     for (std::size_t k = 0; k < r.t.size(); ++k) {
-      CHECK(finite(r.t[k]) && finite(r.u[k]) && finite(r.y[k]), "a non-finite value at row {}", k);
+      CHECK(specloop_fuzz::finite(r.t[k]) && specloop_fuzz::finite(r.u[k]) && specloop_fuzz::finite(r.y[k]), "a non-finite value at row {}", k);
       if (k > 0) CHECK(r.t[k] > r.t[k - 1] && r.line[k] > r.line[k - 1], "time or line not increasing at row {}", k);
     }
     const PreparedData d = prepare_test_data(r, std::nullopt, std::nullopt);
     CHECK(d.first_change > 0 && d.first_change < r.t.size() && d.record.u[d.first_change] != d.record.u[0],
           "first change {} is not a change", d.first_change);
     for (std::size_t k = 0; k < r.t.size(); ++k)
-      CHECK(finite(d.du[k]) && finite(d.dy[k]) && d.du[k] == r.u[k] - d.u0 && d.dy[k] == r.y[k] - d.y0,
+      CHECK(specloop_fuzz::finite(d.du[k]) && specloop_fuzz::finite(d.dy[k]) && d.du[k] == r.u[k] - d.u0 && d.dy[k] == r.y[k] - d.y0,
             "deviation wrong at row {}", k);
-    CHECK(finite(d.median_dt) && d.median_dt > 0 && finite(d.noise_sigma), "median step or noise not finite");
+    CHECK(specloop_fuzz::finite(d.median_dt) && d.median_dt > 0 && specloop_fuzz::finite(d.noise_sigma), "median step or noise not finite");
   } catch (const FitDataError&) {
   } catch (const std::exception& e) {
     specloop_fuzz::fail_exception(kHarness, e);
