@@ -34,7 +34,8 @@ Checks:
              often as the control minus 2 records; such cells are marked "ctl" in the table.
   agreement  (printed, asserted in check_fit_scipy.py) the median |tool − SciPy|/σ per cell.
 The table of coverages is printed (tool / control per parameter). Runtime: 750 fits of 400
-samples and as many SciPy fits: 161 s with --jobs 2 on the shared machine (load 6–8), so CTest
+samples and as many SciPy fits: 161 s with --jobs 2 on the shared machine at load 6–8, 394 s at
+load 12, so CTest
 labels it slow. Failures the fitter's branch is to fix are listed in fit_reference.KNOWN_FAILING. The last line is "N passed, N failed".
 """
 import argparse
