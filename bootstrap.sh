@@ -16,7 +16,7 @@ mode="${1:-demo}"
 build_dir="${SPECLOOP_BUILD_DIR:-build}"
 
 packages=(g++ cmake make pkg-config libnlopt-cxx-dev libeigen3-dev libboost-dev catch2 libtomlplusplus-dev
-          libcli11-dev nlohmann-json3-dev libfmt-dev libmuparser-dev libsqlite3-dev gnuplot-nox python3 python3-scipy python3-numpy)
+          libcli11-dev nlohmann-json3-dev libfmt-dev libmuparser-dev libsqlite3-dev libceres-dev gnuplot-nox python3 python3-scipy python3-numpy)
 # The report test drives a real browser and reads its screenshot; the sweep test runs shards
 # through GNU parallel.
 if [ "$mode" = test ]; then packages+=(chromium fonts-liberation python3-pil parallel); fi

@@ -19,6 +19,7 @@
 #include "specloop/spec/spec.hpp"
 #include "specloop/sweep/sweep.hpp"
 #include "specloop/sweep/sweep_report.hpp"
+#include "cli/fit_command.hpp"
 
 namespace {
 
@@ -445,23 +446,22 @@ int main(int argc, char** argv) {
   CLI::App app{"specloop: compensator design against hard step-response requirements"};
   app.require_subcommand(1);
   app.set_version_flag("--version", std::string("specloop ") + SPECLOOP_VERSION);
-
   std::string spec_path;
   bool as_json = false;
   auto* analyze = app.add_subcommand("analyze", "Characterize the P-only loop against the overshoot requirement");
   analyze->add_option("SPEC", spec_path, "spec file (TOML)")->required();
   analyze->add_flag("--json", as_json, "print one JSON object instead of the tables");
-
   std::string out_dir;
   auto* design = app.add_subcommand("design", "Design the compensator: classical, baseline and optimized, "
                                               "checked against every requirement");
   design->add_option("SPEC", spec_path, "spec file (TOML)")->required();
   design->add_option("--out", out_dir, "output folder (default results/<spec name>/)");
+  std::string plant_file;
+  design->add_option("--plant", plant_file, "a file with [plant] (and [uncertainty]) replacing the spec's: `specloop fit`'s plant.toml");
   unsigned design_jobs = std::max(1u, std::thread::hardware_concurrency());
   design->add_option("--jobs", design_jobs, "threads for the plants of [uncertainty] (default: all cores; the result "
                                             "is the same for any number)")
       ->check(CLI::Range(1u, 4096u));
-
   std::vector<std::string> vary;
   std::string store, shard, point_reports;
   unsigned jobs = std::max(1u, std::thread::hardware_concurrency());
@@ -475,19 +475,16 @@ int main(int argc, char** argv) {
   sweep->add_option("--shard", shard, "K/N: only the points with index % N == K - 1");
   sweep->add_option("--point-reports", point_reports, "also write each point's full design report into "
                                                       "DIR/point-<index>/ (the points designed in this run)");
-
   std::string merge_out;
   std::vector<std::string> merge_in;
   auto* merge = app.add_subcommand("merge", "Combine sweep stores of the same spec and grid (shards) into one");
   merge->add_option("OUT", merge_out, "merged store (written whole, then moved into place)")->required();
   merge->add_option("IN", merge_in, "input stores")->required();
-
   std::string keys_prefix;
   bool keys_markdown = false;
   auto* keys = app.add_subcommand("keys", "Print the spec file's keys: unit, default, meaning and range");
   keys->add_option("KEY", keys_prefix, "only this key or section (e.g. controller, requirements.effort_max)");
   keys->add_flag("--markdown", keys_markdown, "print the table as Markdown (the README's spec-key table)");
-
   std::string report_store, report_out, map_keys, front_metrics = "peak_time,effort_peak", front_loop = "nonlinear";
   std::vector<std::string> report_at;
   double threshold_pct = 10.0;
@@ -504,7 +501,8 @@ int main(int argc, char** argv) {
   sweep_report->add_option("--front-loop", front_loop, "loop the front's metrics are read on: nonlinear (default) or linear");
   sweep_report->add_option("--threshold", threshold_pct, "relative error of the second-order prediction, %, beyond which "
                                                          "a map cell is outlined (default 10)");
-
+  cli::FitCommand fit_cmd;  // `specloop fit` (cli/fit_command.cpp)
+  cli::add_fit_command(app, fit_cmd);
   const std::string keys_hint = "Spec file keys (unit, default, meaning): specloop keys [SECTION], or README.md, "
                                 "\"Spec file reference\".";
   for (CLI::App* command : {&app, analyze, design, sweep}) command->footer(keys_hint);
@@ -525,7 +523,7 @@ int main(int argc, char** argv) {
       return 0;
     }
     if (*design) {
-      const Spec spec = load_spec(spec_path);
+      const Spec spec = plant_file.empty() ? load_spec(spec_path) : load_spec_with_plant(spec_path, plant_file);
       const std::filesystem::path dir = out_dir.empty() ? std::filesystem::path("results") / spec.name : std::filesystem::path(out_dir);
       check_output_folder(dir, "--out");  // before the work, not after it
       const DesignRun run = run_design(spec, design_jobs);
@@ -533,6 +531,7 @@ int main(int argc, char** argv) {
       print_design(run, outcome);
       return run.met ? 0 : 1;
     }
+    if (*fit_cmd.app) return cli::run_fit_command(fit_cmd);
     if (*keys) return print_keys(keys_prefix, keys_markdown);
     if (*sweep) return run_sweep_command(spec_path, vary, store, jobs, shard, point_reports);
     if (*sweep_report) {

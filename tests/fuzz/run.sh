@@ -32,7 +32,7 @@ for arg in "$@"; do
     *) build_dir="$(mkdir -p "$arg" && cd "$arg" && pwd)" ;;
   esac
 done
-harnesses=(${SPECLOOP_FUZZ_HARNESSES:-spec expression vary store store_sql})
+harnesses=(${SPECLOOP_FUZZ_HARNESSES:-spec expression vary store store_sql csv})
 hang_limit="${SPECLOOP_FUZZ_TIMEOUT:-10}"
 
 if [ "$build" = 1 ]; then
@@ -75,6 +75,8 @@ for h in "${harnesses[@]}"; do
   seeds=("$here/corpus/$h")
   # The spec reader's seeds also include every demo spec and every bad spec of the test suite.
   [ "$h" = spec ] && seeds+=("$source_dir/specs" "$source_dir/tests/bad_specs")
+  # The CSV reader's also include the bad-data corpus of `fit`.
+  [ "$h" = csv ] && seeds+=("$source_dir/tests/bad_data")
   echo "fuzz: $h for ${seconds} s ..."
   status=0
   TMPDIR="$scratch" "$binary" "${options[@]}" "$work" "${seeds[@]}" >"$log" 2>&1 || status=$?

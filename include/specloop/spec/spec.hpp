@@ -252,6 +252,14 @@ Spec model_spec(SpecAsRead spec);
 /// NaN/inf, improper plant, zero leading coefficient, empty or duplicate section, contradiction.
 Spec load_spec(const std::string& path);
 
+/// load_spec with the [plant] and [uncertainty] sections of `plant_path` (a file holding only
+/// those, as `specloop fit` writes plant.toml) in place of the spec's: FILE's [plant] replaces the
+/// spec's whole; FILE's [uncertainty] ranges replace the spec's, whose settings (samples, seed,
+/// mode, …) stay unless FILE sets them; without [uncertainty] in FILE the spec's is dropped.
+/// A problem with FILE's content names FILE, line and column (SpecError). Spec::source_text is
+/// the merged document (what robust design's scenarios re-read).
+Spec load_spec_with_plant(const std::string& spec_path, const std::string& plant_path);
+
 /// Same as load_spec, from text; `path` is only used in messages and for `name`.
 /// model_spec(read_spec(text, path)).
 Spec parse_spec(std::string_view text, const std::string& path);
