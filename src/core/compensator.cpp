@@ -237,12 +237,17 @@ std::string filters_text(const Controller& c, const std::string& time_unit) {
   return s;
 }
 
-TwoInputRealization controller_realization(const Controller& c, double b, double cw) {
-  if (!c.notch && !c.measurement_filter) return two_input_controller(c.transfer, reference_path(c, b, cw));
+Controller without_filters(const Controller& c) {
   Controller bare = c;
   bare.notch.reset();
   bare.measurement_filter.reset();
   bare.transfer = structure_transfer(c);
+  return bare;
+}
+
+TwoInputRealization controller_realization(const Controller& c, double b, double cw) {
+  if (!c.notch && !c.measurement_filter) return two_input_controller(c.transfer, reference_path(c, b, cw));
+  const Controller bare = without_filters(c);
   const TwoInputRealization k = two_input_controller(bare.transfer, reference_path(bare, b, cw));
   std::optional<StateSpace> f, n;
   if (c.measurement_filter) {
@@ -296,11 +301,7 @@ Controller with_filters(Controller c, const std::optional<NotchFilter>& notch,
 TransferFunction reference_path(const Controller& c, double b, double cw) {
   if (c.notch || c.measurement_filter) {
     // u = N·(C_r·r − C·F·y): C_r·N·(F's denominator) over C·F·N's denominator.
-    Controller bare = c;
-    bare.notch.reset();
-    bare.measurement_filter.reset();
-    bare.transfer = structure_transfer(c);
-    const TransferFunction r = reference_path(bare, b, cw);
+    const TransferFunction r = reference_path(without_filters(c), b, cw);
     Polynomial num = r.numerator, den = r.denominator;
     if (c.notch) {
       double n3[3], d3[3];

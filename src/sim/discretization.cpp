@@ -75,10 +75,7 @@ DifferenceEquation controller_difference_equation(const Controller& controller, 
   if (controller.notch || controller.measurement_filter) {
     // u = N·(C_r·r − C·F·y): the structure's two paths (Tustin of its C_r and C over one
     // denominator), the filter by Tustin, the notch by Tustin prewarped at its frequency.
-    Controller bare = controller;
-    bare.notch.reset();
-    bare.measurement_filter.reset();
-    bare.transfer = structure_transfer(controller);
+    const Controller bare = without_filters(controller);
     const TransferFunction cr = reference_path(bare, setpoint_weight, derivative_weight);
     auto [rn, rd] = tustin_of(cr.numerator, cr.denominator, ts);
     auto [mn, md] = tustin_of(bare.transfer.numerator, bare.transfer.denominator, ts);

@@ -118,6 +118,10 @@ TwoInputRealization controller_realization(const Controller& c, double setpoint_
 /// The PID part's C(s) alone (without the filters): the transfer function of the series parameters.
 TransferFunction structure_transfer(const Controller& c);
 
+/// The controller without its notch and measurement filter: the same structure and parameters,
+/// its transfer the structure's own (structure_transfer).
+Controller without_filters(const Controller& c);
+
 /// Builds the controller from series parameters and the action (+1 direct, −1 reverse: the sign
 /// of C(s), Kp, Ki, Kd and the standard form's Kp; Ti, Td, Tf and N stay positive). Throws
 /// std::invalid_argument when a value is not positive and finite, the count is wrong or the
