@@ -1,13 +1,11 @@
 // The controller's filters (controller.notch, controller.measurement_filter; README "Filters"): the
-// search's cost evaluation with them allocates nothing after its first calls (the hot path's
-// fixed workspace, as tests/design/test_hot_path.cpp for the unfiltered loop); the evaluator's
-// two-input loop u = N·K·(r − F·y) is the loop close_loop(plant, C·F·N, C_r·N) builds from the
-// transfer functions; a searched notch lands near the demo carriage's belt resonance.
+// evaluator's two-input loop u = N·K·(r − F·y) is the loop close_loop(plant, C·F·N, C_r·N) builds
+// from the transfer functions (its allocation-free hot path: test_hot_path.cpp); a searched notch
+// lands near the demo carriage's belt resonance.
 #include <catch2/catch.hpp>
 #include <cmath>
 #include <string>
 
-#include "../sim/allocation_counter.hpp"
 #include "specloop/design/design.hpp"
 
 using namespace specloop;
@@ -15,32 +13,6 @@ using namespace specloop;
 namespace {
 const std::string kCarriage = "[plant]\npoles = [0.0, -2.0, [-0.6, 30.0]]\ngain = 900.0\n";
 }  // namespace
-
-TEST_CASE("the cost evaluation with a notch and a measurement filter allocates nothing", "[evaluate][hot-path][filters]") {
-  for (const char* filters : {"notch = \"search\"\n", "measurement_filter = { order = 2, time_constant = 0.003 }\n",
-                              "notch = \"search\"\nmeasurement_filter = \"search\"\n"}) {
-    const Spec spec = parse_spec(kCarriage + "[controller]\nstructure = \"pid\"\n" + filters +
-                                     "[requirements]\novershoot_max_pct = 5.0\nsettling_time_max = 1.0\n",
-                                 "specs/unit.toml");
-    const Problem problem = make_problem(spec, characterize(spec));
-    CandidateEvaluator evaluator(problem, search_options(spec));
-    std::vector<double> a, b;
-    for (const auto& [lo, hi] : problem.bounds) {
-      a.push_back(std::sqrt(lo * hi));
-      b.push_back(std::sqrt(lo * hi) * 1.1);
-    }
-    evaluator.evaluate(problem, a.data());
-    evaluator.evaluate(problem, b.data());
-    evaluator.evaluate(problem, a.data());
-    testing::allocations = 0;
-    testing::counting = true;
-    const CandidateOutcome first = evaluator.evaluate(problem, b.data());
-    const CandidateOutcome second = evaluator.evaluate(problem, a.data());
-    testing::counting = false;
-    INFO(filters << "outcomes " << first.objective << ", " << second.objective);
-    CHECK(testing::allocations.load() == 0);
-  }
-}
 
 TEST_CASE("the evaluator's filtered loop is the one measure_design builds", "[evaluate][filters]") {
   // Same candidate: the evaluator's metrics (fixed-storage cascade [F | K | N]) against the design

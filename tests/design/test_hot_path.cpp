@@ -11,6 +11,35 @@
 
 using namespace specloop;
 
+namespace {
+
+// The allocations of two evaluations — at the bounds' geometric middle b·1.1 and a = the middle —
+// after `warm` alternating ones sized the workspace (the storage grows to the longest grid seen,
+// then stays).
+struct Counted {
+  long allocations = 0;
+  CandidateOutcome first, second;
+  std::string note() const { return "outcomes " + std::to_string(first.objective) + ", " + std::to_string(second.objective); }
+};
+Counted allocations_after_warmup(const Problem& problem, CandidateEvaluator& evaluator, int warm) {
+  std::vector<double> a, b;
+  for (const auto& [lo, hi] : problem.bounds) {
+    a.push_back(std::sqrt(lo * hi));
+    b.push_back(std::sqrt(lo * hi) * 1.1);
+  }
+  for (int i = 0; i < warm; ++i) evaluator.evaluate(problem, (i % 2 == 0 ? a : b).data());
+  Counted c;
+  testing::allocations = 0;
+  testing::counting = true;
+  c.first = evaluator.evaluate(problem, b.data());
+  c.second = evaluator.evaluate(problem, a.data());
+  testing::counting = false;
+  c.allocations = testing::allocations.load();
+  return c;
+}
+
+}  // namespace
+
 TEST_CASE("the search's cost evaluation allocates nothing after the first call", "[evaluate][hot-path]") {
   // P (a static controller), PID (two controller states) and lead-lag on a fourth-order plant,
   // with step requirements only (margin requirements would compute the margins, which allocate).
@@ -22,20 +51,9 @@ TEST_CASE("the search's cost evaluation allocates nothing after the first call",
     const Problem problem = make_problem(spec, characterize(spec));
     const SearchOptions options = search_options(spec);
     CandidateEvaluator evaluator(problem, options);
-    std::vector<double> a, b;
-    for (const auto& [lo, hi] : problem.bounds) {
-      a.push_back(std::sqrt(lo * hi));  // the bounds' geometric middle, and a point beside it
-      b.push_back(std::sqrt(lo * hi) * 1.1);
-    }
-    evaluator.evaluate(problem, a.data());  // size the workspace for both grids (the storage
-    evaluator.evaluate(problem, b.data());  // grows to the longest grid seen, then stays)
-    testing::allocations = 0;
-    testing::counting = true;
-    const CandidateOutcome first = evaluator.evaluate(problem, b.data());
-    const CandidateOutcome second = evaluator.evaluate(problem, a.data());
-    testing::counting = false;
-    INFO(structure << ": outcomes " << first.objective << ", " << second.objective);
-    CHECK(testing::allocations.load() == 0);
+    const Counted counted = allocations_after_warmup(problem, evaluator, 2);
+    INFO(structure << ": " << counted.note());
+    CHECK(counted.allocations == 0);
   }
 }
 
@@ -55,22 +73,27 @@ TEST_CASE("a regulator's cost evaluation, with the load response's second simula
     REQUIRE(problem.needs_load);
     const SearchOptions options = search_options(spec);
     CandidateEvaluator evaluator(problem, options);
-    std::vector<double> a, b;
-    for (const auto& [lo, hi] : problem.bounds) {
-      a.push_back(std::sqrt(lo * hi));
-      b.push_back(std::sqrt(lo * hi) * 1.1);
-    }
-    evaluator.evaluate(problem, a.data());
-    evaluator.evaluate(problem, b.data());
-    testing::allocations = 0;
-    testing::counting = true;
-    const CandidateOutcome first = evaluator.evaluate(problem, b.data());
-    const CandidateOutcome second = evaluator.evaluate(problem, a.data());
-    testing::counting = false;
-    INFO(structure << ": outcomes " << first.objective << ", " << second.objective);
-    CHECK(testing::allocations.load() == 0);
+    const Counted counted = allocations_after_warmup(problem, evaluator, 2);
+    INFO(structure << ": " << counted.note());
+    CHECK(counted.allocations == 0);
     // The load response was measured (a stable candidate carries it).
-    if (second.stable) CHECK(evaluator.metrics().load_peak.has_value());
+    if (counted.second.stable) CHECK(evaluator.metrics().load_peak.has_value());
+  }
+}
+
+TEST_CASE("the cost evaluation with a notch and a measurement filter allocates nothing", "[evaluate][hot-path][filters]") {
+  for (const char* filters : {"notch = \"search\"\n", "measurement_filter = { order = 2, time_constant = 0.003 }\n",
+                              "notch = \"search\"\nmeasurement_filter = \"search\"\n"}) {
+    // The demo carriage's belt resonance (tests/design/test_filters.cpp).
+    const Spec spec = parse_spec(std::string("[plant]\npoles = [0.0, -2.0, [-0.6, 30.0]]\ngain = 900.0\n"
+                                             "[controller]\nstructure = \"pid\"\n") +
+                                     filters + "[requirements]\novershoot_max_pct = 5.0\nsettling_time_max = 1.0\n",
+                                 "specs/unit.toml");
+    const Problem problem = make_problem(spec, characterize(spec));
+    CandidateEvaluator evaluator(problem, search_options(spec));
+    const Counted counted = allocations_after_warmup(problem, evaluator, 3);
+    INFO(filters << ": " << counted.note());
+    CHECK(counted.allocations == 0);
   }
 }
 
