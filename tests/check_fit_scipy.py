@@ -76,6 +76,11 @@ def check_record(tally, cid, kind, rec, proc, fit):
         ok = ok and abs(y0 - mean) <= 3.0 * se + 1e-12 * abs(mean)
         detail += f"; y0 {y0!r} vs the stretch's mean {mean!r} ± {se:.3g} ({lead} samples)"
     tally.check(cid, "u0/y0 from the leading steady stretch", ok, detail)
+    # The excitation's kind (README fit.json: one step "step", a few equally held steps "steps",
+    # a pseudo-random sequence "other").
+    want = {"step": "step", "steps": "steps", "prbs": "other"}.get(cid.split("/")[1])
+    if want:
+        tally.check(cid, f"excitation: {want}", data.get("excitation") == want, f"{data.get('excitation')}")
     opp = entry.get("output_operating_point") or {}
     offset = bool(opp.get("estimated"))
     tp = fr.tool_parameters(entry, kind)
@@ -118,11 +123,22 @@ def check_ranking(tally, cid, proc, fit):
     kinds = {m["kind"] for m in fit["models"]}
     tally.check(cid, "default set: all five kinds tried", set(fr.ORDER) <= kinds, f"{sorted(kinds)}")
     if oks:
-        best = min(oks, key=lambda m: m[crit])
-        tally.check(cid, f"best = the ok model of least {crit}", fit["best"] == best["kind"], f"best {fit['best']}, least {best['kind']}")
+        # The contract (README "Uncertainty and ranking"): by the criterion, lower first; two
+        # within rounding (1e-9 relative + 1e-6: the same response) in the order asked (fit.json's).
+        def tied(a, b):
+            return abs(a[crit] - b[crit]) <= 1e-9 * max(abs(a[crit]), abs(b[crit])) + 1e-6
+        position = {id(m): i for i, m in enumerate(fit["models"])}
         ranked = sorted(oks, key=lambda m: m[crit])
+        for k in range(1, len(ranked)):
+            j = k
+            while j > 0 and position[id(ranked[j])] < position[id(ranked[j - 1])] and tied(ranked[j], ranked[j - 1]):
+                ranked[j], ranked[j - 1] = ranked[j - 1], ranked[j]
+                j -= 1
+        best = ranked[0]
+        tally.check(cid, f"best = the ok model of least {crit} (ties: the first asked)", fit["best"] == best["kind"],
+                    f"best {fit['best']}, least {best['kind']}")
         tally.check(cid, "ranks follow the criterion", [m.get("rank") for m in ranked] == list(range(1, len(oks) + 1)),
-                    f"{[(m['kind'], m.get('rank')) for m in ranked]}")
+                    f"{[(m['kind'], m.get('rank'), m[crit]) for m in ranked]}")
     else:
         tally.check(cid, "no ok model: best is null", fit["best"] is None, f"best {fit['best']}")
 

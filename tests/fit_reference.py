@@ -452,23 +452,7 @@ def tool_parameters(entry, kind):
 # fnmatch patterns of "CASE: WHAT" lines, per check script, each with its reason (as the oracle's
 # KNOWN_FAILING in check_scipy_claims.py): a matching failure prints "KNOWN FAILING" and does not
 # fail the run; an entry that matches no failure any more is printed "remove it".
-PZ_PRBS_CANCEL = ("poles-zeros (2 poles, 1 zero) on the 7-bit PRBS record at the low noise level: the solver walks a "
-                  "pole and the zero to a near-cancelling pair at the origin (p1 = 6.6e-6, z1 = 8.0e-6) and stops "
-                  "not_converged after 600 iterations with a residual RMS 15× SciPy's, whose fit from the truth × 1.2 "
-                  "reaches the generating plant (fit branch at 4af2b02; the start was p1 0.50, p2 0.46, z1 0.75, "
-                  "L 1.125 from least squares)")
-PZ_HIGH_L = ("poles-zeros (2 poles, 1 zero) at the high noise level: on 2 of the 50 records (03 and 25) the tool stops "
-             "in a neighbouring minimum of a slightly larger sum of squares (residual RMS 0.591117 against SciPy's "
-             "0.590875; 0.587910 against 0.587550) with L ≈ 0.6 instead of ≈ 0.9 (truth 1.0), so its L interval "
-             "covers 41 of 50 against SciPy's 44 on the same records (fit branch at 4af2b02)")
-KNOWN_FAILING = {
-    "check_fit_coverage": [
-        ("poles-zeros/high/L: coverage*", PZ_HIGH_L),
-    ],
-    "check_fit_scipy": [
-        ("poles-zeros/prbs/low: *", PZ_PRBS_CANCEL),
-    ],
-}
+KNOWN_FAILING = {}
 
 
 class KnownTally:

@@ -117,10 +117,9 @@ ceres::Solver::Options solver_options() {
 
 // The σ²-scaled covariance at the estimate (ceres::Covariance, DENSE_SVD; a rank-deficient
 // Jacobian is refused, not pseudo-inverted), the correlations, and the identifiability verdict:
-// status ok, or not_identifiable (rank deficiency, or a ±2σ interval wider than the value, a delay
-// at its bound 0 excepted).
+// status ok, or not_identifiable (rank deficiency, or unidentified_parameter).
 void covariance_and_identifiability(ceres::Problem& problem, std::vector<double>& theta, double& c, bool offset,
-                                    double duration, ModelFit& fit) {
+                                    ModelFit& fit) {
   const std::size_t p = theta.size();
   ceres::Covariance::Options co;
   co.algorithm_type = ceres::DENSE_SVD;
@@ -149,21 +148,84 @@ void covariance_and_identifiability(ceres::Problem& problem, std::vector<double>
         if (i != j && fit.std_errors[i] > 0 && fit.std_errors[j] > 0)
           fit.correlation(i, j) = fit.covariance(i, j) / (fit.std_errors[i] * fit.std_errors[j]);
     fit.status = FitStatus::ok;
-    // Not identifiable: a ±2σ interval wider than the value itself (a delay at its bound 0 excepted).
-    for (std::size_t i = 0; i < p; ++i) {
-      if (fit.names[i] == "L" && theta[i] <= 1e-9 * duration) continue;
-      if (4.0 * fit.std_errors[i] > std::abs(theta[i])) {
-        fit.status = FitStatus::not_identifiable;
-        fit.message = fmt::format("{} = {:.4g}: its ±2σ interval [{:.4g}, {:.4g}] is wider than the value itself; not "
-                                  "identifiable from these data", fit.names[i], theta[i], theta[i] - 2 * fit.std_errors[i],
-                                  theta[i] + 2 * fit.std_errors[i]);
-        break;
-      }
+    if (auto why = unidentified_parameter(fit.names, theta, fit.std_errors)) {
+      fit.status = FitStatus::not_identifiable;
+      fit.message = std::move(*why);
     }
   }
 }
 
+// Solves from the start and each alternative for at most 20 iterations and leaves the parameters
+// at the lowest final cost (unchanged when no solve was usable).
+template <class Solve>
+void best_of_starts(const StartValues& sv, std::vector<double>& theta, double& c, double duration,
+                    const ceres::Solver::Summary& summary, const Solve& solve) {
+  const std::size_t last = theta.size() - 1;
+  std::vector<double> best_theta;
+  double best_c = 0.0, best_cost = INFINITY;
+  std::vector<std::vector<double>> starts{sv.values};
+  starts.insert(starts.end(), sv.alternatives.begin(), sv.alternatives.end());
+  for (const auto& start : starts) {
+    theta = start;
+    theta[last] = std::clamp(theta[last], 0.0, 0.9 * duration);
+    c = 0.0;
+    solve(20);
+    if (summary.IsSolutionUsable() && summary.final_cost < best_cost) {
+      best_cost = summary.final_cost;
+      best_theta = theta;
+      best_c = c;
+    }
+  }
+  if (!best_theta.empty()) {
+    theta = best_theta;
+    c = best_c;
+  }
+}
+
+// The delay's neighbouring minima: on a sampled record the sum of squares has a local minimum
+// about every sample interval of L (the delayed switching instants cross the samples), and a
+// solve can stop in the one beside the best. Re-solves from L ± h and L ± 2h (h the median step;
+// 20 iterations each), keeps the lowest cost and solves on from it.
+template <class Solve>
+void polish_delay(std::vector<double>& theta, double& c, double h, double duration, const ceres::Solver::Summary& summary,
+                  const Solve& solve) {
+  if (!summary.IsSolutionUsable()) return;
+  const std::size_t at = theta.size() - 1;
+  const std::vector<double> found = theta;
+  const double found_c = c;
+  std::vector<double> best = found;
+  double best_c = found_c, best_cost = summary.final_cost;
+  for (double shift : {-2.0 * h, -h, h, 2.0 * h}) {
+    theta = found;
+    c = found_c;
+    theta[at] = std::clamp(found[at] + shift, 0.0, 0.9 * duration);
+    if (theta[at] == found[at]) continue;
+    solve(20);
+    if (summary.IsSolutionUsable() && summary.final_cost < best_cost * (1.0 - 1e-12)) {
+      best_cost = summary.final_cost;
+      best = theta;
+      best_c = c;
+    }
+  }
+  theta = best;
+  c = best_c;
+  solve(0);
+}
+
 }  // namespace
+
+std::optional<std::string> unidentified_parameter(const std::vector<std::string>& names, const std::vector<double>& values,
+                                                  const std::vector<double>& std_errors) {
+  for (std::size_t i = 0; i < names.size(); ++i) {
+    if (names[i] == "L") continue;
+    const double half = 2.0 * std_errors[i];
+    if (!(half < std::abs(values[i])))
+      return fmt::format("{} = {:.4g} ± {:.4g} (2σ): its interval [{:.4g}, {:.4g}] reaches zero, so these data cannot tell "
+                         "whether it is there at all; not identifiable from these data (a model with fewer parameters, a "
+                         "longer test or less noise)", names[i], values[i], half, values[i] - half, values[i] + half);
+  }
+  return std::nullopt;
+}
 
 std::string_view criterion_name(Criterion c) { return c == Criterion::aic ? "aic" : "bic"; }
 
@@ -209,36 +271,20 @@ ModelFit fit_model(const PreparedData& d, const ModelShape& shape, const FitOpti
   else problem.AddResidualBlock(cost, nullptr, theta.data());
   set_bounds(problem, theta.data(), shape, fit.names, h, duration);
 
-  const ceres::Solver::Options so = solver_options();
+  ceres::Solver::Options so = solver_options();
   ceres::Solver::Summary summary;
   int iterations = 0;
-  const auto solve = [&] {
+  // Solves from the current parameters, at most `max_iterations` (0: the default) iterations.
+  const auto solve = [&](int max_iterations = 0) {
+    so.max_num_iterations = max_iterations > 0 ? max_iterations : solver_options().max_num_iterations;
     ceres::Solve(so, &problem, &summary);
     iterations += static_cast<int>(summary.iterations.size()) - 1;
   };
-  // Alternative starts (poles-zeros with zeros): each solved, the lowest final cost kept.
-  if (!sv.alternatives.empty()) {
-    std::vector<double> best_theta;
-    double best_c = 0.0, best_cost = INFINITY;
-    std::vector<std::vector<double>> starts{sv.values};
-    starts.insert(starts.end(), sv.alternatives.begin(), sv.alternatives.end());
-    for (const auto& start : starts) {
-      theta = start;
-      theta[p - 1] = std::clamp(theta[p - 1], 0.0, 0.9 * duration);
-      c = 0.0;
-      solve();
-      if (summary.IsSolutionUsable() && summary.final_cost < best_cost) {
-        best_cost = summary.final_cost;
-        best_theta = theta;
-        best_c = c;
-      }
-    }
-    if (!best_theta.empty()) {
-      theta = best_theta;
-      c = best_c;
-    }
-  }
+  // Alternative starts (poles-zeros): each solved for at most 20 iterations, the lowest final
+  // cost kept and solved on to convergence below.
+  if (!sv.alternatives.empty()) best_of_starts(sv, theta, c, duration, summary, solve);
   solve();
+  polish_delay(theta, c, h, duration, summary, solve);
   // The Huber loss by iteratively reweighted least squares: weight min(1, δ/|r_k|) per sample
   // (Ceres's loss functions act on a whole residual block, here all samples at once).
   const double delta = 1.345 * d.noise_sigma;
@@ -315,7 +361,13 @@ ModelFit fit_model(const PreparedData& d, const ModelShape& shape, const FitOpti
                           : fmt::format("the solver stopped without converging after {} iteration(s): {}", fit.iterations,
                                         summary.message);
   } else {
-    covariance_and_identifiability(problem, theta, c, offset, duration, fit);
+    covariance_and_identifiability(problem, theta, c, offset, fit);
+  }
+  // underdamped-delay at ζ ≥ 1 is the two-lag model: say so beside an ok fit (the ranking ties them).
+  if (shape.kind == ModelKind::underdamped_delay && fit.status == FitStatus::ok && theta[2] >= 1.0) {
+    const double root = std::sqrt(theta[2] * theta[2] - 1.0);
+    fit.message = fmt::format("zeta = {:.4g} ≥ 1: no oscillation — the response of second-order-delay with T1 = {:.6g}, "
+                              "T2 = {:.6g}", theta[2], 1.0 / (theta[1] * (theta[2] - root)), 1.0 / (theta[1] * (theta[2] + root)));
   }
   fit.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
   return fit;
@@ -332,6 +384,14 @@ FitResult fit_models(const PreparedData& d, const std::vector<ModelShape>& shape
     if (r.models[i].status == FitStatus::ok) order.push_back(i);
   const auto score = [&](std::size_t i) { return options.criterion == Criterion::aic ? r.models[i].aic : r.models[i].bic; };
   std::stable_sort(order.begin(), order.end(), [&](std::size_t a, std::size_t b) { return score(a) < score(b); });
+  // Two fits whose criteria agree to rounding (1e-9 relative + 1e-6) are the same response — an
+  // underdamped-delay at ζ ≥ 1 and second-order-delay — and keep the order they were asked in
+  // (the default set lists the simpler kinds first), not rounding's.
+  const auto tied = [&](std::size_t a, std::size_t b) {
+    return std::abs(score(a) - score(b)) <= 1e-9 * std::max(std::abs(score(a)), std::abs(score(b))) + 1e-6;
+  };
+  for (std::size_t k = 1; k < order.size(); ++k)
+    for (std::size_t j = k; j > 0 && order[j] < order[j - 1] && tied(order[j], order[j - 1]); --j) std::swap(order[j], order[j - 1]);
   for (std::size_t k = 0; k < order.size(); ++k) r.models[order[k]].rank = static_cast<int>(k + 1);
   if (!order.empty()) r.best = order.front();
   return r;

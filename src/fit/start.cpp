@@ -157,13 +157,86 @@ FirstOrderGuess arx_first_order(const PreparedData& d, bool integrating) {
   return best;
 }
 
+namespace {
+
+// poles-zeros: candidates from the first-order guess (k, T, L) — the time-constant sum T scaled
+// by {0.5, 1, 2, 4} (a first-order fit to a record that never settles, a pseudo-random sequence,
+// underestimates the slow lag), split as T·w_i with w halving or all equal, zero rates
+// f·(j + 1)/T for f in {0.3, 1, 3, 10}, the delay L·{0.5, 1, 1.5}; each one's exact response
+// with k and the offset refitted linearly. The best is the start; the best of each other scale,
+// zero placement and delay are solved too (estimate.cpp keeps the lowest final cost). A single
+// guess sent a lead to a local minimum with a zero and a pole running off together, a
+// pseudo-random record to a pole–zero pair cancelling at the origin, and a noisy record to a
+// neighbouring minimum of the delay.
+std::vector<double> poles_zeros_starts(const PreparedData& d, const ModelShape& shape, const FirstOrderGuess& g,
+                                       std::vector<std::vector<double>>& alternatives) {
+  ResponseSimulator sim(d.record.t, d.du);
+  std::vector<double> s;
+  struct Candidate {
+    double ssr;
+    int scale, f, delay;  // indices into the grids below
+    std::vector<double> v;
+  };
+  constexpr double kScales[] = {0.5, 1.0, 2.0, 4.0}, kZeroFactors[] = {0.3, 1.0, 3.0, 10.0}, kDelays[] = {0.5, 1.0, 1.5};
+  const double max_delay = 0.9 * (d.record.t.back() - d.record.t.front());
+  std::vector<Candidate> candidates;
+  for (int si = 0; si < 4; ++si) {
+    const double T = g.T * kScales[si];
+    for (int spread = 0; spread < 2; ++spread) {
+      double wsum = 0.0;
+      for (int i = 0; i < shape.poles; ++i) wsum += spread == 0 ? std::pow(0.5, i) : 1.0;
+      for (int fi = 0; fi < 4; ++fi) {
+        for (int li = 0; li < 3; ++li) {
+          if (g.L == 0.0 && li != 1) continue;
+          std::vector<double> v{1.0};
+          for (int i = 0; i < shape.poles; ++i)
+            v.push_back(1.0 / (T * (spread == 0 ? std::pow(0.5, i) : 1.0 + 0.1 * i) / wsum));
+          for (int j = 0; j < shape.zeros; ++j) v.push_back(kZeroFactors[fi] * (j + 1) / T);
+          v.push_back(std::min(g.L * kDelays[li], max_delay));
+          sim.simulate(realize(shape, v), s);
+          double k = g.k;
+          const double ssr = gain_fit(s, d.dy, k);
+          v[0] = std::isfinite(k) && k != 0.0 ? k : g.k;
+          candidates.push_back({std::isfinite(ssr) ? ssr : INFINITY, si, fi, li, v});
+        }
+        if (shape.zeros == 0) break;
+      }
+    }
+  }
+  std::stable_sort(candidates.begin(), candidates.end(), [](const Candidate& a, const Candidate& b) { return a.ssr < b.ssr; });
+  const Candidate& best = candidates.front();
+  // The best candidate of each other scale, zero placement and delay (first in the sorted list).
+  std::vector<const Candidate*> chosen{&best};
+  const auto add_best_where = [&](auto differs) {
+    for (const Candidate& c : candidates)
+      if (differs(c)) {
+        if (std::find(chosen.begin(), chosen.end(), &c) == chosen.end()) {
+          chosen.push_back(&c);
+          alternatives.push_back(c.v);
+        }
+        return;
+      }
+  };
+  for (int si = 0; si < 4; ++si)
+    if (si != best.scale) add_best_where([&](const Candidate& c) { return c.scale == si; });
+  if (shape.zeros > 0)
+    for (int fi = 0; fi < 4; ++fi)
+      if (fi != best.f) add_best_where([&](const Candidate& c) { return c.f == fi; });
+  if (g.L > 0.0)
+    for (int li = 0; li < 3; ++li)
+      if (li != best.delay) add_best_where([&](const Candidate& c) { return c.delay == li; });
+  return best.v;
+}
+
+}  // namespace
+
 // Each kind from a first-order-plus-delay guess (k, T, L):
 //   second-order-delay: T1 = 0.7·T, T2 = 0.3·T, L (the lags' sum kept);
 //   underdamped-delay: on a step with overshoot, ζ from the overshoot and ωn from the peak time
 //     (second_order.hpp), L from the guess; otherwise ζ = 0.8, ωn = 2/T;
 //   integrator-delay: on a step, a line through the last 30 % (slope k·Δu, its crossing of the
 //     operating point at L + T after the step, split evenly); otherwise ARX on the rate;
-//   poles-zeros: time constants T·w_i with w halving and summing to 1, zeros at rates 10·(j+1)/T.
+//   poles-zeros: a grid of candidates around the guess, the best few solved (poles_zeros_starts).
 StartValues start_values(const PreparedData& d, const ModelShape& shape) {
   StartValues sv;
   const double h = d.median_dt;
@@ -230,46 +303,7 @@ StartValues start_values(const PreparedData& d, const ModelShape& shape) {
       break;
     }
     case ModelKind::poles_zeros: {
-      // Candidates: time constants T·w_i (w halving or all equal, summing to 1) and zero rates
-      // f·(j + 1)/T for f in {0.3, 1, 3, 10}; the one whose exact response (k and the offset
-      // refitted linearly) has the smallest sum of squares. A single guess sent a lead (a zero
-      // slower than a pole) to a local minimum with the zero and a pole running off together.
-      // With zeros, the best candidates of the other zero placements are solved too (estimate.cpp).
-      ResponseSimulator sim(d.record.t, d.du);
-      std::vector<double> s;
-      struct Candidate {
-        double ssr;
-        double f;
-        std::vector<double> v;
-      };
-      std::vector<Candidate> candidates;
-      for (int spread = 0; spread < 2; ++spread) {
-        for (double f : {0.3, 1.0, 3.0, 10.0}) {
-          std::vector<double> v{1.0};
-          double wsum = 0.0;
-          for (int i = 0; i < shape.poles; ++i) wsum += spread == 0 ? std::pow(0.5, i) : 1.0;
-          for (int i = 0; i < shape.poles; ++i)
-            v.push_back(1.0 / (g.T * (spread == 0 ? std::pow(0.5, i) : 1.0 + 0.1 * i) / wsum));
-          for (int j = 0; j < shape.zeros; ++j) v.push_back(f * (j + 1) / g.T);
-          v.push_back(g.L);
-          sim.simulate(realize(shape, v), s);
-          double k = g.k;
-          const double ssr = gain_fit(s, d.dy, k);
-          v[0] = std::isfinite(k) && k != 0.0 ? k : g.k;
-          candidates.push_back({std::isfinite(ssr) ? ssr : INFINITY, f, v});
-          if (shape.zeros == 0) break;
-        }
-      }
-      std::stable_sort(candidates.begin(), candidates.end(), [](const Candidate& a, const Candidate& b) { return a.ssr < b.ssr; });
-      sv.values = candidates.front().v;
-      for (double f : {0.3, 3.0}) {
-        if (shape.zeros == 0 || f == candidates.front().f) continue;
-        for (const Candidate& cand : candidates)
-          if (cand.f == f) {
-            sv.alternatives.push_back(cand.v);
-            break;
-          }
-      }
+      sv.values = poles_zeros_starts(d, shape, g, sv.alternatives);
       break;
     }
   }

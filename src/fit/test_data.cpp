@@ -87,6 +87,31 @@ double median_of(std::vector<double> v) {
 
 }  // namespace
 
+namespace {
+
+// One change: a step. Several steps: at most 10 changes, each level between two changes held
+// for at least 10 samples and at least 0.7× the mean of those holds (a test of a few steps holds
+// each about equally long). Anything else — a pseudo-random binary sequence, whose runs range
+// from one bit to many (half of a maximal-length sequence's runs are one bit long, the mean about
+// two), or an arbitrary signal — is "other".
+Excitation classify_excitation(const std::vector<double>& t, const std::vector<double>& u, std::size_t changes) {
+  if (changes == 1) return Excitation::step;
+  if (changes > 10) return Excitation::other;
+  std::vector<std::size_t> at;
+  for (std::size_t k = 1; k < u.size(); ++k)
+    if (u[k] != u[k - 1]) at.push_back(k);
+  double shortest = INFINITY, sum = 0.0;
+  for (std::size_t i = 1; i < at.size(); ++i) {
+    if (at[i] - at[i - 1] < 10) return Excitation::other;
+    const double hold = t[at[i]] - t[at[i - 1]];
+    shortest = std::min(shortest, hold);
+    sum += hold;
+  }
+  return shortest >= 0.7 * sum / double(at.size() - 1) ? Excitation::steps : Excitation::other;
+}
+
+}  // namespace
+
 std::string_view excitation_name(Excitation e) {
   switch (e) {
     case Excitation::step: return "step";
@@ -247,13 +272,10 @@ PreparedData prepare_test_data(TestRecord record, std::optional<double> u0, std:
   d.u0_given = u0.has_value();
   d.y0_given = y0.has_value();
 
-  // One change: a step; few changes, each level held: steps; else anything else (a sequence).
   std::vector<double> dts(n - 1);
   for (std::size_t k = 1; k < n; ++k) dts[k - 1] = record.t[k] - record.t[k - 1];
   d.median_dt = median_of(dts);
-  if (d.input_changes == 1) d.excitation = Excitation::step;
-  else if (d.input_changes * 10 <= n) d.excitation = Excitation::steps;
-  else d.excitation = Excitation::other;
+  d.excitation = classify_excitation(record.t, u, d.input_changes);
 
   // Noise scale from second differences (a smooth response contributes little to them):
   // σ ≈ 1.4826·MAD(Δ²y)/√6 (common practice: MAD scaled to σ under Gaussian noise).

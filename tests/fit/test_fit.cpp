@@ -261,3 +261,67 @@ TEST_CASE("the Huber loss keeps outliers from pulling the fit", "[fit]") {
   CHECK_THAT(huber.values[1], WithinRel(4.0, 2e-2));
   CHECK_THAT(huber.values[2], WithinRel(1.3, 3e-2));
 }
+
+TEST_CASE("a parameter is unidentified when its 2-sigma interval reaches zero; the delay is exempt", "[fit]") {
+  // The rule (README "Uncertainty and ranking"): 2σ ≥ |value| names the parameter.
+  const std::vector<std::string> names{"k", "T1", "T2", "L"};
+  CHECK_FALSE(unidentified_parameter(names, {1.2, 10.0, 3.0, 0.5}, {0.01, 1.0, 1.4, 0.1}).has_value());  // T2: 2.8 < 3
+  const auto t2 = unidentified_parameter(names, {1.2, 10.0, 3.0, 0.5}, {0.01, 1.0, 1.5, 0.1});           // T2: 3.0 ≥ 3
+  REQUIRE(t2.has_value());
+  CHECK_THAT(*t2, Contains("T2 = 3") && Contains("reaches zero"));
+  const auto k = unidentified_parameter(names, {-0.4, 10.0, 3.0, 0.5}, {0.25, 1.0, 0.1, 0.1});           // k: 0.5 ≥ 0.4
+  REQUIRE(k.has_value());
+  CHECK_THAT(*k, Contains("k = -0.4"));
+  CHECK_FALSE(unidentified_parameter(names, {1.2, 10.0, 3.0, 0.05}, {0.01, 1.0, 0.1, 0.2}).has_value());  // L exempt
+}
+
+TEST_CASE("a loosely known lag is identified; a lag the data do not hold is not", "[fit]") {
+  // Second order plus delay k = 0.9, T1 = 15, T2 = 4, L = 2.6, one step of 10, 400 samples at
+  // 0.25, noise σ = 0.35 (about 4 % of the response): T2 comes out with 2σ between a quarter of it
+  // and all of it — wider in total than T2 (4σ > T2) but well away from zero: ok, with its interval.
+  const auto t = grid(0.25, 400);
+  const auto sopdt = [](double s) { return sod_step(s, 0.9, 15.0, 4.0); };
+  const PreparedData noisy = prepare_test_data(make_record(t, {{5.0, 45.0}}, 35.0, 48.0, 2.6, sopdt, 0.35, 7), std::nullopt,
+                                               std::nullopt);
+  const ModelFit loose = fit_model(noisy, {ModelKind::second_order_delay, 0, 0}, FitOptions{});
+  INFO(loose.message);
+  REQUIRE(loose.have_covariance);
+  const double rel = 2.0 * loose.std_errors[2] / loose.values[2];
+  INFO("T2 = " << loose.values[2] << " ± " << 2.0 * loose.std_errors[2] << " (2σ)");
+  REQUIRE(rel > 0.25);
+  REQUIRE(rel < 1.0);
+  CHECK(loose.status == FitStatus::ok);
+  // First order plus delay data (k = 1.7, T = 4, L = 1.3) fitted with two lags: the second one
+  // has nothing to hold it (it shrinks towards 0, its interval reaching zero, or the Jacobian
+  // loses rank): not identifiable, and the message names T2.
+  const auto fopdt = [](double s) { return fod_step(s, 1.7, 4.0); };
+  const PreparedData first = prepare_test_data(make_record(grid(0.05, 1600), {{5.0, 3.0}}, 1.0, 20.0, 1.3, fopdt, 0.02, 5),
+                                               std::nullopt, std::nullopt);
+  const ModelFit extra = fit_model(first, {ModelKind::second_order_delay, 0, 0}, FitOptions{});
+  INFO(extra.message << " values " << extra.values[1] << ", " << extra.values[2]);
+  CHECK(extra.status == FitStatus::not_identifiable);
+}
+
+TEST_CASE("an underdamped fit at zeta >= 1 ties with the two lags and ranks in the order asked", "[fit]") {
+  // Overdamped data (two real lags): k·wn²/(s² + 2ζwn s + wn²) with ζ ≥ 1 is the same response
+  // as k/((T1 s + 1)(T2 s + 1)) with T1,2 = 1/(wn(ζ ∓ √(ζ² − 1))) (the quadratic's real roots).
+  const auto t = grid(0.25, 400);
+  const PreparedData d = prepare_test_data(
+      make_record(t, {{5.0, 45.0}}, 35.0, 48.0, 2.6, [](double s) { return sod_step(s, 0.9, 15.0, 4.0); }, 0.02, 3),
+      std::nullopt, std::nullopt);
+  const ModelShape two{ModelKind::second_order_delay, 0, 0}, under{ModelKind::underdamped_delay, 0, 0};
+  for (const bool two_first : {true, false}) {
+    const FitResult r = fit_models(d, two_first ? std::vector<ModelShape>{two, under} : std::vector<ModelShape>{under, two},
+                                   FitOptions{});
+    const ModelFit& lags = r.models[two_first ? 0 : 1];
+    const ModelFit& pair = r.models[two_first ? 1 : 0];
+    REQUIRE(lags.status == FitStatus::ok);
+    REQUIRE(pair.status == FitStatus::ok);
+    REQUIRE(pair.values[2] > 1.0);
+    const double root = std::sqrt(pair.values[2] * pair.values[2] - 1.0);
+    CHECK_THAT(1.0 / (pair.values[1] * (pair.values[2] - root)), WithinRel(lags.values[1], 1e-5));
+    CHECK_THAT(1.0 / (pair.values[1] * (pair.values[2] + root)), WithinRel(lags.values[2], 1e-5));
+    CHECK_THAT(pair.message, Contains("no oscillation"));
+    CHECK(r.best == std::optional<std::size_t>(0));  // the first asked
+  }
+}

@@ -57,7 +57,7 @@ StartValues start_values(const PreparedData& d, const ModelShape& shape);
 struct ModelFit {
   ModelShape shape;
   FitStatus status = FitStatus::not_converged;
-  std::string message;  // why, when status is not ok
+  std::string message;  // why, when status is not ok; a note beside an ok fit (underdamped-delay at ζ ≥ 1)
   std::vector<std::string> names;
   std::vector<double> values, start, std_errors;
   std::string start_method;
@@ -82,6 +82,14 @@ struct FitResult {
   std::vector<ModelFit> models;
   std::optional<std::size_t> best;  // index into models
 };
+
+/// The identifiability rule on a fit with a covariance: the first parameter whose ±2σ interval
+/// reaches zero or past it (2σ ≥ |value|: the data cannot tell whether that gain, lag, rate or
+/// damping is there at all, and the interval could not become a plant range) — the message
+/// naming it — or nothing. The delay L is exempt: L = 0 is a plant too, and its range is clipped
+/// at 0 (plant_form).
+std::optional<std::string> unidentified_parameter(const std::vector<std::string>& names, const std::vector<double>& values,
+                                                  const std::vector<double>& std_errors);
 
 /// Fits one kind. Never throws for a fit that fails: the status and message say so.
 ModelFit fit_model(const PreparedData& d, const ModelShape& shape, const FitOptions& options);
