@@ -404,23 +404,31 @@ def realize(numer, den):
     return A, B[:, 0], C[0, :], float(D[0, 0])
 
 
+def controller_form(cnum, cden, crnum, crden):
+    """The two-input controller u = C_r·r − C·y as written in result.json (numerator/denominator and
+    reference_numerator/denominator, one shared denominator) in observable form: the controllable
+    form of C (realize) transposed, A = Ac^T, output row = Bc^T, one input column per input, Cc^T
+    for y and Ccr^T for r. Returns (Ao, Co, By, Br, Dy, Dr):
+        ẋc = Ao·xc + Br·r − By·y,   u = Co·xc + Dr·r − Dy·y."""
+    cden = strip(cden)
+    crden = strip(crden)
+    cnum = strip(cnum) / cden[0]
+    crnum = strip(crnum) / crden[0]
+    crden = crden / crden[0]
+    cden = cden / cden[0]
+    if len(cden) != len(crden) or np.max(np.abs(cden - crden)) > 1e-12 * np.max(np.abs(cden)):
+        raise ValueError("reference path and controller do not share a denominator (README says they do)")
+    Ac, Bc, Cc, Dy = realize(cnum, cden)
+    _, _, Ccr, Dr = realize(crnum, cden)
+    return Ac.T, Bc, Cc, Ccr, Dy, Dr
+
+
 class LinearLoop:
     """u = C_r·r − C·y (+ nothing), y = G·(u + d): states [plant | controller], balanced."""
 
     def __init__(self, gnum, gden, cnum, cden, crnum, crden):
         Ap, Bp, Cp, Dp = realize(gnum, gden)
-        cden = strip(cden)
-        crden = strip(crden)
-        cnum = strip(cnum) / cden[0]
-        crnum = strip(crnum) / crden[0]
-        crden = crden / crden[0]
-        cden = cden / cden[0]
-        if len(cden) != len(crden) or np.max(np.abs(cden - crden)) > 1e-12 * np.max(np.abs(cden)):
-            raise ValueError("reference path and controller do not share a denominator (README says they do)")
-        Ac, Bc, Cc, Dy = realize(cnum, cden)
-        _, _, Ccr, Dr = realize(crnum, cden)
-        # Observable form: A = Ac^T, output row = Bc^T, input columns = Cc^T (y), Ccr^T (r).
-        Ao, Co, By, Br = Ac.T, Bc, Cc, Ccr
+        Ao, Co, By, Br, Dy, Dr = controller_form(cnum, cden, crnum, crden)
         npl, nc = len(Bp), len(Co)
         k = 1.0 / (1.0 + Dy * Dp)
         n = npl + nc
