@@ -115,6 +115,17 @@ ceres::Solver::Options solver_options() {
   return so;
 }
 
+// An ok fit's parameters whose ±2σ interval is wider than the value itself (4σ > |value|) but clear
+// of zero: named in the message as poorly determined (the delay too), or "".
+std::string poorly_determined(const std::vector<std::string>& names, const std::vector<double>& values,
+                              const std::vector<double>& std_errors) {
+  std::string wide;
+  for (std::size_t i = 0; i < names.size(); ++i)
+    if (4.0 * std_errors[i] > std::abs(values[i]))
+      wide += fmt::format("{}{} = {:.4g} ± {:.4g}", wide.empty() ? "" : ", ", names[i], values[i], 2.0 * std_errors[i]);
+  return wide.empty() ? "" : "poorly determined by these data (a ±2σ interval wider than the value itself): " + wide;
+}
+
 // The σ²-scaled covariance at the estimate (ceres::Covariance, DENSE_SVD; a rank-deficient
 // Jacobian is refused, not pseudo-inverted), the correlations, and the identifiability verdict:
 // status ok, or not_identifiable (rank deficiency, or unidentified_parameter).
@@ -151,6 +162,8 @@ void covariance_and_identifiability(ceres::Problem& problem, std::vector<double>
     if (auto why = unidentified_parameter(fit.names, theta, fit.std_errors)) {
       fit.status = FitStatus::not_identifiable;
       fit.message = std::move(*why);
+    } else {
+      fit.message = poorly_determined(fit.names, theta, fit.std_errors);
     }
   }
 }
@@ -367,7 +380,8 @@ ModelFit fit_model(const PreparedData& d, const ModelShape& shape, const FitOpti
   if (shape.kind == ModelKind::underdamped_delay && fit.status == FitStatus::ok && theta[2] >= 1.0) {
     const double root = std::sqrt(theta[2] * theta[2] - 1.0);
     fit.message = fmt::format("zeta = {:.4g} ≥ 1: no oscillation — the response of second-order-delay with T1 = {:.6g}, "
-                              "T2 = {:.6g}", theta[2], 1.0 / (theta[1] * (theta[2] - root)), 1.0 / (theta[1] * (theta[2] + root)));
+                              "T2 = {:.6g}{}", theta[2], 1.0 / (theta[1] * (theta[2] - root)),
+                              1.0 / (theta[1] * (theta[2] + root)), fit.message.empty() ? "" : "; " + fit.message);
   }
   fit.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
   return fit;

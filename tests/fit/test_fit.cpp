@@ -277,20 +277,22 @@ TEST_CASE("a parameter is unidentified when its 2-sigma interval reaches zero; t
 
 TEST_CASE("a loosely known lag is identified; a lag the data do not hold is not", "[fit]") {
   // Second order plus delay k = 0.9, T1 = 15, T2 = 4, L = 2.6, one step of 10, 400 samples at
-  // 0.25, noise σ = 0.35 (about 4 % of the response): T2 comes out with 2σ between a quarter of it
-  // and all of it — wider in total than T2 (4σ > T2) but well away from zero: ok, with its interval.
+  // 0.25, noise σ = 0.45 (5 % of the response): T2 comes out with 2σ between half of it
+  // and all of it — wider in total than T2 (4σ > T2) but clear of zero: ok, with its interval,
+  // and named as poorly determined.
   const auto t = grid(0.25, 400);
   const auto sopdt = [](double s) { return sod_step(s, 0.9, 15.0, 4.0); };
-  const PreparedData noisy = prepare_test_data(make_record(t, {{5.0, 45.0}}, 35.0, 48.0, 2.6, sopdt, 0.35, 7), std::nullopt,
+  const PreparedData noisy = prepare_test_data(make_record(t, {{5.0, 45.0}}, 35.0, 48.0, 2.6, sopdt, 0.45, 7), std::nullopt,
                                                std::nullopt);
   const ModelFit loose = fit_model(noisy, {ModelKind::second_order_delay, 0, 0}, FitOptions{});
   INFO(loose.message);
   REQUIRE(loose.have_covariance);
   const double rel = 2.0 * loose.std_errors[2] / loose.values[2];
   INFO("T2 = " << loose.values[2] << " ± " << 2.0 * loose.std_errors[2] << " (2σ)");
-  REQUIRE(rel > 0.25);
+  REQUIRE(rel > 0.5);  // the interval's width 4σ exceeds T2
   REQUIRE(rel < 1.0);
   CHECK(loose.status == FitStatus::ok);
+  CHECK_THAT(loose.message, Contains("poorly determined") && Contains("T2 = "));
   // First order plus delay data (k = 1.7, T = 4, L = 1.3) fitted with two lags: the second one
   // has nothing to hold it (it shrinks towards 0, its interval reaching zero, or the Jacobian
   // loses rank): not identifiable, and the message names T2.

@@ -57,7 +57,7 @@ StartValues start_values(const PreparedData& d, const ModelShape& shape);
 struct ModelFit {
   ModelShape shape;
   FitStatus status = FitStatus::not_converged;
-  std::string message;  // why, when status is not ok; a note beside an ok fit (underdamped-delay at ζ ≥ 1)
+  std::string message;  // why, when status is not ok; beside an ok fit a note (poorly determined parameters, ζ ≥ 1)
   std::vector<std::string> names;
   std::vector<double> values, start, std_errors;
   std::string start_method;
