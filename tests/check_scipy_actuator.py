@@ -38,7 +38,7 @@ from scipy import signal
 from scipy.integrate import solve_ivp
 
 from check_scipy_nonlinear import pid_gains, probe_case
-from reference_common import TerminalEvents, Tally, sample_segments
+from reference_common import TerminalEvents, Tally, sample_segments, solve_piece
 
 TOL_TRACE = 1e-4
 TOL_FRACTION = 1e-5
@@ -187,10 +187,8 @@ def reference(case, amplitude, samples, noise):
             if stuck:  # a guard grazing zero at the start: step off it without that guard
                 evs = [e for i, e in enumerate(evs) if i != stuck_index]
             t_stop = min(t_end, t + 1e-7 * horizon) if stuck else t_end
-            sol = solve_ivp(rhs(mode, d, nz), (t, t_stop), x, method="Radau", rtol=RTOL, atol=ATOL,
-                            events=evs, dense_output=True)
-            if not sol.success:
-                raise RuntimeError(f"solve_ivp failed: {sol.message}")
+            sol = solve_piece(rhs(mode, d, nz), (t, t_stop), x, method="Radau", rtol=RTOL, atol=ATOL,
+                              events=evs, dense_output=True)
             t1 = sol.t[-1]
             segments.append((t, t1, sol.sol, mode, nz))
             if mode[0] != 0:

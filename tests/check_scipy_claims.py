@@ -125,6 +125,7 @@ from scipy import integrate, interpolate, linalg, optimize, signal
 
 sys.path.insert(0, str(pathlib.Path(__file__).resolve().parent))
 import check_scipy_load as load_reference  # noqa: E402  (the exact load response and peaks, SciPy)
+from reference_common import solve_piece  # noqa: E402  (one solve_ivp piece, the end-rounding refusal handled)
 
 # ---- tolerances and resolution ------------------------------------------------------------------
 
@@ -1285,10 +1286,8 @@ class ContinuousHybrid:
 
             fun, jac = self.rhs(mode, ctx, z, t)
             kw = {"jac": jac} if (method == "Radau" and jac is not None) else {}
-            sol = integrate.solve_ivp(fun, (t, stop), z, method=method, rtol=RTOL, atol=ATOL * max(1.0, abs(L.r)),
-                                      events=guards, dense_output=True, **kw)
-            if not sol.success:
-                raise RuntimeError(f"solve_ivp failed at t = {t:.6g}: {sol.message}")
+            sol = solve_piece(fun, (t, stop), z, method=method, rtol=RTOL, atol=ATOL * max(1.0, abs(L.r)),
+                              events=guards, dense_output=True, **kw)
             t1 = float(sol.t[-1])
             z1 = sol.y[:, -1].copy()
             if t1 > t:
@@ -1707,9 +1706,7 @@ class SampledHybrid:
                 x = X[-1].copy()
             else:
                 fun = lambda t_, z_, t0=t0, up0=up0, sp=sp, d=d: self.expr.f(z_.reshape(-1, 1), np.array([up0 + sp * (t_ - t0) + d]))[:, 0]
-                sol = integrate.solve_ivp(fun, (t0, t1), x, method="DOP853", rtol=RTOL, atol=ATOL, dense_output=True)
-                if not sol.success:
-                    raise RuntimeError(f"solve_ivp failed: {sol.message}")
+                sol = solve_piece(fun, (t0, t1), x, method="DOP853", rtol=RTOL, atol=ATOL, dense_output=True)
                 X = sol.sol(tq)
                 w = up0 + sp * (tq - t0) + d
                 dX = self.expr.f(X, w)

@@ -87,7 +87,7 @@ import numpy as np
 from scipy import signal
 from scipy.integrate import solve_ivp
 
-from reference_common import TerminalEvents, Tally, sample_segments
+from reference_common import TerminalEvents, Tally, sample_segments, solve_piece
 
 TOL_TRACE = 1e-4
 TOL_OVERSHOOT_PTS = 1e-3
@@ -221,10 +221,8 @@ def reference(case, amplitude, samples):
     for t_end, d in pieces:
         while t < t_end:
             x, mode = choose(x, d, fired)
-            sol = solve_ivp(rhs(mode, d), (t, t_end), x, method="Radau", rtol=RTOL, atol=ATOL,
-                            events=events(mode, d), dense_output=True)
-            if not sol.success:
-                raise RuntimeError(f"solve_ivp failed: {sol.message}")
+            sol = solve_piece(rhs(mode, d), (t, t_end), x, method="Radau", rtol=RTOL, atol=ATOL,
+                              events=events(mode, d), dense_output=True)
             t1 = sol.t[-1]
             segments.append((t, t1, sol.sol, mode))
             if mode[0] != 0:

@@ -23,7 +23,8 @@ TEST_CASE("the evaluator's filtered loop is the one measure_design builds", "[ev
                                    "[requirements]\novershoot_max_pct = 5.0\n[search]\nmargin_pct = 0\n",
                                "specs/unit.toml");
   const Problem problem = make_problem(spec, characterize(spec));
-  CandidateEvaluator evaluator(problem, search_options(spec));
+  const SearchOptions options = search_options(spec);
+  CandidateEvaluator evaluator(problem, options);
   const std::vector<double> x{12.0, 0.5, 1.5};  // Kp, ω0, ζc: a stable PID on this plant
   const CandidateOutcome out = evaluator.evaluate(problem, x.data());
   REQUIRE(out.stable);

@@ -90,7 +90,8 @@ TEST_CASE("the cost evaluation with a notch and a measurement filter allocates n
                                      filters + "[requirements]\novershoot_max_pct = 5.0\nsettling_time_max = 1.0\n",
                                  "specs/unit.toml");
     const Problem problem = make_problem(spec, characterize(spec));
-    CandidateEvaluator evaluator(problem, search_options(spec));
+    const SearchOptions options = search_options(spec);
+    CandidateEvaluator evaluator(problem, options);
     const Counted counted = allocations_after_warmup(problem, evaluator, 3);
     INFO(filters << ": " << counted.note());
     CHECK(counted.allocations == 0);

@@ -37,6 +37,10 @@ class CandidateEvaluator {
   /// and reference peak time every evaluation is judged against. Both arguments must outlive
   /// the evaluator.
   CandidateEvaluator(const Problem& nominal, const SearchOptions& options);
+  // Temporaries would dangle (the evaluator keeps references): refused at compile time.
+  CandidateEvaluator(Problem&&, const SearchOptions&) = delete;
+  CandidateEvaluator(const Problem&, SearchOptions&&) = delete;
+  CandidateEvaluator(Problem&&, SearchOptions&&) = delete;
 
   /// Evaluates natural-unit series parameters on `plant`'s linear loop (plant.plant,
   /// plant.plant_realization, plant.sampled): `plant` is the nominal problem or a copy of it with
