@@ -269,6 +269,8 @@ void print_design(const DesignRun& run, const ReportOutcome& outcome) {
                  m.violation >= 1e-3 ? fmt::format("{:.1f}", m.violation * 100.0)
                                      : fmt::format("{:.2g}", m.violation * 100.0));
     fmt::print("  {}\n", run.infeasibility->nearest_text);
+    if (const std::string advice = time_cap_advice(s, run.problem.spec.search.max_time_s); !advice.empty())
+      fmt::print("  {}\n", advice);
   } else {
     if (const RobustAssessment* a = run.robust ? run.robust->find(DesignRole::optimized) : nullptr)
       fmt::print("\nMET: the optimized design meets every requirement on the nominal plant's {}; {}.\n", loop, a->claim);

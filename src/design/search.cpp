@@ -300,6 +300,7 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
     } catch (const std::exception&) {
       // A stopped or failed global stage still leaves its best point in `cost`.
     }
+    if (global_result == nlopt::MAXTIME_REACHED) summary.time_capped = true;
     if (!cost.best_x.empty() && (starts.empty() || cost.best_cost < before)) starts.push_back(cost.best_x);
   }
   summary.global_evaluations = cost.evaluations;
@@ -324,7 +325,10 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
   nlopt::result local_result = nlopt::FAILURE;
   for (int run = 0; run < runs; ++run) {
     const double elapsed = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-    if (elapsed >= options.max_time_s) break;
+    if (elapsed >= options.max_time_s) {
+      summary.time_capped = true;
+      break;
+    }
     local.set_maxtime(options.max_time_s - elapsed);
     local.set_maxeval(std::max(1, local_budget / runs));
     std::vector<double> lx = run < static_cast<int>(starts.size()) ? starts[static_cast<std::size_t>(run)] : cost.best_x;
@@ -333,6 +337,7 @@ SearchResult optimize(const Problem& problem, const std::vector<double>& seed_pa
     } catch (const std::exception& e) {
       summary.stop_reason = std::string("local stage stopped: ") + e.what();
     }
+    if (local_result == nlopt::MAXTIME_REACHED) summary.time_capped = true;
   }
   summary.local_evaluations = cost.evaluations - summary.global_evaluations;
   summary.evaluations = cost.evaluations;
@@ -438,15 +443,19 @@ SearchResult refine_on_nonlinear_loop(const Problem& problem, const SearchResult
   const int runs = static_cast<int>(starts) + 1;
   const int per_run = std::max(1, (stage.budget - screened) / std::max(1, runs));
   double value = 0.0;
+  bool capped = false;
   for (int run = 0; run < runs && stage.evaluations < stage.budget; ++run) {
     const double left = time_cap - elapsed();
-    if (left <= 0.0) break;
+    if (left <= 0.0) {
+      capped = true;
+      break;
+    }
     local.set_maxtime(left);
     local.set_maxeval(std::min(per_run, stage.budget - stage.evaluations));
     std::vector<double> lx = run < static_cast<int>(starts) ? ranked[static_cast<std::size_t>(run)].second : stage.best_x;
     if (lx.empty()) break;
     try {
-      local.optimize(lx, value);
+      if (local.optimize(lx, value) == nlopt::MAXTIME_REACHED) capped = true;
     } catch (const std::exception&) {
       // the best point so far stays in `stage`
     }
@@ -454,6 +463,7 @@ SearchResult refine_on_nonlinear_loop(const Problem& problem, const SearchResult
 
   SearchResult out = linear;
   SearchSummary& summary = out.summary;
+  summary.time_capped = linear.summary.time_capped || capped;
   summary.nonlinear_evaluations = stage.evaluations;
   summary.evaluations = linear.summary.evaluations + stage.evaluations;
   summary.wall_time_s = linear.summary.wall_time_s + elapsed();
@@ -500,6 +510,12 @@ SearchOptions search_options(const Spec& spec) {
   // The nonlinear stage gets a tenth of the linear budget, between 40 and 400 evaluations.
   o.nonlinear_evaluations = std::clamp(spec.search.max_evaluations / 10, 40, 400);
   return o;
+}
+
+std::string time_cap_advice(const SearchSummary& s, double max_time_s) {
+  if (!s.time_capped) return "";
+  return fmt::format("The search stopped on its wall-time cap (search.max_time = {:g} s) before its evaluation budget: a "
+                     "longer search may find a design that meets; raise search.max_time.", max_time_s);
 }
 
 }  // namespace specloop

@@ -324,7 +324,8 @@ json search_json(const SearchSummary& s) {
           {"feasible", s.feasible},
           {"best_objective", number_json(s.best_objective)},
           {"best_violation", number_json(s.best_violation)},
-          {"stop_reason", s.stop_reason}};
+          {"stop_reason", s.stop_reason},
+          {"time_capped", s.time_capped}};
 }
 
 json result_json(const DesignRun& run) {

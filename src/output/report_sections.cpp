@@ -46,6 +46,8 @@ std::string verdict_line(const DesignRun& run) {
   if (run.infeasibility) {
     line = fmt::format("NOT MET: no design meets every requirement on the {}; binding: {}.", loop, run.infeasibility->binding);
     if (run.judged_on_nonlinear && run.met_on_linear) line += " (The linear loop alone passes: a linear-only pass.)";
+    if (const std::string advice = time_cap_advice(run.search, run.problem.spec.search.max_time_s); !advice.empty())
+      line += " " + advice;
   } else {
     line = fmt::format("MET: the optimized design meets every requirement on the {}.", loop);
   }

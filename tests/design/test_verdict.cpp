@@ -450,3 +450,20 @@ TEST_CASE("a response that never settles on the described loop is said, even wit
   CHECK(std::any_of(best->warnings.begin(), best->warnings.end(),
                     [](const std::string& w) { return w.find("does not settle") != std::string::npos; }));
 }
+
+TEST_CASE("a NOT MET reached on the wall-time cap says the search was cut short", "[verdict]") {
+  // An overshoot of at most 1 % with a settling time of 0.05 s on a triple lag at 1 rad/s: no PI
+  // meets it, and a 1 ms cap stops the global stage long before its budget.
+  const std::string plant = "[plant]\npoles = [-1.0, -1.0, -1.0]\ngain = 1.0\n[controller]\nstructure = \"pi\"\n"
+                            "[requirements]\novershoot_max_pct = 1.0\nsettling_time_max = 0.05\n";
+  const DesignRun capped = run_design(parse_spec(plant + "[search]\nmax_time = 0.001\n", "specs/unit.toml"));
+  REQUIRE(capped.infeasibility);
+  CHECK(capped.search.time_capped);
+  CHECK_THAT(time_cap_advice(capped.search, 0.001), Catch::Matchers::Contains("raise search.max_time"));
+  // With a cap far above the budget's need (also in the ~30× slower sanitizer build) the budget
+  // ends the search: no advice.
+  const DesignRun full = run_design(parse_spec(plant + "[search]\nmax_time = 3600\n", "specs/unit.toml"));
+  REQUIRE(full.infeasibility);
+  CHECK_FALSE(full.search.time_capped);
+  CHECK(time_cap_advice(full.search, 3600.0).empty());
+}

@@ -71,6 +71,7 @@ struct SearchSummary {
   double best_objective = 0.0;
   double best_violation = 0.0;        // Σ normalized violations of the best point (0 if feasible)
   std::string stop_reason;            // in words, with numbers
+  bool time_capped = false;           // a stage stopped on search.max_time before its evaluation budget
 };
 
 /// A feasible point the linear stages visited, kept as a start for the nonlinear stage.
@@ -105,5 +106,9 @@ SearchResult refine_on_nonlinear_loop(const Problem& problem, const SearchResult
 
 /// SearchOptions from the spec's [search] table.
 SearchOptions search_options(const Spec& spec);
+
+/// What a NOT MET verdict adds when a search stage stopped on search.max_time before its evaluation
+/// budget ("" otherwise): the "no design meets" rests on a shortened search.
+std::string time_cap_advice(const SearchSummary& s, double max_time_s);
 
 }  // namespace specloop
