@@ -4,7 +4,7 @@ saturating loop, with the anti-windup on the PID's integrator (used by check_sci
 The loop, written here from its equations (independently of specloop's realization):
 
   plant     x' = A x + B u, y = C x                  (scipy.signal.tf2ss of the plant)
-  F         y_f = F(s)·y, F = 1/(Tf s + 1)           (tf2ss of F)
+  F         y_f = F(s)·y, F = 1/(Tf s + 1) or 1/((Tf s)²/2 + Tf s + 1)   (tf2ss of F)
   PID       v = Kp (b r − y_f) + I + Kd/Td_f (c r − y_f − D),  D' = (c r − y_f − D)/Td_f
             (the filtered derivative Kd s/(Td_f s + 1) = Kd/Td_f (1 − 1/(Td_f s + 1)), formula)
   N         u_c = N(s)·v, N = (s² + 2 ζz ωn s + ωn²)/(s² + 2 ζp ωn s + ωn²)   (tf2ss: D_N = 1)
@@ -36,6 +36,11 @@ from scipy import signal
 from reference_common import TerminalEvents, sample_segments, solve_piece
 
 
+def filter_den(case):
+    T = case["filter_time"]
+    return [T * T / 2.0, T, 1.0] if case.get("filter_order", 1) == 2 else [T, 1.0]
+
+
 def notch_tf(freq, depth, width):
     zp, zz = width, depth * width
     return [1.0, 2.0 * zz * freq, freq * freq], [1.0, 2.0 * zp * freq, freq * freq]
@@ -46,7 +51,7 @@ def continuous_reference(case, gains, r, samples, rtol=1e-10, atol=1e-12):
     Ap, Bp, Cp, Dp = signal.tf2ss(*case["plant"])
     assert np.allclose(Dp, 0.0)
     Bp, Cp = Bp[:, 0], Cp[0, :]
-    Af, Bf, Cf, Df = signal.tf2ss([1.0], [case["filter_time"], 1.0])
+    Af, Bf, Cf, Df = signal.tf2ss([1.0], filter_den(case))
     assert np.allclose(Df, 0.0)
     Bf, Cf = Bf[:, 0], Cf[0, :]
     An, Bn, Cn, Dn = signal.tf2ss(*notch_tf(*case["notch"]))
@@ -202,7 +207,7 @@ def sampled_reference(case, gains, r, ts, steps):
     law = case["law"]
     b, cw = case.get("b", 1.0), case.get("c", 1.0)
     tt = case.get("tracking_time", math.sqrt((kp / ki) * (kd / kp)))
-    filt = bilinear([1.0], [case["filter_time"], 1.0], ts)
+    filt = bilinear([1.0], filter_den(case), ts)
     deriv = bilinear([kd, 0.0], [tfd, 1.0], ts)
     freq = case["notch"][0]
     notch = bilinear(*notch_tf(*case["notch"]), 2.0 * math.tan(freq * ts / 2.0) / freq)
@@ -243,6 +248,7 @@ RESONANT = ([360.0], list(np.polymul([1.0, 3.5, 2.5], [1.0, 1.2, 144.0])))
 FILTERED_CASES = [
     {"name": "filtered PID (notch + F), back-calculation", "law": "back-calculation"},
     {"name": "filtered PID (notch + F), clamping, b 0.6 c 0", "law": "conditional-integration", "b": 0.6, "c": 0.0},
+    {"name": "filtered PID (notch + second-order F), clamping", "law": "conditional-integration", "filter_order": 2},
 ]
 TOL_TRACE = 1e-4      # as the PI cases (check_scipy_nonlinear.py): ~1e-7 expected, a wrong law 1e-3..1e-1
 TOL_SATURATED = 1e-5
@@ -253,7 +259,7 @@ def filtered_payload(case, options):
     return {"plant": {"numerator": case["plant"][0], "denominator": case["plant"][1]},
             "controller": {"structure": "pid", "series": case["series"],
                            "notch": dict(zip(("frequency", "depth", "width"), case["notch"])),
-                           "measurement_filter": {"order": 1, "time_constant": case["filter_time"]}},
+                           "measurement_filter": {"order": case.get("filter_order", 1), "time_constant": case["filter_time"]}},
             "actuator": {"min": case["limits"][0], "max": case["limits"][1]},
             "options": dict(options, anti_windup=case["law"], setpoint_weight=case.get("b", 1.0),
                             derivative_weight=case.get("c", 1.0)),
@@ -288,9 +294,9 @@ def check_filtered(tally, nlprobe, pid_gains, run_probe):
         if case["law"] == "conditional-integration":
             tally.check(name, "the integrator is held", res["integrator_held_fraction"] > 0.0,
                         f"held fraction {res['integrator_held_fraction']:.6f}")
-    for law in ("conditional-integration", "back-calculation"):
-        case = dict(base, law=law, b=0.6)
-        name = f"sampled filtered PID (notch + F), Ts 0.02, {law}"
+    for law, order in (("conditional-integration", 1), ("back-calculation", 1), ("conditional-integration", 2)):
+        case = dict(base, law=law, b=0.6, filter_order=order)
+        name = f"sampled filtered PID (notch + F of order {order}), Ts 0.02, {law}"
         ts, steps = 0.02, 501
         opts = {"relative_tolerance": 1e-11, "absolute_tolerance": 1e-13, "sample_time_s": ts,
                 "horizon_s": (steps - 1) * ts, "sample_times_s": [k * ts for k in range(steps)]}

@@ -233,7 +233,8 @@ DifferenceEquation controller_difference_equation(const Controller& controller, 
 ///
 /// Measurement noise (noise_rms > 0): values n_k = gaussian_sequence(noise_rms, noise_seed)[k],
 /// each held over [k·Tn, (k+1)·Tn), Tn = noise_period_s; the controller reads y + n (proportional,
-/// integral and derivative terms, and e for the state-space form). With a continuous controller
+/// integral and derivative terms, and e for the state-space form; through F when the controller has
+/// a measurement filter). With a continuous controller
 /// every k·Tn is a break point where the integration restarts (the noise is a staircase, so the
 /// right-hand side stays smooth within a piece); a sampled controller reads y(k·Ts) + n at its
 /// samples. The recorded output and the metrics are the noise-free plant output.
