@@ -920,9 +920,10 @@ class DescribedLoop:
     (limits, rate limit), anti-windup, delay, load step, noise, sample time."""
 
     def __init__(self, *, plant, parallel, ctrl_tf, b, c, umin, umax, rate, anti_windup, tt, r, td, dsize,
-                 noise_rms, noise_period, seed, delay, horizon, ts, de, structure):
+                 noise_rms, noise_period, seed, delay, horizon, ts, de, structure, notch=None):
         self.plant = plant          # ("linear", Ap, Bp, Cp) or ("expr", ExpressionPlant)
         self.parallel = parallel    # (kp, ki, kd, tf) or None
+        self.notch = notch          # (num, den) of N(s) after the parallel law (u_c = N·v), or None
         self.ctrl_tf = ctrl_tf      # (num, den) of C(s)
         self.b, self.c = b, c
         self.umin, self.umax, self.rate = umin, umax, rate
@@ -1035,7 +1036,14 @@ class ContinuousHybrid:
                 self.D = size
                 size += 1
             self.nc = 0
+            self.N = None
+            if loop.notch is not None:
+                # The notch after the PID as its own block (README "Filters"): u_c = N·v.
+                self.An, self.Bn, self.Cn, self.Dn = realize(*loop.notch)
+                self.N, self.nn = size, len(self.Bn)
+                size += self.nn
         else:
+            self.N = None
             Ac, Bc, Cc, Dc = realize(*loop.ctrl_tf)
             self.Ac, self.Bc, self.Cc, self.Dc = Ac, Bc, Cc, Dc
             self.c0, self.nc = size, len(Bc)
@@ -1058,15 +1066,22 @@ class ContinuousHybrid:
 
     def command(self, Z, n):
         L = self.L
-        ym = self.y(Z) + n
         if L.parallel is not None:
-            u = self.kp * (L.b * L.r - ym)
-            if self.I is not None:
-                u = u + Z[self.I]
-            if self.D is not None:
-                u = u + self.kd / self.tf * (L.c * L.r - ym - Z[self.D])
-            return u
+            v = self.pid(Z, n)
+            return v if self.N is None else self.Cn @ Z[self.N:self.N + self.nn] + self.Dn * v
+        ym = self.y(Z) + n
         return self.Cc @ Z[self.c0:self.c0 + self.nc] + self.Dc * (L.r - ym)
+
+    def pid(self, Z, n):
+        """The parallel law's output v (before a notch)."""
+        L = self.L
+        ym = self.y(Z) + n
+        u = self.kp * (L.b * L.r - ym)
+        if self.I is not None:
+            u = u + Z[self.I]
+        if self.D is not None:
+            u = u + self.kd / self.tf * (L.c * L.r - ym - Z[self.D])
+        return u
 
     def limit(self, side):
         return self.L.umax if side > 0 else self.L.umin
@@ -1098,6 +1113,9 @@ class ContinuousHybrid:
         if L.parallel is not None:
             if self.D is not None:
                 dZ[self.D] = (L.c * L.r - ym - Z[self.D]) / self.tf
+            if self.N is not None:
+                sl = slice(self.N, self.N + self.nn)
+                dZ[sl] = self.An @ Z[sl] + np.outer(self.Bn, self.pid(Z, ctx.n))
             if self.I is not None:
                 if self.clamps and mode.kind == "frozen":
                     dZ[self.I] = 0.0
@@ -1105,6 +1123,8 @@ class ContinuousHybrid:
                     held = self.kp * ydot
                     if self.D is not None:
                         held = held + self.kd / self.tf * (ydot + dZ[self.D])
+                    if self.N is not None:  # u_c' = Cn·xn' + Dn·v' = 0
+                        held = held - self.Cn @ dZ[self.N:self.N + self.nn] / self.Dn
                     dZ[self.I] = held
                 elif self.backcalc:
                     dZ[self.I] = self.ki * e + (ua - uc) / L.tt
@@ -1124,7 +1144,7 @@ class ContinuousHybrid:
                 v = v + dZ[self.I]
             if self.D is not None:
                 v = v + self.kd / self.tf * (-ydot - dZ[self.D])
-            return v
+            return v if self.N is None else self.Cn @ dZ[self.N:self.N + self.nn] + self.Dn * v
         return self.Cc @ dZ[self.c0:self.c0 + self.nc] - self.Dc * ydot
 
     def uc_rate(self, z, t, mode, ctx):
@@ -1156,7 +1176,7 @@ class ContinuousHybrid:
             if s:
                 lim = self.limit(s)
                 if self.clamps:
-                    z[self.I] += lim - uc
+                    z[self.I] += (lim - uc) / (self.Dn if self.N is not None else 1.0)
                     frozen = s * self.uc_rate(z, t, Mode(s, "frozen", 0), ctx)
                     drive = s * self.ki * e
                     if drive > 0:
@@ -1349,6 +1369,11 @@ class ContinuousHybrid:
             if self.D is not None:
                 row_uc = row_uc - self.kd / self.tf * (cy + e_[self.D])
                 c_uc += self.kd / self.tf * (L.c * L.r - ctx.n)
+            row_v, c_v = row_uc, c_uc
+            if self.N is not None:
+                row_uc = self.Dn * row_v
+                row_uc[self.N:self.N + self.nn] += self.Cn
+                c_uc = self.Dn * c_v
         else:
             row_uc = -self.Dc * cy
             row_uc[self.c0:self.c0 + self.nc] += self.Cc
@@ -1374,6 +1399,11 @@ class ContinuousHybrid:
             if self.D is not None:
                 M[self.D] = (-cy - e_[self.D]) / self.tf
                 m[self.D] = (L.c * L.r - ctx.n) / self.tf
+            if self.N is not None:
+                sl = slice(self.N, self.N + self.nn)
+                M[sl] = np.outer(self.Bn, row_v)
+                M[sl, sl] += self.An
+                m[sl] = self.Bn * c_v
             if self.I is not None:
                 if self.clamps and mode.kind == "frozen":
                     pass
@@ -1386,6 +1416,10 @@ class ContinuousHybrid:
                         M[self.I] += self.kd / self.tf * (yd_row + M[self.D])
                         m[self.I] += self.kd / self.tf * (yd_c + m[self.D])
                         bu[self.I] += self.kd / self.tf * yd_u
+                    if self.N is not None:
+                        sl = slice(self.N, self.N + self.nn)
+                        M[self.I] -= self.Cn @ M[sl] / self.Dn
+                        m[self.I] -= self.Cn @ m[sl] / self.Dn
                 elif self.backcalc:
                     M[self.I] = self.ki * row_e + (row_ua - row_uc) / L.tt
                     m[self.I] = self.ki * c_e + (c_ua - c_uc) / L.tt
@@ -2116,11 +2150,17 @@ class SpecOracle:
         if c.get("measurement_filter"):
             # u = N·(C_r·r − C·F·y) has two inputs; the described loop's state-space controller acts on e.
             raise NotImplementedError("a measurement filter (two-input controller) on the described loop")
+        notch_tf = None
         if c.get("notch"):
-            # The tool runs C·N as one state space (README "Filters"); with b = c = 1 it acts on e.
-            if float(c.get("setpoint_weight", ctl["setpoint_weight"])) != 1.0 or ctl["derivative_on"] == "measurement":
-                raise NotImplementedError("a notch with set-point weights on the described loop")
-            par = None
+            # README "Filters": the parallel law with the notch after it as its own block
+            # (u_c = N·v), the anti-windup on the PID's integrator against u_c.
+            w, depth, width = (float(c["notch"][k]) for k in ("frequency", "depth", "width"))
+            notch_tf = ([1.0, 2.0 * depth * width * w, w * w], [1.0, 2.0 * width * w, w * w])
+            if not par:
+                raise NotImplementedError("a notch on a controller without a parallel form on the described loop")
+            if num(ctl.get("sample_time")):
+                # The sampled parallel law with N (Tustin derivative, N prewarped) is not rebuilt here.
+                raise NotImplementedError("a sampled controller with a notch on the described loop")
         parallel = (float(par["kp"]), float(par["ki"]), float(par["kd"]), float(par["filter_time"])) if par else None
         tt = num(nl.get("tracking_time")) or num(ctl.get("tracking_time"))
         if tt is None and parallel and parallel[1]:
@@ -2149,7 +2189,7 @@ class SpecOracle:
                              r=self.r, td=float(dist["time"]), dsize=float(dist["size"]), noise_rms=noise_rms,
                              noise_period=period, seed=int(dist["seed"]), delay=self.delay, horizon=horizon, ts=ts,
                              de=(de["reference_numerator"], de["measurement_numerator"], de["denominator"]) if de else None,
-                             structure=c["structure"])
+                             structure=c["structure"], notch=notch_tf)
 
     def linear_equivalent(self, loop, pieces):
         """The described loop equals the linear one: linear plant, continuous controller, no delay,

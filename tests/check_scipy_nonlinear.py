@@ -31,6 +31,9 @@ Checks per case (tolerances and why):
   overshoot      |Δ| <= 1e-3 percentage points, both measured as the largest sample of y/y∞ at
                  the probe's samples, y∞ = r (integral action); only integration error remains.
   saturated      |Δ fraction| <= 1e-5: time at a limit ÷ horizon from the located switch times.
+A PID with a notch and a measurement filter (filtered_windup_reference.py): the same loop with F
+before and N after the PID as separate blocks, continuous (solve_ivp with events) and sampled (a
+hand-written recursion), with back-calculation and clamping; the tolerances as above.
 The last line is "N passed, M failed"; exit status 1 on any failure.
 Transport delay and sampled controller (the loops below are invented):
 
@@ -87,6 +90,7 @@ import numpy as np
 from scipy import signal
 from scipy.integrate import solve_ivp
 
+from filtered_windup_reference import check_filtered
 from reference_common import TerminalEvents, Tally, sample_segments, solve_piece
 
 TOL_TRACE = 1e-4
@@ -570,6 +574,7 @@ def main():
     tally.check("malformed", "min > max rejected with exit 2", rc == 2 and "min < max" in err, err.strip())
     check_delay_and_sampling(tally, args.nonlinear_probe)
     check_expression_plants(tally, args.nonlinear_probe)
+    check_filtered(tally, args.nonlinear_probe, pid_gains, run_probe)
     print(f"{tally.passed} passed, {tally.failed} failed")
     return 1 if tally.failed else 0
 

@@ -67,6 +67,25 @@ bool samples_parallel_law(const Controller& controller) {
          !controller.notch && !controller.measurement_filter;
 }
 
+bool samples_filtered_parallel_law(const Controller& controller) {
+  return (controller.notch || controller.measurement_filter) && samples_parallel_law(without_filters(controller));
+}
+
+DiscreteSection measurement_filter_section(const MeasurementFilter& f, double ts) {
+  std::vector<double> fd;
+  measurement_filter_polynomials(f, fd);
+  auto [num, den] = tustin_of(Polynomial({1.0}), Polynomial(fd), ts);
+  return {num, den};
+}
+
+DiscreteSection notch_section(const NotchFilter& f, double ts) {
+  if (!(f.frequency * ts < std::numbers::pi)) fail("notch frequency at or above the Nyquist frequency π/sample_time");
+  double n3[3], d3[3];
+  notch_polynomials(f, n3, d3);
+  auto [num, den] = tustin_of(Polynomial({n3[0], n3[1], n3[2]}), Polynomial({d3[0], d3[1], d3[2]}), ts, f.frequency);
+  return {num, den};
+}
+
 }  // namespace nonlinear_loop
 
 DifferenceEquation controller_difference_equation(const Controller& controller, double ts, double setpoint_weight,
@@ -87,20 +106,14 @@ DifferenceEquation controller_difference_equation(const Controller& controller, 
     eq.denominator = md;
     eq.method = "C_r(s) and C(s) by Tustin (bilinear) over one denominator";
     if (controller.measurement_filter) {
-      std::vector<double> fd;
-      measurement_filter_polynomials(*controller.measurement_filter, fd);
-      auto [fzn, fzd] = tustin_of(Polynomial({1.0}), Polynomial(fd), ts);
+      const auto [fzn, fzd] = nonlinear_loop::measurement_filter_section(*controller.measurement_filter, ts);
       eq.measurement_numerator = poly_mul(eq.measurement_numerator, fzn);
       eq.reference_numerator = poly_mul(eq.reference_numerator, fzd);
       eq.denominator = poly_mul(eq.denominator, fzd);
       eq.method += "; measurement filter F(s) by Tustin";
     }
     if (controller.notch) {
-      const NotchFilter& f = *controller.notch;
-      if (!(f.frequency * ts < std::numbers::pi)) fail("notch frequency at or above the Nyquist frequency π/sample_time");
-      double n3[3], d3[3];
-      notch_polynomials(f, n3, d3);
-      auto [nzn, nzd] = tustin_of(Polynomial({n3[0], n3[1], n3[2]}), Polynomial({d3[0], d3[1], d3[2]}), ts, f.frequency);
+      const auto [nzn, nzd] = nonlinear_loop::notch_section(*controller.notch, ts);
       eq.measurement_numerator = poly_mul(eq.measurement_numerator, nzn);
       eq.reference_numerator = poly_mul(eq.reference_numerator, nzn);
       eq.denominator = poly_mul(eq.denominator, nzd);

@@ -102,6 +102,16 @@ struct LoopModel : PidLaw {
   // Parallel controller.
   bool parallel = false;
   int i_index = -1, d_index = -1;
+  // Its filters as their own states (controller.measurement_filter, controller.notch):
+  // u_c = N·v, v = Kp·(b·r − y_f) + I + Kd·D(c·r − y_f), I' = Ki·(r − y_f), y_f = F·(y + n).
+  // F: order 1, f' = (y + n − f)/Tf; order 2, with the states (y_f, Tf·y_f'),
+  //    f0' = f1/Tf, f1' = (2·(y + n − f0) − 2·f1)/Tf.
+  // N: the states (ωn²·z, ωn·z'), z'' + 2ζp·ωn·z' + ωn²·z = v, so that
+  //    q0' = ωn·q1, q1' = ωn·(v − q0 − 2ζp·q1), u_c = v + 2(ζz − ζp)·q1 (biproper, D = 1).
+  int f_index = -1, f_order = 0;
+  double f_time = 0;
+  int n_index = -1;
+  double n_freq = 0, n_zeta_p = 0, n_zeta_z = 0;
   // State-space controller on e = r − y.
   Eigen::MatrixXd ac;
   Eigen::VectorXd bc;
@@ -128,8 +138,10 @@ struct LoopModel : PidLaw {
     for (int i = 0; i < np; ++i) y += cp(i) * x[i];
     return y;
   }
-  // The control error as the controller sees it (through the noisy measurement).
-  double error(const double* x) const { return r - output(x) - n; }
+  // The measurement as the PID reads it: y_f = F·(y + n), or y + n without F.
+  double measured(const double* x) const { return f_index >= 0 ? x[f_index] : output(x) + n; }
+  // The control error as the controller sees it (through the noisy, filtered measurement).
+  double error(const double* x) const { return r - measured(x); }
   // The part of u_c that is linear in the state and the output.
   double command_linear(const double* x) const { return command_linear(x, output(x)); }
   // u_c' along the loop's state rate xdot at x (the command's linear part applied to x', y').
@@ -138,13 +150,20 @@ struct LoopModel : PidLaw {
   }
   double command_linear(const double* x, double y) const {
     if (parallel) {
-      double u = -kp * y;
-      if (i_index >= 0) u += x[i_index];
-      if (d_index >= 0) u += kd / tf * (-y - x[d_index]);
+      double u = pid_linear(x, y);
+      if (n_index >= 0) u += 2.0 * (n_zeta_z - n_zeta_p) * x[n_index + 1];
       return u;
     }
     double u = -dc * y;
     for (int i = 0; i < nc; ++i) u += cc(i) * x[c_index + i];
+    return u;
+  }
+  // The PID's output v's part linear in the state and the output (before the notch).
+  double pid_linear(const double* x, double y) const {
+    const double yl = f_index >= 0 ? x[f_index] : y;
+    double u = -kp * yl;
+    if (i_index >= 0) u += x[i_index];
+    if (d_index >= 0) u += kd / tf * (-yl - x[d_index]);
     return u;
   }
   double command(const double* x) const { return command_linear(x) + command_r * r - command_n * n; }
@@ -158,7 +177,7 @@ struct LoopModel : PidLaw {
     const double y = output(x), uc = command(x), us = saturated(uc, m);
     const double ua = (rate && m.rate != RateMode::tracking) ? x[ua_index] : us;
     const double up = delay ? delay->value(t - delay->delay) : ua;
-    const double e = r - y - n;
+    const double e = parallel ? r - (f_index >= 0 ? x[f_index] : y + n) : r - y - n;
     if (pm) {
       pm->derivative(x, up + d, dx);
     } else {
@@ -169,6 +188,7 @@ struct LoopModel : PidLaw {
       }
     }
     if (parallel) {
+      filter_derivatives(x, dx, y);
       if (i_index >= 0) {
         switch (anti_windup) {
           case AntiWindup::none: dx[i_index] = ki * e; break;
@@ -178,8 +198,7 @@ struct LoopModel : PidLaw {
               // region) nor frozen (u_c would leave the limit inward) is consistent, so the
               // integrator moves just enough to hold u_c' = 0.
               dx[i_index] = 0.0;
-              if (d_index >= 0) dx[d_index] = (c * r - y - n - x[d_index]) / tf;
-              dx[i_index] = -command_rate(x, dx);
+              dx[i_index] = -command_rate(x, dx);  // ∂u_c/∂I = 1 (the notch's D = 1)
             } else {
               dx[i_index] = m.integrating ? ki * e : 0.0;
             }
@@ -187,7 +206,6 @@ struct LoopModel : PidLaw {
           case AntiWindup::back_calculation: dx[i_index] = ki * e + (ua - uc) / tt; break;
         }
       }
-      if (d_index >= 0) dx[d_index] = (c * r - y - n - x[d_index]) / tf;
     } else {
       for (int i = 0; i < nc; ++i) {
         double s = two_input ? br(i) * r - bc(i) * (y + n) : bc(i) * e;
@@ -196,6 +214,26 @@ struct LoopModel : PidLaw {
       }
     }
     if (rate) dx[ua_index] = m.rate == RateMode::up ? rate_max : (m.rate == RateMode::down ? -rate_max : 0.0);
+  }
+
+  // The rates of the PID's derivative state and of the filters' states (everything of the
+  // parallel controller but its integrator), at x with output y.
+  void filter_derivatives(const double* x, double* dx, double y) const {
+    const double ym = y + n, yf = f_index >= 0 ? x[f_index] : ym;
+    if (d_index >= 0) dx[d_index] = (c * r - yf - x[d_index]) / tf;
+    if (f_index >= 0) {
+      if (f_order == 2) {
+        dx[f_index] = x[f_index + 1] / f_time;
+        dx[f_index + 1] = 2.0 * (ym - x[f_index] - x[f_index + 1]) / f_time;
+      } else {
+        dx[f_index] = (ym - x[f_index]) / f_time;
+      }
+    }
+    if (n_index >= 0) {
+      const double v = pid_linear(x, y) + command_r * r - command_n * n;
+      dx[n_index] = n_freq * x[n_index + 1];
+      dx[n_index + 1] = n_freq * (v - x[n_index] - 2.0 * n_zeta_p * x[n_index + 1]);
+    }
   }
 
   bool clamps() const { return parallel && i_index >= 0 && anti_windup == AntiWindup::conditional_integration; }

@@ -149,9 +149,42 @@ void set_state_space_controller(LoopModel& model, const Controller& controller, 
                          "no anti-windup, set-point and derivative weights not applied");
 }
 
-// A controller with filters (u = N·(C_r·r − C·F·y)): the two-input controller realized as one state
-// space from C·F·N and C_r·N, its states from index `size` on. The anti-windup of the parallel
-// form is not applied to it (a note says so).
+// The filters of a parallel controller as their own states from index `size` on (loop_model.hpp):
+// F on the measurement the PID reads, N after the PID's output. The PID's integrator keeps its
+// anti-windup: u_c is the command after N, and ∂u_c/∂I = 1 since N(∞) = 1.
+void add_filter_states(LoopModel& model, const Controller& controller, const LoopOptions& options, int& size,
+                       NonlinearResult& result) {
+  if (const auto& f = controller.measurement_filter) {
+    if (!(f->order == 1 || f->order == 2) || !(f->time_constant > 0.0) || !std::isfinite(f->time_constant))
+      fail("controller.measurement_filter: expected order 1 or 2 and a finite time constant > 0");
+    model.f_index = size;
+    model.f_order = f->order;
+    model.f_time = f->time_constant;
+    size += f->order;
+    model.command_n = 0.0;  // the noise reaches u_c only through F's states
+  }
+  if (const auto& f = controller.notch) {
+    if (!(f->frequency > 0.0) || !std::isfinite(f->frequency) || !(f->depth > 0.0) || !(f->width > 0.0))
+      fail("controller.notch: expected a finite frequency > 0, depth and width > 0");
+    model.n_index = size;
+    model.n_freq = f->frequency;
+    model.n_zeta_p = f->width;
+    model.n_zeta_z = f->depth * f->width;
+    size += 2;
+  }
+  result.notes.push_back(std::string("controller with ") +
+                         (controller.notch && controller.measurement_filter ? "a notch and a measurement filter"
+                          : controller.notch                               ? "a notch"
+                                                                           : "a measurement filter") +
+                         ": u = N·v, v the parallel PID law on the filtered measurement F·y" +
+                         (options.anti_windup != AntiWindup::none && model.i_index >= 0
+                              ? "; anti-windup on the PID's integrator against the command after N"
+                              : ""));
+}
+
+// A controller with filters and no parallel form (u = N·(C_r·r − C·F·y)): the two-input
+// controller realized as one state space from C·F·N and C_r·N, its states from index `size` on.
+// It has no integrator of its own for an anti-windup (a note says so).
 void set_filtered_controller(LoopModel& model, const Controller& controller, const LoopOptions& options, int& size,
                              NonlinearResult& result) {
   const TwoInputRealization k = controller_realization(controller, options.setpoint_weight, options.derivative_weight);
@@ -171,7 +204,7 @@ void set_filtered_controller(LoopModel& model, const Controller& controller, con
                          (controller.notch && controller.measurement_filter ? "a notch and a measurement filter"
                           : controller.notch                               ? "a notch"
                                                                            : "a measurement filter") +
-                         ": u = N·(C_r·r − C·F·y) realized as one two-input state space" +
+                         ": u = N·(C_r·r − C·F·y) realized as one two-input state space (no parallel form)" +
                          (options.anti_windup != AntiWindup::none ? "; anti-windup not applied to it" : ""));
 }
 
@@ -192,9 +225,15 @@ LoopModel loop_model_of(const StateSpace& plant, const Controller& controller, c
   model.umin = actuator.min;
   model.umax = actuator.max;
   int size = model.np;
-  if (controller.notch || controller.measurement_filter) set_filtered_controller(model, controller, options, size, result);
-  else if (controller.parallel) set_parallel_controller(model, *controller.parallel, options, size, result);
-  else set_state_space_controller(model, controller, size, result);
+  const bool filtered = controller.notch || controller.measurement_filter;
+  if (controller.parallel) {
+    set_parallel_controller(model, *controller.parallel, options, size, result);
+    if (filtered) add_filter_states(model, controller, options, size, result);
+  } else if (filtered) {
+    set_filtered_controller(model, controller, options, size, result);
+  } else {
+    set_state_space_controller(model, controller, size, result);
+  }
   if (actuator.rate_max) {
     model.rate = true;
     model.rate_max = *actuator.rate_max;
@@ -364,7 +403,8 @@ NonlinearResult simulate_nonlinear(const StateSpace& plant, const Controller& co
   const StateSpace linear = close_loop(plant, realize(controller.transfer));
   const bool weights_applied = model.parallel && (!(period > 0.0) || samples_parallel_law(controller));
   const bool filtered_integral = controller.parallel && controller.parallel->ki != 0.0;
-  const double reference_weight_dc = model.two_input ? (filtered_integral ? 1.0 : options.setpoint_weight)
+  const bool filtered = controller.notch || controller.measurement_filter;
+  const double reference_weight_dc = filtered ? (filtered_integral ? 1.0 : options.setpoint_weight)
                                      : weights_applied && model.ki == 0.0 ? model.b : 1.0;
   const double y_inf = amplitude * loop_dc_gain(plant, controller.transfer, reference_weight_dc);
 

@@ -6,7 +6,9 @@
 #include <array>
 #include <cmath>
 #include <limits>
+#include <optional>
 #include <string>
+#include <utility>
 #include <vector>
 
 #include <boost/numeric/odeint.hpp>
@@ -19,11 +21,39 @@
 namespace specloop::nonlinear_loop {
 namespace {
 
+// A filter's difference equation in direct form (newest first in the histories).
+struct Section {
+  DiscreteSection eq;
+  std::vector<double> in, out;  // x[k−1], x[k−2], …; y[k−1], y[k−2], …
+  explicit Section(DiscreteSection e)
+      : eq(std::move(e)), in(eq.num.size() > 1 ? eq.num.size() - 1 : 0, 0.0), out(eq.den.size() - 1, 0.0) {}
+  // The output for the input x at this sample, the histories untouched.
+  double peek(double x) const {
+    double y = eq.num[0] * x;
+    for (std::size_t j = 1; j < eq.num.size(); ++j) y += eq.num[j] * in[j - 1];
+    for (std::size_t j = 1; j < eq.den.size(); ++j) y -= eq.den[j] * out[j - 1];
+    return y;
+  }
+  // The sample taken: x in, y out.
+  void commit(double x, double y) {
+    if (!in.empty()) {
+      std::rotate(in.rbegin(), in.rbegin() + 1, in.rend());
+      in[0] = x;
+    }
+    if (!out.empty()) {
+      std::rotate(out.rbegin(), out.rbegin() + 1, out.rend());
+      out[0] = y;
+    }
+  }
+};
+
 // The controller as difference equations, with its anti-windup at the samples.
 struct SampledController : PidLaw {
   double ts = 0.0;
   bool parallel = false;
-  double a_d = 0;
+  double a_d = 0, g_d = 0;  // derivative: D[k] = a_d·D[k−1] + g_d·(v[k] − v[k−1])
+  // A parallel law with filters: F on the measurement, N after the PID (empty: absent).
+  std::optional<Section> filter, notch;
   double umin = 0, umax = 0;
   // Parallel-form states.
   double integral = 0, deriv = 0, e_prev = 0, v_prev = 0, uc_prev = 0;
@@ -44,18 +74,28 @@ struct SampledController : PidLaw {
   double update(double r, double y) {
     held = false;
     if (parallel) {
+      const double ym = y;
+      if (filter) {
+        y = filter->peek(ym);
+        filter->commit(ym, y);
+      }
       const double e = r - y, v = c * r - y;
       const double p = kp * (b * r - y);
       double di = ki != 0.0 ? ki * ts / 2.0 * (e + e_prev) : 0.0;
       if (ki != 0.0 && anti_windup == AntiWindup::back_calculation) di += ts / tt * (ua_prev - uc_prev);
-      const double dn = kd != 0.0 ? a_d * deriv + kd / (tf + ts) * (v - v_prev) : 0.0;
-      double uc = p + integral + di + dn;
+      const double dn = kd != 0.0 ? a_d * deriv + g_d * (v - v_prev) : 0.0;
+      // The command after N: N's direct term N_d(∞) > 0 (the notch's numerator and denominator are
+      // positive on the real axis), so an increment moves u_c the way it moves the PID's output.
+      auto after_notch = [&](double pid) { return notch ? notch->peek(pid) : pid; };
+      double pid = p + integral + di + dn, uc = after_notch(pid);
       tentative = uc;
       if (ki != 0.0 && anti_windup == AntiWindup::conditional_integration && ((uc > umax && di > 0.0) || (uc < umin && di < 0.0))) {
         di = 0.0;  // conditional integration: the increment would push further into the limit
-        uc = p + integral + dn;
+        pid = p + integral + dn;
+        uc = after_notch(pid);
         held = true;
       }
+      if (notch) notch->commit(pid, uc);
       integral += di;
       deriv = dn;
       e_prev = e;
@@ -93,7 +133,17 @@ SampledController make_sampled(const Controller& controller, const LoopModel& mo
   if (samples_parallel_law(controller)) {
     sc.parallel = true;
     static_cast<PidLaw&>(sc) = model;
-    sc.a_d = sc.kd != 0.0 ? sc.tf / (sc.tf + ts) : 0.0;
+    sc.a_d = sc.kd != 0.0 ? sc.tf / (sc.tf + ts) : 0.0;  // backward difference
+    sc.g_d = sc.kd != 0.0 ? sc.kd / (sc.tf + ts) : 0.0;
+  } else if (samples_filtered_parallel_law(controller)) {
+    // As the linear sampled loop (controller_difference_equation): the PID's terms by Tustin
+    // (Tustin of a sum is the sum of the terms' images), F by Tustin, N by Tustin prewarped.
+    sc.parallel = true;
+    static_cast<PidLaw&>(sc) = model;
+    sc.a_d = sc.kd != 0.0 ? (2.0 * sc.tf - ts) / (2.0 * sc.tf + ts) : 0.0;
+    sc.g_d = sc.kd != 0.0 ? 2.0 * sc.kd / (2.0 * sc.tf + ts) : 0.0;
+    if (controller.measurement_filter) sc.filter.emplace(measurement_filter_section(*controller.measurement_filter, ts));
+    if (controller.notch) sc.notch.emplace(notch_section(*controller.notch, ts));
   } else {
     sc.num = sc.equation.measurement_numerator;
     sc.den = sc.equation.denominator;
@@ -297,7 +347,10 @@ class SampledIntegration {
 bool run_sampled(RunState& run, const Controller& controller) {
   SampledController ctl = make_sampled(controller, run.model, run.period);
   run.result.difference_equation = ctl.equation;
-  if (ctl.two_input)
+  if (ctl.filter || ctl.notch)
+    run.result.notes.push_back("sampled controller with filters: the PID's terms by Tustin on F·y (F by Tustin), N after them "
+                               "(Tustin prewarped at ωn); anti-windup on the integrator against the command after N");
+  else if (ctl.two_input)
     run.result.notes.push_back("sampled controller with filters: its difference equation u = N·(C_r·r − C·F·y) as one "
                                "direct form; anti-windup not applied");
   else if (!ctl.parallel && controller.parallel)

@@ -8,7 +8,9 @@
 //                  (an ExpressionPlant: the equilibrium is found from the guess with u = u0, the
 //                  loop runs in deviation variables around it; actuator limits, amplitude and all
 //                  printed traces are then deviations too),
-//    "controller": {"structure": "pi", "series": [...], "derivative_filter": 10},
+//    "controller": {"structure": "pi", "series": [...], "derivative_filter": 10,
+//                   "notch": {"frequency": 30, "depth": 0.1, "width": 0.3},        optional
+//                   "measurement_filter": {"order": 1, "time_constant": 0.01}},    optional
 //    "actuator":   {"min": -1, "max": 1, "rate_max": 0.5},             all optional
 //    "options":    {"anti_windup": "conditional-integration", "setpoint_weight": 1, "derivative_weight": 1,
 //                   "tracking_time_s": 1, "disturbance_time_s": 0, "disturbance_size": 0,
@@ -28,6 +30,7 @@
 #include <cstdint>
 #include <iostream>
 #include <memory>
+#include <optional>
 #include <stdexcept>
 #include <string>
 #include <vector>
@@ -105,12 +108,33 @@ int run() {
                                 Polynomial(numbers(p.at("denominator"), "plant.denominator")));
   }
   const json& c = in.at("controller");
-  only_keys(c, "controller", {"structure", "series", "derivative_filter"});
+  only_keys(c, "controller", {"structure", "series", "derivative_filter", "notch", "measurement_filter"});
   const auto structure = parse_structure(c.at("structure").get<std::string>());
   if (!structure) throw InputError("controller.structure: unknown name");
-  const Controller controller =
+  Controller controller =
       make_controller(*structure, numbers(c.at("series"), "controller.series"),
                       c.contains("derivative_filter") ? number(c["derivative_filter"], "controller.derivative_filter") : 10.0);
+  std::optional<NotchFilter> notch;
+  std::optional<MeasurementFilter> measurement;
+  if (c.contains("notch")) {
+    const json& n = c["notch"];
+    only_keys(n, "controller.notch", {"frequency", "depth", "width"});
+    notch = NotchFilter{number(n.at("frequency"), "controller.notch.frequency"), number(n.at("depth"), "controller.notch.depth"),
+                        number(n.at("width"), "controller.notch.width")};
+  }
+  if (c.contains("measurement_filter")) {
+    const json& f = c["measurement_filter"];
+    only_keys(f, "controller.measurement_filter", {"order", "time_constant"});
+    measurement = MeasurementFilter{f.at("order").get<int>(),
+                                    number(f.at("time_constant"), "controller.measurement_filter.time_constant")};
+  }
+  if (notch || measurement) {
+    try {
+      controller = with_filters(std::move(controller), notch, measurement);
+    } catch (const std::invalid_argument& e) {
+      throw InputError(std::string("controller: ") + e.what());
+    }
+  }
 
   ActuatorModel act;
   if (in.contains("actuator")) {

@@ -167,8 +167,12 @@ DifferenceEquation controller_difference_equation(const Controller& controller, 
 ///
 /// Controller: with parallel gains, u_c = Kp·(b·r − y) + I + Kd·s/(Tf·s + 1)·(c·r − y) and
 /// I' = Ki·(r − y) modified by the anti-windup (Åström & Hägglund, Advanced PID Control, 2006,
-/// ch. 3). Without parallel gains (lag, lead-lag), C(s) acts on e = r − y and neither weights nor
-/// anti-windup apply (a note says so). The plant must be strictly proper (no algebraic loop).
+/// ch. 3). With filters (controller.notch N, controller.measurement_filter F) the same law reads
+/// y_f = F·(y + n) in place of y and u_c = N·(its output); F and N are extra linear states and the
+/// anti-windup acts on I against that u_c (N(∞) = 1). Without parallel gains (lag, lead-lag), C(s)
+/// acts on e = r − y (with filters: u = N·(C_r·r − C·F·y) as one two-input state space) and neither
+/// weights nor anti-windup apply (a note says so). The plant must be strictly proper (no algebraic
+/// loop).
 ///
 /// Metrics use the linear definitions of StepMetrics measured on the samples: y∞ is the linear
 /// loop's r·T(0) (final-value theorem), also when a limit or disturbance changes the true final
@@ -207,7 +211,12 @@ DifferenceEquation controller_difference_equation(const Controller& controller, 
 ///     v = c·r − y: D[k] = Tf/(Tf + Ts)·D[k−1] + Kd/(Tf + Ts)·(v[k] − v[k−1]) (pole in (0, 1):
 ///     stable for every Tf > 0);
 ///   lead, lag, lead-lag: Tustin of C(s), s = (2/Ts)·(1 − z⁻¹)/(1 + z⁻¹), acting on e = r − y
-///     in direct form (no weights, no anti-windup, as in the continuous case).
+///     in direct form (no weights, no anti-windup, as in the continuous case);
+///   p, pi, pd, pid with filters: the same P and integral on y_f[k] = F_d·(y + n) (F by Tustin),
+///     the derivative by Tustin, D[k] = (2Tf − Ts)/(2Tf + Ts)·D[k−1] + 2Kd/(2Tf + Ts)·(v[k] − v[k−1]),
+///     and u_c[k] = N_d·(P + I + D) (N by Tustin prewarped at ωn): term by term the equation
+///     reported (Tustin of C_r, C, F and N), with the anti-windup below on I against that u_c;
+///     other structures with filters: that equation in direct form, without anti-windup.
 /// The command is saturated at the sample; anti-windup acts at the samples: clamping skips the
 /// integral increment when the command with it lies beyond a limit and the increment pushes
 /// further; back-calculation adds the discrete tracking term Ts/Tt·(u_a[k−1] − u_c[k−1]) to the
@@ -224,7 +233,8 @@ DifferenceEquation controller_difference_equation(const Controller& controller, 
 ///
 /// Measurement noise (noise_rms > 0): values n_k = gaussian_sequence(noise_rms, noise_seed)[k],
 /// each held over [k·Tn, (k+1)·Tn), Tn = noise_period_s; the controller reads y + n (proportional,
-/// integral and derivative terms, and e for the state-space form). With a continuous controller
+/// integral and derivative terms, and e for the state-space form; through F when the controller has
+/// a measurement filter). With a continuous controller
 /// every k·Tn is a break point where the integration restarts (the noise is a staircase, so the
 /// right-hand side stays smooth within a piece); a sampled controller reads y(k·Ts) + n at its
 /// samples. The recorded output and the metrics are the noise-free plant output.
