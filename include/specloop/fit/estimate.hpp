@@ -49,7 +49,7 @@ FirstOrderGuess least_squares_first_order(const PreparedData& d, bool integratin
 struct StartValues {
   std::vector<double> values;
   std::string method;  // "smith-two-point", "sundaresan-krishnaswamy", "least-squares"
-  std::vector<std::vector<double>> alternatives;  // further starts, each solved (the lowest cost kept)
+  std::vector<std::vector<double>> alternatives;  // further starts, each solved 20 iterations (the lowest cost solved on)
 };
 /// Starting values for a kind (see estimate.cpp for each kind's conversion).
 StartValues start_values(const PreparedData& d, const ModelShape& shape);
