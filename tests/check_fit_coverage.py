@@ -8,10 +8,11 @@ Invoked by CTest as
 narrow the run; `--keep DIR` keeps the CSVs and outputs.)
 
 For each model kind (tests/fit_reference.py: first-order-delay, second-order-delay,
-underdamped-delay, integrator-delay, poles-zeros with 2 poles and 1 zero) and each noise level
-(σ = 0.2 %, 1 %, 4 % of the output's span), 50 records of the same known plant (one step; the
-integrator a pulse), 400 samples on a logger's uneven grid, differ only in their seeded Gaussian
-noise. SciPy computes each record exactly (fit_reference: cont2discrete ZOH stepping over the
+underdamped-delay, integrator-delay, poles-zeros with 2 poles and 1 zero), each input (one step —
+the integrator a pulse — and a test of several steps; issue 16: "step and multi-step inputs") and
+each noise level (σ = 0.2 %, 1 %, 4 % of the output's span), 50 records of the same known plant,
+400 samples on a logger's uneven grid, differ only in their seeded Gaussian noise (cells of the
+several-steps input are named kind/steps/level). SciPy computes each record exactly (fit_reference: cont2discrete ZOH stepping over the
 sample instants and the delayed input breaks). `specloop fit REC.csv --model KIND --u0 U0 --y0 Y0`
 fits each (the operating point given, so that only the model's parameters are estimated — the
 covariance of those is what is checked).
@@ -33,10 +34,10 @@ Checks:
              < 90 % on these very records, the tool's cell passes when it covers at least as
              often as the control minus 2 records; such cells are marked "ctl" in the table.
   agreement  (printed, asserted in check_fit_scipy.py) the median |tool − SciPy|/σ per cell.
-The table of coverages is printed (tool / control per parameter). Runtime: 750 fits of 400
-samples and as many SciPy fits: 161 s with --jobs 2 on the shared machine at load 6–8, 394 s at
-load 12, so CTest
-labels it slow. Failures the fitter's branch is to fix are listed in fit_reference.KNOWN_FAILING. The last line is "N passed, N failed".
+The table of coverages is printed (tool / control per parameter). Runtime: 1350 fits of 400
+samples and as many SciPy fits: 139 s with --jobs 2 on a quiet machine (the single-step half alone
+took 161 s at load 6–8, 394 s at load 12), so CTest labels it slow. Failures to fix are listed in
+fit_reference.KNOWN_FAILING (empty). The last line is "N passed, N failed".
 """
 import argparse
 import concurrent.futures
@@ -56,6 +57,17 @@ REPS = 50
 SAMPLES = 400
 MIN_COVERAGE = 0.90
 CONTROL_SLACK = 2           # records the tool may trail the SciPy control by, where the control < 90 %
+
+
+def shapes_of(kind, spec):
+    """The inputs of a kind's records: its default one (one step; the integrator a pulse, which is
+    already several steps) and, with 'steps', the multi-step test (issue 16: step and multi-step)."""
+    out = []
+    for name in spec.split(","):
+        shape = fr.default_excitation(kind) if name == "default" else name
+        if shape not in out:
+            out.append(shape)
+    return out
 
 
 def seed_of(ki, li, rep):
@@ -79,6 +91,8 @@ def main():
     ap.add_argument("--reps", type=int, default=REPS)
     ap.add_argument("--kinds", default=",".join(fr.ORDER))
     ap.add_argument("--levels", default=",".join(fr.NOISE_LEVELS))
+    ap.add_argument("--shapes", default="default,steps",
+                    help="inputs: 'default' (fit_reference.default_excitation), 'steps' (several steps)")
     ap.add_argument("--keep")
     args = ap.parse_args()
     tally = fr.KnownTally("check_fit_coverage")
@@ -88,24 +102,28 @@ def main():
     work.mkdir(parents=True, exist_ok=True)
     started = time.monotonic()
     rows = []
+    fits = 0
     try:
         with concurrent.futures.ThreadPoolExecutor(max_workers=args.jobs) as pool:
-            for kind in kinds:
+            for kind, shape in [(k, sh) for k in kinds for sh in shapes_of(k, args.shapes)]:
                 ki = fr.ORDER.index(kind)
-                clean = fr.CleanResponse(kind, fr.default_excitation(kind), samples=SAMPLES)
+                si = 0 if shape == fr.default_excitation(kind) else 1
+                tag = "" if si == 0 else f"{shape}/"   # the default input's cells keep their names
+                clean = fr.CleanResponse(kind, shape, samples=SAMPLES)
                 names = fr.KINDS[kind]["names"]
                 truth = clean.params
                 for level in levels:
                     li = list(fr.NOISE_LEVELS).index(level)
                     recs, tasks = [], []
                     for rep in range(args.reps):
-                        rec = clean.record(level, seed_of(ki, li, rep))
-                        csv = work / f"{kind}_{level}_{rep:02d}.csv"
+                        rec = clean.record(level, seed_of(ki, li, rep) + 100_000 * si)
+                        csv = work / f"{kind}_{shape}_{level}_{rep:02d}.csv"
                         rec.write_csv(csv)
                         recs.append(rec)
-                        tasks.append((args.specloop, csv, work / f"{kind}_{level}_{rep:02d}", kind))
+                        tasks.append((args.specloop, csv, work / f"{kind}_{shape}_{level}_{rep:02d}", kind))
                     results = list(pool.map(one_fit, tasks))
-                    cell = f"{kind}/{level}"
+                    cell = f"{kind}/{tag}{level}"
+                    fits += len(tasks)
                     def usable(rc, e):
                         return e is not None and ((rc == 0 and e.get("status") == "ok") or
                                                   (rc == 1 and e.get("status") == "not_identifiable"))
@@ -146,16 +164,16 @@ def main():
                         tally.check(f"{cell}/{n}", f"coverage of ±2σ ≥ {MIN_COVERAGE:.0%} "
                                     + ("(control < 90 %: ≥ control − 2 records)" if how else ""), ok,
                                     f"tool {tool_hits[n]}/{args.reps}, SciPy {ctl_hits[n]}/{args.reps}")
-                        rows.append((kind, level, n, tool_c, ctl_c, how,
+                        rows.append((kind + ("" if si == 0 else f" ({shape})"), level, n, tool_c, ctl_c, how,
                                      float(np.median(dev[n])) if dev[n] else float("nan")))
     finally:
         if not args.keep:
             shutil.rmtree(work, ignore_errors=True)
     print()
-    print(f"{'kind':<20}{'noise':<8}{'param':<6}{'tool':>7}{'SciPy':>7}  {'':3} median |tool−SciPy|/σ")
+    print(f"{'kind':<28}{'noise':<8}{'param':<6}{'tool':>7}{'SciPy':>7}  {'':3} median |tool−SciPy|/σ")
     for kind, level, n, tc, cc, how, md in rows:
-        print(f"{kind:<20}{level:<8}{n:<6}{tc:>7.0%}{cc:>7.0%}  {how:3} {md:.3g}")
-    print(f"NOTE  {len(kinds) * len(levels) * args.reps} fits in {time.monotonic() - started:.0f} s "
+        print(f"{kind:<28}{level:<8}{n:<6}{tc:>7.0%}{cc:>7.0%}  {how:3} {md:.3g}")
+    print(f"NOTE  {fits} fits in {time.monotonic() - started:.0f} s "
           f"({args.jobs} jobs)")
     return tally.finish()
 
