@@ -24,17 +24,7 @@ import tempfile
 
 from reference_common import Tally
 
-SPEC = """title = "figure rendering check"
-[plant]
-poles = [-1.0, -4.0]
-gain = 4.0
-[controller]
-structure = "pi"
-[requirements]
-overshoot_max_pct = 10.0
-[search]
-max_evaluations = 200
-"""
+from check_output_paths import SPEC  # a small invented PI spec (four figures)
 
 
 def main():

@@ -285,11 +285,12 @@ ModelFit fit_model(const PreparedData& d, const ModelShape& shape, const FitOpti
   set_bounds(problem, theta.data(), shape, fit.names, h, duration);
 
   ceres::Solver::Options so = solver_options();
+  const int default_iterations = so.max_num_iterations;
   ceres::Solver::Summary summary;
   int iterations = 0;
   // Solves from the current parameters, at most `max_iterations` (0: the default) iterations.
   const auto solve = [&](int max_iterations = 0) {
-    so.max_num_iterations = max_iterations > 0 ? max_iterations : solver_options().max_num_iterations;
+    so.max_num_iterations = max_iterations > 0 ? max_iterations : default_iterations;
     ceres::Solve(so, &problem, &summary);
     iterations += static_cast<int>(summary.iterations.size()) - 1;
   };

@@ -138,8 +138,9 @@ struct LoopModel : PidLaw {
     for (int i = 0; i < np; ++i) y += cp(i) * x[i];
     return y;
   }
-  // The measurement as the PID reads it: y_f = F·(y + n), or y + n without F.
-  double measured(const double* x) const { return f_index >= 0 ? x[f_index] : output(x) + n; }
+  // The measurement as the PID reads it: y_f = F·(y + n), or y + n without F (y the output at x).
+  double measured(const double* x, double y) const { return f_index >= 0 ? x[f_index] : y + n; }
+  double measured(const double* x) const { return measured(x, output(x)); }
   // The control error as the controller sees it (through the noisy, filtered measurement).
   double error(const double* x) const { return r - measured(x); }
   // The part of u_c that is linear in the state and the output.
@@ -177,7 +178,7 @@ struct LoopModel : PidLaw {
     const double y = output(x), uc = command(x), us = saturated(uc, m);
     const double ua = (rate && m.rate != RateMode::tracking) ? x[ua_index] : us;
     const double up = delay ? delay->value(t - delay->delay) : ua;
-    const double e = parallel ? r - (f_index >= 0 ? x[f_index] : y + n) : r - y - n;
+    const double e = f_index >= 0 ? r - x[f_index] : r - y - n;  // F is only set for the parallel law
     if (pm) {
       pm->derivative(x, up + d, dx);
     } else {
@@ -219,7 +220,7 @@ struct LoopModel : PidLaw {
   // The rates of the PID's derivative state and of the filters' states (everything of the
   // parallel controller but its integrator), at x with output y.
   void filter_derivatives(const double* x, double* dx, double y) const {
-    const double ym = y + n, yf = f_index >= 0 ? x[f_index] : ym;
+    const double ym = y + n, yf = measured(x, y);
     if (d_index >= 0) dx[d_index] = (c * r - yf - x[d_index]) / tf;
     if (f_index >= 0) {
       if (f_order == 2) {

@@ -7,6 +7,7 @@
 // difference equation. Plants and controllers are invented for the tests.
 #include <catch2/catch.hpp>
 #include <algorithm>
+#include <array>
 #include <cmath>
 #include <vector>
 
@@ -66,6 +67,31 @@ std::vector<double> rk4_two_input(const StateSpace& plant, const TwoInputRealiza
     if (i % every == 0) y.push_back((plant.C.row(0) * z.head(np))(0));
   }
   return y;
+}
+
+// The overshoot of the saturating loop (limits ±1.2) under each anti-windup law — none,
+// back-calculation, conditional integration — with a continuous controller (ts = 0) or one sampled
+// at ts; every run must saturate and none may note a skipped anti-windup (continuous: the
+// conditional integration must hold the integrator some of the time).
+std::array<double, 3> windup_overshoots(const StateSpace& plant, const Controller& c, double ts) {
+  ActuatorModel act;
+  act.min = -1.2;
+  act.max = 1.2;
+  std::array<double, 3> overshoot{};
+  const AntiWindup laws[3] = {AntiWindup::none, AntiWindup::back_calculation, AntiWindup::conditional_integration};
+  for (int i = 0; i < 3; ++i) {
+    LoopOptions opt;
+    opt.horizon_s = 20.0;
+    opt.sample_time_s = ts;
+    opt.anti_windup = laws[i];
+    const NonlinearResult r = simulate_nonlinear(plant, c, act, opt, 1.0, 0.02);
+    REQUIRE(r.status == NonlinearStatus::ok);
+    REQUIRE(r.saturated_fraction > 0.01);
+    overshoot[static_cast<std::size_t>(i)] = r.metrics.overshoot_pct;
+    for (const auto& note : r.notes) CHECK_THAT(note, !Contains("anti-windup not applied"));
+    if (ts == 0.0 && laws[i] == AntiWindup::conditional_integration) CHECK(r.integrator_held_fraction > 0.0);
+  }
+  return overshoot;
 }
 
 }  // namespace
@@ -128,22 +154,7 @@ TEST_CASE("filtered PID without anti-windup: the filters' own states equal the t
 TEST_CASE("filtered PID: the anti-windup acts on the integrator", "[nonlinear][filters]") {
   const StateSpace plant = resonant_plant();
   const Controller c = filtered_pid();
-  ActuatorModel act;
-  act.min = -1.2;
-  act.max = 1.2;
-  double overshoot[3];
-  const AntiWindup laws[3] = {AntiWindup::none, AntiWindup::back_calculation, AntiWindup::conditional_integration};
-  for (int i = 0; i < 3; ++i) {
-    LoopOptions opt;
-    opt.horizon_s = 20.0;
-    opt.anti_windup = laws[i];
-    const NonlinearResult r = simulate_nonlinear(plant, c, act, opt, 1.0, 0.02);
-    REQUIRE(r.status == NonlinearStatus::ok);
-    REQUIRE(r.saturated_fraction > 0.01);
-    overshoot[i] = r.metrics.overshoot_pct;
-    for (const auto& note : r.notes) CHECK_THAT(note, !Contains("anti-windup not applied"));
-    if (laws[i] == AntiWindup::conditional_integration) CHECK(r.integrator_held_fraction > 0.0);
-  }
+  const std::array<double, 3> overshoot = windup_overshoots(plant, c, 0.0);
   // Windup: without anti-windup the integral charges while the command is clipped and the output
   // overshoots far more (common practice; Åström & Hägglund, Advanced PID Control, 2006,
   // anti-windup section).
@@ -183,22 +194,7 @@ TEST_CASE("sampled filtered PID: equals the linear sampled loop, and its anti-wi
   // integrator's error (rtol 1e-12) only.
   CHECK(worst < 1e-9 * std::abs(lin.final_value));
 
-  ActuatorModel act;
-  act.min = -1.2;
-  act.max = 1.2;
-  double overshoot[3];
-  const AntiWindup laws[3] = {AntiWindup::none, AntiWindup::back_calculation, AntiWindup::conditional_integration};
-  for (int i = 0; i < 3; ++i) {
-    LoopOptions o;
-    o.horizon_s = 20.0;
-    o.sample_time_s = ts;
-    o.anti_windup = laws[i];
-    const NonlinearResult r = simulate_nonlinear(plant, c, act, o, 1.0, 0.02);
-    REQUIRE(r.status == NonlinearStatus::ok);
-    REQUIRE(r.saturated_fraction > 0.01);
-    overshoot[i] = r.metrics.overshoot_pct;
-    for (const auto& note : r.notes) CHECK_THAT(note, !Contains("anti-windup not applied"));
-  }
+  const std::array<double, 3> overshoot = windup_overshoots(plant, c, ts);
   CHECK(overshoot[0] > 10.0);
   CHECK(overshoot[1] < 0.5 * overshoot[0]);
   CHECK(overshoot[2] < 0.5 * overshoot[0]);
